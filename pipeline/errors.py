@@ -1,0 +1,64 @@
+"""The kinds of user mistake castline reports, each carrying where it happened.
+
+A user mistake becomes a one-line message and exit code 2 in the CLI; anything
+else that escapes is an internal error (exit code 1).
+"""
+
+from __future__ import annotations
+
+
+class UserError(Exception):
+    """A mistake the user can fix: the message names the place to look."""
+
+    exit_code = 2
+
+    def one_line(self) -> str:
+        """Return the message folded onto a single line."""
+        return " ".join(str(self).split())
+
+
+class SpecError(UserError):
+    """The spec file is unreadable, malformed or inconsistent.
+
+    Rendered as ``FILE:LINE: key.path: what is wrong``.
+    """
+
+    def __init__(self, message: str, *, file: str | None = None, line: int | None = None,
+                 key: str | None = None) -> None:
+        self.message = message
+        self.file = file
+        self.line = line
+        self.key = key
+        super().__init__(self._render())
+
+    def _render(self) -> str:
+        place = ""
+        if self.file:
+            place = f"{self.file}:{self.line}: " if self.line else f"{self.file}: "
+        key = f"{self.key}: " if self.key else ""
+        return f"{place}{key}{self.message}"
+
+
+class DataError(UserError):
+    """The input data cannot be used as the spec describes it.
+
+    Carries the file, and where known the column and the row (the line in the
+    file for CSV, counting the header as line 1).
+    """
+
+    def __init__(self, message: str, *, file: str | None = None, column: str | None = None,
+                 row: int | None = None) -> None:
+        self.message = message
+        self.file = file
+        self.column = column
+        self.row = row
+        super().__init__(self._render())
+
+    def _render(self) -> str:
+        parts = []
+        if self.file:
+            parts.append(f"{self.file}:{self.row}" if self.row else self.file)
+        if self.column:
+            parts.append(f"column '{self.column}'")
+        prefix = ": ".join(parts)
+        return f"{prefix}: {self.message}" if prefix else self.message

@@ -1,0 +1,71 @@
+"""A whole run: the stages in order, each handing a typed value to the next."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from .spec import Spec, load_spec
+from .stages.backtest import BacktestResult, run_backtest
+from .stages.check import CheckedData, check_data
+from .stages.evaluate import Evaluation, evaluate
+from .stages.forecast import ForecastResult, make_forecast
+from .stages.ingest import read_input
+from .stages.publish import RunFolder, publish
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Every table a run's report shows, and where the run folder landed."""
+
+    spec: Spec
+    data: CheckedData
+    backtest: BacktestResult
+    evaluation: Evaluation
+    forecast_result: ForecastResult
+    folder: RunFolder
+
+    @property
+    def metrics(self) -> pd.DataFrame:
+        return self.evaluation.table
+
+    @property
+    def predictions(self) -> pd.DataFrame:
+        return self.backtest.predictions
+
+    @property
+    def coefficients(self) -> pd.DataFrame:
+        return self.forecast_result.coefficients
+
+    @property
+    def forecast(self) -> pd.DataFrame:
+        return self.forecast_result.forecast
+
+    @property
+    def warnings(self) -> list[str]:
+        return self.forecast_result.warnings + self.evaluation.notes
+
+
+def _as_spec(spec_or_path: Spec | str | Path) -> Spec:
+    return spec_or_path if isinstance(spec_or_path, Spec) else load_spec(spec_or_path)
+
+
+def check(spec_or_path: Spec | str | Path) -> CheckedData:
+    """Return the validated data of a spec; writes nothing."""
+    spec = _as_spec(spec_or_path)
+    return check_data(spec, read_input(spec))
+
+
+def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None) -> RunResult:
+    """Run the whole forecast a spec describes and return every table it produced."""
+    spec = _as_spec(spec_or_path)
+    data = check_data(spec, read_input(spec))
+    backtest = run_backtest(spec, data)
+    evaluation = evaluate(backtest)
+    forecast = make_forecast(spec, data)
+    folder = publish(spec, data, backtest, evaluation, forecast,
+                     output_folder=Path(output_folder) if output_folder else None)
+    return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
+                     forecast_result=forecast, folder=folder)

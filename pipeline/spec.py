@@ -1,0 +1,349 @@
+"""The forecast spec: its typed model and the loader that reads it from YAML.
+
+Only this module reads the YAML. Every key is checked: unknown keys are refused
+with the nearest valid key suggested, and each problem is reported as
+``FILE:LINE: key.path: what is wrong``. Relative paths resolve against the
+folder of the spec file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import types
+import typing
+from pathlib import Path
+from typing import Annotated, Any, Literal, Union
+
+import yaml
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    ValidationError,
+    field_validator,
+)
+
+from .errors import SpecError
+
+KeyPath = tuple[str | int, ...]
+MODEL_KINDS = ("mean_baseline", "ols")
+BASELINE = "mean_baseline"
+
+
+class StrictModel(BaseModel):
+    """A spec section: unknown keys are refused, values are immutable."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _name_as_mapping(value: Any) -> Any:
+    """Let a bare column name stand for ``{column: name}``."""
+    if isinstance(value, str):
+        return {"column": value}
+    return value
+
+
+class InputSection(StrictModel):
+    """Where the data lives and how its rows are placed in time."""
+
+    file: Path = Field(description="CSV or Parquet file, relative to the spec's folder")
+    format: Literal["auto", "csv", "parquet"] = "auto"
+    date_column: str
+    period: Literal["month"] = "month"
+    series: list[str] = Field(default_factory=list,
+                              description="columns that together name one series")
+
+    @property
+    def resolved_format(self) -> str:
+        """Return csv or parquet, from the key or else the file's suffix."""
+        if self.format != "auto":
+            return self.format
+        return "parquet" if self.file.suffix.lower() in (".parquet", ".pq") else "csv"
+
+
+class NumericDriver(StrictModel):
+    """A numeric driver used as it is, optionally with polynomial terms."""
+
+    column: str
+    degree: int = Field(1, ge=1, le=6, description="1 = straight line; 2 adds the square")
+
+
+class CategoricalDriver(StrictModel):
+    """A categorical driver turned into numbers."""
+
+    column: str
+    encoding: Literal["one_hot"] = "one_hot"
+    reference: str | None = Field(
+        None, description="level left out as the baseline; default: the most frequent level")
+
+
+class DriversSection(StrictModel):
+    """Columns that explain the target."""
+
+    numeric: list[NumericDriver] = Field(default_factory=list)
+    categorical: list[CategoricalDriver] = Field(default_factory=list)
+
+    @field_validator("numeric", "categorical", mode="before")
+    @classmethod
+    def _names_as_mappings(cls, value: Any) -> Any:
+        if isinstance(value, list):
+            return [_name_as_mapping(item) for item in value]
+        return value
+
+
+class HoldoutValidation(StrictModel):
+    """Hold out the last periods of history; fit on everything before them."""
+
+    method: Literal["holdout"]
+    last_periods: int = Field(ge=1)
+
+
+Validation = Annotated[HoldoutValidation, Field(discriminator="method")]
+
+
+class OutputSection(StrictModel):
+    folder: Path = Field(description="run folders are created inside it")
+
+
+class Spec(StrictModel):
+    """A whole forecast spec, with every path resolved."""
+
+    name: str = Field(min_length=1, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+    description: str = ""
+    input: InputSection
+    target: str
+    drivers: DriversSection = Field(default_factory=DriversSection)
+    intercept: bool = True
+    validation: Validation
+    models: list[Literal["mean_baseline", "ols"]] = Field(default_factory=lambda: ["ols"])
+    output: OutputSection
+
+    _source: Path | None = PrivateAttr(None)
+    _lines: dict = PrivateAttr(default_factory=dict)
+
+    def error(self, key: KeyPath, message: str) -> SpecError:
+        """Return a SpecError placed at a key of the spec file this spec was read from."""
+        line = _line_for(self._lines, key) if self._lines else None
+        return SpecError(message, file=str(self._source) if self._source else None, line=line,
+                         key=format_key_path(key))
+
+    @property
+    def source(self) -> Path | None:
+        """Return the spec file this spec was read from, if any."""
+        return self._source
+
+    @field_validator("models")
+    @classmethod
+    def _baseline_always_first(cls, models: list[str]) -> list[str]:
+        if len(set(models)) != len(models):
+            raise ValueError("a model is listed twice")
+        return [BASELINE] + [m for m in models if m != BASELINE]
+
+    @property
+    def driver_columns(self) -> list[str]:
+        """Return every driver column, numeric first, in spec order."""
+        return [d.column for d in self.drivers.numeric] + [d.column for d in self.drivers.categorical]
+
+
+
+# ---------------------------------------------------------------- the loader
+
+def format_key_path(path: KeyPath) -> str:
+    """Return ``a.b[2].c`` for the path ``("a", "b", 2, "c")``."""
+    text = ""
+    for part in path:
+        if isinstance(part, int):
+            text += f"[{part}]"
+        else:
+            text += f".{part}" if text else str(part)
+    return text
+
+
+def _line_map(node: yaml.Node, path: KeyPath = (), lines: dict | None = None) -> dict[KeyPath, int]:
+    """Return the 1-based line of every key path in a composed YAML tree."""
+    if lines is None:
+        lines = {}
+    lines.setdefault(path, node.start_mark.line + 1)
+    if isinstance(node, yaml.MappingNode):
+        for key_node, value_node in node.value:
+            child = path + (str(key_node.value),)
+            if child in lines:
+                raise _DuplicateKey(child, key_node.start_mark.line + 1)
+            lines[child] = key_node.start_mark.line + 1
+            _line_map(value_node, child, lines)
+    elif isinstance(node, yaml.SequenceNode):
+        for index, item in enumerate(node.value):
+            lines[path + (index,)] = item.start_mark.line + 1
+            _line_map(item, path + (index,), lines)
+    return lines
+
+
+class _DuplicateKey(Exception):
+    def __init__(self, path: KeyPath, line: int) -> None:
+        self.path, self.line = path, line
+
+
+def _line_for(lines: dict[KeyPath, int], path: KeyPath) -> int | None:
+    """Return the line of the path, or of its nearest ancestor written in the file."""
+    for length in range(len(path), -1, -1):
+        if path[:length] in lines:
+            return lines[path[:length]]
+    return None
+
+
+def _section_class(path: KeyPath) -> type[BaseModel] | None:
+    """Return the spec section class found at the key path, if the path leads to one."""
+    current: Any = Spec
+    for part in path:
+        if isinstance(part, int):
+            args = typing.get_args(current)
+            current = args[0] if args else None
+            continue
+        if not (isinstance(current, type) and issubclass(current, BaseModel)):
+            return None
+        field = current.model_fields.get(part)
+        if field is None:
+            return None
+        current = field.annotation
+        # Unwrap Annotated, Optional and single-member unions down to the class.
+        while typing.get_origin(current) in (Annotated, Union, types.UnionType):
+            members = [a for a in typing.get_args(current) if a is not type(None)]
+            if typing.get_origin(current) is Annotated:
+                members = members[:1]
+            if len(members) != 1:
+                break
+            current = members[0]
+    if isinstance(current, type) and issubclass(current, BaseModel):
+        return current
+    return None
+
+
+def _describe(error: dict[str, Any]) -> str:
+    """Turn one pydantic error into plain words, with a suggestion for unknown keys."""
+    kind = error["type"]
+    loc: KeyPath = tuple(p for p in error["loc"])
+    if kind == "extra_forbidden":
+        section = _section_class(loc[:-1])
+        valid = sorted(section.model_fields) if section else []
+        close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
+        hint = f"; did you mean '{close[0]}'?" if close else (
+            f"; valid keys here: {', '.join(valid)}" if valid else "")
+        return f"unknown key{hint}"
+    if kind == "missing":
+        return "this key is required but missing"
+    if kind == "literal_error":
+        return f"{error['msg'].replace('Input should be', 'must be')} (got {error['input']!r})"
+    if kind == "union_tag_invalid":
+        ctx = error.get("ctx", {})
+        return f"unknown method {ctx.get('tag')!r}; expected one of {ctx.get('expected_tags')}"
+    if kind == "union_tag_not_found":
+        return "the key 'method' is required here"
+    message = error["msg"]
+    if message.startswith("Value error, "):
+        message = message[len("Value error, "):]
+    message = message.replace("Input should be", "must be")
+    if kind.endswith("_type") or kind.endswith("_parsing"):
+        message += f" (got {error['input']!r})"
+    return message
+
+
+def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
+    """Return the spec file's data and the line of every key, with a safe loader."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SpecError("no such spec file", file=str(path)) from None
+    except IsADirectoryError:
+        raise SpecError("is a folder, not a spec file", file=str(path)) from None
+    except UnicodeDecodeError:
+        raise SpecError("the spec is not UTF-8 text", file=str(path)) from None
+    except OSError as exc:
+        raise SpecError(f"cannot read the spec: {exc.strerror}", file=str(path)) from None
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        data = yaml.load(text, Loader=yaml.SafeLoader)  # noqa: S506 - SafeLoader constructs no objects
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line = mark.line + 1 if mark else None
+        what = exc.problem or exc.context or "malformed YAML"
+        if "tag" in str(what) or "constructor" in type(exc).__name__.lower():
+            what = f"YAML tags that build objects are not allowed ({what})"
+        raise SpecError(f"{what}", file=str(path), line=line) from None
+    except yaml.YAMLError as exc:
+        raise SpecError(f"malformed YAML: {exc}", file=str(path)) from None
+    if node is None or data is None:
+        raise SpecError("the spec file is empty", file=str(path), line=1)
+    if not isinstance(data, dict):
+        raise SpecError("the spec must be a mapping of keys to values", file=str(path), line=1)
+    try:
+        return data, _line_map(node)
+    except _DuplicateKey as dup:
+        raise SpecError("this key is given twice", file=str(path), line=dup.line,
+                        key=format_key_path(dup.path)) from None
+
+
+def _resolve(raw: Path, base: Path) -> Path:
+    expanded = raw.expanduser()
+    return (expanded if expanded.is_absolute() else base / expanded).resolve()
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Return the typed spec read from a YAML file, with every path resolved.
+
+    Raises SpecError naming the file, line and key of the first problem.
+    """
+    spec_path = Path(path)
+    data, lines = _read_yaml(spec_path)
+    shown = str(spec_path)
+    try:
+        spec = Spec.model_validate(data)
+    except ValidationError as exc:
+        errors = sorted(exc.errors(), key=lambda e: _line_for(lines, tuple(e["loc"])) or 0)
+        first = errors[0]
+        loc = tuple(first["loc"])
+        if first["type"] == "union_tag_invalid":
+            loc += ("method",)
+        raise SpecError(_describe(first), file=shown, line=_line_for(lines, loc),
+                        key=format_key_path(loc) or None) from None
+
+    spec._source = spec_path
+    spec._lines = lines
+    fail = spec.error
+    _check_roles(spec, fail)
+    base = spec_path.resolve().parent
+    data_file = _resolve(spec.input.file, base)
+    if not data_file.exists():
+        raise fail(("input", "file"), f"no such data file: {data_file}")
+    if data_file.is_dir():
+        raise fail(("input", "file"), f"is a folder, not a data file: {data_file}")
+    output_folder = _resolve(spec.output.folder, base)
+    if output_folder.exists() and not output_folder.is_dir():
+        raise fail(("output", "folder"), f"exists and is not a folder: {output_folder}")
+    resolved = spec.model_copy(update={
+        "input": spec.input.model_copy(update={"file": data_file}),
+        "output": spec.output.model_copy(update={"folder": output_folder}),
+    })
+    resolved._source = spec_path
+    resolved._lines = lines
+    return resolved
+
+
+def _check_roles(spec: Spec, fail) -> None:
+    """Refuse a column given two roles (target, date, series, driver) or listed twice."""
+    seen: dict[str, str] = {spec.target: "the target", spec.input.date_column: "the date column"}
+    for index, column in enumerate(spec.input.series):
+        if column in seen:
+            raise fail(("input", "series", index), f"column '{column}' is already {seen[column]}")
+        seen[column] = "a series column"
+    series = set(spec.input.series)
+    for group in ("numeric", "categorical"):
+        for index, driver in enumerate(getattr(spec.drivers, group)):
+            key = ("drivers", group, index, "column")
+            column = driver.column
+            if column in seen and not (group == "categorical" and column in series
+                                       and seen[column] == "a series column"):
+                raise fail(key, f"column '{column}' is already {seen[column]}")
+            seen[column] = "a driver"
+    if not spec.intercept and not spec.driver_columns:
+        raise fail(("intercept",), "a model without an intercept needs at least one driver")

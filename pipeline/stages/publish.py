@@ -1,0 +1,182 @@
+"""Publish: write the run folder. The only stage that writes anything.
+
+Everything is written into a hidden temporary folder beside the final one and
+renamed into place at the end, so a failed or killed run leaves no visible
+partial folder and never touches an earlier run.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import secrets
+import shutil
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+
+import pandas as pd
+import yaml
+
+from .. import __version__
+from ..spec import Spec
+from .backtest import BacktestResult
+from .check import CheckedData
+from .evaluate import Evaluation
+from .forecast import ForecastResult
+
+CAUTIONS = [
+    "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
+    "have been, and the next months can be further off.",
+    "The models learn from the history in the input file only. A change the history does not "
+    "hold (a new product, a new competitor, a new way of pricing) is not in these numbers.",
+    "The comparison rests on one holdout window; a different window can rank the models "
+    "differently.",
+]
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    """Where a run's artefacts landed."""
+
+    run_id: str
+    path: Path
+    summary: Path
+
+
+def new_run_id(now: datetime | None = None) -> str:
+    """Return a run id that sorts by time and does not collide: UTC time plus random hex."""
+    now = now or datetime.now(UTC)
+    return f"run-{now:%Y%m%dT%H%M%S}{now.microsecond:06d}Z-{secrets.token_hex(3)}"
+
+
+def _clean(value):
+    """Return a JSON-safe value: NaN and infinities become null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_clean(v) for v in value]
+    if hasattr(value, "item"):
+        return _clean(value.item())
+    return value
+
+
+def _records(frame: pd.DataFrame) -> list[dict]:
+    return [_clean(row) for row in frame.to_dict(orient="records")]
+
+
+def fingerprint(data: CheckedData) -> dict:
+    """Return what identifies the input: its sha256, row counts and period range."""
+    return {
+        "file": str(data.raw.path),
+        "sha256": data.raw.sha256,
+        "rows": len(data.raw.frame),
+        "history_rows": len(data.history),
+        "future_rows": len(data.future),
+        "first_period": str(data.first_period),
+        "last_period": str(data.last_period),
+        "series": data.series_names,
+    }
+
+
+def _markdown_table(frame: pd.DataFrame, digits: int = 4) -> str:
+    def cell(value) -> str:
+        if isinstance(value, float):
+            return "n/a" if not math.isfinite(value) else f"{value:.{digits}g}"
+        return str(value).replace("|", "\\|")
+    header = "| " + " | ".join(str(c) for c in frame.columns) + " |"
+    rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
+    body = ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
+    return "\n".join([header, rule, *body])
+
+
+def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
+                   evaluation: Evaluation, forecast: ForecastResult) -> str:
+    """Return the run's summary in Markdown: the answer first, the evidence after."""
+    table = evaluation.table[["model", "n", "mae", "rmse", "mape", "bias", "skill_vs_mean"]]
+    lines = [
+        f"# {spec.name}: forecast run {run_id}",
+        "",
+        "## The answer",
+        "",
+        evaluation.verdict,
+        "",
+        f"Recommended model: **{evaluation.recommended}** (lowest holdout MAE).",
+        "",
+        f"## Model comparison (holdout of the last {spec.validation.last_periods} months)",
+        "",
+        _markdown_table(table),
+        "",
+        "MAPE is a fraction (0.05 = 5%). Bias is prediction − actual: positive means the "
+        "forecasts ran high. Skill is 1 − MAE / MAE of the mean baseline.",
+        "",
+    ]
+    recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
+    lines += ["## Forecast", ""]
+    if len(recommended):
+        lines += [f"From the {evaluation.recommended} model, refitted on all history:", "",
+                  _markdown_table(recommended[["period", "series", "forecast"]]), ""]
+    else:
+        lines += ["The input has no future rows (rows without the target after the last "
+                  "actual), so there is nothing to forecast yet.", ""]
+    ols_terms = forecast.coefficients[forecast.coefficients["model"] == "ols"]
+    if len(ols_terms):
+        lines += ["## Drivers (OLS on all history)", "",
+                  _markdown_table(ols_terms.drop(columns=["model"])), ""]
+    if len(forecast.fit_summary):
+        lines += ["## Fit", "", _markdown_table(forecast.fit_summary), ""]
+    notes = forecast.warnings + evaluation.notes
+    if notes:
+        lines += ["## Warnings and notes", "", *[f"- {note}" for note in notes], ""]
+    lines += [
+        "## Data", "",
+        f"- file: `{data_print['file']}` (sha256 `{data_print['sha256'][:16]}…`)",
+        f"- rows: {data_print['rows']} ({data_print['history_rows']} with actuals, "
+        f"{data_print['future_rows']} to forecast)",
+        f"- periods: {data_print['first_period']} to {data_print['last_period']}",
+        f"- series: {', '.join(data_print['series'])}", "",
+        "## Cautions", "", *[f"- {text}" for text in CAUTIONS], "",
+        f"castline {__version__}, run {run_id}, {created}", "",
+    ]
+    return "\n".join(lines)
+
+
+def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
+            forecast: ForecastResult, *, output_folder: Path | None = None) -> RunFolder:
+    """Write the run folder atomically and return where it landed."""
+    folder = Path(output_folder) if output_folder else spec.output.folder
+    folder.mkdir(parents=True, exist_ok=True)
+    now = datetime.now(UTC)
+    run_id = new_run_id(now)
+    created = now.isoformat(timespec="seconds")
+    staging = folder / f".incomplete-{run_id}"
+    staging.mkdir()
+    try:
+        data_print = fingerprint(data)
+        resolved = spec.model_dump(mode="json")
+        (staging / "spec.yaml").write_text(
+            yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True), encoding="utf-8")
+        (staging / "fingerprint.json").write_text(json.dumps(data_print, indent=2), encoding="utf-8")
+        metrics = {
+            "run_id": run_id, "created": created, "castline_version": __version__,
+            "spec_name": spec.name, "validation": resolved["validation"],
+            "recommended": evaluation.recommended, "verdict": evaluation.verdict,
+            "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
+            "notes": forecast.warnings + evaluation.notes,
+        }
+        (staging / "metrics.json").write_text(json.dumps(metrics, indent=2), encoding="utf-8")
+        backtest.predictions.to_csv(staging / "predictions.csv", index=False)
+        forecast.coefficients.to_csv(staging / "coefficients.csv", index=False)
+        forecast.forecast.to_csv(staging / "forecast.csv", index=False)
+        (staging / "summary.md").write_text(
+            render_summary(spec, run_id, created, data_print, evaluation, forecast),
+            encoding="utf-8")
+        final = folder / run_id
+        os.rename(staging, final)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return RunFolder(run_id=run_id, path=final, summary=final / "summary.md")
