@@ -10,6 +10,7 @@ import argparse
 import math
 import sys
 import traceback
+from pathlib import Path
 
 from . import __version__
 from .errors import UserError
@@ -33,8 +34,19 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("spec", help="the YAML spec file")
     run.add_argument("--output-folder", help="write the run folder here instead of the spec's "
                                              "output.folder")
-    check = commands.add_parser("check", help="check the spec and its data; writes nothing")
+    check = commands.add_parser("check", help="check the spec and its data; writes nothing "
+                                                "but the problems file if asked")
     check.add_argument("spec", help="the YAML spec file")
+    check.add_argument("--problems", metavar="FILE", help="also write the problems to this CSV file")
+    init = commands.add_parser("init", help="write a starter spec from a data file")
+    init.add_argument("data_file", help="a CSV, Parquet or Excel file")
+    init.add_argument("--spec-file", help="where to write the spec (default: DATA.spec.yaml here); "
+                                          "never overwritten")
+    init.add_argument("--delimiter", help="CSV: the delimiter (default: sniffed)")
+    init.add_argument("--decimal", default=".", help="CSV: the decimal mark (default '.')")
+    init.add_argument("--thousands", help="CSV: the thousands separator (default none)")
+    init.add_argument("--encoding", default="utf-8", help="CSV: the text encoding (default utf-8)")
+    init.add_argument("--sheet", default="0", help="Excel: the sheet name or position (default 0)")
     return parser
 
 
@@ -44,12 +56,14 @@ def _fmt(value) -> str:
     return str(value)
 
 
-def _print_table(rows: list[dict], columns: list[str]) -> None:
+def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
     cells = [[_fmt(row[c]) for c in columns] for row in rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
-    print("  ".join(c.ljust(w) for c, w in zip(columns, widths)))
+    right = set(align_right) if align_right is not None else set(columns[1:])
+    print("  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip())
     for row in cells:
-        print("  ".join(v.rjust(w) if i else v.ljust(w) for i, (v, w) in enumerate(zip(row, widths))))
+        print("  ".join(v.rjust(w) if c in right else v.ljust(w)
+                        for c, v, w in zip(columns, row, widths)).rstrip())
 
 
 def _command_run(args) -> int:
@@ -67,26 +81,69 @@ def _command_run(args) -> int:
     return EXIT_OK
 
 
+def _write_problems(path: str, problems) -> None:
+    from .stages.check import problems_table
+    target = Path(path)
+    try:
+        problems_table(problems).to_csv(target, index=False)
+    except OSError as exc:
+        raise UserError(f"{target}: cannot write the problems file: {exc.strerror}") from None
+    print(f"problems written to {target}")
+
+
+def _print_problems(problems) -> None:
+    rows = [{"row": p.row if p.row else "-", "column": p.column or "-", "check": p.check,
+             "value": p.value, "count": p.count} for p in problems]
+    _print_table(rows, ["row", "column", "check", "value", "count"], align_right=("row", "count"))
+
+
 def _command_check(args) -> int:
     from .runner import check
     try:
         data = check(args.spec)
     except CheckFailed as failure:
-        for problem in failure.problems:
-            print(problem.describe(failure.file))
-        print(f"castline: {len(failure.problems)} problem(s) found; nothing was fitted",
+        print(f"{failure.file}: {len(failure.problems)} problem(s); rows count the header as "
+              "line 1")
+        _print_problems(failure.problems)
+        if args.problems:
+            _write_problems(args.problems, failure.problems)
+        print(f"castline: {len(failure.problems)} problem(s) in {failure.file}; nothing was fitted",
               file=sys.stderr)
         return EXIT_USER
     print(f"{data.raw.path}: {len(data.raw.frame)} rows pass the checks "
           f"({len(data.history)} with actuals from {data.first_period} to {data.last_period}, "
           f"{len(data.future)} to forecast, {len(data.series_names)} series)")
+    if data.problems_allowed:
+        print("allowed by the spec:")
+        _print_problems(data.problems_allowed)
+    if args.problems:
+        _write_problems(args.problems, data.problems_allowed)
+    return EXIT_OK
+
+
+def _command_init(args) -> int:
+    from .spec import CsvOptions
+    from .starter import write_starter_spec
+    try:
+        csv = CsvOptions(delimiter=args.delimiter, decimal=args.decimal, thousands=args.thousands,
+                         encoding=args.encoding) if args.delimiter else None
+    except ValueError as exc:
+        raise UserError(f"the CSV options are inconsistent: {exc.errors()[0]['msg']}") from None
+    sheet = int(args.sheet) if str(args.sheet).isdigit() else args.sheet
+    path, found = write_starter_spec(args.data_file, args.spec_file, csv=csv, sheet=sheet)
+    print(f"wrote {path}: date column '{found.date_column}' ({found.frequency}ly, "
+          f"{found.periods} months), target '{found.target}', "
+          f"series key {found.series or 'none'}")
+    for note in found.notes:
+        print(f"note: {note}")
+    print(f"next: edit {path}, then 'castline check {path}'")
     return EXIT_OK
 
 
 def main(argv: list[str] | None = None) -> int:
     """Run the castline command line and return its exit code."""
     args = build_parser().parse_args(argv)
-    handlers = {"run": _command_run, "check": _command_check}
+    handlers = {"run": _command_run, "check": _command_check, "init": _command_init}
     try:
         return handlers[args.command](args)
     except UserError as mistake:

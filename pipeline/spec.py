@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import types
 import typing
+from datetime import date
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union
 
@@ -22,6 +23,7 @@ from pydantic import (
     PrivateAttr,
     ValidationError,
     field_validator,
+    model_validator,
 )
 
 from .errors import SpecError
@@ -44,22 +46,79 @@ def _name_as_mapping(value: Any) -> Any:
     return value
 
 
+class CsvOptions(StrictModel):
+    """How a CSV file is written: analysts' extracts vary."""
+
+    delimiter: str = Field(",", min_length=1, max_length=1)
+    decimal: str = Field(".", min_length=1, max_length=1)
+    thousands: str | None = Field(None, min_length=1, max_length=1)
+    encoding: str = "utf-8"
+
+    @model_validator(mode="after")
+    def _separators_differ(self) -> CsvOptions:
+        used = [c for c in (self.delimiter, self.decimal, self.thousands) if c is not None]
+        if len(set(used)) != len(used):
+            raise ValueError("delimiter, decimal and thousands must be different characters")
+        return self
+
+    @field_validator("encoding")
+    @classmethod
+    def _known_encoding(cls, value: str) -> str:
+        import codecs
+        try:
+            codecs.lookup(value)
+        except LookupError:
+            raise ValueError(f"unknown text encoding {value!r}") from None
+        return value
+
+
 class InputSection(StrictModel):
     """Where the data lives and how its rows are placed in time."""
 
-    file: Path = Field(description="CSV or Parquet file, relative to the spec's folder")
-    format: Literal["auto", "csv", "parquet"] = "auto"
+    file: Path = Field(description="CSV, Parquet or Excel file, relative to the spec's folder")
+    format: Literal["auto", "csv", "parquet", "excel"] = "auto"
+    csv: CsvOptions = Field(default_factory=CsvOptions)
+    sheet: str | int = Field(0, description="Excel: the sheet's name or its position from 0")
     date_column: str
     period: Literal["month"] = "month"
     series: list[str] = Field(default_factory=list,
-                              description="columns that together name one series")
+                              description="columns that, with the month, identify a row")
+    as_of: date | None = Field(None, description="no actual may be dated after this day")
+    gaps: Literal["refuse", "allow", "fill"] = Field(
+        "refuse", description="months missing inside a series: refuse, allow, or fill by "
+                              "interpolating between the neighbouring months")
 
     @property
     def resolved_format(self) -> str:
-        """Return csv or parquet, from the key or else the file's suffix."""
+        """Return csv, parquet or excel, from the key or else the file's suffix."""
         if self.format != "auto":
             return self.format
-        return "parquet" if self.file.suffix.lower() in (".parquet", ".pq") else "csv"
+        suffix = self.file.suffix.lower()
+        if suffix in (".parquet", ".pq"):
+            return "parquet"
+        if suffix in (".xlsx", ".xlsm"):
+            return "excel"
+        return "csv"
+
+
+ColumnType = Literal["number", "whole_number", "date", "category", "text"]
+
+
+class ColumnRule(StrictModel):
+    """What one input column must hold."""
+
+    type: ColumnType
+    missing_allowed: bool = False
+    min: float | None = None
+    max: float | None = None
+    allowed: list[str] | None = Field(None, description="category: the only levels allowed")
+
+    @field_validator("allowed")
+    @classmethod
+    def _levels_given(cls, value: list[str] | None) -> list[str] | None:
+        if value is not None and not value:
+            raise ValueError("list at least one level, or leave the key out")
+        return [str(v) for v in value] if value is not None else None
 
 
 class NumericDriver(StrictModel):
@@ -114,6 +173,9 @@ class Spec(StrictModel):
     input: InputSection
     target: str
     drivers: DriversSection = Field(default_factory=DriversSection)
+    columns: dict[str, ColumnRule] = Field(
+        default_factory=dict, description="rules per input column; columns the spec uses but "
+                                          "does not list here get rules from their role")
     intercept: bool = True
     validation: Validation
     models: list[Literal["mean_baseline", "ols"]] = Field(default_factory=lambda: ["ols"])
@@ -347,3 +409,45 @@ def _check_roles(spec: Spec, fail) -> None:
             seen[column] = "a driver"
     if not spec.intercept and not spec.driver_columns:
         raise fail(("intercept",), "a model without an intercept needs at least one driver")
+    _check_column_rules(spec, fail)
+
+
+_TYPES_FOR_ROLE = {
+    "the target": ("number", "whole_number"),
+    "the date column": ("date",),
+    "a numeric driver": ("number", "whole_number"),
+    "a categorical driver": ("category", "text", "whole_number"),
+    "a series column": ("category", "text", "whole_number"),
+}
+
+
+def column_roles(spec: Spec) -> dict[str, str]:
+    """Return the role of every column the spec uses."""
+    roles = {spec.input.date_column: "the date column", spec.target: "the target"}
+    roles.update({column: "a series column" for column in spec.input.series})
+    roles.update({d.column: "a numeric driver" for d in spec.drivers.numeric})
+    roles.update({d.column: "a categorical driver" for d in spec.drivers.categorical})
+    return roles
+
+
+def _check_column_rules(spec: Spec, fail) -> None:
+    """Refuse column rules that contradict themselves or the column's role."""
+    roles = column_roles(spec)
+    for column, rule in spec.columns.items():
+        key = ("columns", column)
+        if rule.min is not None and rule.max is not None and rule.min > rule.max:
+            raise fail(key + ("min",), f"min {rule.min:g} is above max {rule.max:g}")
+        if (rule.min is not None or rule.max is not None) and rule.type not in ("number", "whole_number"):
+            bound = "min" if rule.min is not None else "max"
+            raise fail(key + (bound,), f"min and max apply to numbers, not to type '{rule.type}'")
+        if rule.allowed is not None and rule.type != "category":
+            raise fail(key + ("allowed",), f"allowed levels apply to type 'category', not '{rule.type}'")
+        role = roles.get(column)
+        if role and rule.type not in _TYPES_FOR_ROLE[role]:
+            wanted = " or ".join(_TYPES_FOR_ROLE[role])
+            raise fail(key + ("type",), f"'{column}' is {role}, so its type must be {wanted}")
+        if rule.missing_allowed and role in ("the date column", "a series column"):
+            raise fail(key + ("missing_allowed",), f"'{column}' is {role} and may not be missing")
+        if rule.missing_allowed and role in ("a numeric driver", "a categorical driver"):
+            raise fail(key + ("missing_allowed",), f"'{column}' is {role}: the models need a "
+                       "value in every row, so it may not be missing")

@@ -81,7 +81,10 @@ def _columns_to_keep(scaled: np.ndarray, zero: np.ndarray) -> np.ndarray:
     """Return a mask of the columns not spanned by the columns before them."""
     r = scipy.linalg.qr(scaled, mode="r", check_finite=False)[0]
     r = r[: scaled.shape[1]]
-    return (np.abs(np.diag(r)) > _rank_tolerance(r, len(scaled))) & ~zero
+    # With fewer rows than columns, the columns past the number of rows are dependent.
+    diagonal = np.zeros(scaled.shape[1])
+    diagonal[: min(r.shape)] = np.abs(np.diag(r))
+    return (diagonal > _rank_tolerance(r, len(scaled))) & ~zero
 
 
 def _solve(q: np.ndarray, r: np.ndarray, scaled: np.ndarray, y: np.ndarray) -> np.ndarray:

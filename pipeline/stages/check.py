@@ -1,31 +1,39 @@
 """Check: refuse data the spec cannot be fitted on, before any model runs.
 
-The column rules are declared as a pandera schema built from the spec and run
-lazily, so every failure is found at once; then the calendar is checked (one
-row per series and month, history before the forecast rows).
+Two passes, both reporting every problem at once rather than the first:
+
+1. the column rules — each column's type, whether it may be missing, its range
+   and its allowed levels — declared as a pandera schema built from the spec
+   and validated lazily;
+2. the calendar, per series: one row per month, no month missing inside a
+   series (unless the spec allows or fills gaps), the target present in every
+   month of history, every driver present in the months to forecast, and no
+   actual dated after the as-of date.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from datetime import date
 
 import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
 from ..errors import DataError
-from ..spec import Spec
+from ..spec import ColumnRule, Spec, column_roles
 from .ingest import RawInput
 
 PERIOD = "period"
 SERIES = "series"
 ROW = "source_row"
 ALL_SERIES = "all"
+PROBLEM_COLUMNS = ["check", "column", "row", "value", "count"]
 
 
 @dataclass(frozen=True)
 class Problem:
-    """One kind of fault found in the input, with its first place and how often it occurs."""
+    """One kind of fault in one column, located at its first row, with how often it occurs."""
 
     check: str
     column: str
@@ -41,17 +49,26 @@ class Problem:
         return f"{place}: {column}{self.check}: {self.value}{more}"
 
 
+def problems_table(problems: list[Problem]) -> pd.DataFrame:
+    """Return the problems as a table: check, column, row, value, count."""
+    return pd.DataFrame([[p.check, p.column, p.row, p.value, p.count] for p in problems],
+                        columns=PROBLEM_COLUMNS).astype({"row": "Int64"})
+
+
 class CheckFailed(DataError):
     """The data breaks one or more checks; every problem is attached."""
 
+    shown = 3
+
     def __init__(self, problems: list[Problem], file: str) -> None:
         self.problems = problems
-        first = problems[0].describe(file)
-        more = f" (and {len(problems) - 1} more problems)" if len(problems) > 1 else ""
-        super().__init__(f"{first}{more}; 'castline check' lists them all")
-        self.file = file
+        first = "; ".join(p.describe(file) for p in problems[: self.shown])
+        more = len(problems) - self.shown
+        tail = f" (and {more} more)" if more > 0 else ""
+        super().__init__(f"{len(problems)} problem(s) in the data: {first}{tail}; "
+                         "'castline check' lists them all", file=file)
 
-    def _render(self) -> str:  # the message already names file and row
+    def _render(self) -> str:  # each problem already names file and row
         return self.message
 
 
@@ -77,56 +94,118 @@ class CheckedData:
         return sorted(self.history[SERIES].unique())
 
 
-def _finite(values: pd.Series) -> pd.Series:
-    return ~np.isinf(values) | values.isna()
+# ------------------------------------------------------------------ column rules
+
+def _on_numbers(test):
+    """Return a pandera check function that judges only the cells that are numbers.
+
+    A cell that is not a number at all is reported once, by the type check.
+    """
+    def check(values: pd.Series) -> pd.Series:
+        numbers = pd.to_numeric(values, errors="coerce")
+        return test(numbers) | numbers.isna()
+    return check
+
+
+_finite = _on_numbers(lambda v: ~np.isinf(v))
+_whole = _on_numbers(lambda v: v == np.round(v))
+
+
+def effective_rules(spec: Spec) -> dict[str, ColumnRule]:
+    """Return the rule for every column the spec uses or lists, declared or from its role."""
+    from_role = {
+        "the date column": ColumnRule(type="date"),
+        "the target": ColumnRule(type="number", missing_allowed=True),
+        "a numeric driver": ColumnRule(type="number"),
+        "a categorical driver": ColumnRule(type="category"),
+        "a series column": ColumnRule(type="category"),
+    }
+    rules = {column: from_role[role] for column, role in column_roles(spec).items()}
+    for column, rule in spec.columns.items():
+        if column == spec.target:
+            # Months to forecast have no target yet; history gaps are a calendar check.
+            rule = rule.model_copy(update={"missing_allowed": True})
+        rules[column] = rule
+    return rules
+
+
+def _column_schema(rule: ColumnRule) -> pa.Column:
+    checks: list[pa.Check] = []
+    if rule.type in ("number", "whole_number"):
+        checks.append(pa.Check(_finite, error="is infinite"))
+        if rule.type == "whole_number":
+            checks.append(pa.Check(_whole, error="not a whole number"))
+        low, high = rule.min, rule.max
+        if low is not None:
+            checks.append(pa.Check(_on_numbers(lambda v: v >= low), error=f"below the minimum {low:g}"))
+        if high is not None:
+            checks.append(pa.Check(_on_numbers(lambda v: v <= high), error=f"above the maximum {high:g}"))
+        return pa.Column(float, coerce=True, nullable=rule.missing_allowed, checks=checks)
+    if rule.type == "date":
+        return pa.Column(pa.DateTime, coerce=True, nullable=rule.missing_allowed)
+    if rule.allowed is not None:
+        checks.append(pa.Check.isin(rule.allowed, error=f"not one of {', '.join(rule.allowed)}"))
+    return pa.Column(str, coerce=True, nullable=rule.missing_allowed, checks=checks)
 
 
 def build_schema(spec: Spec) -> pa.DataFrameSchema:
-    """Return the pandera schema the spec's columns must meet."""
-    columns: dict[str, pa.Column] = {
-        spec.input.date_column: pa.Column(pa.DateTime, coerce=True, nullable=False),
-        spec.target: pa.Column(float, coerce=True, nullable=True,
-                               checks=pa.Check(_finite, error="is infinite")),
-    }
-    for driver in spec.drivers.numeric:
-        columns[driver.column] = pa.Column(float, coerce=True, nullable=False,
-                                           checks=pa.Check(_finite, error="is infinite"))
-    for column in [d.column for d in spec.drivers.categorical] + spec.input.series:
-        columns[column] = pa.Column(str, coerce=True, nullable=False)
+    """Return the pandera schema the input's columns must meet."""
+    rules = effective_rules(spec)
+    for driver in spec.driver_columns:
+        # A missing driver is reported by the calendar pass, which can tell a month
+        # of history from a month to forecast.
+        rules[driver] = rules[driver].model_copy(update={"missing_allowed": True})
+    columns = {name: _column_schema(rule) for name, rule in rules.items()}
     return pa.DataFrameSchema(columns, strict=False)
 
 
-_CHECK_WORDS = {
-    "column_in_dataframe": "column missing",
-    "not_nullable": "missing value",
-}
+def _check_words(check: str) -> str:
+    if check == "not_nullable":
+        return "missing value"
+    if check.startswith("coerce_dtype") or check.startswith("dtype("):
+        return "not a date" if "datetime" in check else "not a number"
+    return check
 
 
 def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput) -> list[Problem]:
     """Return one problem per (check, column), located at its first failing row."""
-    problems: list[Problem] = []
     failures = failures.copy()
     failures["check"] = failures["check"].astype(str)
-    is_dtype = failures["check"].str.startswith("dtype(")
     coerced = set(failures.loc[failures["check"].str.startswith("coerce_dtype"), "column"])
-    failures = failures[~(is_dtype & failures["column"].isin(coerced))]
+    failures = failures[~(failures["check"].str.startswith("dtype(") & failures["column"].isin(coerced))]
+    problems: list[Problem] = []
     for (check, column), group in failures.groupby(["check", "column"], sort=False, dropna=False):
         if check == "column_in_dataframe":
-            missing = str(group["failure_case"].iloc[0])
-            problems.append(Problem("column missing", missing, None,
-                                    "the spec names this column but the file has none such"))
+            for missing in group["failure_case"]:
+                problems.append(Problem("column missing", str(missing), None,
+                                        _missing_column_hint(str(missing), raw)))
             continue
-        if check.startswith("coerce_dtype") or check.startswith("dtype("):
-            wanted = "a date" if "datetime" in check else "a number"
-            words = f"not {wanted}"
-        else:
-            words = _CHECK_WORDS.get(check, check)
-        indexes = group["index"].dropna()
-        row = raw.location(indexes.iloc[0]) if len(indexes) else None
-        problems.append(Problem(words, str(column), row, str(group["failure_case"].iloc[0]),
-                                count=len(group)))
-    return sorted(problems, key=lambda p: (p.row or 0, p.column))
+        located = group.dropna(subset=["index"]).sort_values("index")
+        first = located.iloc[0] if len(located) else group.iloc[0]
+        row = raw.location(first["index"]) if len(located) else None
+        problems.append(Problem(_check_words(check), str(column), row,
+                                _show(first["failure_case"]), count=len(group)))
+    return problems
 
+
+def _show(value) -> str:
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return "(empty)"
+    return repr(value) if isinstance(value, str) else str(value)
+
+
+def _missing_column_hint(column: str, raw: RawInput) -> str:
+    found = list(raw.frame.columns)
+    if len(found) == 1 and any(sep in found[0] for sep in ";\t|,"):
+        return (f"the file was read as a single column {found[0]!r}; is the delimiter "
+                "different (input.csv.delimiter)?")
+    import difflib
+    close = difflib.get_close_matches(column, found, n=1)
+    hint = f"; did you mean '{close[0]}'?" if close else ""
+    return f"the spec names this column but the file has none such (columns: {', '.join(found)}){hint}"
+
+
+# ---------------------------------------------------------------------- calendar
 
 def _series_labels(frame: pd.DataFrame, columns: list[str]) -> pd.Series:
     if not columns:
@@ -137,50 +216,183 @@ def _series_labels(frame: pd.DataFrame, columns: list[str]) -> pd.Series:
     return labels
 
 
-def _calendar_problems(frame: pd.DataFrame, spec: Spec, raw: RawInput) -> list[Problem]:
-    """Return duplicated months per series and target gaps inside the history."""
-    problems: list[Problem] = []
-    date = spec.input.date_column
+def _first(frame: pd.DataFrame, mask: pd.Series) -> pd.Series:
+    return frame.loc[mask[mask].index[0]]
+
+
+def _duplicates(frame: pd.DataFrame, spec: Spec) -> list[Problem]:
     duplicated = frame.duplicated([SERIES, PERIOD], keep="first")
-    if duplicated.any():
-        first = frame[duplicated].iloc[0]
-        problems.append(Problem("month given twice", date, int(first[ROW]),
-                                f"{first[PERIOD]} for series '{first[SERIES]}'",
-                                count=int(duplicated.sum())))
-    has_target = frame[spec.target].notna()
+    if not duplicated.any():
+        return []
+    row = _first(frame, duplicated)
+    earlier = frame[(frame[SERIES] == row[SERIES]) & (frame[PERIOD] == row[PERIOD])][ROW].min()
+    return [Problem("month given twice", spec.input.date_column, int(row[ROW]),
+                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})",
+                    count=int(duplicated.sum()))]
+
+
+def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
+    """Return, per series, each month missing between its first and last month,
+    with the row of the next month present."""
+    ordered = frame.sort_values([SERIES, PERIOD], kind="stable")
+    ordinal = ordered[PERIOD].map(lambda p: p.ordinal).to_numpy() if len(ordered) else np.array([])
+    same = ordered[SERIES].to_numpy()[1:] == ordered[SERIES].to_numpy()[:-1]
+    steps = np.diff(ordinal)
+    gaps = np.flatnonzero(same & (steps > 1))
+    rows = []
+    for position in gaps:
+        after = ordered.iloc[position + 1]
+        for missing in range(int(ordinal[position]) + 1, int(ordinal[position + 1])):
+            rows.append({SERIES: after[SERIES], PERIOD: pd.Period(ordinal=missing, freq="M"),
+                         "next_row": int(after[ROW])})
+    return pd.DataFrame(rows, columns=[SERIES, PERIOD, "next_row"])
+
+
+def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str) -> Problem:
+    first = gaps.iloc[0]
+    return Problem(word, spec.input.date_column, int(first["next_row"]),
+                   f"{first[PERIOD]} for series '{first[SERIES]}' (missing before this row)",
+                   count=len(gaps))
+
+
+def _fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec) -> pd.DataFrame:
+    """Return the frame with each missing month inserted, numbers interpolated in time."""
+    numeric = [c for c, r in effective_rules(spec).items() if r.type in ("number", "whole_number")]
+    filled = []
+    for series, rows in frame.groupby(SERIES, sort=False):
+        rows = rows.set_index(PERIOD).sort_index()
+        full = pd.period_range(rows.index.min(), rows.index.max(), freq="M")
+        if len(full) == len(rows):
+            filled.append(rows.reset_index())
+            continue
+        grown = rows.reindex(full)
+        grown.index.name = PERIOD
+        inserted = grown[ROW].isna()
+        # The target stays as given for months to forecast: interpolate history only.
+        for column in numeric:
+            grown[column] = grown[column].astype(float).interpolate(method="linear", limit_area="inside")
+        for column in [c for c in grown.columns if c not in numeric]:
+            grown[column] = grown[column].ffill()
+        grown.loc[inserted, spec.input.date_column] = grown.index[inserted].to_timestamp()
+        grown.loc[inserted, ROW] = np.nan
+        grown[SERIES] = series
+        filled.append(grown.reset_index())
+    return pd.concat(filled, ignore_index=True)
+
+
+def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[Problem], list[Problem]]:
+    """Return the frame with history months lacking the target handled by the gaps policy,
+    and the problems (refused or allowed) that this found."""
+    target = spec.target
+    has_target = frame[target].notna()
     if not has_target.any():
-        problems.append(Problem("no history", spec.target, None,
-                                "no row has a value of the target"))
-        return problems
+        return frame, [Problem("no history", target, None, "no row has a value of the target")], []
     last_actual = frame.loc[has_target, PERIOD].max()
-    gap = ~has_target & (frame[PERIOD] <= last_actual)
-    if gap.any():
-        first = frame[gap].iloc[0]
-        problems.append(Problem("target missing in history", spec.target, int(first[ROW]),
-                                f"no value for {first[PERIOD]}, before the last actual month "
-                                f"{last_actual}", count=int(gap.sum())))
+    hole = ~has_target & (frame[PERIOD] <= last_actual)
+    if not hole.any():
+        return frame, [], []
+    row = _first(frame, hole)
+    value = (f"no value for {row[PERIOD]} (series '{row[SERIES]}'), before the last actual "
+             f"month {last_actual}")
+    policy = spec.input.gaps
+    if policy == "refuse":
+        return frame, [Problem("target missing in history", target, _row(row), value,
+                               count=int(hole.sum()))], []
+    if policy == "allow":
+        word = "target missing in history (allowed by input.gaps; the months are left out)"
+        return frame[~hole].reset_index(drop=True), [], [
+            Problem(word, target, _row(row), value, count=int(hole.sum()))]
+    filled = frame.copy()
+    ordered = filled.sort_values([SERIES, PERIOD], kind="stable")
+    interpolated = ordered.groupby(SERIES, sort=False)[target].transform(
+        lambda v: v.interpolate(method="linear", limit_area="inside"))
+    filled.loc[interpolated.index, target] = interpolated
+    still = hole & filled[target].isna()
+    word = "target missing in history, filled by interpolation"
+    allowed = [Problem(word, target, _row(row), value, count=int((hole & ~still).sum()))]
+    if still.any():  # at the start of a series there is nothing to interpolate from
+        first = _first(filled, still)
+        return filled, [Problem("target missing in history", target, _row(first),
+                                f"no value for {first[PERIOD]} (series '{first[SERIES]}') and no "
+                                "earlier month to fill from", count=int(still.sum()))], allowed
+    return filled, [], allowed
+
+
+def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> list[Problem]:
+    problems: list[Problem] = []
+    target = spec.target
+    has_target = frame[target].notna()
+    if not has_target.any():
+        return problems
+    late = has_target & (frame[PERIOD] > as_of)
+    if late.any():
+        row = _first(frame, late)
+        said = "the as-of date" if spec.input.as_of else "the current month"
+        problems.append(Problem("actual after the as-of date", target, _row(row),
+                                f"{row[PERIOD]} is after {said} {as_of}", count=int(late.sum())))
+    last_actual = frame.loc[has_target, PERIOD].max()
+    future = ~has_target & (frame[PERIOD] > last_actual)
+    for driver in spec.driver_columns:
+        for mask, word in ((~future, "driver missing"),
+                           (future, "driver missing in a month to forecast")):
+            empty = mask & frame[driver].isna()
+            if empty.any():
+                row = _first(frame, empty)
+                problems.append(Problem(word, driver, _row(row),
+                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}')",
+                                        count=int(empty.sum())))
     return problems
 
 
-def check_data(spec: Spec, raw: RawInput) -> CheckedData:
-    """Return the validated rows split into history and future.
+def _row(row: pd.Series) -> int | None:
+    return None if pd.isna(row[ROW]) else int(row[ROW])
 
-    Raises CheckFailed carrying every problem found.
-    """
+
+def _as_of(spec: Spec, today: date | None) -> pd.Period:
+    chosen = spec.input.as_of or today or date.today()
+    return pd.Period(chosen, freq="M")
+
+
+def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
+                  ) -> tuple[pd.DataFrame | None, list[Problem], list[Problem]]:
+    """Return the validated frame (or None), the problems that stop a run, and those allowed."""
     schema = build_schema(spec)
     try:
         valid = schema.validate(raw.frame, lazy=True)
     except pa.errors.SchemaErrors as exc:
-        raise CheckFailed(_problems_from_pandera(exc.failure_cases, raw), str(raw.path)) from None
+        problems = _problems_from_pandera(exc.failure_cases, raw)
+        return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid.copy()
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     frame[SERIES] = _series_labels(frame, spec.input.series)
-    frame[ROW] = [raw.location(i) for i in frame.index]
-    problems = _calendar_problems(frame, spec, raw)
+    frame[ROW] = np.arange(len(frame)) + raw.first_row_number
+    problems = _duplicates(frame, spec)
+    allowed: list[Problem] = []
+    gaps = missing_months(frame)
+    if len(gaps) and spec.input.gaps == "refuse":
+        problems.append(_gap_problem(gaps, spec, "month missing"))
+    elif len(gaps) and spec.input.gaps == "allow":
+        allowed.append(_gap_problem(gaps, spec, "month missing (allowed by input.gaps)"))
+    elif len(gaps) and not problems:
+        allowed.append(_gap_problem(gaps, spec, "month missing, filled by interpolation"))
+        frame = _fill_gaps(frame, gaps, spec)
+    frame, refused, accepted = _target_holes(frame, spec)
+    problems += refused
+    allowed += accepted
+    problems += _history_and_future(frame, spec, _as_of(spec, today))
+    return frame, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
+
+
+def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> CheckedData:
+    """Return the validated rows split into history and future.
+
+    Raises CheckFailed carrying every problem found.
+    """
+    frame, problems, allowed = find_problems(spec, raw, today=today)
     if problems:
         raise CheckFailed(problems, str(raw.path))
     frame = frame.sort_values([PERIOD, SERIES], kind="stable").reset_index(drop=True)
     has_target = frame[spec.target].notna()
-    history = frame[has_target].reset_index(drop=True)
-    future = frame[~has_target].reset_index(drop=True)
-    return CheckedData(history=history, future=future, raw=raw)
+    return CheckedData(history=frame[has_target].reset_index(drop=True),
+                       future=frame[~has_target].reset_index(drop=True), raw=raw,
+                       problems_allowed=allowed)

@@ -47,7 +47,9 @@ def evaluate(backtest: BacktestResult) -> Evaluation:
         if row.mape_rows_left_out:
             notes.append(f"{row.model}: MAPE leaves out {row.mape_rows_left_out} rows whose actual "
                          "is 0 (a percentage error is undefined there)")
-    best = table.sort_values(["mae", "model"], kind="stable").iloc[0]
+    # A model must beat the baseline by more than rounding to be recommended over it.
+    contenders = table[(table["model"] == BASELINE) | (table["mae"] < baseline_mae * (1 - 1e-9))]
+    best = contenders.sort_values("mae", kind="stable").iloc[0]
     recommended = str(best["model"])
     if recommended == BASELINE:
         verdict = ("No model beats the mean baseline out of sample: the plain average of each "

@@ -9,7 +9,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import DataError
-from ..spec import Spec
+from ..spec import CsvOptions, Spec
 
 
 @dataclass(frozen=True)
@@ -22,8 +22,14 @@ class RawInput:
     sha256: str
 
     def location(self, index: int) -> int:
-        """Return the line (CSV, header = line 1) or row number (Parquet) of a frame index."""
-        return int(index) + 2 if self.file_format == "csv" else int(index) + 1
+        """Return the line (CSV; header = line 1), sheet row (Excel; header = row 1) or
+        row number (Parquet; first row = 1) of a frame index."""
+        return int(index) + (1 if self.file_format == "parquet" else 2)
+
+    @property
+    def first_row_number(self) -> int:
+        """Return the location of the frame's first row."""
+        return 1 if self.file_format == "parquet" else 2
 
 
 def file_sha256(path: Path) -> str:
@@ -35,34 +41,104 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
-def read_input(spec: Spec) -> RawInput:
-    """Return the raw rows of the spec's input file.
+_SIGNATURES = [  # the first bytes of formats an analyst may save under the wrong name
+    (b"PK\x03\x04", "a zip archive (an Excel .xlsx workbook?)"),
+    (b"PAR1", "a Parquet file"),
+    (b"\xd0\xcf\x11\xe0", "an old Excel .xls workbook"),
+    (b"%PDF", "a PDF document"),
+    (b"SQLite format 3", "an SQLite database"),
+    (b"\x1f\x8b", "a gzip archive"),
+]
 
-    Raises DataError naming the file when it cannot be read as the spec says.
+
+def _looks_like(head: bytes) -> str | None:
+    """Return what a file's first bytes say it is, if they name a known binary format."""
+    for signature, name in _SIGNATURES:
+        if head.startswith(signature):
+            return name
+    if b"\x00" in head:
+        return "a binary file"
+    return None
+
+
+def _read_csv(options: CsvOptions, path: Path) -> pd.DataFrame:
+    head = path.read_bytes()[:4096]
+    kind = _looks_like(head)
+    if kind:
+        raise DataError(f"is {kind}, not CSV text; set input.format or convert the file",
+                        file=str(path))
+    encoding = "utf-8-sig" if options.encoding.lower().replace("_", "-") in ("utf-8", "utf8") \
+        else options.encoding
+    return pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
+                       thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
+                       skipinitialspace=True)
+
+
+def _read_parquet(path: Path) -> pd.DataFrame:
+    head = path.read_bytes()[:4]
+    if head != b"PAR1":
+        kind = _looks_like(path.read_bytes()[:4096]) or "text or another format"
+        raise DataError(f"is not a Parquet file (it looks like {kind})", file=str(path))
+    return pd.read_parquet(path)
+
+
+def _read_excel(sheet: str | int, path: Path) -> pd.DataFrame:
+    if not path.read_bytes()[:4] == b"PK\x03\x04":
+        raise DataError("is not an Excel .xlsx workbook", file=str(path))
+    try:
+        return pd.read_excel(path, sheet_name=sheet, engine="openpyxl")
+    except (ValueError, KeyError) as exc:
+        if "not found" in str(exc) or "Worksheet" in str(exc) or isinstance(exc, IndexError):
+            raise DataError(f"has no sheet {sheet!r}", file=str(path)) from None
+        raise
+
+
+def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
+               sheet: str | int = 0) -> pd.DataFrame:
+    """Return a data file's rows as read, column names stripped.
+
+    Raises DataError naming the file when it is empty, unreadable or not of the format.
     """
-    path = spec.input.file
-    file_format = spec.input.resolved_format
+    csv = csv or CsvOptions()
     shown = str(path)
     try:
+        if path.stat().st_size == 0:
+            raise DataError("the file is empty (0 bytes)", file=shown)
         if file_format == "parquet":
-            frame = pd.read_parquet(path)
+            frame = _read_parquet(path)
+        elif file_format == "excel":
+            frame = _read_excel(sheet, path)
         else:
-            frame = pd.read_csv(path, encoding="utf-8")
+            frame = _read_csv(csv, path)
+    except DataError:
+        raise
     except pd.errors.EmptyDataError:
-        raise DataError("the file is empty", file=shown) from None
-    except UnicodeDecodeError:
-        raise DataError("the file is not UTF-8 text", file=shown) from None
+        raise DataError("the file holds no header and no rows", file=shown) from None
+    except UnicodeDecodeError as exc:
+        raise DataError(f"is not {csv.encoding} text (byte {exc.start} cannot be "
+                        "decoded); set input.csv.encoding", file=shown) from None
     except pd.errors.ParserError as exc:
         raise DataError(f"cannot be read as CSV: {' '.join(str(exc).split())}", file=shown) from None
+    except PermissionError:
+        raise DataError("cannot be read: permission denied", file=shown) from None
     except OSError as exc:
         raise DataError(f"cannot be read: {exc.strerror or exc}", file=shown) from None
-    except Exception as exc:  # pyarrow raises many kinds for a file that is not Parquet
-        if file_format == "parquet":
-            raise DataError(f"cannot be read as Parquet: {' '.join(str(exc).split())}",
+    except IndexError:
+        raise DataError(f"has no sheet {sheet!r}", file=shown) from None
+    except Exception as exc:  # pyarrow and openpyxl raise many kinds for a damaged file
+        if file_format in ("parquet", "excel"):
+            raise DataError(f"cannot be read as {file_format}: {' '.join(str(exc).split())}",
                             file=shown) from None
         raise
     if frame.empty:
         raise DataError("the file has a header but no rows", file=shown)
     frame.columns = [str(c).strip() for c in frame.columns]
-    return RawInput(frame=frame.reset_index(drop=True), path=path, file_format=file_format,
-                    sha256=file_sha256(path))
+    return frame.reset_index(drop=True)
+
+
+def read_input(spec: Spec) -> RawInput:
+    """Return the raw rows of the spec's input file with the file's identity."""
+    path = spec.input.file
+    file_format = spec.input.resolved_format
+    frame = read_table(path, file_format, spec.input.csv, spec.input.sheet)
+    return RawInput(frame=frame, path=path, file_format=file_format, sha256=file_sha256(path))

@@ -79,6 +79,9 @@ def fingerprint(data: CheckedData) -> dict:
         "first_period": str(data.first_period),
         "last_period": str(data.last_period),
         "series": data.series_names,
+        "problems_allowed": [
+            {"check": p.check, "column": p.column, "row": p.row, "value": p.value, "count": p.count}
+            for p in data.problems_allowed],
     }
 
 
@@ -137,7 +140,11 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
         f"- rows: {data_print['rows']} ({data_print['history_rows']} with actuals, "
         f"{data_print['future_rows']} to forecast)",
         f"- periods: {data_print['first_period']} to {data_print['last_period']}",
-        f"- series: {', '.join(data_print['series'])}", "",
+        f"- series: {', '.join(data_print['series'])}",
+        "- checks: every column rule and calendar check passed"
+        + (" except these, allowed by the spec:" if data_print["problems_allowed"] else ""),
+        *[f"  - {p['check']}: column '{p['column']}', {p['value']} ({p['count']} in all)"
+          for p in data_print["problems_allowed"]], "",
         "## Cautions", "", *[f"- {text}" for text in CAUTIONS], "",
         f"castline {__version__}, run {run_id}, {created}", "",
     ]
