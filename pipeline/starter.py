@@ -49,7 +49,8 @@ class Inference:
 
 
 def _sniff_delimiter(path: Path) -> str:
-    sample = path.read_bytes()[:16384].decode("utf-8", errors="replace")
+    with path.open("rb") as handle:
+        sample = handle.read(16384).decode("utf-8", errors="replace")
     try:
         return csv_module.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
     except csv_module.Error:

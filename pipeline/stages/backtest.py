@@ -55,6 +55,8 @@ def holdout_split(spec: Spec, data: CheckedData) -> Split:
 def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     """Return every model's out-of-sample predictions on the spec's validation split."""
     split = holdout_split(spec, data)
+    split = Split(origin=split.origin, train=split.train,
+                  test=split.test.sort_values([PERIOD, SERIES], kind="stable"))
     plan = plan_features(spec, SERIES).fit(split.train)
     train_design = plan.transform(split.train)
     test_design = plan.transform(split.test)

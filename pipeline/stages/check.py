@@ -234,18 +234,25 @@ def _duplicates(frame: pd.DataFrame, spec: Spec) -> list[Problem]:
 def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
     """Return, per series, each month missing between its first and last month,
     with the row of the next month present."""
-    ordered = frame.sort_values([SERIES, PERIOD], kind="stable")
-    ordinal = ordered[PERIOD].map(lambda p: p.ordinal).to_numpy() if len(ordered) else np.array([])
-    same = ordered[SERIES].to_numpy()[1:] == ordered[SERIES].to_numpy()[:-1]
-    steps = np.diff(ordinal)
-    gaps = np.flatnonzero(same & (steps > 1))
+    columns = [SERIES, PERIOD, "next_row"]
+    ordinal = pd.Series(frame[PERIOD].array.asi8, index=frame.index)
+    spans = ordinal.groupby(frame[SERIES], sort=False).agg(["min", "max", "nunique"])
+    gapped = spans.index[(spans["max"] - spans["min"] + 1) > spans["nunique"]]
+    if len(gapped) == 0:
+        return pd.DataFrame(columns=columns)
+    # Only the series with a gap are sorted and walked.
+    subset = frame[frame[SERIES].isin(gapped)].assign(_ordinal=ordinal)
+    ordered = subset.sort_values([SERIES, "_ordinal"], kind="stable").drop_duplicates([SERIES, "_ordinal"])
+    ordinals = ordered["_ordinal"].to_numpy()
+    names = ordered[SERIES].to_numpy()
+    gaps = np.flatnonzero((names[1:] == names[:-1]) & (np.diff(ordinals) > 1))
     rows = []
     for position in gaps:
         after = ordered.iloc[position + 1]
-        for missing in range(int(ordinal[position]) + 1, int(ordinal[position + 1])):
+        for missing in range(int(ordinals[position]) + 1, int(ordinals[position + 1])):
             rows.append({SERIES: after[SERIES], PERIOD: pd.Period(ordinal=missing, freq="M"),
                          "next_row": int(after[ROW])})
-    return pd.DataFrame(rows, columns=[SERIES, PERIOD, "next_row"])
+    return pd.DataFrame(rows, columns=columns)
 
 
 def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str) -> Problem:
@@ -358,11 +365,13 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     """Return the validated frame (or None), the problems that stop a run, and those allowed."""
     schema = build_schema(spec)
     try:
-        valid = schema.validate(raw.frame, lazy=True)
+        # In place: the raw frame's columns are coerced to their types, which saves
+        # a copy of a file that may hold millions of rows.
+        valid = schema.validate(raw.frame, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
         problems = _problems_from_pandera(exc.failure_cases, raw)
         return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
-    frame = valid.copy()
+    frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
@@ -391,7 +400,7 @@ def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> Check
     frame, problems, allowed = find_problems(spec, raw, today=today)
     if problems:
         raise CheckFailed(problems, str(raw.path))
-    frame = frame.sort_values([PERIOD, SERIES], kind="stable").reset_index(drop=True)
+    # Rows keep the file's order; the stages that write tables order what they write.
     has_target = frame[spec.target].notna()
     return CheckedData(history=frame[has_target].reset_index(drop=True),
                        future=frame[~has_target].reset_index(drop=True), raw=raw,

@@ -25,17 +25,18 @@ class ForecastResult:
 def make_forecast(spec: Spec, data: CheckedData) -> ForecastResult:
     """Return each model's forecast of the future rows, fitted on all history."""
     plan = plan_features(spec, SERIES).fit(data.history)
+    future = data.future.sort_values([PERIOD, SERIES], kind="stable")
     history_design = plan.transform(data.history)
-    future_design = plan.transform(data.future)
+    future_design = plan.transform(future)
     y = data.history[spec.target].to_numpy(float)
     forecasts, coefficients, summaries, warnings = [], [], [], []
     for kind in spec.models:
         model = make_model(kind, intercept=spec.intercept).fit(history_design, y)
-        if len(data.future):
+        if len(future):
             forecasts.append(pd.DataFrame({
-                "period": data.future[PERIOD].astype(str).to_numpy(),
-                "horizon": (data.future[PERIOD] - data.last_period).apply(lambda o: o.n).to_numpy(),
-                "series": data.future[SERIES].to_numpy(),
+                "period": future[PERIOD].astype(str).to_numpy(),
+                "horizon": (future[PERIOD] - data.last_period).apply(lambda o: o.n).to_numpy(),
+                "series": future[SERIES].to_numpy(),
                 "model": kind,
                 "forecast": model.predict(future_design),
             }))

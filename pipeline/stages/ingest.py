@@ -51,6 +51,11 @@ _SIGNATURES = [  # the first bytes of formats an analyst may save under the wron
 ]
 
 
+def _head(path: Path, size: int = 4096) -> bytes:
+    with path.open("rb") as handle:
+        return handle.read(size)
+
+
 def _looks_like(head: bytes) -> str | None:
     """Return what a file's first bytes say it is, if they name a known binary format."""
     for signature, name in _SIGNATURES:
@@ -62,7 +67,7 @@ def _looks_like(head: bytes) -> str | None:
 
 
 def _read_csv(options: CsvOptions, path: Path) -> pd.DataFrame:
-    head = path.read_bytes()[:4096]
+    head = _head(path)
     kind = _looks_like(head)
     if kind:
         raise DataError(f"is {kind}, not CSV text; set input.format or convert the file",
@@ -75,15 +80,15 @@ def _read_csv(options: CsvOptions, path: Path) -> pd.DataFrame:
 
 
 def _read_parquet(path: Path) -> pd.DataFrame:
-    head = path.read_bytes()[:4]
+    head = _head(path, 4)
     if head != b"PAR1":
-        kind = _looks_like(path.read_bytes()[:4096]) or "text or another format"
+        kind = _looks_like(_head(path)) or "text or another format"
         raise DataError(f"is not a Parquet file (it looks like {kind})", file=str(path))
     return pd.read_parquet(path)
 
 
 def _read_excel(sheet: str | int, path: Path) -> pd.DataFrame:
-    if not path.read_bytes()[:4] == b"PK\x03\x04":
+    if not _head(path, 4) == b"PK\x03\x04":
         raise DataError("is not an Excel .xlsx workbook", file=str(path))
     try:
         return pd.read_excel(path, sheet_name=sheet, engine="openpyxl")
