@@ -71,11 +71,13 @@ def _command_run(args) -> int:
     result = run(args.spec, output_folder=args.output_folder)
     table = result.metrics
     _print_table(table.to_dict(orient="records"),
-                 ["model", "n", "mae", "rmse", "mape", "bias", "skill_vs_mean"])
+                 ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"])
     print()
     print(result.evaluation.verdict)
-    for warning in result.warnings:
+    for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
+    for note in result.evaluation.notes:
+        print(f"note: {note}")
     print(f"run folder: {result.folder.path}")
     print(f"summary:    {result.folder.summary}")
     return EXIT_OK

@@ -57,3 +57,63 @@ def skill(model_error: float, baseline_error: float) -> float:
     if baseline_error == 0:
         return float("nan")
     return float(1.0 - model_error / baseline_error)
+
+
+def smape(actual, predicted) -> tuple[float, int]:
+    """Return the symmetric MAPE as a fraction, and how many rows it left out.
+
+    mean(2·|prediction − actual| / (|actual| + |prediction|)), the form with
+    absolute values in the denominator (Hyndman & Koehler 2006, section 2.3,
+    discuss it); rows where both are 0 are undefined and left out. Ranges 0 to 2.
+    """
+    actual, predicted = _pair(actual, predicted)
+    denominator = np.abs(actual) + np.abs(predicted)
+    usable = denominator != 0
+    if not usable.any():
+        return float("nan"), int((~usable).sum())
+    ratio = 2 * np.abs(predicted[usable] - actual[usable]) / denominator[usable]
+    return float(np.mean(ratio)), int((~usable).sum())
+
+
+def wape(actual, predicted) -> float:
+    """Return the weighted absolute percentage error, Σ|prediction − actual| / Σ|actual|."""
+    actual, predicted = _pair(actual, predicted)
+    total = float(np.sum(np.abs(actual)))
+    return float(np.sum(np.abs(predicted - actual)) / total) if total else float("nan")
+
+
+def mase(actual, predicted, scale) -> float:
+    """Return the mean absolute scaled error: mean(|prediction − actual| / scale).
+
+    ``scale`` is, per row, the in-sample MAE of the seasonal naive forecast on
+    that row's training window (Hyndman & Koehler 2006); rows whose scale is 0
+    or missing are left out.
+    """
+    actual, predicted = _pair(actual, predicted)
+    scale = np.broadcast_to(np.asarray(scale, dtype=float), actual.shape)
+    usable = np.isfinite(scale) & (scale > 0)
+    if not usable.any():
+        return float("nan")
+    return float(np.mean(np.abs(predicted[usable] - actual[usable]) / scale[usable]))
+
+
+def seasonal_naive_scale(history, season: int = 12) -> float:
+    """Return the in-sample MAE of the seasonal naive forecast, mean |y_t − y_{t−season}|.
+
+    ``history`` is one series' training values in time order, one per period.
+    With no full season of history, the one-step naive forecast is used instead.
+    """
+    values = np.asarray(history, dtype=float)
+    lag = season if len(values) > season else 1
+    if len(values) <= lag:
+        return float("nan")
+    return float(np.nanmean(np.abs(values[lag:] - values[:-lag])))
+
+
+def r2_out_of_sample(actual, predicted) -> float:
+    """Return 1 − Σ(actual − prediction)² / Σ(actual − mean(actual))² over the scored rows."""
+    actual, predicted = _pair(actual, predicted)
+    total = float(np.sum((actual - actual.mean()) ** 2))
+    if total == 0:
+        return float("nan")
+    return float(1.0 - np.sum((actual - predicted) ** 2) / total)

@@ -29,7 +29,6 @@ from pydantic import (
 from .errors import SpecError
 
 KeyPath = tuple[str | int, ...]
-MODEL_KINDS = ("mean_baseline", "ols")
 BASELINE = "mean_baseline"
 
 
@@ -158,7 +157,65 @@ class HoldoutValidation(StrictModel):
     last_periods: int = Field(ge=1)
 
 
-Validation = Annotated[HoldoutValidation, Field(discriminator="method")]
+class RollingOriginValidation(StrictModel):
+    """Many forecast origins: at each, fit on the months up to it, predict the next ones."""
+
+    method: Literal["rolling_origin"]
+    window: Literal["expanding", "sliding"] = Field(
+        "expanding", description="expanding: all months up to the origin; sliding: the last "
+                                 "min_train_periods months only")
+    horizon: int = Field(ge=1, description="each origin predicts 1..horizon months ahead")
+    gap: int = Field(0, ge=0, description="months skipped between the origin and the first "
+                                          "predicted month")
+    min_train_periods: int = Field(ge=2, description="months in the first training window "
+                                                     "(the window length when sliding)")
+    step: int = Field(1, ge=1, description="months between consecutive origins")
+    origins: int | None = Field(None, ge=1, description="use only the last N origins")
+
+
+class KFoldValidation(StrictModel):
+    """Rows without a time order: shuffled (seeded) into folds, each held out once."""
+
+    method: Literal["kfold"]
+    folds: int = Field(5, ge=2)
+    seed: int = 0
+
+
+class GroupedKFoldValidation(StrictModel):
+    """Like kfold, but rows sharing the values of group_by stay in one fold."""
+
+    method: Literal["grouped_kfold"]
+    folds: int = Field(5, ge=2)
+    group_by: list[str] = Field(min_length=1)
+
+
+Validation = Annotated[HoldoutValidation | RollingOriginValidation | KFoldValidation | GroupedKFoldValidation, Field(discriminator="method")]
+TIME_ORDERED = ("holdout", "rolling_origin")
+
+BASELINE_KINDS = ("mean_baseline", "last_value", "seasonal_naive", "drift")
+LINEAR_KINDS = ("ols", "ridge", "lasso", "elastic_net", "huber")
+ModelKind = Literal["mean_baseline", "last_value", "seasonal_naive", "drift",
+                    "ols", "ridge", "lasso", "elastic_net", "huber"]
+SELECT_METRICS = ("mae", "rmse", "mape", "smape", "wape", "mase")
+
+
+class ModelChoice(StrictModel):
+    """One model to fit and compare; a bare name stands for its defaults."""
+
+    kind: ModelKind
+    penalties: list[float] | None = Field(
+        None, description="ridge, lasso, elastic_net: penalties to choose from by an inner, "
+                          "time-ordered validation inside each training window")
+    l1_share: float = Field(0.5, gt=0, lt=1, description="elastic_net: the lasso share of the penalty")
+    huber_threshold: float = Field(1.35, gt=1, description="huber: residuals beyond this many "
+                                                            "scale units count linearly")
+
+    @field_validator("penalties")
+    @classmethod
+    def _positive(cls, value: list[float] | None) -> list[float] | None:
+        if value is not None and (not value or any(v <= 0 for v in value)):
+            raise ValueError("list one or more penalties, each above 0")
+        return value
 
 
 class OutputSection(StrictModel):
@@ -178,7 +235,11 @@ class Spec(StrictModel):
                                           "does not list here get rules from their role")
     intercept: bool = True
     validation: Validation
-    models: list[Literal["mean_baseline", "ols"]] = Field(default_factory=lambda: ["ols"])
+    models: list[ModelChoice] = Field(default_factory=lambda: [ModelChoice(kind="ols")])
+    select_by: Literal["mae", "rmse", "mape", "smape", "wape", "mase"] = Field(
+        "mae", description="the metric that picks the recommended model")
+    significance_level: float = Field(0.05, gt=0, lt=0.5, description="a model beats the mean "
+                                      "baseline when the one-sided test's p is below this")
     output: OutputSection
 
     _source: Path | None = PrivateAttr(None)
@@ -195,12 +256,30 @@ class Spec(StrictModel):
         """Return the spec file this spec was read from, if any."""
         return self._source
 
+    @field_validator("models", mode="before")
+    @classmethod
+    def _names_as_choices(cls, value: Any) -> Any:
+        if isinstance(value, list):
+            return [{"kind": item} if isinstance(item, str) else item for item in value]
+        return value
+
     @field_validator("models")
     @classmethod
-    def _baseline_always_first(cls, models: list[str]) -> list[str]:
-        if len(set(models)) != len(models):
-            raise ValueError("a model is listed twice")
-        return [BASELINE] + [m for m in models if m != BASELINE]
+    def _baseline_always_first(cls, models: list[ModelChoice]) -> list[ModelChoice]:
+        kinds = [m.kind for m in models]
+        if len(set(kinds)) != len(kinds):
+            repeated = next(k for k in kinds if kinds.count(k) > 1)
+            raise ValueError(f"model '{repeated}' is listed twice")
+        return [ModelChoice(kind=BASELINE)] + [m for m in models if m.kind != BASELINE]
+
+    @property
+    def model_kinds(self) -> list[str]:
+        """Return the kinds of every model fitted, the mean baseline first."""
+        return [m.kind for m in self.models]
+
+    def model(self, kind: str) -> ModelChoice:
+        """Return the choice of the given kind."""
+        return next(m for m in self.models if m.kind == kind)
 
     @property
     def driver_columns(self) -> list[str]:
@@ -410,6 +489,20 @@ def _check_roles(spec: Spec, fail) -> None:
     if not spec.intercept and not spec.driver_columns:
         raise fail(("intercept",), "a model without an intercept needs at least one driver")
     _check_column_rules(spec, fail)
+    _check_models(spec, fail)
+
+
+def _check_models(spec: Spec, fail) -> None:
+    """Refuse models and metrics that need a time order under a scheme without one."""
+    if spec.validation.method in TIME_ORDERED:
+        return
+    for index, choice in enumerate(spec.models[1:]):
+        if choice.kind in ("last_value", "seasonal_naive", "drift"):
+            raise fail(("models", index), f"'{choice.kind}' needs months in time order; "
+                       f"validation method '{spec.validation.method}' has none")
+    if spec.select_by == "mase":
+        raise fail(("select_by",), "MASE needs months in time order; choose another metric "
+                   f"for validation method '{spec.validation.method}'")
 
 
 _TYPES_FOR_ROLE = {
@@ -418,6 +511,7 @@ _TYPES_FOR_ROLE = {
     "a numeric driver": ("number", "whole_number"),
     "a categorical driver": ("category", "text", "whole_number"),
     "a series column": ("category", "text", "whole_number"),
+    "a grouping column": ("category", "text", "whole_number", "date"),
 }
 
 
@@ -427,6 +521,8 @@ def column_roles(spec: Spec) -> dict[str, str]:
     roles.update({column: "a series column" for column in spec.input.series})
     roles.update({d.column: "a numeric driver" for d in spec.drivers.numeric})
     roles.update({d.column: "a categorical driver" for d in spec.drivers.categorical})
+    if spec.validation.method == "grouped_kfold":
+        roles.update({c: "a grouping column" for c in spec.validation.group_by if c not in roles})
     return roles
 
 

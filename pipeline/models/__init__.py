@@ -1,25 +1,38 @@
-"""Models behind one small interface: ``fit(design, y)`` returns self, ``predict(design)``.
+"""Models behind one small interface: ``fit(design, y)`` returns self, ``predict(design)``,
+``coefficient_table()``.
 
-A new model is a class with that interface registered in ``MODELS`` under the
-name the spec uses for it.
+A new model is a class with that interface, built by ``make_model`` from the
+spec's model choice.
 """
 
 from __future__ import annotations
 
-from .baselines import MeanBaseline
+from .baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from .ols import OLSModel, least_squares
+from .regularised import HuberModel, PenalisedModel
 
-MODELS = {
+BASELINES = {
     "mean_baseline": MeanBaseline,
-    "ols": OLSModel,
+    "last_value": LastValue,
+    "seasonal_naive": SeasonalNaive,
+    "drift": Drift,
 }
 
 
-def make_model(kind: str, *, intercept: bool = True):
-    """Return a new, unfitted model of the named kind."""
+def make_model(choice, *, intercept: bool = True):
+    """Return a new, unfitted model for a spec's model choice (or a bare kind name)."""
+    kind = choice if isinstance(choice, str) else choice.kind
+    if kind in BASELINES:
+        return BASELINES[kind]()
     if kind == "ols":
         return OLSModel(fit_intercept=intercept)
-    return MODELS[kind]()
+    if kind == "huber":
+        return HuberModel(threshold=getattr(choice, "huber_threshold", 1.35))
+    if kind in ("ridge", "lasso", "elastic_net"):
+        return PenalisedModel(kind, penalties=getattr(choice, "penalties", None),
+                              l1_share=getattr(choice, "l1_share", 0.5))
+    raise ValueError(f"unknown model kind {kind!r}")
 
 
-__all__ = ["MODELS", "MeanBaseline", "OLSModel", "least_squares", "make_model"]
+__all__ = ["BASELINES", "Drift", "HuberModel", "LastValue", "MeanBaseline", "OLSModel",
+           "PenalisedModel", "SeasonalNaive", "least_squares", "make_model"]

@@ -1,26 +1,118 @@
-"""Baselines: what a planner falls back on without a model."""
+"""Baselines: what a planner falls back on without a model, each fitted per series.
+
+The mean baseline is the reference every run compares against. The others
+need the rows' months (``design.period``) and so apply only to time-ordered
+validation.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
+SEASON = 12
 
-class MeanBaseline:
+
+def _by_series(design, y) -> pd.DataFrame:
+    frame = pd.DataFrame({"series": design.series, "y": np.asarray(y, float)})
+    if design.period is not None:
+        frame["period"] = design.period
+    return frame
+
+
+class _PerSeriesBaseline:
+    """Shared prediction for baselines that store one number per series."""
+
+    def predict(self, design) -> np.ndarray:
+        return np.array([self.values_.get(s, self.fallback_) for s in design.series], float)
+
+    def coefficient_table(self) -> pd.DataFrame:
+        return pd.DataFrame({"term": [f"{self.word} of {s}" for s in self.values_],
+                             "estimate": list(self.values_.values())})
+
+
+class MeanBaseline(_PerSeriesBaseline):
     """Predicts, for each series, the mean of its target over the training window."""
 
     label = "mean baseline"
+    word = "mean"
 
-    def fit(self, design, y: np.ndarray) -> MeanBaseline:
-        frame = pd.DataFrame({"series": design.series, "y": np.asarray(y, float)})
+    def fit(self, design, y) -> MeanBaseline:
+        frame = _by_series(design, y)
+        self.values_ = frame.groupby("series")["y"].mean().to_dict()
+        self.fallback_ = float(np.mean(y))
+        return self
+
+    @property
+    def means_(self) -> dict:
+        return self.values_
+
+
+class LastValue(_PerSeriesBaseline):
+    """Predicts, for each series, its last value in the training window."""
+
+    label = "last value"
+    word = "last value"
+
+    def fit(self, design, y) -> LastValue:
+        frame = _by_series(design, y).sort_values("period", kind="stable")
+        self.values_ = frame.groupby("series")["y"].last().to_dict()
+        self.fallback_ = float(frame["y"].iloc[-1])
+        return self
+
+
+class SeasonalNaive:
+    """Predicts, for each series, its value in the same month of the latest year in training.
+
+    A month of the year that the training window lacks falls back to the series' mean.
+    """
+
+    label = "same month last year"
+
+    def fit(self, design, y) -> SeasonalNaive:
+        frame = _by_series(design, y).sort_values("period", kind="stable")
+        frame["month_of_year"] = frame["period"] % SEASON
+        self.values_ = frame.groupby(["series", "month_of_year"])["y"].last().to_dict()
         self.means_ = frame.groupby("series")["y"].mean().to_dict()
-        self.overall_mean_ = float(np.mean(y))
+        self.fallback_ = float(frame["y"].mean())
         return self
 
     def predict(self, design) -> np.ndarray:
-        return np.array([self.means_.get(s, self.overall_mean_) for s in design.series], float)
+        months = np.asarray(design.period) % SEASON
+        return np.array([self.values_.get((s, m), self.means_.get(s, self.fallback_))
+                         for s, m in zip(design.series, months)], float)
 
     def coefficient_table(self) -> pd.DataFrame:
-        """Return the per-series means as the baseline's coefficients."""
-        return pd.DataFrame({"term": [f"mean of {s}" for s in self.means_],
-                             "estimate": list(self.means_.values())})
+        return pd.DataFrame({"term": [f"month {m + 1} of {s}" for s, m in self.values_],
+                             "estimate": list(self.values_.values())})
+
+
+class Drift:
+    """Predicts, for each series, the straight line through its first and last training values."""
+
+    label = "drift"
+
+    def fit(self, design, y) -> Drift:
+        frame = _by_series(design, y).sort_values("period", kind="stable")
+        grouped = frame.groupby("series")
+        first, last = grouped.first(), grouped.last()
+        span = (last["period"] - first["period"]).replace(0, np.nan)
+        slope = ((last["y"] - first["y"]) / span).fillna(0.0)
+        self.last_ = last["y"].to_dict()
+        self.last_period_ = last["period"].to_dict()
+        self.slope_ = slope.to_dict()
+        self.fallback_ = float(frame["y"].mean())
+        return self
+
+    def predict(self, design) -> np.ndarray:
+        out = []
+        for s, period in zip(design.series, design.period):
+            if s not in self.last_:
+                out.append(self.fallback_)
+                continue
+            out.append(self.last_[s] + self.slope_[s] * (period - self.last_period_[s]))
+        return np.array(out, float)
+
+    def coefficient_table(self) -> pd.DataFrame:
+        return pd.DataFrame({"term": [f"slope per month of {s}" for s in self.slope_],
+                             "estimate": list(self.slope_.values())})

@@ -1,28 +1,51 @@
-"""Backtest: fit each model on a training window, predict the periods after it.
+"""Backtest: at each origin, fit on the training window, predict what follows.
 
-Validation by holdout: the last N months of history are held out; every model
-and the feature plan are fitted on the months before them only.
+Validation schemes: holdout (one origin, the last N months held out); rolling
+origin (many origins, an expanding or sliding window, a horizon, a gap and a
+step); k-fold and grouped k-fold for rows without a time order. The feature
+plan and every model are fitted on the training window only.
+
+OLS over expanding windows does not refit from scratch at each origin: when
+the feature plan learns the same thing in every window, the design is built
+once and the QR factor is grown block by block (``GrowingLeastSquares``).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
+from sklearn.model_selection import GroupKFold, KFold
 
 from ..models import make_model
+from ..models.ols import GrowingLeastSquares
 from ..spec import Spec
 from .check import PERIOD, SERIES, CheckedData
 from .features import plan_features
 
+PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
+                      "mase_scale"]
+
+
+@dataclass(frozen=True)
+class OriginWindow:
+    """One origin of a time-ordered scheme, as positions in the sorted list of months."""
+
+    origin: int          # index of the origin month (the last month of training)
+    train_start: int     # index of the first training month
+    test_start: int      # index of the first predicted month
+    test_end: int        # index of the last predicted month
+
 
 @dataclass(frozen=True)
 class Split:
-    """One training window and the periods predicted from it."""
+    """One training window and the rows predicted from it."""
 
-    origin: pd.Period          # the last period of the training window
+    label: str                 # the origin month, or "fold k"
     train: pd.DataFrame
     test: pd.DataFrame
+    origin: pd.Period | None = None
 
 
 @dataclass(frozen=True)
@@ -31,47 +54,208 @@ class BacktestResult:
 
     predictions: pd.DataFrame
     splits: list[Split]
+    scheme: str
+    horizon: int
+    notes: list[str]
+    step: int = 1
 
 
-def holdout_split(spec: Spec, data: CheckedData) -> Split:
-    """Return the split holding out the spec's last N months of history."""
-    held_out = spec.validation.last_periods
-    periods = sorted(data.history[PERIOD].unique())
-    if held_out >= len(periods):
-        raise spec.error(("validation", "last_periods"),
-                         f"holding out {held_out} months leaves nothing to fit on: the history has "
-                         f"{len(periods)} months, so at most {len(periods) - 1} can be held out")
-    origin = periods[-held_out - 1]
-    train = data.history[data.history[PERIOD] <= origin]
-    test = data.history[data.history[PERIOD] > origin]
-    terms = len(plan_features(spec, SERIES).fit(train).get_feature_names_out()) + int(spec.intercept)
-    if "ols" in spec.models and len(train) <= terms:
-        raise spec.error(("validation", "last_periods"),
-                         f"the training window keeps {len(train)} rows, too few for the {terms} "
-                         f"terms of the linear model; hold out fewer months")
-    return Split(origin=origin, train=train, test=test)
+def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap: int = 0,
+                           step: int = 1, window: str = "expanding",
+                           origins: int | None = None) -> list[OriginWindow]:
+    """Return every origin that has min_train months before it and a full horizon after.
+
+    Origins are counted back from the latest possible one, ``step`` months apart,
+    so the newest data is always scored. Raises ValueError saying how many
+    origins the data allows when ``origins`` asks for more.
+    """
+    last = n_periods - 1 - gap - horizon
+    positions = list(range(last, min_train - 2, -step))[::-1]
+    if origins is not None:
+        if origins > len(positions):
+            raise ValueError(f"asks for {origins} origins but the history allows at most "
+                             f"{len(positions)}")
+        positions = positions[-origins:]
+    return [OriginWindow(origin=i,
+                         train_start=0 if window == "expanding" else i - min_train + 1,
+                         test_start=i + 1 + gap, test_end=i + gap + horizon)
+            for i in positions]
+
+
+def _time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
+    validation = spec.validation
+    months = np.sort(data.history[PERIOD].unique())
+    if validation.method == "holdout":
+        held_out = validation.last_periods
+        if held_out >= len(months):
+            raise spec.error(("validation", "last_periods"),
+                             f"holding out {held_out} months leaves nothing to fit on: the history "
+                             f"has {len(months)} months, so at most {len(months) - 1} can be held out")
+        windows = [OriginWindow(len(months) - held_out - 1, 0, len(months) - held_out, len(months) - 1)]
+        horizon = held_out
+    else:
+        needed = validation.min_train_periods + validation.gap + validation.horizon
+        try:
+            windows = rolling_origin_windows(
+                len(months), horizon=validation.horizon, min_train=validation.min_train_periods,
+                gap=validation.gap, step=validation.step, window=validation.window,
+                origins=validation.origins)
+        except ValueError as exc:
+            raise spec.error(("validation", "origins"), f"{exc} (history: {len(months)} months)") from None
+        if not windows:
+            raise spec.error(("validation", "min_train_periods"),
+                             f"the history has {len(months)} months; one origin needs "
+                             f"min_train_periods + gap + horizon = {needed}")
+        horizon = validation.gap + validation.horizon
+    splits = []
+    history = data.history
+    for window in windows:
+        in_train = (history[PERIOD] >= months[window.train_start]) & (history[PERIOD] <= months[window.origin])
+        in_test = (history[PERIOD] >= months[window.test_start]) & (history[PERIOD] <= months[window.test_end])
+        origin = months[window.origin]
+        splits.append(Split(label=str(origin), train=history[in_train],
+                            test=history[in_test].sort_values([PERIOD, SERIES], kind="stable"),
+                            origin=origin))
+    return splits, horizon
+
+
+def _fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
+    validation = spec.validation
+    history = data.history.reset_index(drop=True)
+    if validation.method == "kfold":
+        if validation.folds > len(history):
+            raise spec.error(("validation", "folds"),
+                             f"{validation.folds} folds need at least as many rows; the history has "
+                             f"{len(history)}")
+        folds = KFold(n_splits=validation.folds, shuffle=True, random_state=validation.seed).split(history)
+    else:
+        groups = history[validation.group_by].astype(str).agg(" / ".join, axis=1)
+        if groups.nunique() < validation.folds:
+            raise spec.error(("validation", "folds"),
+                             f"{validation.folds} folds need as many groups; the columns "
+                             f"{', '.join(validation.group_by)} hold {groups.nunique()}")
+        folds = GroupKFold(n_splits=validation.folds).split(history, groups=groups)
+    return [Split(label=f"fold {k + 1}", train=history.iloc[train], test=history.iloc[test])
+            for k, (train, test) in enumerate(folds)]
+
+
+def mase_scales(train: pd.DataFrame, target: str, season: int = 12) -> dict[str, float]:
+    """Return, per series, the in-sample MAE of the seasonal naive forecast on the window.
+
+    Months are matched by date (a value and the one ``season`` months earlier),
+    so a gap in a series never pairs the wrong months. A series with no full
+    season uses the one-month naive forecast.
+    """
+    frame = pd.DataFrame({"series": train[SERIES].to_numpy(), "month": train[PERIOD].array.asi8,
+                          "y": train[target].to_numpy(float)})
+    scales = {}
+    for series, rows in frame.groupby("series", sort=False):
+        values = rows.set_index("month")["y"]
+        span = int(values.index.max() - values.index.min())
+        lag = season if span >= season else 1
+        earlier = values.reindex(values.index - lag).to_numpy()
+        diffs = np.abs(values.to_numpy() - earlier)
+        scales[series] = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
+    return scales
+
+
+def _plan_state(plan) -> str:
+    """Return a text form of everything a fitted plan learned (attributes ending in _)."""
+    parts = []
+    for part in plan.parts_:
+        learned = {k: v for k, v in vars(part).items() if k.endswith("_")}
+        parts.append(f"{type(part).__name__}:{sorted(learned.items(), key=lambda kv: kv[0])!r}")
+    return "|".join(parts)
+
+
+def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target: str,
+                       scales: dict[str, float]) -> pd.DataFrame:
+    test = split.test
+    if split.origin is not None:
+        horizon = (test[PERIOD].array.asi8 - split.origin.ordinal).astype(int)
+        period = test[PERIOD].astype(str).to_numpy()
+    else:
+        horizon = np.zeros(len(test), int)
+        period = test[PERIOD].astype(str).to_numpy() if PERIOD in test.columns else ""
+    series = test[SERIES].to_numpy()
+    return pd.DataFrame({
+        "origin": split.label, "period": period, "horizon": horizon, "series": series,
+        "model": kind, "actual": test[target].to_numpy(float), "prediction": predictions,
+        "mase_scale": [scales.get(s, np.nan) for s in series],
+    })
+
+
+def _check_rows(spec: Spec, split: Split, terms: int) -> None:
+    linear = [k for k in spec.model_kinds if k in ("ols", "ridge", "lasso", "elastic_net", "huber")]
+    if linear and len(split.train) <= terms:
+        key = ("validation", "last_periods" if spec.validation.method == "holdout" else
+               "min_train_periods" if spec.validation.method == "rolling_origin" else "folds")
+        raise spec.error(key, f"the training window ending {split.label} has {len(split.train)} rows, "
+                              f"too few for the {terms} terms of the linear models")
+
+
+def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, np.ndarray]:
+    """Return the OLS predictions of every split, growing one QR factor across origins."""
+    ordered = history.sort_values(PERIOD, kind="stable")
+    design = plan.transform(ordered)
+    matrix = design.matrix
+    if spec.intercept:
+        matrix = np.column_stack([np.ones(len(matrix)), matrix])
+    y = ordered[spec.target].to_numpy(float)
+    months = ordered[PERIOD].array.asi8
+    norms = np.sqrt(np.einsum("ij,ij->j", matrix, matrix))
+    solver = GrowingLeastSquares(np.where(norms > 0, norms, 1.0))
+    taken = 0
+    out: dict[str, np.ndarray] = {}
+    for split in splits:
+        end = int(np.searchsorted(months, split.origin.ordinal, side="right"))
+        solver.add(matrix[taken:end], y[taken:end])
+        taken = end
+        beta = solver.solve()
+        if beta is None:  # rank-deficient window: the careful fit drops and names columns
+            return {}
+        test_design = plan.transform(split.test)
+        test_matrix = test_design.matrix
+        if spec.intercept:
+            test_matrix = np.column_stack([np.ones(len(test_matrix)), test_matrix])
+        out[split.label] = test_matrix @ beta
+    return out
 
 
 def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
-    """Return every model's out-of-sample predictions on the spec's validation split."""
-    split = holdout_split(spec, data)
-    split = Split(origin=split.origin, train=split.train,
-                  test=split.test.sort_values([PERIOD, SERIES], kind="stable"))
-    plan = plan_features(spec, SERIES).fit(split.train)
-    train_design = plan.transform(split.train)
-    test_design = plan.transform(split.test)
-    y_train = split.train[spec.target].to_numpy(float)
-    horizon = (split.test[PERIOD] - split.origin).apply(lambda offset: offset.n).to_numpy()
+    """Return every model's out-of-sample predictions under the spec's validation scheme."""
+    time_ordered = spec.validation.method in ("holdout", "rolling_origin")
+    if time_ordered:
+        splits, horizon = _time_splits(spec, data)
+    else:
+        splits, horizon = _fold_splits(spec, data), 0
+    notes: list[str] = []
+    plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
+    for split, plan in zip(splits, plans):
+        _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
+    fast_ols: dict[str, np.ndarray] = {}
+    expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
+    if "ols" in spec.model_kinds and expanding and len(splits) > 1:
+        states = {_plan_state(plan) for plan in plans}
+        if len(states) == 1:
+            fast_ols = _growing_ols(spec, splits, plans[0], data.history)
     frames = []
-    for kind in spec.models:
-        model = make_model(kind, intercept=spec.intercept).fit(train_design, y_train)
-        frames.append(pd.DataFrame({
-            "origin": str(split.origin),
-            "period": split.test[PERIOD].astype(str).to_numpy(),
-            "horizon": horizon,
-            "series": split.test[SERIES].to_numpy(),
-            "model": kind,
-            "actual": split.test[spec.target].to_numpy(float),
-            "prediction": model.predict(test_design),
-        }))
-    return BacktestResult(predictions=pd.concat(frames, ignore_index=True), splits=[split])
+    for split, plan in zip(splits, plans):
+        train_design = plan.transform(split.train)
+        test_design = plan.transform(split.test)
+        y_train = split.train[spec.target].to_numpy(float)
+        scales = mase_scales(split.train, spec.target) if time_ordered else {}
+        for choice in spec.models:
+            if choice.kind == "ols" and split.label in fast_ols:
+                predicted = fast_ols[split.label]
+            else:
+                predicted = make_model(choice, intercept=spec.intercept).fit(train_design, y_train) \
+                    .predict(test_design)
+            frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales))
+    if not time_ordered:
+        notes.append("k-fold validation ignores time order: MASE is not computed and the "
+                     "comparison says nothing about forecasting ahead")
+    predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
+    return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
+                          horizon=horizon, notes=notes, step=getattr(spec.validation, "step", 1))
+

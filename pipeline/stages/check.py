@@ -119,6 +119,7 @@ def effective_rules(spec: Spec) -> dict[str, ColumnRule]:
         "a numeric driver": ColumnRule(type="number"),
         "a categorical driver": ColumnRule(type="category"),
         "a series column": ColumnRule(type="category"),
+        "a grouping column": ColumnRule(type="category"),
     }
     rules = {column: from_role[role] for column, role in column_roles(spec).items()}
     for column, rule in spec.columns.items():

@@ -15,7 +15,7 @@ import pandas as pd
 
 from ..errors import DataError
 from ..spec import CategoricalDriver, NumericDriver, Spec
-from .check import ROW
+from .check import PERIOD, ROW
 
 
 def _power_name(column: str, power: int) -> str:
@@ -92,6 +92,7 @@ class Design:
     matrix: np.ndarray
     names: list[str]
     series: np.ndarray
+    period: np.ndarray | None = None   # month ordinals (months since 1970-01), when time-ordered
 
 
 class FeaturePlan:
@@ -112,8 +113,9 @@ class FeaturePlan:
     def transform(self, frame: pd.DataFrame) -> Design:
         blocks = [part.transform(frame) for part in self.parts_]
         matrix = np.hstack(blocks) if blocks else np.empty((len(frame), 0))
+        period = frame[PERIOD].array.asi8 if PERIOD in frame.columns else None
         return Design(matrix=matrix, names=self.get_feature_names_out(),
-                      series=frame[self.series_column].to_numpy())
+                      series=frame[self.series_column].to_numpy(), period=period)
 
     def get_feature_names_out(self) -> list[str]:
         return [name for part in self.parts_ for name in part.get_feature_names_out()]

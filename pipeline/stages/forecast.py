@@ -30,8 +30,9 @@ def make_forecast(spec: Spec, data: CheckedData) -> ForecastResult:
     future_design = plan.transform(future)
     y = data.history[spec.target].to_numpy(float)
     forecasts, coefficients, summaries, warnings = [], [], [], []
-    for kind in spec.models:
-        model = make_model(kind, intercept=spec.intercept).fit(history_design, y)
+    for choice in spec.models:
+        kind = choice.kind
+        model = make_model(choice, intercept=spec.intercept).fit(history_design, y)
         if len(future):
             forecasts.append(pd.DataFrame({
                 "period": future[PERIOD].astype(str).to_numpy(),

@@ -31,8 +31,9 @@ CAUTIONS = [
     "have been, and the next months can be further off.",
     "The models learn from the history in the input file only. A change the history does not "
     "hold (a new product, a new competitor, a new way of pricing) is not in these numbers.",
-    "The comparison rests on one holdout window; a different window can rank the models "
-    "differently.",
+    "The comparison rests on the validation windows of this run; other windows can rank the "
+    "models differently, and a significance test is only as good as its assumptions "
+    "(errors comparable from one origin to the next).",
 ]
 
 
@@ -96,10 +97,26 @@ def _markdown_table(frame: pd.DataFrame, digits: int = 4) -> str:
     return "\n".join([header, rule, *body])
 
 
+def describe_validation(spec: Spec) -> str:
+    """Return the validation scheme in words."""
+    v = spec.validation
+    if v.method == "holdout":
+        return f"holdout of the last {v.last_periods} months"
+    if v.method == "rolling_origin":
+        gap = f", a gap of {v.gap} months" if v.gap else ""
+        limit = f", the last {v.origins} origins" if v.origins else ""
+        return (f"rolling origin, {v.window} window of at least {v.min_train_periods} months, "
+                f"horizon {v.horizon}{gap}, every {v.step} month(s){limit}")
+    if v.method == "kfold":
+        return f"{v.folds}-fold cross-validation, shuffled with seed {v.seed}"
+    return f"{v.folds}-fold cross-validation grouped by {', '.join(v.group_by)}"
+
+
 def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
                    evaluation: Evaluation, forecast: ForecastResult) -> str:
     """Return the run's summary in Markdown: the answer first, the evidence after."""
-    table = evaluation.table[["model", "n", "mae", "rmse", "mape", "bias", "skill_vs_mean"]]
+    table = evaluation.table[["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2",
+                              "bias", "skill_vs_mean", "against_mean"]]
     lines = [
         f"# {spec.name}: forecast run {run_id}",
         "",
@@ -107,14 +124,18 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
         "",
         evaluation.verdict,
         "",
-        f"Recommended model: **{evaluation.recommended}** (lowest holdout MAE).",
+        f"Recommended model: **{evaluation.recommended}** (best {evaluation.select_by.upper()} "
+        "out of sample" + ("" if evaluation.beats_baseline or evaluation.recommended == "mean_baseline"
+                           else "; not significantly better than the mean baseline") + ").",
         "",
-        f"## Model comparison (holdout of the last {spec.validation.last_periods} months)",
+        f"## Model comparison ({describe_validation(spec)})",
         "",
         _markdown_table(table),
         "",
-        "MAPE is a fraction (0.05 = 5%). Bias is prediction − actual: positive means the "
-        "forecasts ran high. Skill is 1 − MAE / MAE of the mean baseline.",
+        "MAPE, sMAPE and WAPE are fractions (0.05 = 5%). MASE divides each error by the "
+        "in-sample error of the same-month-last-year forecast (below 1 beats it). R² is out of "
+        "sample. Bias is prediction − actual: positive means the forecasts ran high. Skill is "
+        "1 − MAE / MAE of the mean baseline.",
         "",
     ]
     recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
@@ -174,6 +195,11 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
             "notes": forecast.warnings + evaluation.notes,
         }
+        metrics["by_origin"] = _records(evaluation.by_origin)
+        metrics["by_horizon"] = _records(evaluation.by_horizon)
+        metrics["by_series"] = _records(evaluation.by_series)
+        metrics["beats_baseline"] = evaluation.beats_baseline
+        metrics["select_by"] = evaluation.select_by
         (staging / "metrics.json").write_text(json.dumps(metrics, indent=2), encoding="utf-8")
         backtest.predictions.to_csv(staging / "predictions.csv", index=False)
         forecast.coefficients.to_csv(staging / "coefficients.csv", index=False)
