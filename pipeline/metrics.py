@@ -97,19 +97,6 @@ def mase(actual, predicted, scale) -> float:
     return float(np.mean(np.abs(predicted[usable] - actual[usable]) / scale[usable]))
 
 
-def seasonal_naive_scale(history, season: int = 12) -> float:
-    """Return the in-sample MAE of the seasonal naive forecast, mean |y_t − y_{t−season}|.
-
-    ``history`` is one series' training values in time order, one per period.
-    With no full season of history, the one-step naive forecast is used instead.
-    """
-    values = np.asarray(history, dtype=float)
-    lag = season if len(values) > season else 1
-    if len(values) <= lag:
-        return float("nan")
-    return float(np.nanmean(np.abs(values[lag:] - values[:-lag])))
-
-
 def r2_out_of_sample(actual, predicted) -> float:
     """Return 1 − Σ(actual − prediction)² / Σ(actual − mean(actual))² over the scored rows."""
     actual, predicted = _pair(actual, predicted)

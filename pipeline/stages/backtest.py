@@ -18,11 +18,11 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
-from ..models import make_model
+from ..models import BASELINES, make_model
 from ..models.ols import GrowingLeastSquares
 from ..spec import Spec
 from .check import PERIOD, SERIES, CheckedData
-from .features import plan_features
+from .features import Design, plan_features
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale"]
@@ -143,20 +143,28 @@ def mase_scales(train: pd.DataFrame, target: str, season: int = 12) -> dict[str,
     """Return, per series, the in-sample MAE of the seasonal naive forecast on the window.
 
     Months are matched by date (a value and the one ``season`` months earlier),
-    so a gap in a series never pairs the wrong months. A series with no full
-    season uses the one-month naive forecast.
+    so a gap in a series never pairs the wrong months. A series spanning less
+    than a full season uses the one-month naive forecast.
     """
-    frame = pd.DataFrame({"series": train[SERIES].to_numpy(), "month": train[PERIOD].array.asi8,
-                          "y": train[target].to_numpy(float)})
-    scales = {}
-    for series, rows in frame.groupby("series", sort=False):
-        values = rows.set_index("month")["y"]
-        span = int(values.index.max() - values.index.min())
-        lag = season if span >= season else 1
-        earlier = values.reindex(values.index - lag).to_numpy()
-        diffs = np.abs(values.to_numpy() - earlier)
-        scales[series] = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
-    return scales
+    codes, names = pd.factorize(train[SERIES].to_numpy())
+    months = train[PERIOD].array.asi8.astype(np.int64)
+    values = train[target].to_numpy(float)
+    first = np.full(len(names), np.iinfo(np.int64).max)
+    last = np.full(len(names), np.iinfo(np.int64).min)
+    np.minimum.at(first, codes, months)
+    np.maximum.at(last, codes, months)
+    lag = np.where(last - first >= season, season, 1)[codes]
+    # One integer key per (series, month): look up the value lag months earlier.
+    span = int(months.max() - months.min()) + season + 2 if len(months) else 1
+    keys = pd.Index(codes.astype(np.int64) * span + (months - months.min()))
+    earlier = keys.get_indexer(codes.astype(np.int64) * span + (months - months.min() - lag))
+    found = earlier >= 0
+    diffs = np.abs(values[found] - values[earlier[found]])
+    total = np.bincount(codes[found], weights=diffs, minlength=len(names))
+    count = np.bincount(codes[found], minlength=len(names))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scale = np.where(count > 0, total / np.maximum(count, 1), np.nan)
+    return dict(zip(names, scale.tolist()))
 
 
 def _plan_state(plan) -> str:
@@ -241,16 +249,27 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             fast_ols = _growing_ols(spec, splits, plans[0], data.history)
     frames = []
     for split, plan in zip(splits, plans):
-        train_design = plan.transform(split.train)
-        test_design = plan.transform(split.test)
         y_train = split.train[spec.target].to_numpy(float)
         scales = mase_scales(split.train, spec.target) if time_ordered else {}
+        designs: dict[str, Design] = {}
+
+        def design_for(part: str, kind: str, split=split, plan=plan, designs=designs) -> Design:
+            # Baselines need only the series and months; the full design is built once, if at all.
+            frame = split.train if part == "train" else split.test
+            if kind in BASELINES:
+                return Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
+                              frame[PERIOD].array.asi8 if PERIOD in frame.columns else None)
+            if part not in designs:
+                designs[part] = plan.transform(frame)
+            return designs[part]
+
         for choice in spec.models:
             if choice.kind == "ols" and split.label in fast_ols:
                 predicted = fast_ols[split.label]
             else:
-                predicted = make_model(choice, intercept=spec.intercept).fit(train_design, y_train) \
-                    .predict(test_design)
+                model = make_model(choice, intercept=spec.intercept)
+                model.fit(design_for("train", choice.kind), y_train)
+                predicted = model.predict(design_for("test", choice.kind))
             frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales))
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
