@@ -64,7 +64,7 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     data = check_data(spec, read_input(spec))
     backtest = run_backtest(spec, data)
     evaluation = evaluate(spec, backtest)
-    forecast = make_forecast(spec, data)
+    forecast = make_forecast(spec, data, backtest)
     folder = publish(spec, data, backtest, evaluation, forecast,
                      output_folder=Path(output_folder) if output_folder else None)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,

@@ -218,6 +218,31 @@ class ModelChoice(StrictModel):
         return value
 
 
+class DriverChange(StrictModel):
+    """One what-if change to a driver in the months to forecast."""
+
+    column: str
+    set: float | str | None = Field(None, description="replace the value")
+    add: float | None = Field(None, description="add to the value")
+    percent: float | None = Field(None, description="raise (or, below 0, cut) the value by this %")
+    where: dict[str, str | float | list[str | float]] = Field(
+        default_factory=dict, description="only rows whose columns hold these values")
+
+    @model_validator(mode="after")
+    def _one_change(self) -> DriverChange:
+        given = [k for k in ("set", "add", "percent") if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise ValueError("give exactly one of set, add or percent")
+        return self
+
+
+class Scenario(StrictModel):
+    """A named what-if: changes to future drivers, forecast beside the base forecast."""
+
+    name: str = Field(min_length=1, pattern=r"^[A-Za-z0-9][A-Za-z0-9 _.-]*$")
+    changes: list[DriverChange] = Field(min_length=1)
+
+
 class OutputSection(StrictModel):
     folder: Path = Field(description="run folders are created inside it")
 
@@ -240,6 +265,12 @@ class Spec(StrictModel):
         "mae", description="the metric that picks the recommended model")
     significance_level: float = Field(0.05, gt=0, lt=0.5, description="a model beats the mean "
                                       "baseline when the one-sided test's p is below this")
+    standard_errors: Literal["classical", "hc3", "hac"] = Field(
+        "classical", description="OLS coefficient table: classical, robust to non-constant "
+                                 "variance (hc3), or robust to autocorrelation too (hac)")
+    autocorrelation_lags: int | None = Field(
+        None, ge=1, description="hac: lags to include; default floor(4·(n/100)^(2/9))")
+    scenarios: list[Scenario] = Field(default_factory=list)
     output: OutputSection
 
     _source: Path | None = PrivateAttr(None)
@@ -490,6 +521,29 @@ def _check_roles(spec: Spec, fail) -> None:
         raise fail(("intercept",), "a model without an intercept needs at least one driver")
     _check_column_rules(spec, fail)
     _check_models(spec, fail)
+    _check_scenarios(spec, fail)
+
+
+def _check_scenarios(spec: Spec, fail) -> None:
+    """Refuse scenarios that change a column no model uses, or repeat a name."""
+    names: set[str] = set()
+    usable = set(spec.driver_columns)
+    numeric = {d.column for d in spec.drivers.numeric}
+    for index, scenario in enumerate(spec.scenarios):
+        if scenario.name in names:
+            raise fail(("scenarios", index, "name"), f"scenario '{scenario.name}' is named twice")
+        names.add(scenario.name)
+        for number, change in enumerate(scenario.changes):
+            key = ("scenarios", index, "changes", number)
+            if change.column not in usable:
+                raise fail(key + ("column",), f"'{change.column}' is not a driver, so changing it "
+                           "changes no forecast")
+            if change.column not in numeric and change.set is None:
+                raise fail(key + ("column",), f"'{change.column}' is categorical: use set, not "
+                           "add or percent")
+            for column in change.where:
+                if column not in column_roles(spec):
+                    raise fail(key + ("where", column), f"'{column}' is not a column the spec uses")
 
 
 def _check_models(spec: Spec, fail) -> None:

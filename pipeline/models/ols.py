@@ -51,6 +51,13 @@ class LeastSquaresFit:
     condition_number: float
     centered_r2: bool
     dropped: list[Collinearity] = field(default_factory=list)
+    xtx_inverse: np.ndarray | None = None   # (X'X)⁻¹ on the columns' own scale; NaN for dropped
+    leverage: np.ndarray | None = None      # diagonal of the hat matrix, per row
+
+    @property
+    def kept(self) -> np.ndarray:
+        """Return the positions of the columns in the fit (not dropped)."""
+        return np.flatnonzero(np.isfinite(self.coef))
 
     def coefficient_table(self, level: float = 0.95) -> pd.DataFrame:
         """Return estimate, standard error, t, p and the two-sided interval per term."""
@@ -146,7 +153,11 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
     sigma2 = rss / df_resid if df_resid > 0 else np.nan
 
     r_inverse = scipy.linalg.solve_triangular(r, np.eye(rank), check_finite=False)
-    variance_scaled = np.einsum("ij,ij->i", r_inverse, r_inverse) * sigma2
+    unscaled = r_inverse @ r_inverse.T
+    variance_scaled = np.diag(unscaled) * sigma2
+    xtx_inverse = np.full((p, p), np.nan)
+    xtx_inverse[np.ix_(columns, columns)] = unscaled / np.outer(scale[columns], scale[columns])
+    leverage = np.einsum("ij,ij->i", q, q)
 
     coef = np.full(p, np.nan)
     stderr = np.full(p, np.nan)
@@ -163,7 +174,8 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
     return LeastSquaresFit(names=names, coef=coef, stderr=stderr, residuals=residuals,
                            resid_sd=float(np.sqrt(sigma2)), r2=r2, adj_r2=adj_r2,
                            df_resid=df_resid, rank=rank, condition_number=condition,
-                           centered_r2=centered_r2, dropped=dropped)
+                           centered_r2=centered_r2, dropped=dropped, xtx_inverse=xtx_inverse,
+                           leverage=leverage)
 
 
 class OLSModel:
@@ -190,6 +202,17 @@ class OLSModel:
 
     def predict(self, design) -> np.ndarray:
         return self._with_intercept(design.matrix) @ self.coef_
+
+    def prediction_se(self, design) -> np.ndarray:
+        """Return the standard error of a new observation's prediction, s·sqrt(1 + x'(X'X)⁻¹x)."""
+        kept = self.fit_.kept
+        x = self._with_intercept(design.matrix)[:, kept]
+        inverse = self.fit_.xtx_inverse[np.ix_(kept, kept)]
+        return self.fit_.resid_sd * np.sqrt(1.0 + np.einsum("ij,jk,ik->i", x, inverse, x))
+
+    @property
+    def df_resid_(self) -> int:
+        return self.fit_.df_resid
 
     def coefficient_table(self) -> pd.DataFrame:
         return self.fit_.coefficient_table()
@@ -231,3 +254,13 @@ class GrowingLeastSquares:
             return None
         beta = scipy.linalg.solve_triangular(r, self.r_[:p, p], check_finite=False)
         return beta / self.scale
+
+    def prediction_se(self, matrix: np.ndarray) -> np.ndarray:
+        """Return s·sqrt(1 + x'(X'X)⁻¹x) for new rows, from the grown R factor."""
+        p = len(self.scale)
+        r = self.r_[:p, :p]
+        z = scipy.linalg.solve_triangular(r, (np.asarray(matrix, float) / self.scale).T,
+                                          trans="T", check_finite=False)
+        residual_ss = float(self.r_[p, p] ** 2) if self.r_.shape[0] > p else 0.0
+        s = np.sqrt(residual_ss / (self.rows_ - p))
+        return s * np.sqrt(1.0 + np.einsum("ij,ij->j", z, z))

@@ -25,7 +25,7 @@ from .check import PERIOD, SERIES, CheckedData
 from .features import Design, plan_features
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
-                      "mase_scale"]
+                      "mase_scale", "prediction_se", "df_resid"]
 
 
 @dataclass(frozen=True)
@@ -177,7 +177,7 @@ def _plan_state(plan) -> str:
 
 
 def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target: str,
-                       scales: dict[str, float]) -> pd.DataFrame:
+                       scales: dict[str, float], se=None, df_resid=None) -> pd.DataFrame:
     test = split.test
     if split.origin is not None:
         horizon = (test[PERIOD].array.asi8 - split.origin.ordinal).astype(int)
@@ -190,6 +190,8 @@ def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target:
         "origin": split.label, "period": period, "horizon": horizon, "series": series,
         "model": kind, "actual": test[target].to_numpy(float), "prediction": predictions,
         "mase_scale": [scales.get(s, np.nan) for s in series],
+        "prediction_se": np.nan if se is None else se,
+        "df_resid": np.nan if df_resid is None else df_resid,
     })
 
 
@@ -202,8 +204,9 @@ def _check_rows(spec: Spec, split: Split, terms: int) -> None:
                               f"too few for the {terms} terms of the linear models")
 
 
-def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, np.ndarray]:
-    """Return the OLS predictions of every split, growing one QR factor across origins."""
+def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
+    """Return the OLS predictions (with their standard errors and residual df) of every split,
+    growing one QR factor across origins."""
     ordered = history.sort_values(PERIOD, kind="stable")
     design = plan.transform(ordered)
     matrix = design.matrix
@@ -214,7 +217,7 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
     norms = np.sqrt(np.einsum("ij,ij->j", matrix, matrix))
     solver = GrowingLeastSquares(np.where(norms > 0, norms, 1.0))
     taken = 0
-    out: dict[str, np.ndarray] = {}
+    out: dict[str, tuple] = {}
     for split in splits:
         end = int(np.searchsorted(months, split.origin.ordinal, side="right"))
         solver.add(matrix[taken:end], y[taken:end])
@@ -226,7 +229,8 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
         test_matrix = test_design.matrix
         if spec.intercept:
             test_matrix = np.column_stack([np.ones(len(test_matrix)), test_matrix])
-        out[split.label] = test_matrix @ beta
+        out[split.label] = (test_matrix @ beta, solver.prediction_se(test_matrix),
+                            solver.rows_ - matrix.shape[1])
     return out
 
 
@@ -241,7 +245,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
-    fast_ols: dict[str, np.ndarray] = {}
+    fast_ols: dict[str, tuple] = {}
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     if "ols" in spec.model_kinds and expanding and len(splits) > 1:
         states = {_plan_state(plan) for plan in plans}
@@ -264,13 +268,17 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             return designs[part]
 
         for choice in spec.models:
+            se = df_resid = None
             if choice.kind == "ols" and split.label in fast_ols:
-                predicted = fast_ols[split.label]
+                predicted, se, df_resid = fast_ols[split.label]
             else:
                 model = make_model(choice, intercept=spec.intercept)
                 model.fit(design_for("train", choice.kind), y_train)
                 predicted = model.predict(design_for("test", choice.kind))
-            frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales))
+                if hasattr(model, "prediction_se"):
+                    se, df_resid = model.prediction_se(design_for("test", choice.kind)), model.df_resid_
+            frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales,
+                                             se, df_resid))
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from .. import metrics
+from ..intervals import coverage
 from ..significance import diebold_mariano
 from ..spec import BASELINE, Spec
 from .backtest import BacktestResult
@@ -33,6 +34,7 @@ class Evaluation:
     by_origin: pd.DataFrame
     by_horizon: pd.DataFrame
     by_series: pd.DataFrame
+    coverage: pd.DataFrame
     recommended: str
     beats_baseline: bool
     verdict: str
@@ -182,5 +184,6 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
         if time_ordered else pd.DataFrame()
     by_series = _with_skill(_scores_by(predictions, ["model", "series"]), ["series"])
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
+                      coverage=coverage(predictions),
                       recommended=recommended, beats_baseline=beats, verdict=verdict,
                       select_by=select_by, notes=notes)

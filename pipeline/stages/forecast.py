@@ -1,57 +1,147 @@
-"""Forecast: refit every model on all history and predict the future rows of the input."""
+"""Forecast: refit every model on all history, predict the months to forecast, and say how sure.
+
+Each forecast carries intervals at 80% and 95% two ways: the analytic OLS
+prediction interval (which assumes independent, normal errors of constant
+variance), and an empirical one built from the backtest's out-of-sample errors
+at the same horizon (which assumes only that the future errs as the past did).
+The final OLS fit also gets its coefficient table with the spec's choice of
+standard errors and the residual diagnostics. Scenarios re-forecast with
+changed drivers.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
+from ..errors import DataError
+from ..intervals import LEVELS, analytic_bounds, empirical_bounds, percent
 from ..models import make_model
-from ..spec import Spec
-from .check import PERIOD, SERIES, CheckedData
+from ..models.inference import coefficient_table, covariance, diagnose, findings_table
+from ..spec import Scenario, Spec
+from .backtest import BacktestResult
+from .check import PERIOD, ROW, SERIES, CheckedData
 from .features import plan_features
 
 
 @dataclass(frozen=True)
 class ForecastResult:
-    """The forecasts, the final fit's coefficients and what the fit reported about itself."""
+    """The forecasts with intervals, the final fits' coefficients and diagnostics, and scenarios."""
 
     forecast: pd.DataFrame
     coefficients: pd.DataFrame
     fit_summary: pd.DataFrame
+    diagnostics: pd.DataFrame = field(default_factory=pd.DataFrame)
+    vif: pd.DataFrame = field(default_factory=pd.DataFrame)
+    influential: pd.DataFrame = field(default_factory=pd.DataFrame)
+    scenarios: pd.DataFrame = field(default_factory=pd.DataFrame)
     warnings: list[str] = field(default_factory=list)
 
 
-def make_forecast(spec: Spec, data: CheckedData) -> ForecastResult:
+def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
+    """Return the future rows with the scenario's changes made."""
+    changed = future.copy()
+    for change in scenario.changes:
+        mask = pd.Series(True, index=changed.index)
+        for column, wanted in change.where.items():
+            options = wanted if isinstance(wanted, list) else [wanted]
+            mask &= changed[column].astype(str).isin([str(o) for o in options])
+        if change.set is not None:
+            changed.loc[mask, change.column] = change.set
+        elif change.add is not None:
+            changed.loc[mask, change.column] = changed.loc[mask, change.column] + change.add
+        else:
+            changed.loc[mask, change.column] = changed.loc[mask, change.column] * (1 + change.percent / 100)
+    return changed
+
+
+def _row_labels(history: pd.DataFrame) -> list[str]:
+    rows = history[ROW].to_numpy()
+    return [f"{p} {s} (row {int(r)})" if np.isfinite(r) else f"{p} {s} (filled)"
+            for p, s, r in zip(history[PERIOD].astype(str), history[SERIES], rows.astype(float))]
+
+
+def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> ForecastResult:
     """Return each model's forecast of the future rows, fitted on all history."""
     plan = plan_features(spec, SERIES).fit(data.history)
     future = data.future.sort_values([PERIOD, SERIES], kind="stable")
     history_design = plan.transform(data.history)
     future_design = plan.transform(future)
     y = data.history[spec.target].to_numpy(float)
-    forecasts, coefficients, summaries, warnings = [], [], [], []
+    horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
+    predictions = backtest.predictions
+    forecasts, coefficients, summaries, warnings, scenario_rows = [], [], [], [], []
+    diagnostics = vif = influential = pd.DataFrame()
+    fitted = {}
     for choice in spec.models:
         kind = choice.kind
         model = make_model(choice, intercept=spec.intercept).fit(history_design, y)
+        fitted[kind] = model
         if len(future):
-            forecasts.append(pd.DataFrame({
-                "period": future[PERIOD].astype(str).to_numpy(),
-                "horizon": (future[PERIOD] - data.last_period).apply(lambda o: o.n).to_numpy(),
-                "series": future[SERIES].to_numpy(),
-                "model": kind,
-                "forecast": model.predict(future_design),
-            }))
-        table = model.coefficient_table()
-        table.insert(0, "model", kind)
-        coefficients.append(table)
+            point = model.predict(future_design)
+            table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
+                     "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
+            own = predictions[predictions["model"] == kind]
+            errors = pd.DataFrame({"horizon": own["horizon"], "error": own["actual"] - own["prediction"]})
+            for level in LEVELS:
+                if hasattr(model, "prediction_se"):
+                    low, high = analytic_bounds(point, model.prediction_se(future_design),
+                                                model.df_resid_, level)
+                else:
+                    low = high = np.full(len(point), np.nan)
+                table[f"analytic_low_{percent(level)}"] = low
+                table[f"analytic_high_{percent(level)}"] = high
+            for level in LEVELS:
+                low, high = empirical_bounds(point, horizons, errors, level)
+                table[f"empirical_low_{percent(level)}"] = low
+                table[f"empirical_high_{percent(level)}"] = high
+            forecasts.append(pd.DataFrame(table))
         fit = getattr(model, "fit_", None)
         if fit is not None:
+            matrix = model._with_intercept(history_design.matrix)
+            cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
+                             groups=history_design.series, order=history_design.period)
+            terms = coefficient_table(fit, cov)
+            terms["standard_errors"] = spec.standard_errors
+            findings, vif, influential = diagnose(
+                fit, matrix, groups=history_design.series, order=history_design.period,
+                row_labels=_row_labels(data.history))
+            diagnostics = findings_table(findings)
+            diagnostics.insert(0, "model", kind)
             summaries.append({"model": kind, "rows": len(y), "terms": len(fit.names),
                               "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
                               "resid_sd": fit.resid_sd, "condition_number": fit.condition_number,
                               "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"})
             warnings += [f"{kind}: {item.describe()}" for item in fit.dropped]
+        else:
+            terms = model.coefficient_table()
+            if kind in ("ridge", "lasso", "elastic_net"):
+                terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
+        terms.insert(0, "model", kind)
+        coefficients.append(terms)
+    for scenario in spec.scenarios:
+        if not len(future):
+            raise spec.error(("scenarios",), "scenarios need months to forecast, and the input has none")
+        try:
+            changed = apply_scenario(future, scenario)
+            changed_design = plan.transform(changed)
+        except (TypeError, ValueError) as exc:
+            raise DataError(f"scenario '{scenario.name}' cannot be applied: {exc}") from None
+        for kind, model in fitted.items():
+            base = model.predict(future_design)
+            what_if = model.predict(changed_design)
+            scenario_rows.append(pd.DataFrame({
+                "scenario": scenario.name, "period": future[PERIOD].astype(str).to_numpy(),
+                "series": future[SERIES].to_numpy(), "model": kind, "base_forecast": base,
+                "scenario_forecast": what_if, "difference": what_if - base,
+            }))
     forecast = pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame(
         columns=["period", "horizon", "series", "model", "forecast"])
-    return ForecastResult(forecast=forecast, coefficients=pd.concat(coefficients, ignore_index=True),
-                          fit_summary=pd.DataFrame(summaries), warnings=warnings)
+    return ForecastResult(
+        forecast=forecast, coefficients=pd.concat(coefficients, ignore_index=True),
+        fit_summary=pd.DataFrame(summaries), diagnostics=diagnostics, vif=vif,
+        influential=influential,
+        scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
+        warnings=warnings)

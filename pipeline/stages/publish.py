@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import yaml
 
@@ -112,6 +113,17 @@ def describe_validation(spec: Spec) -> str:
     return f"{v.folds}-fold cross-validation grouped by {', '.join(v.group_by)}"
 
 
+def _trusted_method(evaluation: Evaluation, model: str, rows: pd.DataFrame) -> str:
+    """Return the interval method whose 95% backtest coverage came closest to 95%."""
+    table = evaluation.coverage
+    own = table[(table["model"] == model) & (table["level"] == 0.95) & table["coverage"].notna()]
+    available = [m for m in ("analytic", "empirical") if rows[f"{m}_low_95"].notna().any()]
+    ranked = own[own["method"].isin(available)].assign(gap=lambda t: (t["coverage"] - 0.95).abs())
+    if len(ranked):
+        return str(ranked.sort_values("gap").iloc[0]["method"])
+    return available[0] if available else "analytic"
+
+
 def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
                    evaluation: Evaluation, forecast: ForecastResult) -> str:
     """Return the run's summary in Markdown: the answer first, the evidence after."""
@@ -141,17 +153,43 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
     recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
     lines += ["## Forecast", ""]
     if len(recommended):
-        lines += [f"From the {evaluation.recommended} model, refitted on all history:", "",
-                  _markdown_table(recommended[["period", "series", "forecast"]]), ""]
+        method = _trusted_method(evaluation, evaluation.recommended, recommended)
+        shown = recommended[["period", "series", "forecast"]].copy()
+        for level in ("80", "95"):
+            shown[f"{level}% from"] = recommended[f"{method}_low_{level}"].to_numpy()
+            shown[f"{level}% to"] = recommended[f"{method}_high_{level}"].to_numpy()
+        lines += [f"From the {evaluation.recommended} model, refitted on all history, with "
+                  f"{method} intervals:", "", _markdown_table(shown), ""]
     else:
         lines += ["The input has no future rows (rows without the target after the last "
                   "actual), so there is nothing to forecast yet.", ""]
-    ols_terms = forecast.coefficients[forecast.coefficients["model"] == "ols"]
-    if len(ols_terms):
-        lines += ["## Drivers (OLS on all history)", "",
-                  _markdown_table(ols_terms.drop(columns=["model"])), ""]
+    if len(evaluation.coverage):
+        lines += ["## How often the intervals held in the backtest", "",
+                  "The share of backtest actuals that fell inside each kind of interval. An 80% "
+                  "interval should hold about 80% of the time; trust the method that comes closest.",
+                  "", _markdown_table(evaluation.coverage), ""]
+    if len(forecast.scenarios):
+        main = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended]
+        lines += ["## Scenarios", "", f"What-if forecasts from the {evaluation.recommended} model "
+                  "and their difference from the base forecast:", "",
+                  _markdown_table(main.drop(columns=["model"])), ""]
+    terms = forecast.coefficients[forecast.coefficients["model"] == evaluation.recommended]
+    if not len(terms) or evaluation.recommended in ("mean_baseline", "last_value", "seasonal_naive", "drift"):
+        terms = forecast.coefficients[forecast.coefficients["model"] == "ols"]
+    if len(terms):
+        model = str(terms["model"].iloc[0])
+        kind = terms["standard_errors"].iloc[0] if "standard_errors" in terms else None
+        heading = f"## Drivers ({model} on all history" + (f", {kind} standard errors)" if kind else ")")
+        lines += [heading, "", _markdown_table(terms.drop(columns=["model"]).dropna(axis=1, how="all")), ""]
     if len(forecast.fit_summary):
         lines += ["## Fit", "", _markdown_table(forecast.fit_summary), ""]
+    if len(forecast.diagnostics):
+        table = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
+        table["flagged"] = np.where(table["flagged"], "FLAG", "")
+        lines += ["## Residual checks (OLS on all history)", "", _markdown_table(table), ""]
+        if len(forecast.influential):
+            lines += ["Most influential rows (Cook's distance):", "",
+                      _markdown_table(forecast.influential), ""]
     notes = forecast.warnings + evaluation.notes
     if notes:
         lines += ["## Warnings and notes", "", *[f"- {note}" for note in notes], ""]
@@ -200,10 +238,18 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         metrics["by_series"] = _records(evaluation.by_series)
         metrics["beats_baseline"] = evaluation.beats_baseline
         metrics["select_by"] = evaluation.select_by
+        metrics["interval_coverage"] = _records(evaluation.coverage)
+        metrics["diagnostics"] = _records(forecast.diagnostics)
         (staging / "metrics.json").write_text(json.dumps(metrics, indent=2), encoding="utf-8")
         backtest.predictions.to_csv(staging / "predictions.csv", index=False)
         forecast.coefficients.to_csv(staging / "coefficients.csv", index=False)
         forecast.forecast.to_csv(staging / "forecast.csv", index=False)
+        forecast.diagnostics.to_csv(staging / "diagnostics.csv", index=False)
+        forecast.vif.to_csv(staging / "vif.csv", index=False)
+        forecast.influential.to_csv(staging / "influential_rows.csv", index=False)
+        evaluation.coverage.to_csv(staging / "interval_coverage.csv", index=False)
+        if len(forecast.scenarios):
+            forecast.scenarios.to_csv(staging / "scenarios.csv", index=False)
         (staging / "summary.md").write_text(
             render_summary(spec, run_id, created, data_print, evaluation, forecast),
             encoding="utf-8")

@@ -1,0 +1,91 @@
+"""Prediction intervals, two ways: analytic (OLS) and empirical (from out-of-sample errors)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import scipy.stats
+
+LEVELS = (0.80, 0.95)
+MIN_ERRORS = 8   # fewer out-of-sample errors than this at a horizon give no empirical interval
+
+
+def percent(level: float) -> str:
+    """Return 80 for 0.8."""
+    return f"{level * 100:g}"
+
+
+def analytic_bounds(prediction, se, df, level: float) -> tuple[np.ndarray, np.ndarray]:
+    """Return the two-sided prediction interval prediction ± t(df)·se."""
+    multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
+    return prediction - multiplier * se, prediction + multiplier * se
+
+
+def empirical_offsets(errors: pd.DataFrame, level: float) -> dict[int, tuple[float, float]]:
+    """Return, per horizon, the error quantiles bounding the central share ``level``.
+
+    ``errors`` holds columns horizon and error (actual − prediction). Horizons
+    with fewer than MIN_ERRORS errors are left out.
+    """
+    tail = (1 - level) / 2
+    offsets = {}
+    for horizon, group in errors.groupby("horizon"):
+        values = group["error"].to_numpy(float)
+        if len(values) >= MIN_ERRORS:
+            offsets[int(horizon)] = (float(np.quantile(values, tail)),
+                                     float(np.quantile(values, 1 - tail)))
+    return offsets
+
+
+def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, errors: pd.DataFrame,
+                     level: float) -> tuple[np.ndarray, np.ndarray]:
+    """Return forecast + the error quantiles of its horizon (NaN where too few errors)."""
+    offsets = empirical_offsets(errors, level)
+    if not offsets and len(errors) >= MIN_ERRORS:  # no time order (k-fold): all errors together
+        offsets = empirical_offsets(errors.assign(horizon=0), level)
+    low = np.full(len(forecast), np.nan)
+    high = np.full(len(forecast), np.nan)
+    if not offsets:
+        return low, high
+    known = np.array(sorted(offsets))
+    for i, horizon in enumerate(horizons):
+        # Beyond the backtest's horizons, use the furthest one measured.
+        use = known[known <= horizon].max() if (known <= horizon).any() else known.min()
+        low[i], high[i] = forecast[i] + offsets[use][0], forecast[i] + offsets[use][1]
+    return low, high
+
+
+def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
+    """Return, per model, method and level, the share of backtest actuals inside the interval.
+
+    Analytic intervals use each origin's own fit. Empirical intervals at an
+    origin use only the errors of earlier origins, as a live run would.
+    """
+    rows = []
+    for model, own in predictions.groupby("model", sort=False):
+        for level in LEVELS:
+            with_se = own[np.isfinite(own["prediction_se"])]
+            if len(with_se):
+                low, high = analytic_bounds(with_se["prediction"].to_numpy(), with_se["prediction_se"].to_numpy(),
+                                            with_se["df_resid"].to_numpy(), level)
+                inside = (with_se["actual"] >= low) & (with_se["actual"] <= high)
+                rows.append({"model": model, "method": "analytic", "level": level,
+                             "coverage": float(inside.mean()), "n": len(with_se)})
+            inside_count, scored = 0, 0
+            origins = sorted(own["origin"].unique())
+            for index, origin in enumerate(origins):
+                earlier = own[own["origin"].isin(origins[:index])]
+                if len(earlier) < MIN_ERRORS:
+                    continue
+                errors = pd.DataFrame({"horizon": earlier["horizon"],
+                                       "error": earlier["actual"] - earlier["prediction"]})
+                now = own[own["origin"] == origin]
+                low, high = empirical_bounds(now["prediction"].to_numpy(), now["horizon"].to_numpy(),
+                                             errors, level)
+                known = np.isfinite(low)
+                actual = now["actual"].to_numpy()[known]
+                inside_count += int(((actual >= low[known]) & (actual <= high[known])).sum())
+                scored += int(known.sum())
+            rows.append({"model": model, "method": "empirical", "level": level,
+                         "coverage": inside_count / scored if scored else float("nan"), "n": scored})
+    return pd.DataFrame(rows, columns=["model", "method", "level", "coverage", "n"])

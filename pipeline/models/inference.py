@@ -1,0 +1,256 @@
+"""What a reviewer asks of a fitted OLS model: standard errors and residual diagnostics.
+
+Standard errors come three ways: classical; heteroskedasticity-robust (HC3,
+MacKinnon & White 1985); autocorrelation-robust (Newey & West 1987, Bartlett
+weights, default lag floor(4·(n/100)^(2/9)) after Newey & West 1994). With
+several series, the autocorrelation-robust sum runs within each series only.
+
+Every diagnostic comes with a plain reading and a flag when it breaches its
+usual threshold.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.stats
+
+from .ols import INTERCEPT, LeastSquaresFit, least_squares
+
+ALPHA = 0.05
+
+
+def newey_west_lags(n: int) -> int:
+    """Return the default lag, floor(4·(n/100)^(2/9)) (Newey & West 1994)."""
+    return int(math.floor(4 * (n / 100) ** (2 / 9)))
+
+
+def _groups_in_time_order(groups, order) -> list[np.ndarray]:
+    """Return the row positions of each group, in time order."""
+    n = len(order)
+    groups = np.zeros(n, int) if groups is None else pd.factorize(np.asarray(groups))[0]
+    frame = pd.DataFrame({"g": groups, "t": np.asarray(order), "i": np.arange(n)})
+    frame = frame.sort_values(["g", "t"], kind="stable")
+    return [rows.to_numpy() for _, rows in frame.groupby("g", sort=False)["i"]]
+
+
+def covariance(fit: LeastSquaresFit, matrix: np.ndarray, kind: str = "classical", *,
+               lags: int | None = None, groups=None, order=None) -> np.ndarray:
+    """Return the covariance of the kept coefficients (p×p; NaN for dropped columns)."""
+    p = len(fit.coef)
+    kept = fit.kept
+    bread = fit.xtx_inverse[np.ix_(kept, kept)]
+    x = np.asarray(matrix, float)[:, kept]
+    e = fit.residuals
+    if kind == "classical":
+        inner_cov = bread * fit.resid_sd ** 2
+    elif kind == "hc3":
+        weight = (e / (1.0 - fit.leverage)) ** 2
+        meat = (x * weight[:, None]).T @ x
+        inner_cov = bread @ meat @ bread
+    elif kind == "hac":
+        lags = newey_west_lags(len(e)) if lags is None else lags
+        scores = x * e[:, None]
+        meat = scores.T @ scores
+        for rows in _groups_in_time_order(groups, np.arange(len(e)) if order is None else order):
+            block = scores[rows]
+            for lag in range(1, min(lags, len(rows) - 1) + 1):
+                weight = 1.0 - lag / (lags + 1)
+                gamma = block[lag:].T @ block[:-lag]
+                meat += weight * (gamma + gamma.T)
+        inner_cov = bread @ meat @ bread
+    else:
+        raise ValueError(f"unknown kind of standard error {kind!r}")
+    full = np.full((p, p), np.nan)
+    full[np.ix_(kept, kept)] = inner_cov
+    return full
+
+
+def coefficient_table(fit: LeastSquaresFit, cov: np.ndarray, level: float = 0.95) -> pd.DataFrame:
+    """Return estimate, standard error, t, p and the two-sided interval from a covariance."""
+    stderr = np.sqrt(np.diag(cov))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_values = fit.coef / stderr
+    df = fit.df_resid
+    p_values = 2 * scipy.stats.t.sf(np.abs(t_values), df) if df > 0 else np.full(len(stderr), np.nan)
+    multiplier = scipy.stats.t.ppf(0.5 + level / 2, df) if df > 0 else np.nan
+    percent = f"{level * 100:g}"
+    return pd.DataFrame({
+        "term": fit.names, "estimate": fit.coef, "std_error": stderr, "t": t_values,
+        "p_value": p_values, f"low_{percent}": fit.coef - multiplier * stderr,
+        f"high_{percent}": fit.coef + multiplier * stderr,
+    })
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One diagnostic: its value, p-value where it has one, threshold, flag and reading."""
+
+    check: str
+    value: float
+    p_value: float
+    threshold: str
+    flagged: bool
+    reading: str
+
+
+def _ordered_residuals(residuals: np.ndarray, groups, order) -> list[np.ndarray]:
+    positions = _groups_in_time_order(groups, np.arange(len(residuals)) if order is None else order)
+    return [residuals[rows] for rows in positions]
+
+
+def durbin_watson(residual_runs: list[np.ndarray]) -> float:
+    """Return Σ(e_t − e_{t−1})² / Σe_t², differences taken within each series."""
+    numerator = sum(float(np.sum(np.diff(run) ** 2)) for run in residual_runs)
+    denominator = sum(float(run @ run) for run in residual_runs)
+    return numerator / denominator if denominator else float("nan")
+
+
+def ljung_box(residuals: np.ndarray, lags: int = 12) -> tuple[float, float]:
+    """Return the Ljung–Box Q over lags 1..lags and its chi-squared p-value (Ljung & Box 1978)."""
+    e = residuals - residuals.mean()
+    n = len(e)
+    lags = min(lags, n - 1)
+    denominator = float(e @ e)
+    q = 0.0
+    for k in range(1, lags + 1):
+        rho = float(e[k:] @ e[:-k]) / denominator
+        q += rho ** 2 / (n - k)
+    q *= n * (n + 2)
+    return q, float(scipy.stats.chi2.sf(q, lags))
+
+
+def breusch_pagan(residuals: np.ndarray, matrix: np.ndarray) -> tuple[float, float]:
+    """Return the Breusch–Pagan LM statistic (n·R² of e² on the design) and its p-value."""
+    squared = residuals ** 2
+    auxiliary = least_squares(matrix, squared, centered_r2=True)
+    lm = len(residuals) * auxiliary.r2
+    df = auxiliary.rank - 1
+    return float(lm), float(scipy.stats.chi2.sf(lm, df)) if df > 0 else float("nan")
+
+
+def jarque_bera(residuals: np.ndarray) -> tuple[float, float]:
+    """Return the Jarque–Bera statistic and its chi-squared(2) p-value."""
+    e = residuals - residuals.mean()
+    n = len(e)
+    variance = float(e @ e) / n
+    skew = float(np.mean(e ** 3)) / variance ** 1.5
+    kurtosis = float(np.mean(e ** 4)) / variance ** 2
+    statistic = n / 6 * (skew ** 2 + (kurtosis - 3) ** 2 / 4)
+    return statistic, float(scipy.stats.chi2.sf(statistic, 2))
+
+
+def variance_inflation(matrix: np.ndarray, names: list[str]) -> pd.DataFrame:
+    """Return each driver's VIF, 1 / (1 − R²) of it regressed on the other columns."""
+    rows = []
+    has_intercept = INTERCEPT in names
+    for j, name in enumerate(names):
+        if name == INTERCEPT:
+            continue
+        others = np.delete(matrix, j, axis=1)
+        fit = least_squares(others, matrix[:, j], centered_r2=has_intercept)
+        vif = 1.0 / (1.0 - fit.r2) if fit.r2 < 1 else float("inf")
+        rows.append({"term": name, "vif": vif})
+    return pd.DataFrame(rows, columns=["term", "vif"])
+
+
+def cooks_distance(fit: LeastSquaresFit) -> np.ndarray:
+    """Return Cook's distance per row: e²·h / (p·s²·(1 − h)²)."""
+    h = fit.leverage
+    return fit.residuals ** 2 * h / (fit.rank * fit.resid_sd ** 2 * (1 - h) ** 2)
+
+
+def information_criteria(fit: LeastSquaresFit) -> tuple[float, float, float]:
+    """Return the Gaussian log-likelihood, AIC and BIC (k = number of coefficients fitted)."""
+    n = len(fit.residuals)
+    rss = float(fit.residuals @ fit.residuals)
+    loglik = -n / 2 * (math.log(2 * math.pi) + math.log(rss / n) + 1)
+    k = fit.rank
+    return loglik, -2 * loglik + 2 * k, -2 * loglik + k * math.log(n)
+
+
+def f_test(fit: LeastSquaresFit) -> tuple[float, float]:
+    """Return the F statistic that every slope is zero, and its p-value."""
+    df_model = fit.rank - (1 if fit.centered_r2 else 0)
+    if df_model <= 0 or fit.df_resid <= 0 or not np.isfinite(fit.r2):
+        return float("nan"), float("nan")
+    statistic = (fit.r2 / df_model) / ((1 - fit.r2) / fit.df_resid)
+    return statistic, float(scipy.stats.f.sf(statistic, df_model, fit.df_resid))
+
+
+def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=None,
+             row_labels=None, influential_count: int = 5) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
+    """Return the diagnostics of a fit, the VIF table and the most influential rows."""
+    x = np.asarray(matrix, float)
+    names = fit.names
+    n = len(fit.residuals)
+    findings: list[Finding] = []
+    runs = _ordered_residuals(fit.residuals, groups, order)
+    in_order = np.concatenate(runs)
+
+    findings.append(Finding("R²" if fit.centered_r2 else "R² (uncentred: no intercept)", fit.r2,
+                            np.nan, "", False,
+                            f"the drivers account for {fit.r2:.0%} of the target's variation "
+                            "in the history (in sample)"))
+    findings.append(Finding("adjusted R²", fit.adj_r2, np.nan, "", False,
+                            "R² less a charge for each term fitted"))
+    f_value, f_p = f_test(fit)
+    findings.append(Finding("F test (all slopes zero)", f_value, f_p, f"p < {ALPHA}",
+                            bool(np.isfinite(f_p) and f_p >= ALPHA),
+                            "the drivers together explain the target" if np.isfinite(f_p) and f_p < ALPHA
+                            else "no evidence that the drivers together explain the target"))
+    _, aic, bic = information_criteria(fit)
+    findings.append(Finding("AIC", aic, np.nan, "", False, "lower is better, compared across "
+                            "models fitted to the same rows"))
+    findings.append(Finding("BIC", bic, np.nan, "", False, "like AIC, with a heavier charge per term"))
+    dw = durbin_watson(runs)
+    dw_flag = bool(dw < 1.5 or dw > 2.5)
+    findings.append(Finding("Durbin–Watson", dw, np.nan, "between 1.5 and 2.5 (common practice)",
+                            dw_flag, ("residuals look autocorrelated: one month's error carries "
+                                      "into the next, so classical standard errors are too small"
+                                      if dw_flag else "no sign of first-order autocorrelation")))
+    q, q_p = ljung_box(in_order, 12)
+    findings.append(Finding("Ljung–Box (12 lags)", q, q_p, f"p ≥ {ALPHA}", bool(q_p < ALPHA),
+                            "residuals are autocorrelated within a year: a lag or season term may "
+                            "be missing" if q_p < ALPHA else "no autocorrelation found up to 12 months"))
+    bp, bp_p = breusch_pagan(fit.residuals, x[:, fit.kept])
+    findings.append(Finding("Breusch–Pagan", bp, bp_p, f"p ≥ {ALPHA}",
+                            bool(np.isfinite(bp_p) and bp_p < ALPHA),
+                            "the spread of the residuals changes with the drivers: prefer "
+                            "robust (HC3) standard errors" if np.isfinite(bp_p) and bp_p < ALPHA
+                            else "no sign that the residual spread changes with the drivers"))
+    jb, jb_p = jarque_bera(fit.residuals)
+    findings.append(Finding("Jarque–Bera", jb, jb_p, f"p ≥ {ALPHA}", bool(jb_p < ALPHA),
+                            "residuals are not normal: analytic intervals may be off, check the "
+                            "empirical ones" if jb_p < ALPHA else "residuals are consistent with normal"))
+    findings.append(Finding("condition number (scaled design)", fit.condition_number, np.nan,
+                            "≤ 30 (Belsley, Kuh & Welsch 1980)", bool(fit.condition_number > 30),
+                            "the drivers are close to collinear: coefficients are unstable"
+                            if fit.condition_number > 30 else "the drivers are not close to collinear"))
+    vif = variance_inflation(x[:, fit.kept], [names[i] for i in fit.kept])
+    high = vif[vif["vif"] > 10]
+    findings.append(Finding("largest VIF", float(vif["vif"].max()) if len(vif) else np.nan, np.nan,
+                            "≤ 10 (common practice)", bool(len(high)),
+                            f"{', '.join(high['term'])} overlap with the other drivers" if len(high)
+                            else "no driver is largely explained by the others"))
+    cooks = cooks_distance(fit)
+    threshold = 4 / n
+    labels = np.asarray(row_labels) if row_labels is not None else np.arange(n)
+    top = np.argsort(-np.nan_to_num(cooks, nan=-1))[:influential_count]
+    influential = pd.DataFrame({"row": labels[top], "cooks_distance": cooks[top],
+                                "above_4_over_n": cooks[top] > threshold})
+    above = int(np.sum(cooks > threshold))
+    findings.append(Finding("Cook's distance", float(np.nanmax(cooks)), np.nan,
+                            "≤ 4/n (common practice)", bool(above),
+                            f"{above} row(s) pull the fit strongly; see the most influential rows"
+                            if above else "no single row pulls the fit strongly"))
+    return findings, vif, influential
+
+
+def findings_table(findings: list[Finding]) -> pd.DataFrame:
+    """Return the findings as a table."""
+    return pd.DataFrame([vars(f) for f in findings],
+                        columns=["check", "value", "p_value", "threshold", "flagged", "reading"])
