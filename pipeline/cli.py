@@ -38,6 +38,11 @@ def build_parser() -> argparse.ArgumentParser:
                                                 "but the problems file if asked")
     check.add_argument("spec", help="the YAML spec file")
     check.add_argument("--problems", metavar="FILE", help="also write the problems to this CSV file")
+    forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json")
+    forecast.add_argument("model_file", help="model.json from a run folder")
+    forecast.add_argument("data_file", help="CSV, Parquet or Excel rows with the drivers filled in")
+    forecast.add_argument("--model", help="only this model (default: every model in the file)")
+    forecast.add_argument("--output", metavar="FILE", help="write the forecasts to this CSV file")
     init = commands.add_parser("init", help="write a starter spec from a data file")
     init.add_argument("data_file", help="a CSV, Parquet or Excel file")
     init.add_argument("--spec-file", help="where to write the spec (default: DATA.spec.yaml here); "
@@ -123,6 +128,27 @@ def _command_check(args) -> int:
     return EXIT_OK
 
 
+def _command_forecast(args) -> int:
+    from .stages.ingest import read_table
+    from .starter import guess_format
+    from .stored_model import load_model
+    stored = load_model(args.model_file)
+    data_path = Path(args.data_file)
+    if not data_path.is_file():
+        raise UserError(f"{data_path}: no such data file")
+    frame = read_table(data_path, guess_format(data_path))
+    table = stored.forecast(frame, args.model, file=str(data_path))
+    if args.output:
+        try:
+            table.to_csv(args.output, index=False)
+        except OSError as exc:
+            raise UserError(f"{args.output}: cannot write the forecasts: {exc.strerror}") from None
+        print(f"forecasts written to {args.output}")
+    else:
+        _print_table(table.to_dict(orient="records"), list(table.columns))
+    return EXIT_OK
+
+
 def _command_init(args) -> int:
     from .spec import CsvOptions
     from .starter import write_starter_spec
@@ -145,7 +171,8 @@ def _command_init(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     """Run the castline command line and return its exit code."""
     args = build_parser().parse_args(argv)
-    handlers = {"run": _command_run, "check": _command_check, "init": _command_init}
+    handlers = {"run": _command_run, "check": _command_check, "init": _command_init,
+                "forecast": _command_forecast}
     try:
         return handlers[args.command](args)
     except UserError as mistake:

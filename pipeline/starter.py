@@ -48,6 +48,14 @@ class Inference:
     notes: list[str] = field(default_factory=list)
 
 
+def guess_format(path: Path) -> str:
+    """Return csv, parquet or excel from a file's suffix."""
+    suffix = path.suffix.lower()
+    if suffix in (".parquet", ".pq"):
+        return "parquet"
+    return "excel" if suffix in (".xlsx", ".xlsm") else "csv"
+
+
 def _sniff_delimiter(path: Path) -> str:
     with path.open("rb") as handle:
         sample = handle.read(16384).decode("utf-8", errors="replace")
@@ -103,9 +111,7 @@ def _frequency(dates: pd.Series) -> str:
 
 def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) -> Inference:
     """Return what the spec for a data file would most likely say."""
-    suffix = path.suffix.lower()
-    file_format = "parquet" if suffix in (".parquet", ".pq") else (
-        "excel" if suffix in (".xlsx", ".xlsm") else "csv")
+    file_format = guess_format(path)
     if csv is None and file_format == "csv":
         csv = CsvOptions(delimiter=_sniff_delimiter(path))
     csv = csv or CsvOptions()

@@ -38,6 +38,8 @@ class ForecastResult:
     influential: pd.DataFrame = field(default_factory=pd.DataFrame)
     scenarios: pd.DataFrame = field(default_factory=pd.DataFrame)
     warnings: list[str] = field(default_factory=list)
+    plan: object = None               # the feature plan fitted on all history
+    fitted: dict = field(default_factory=dict)   # model kind → model fitted on all history
 
 
 def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
@@ -144,4 +146,4 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         fit_summary=pd.DataFrame(summaries), diagnostics=diagnostics, vif=vif,
         influential=influential,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
-        warnings=warnings)
+        warnings=warnings, plan=plan, fitted=fitted)

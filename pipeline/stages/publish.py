@@ -22,6 +22,7 @@ import yaml
 
 from .. import __version__
 from ..spec import Spec
+from ..stored_model import model_document
 from .backtest import BacktestResult
 from .check import CheckedData
 from .evaluate import Evaluation
@@ -45,6 +46,18 @@ class RunFolder:
     run_id: str
     path: Path
     summary: Path
+
+
+def package_versions() -> dict[str, str]:
+    """Return the versions of castline and the libraries its numbers depend on."""
+    from importlib.metadata import PackageNotFoundError, version
+    found = {"castline": __version__}
+    for name in ("numpy", "pandas", "scipy", "scikit-learn", "statsmodels", "pandera", "pydantic"):
+        try:
+            found[name] = version(name)
+        except PackageNotFoundError:
+            found[name] = "not installed"
+    return found
 
 
 def new_run_id(now: datetime | None = None) -> str:
@@ -229,6 +242,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         metrics = {
             "run_id": run_id, "created": created, "castline_version": __version__,
             "spec_name": spec.name, "validation": resolved["validation"],
+            "package_versions": package_versions(),
             "recommended": evaluation.recommended, "verdict": evaluation.verdict,
             "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
             "notes": forecast.warnings + evaluation.notes,
@@ -250,6 +264,8 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         evaluation.coverage.to_csv(staging / "interval_coverage.csv", index=False)
         if len(forecast.scenarios):
             forecast.scenarios.to_csv(staging / "scenarios.csv", index=False)
+        document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
+        (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
         (staging / "summary.md").write_text(
             render_summary(spec, run_id, created, data_print, evaluation, forecast),
             encoding="utf-8")

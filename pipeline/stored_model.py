@@ -1,0 +1,267 @@
+"""A fitted run saved as JSON, and loaded back to forecast new rows. Never a pickle.
+
+The file holds the feature plan (each transformer's settings and what it
+learned), every model's fitted numbers, and the versions that made it. Loading
+checks the file's shape and builds only the transformer and model classes
+named in an allow-list, so a model file cannot run code.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from datetime import date, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from . import __version__
+from .errors import DataError, UserError
+from .models import baselines
+from .stages import features
+from .stages.check import PERIOD, ROW, SERIES, _series_labels
+
+FORMAT = "castline-model"
+FORMAT_VERSION = 1
+LINEAR_KINDS = ("ols", "ridge", "lasso", "elastic_net", "huber")
+
+
+class ModelFileError(UserError):
+    """A model file that is not one castline wrote, or is damaged."""
+
+
+# ------------------------------------------------------------ tagged JSON values
+
+def encode(value: Any) -> Any:
+    """Return a JSON-safe form of a learned value, with tags for what JSON cannot hold."""
+    if isinstance(value, np.ndarray):
+        return {"__array__": [encode(v) for v in value.tolist()], "dtype": str(value.dtype)}
+    if isinstance(value, np.generic):
+        return encode(value.item())
+    if isinstance(value, float) and not math.isfinite(value):
+        return {"__float__": repr(value)}
+    if isinstance(value, tuple):
+        return {"__tuple__": [encode(v) for v in value]}
+    if isinstance(value, pd.Period):
+        return {"__period__": str(value), "freq": "M"}
+    if isinstance(value, (pd.Timestamp, datetime, date)):
+        return {"__date__": value.isoformat()}
+    if isinstance(value, dict):
+        if all(isinstance(k, str) for k in value):
+            return {"__dict__": {k: encode(v) for k, v in value.items()}}
+        return {"__pairs__": [[encode(k), encode(v)] for k, v in value.items()]}
+    if isinstance(value, list):
+        return [encode(v) for v in value]
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    if isinstance(value, BaseModel):
+        return {"__settings__": value.model_dump(mode="json"), "class": type(value).__name__}
+    raise TypeError(f"cannot store a value of type {type(value).__name__}")
+
+
+def decode(value: Any) -> Any:
+    """Return the value a tagged JSON form stands for."""
+    if isinstance(value, list):
+        return [decode(v) for v in value]
+    if not isinstance(value, dict):
+        return value
+    if "__array__" in value:
+        dtype = value.get("dtype", "float64")
+        if dtype not in ("float64", "int64", "bool", "object", "int32", "float32") and not dtype.startswith("<U"):
+            raise ModelFileError(f"unexpected array type {dtype!r}")
+        items = [decode(v) for v in value["__array__"]]
+        return np.array(items, dtype=object if dtype == "object" or dtype.startswith("<U") else dtype)
+    if "__float__" in value:
+        return float(value["__float__"])
+    if "__tuple__" in value:
+        return tuple(decode(v) for v in value["__tuple__"])
+    if "__period__" in value:
+        return pd.Period(value["__period__"], freq="M")
+    if "__date__" in value:
+        return pd.Timestamp(value["__date__"])
+    if "__dict__" in value:
+        return {k: decode(v) for k, v in value["__dict__"].items()}
+    if "__pairs__" in value:
+        return {_hashable(decode(k)): decode(v) for k, v in value["__pairs__"]}
+    if "__settings__" in value:
+        from . import spec as spec_module
+        cls = getattr(spec_module, str(value.get("class")), None)
+        if not (isinstance(cls, type) and issubclass(cls, BaseModel)):
+            raise ModelFileError(f"unknown settings class {value.get('class')!r}")
+        return cls.model_validate(value["__settings__"])
+    raise ModelFileError(f"unexpected value {sorted(value)!r}")
+
+
+def _hashable(value):
+    return tuple(value) if isinstance(value, list) else value
+
+
+def _state(obj) -> dict[str, Any]:
+    return {name: encode(val) for name, val in vars(obj).items() if not name.startswith("__")}
+
+
+def _allowed_classes(module) -> dict[str, type]:
+    return {name: cls for name, cls in vars(module).items()
+            if isinstance(cls, type) and cls.__module__ == module.__name__
+            and hasattr(cls, "fit") and (hasattr(cls, "transform") or hasattr(cls, "predict"))}
+
+
+def _rebuild(entry: dict, allowed: dict[str, type]):
+    name = entry.get("class")
+    if name not in allowed:
+        raise ModelFileError(f"class {name!r} is not one castline stores")
+    obj = allowed[name].__new__(allowed[name])
+    for attribute, value in entry["state"].items():
+        if not attribute.isidentifier():
+            raise ModelFileError(f"bad attribute name {attribute!r}")
+        setattr(obj, attribute, decode(value))
+    return obj
+
+
+# --------------------------------------------------------------- linear models
+
+class StoredLinear:
+    """A fitted linear model reduced to its numbers: intercept plus coefficients."""
+
+    def __init__(self, intercept: float, coef: np.ndarray, names: list[str]) -> None:
+        self.intercept_ = float(intercept)
+        self.coef_ = np.asarray(coef, float)
+        self.names_ = list(names)
+
+    def predict(self, design) -> np.ndarray:
+        # The same arithmetic as the run's own OLS prediction, so the numbers agree exactly.
+        matrix = np.column_stack([np.ones(len(design.matrix)), design.matrix])
+        return matrix @ np.concatenate([[self.intercept_], self.coef_])
+
+
+def _linear_numbers(kind: str, model) -> dict:
+    if kind == "ols":
+        coef = model.coef_
+        intercept, slopes = (coef[0], coef[1:]) if model.fit_intercept else (0.0, coef)
+    else:
+        table = model.coefficient_table()
+        intercept, slopes = table["estimate"].iloc[0], table["estimate"].to_numpy()[1:]
+    return {"intercept": encode(float(intercept)), "coef": encode(np.asarray(slopes, float))}
+
+
+# ------------------------------------------------------------------ save, load
+
+class _Envelope(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    format: str
+    format_version: int
+    castline_version: str
+    spec_name: str
+    target: str
+    date_column: str
+    series_columns: list[str]
+    feature_names: list[str]
+    plan: dict
+    models: dict[str, dict]
+    versions: dict[str, str] = Field(default_factory=dict)
+    notes: list[str] = Field(default_factory=list)
+
+
+def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
+    """Return the JSON document that stores a run's fitted plan and models."""
+    models = {}
+    for kind, model in fitted.items():
+        if kind in LINEAR_KINDS:
+            models[kind] = {"kind": "linear", **_linear_numbers(kind, model)}
+        else:
+            models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}
+    parts = [{"class": type(part).__name__, "state": _state(part)} for part in plan.parts_]
+    plan_state = {key: encode(val) for key, val in vars(plan).items() if key != "parts_"}
+    return {
+        "format": FORMAT, "format_version": FORMAT_VERSION, "castline_version": __version__,
+        "spec_name": spec.name, "target": spec.target, "date_column": spec.input.date_column,
+        "series_columns": list(spec.input.series), "feature_names": plan.get_feature_names_out(),
+        "plan": {"class": type(plan).__name__, "state": plan_state, "parts": parts},
+        "models": models, "versions": versions,
+    }
+
+
+class StoredModel:
+    """A run's fitted feature plan and models, loaded from JSON, ready to forecast."""
+
+    def __init__(self, document: _Envelope, plan, models: dict) -> None:
+        self.document = document
+        self.plan = plan
+        self.models = models
+
+    def prepare(self, frame: pd.DataFrame, file: str = "") -> pd.DataFrame:
+        """Return the rows with the month, series and row columns the plan expects."""
+        doc = self.document
+        missing = [c for c in [doc.date_column, *doc.series_columns] if c not in frame.columns]
+        if missing:
+            raise DataError("the file lacks the column(s) the model needs", file=file, column=missing[0])
+        prepared = frame.copy()
+        dates = pd.to_datetime(prepared[doc.date_column], errors="coerce")
+        if dates.isna().any():
+            row = int(np.flatnonzero(dates.isna().to_numpy())[0]) + 2
+            raise DataError("not a date", file=file, column=doc.date_column, row=row)
+        prepared[PERIOD] = dates.dt.to_period("M")
+        prepared[SERIES] = _series_labels(prepared, doc.series_columns)
+        prepared[ROW] = np.arange(len(prepared)) + 2
+        return prepared
+
+    def forecast(self, frame: pd.DataFrame, model: str | None = None, file: str = "") -> pd.DataFrame:
+        """Return each stored model's prediction for every row of the frame."""
+        prepared = self.prepare(frame, file)
+        try:
+            design = self.plan.transform(prepared)
+        except KeyError as exc:
+            raise DataError(f"the file lacks a driver column the model needs: {exc}", file=file) from None
+        kinds = [model] if model else list(self.models)
+        out = []
+        for kind in kinds:
+            if kind not in self.models:
+                raise UserError(f"the model file holds no model '{kind}' (it holds: "
+                                f"{', '.join(self.models)})")
+            out.append(pd.DataFrame({"period": prepared[PERIOD].astype(str).to_numpy(),
+                                     "series": prepared[SERIES].to_numpy(), "model": kind,
+                                     "forecast": self.models[kind].predict(design)}))
+        return pd.concat(out, ignore_index=True)
+
+
+def load_model(path: str | Path) -> StoredModel:
+    """Return the stored model in a JSON file, after checking it is one castline wrote."""
+    path = Path(path)
+    try:
+        raw = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ModelFileError(f"{path}: no such model file") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ModelFileError(f"{path}: not a readable JSON model file ({exc})") from None
+    try:
+        document = _Envelope.model_validate(raw)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        where = ".".join(str(p) for p in first["loc"])
+        raise ModelFileError(f"{path}: not a castline model file ({where}: {first['msg']})") from None
+    if document.format != FORMAT or document.format_version != FORMAT_VERSION:
+        raise ModelFileError(f"{path}: not a castline model file of version {FORMAT_VERSION}")
+    try:
+        transformers = _allowed_classes(features)
+        plan_entry = document.plan
+        plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
+                        transformers)
+        plan.parts_ = [_rebuild(part, transformers) for part in plan_entry.get("parts", [])]
+        models = {}
+        for kind, entry in document.models.items():
+            if entry.get("kind") == "linear":
+                models[kind] = StoredLinear(decode(entry["intercept"]), decode(entry["coef"]),
+                                            document.feature_names)
+            elif entry.get("kind") == "baseline":
+                models[kind] = _rebuild(entry, _allowed_classes(baselines))
+            else:
+                raise ModelFileError(f"model '{kind}' has an unknown kind")
+    except ModelFileError as exc:
+        raise ModelFileError(f"{path}: {exc}") from None
+    except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        raise ModelFileError(f"{path}: damaged model file ({type(exc).__name__}: {exc})") from None
+    return StoredModel(document, plan, models)
