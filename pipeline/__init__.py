@@ -3,8 +3,19 @@
 __version__ = "0.1.0"
 
 from .errors import DataError, SpecError, UserError  # noqa: E402
-from .runner import RunResult, check, run  # noqa: E402
-from .spec import Spec, load_spec  # noqa: E402
+
+_LAZY = {"RunResult": "runner", "check": "runner", "run": "runner", "Spec": "spec",
+         "load_spec": "spec"}
+
+
+def __getattr__(name: str):
+    # The heavy modules (pandas, scipy, pandera) load on first use, so the command
+    # line starts quickly for --help and --version.
+    if name in _LAZY:
+        from importlib import import_module
+        return getattr(import_module(f".{_LAZY[name]}", __name__), name)
+    raise AttributeError(f"module 'pipeline' has no attribute {name!r}")
+
 
 __all__ = ["DataError", "RunResult", "Spec", "SpecError", "UserError", "__version__", "check",
            "load_spec", "run"]

@@ -14,7 +14,6 @@ from pathlib import Path
 
 from . import __version__
 from .errors import UserError
-from .stages.check import CheckFailed
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
 
@@ -106,6 +105,7 @@ def _print_problems(problems) -> None:
 
 def _command_check(args) -> int:
     from .runner import check
+    from .stages.check import CheckFailed
     try:
         data = check(args.spec)
     except CheckFailed as failure:

@@ -58,6 +58,8 @@ class DataError(UserError):
         parts = []
         if self.file:
             parts.append(f"{self.file}:{self.row}" if self.row else self.file)
+        elif self.row:
+            parts.append(f"row {self.row}")
         if self.column:
             parts.append(f"column '{self.column}'")
         prefix = ": ".join(parts)

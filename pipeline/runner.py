@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
 import pandas as pd
 
+from .errors import DataError
 from .spec import Spec, load_spec
-from .stages.backtest import BacktestResult, run_backtest
+from .stages.backtest import BacktestResult, plan_splits, run_backtest
 from .stages.check import CheckedData, check_data
 from .stages.evaluate import Evaluation, evaluate
 from .stages.forecast import ForecastResult, make_forecast
@@ -53,18 +55,37 @@ def _as_spec(spec_or_path: Spec | str | Path) -> Spec:
 
 
 def check(spec_or_path: Spec | str | Path) -> CheckedData:
-    """Return the validated data of a spec; writes nothing."""
+    """Return the validated data of a spec, after checking the validation scheme fits it.
+
+    Writes nothing.
+    """
     spec = _as_spec(spec_or_path)
-    return check_data(spec, read_input(spec))
+    with _data_file_named(spec):
+        data = check_data(spec, read_input(spec))
+        plan_splits(spec, data)
+    return data
+
+
+@contextmanager
+def _data_file_named(spec: Spec):
+    """Name the input file in any data error raised without one (e.g. by an encoder)."""
+    try:
+        yield
+    except DataError as error:
+        if error.file is None:
+            raise DataError(error.message, file=str(spec.input.file), column=error.column,
+                            row=error.row) from None
+        raise
 
 
 def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None) -> RunResult:
     """Run the whole forecast a spec describes and return every table it produced."""
     spec = _as_spec(spec_or_path)
-    data = check_data(spec, read_input(spec))
-    backtest = run_backtest(spec, data)
-    evaluation = evaluate(spec, backtest)
-    forecast = make_forecast(spec, data, backtest)
+    with _data_file_named(spec):
+        data = check_data(spec, read_input(spec))
+        backtest = run_backtest(spec, data)
+        evaluation = evaluate(spec, backtest)
+        forecast = make_forecast(spec, data, backtest)
     folder = publish(spec, data, backtest, evaluation, forecast,
                      output_folder=Path(output_folder) if output_folder else None)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,

@@ -124,7 +124,7 @@ class NumericDriver(StrictModel):
     """A numeric driver used as it is, optionally with polynomial terms."""
 
     column: str
-    degree: int = Field(1, ge=1, le=6, description="1 = straight line; 2 adds the square")
+    degree: int = Field(1, strict=True, ge=1, le=6, description="1 = straight line; 2 adds the square")
 
 
 class CategoricalDriver(StrictModel):
@@ -154,7 +154,7 @@ class HoldoutValidation(StrictModel):
     """Hold out the last periods of history; fit on everything before them."""
 
     method: Literal["holdout"]
-    last_periods: int = Field(ge=1)
+    last_periods: int = Field(strict=True, ge=1)
 
 
 class RollingOriginValidation(StrictModel):
@@ -164,20 +164,20 @@ class RollingOriginValidation(StrictModel):
     window: Literal["expanding", "sliding"] = Field(
         "expanding", description="expanding: all months up to the origin; sliding: the last "
                                  "min_train_periods months only")
-    horizon: int = Field(ge=1, description="each origin predicts 1..horizon months ahead")
-    gap: int = Field(0, ge=0, description="months skipped between the origin and the first "
+    horizon: int = Field(strict=True, ge=1, description="each origin predicts 1..horizon months ahead")
+    gap: int = Field(0, strict=True, ge=0, description="months skipped between the origin and the first "
                                           "predicted month")
-    min_train_periods: int = Field(ge=2, description="months in the first training window "
+    min_train_periods: int = Field(strict=True, ge=2, description="months in the first training window "
                                                      "(the window length when sliding)")
-    step: int = Field(1, ge=1, description="months between consecutive origins")
-    origins: int | None = Field(None, ge=1, description="use only the last N origins")
+    step: int = Field(1, strict=True, ge=1, description="months between consecutive origins")
+    origins: int | None = Field(None, strict=True, ge=1, description="use only the last N origins")
 
 
 class KFoldValidation(StrictModel):
     """Rows without a time order: shuffled (seeded) into folds, each held out once."""
 
     method: Literal["kfold"]
-    folds: int = Field(5, ge=2)
+    folds: int = Field(5, strict=True, ge=2)
     seed: int = 0
 
 
@@ -185,7 +185,7 @@ class GroupedKFoldValidation(StrictModel):
     """Like kfold, but rows sharing the values of group_by stay in one fold."""
 
     method: Literal["grouped_kfold"]
-    folds: int = Field(5, ge=2)
+    folds: int = Field(5, strict=True, ge=2)
     group_by: list[str] = Field(min_length=1)
 
 
@@ -258,7 +258,7 @@ class Spec(StrictModel):
     columns: dict[str, ColumnRule] = Field(
         default_factory=dict, description="rules per input column; columns the spec uses but "
                                           "does not list here get rules from their role")
-    intercept: bool = True
+    intercept: bool = Field(True, strict=True)
     validation: Validation
     models: list[ModelChoice] = Field(default_factory=lambda: [ModelChoice(kind="ols")])
     select_by: Literal["mae", "rmse", "mape", "smape", "wape", "mase"] = Field(
@@ -269,7 +269,7 @@ class Spec(StrictModel):
         "classical", description="OLS coefficient table: classical, robust to non-constant "
                                  "variance (hc3), or robust to autocorrelation too (hac)")
     autocorrelation_lags: int | None = Field(
-        None, ge=1, description="hac: lags to include; default floor(4·(n/100)^(2/9))")
+        None, strict=True, ge=1, description="hac: lags to include; default floor(4·(n/100)^(2/9))")
     scenarios: list[Scenario] = Field(default_factory=list)
     output: OutputSection
 
@@ -340,6 +340,9 @@ def _line_map(node: yaml.Node, path: KeyPath = (), lines: dict | None = None) ->
     if isinstance(node, yaml.MappingNode):
         for key_node, value_node in node.value:
             child = path + (str(key_node.value),)
+            if key_node.tag != "tag:yaml.org,2002:str":
+                raise _DuplicateKey(child, key_node.start_mark.line + 1,
+                                    f"key {key_node.value!r} must be a name, not a number or other value")
             if child in lines:
                 raise _DuplicateKey(child, key_node.start_mark.line + 1)
             lines[child] = key_node.start_mark.line + 1
@@ -352,8 +355,8 @@ def _line_map(node: yaml.Node, path: KeyPath = (), lines: dict | None = None) ->
 
 
 class _DuplicateKey(Exception):
-    def __init__(self, path: KeyPath, line: int) -> None:
-        self.path, self.line = path, line
+    def __init__(self, path: KeyPath, line: int, message: str = "this key is given twice") -> None:
+        self.path, self.line, self.message = path, line, message
 
 
 def _line_for(lines: dict[KeyPath, int], path: KeyPath) -> int | None:
@@ -364,10 +367,49 @@ def _line_for(lines: dict[KeyPath, int], path: KeyPath) -> int | None:
     return None
 
 
+def _union_member(current: Any, tag: Any) -> type[BaseModel] | None:
+    """Return the member of a tagged union of sections that the tag (a method name) picks."""
+    if not isinstance(tag, str):
+        return None
+    while typing.get_origin(current) is Annotated:
+        current = typing.get_args(current)[0]
+    if typing.get_origin(current) not in (Union, types.UnionType):
+        return None
+    for member in typing.get_args(current):
+        field = getattr(member, "model_fields", {}).get("method")
+        if field is not None and tag in typing.get_args(field.annotation):
+            return member
+    return None
+
+
+def _without_tags(loc: KeyPath) -> KeyPath:
+    """Return an error location without the union tags pydantic inserts (validation.holdout.x)."""
+    kept: list = []
+    current: Any = Spec
+    for part in loc:
+        member = _union_member(current, part)
+        if member is not None:
+            current = member
+            continue
+        kept.append(part)
+        if isinstance(part, int):
+            args = typing.get_args(current)
+            current = args[0] if args else None
+        elif isinstance(current, type) and issubclass(current, BaseModel) and part in current.model_fields:
+            current = current.model_fields[part].annotation
+        else:
+            current = None
+    return tuple(kept)
+
+
 def _section_class(path: KeyPath) -> type[BaseModel] | None:
     """Return the spec section class found at the key path, if the path leads to one."""
     current: Any = Spec
     for part in path:
+        tagged = _union_member(current, part)
+        if tagged is not None:
+            current = tagged
+            continue
         if isinstance(part, int):
             args = typing.get_args(current)
             current = args[0] if args else None
@@ -415,6 +457,9 @@ def _describe(error: dict[str, Any]) -> str:
     if message.startswith("Value error, "):
         message = message[len("Value error, "):]
     message = message.replace("Input should be", "must be")
+    if kind == "string_pattern_mismatch":
+        return (f"{error['input']!r} is not a plain name: use letters, digits, '-', '_' and '.', "
+                "starting with a letter or digit")
     if kind.endswith("_type") or kind.endswith("_parsing"):
         message += f" (got {error['input']!r})"
     return message
@@ -437,8 +482,12 @@ def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
         data = yaml.load(text, Loader=yaml.SafeLoader)  # noqa: S506 - SafeLoader constructs no objects
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 1 if mark else None
+        line = min(mark.line + 1, max(1, len(text.splitlines()))) if mark else None
         what = exc.problem or exc.context or "malformed YAML"
+        if "\\t" in str(what) or "\t" in str(what):
+            what = "a tab character: YAML indents with spaces only"
+        elif exc.context and "flow" in str(exc.context):
+            what = f"{what} ({exc.context}); a bracket or brace is not closed"
         if "tag" in str(what) or "constructor" in type(exc).__name__.lower():
             what = f"YAML tags that build objects are not allowed ({what})"
         raise SpecError(f"{what}", file=str(path), line=line) from None
@@ -451,7 +500,7 @@ def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
     try:
         return data, _line_map(node)
     except _DuplicateKey as dup:
-        raise SpecError("this key is given twice", file=str(path), line=dup.line,
+        raise SpecError(dup.message, file=str(path), line=dup.line,
                         key=format_key_path(dup.path)) from None
 
 
@@ -471,11 +520,15 @@ def load_spec(path: str | Path) -> Spec:
     try:
         spec = Spec.model_validate(data)
     except ValidationError as exc:
-        errors = sorted(exc.errors(), key=lambda e: _line_for(lines, tuple(e["loc"])) or 0)
+        # An unknown key is usually why a required one is missing: report it first.
+        errors = sorted(exc.errors(), key=lambda e: (e["type"] != "extra_forbidden",
+                                                     _line_for(lines, _without_tags(tuple(e["loc"]))) or 0))
         first = errors[0]
-        loc = tuple(first["loc"])
+        loc = _without_tags(tuple(first["loc"]))
         if first["type"] == "union_tag_invalid":
             loc += ("method",)
+        elif first["type"] != "missing" and loc not in lines and loc[:-1] in lines and len(loc) > 1:
+            loc = loc[:-1]  # a bare name standing for a mapping (models: [ols] is {kind: ols})
         raise SpecError(_describe(first), file=shown, line=_line_for(lines, loc),
                         key=format_key_path(loc) or None) from None
 

@@ -265,9 +265,6 @@ def test_check_on_bad_data_gives_every_problem_its_line(outcomes):
         assert row.isdigit(), (row, column, rest)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "check stops after the column checks: when any column fails (here shelf_price 'abc'), the "
-    "calendar checks never run, so the duplicated month is not listed"))
 def test_check_on_bad_data_also_lists_the_duplicated_month(outcomes):
     problems = failed_check(outcomes["check_bad_data"])
     assert [p for p in problems if p[0] == str(DUPLICATE_LINE) and "twice" in p[2]], problems
@@ -333,9 +330,6 @@ def test_run_without_a_spec(capsys):
     assert err.startswith("castline: ") and err.count("\n") == 1 and "spec" in err
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "castline check passes (exit 0) on a spec whose holdout is as long as the whole history; "
-    "only castline run finds it, in the backtest"))
 def test_check_refuses_a_holdout_longer_than_the_history(tmp_path, monkeypatch, capsys):
     demo_copy(tmp_path)
     edit_spec(tmp_path, "last_periods: 12", f"last_periods: {months_of_history()}")
@@ -344,9 +338,6 @@ def test_check_refuses_a_holdout_longer_than_the_history(tmp_path, monkeypatch, 
     assert code == 2, (out, err)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "--output-folder naming an existing file ends in an internal error (exit 1, a FileExistsError "
-    "traceback from Path.mkdir in publish) instead of a one-line user error with exit 2"))
 def test_output_folder_that_is_a_file(tmp_path, monkeypatch, capsys):
     demo_copy(tmp_path)
     monkeypatch.chdir(tmp_path)

@@ -151,11 +151,6 @@ def test_unknown_key_names_its_line_and_the_nearest_key(write, old, new, key, su
     assert str(error) == f"{path}:{line}: {key}: unknown key; did you mean '{suggestion}'?"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "a misspelt *required* key is reported as 'KEY: this key is required but missing' at the line "
-    "of its section (line 1 for a top-level key), without the suggestion: load_spec sorts the "
-    "pydantic errors by line and reports the first, and the missing key's fallback line (its "
-    "section's) comes before the misspelt key's own line"))
 @pytest.mark.parametrize(("old", "new", "key", "suggestion"), [
     ("  date_column: month", "  date_colum: month", "input.date_colum", "date_column"),
     ("target: bags_sold", "targt: bags_sold", "targt", "target"),
@@ -168,11 +163,6 @@ def test_misspelt_required_key_is_suggested_not_reported_missing(write, old, new
     assert str(error) == f"{path}:{line}: {key}: unknown key; did you mean '{suggestion}'?"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "an unknown key inside validation is reported as 'validation.holdout.last_periods: this key "
-    "is required but missing' at the 'validation:' line: pydantic puts the discriminator tag "
-    "'holdout' into the error location, which is not in the line map, and the missing-key error "
-    "sorts before the unknown-key one"))
 def test_unknown_key_inside_validation_is_suggested(write):
     text = edit("  last_periods: 12", "  last_period: 12")
     path = write(text)
@@ -213,10 +203,6 @@ def test_wrong_type_of_last_periods_names_the_file_and_the_value(write):
     assert "last_periods" in str(error) and "(got 'x')" in str(error)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "errors inside validation carry the discriminator tag: the key path reads "
-    "'validation.holdout.last_periods' and the line is that of 'validation:' (15), not of "
-    "'last_periods:' (17)"))
 @pytest.mark.parametrize("value", ["x", "0"])
 def test_wrong_last_periods_points_at_its_own_line_and_key(write, value):
     text = edit("last_periods: 12", f"last_periods: {value}")
@@ -225,9 +211,6 @@ def test_wrong_last_periods_points_at_its_own_line_and_key(write, value):
     assert_placed(error, path, line_of(text, "last_periods:"), "validation.last_periods")
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "'last_periods: true' is accepted as a holdout of 1 month: pydantic's lax mode turns the "
-    "YAML boolean into the integer 1"))
 def test_boolean_is_not_a_number_of_months(write):
     refused(write(edit("last_periods: 12", "last_periods: true")))
 
@@ -299,9 +282,6 @@ def test_unclosed_bracket(write):
     assert "]" in error.message
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "a bracket left open on the last line is reported at a line after the end of the file "
-    "(PyYAML's stream-end mark), not at a line the file has"))
 def test_unclosed_bracket_on_the_last_line_points_inside_the_file(write):
     text = edit("output:\n  folder: out\n", "output: {folder: out\n")
     path = write(text)
@@ -358,10 +338,6 @@ def test_yaml_tag_that_builds_a_python_object_is_refused_and_not_run(write, tmp_
     assert not marker.exists(), "the tag was executed"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "a non-string key ('1: x' on the last line) is reported at line 1 with the key path '[1]': "
-    "the line map stores the key as '1' while pydantic reports the int 1, and format_key_path "
-    "renders an int as a list index"))
 def test_non_string_key_points_at_its_line(write):
     text = BASE + "1: x\n"
     path = write(text)

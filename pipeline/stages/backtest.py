@@ -234,17 +234,26 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
     return out
 
 
-def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
-    """Return every model's out-of-sample predictions under the spec's validation scheme."""
-    time_ordered = spec.validation.method in ("holdout", "rolling_origin")
-    if time_ordered:
+def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
+    """Return the validation splits, the longest horizon and each split's fitted feature plan.
+
+    Raises SpecError when the validation scheme does not fit the data.
+    """
+    if spec.validation.method in ("holdout", "rolling_origin"):
         splits, horizon = _time_splits(spec, data)
     else:
         splits, horizon = _fold_splits(spec, data), 0
-    notes: list[str] = []
     plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
+    return splits, horizon, plans
+
+
+def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
+    """Return every model's out-of-sample predictions under the spec's validation scheme."""
+    time_ordered = spec.validation.method in ("holdout", "rolling_origin")
+    splits, horizon, plans = plan_splits(spec, data)
+    notes: list[str] = []
     fast_ols: dict[str, tuple] = {}
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     if "ols" in spec.model_kinds and expanding and len(splits) > 1:

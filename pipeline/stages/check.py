@@ -340,6 +340,16 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
                                 f"{row[PERIOD]} is after {said} {as_of}", count=int(late.sum())))
     last_actual = frame.loc[has_target, PERIOD].max()
     future = ~has_target & (frame[PERIOD] > last_actual)
+    for driver in spec.drivers.categorical:
+        if getattr(driver, "unseen", "stop") != "stop":
+            continue
+        known = set(frame.loc[~future, driver.column].dropna().astype(str))
+        new_level = future & frame[driver.column].notna() & ~frame[driver.column].astype(str).isin(known)
+        if new_level.any():
+            row = _first(frame, new_level)
+            problems.append(Problem("level not seen in history", driver.column, _row(row),
+                                    f"{row[driver.column]!r} in {row[PERIOD]} has no history to "
+                                    "learn from", count=int(new_level.sum())))
     for driver in spec.driver_columns:
         for mask, word in ((~future, "driver missing"),
                            (future, "driver missing in a month to forecast")):
@@ -371,6 +381,7 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
         valid = schema.validate(raw.frame, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
         problems = _problems_from_pandera(exc.failure_cases, raw)
+        problems += _calendar_despite(problems, spec, raw, today)
         return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
@@ -391,6 +402,42 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     allowed += accepted
     problems += _history_and_future(frame, spec, _as_of(spec, today))
     return frame, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
+
+
+def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, today) -> list[Problem]:
+    """Return the calendar problems of the rows whose dates and keys can be read,
+    so that one bad cell does not hide a duplicated or missing month."""
+    rules = effective_rules(spec)
+    if any(p.check == "column missing" for p in found):
+        return []
+    frame = pd.DataFrame(index=raw.frame.index)
+    for column, rule in rules.items():
+        values = raw.frame[column]
+        if rule.type == "date":
+            frame[column] = pd.to_datetime(values, errors="coerce", format="mixed")
+        elif rule.type in ("number", "whole_number"):
+            frame[column] = pd.to_numeric(values, errors="coerce")
+        else:
+            frame[column] = values
+    readable = frame[spec.input.date_column].notna()
+    for column in spec.input.series:
+        readable &= frame[column].notna()
+    frame = frame[readable].copy()
+    if frame.empty:
+        return []
+    frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
+    frame[SERIES] = _series_labels(frame, spec.input.series)
+    frame[ROW] = frame.index.to_numpy() + raw.first_row_number
+    problems = _duplicates(frame, spec)
+    gaps = missing_months(frame)
+    if len(gaps) and spec.input.gaps == "refuse":
+        problems.append(_gap_problem(gaps, spec, "month missing"))
+    if spec.input.gaps == "refuse":
+        problems += _target_holes(frame, spec)[1]
+    problems += _history_and_future(frame, spec, _as_of(spec, today))
+    # A cell that is not a number is already reported; do not report it again as missing.
+    seen = {(p.column, p.row) for p in found}
+    return [p for p in problems if (p.column, p.row) not in seen]
 
 
 def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> CheckedData:

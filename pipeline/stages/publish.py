@@ -21,6 +21,7 @@ import pandas as pd
 import yaml
 
 from .. import __version__
+from ..errors import UserError
 from ..spec import Spec
 from ..stored_model import model_document
 from .backtest import BacktestResult
@@ -227,7 +228,12 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             forecast: ForecastResult, *, output_folder: Path | None = None) -> RunFolder:
     """Write the run folder atomically and return where it landed."""
     folder = Path(output_folder) if output_folder else spec.output.folder
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except FileExistsError:
+        raise UserError(f"{folder}: the output folder exists and is not a folder") from None
+    except OSError as exc:
+        raise UserError(f"{folder}: cannot create the output folder: {exc.strerror}") from None
     now = datetime.now(UTC)
     run_id = new_run_id(now)
     created = now.isoformat(timespec="seconds")
@@ -236,6 +242,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
     try:
         data_print = fingerprint(data)
         resolved = spec.model_dump(mode="json")
+        resolved["output"]["folder"] = str(folder.resolve())
         (staging / "spec.yaml").write_text(
             yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True), encoding="utf-8")
         (staging / "fingerprint.json").write_text(json.dumps(data_print, indent=2), encoding="utf-8")
