@@ -58,13 +58,15 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     split = Split(origin=split.origin, train=split.train,
                   test=split.test.sort_values([PERIOD, SERIES], kind="stable"))
     plan = plan_features(spec, SERIES).fit(split.train)
-    train_design = plan.transform(split.train)
+    # Rows whose lags are unavailable are left out of the fit; the plan remembers the
+    # window, so the test rows' lags never read an actual after the origin.
+    train_design, y_train = plan.training_design(split.train)
     test_design = plan.transform(split.test)
-    y_train = split.train[spec.target].to_numpy(float)
     horizon = (split.test[PERIOD] - split.origin).apply(lambda offset: offset.n).to_numpy()
     frames = []
     for kind in spec.models:
-        model = make_model(kind, intercept=spec.intercept).fit(train_design, y_train)
+        model = plan.for_target(make_model(kind, intercept=spec.intercept), kind)
+        model.fit(train_design, y_train)
         frames.append(pd.DataFrame({
             "origin": str(split.origin),
             "period": split.test[PERIOD].astype(str).to_numpy(),

@@ -26,12 +26,15 @@ def make_forecast(spec: Spec, data: CheckedData) -> ForecastResult:
     """Return each model's forecast of the future rows, fitted on all history."""
     plan = plan_features(spec, SERIES).fit(data.history)
     future = data.future.sort_values([PERIOD, SERIES], kind="stable")
-    history_design = plan.transform(data.history)
+    history_design, y = plan.training_design(data.history)
     future_design = plan.transform(future)
-    y = data.history[spec.target].to_numpy(float)
-    forecasts, coefficients, summaries, warnings = [], [], [], []
+    forecasts, coefficients, summaries = [], [], []
+    warnings = [*history_design.notes, *future_design.notes]
     for kind in spec.models:
-        model = make_model(kind, intercept=spec.intercept).fit(history_design, y)
+        model = plan.for_target(make_model(kind, intercept=spec.intercept), kind)
+        model.fit(history_design, y)
+        if hasattr(model, "describe"):
+            warnings.append(f"{kind}: {model.describe()}")
         if len(future):
             forecasts.append(pd.DataFrame({
                 "period": future[PERIOD].astype(str).to_numpy(),
