@@ -182,8 +182,9 @@ class NumericTerms:
     The steps run in that order, each learning only in ``fit``: the fill value
     (mean or median of the window's values), the clip bounds (the window's
     quantiles), the centre and scale (the window's mean and standard
-    deviation, after the transform). With filling, a 0/1 column marks the rows
-    that were filled.
+    deviation, after the transform). With filling, and when the window had
+    rows without a value, a 0/1 column marks the rows that were filled (a
+    window without any would give a column of zeros, which no fit can use).
     """
 
     def __init__(self, column: str, degree: int = 1, transform: str = "none",
@@ -206,6 +207,7 @@ class NumericTerms:
             raise DataError("no training row has a value, so there is nothing to fill from",
                             column=self.column)
         observed = raw[present]
+        self.marks_missing_ = self.missing != "refuse" and not present.all()
         self.fill_value_ = (None if self.missing == "refuse" else
                             float(np.mean(observed) if self.missing == "mean" else np.median(observed)))
         self.clip_bounds_ = (None if self.clip_quantiles is None else
@@ -246,7 +248,7 @@ class NumericTerms:
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
         values = self.prepared(frame)
         columns = [values ** power for power in range(1, self.degree + 1)]
-        if self.missing != "refuse":
+        if self.marks_missing_:
             columns.append(frame[self.column].isna().to_numpy(float))
         return np.column_stack(columns)
 
@@ -262,7 +264,7 @@ class NumericTerms:
 
     def get_feature_names_out(self) -> list[str]:
         names = [_power_name(self.base_name, power) for power in range(1, self.degree + 1)]
-        if self.missing != "refuse":
+        if self.marks_missing_:
             names.append(f"{self.column} was missing")
         return names
 
@@ -274,9 +276,10 @@ class NumericTerms:
         missing = frame[self.column].isna().to_numpy()
         if self.missing == "refuse" or not missing.any():
             return []
+        marked = (f", marked by '{self.column} was missing'" if self.marks_missing_ else
+                  " (the training window had a value in every row, so no was-missing column)")
         return [f"{self.column}: {_which_rows(frame, missing)} had no value and were filled with "
-                f"the {self.missing} of the training window ({self.fill_value_:.4g}), marked by "
-                f"'{self.column} was missing'"]
+                f"the {self.missing} of the training window ({self.fill_value_:.4g}){marked}"]
 
 
 # The name the OLS tests and earlier code know this transformer by.
