@@ -125,7 +125,7 @@ def test_lags_rolling_means_and_differences_equal_pandas_per_series(with_gap):
     frame = frame.sample(frac=1.0, random_state=3)   # rows in no particular order
     plan = fitted_plan(LAG_DRIVERS, frame)
     table = plan.feature_table(frame)
-    for region, rows in frame.groupby(SERIES):
+    for _region, rows in frame.groupby(SERIES):
         calendar = pd.period_range(rows[PERIOD].min(), rows[PERIOD].max(), freq="M")
         full = rows.set_index(PERIOD).reindex(calendar)
         sales, price = full["sales"], full["price"]
