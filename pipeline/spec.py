@@ -281,7 +281,9 @@ class Spec(StrictModel):
                             "predictions are turned back with Duan's smearing correction")
     intercept: bool = True
     validation: Validation
-    models: list[Literal["mean_baseline", "ols"]] = Field(default_factory=lambda: ["ols"])
+    # validate_default: without a `models` key the baseline must still be put first.
+    models: list[Literal["mean_baseline", "ols"]] = Field(default_factory=lambda: ["ols"],
+                                                          validate_default=True)
     output: OutputSection
 
     _source: Path | None = PrivateAttr(None)
