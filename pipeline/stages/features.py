@@ -213,8 +213,8 @@ class NumericTerms:
         self.clip_bounds_ = (None if self.clip_quantiles is None else
                              tuple(float(q) for q in np.quantile(observed, self.clip_quantiles)))
         self.centre_, self.scale_ = 0.0, 1.0
+        values = self._transformed(frame)   # also refuses a log of a value at or below 0
         if self.standardise:
-            values = self._transformed(frame)
             spread = float(np.std(values))
             self.centre_ = float(np.mean(values))
             self.scale_ = spread if spread > 0 else 1.0
@@ -448,9 +448,8 @@ class TargetMeanEncoder(_LevelEncoder):
         self.overall_mean_ = float(target.mean())
         stats = target.groupby(labels.to_numpy()).agg(["count", "mean"])
         weight = self.smoothing
-        self.means_ = {str(level): float((row["count"] * row["mean"] + weight * self.overall_mean_)
-                                         / (row["count"] + weight))
-                       for level, row in stats.iterrows()}
+        smoothed = (stats["count"] * stats["mean"] + weight * self.overall_mean_) / (stats["count"] + weight)
+        self.means_ = {str(level): float(value) for level, value in smoothed.items()}
         return self
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:

@@ -459,7 +459,7 @@ def test_a_non_positive_driver_under_log_names_its_row():
     frame = make_panel(months=6)
     frame.loc[frame.index[4], "price"] = 0.0
     with pytest.raises(DataError) as stopped:
-        fitted_plan({"numeric": [{"column": "price", "transform": "log", "standardise": True}]}, frame)
+        fitted_plan({"numeric": [{"column": "price", "transform": "log"}]}, frame)
     assert stopped.value.column == "price" and stopped.value.row == int(frame[ROW].iloc[4])
     assert stopped.value.file == "data.csv"
     log1p = fitted_plan({"numeric": [{"column": "price", "transform": "log1p"}]}, frame)
