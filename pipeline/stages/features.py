@@ -781,7 +781,7 @@ class FeaturePlan:
             parts += [InteractionTerms(drivers[a], drivers[b]).fit(frame) for a, b in self.interactions]
             parts += [part.fit(frame) for part in self._calendar_parts()]
             self.row_parts_ = parts
-            self.lag_parts_ = [self._lag_part(index, lagged, numeric).fit(
+            self.lag_parts_ = [self._lag_part(index, lagged).fit(
                 self._lag_values(lagged.column, frame, numeric))
                 for index, lagged in enumerate(self.lags)]
             self.parts_ = [*self.row_parts_, *self.lag_parts_]
@@ -815,7 +815,7 @@ class FeaturePlan:
             parts.append(WorkingDays(calendar.closures))
         return parts
 
-    def _lag_part(self, index: int, lagged: LaggedColumn, numeric: dict) -> LagFeatures:
+    def _lag_part(self, index: int, lagged: LaggedColumn) -> LagFeatures:
         of_target = lagged.column == self.target
         label = self.target_scale.name if of_target else lagged.column
         return LagFeatures(lagged.column, lagged.lags, lagged.rolling_means, lagged.differences,
@@ -956,7 +956,7 @@ class FeaturePlan:
         return min(reaches) if reaches else None
 
     def _unfitted_lag_parts(self) -> list[LagFeatures]:
-        return [self._lag_part(index, lagged, {}) for index, lagged in enumerate(self.lags)]
+        return [self._lag_part(index, lagged) for index, lagged in enumerate(self.lags)]
 
     def get_feature_names_out(self) -> list[str]:
         return [name for part in self.parts_ for name in part.get_feature_names_out()]
