@@ -120,29 +120,129 @@ class ColumnRule(StrictModel):
         return [str(v) for v in value] if value is not None else None
 
 
+def _as_text(value: Any) -> Any:
+    """Let a level written as a number in YAML (``reference: 3``) stand for its text."""
+    if isinstance(value, bool):
+        return value
+    if isinstance(value, int | float):
+        return str(value)
+    if isinstance(value, list):
+        return [_as_text(item) for item in value]
+    return value
+
+
 class NumericDriver(StrictModel):
-    """A numeric driver used as it is, optionally with polynomial terms."""
+    """A numeric driver, prepared in this order: fill, clip, transform, standardise, powers.
+
+    Everything a step learns (the fill value, the clip bounds, the mean and
+    standard deviation) is learned in each training window only.
+    """
 
     column: str
     degree: int = Field(1, strict=True, ge=1, le=6, description="1 = straight line; 2 adds the square")
+    transform: Literal["none", "log", "log1p"] = Field(
+        "none", description="log, or log1p = log(1 + value) for drivers that can be 0")
+    clip_quantiles: list[float] | None = Field(
+        None, description="[low, high]: values outside these quantiles of the training window "
+                          "are set to them")
+    missing: Literal["refuse", "mean", "median"] = Field(
+        "refuse", description="refuse rows without a value, or fill them with the training "
+                              "window's mean or median and add a was-missing column")
+    standardise: bool = Field(False, description="centre on the training window's mean and "
+                                                 "divide by its standard deviation")
+
+    @field_validator("clip_quantiles")
+    @classmethod
+    def _two_quantiles(cls, value: list[float] | None) -> list[float] | None:
+        if value is None:
+            return None
+        if len(value) != 2:
+            raise ValueError("give two quantiles, low then high, like [0.01, 0.99]")
+        low, high = value
+        if not 0 <= low < high <= 1:
+            raise ValueError(f"the quantiles must satisfy 0 <= low < high <= 1 (got {low:g}, {high:g})")
+        return value
 
 
 class CategoricalDriver(StrictModel):
     """A categorical driver turned into numbers."""
 
     column: str
-    encoding: Literal["one_hot"] = "one_hot"
+    encoding: Literal["one_hot", "ordinal", "target_mean"] = Field(
+        "one_hot", description="one_hot: a 0/1 column per level but the reference; ordinal: the "
+                               "level's place in `order`; target_mean: the level's smoothed "
+                               "mean of the target")
     reference: str | None = Field(
-        None, description="level left out as the baseline; default: the most frequent level")
+        None, description="level left out as the baseline (one_hot) and used for unseen levels "
+                          "under `unseen: use_reference`; default: the most frequent level")
+    order: list[str] | None = Field(None, description="ordinal: the levels, lowest first")
+    smoothing: float | None = Field(
+        None, ge=0, description="target_mean: how many rows' weight the overall mean gets "
+                                "(default 10)")
+    group_below: int | None = Field(
+        None, ge=2, description="levels with fewer training rows than this share one level")
+    unseen: Literal["stop", "use_reference"] = Field(
+        "stop", description="a level not in the training rows: stop, or treat it as the "
+                            "reference level and warn")
+
+    @field_validator("reference", "order", mode="before")
+    @classmethod
+    def _levels_as_text(cls, value: Any) -> Any:
+        return _as_text(value)
+
+    @property
+    def effective_smoothing(self) -> float:
+        """Return the smoothing weight, 10 rows unless the spec gives one."""
+        return 10.0 if self.smoothing is None else self.smoothing
+
+
+class CalendarFeatures(StrictModel):
+    """Features of the month itself, for periodic data."""
+
+    trend: bool = Field(False, description="months since the first month of the training window")
+    month_of_year: Literal["none", "dummies", "fourier"] = Field(
+        "none", description="dummies: a 0/1 column per month but January; fourier: sine and "
+                            "cosine pairs")
+    harmonics: int | None = Field(None, ge=1, le=6,
+                                  description="fourier: how many sine/cosine pairs (default 2)")
+    quarter: bool = Field(False, description="a 0/1 column per quarter but the first")
+    working_days: bool = Field(False, description="weekdays in the month, less the closures")
+    closures: list[date] = Field(default_factory=list,
+                                 description="working_days: dates on which no one works")
+
+    @property
+    def effective_harmonics(self) -> int:
+        """Return the number of Fourier pairs, 2 unless the spec gives one."""
+        return 2 if self.harmonics is None else self.harmonics
+
+
+class LaggedColumn(StrictModel):
+    """Earlier values of the target or of a numeric driver, per series."""
+
+    column: str
+    lags: list[Annotated[int, Field(ge=1)]] = Field(
+        default_factory=list, description="the value this many months earlier")
+    rolling_means: list[Annotated[int, Field(ge=2)]] = Field(
+        default_factory=list, description="the mean over this many months, ending start_lag "
+                                          "months earlier")
+    differences: list[Annotated[int, Field(ge=1)]] = Field(
+        default_factory=list, description="the value start_lag months earlier minus the value "
+                                          "this many months before that")
+    start_lag: int = Field(1, ge=1, description="how many months back the rolling means and "
+                                                "differences end")
 
 
 class DriversSection(StrictModel):
-    """Columns that explain the target."""
+    """Columns, and features of the calendar, that explain the target."""
 
     numeric: list[NumericDriver] = Field(default_factory=list)
     categorical: list[CategoricalDriver] = Field(default_factory=list)
+    interactions: list[list[str]] = Field(default_factory=list,
+                                          description="pairs of drivers whose product is a term")
+    calendar: CalendarFeatures | None = None
+    lags: list[LaggedColumn] = Field(default_factory=list)
 
-    @field_validator("numeric", "categorical", mode="before")
+    @field_validator("numeric", "categorical", "lags", mode="before")
     @classmethod
     def _names_as_mappings(cls, value: Any) -> Any:
         if isinstance(value, list):
@@ -258,9 +358,13 @@ class Spec(StrictModel):
     columns: dict[str, ColumnRule] = Field(
         default_factory=dict, description="rules per input column; columns the spec uses but "
                                           "does not list here get rules from their role")
+    target_transform: Literal["none", "log", "log1p"] = Field(
+        "none", description="fit the linear models on log(target) or log(1 + target); their "
+                            "predictions are turned back with Duan's smearing correction")
     intercept: bool = Field(True, strict=True)
     validation: Validation
-    models: list[ModelChoice] = Field(default_factory=lambda: [ModelChoice(kind="ols")])
+    # validate_default: without a `models` key the baseline must still be put first.
+    models: list[ModelChoice] = Field(default_factory=lambda: [{"kind": "ols"}], validate_default=True)
     select_by: Literal["mae", "rmse", "mape", "smape", "wape", "mase"] = Field(
         "mae", description="the metric that picks the recommended model")
     significance_level: float = Field(0.05, gt=0, lt=0.5, description="a model beats the mean "
@@ -316,6 +420,19 @@ class Spec(StrictModel):
     def driver_columns(self) -> list[str]:
         """Return every driver column, numeric first, in spec order."""
         return [d.column for d in self.drivers.numeric] + [d.column for d in self.drivers.categorical]
+
+    @property
+    def filled_driver_columns(self) -> set[str]:
+        """Return the numeric drivers whose missing values are filled rather than refused."""
+        return {d.column for d in self.drivers.numeric if d.missing != "refuse"}
+
+    @property
+    def has_features(self) -> bool:
+        """Return whether the spec asks for any term besides the intercept."""
+        calendar = self.drivers.calendar
+        return bool(self.driver_columns or self.drivers.lags or (calendar and (
+            calendar.trend or calendar.month_of_year != "none" or calendar.quarter
+            or calendar.working_days)))
 
 
 
@@ -570,11 +687,12 @@ def _check_roles(spec: Spec, fail) -> None:
                                        and seen[column] == "a series column"):
                 raise fail(key, f"column '{column}' is already {seen[column]}")
             seen[column] = "a driver"
-    if not spec.intercept and not spec.driver_columns:
+    if not spec.intercept and not spec.has_features:
         raise fail(("intercept",), "a model without an intercept needs at least one driver")
     _check_column_rules(spec, fail)
     _check_models(spec, fail)
     _check_scenarios(spec, fail)
+    _check_features(spec, fail)
 
 
 def _check_scenarios(spec: Spec, fail) -> None:
@@ -651,6 +769,72 @@ def _check_column_rules(spec: Spec, fail) -> None:
             raise fail(key + ("type",), f"'{column}' is {role}, so its type must be {wanted}")
         if rule.missing_allowed and role in ("the date column", "a series column"):
             raise fail(key + ("missing_allowed",), f"'{column}' is {role} and may not be missing")
-        if rule.missing_allowed and role in ("a numeric driver", "a categorical driver"):
+        if (rule.missing_allowed and role in ("a numeric driver", "a categorical driver")
+                and column not in spec.filled_driver_columns):
+            fill = " (or set missing: mean or median on the driver to fill it)" \
+                if role == "a numeric driver" else ""
             raise fail(key + ("missing_allowed",), f"'{column}' is {role}: the models need a "
-                       "value in every row, so it may not be missing")
+                       f"value in every row, so it may not be missing{fill}")
+
+
+def _check_features(spec: Spec, fail) -> None:
+    """Refuse feature keys that contradict each other (each problem placed at its key)."""
+    for index, driver in enumerate(spec.drivers.categorical):
+        key = ("drivers", "categorical", index)
+        if driver.encoding == "ordinal":
+            if driver.order is None:
+                raise fail(key + ("encoding",), "ordinal encoding needs `order`: the levels, "
+                                                "lowest first")
+            if len(set(driver.order)) != len(driver.order):
+                raise fail(key + ("order",), "a level is listed twice")
+            if driver.reference is not None and driver.reference not in driver.order:
+                raise fail(key + ("reference",), f"'{driver.reference}' is not one of the "
+                                                 f"levels in `order`")
+            if driver.group_below is not None:
+                raise fail(key + ("group_below",), "grouping rare levels would break the order "
+                                                   "of an ordinal driver")
+        elif driver.order is not None:
+            raise fail(key + ("order",), "`order` applies to encoding: ordinal")
+        if driver.smoothing is not None and driver.encoding != "target_mean":
+            raise fail(key + ("smoothing",), "`smoothing` applies to encoding: target_mean")
+    numeric = [d.column for d in spec.drivers.numeric]
+    drivers = set(spec.driver_columns)
+    pairs: set[frozenset[str]] = set()
+    for index, pair in enumerate(spec.drivers.interactions):
+        key = ("drivers", "interactions", index)
+        if len(pair) != 2:
+            raise fail(key, f"an interaction is a pair of drivers, like [{', '.join(numeric[:2]) or 'a, b'}]")
+        for place, column in enumerate(pair):
+            if column not in drivers:
+                listed = ", ".join(spec.driver_columns) or "none"
+                raise fail(key + (place,), f"'{column}' is not a driver (drivers: {listed})")
+        if pair[0] == pair[1]:
+            raise fail(key, "an interaction needs two different drivers (for a square, use degree: 2)")
+        if frozenset(pair) in pairs:
+            raise fail(key, "this pair is listed twice")
+        pairs.add(frozenset(pair))
+    calendar = spec.drivers.calendar
+    if calendar is not None:
+        key = ("drivers", "calendar")
+        if calendar.harmonics is not None and calendar.month_of_year != "fourier":
+            raise fail(key + ("harmonics",), "`harmonics` applies to month_of_year: fourier")
+        if calendar.closures and not calendar.working_days:
+            raise fail(key + ("closures",), "`closures` applies to working_days: true")
+        if calendar.quarter and calendar.month_of_year == "dummies":
+            raise fail(key + ("quarter",), "quarter dummies are sums of month dummies; use one or "
+                                           "the other")
+    seen: set[str] = set()
+    for index, lagged in enumerate(spec.drivers.lags):
+        key = ("drivers", "lags", index)
+        if lagged.column != spec.target and lagged.column not in numeric:
+            raise fail(key + ("column",), f"'{lagged.column}' is neither the target nor a numeric "
+                                          "driver; lags are taken of those")
+        if lagged.column in seen:
+            raise fail(key + ("column",), f"'{lagged.column}' already has an entry in drivers.lags")
+        seen.add(lagged.column)
+        if not (lagged.lags or lagged.rolling_means or lagged.differences):
+            raise fail(key, "give at least one of lags, rolling_means or differences")
+        for name in ("lags", "rolling_means", "differences"):
+            values = getattr(lagged, name)
+            if len(set(values)) != len(values):
+                raise fail(key + (name,), "a value is listed twice")

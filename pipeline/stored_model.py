@@ -35,8 +35,25 @@ class ModelFileError(UserError):
 
 # ------------------------------------------------------------ tagged JSON values
 
-def encode(value: Any) -> Any:
-    """Return a JSON-safe form of a learned value, with tags for what JSON cannot hold."""
+def encode(value: Any, parts: list | None = None) -> Any:
+    """Return a JSON-safe form of a learned value, with tags for what JSON cannot hold.
+
+    ``parts``: objects stored elsewhere in the file, written as references to them.
+    """
+    if parts is not None:
+        for index, part in enumerate(parts):
+            if value is part:
+                return {"__part__": index}
+        if isinstance(value, list):
+            return [encode(v, parts) for v in value]
+        if isinstance(value, dict) and all(isinstance(k, str) for k in value):
+            return {"__dict__": {k: encode(v, parts) for k, v in value.items()}}
+    if isinstance(value, pd.Series):
+        index = value.index
+        return {"__series__": {"values": encode(value.to_numpy()),
+                               "index": [encode(i) for i in index.tolist()],
+                               "names": [str(n) if n is not None else None for n in index.names],
+                               "name": str(value.name) if value.name is not None else None}}
     if isinstance(value, np.ndarray):
         return {"__array__": [encode(v) for v in value.tolist()], "dtype": str(value.dtype)}
     if isinstance(value, np.generic):
@@ -62,12 +79,23 @@ def encode(value: Any) -> Any:
     raise TypeError(f"cannot store a value of type {type(value).__name__}")
 
 
-def decode(value: Any) -> Any:
-    """Return the value a tagged JSON form stands for."""
+def decode(value: Any, parts: list | None = None) -> Any:
+    """Return the value a tagged JSON form stands for (``parts``: the objects referred to)."""
     if isinstance(value, list):
-        return [decode(v) for v in value]
+        return [decode(v, parts) for v in value]
     if not isinstance(value, dict):
         return value
+    if "__part__" in value:
+        if parts is None or not isinstance(value["__part__"], int) or not 0 <= value["__part__"] < len(parts):
+            raise ModelFileError("a reference to a feature that is not in the file")
+        return parts[value["__part__"]]
+    if "__series__" in value:
+        body = value["__series__"]
+        index_values = [decode(i) for i in body["index"]]
+        names = body.get("names") or [None]
+        index = (pd.MultiIndex.from_tuples(index_values, names=names) if len(names) > 1
+                 else pd.Index(index_values, name=names[0]))
+        return pd.Series(decode(body["values"]), index=index, name=body.get("name"))
     if "__array__" in value:
         dtype = value.get("dtype", "float64")
         if dtype not in ("float64", "int64", "bool", "object", "int32", "float32") and not dtype.startswith("<U"):
@@ -83,7 +111,7 @@ def decode(value: Any) -> Any:
     if "__date__" in value:
         return pd.Timestamp(value["__date__"])
     if "__dict__" in value:
-        return {k: decode(v) for k, v in value["__dict__"].items()}
+        return {k: decode(v, parts) for k, v in value["__dict__"].items()}
     if "__pairs__" in value:
         return {_hashable(decode(k)): decode(v) for k, v in value["__pairs__"]}
     if "__settings__" in value:
@@ -109,35 +137,50 @@ def _allowed_classes(module) -> dict[str, type]:
             and hasattr(cls, "fit") and (hasattr(cls, "transform") or hasattr(cls, "predict"))}
 
 
-def _rebuild(entry: dict, allowed: dict[str, type]):
+def _rebuild(entry: dict, allowed: dict[str, type], parts: list | None = None):
     name = entry.get("class")
     if name not in allowed:
         raise ModelFileError(f"class {name!r} is not one castline stores")
     obj = allowed[name].__new__(allowed[name])
     for attribute, value in entry["state"].items():
-        if not attribute.isidentifier():
+        if not attribute.isidentifier() or attribute.startswith("__"):
             raise ModelFileError(f"bad attribute name {attribute!r}")
-        setattr(obj, attribute, decode(value))
+        setattr(obj, attribute, decode(value, parts))
     return obj
 
 
 # --------------------------------------------------------------- linear models
 
 class StoredLinear:
-    """A fitted linear model reduced to its numbers: intercept plus coefficients."""
+    """A fitted linear model reduced to its numbers: intercept plus coefficients, and the
+    target transform (with its smearing factor) that turns its predictions into means."""
 
-    def __init__(self, intercept: float, coef: np.ndarray, names: list[str]) -> None:
+    def __init__(self, intercept: float, coef: np.ndarray, names: list[str],
+                 transform: features.TargetTransform | None = None, smearing: float = 1.0) -> None:
         self.intercept_ = float(intercept)
         self.coef_ = np.asarray(coef, float)
         self.names_ = list(names)
+        self.transform = transform
+        self.smearing_ = float(smearing)
 
     def predict(self, design) -> np.ndarray:
         # The same arithmetic as the run's own OLS prediction, so the numbers agree exactly.
         matrix = np.column_stack([np.ones(len(design.matrix)), design.matrix])
-        return matrix @ np.concatenate([[self.intercept_], self.coef_])
+        predicted = matrix @ np.concatenate([[self.intercept_], self.coef_])
+        return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 
 def _linear_numbers(kind: str, model) -> dict:
+    transform = None
+    if isinstance(model, features.TransformedTargetModel):
+        transform = {"column": model.transform.column, "kind": model.transform.kind,
+                     "smearing": model.smearing_}
+        model = model.model
+    numbers = _plain_linear_numbers(kind, model)
+    return {**numbers, "target_transform": transform}
+
+
+def _plain_linear_numbers(kind: str, model) -> dict:
     if kind == "ols":
         coef = model.coef_
         intercept, slopes = (coef[0], coef[1:]) if model.fit_intercept else (0.0, coef)
@@ -175,7 +218,10 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
         else:
             models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}
     parts = [{"class": type(part).__name__, "state": _state(part)} for part in plan.parts_]
-    plan_state = {key: encode(val) for key, val in vars(plan).items() if key != "parts_"}
+    # The plan's other lists of features refer to the same objects as parts_; a bound
+    # method (how to report a spec error) is not state and is restored to the default.
+    plan_state = {key: encode(val, plan.parts_) for key, val in vars(plan).items()
+                  if key != "parts_" and not callable(val)}
     return {
         "format": FORMAT, "format_version": FORMAT_VERSION, "castline_version": __version__,
         "spec_name": spec.name, "target": spec.target, "date_column": spec.input.date_column,
@@ -248,14 +294,22 @@ def load_model(path: str | Path) -> StoredModel:
     try:
         transformers = _allowed_classes(features)
         plan_entry = document.plan
+        parts = [_rebuild(part, transformers) for part in plan_entry.get("parts", [])]
         plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
-                        transformers)
-        plan.parts_ = [_rebuild(part, transformers) for part in plan_entry.get("parts", [])]
+                        transformers, parts)
+        plan.parts_ = parts
+        plan.error = features._spec_error
         models = {}
         for kind, entry in document.models.items():
             if entry.get("kind") == "linear":
+                scale = entry.get("target_transform")
+                transform = features.TargetTransform(str(scale["column"]), str(scale["kind"])) \
+                    if scale else None
+                if transform is not None and transform.kind not in ("log", "log1p", "none"):
+                    raise ModelFileError(f"unknown target transform {transform.kind!r}")
                 models[kind] = StoredLinear(decode(entry["intercept"]), decode(entry["coef"]),
-                                            document.feature_names)
+                                            document.feature_names, transform,
+                                            float(scale["smearing"]) if scale else 1.0)
             elif entry.get("kind") == "baseline":
                 models[kind] = _rebuild(entry, _allowed_classes(baselines))
             else:

@@ -35,8 +35,13 @@ RUN_FILES = {"spec.yaml", "fingerprint.json", "metrics.json", "predictions.csv",
              "forecast.csv", "summary.md"}
 
 # The demo spec's model written as a statsmodels formula: the reference fit.
+# The calendar terms are computed here from the month: a trend counting months since
+# the first month (2019-01), and sine/cosine pairs of 2π·k·month/12 for k = 1, 2.
 FORMULA = ("bags_sold ~ shelf_price + promo_days + rainfall_mm + mean_temp_c + I(mean_temp_c ** 2)"
-           " + C(region, Treatment('North'))")
+           " + C(region, Treatment('North')) + trend + sin1 + cos1 + sin2 + cos2")
+CALENDAR_TERMS = {"trend": "months since 2019-01", "sin1": "sin(2π·month/12)",
+                  "cos1": "cos(2π·month/12)", "sin2": "sin(2π·2·month/12)",
+                  "cos2": "cos(2π·2·month/12)"}
 
 
 def model_kinds(spec) -> list[str]:
@@ -50,6 +55,8 @@ def reference_term(name: str) -> str:
         return "intercept"
     if name == "I(mean_temp_c ** 2)":
         return "mean_temp_c^2"
+    if name in CALENDAR_TERMS:
+        return CALENDAR_TERMS[name]
     level = re.fullmatch(r"C\(region, Treatment\('North'\)\)\[T\.(\w+)\]", name)
     return f"region: {level.group(1)}" if level else name
 
@@ -59,7 +66,13 @@ def reference_term(name: str) -> str:
 @pytest.fixture(scope="module")
 def table() -> pd.DataFrame:
     frame = pd.read_csv(DEMO_DATA)
-    frame["period"] = pd.to_datetime(frame["month"]).dt.to_period("M").astype(str)
+    months = pd.to_datetime(frame["month"]).dt.to_period("M")
+    frame["period"] = months.astype(str)
+    frame["trend"] = (months - pd.Period("2019-01", "M")).map(lambda offset: offset.n)
+    month_number = months.dt.month.to_numpy(float)
+    for k in (1, 2):
+        frame[f"sin{k}"] = np.sin(2 * np.pi * k * month_number / 12)
+        frame[f"cos{k}"] = np.cos(2 * np.pi * k * month_number / 12)
     return frame
 
 
@@ -88,6 +101,11 @@ def test_the_demo_spec_is_the_model_the_reference_formula_writes(result):
     assert [(d.column, d.degree) for d in spec.drivers.numeric] == [
         ("shelf_price", 1), ("promo_days", 1), ("rainfall_mm", 1), ("mean_temp_c", 2)]
     assert [(d.column, d.reference) for d in spec.drivers.categorical] == [("region", "North")]
+    calendar = spec.drivers.calendar
+    assert (calendar.trend, calendar.month_of_year, calendar.harmonics) == (True, "fourier", 2)
+    assert not calendar.quarter and not calendar.working_days
+    assert not spec.drivers.lags and not spec.drivers.interactions
+    assert spec.target_transform == "none"
     assert spec.input.series == ["region"]
     assert (spec.validation.method, spec.validation.last_periods) == ("holdout", 12)
     assert model_kinds(spec) == ["mean_baseline", "ols"]

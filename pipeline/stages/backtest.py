@@ -256,42 +256,60 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     notes: list[str] = []
     fast_ols: dict[str, tuple] = {}
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
-    if "ols" in spec.model_kinds and expanding and len(splits) > 1:
+    # Without lags or a target transform, every row of a window is fitted on as it is.
+    plain = not spec.drivers.lags and spec.target_transform == "none"
+    if "ols" in spec.model_kinds and expanding and len(splits) > 1 and plain:
         states = {_plan_state(plan) for plan in plans}
         if len(states) == 1:
             fast_ols = _growing_ols(spec, splits, plans[0], data.history)
     frames = []
     for split, plan in zip(splits, plans):
-        y_train = split.train[spec.target].to_numpy(float)
         scales = mase_scales(split.train, spec.target) if time_ordered else {}
-        designs: dict[str, Design] = {}
+        cache: dict[str, tuple] = {}
 
-        def design_for(part: str, kind: str, split=split, plan=plan, designs=designs) -> Design:
-            # Baselines need only the series and months; the full design is built once, if at all.
-            frame = split.train if part == "train" else split.test
+        def train_design(kind: str, split=split, plan=plan, cache=cache) -> tuple[Design, np.ndarray]:
+            # Baselines need only the series and months; the full design is built once, if at
+            # all. With lags, every model fits on the rows whose lags are available.
+            if kind in BASELINES and plain:
+                frame = split.train
+                return (Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
+                               frame[PERIOD].array.asi8 if PERIOD in frame.columns else None),
+                        frame[spec.target].to_numpy(float))
+            if "train" not in cache:
+                cache["train"] = plan.training_design(split.train)
+            return cache["train"]
+
+        def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
+            frame = split.test
             if kind in BASELINES:
                 return Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
                               frame[PERIOD].array.asi8 if PERIOD in frame.columns else None)
-            if part not in designs:
-                designs[part] = plan.transform(frame)
-            return designs[part]
+            if "test" not in cache:
+                cache["test"] = plan.transform(frame)
+            return cache["test"]
 
         for choice in spec.models:
             se = df_resid = None
             if choice.kind == "ols" and split.label in fast_ols:
                 predicted, se, df_resid = fast_ols[split.label]
             else:
-                model = make_model(choice, intercept=spec.intercept)
-                model.fit(design_for("train", choice.kind), y_train)
-                predicted = model.predict(design_for("test", choice.kind))
+                model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
+                design, y_train = train_design(choice.kind)
+                model.fit(design, y_train)
+                predicted = model.predict(test_design(choice.kind))
                 if hasattr(model, "prediction_se"):
-                    se, df_resid = model.prediction_se(design_for("test", choice.kind)), model.df_resid_
+                    se, df_resid = model.prediction_se(test_design(choice.kind)), model.df_resid_
             frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales,
                                              se, df_resid))
+        if "train" in cache:
+            notes += [f"window ending {split.label}: {note}" for note in cache["train"][0].notes
+                      if "left out" in note]
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")
     predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
-                          horizon=horizon, notes=notes, step=getattr(spec.validation, "step", 1))
+                          horizon=horizon, notes=notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"]
+                                                              if len(notes) > 5 else []),
+                          step=getattr(spec.validation, "step", 1))
 

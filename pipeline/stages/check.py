@@ -7,8 +7,9 @@ Two passes, both reporting every problem at once rather than the first:
    and validated lazily;
 2. the calendar, per series: one row per month, no month missing inside a
    series (unless the spec allows or fills gaps), the target present in every
-   month of history, every driver present in the months to forecast, and no
-   actual dated after the as-of date.
+   month of history (and above 0 for a log target), every driver present in
+   every row unless its spec fills missing values, and no actual dated after
+   the as-of date.
 """
 
 from __future__ import annotations
@@ -350,7 +351,19 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
             problems.append(Problem("level not seen in history", driver.column, _row(row),
                                     f"{row[driver.column]!r} in {row[PERIOD]} has no history to "
                                     "learn from", count=int(new_level.sum())))
+    if spec.target_transform != "none":
+        floor = 0.0 if spec.target_transform == "log" else -1.0
+        low = has_target & (frame[target] <= floor)
+        if low.any():
+            row = _first(frame, low)
+            problems.append(Problem(f"not above {floor:g}, as target_transform: "
+                                    f"{spec.target_transform} needs", target, _row(row),
+                                    f"{row[target]:g} in {row[PERIOD]} (series '{row[SERIES]}')",
+                                    count=int(low.sum())))
+    filled = spec.filled_driver_columns
     for driver in spec.driver_columns:
+        if driver in filled:
+            continue  # filled in every row by a statistic learned in each training window
         for mask, word in ((~future, "driver missing"),
                            (future, "driver missing in a month to forecast")):
             empty = mask & frame[driver].isna()

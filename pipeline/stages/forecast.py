@@ -59,7 +59,10 @@ def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
     return changed
 
 
-def _row_labels(history: pd.DataFrame) -> list[str]:
+def _row_labels(history: pd.DataFrame, design) -> list[str]:
+    if len(design.series) != len(history):  # rows left out for their lags: no line numbers
+        months = pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str)
+        return [f"{p} {s}" for p, s in zip(months, design.series)]
     rows = history[ROW].to_numpy()
     return [f"{p} {s} (row {int(r)})" if np.isfinite(r) else f"{p} {s} (filled)"
             for p, s, r in zip(history[PERIOD].astype(str), history[SERIES], rows.astype(float))]
@@ -69,18 +72,21 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     """Return each model's forecast of the future rows, fitted on all history."""
     plan = plan_features(spec, SERIES).fit(data.history)
     future = data.future.sort_values([PERIOD, SERIES], kind="stable")
-    history_design = plan.transform(data.history)
+    history_design, y = plan.training_design(data.history)
     future_design = plan.transform(future)
-    y = data.history[spec.target].to_numpy(float)
     horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
     predictions = backtest.predictions
-    forecasts, coefficients, summaries, warnings, scenario_rows = [], [], [], [], []
+    forecasts, coefficients, summaries, scenario_rows = [], [], [], []
+    warnings = [*history_design.notes, *future_design.notes]
     diagnostics = vif = influential = pd.DataFrame()
     fitted = {}
     for choice in spec.models:
         kind = choice.kind
-        model = make_model(choice, intercept=spec.intercept).fit(history_design, y)
+        model = plan.for_target(make_model(choice, intercept=spec.intercept), kind)
+        model.fit(history_design, y)
         fitted[kind] = model
+        if hasattr(model, "describe"):
+            warnings.append(f"{kind}: {model.describe()}")
         if len(future):
             point = model.predict(future_design)
             table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
@@ -102,14 +108,15 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             forecasts.append(pd.DataFrame(table))
         fit = getattr(model, "fit_", None)
         if fit is not None:
-            matrix = model._with_intercept(history_design.matrix)
+            inner = getattr(model, "model", model)   # under a target transform, the OLS inside
+            matrix = inner._with_intercept(history_design.matrix)
             cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
                              groups=history_design.series, order=history_design.period)
             terms = coefficient_table(fit, cov)
             terms["standard_errors"] = spec.standard_errors
             findings, vif, influential = diagnose(
                 fit, matrix, groups=history_design.series, order=history_design.period,
-                row_labels=_row_labels(data.history))
+                row_labels=_row_labels(data.history, history_design))
             diagnostics = findings_table(findings)
             diagnostics.insert(0, "model", kind)
             summaries.append({"model": kind, "rows": len(y), "terms": len(fit.names),
