@@ -358,6 +358,10 @@ class Spec(StrictModel):
     columns: dict[str, ColumnRule] = Field(
         default_factory=dict, description="rules per input column; columns the spec uses but "
                                           "does not list here get rules from their role")
+    multi_step: Literal["direct", "recursive"] = Field(
+        "direct", description="when a lag of the target is shorter than the months predicted: "
+                              "one fit per horizon (direct) or predictions fed back month by "
+                              "month (recursive)")
     target_transform: Literal["none", "log", "log1p"] = Field(
         "none", description="fit the linear models on log(target) or log(1 + target); their "
                             "predictions are turned back with Duan's smearing correction")

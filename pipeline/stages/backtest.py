@@ -21,6 +21,7 @@ from sklearn.model_selection import GroupKFold, KFold
 from ..models import BASELINES, make_model
 from ..models.ols import GrowingLeastSquares
 from ..spec import Spec
+from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
 from .features import Design, plan_features
 
@@ -288,10 +289,17 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 cache["test"] = plan.transform(frame)
             return cache["test"]
 
+        furthest = int((split.test[PERIOD].array.asi8 - split.origin.ordinal).max()) \
+            if split.origin is not None and len(split.test) else 0
+        stepwise = needs_strategy(spec, furthest)
         for choice in spec.models:
             se = df_resid = None
             if choice.kind == "ols" and split.label in fast_ols:
                 predicted, se, df_resid = fast_ols[split.label]
+            elif stepwise and choice.kind not in BASELINES:
+                # A target lag is shorter than the months ahead: the spec's multi_step strategy.
+                predicted, se, df_resid, _ = predict_ahead(spec, choice, split.train, split.test,
+                                                           split.origin.ordinal)
             else:
                 model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
                 design, y_train = train_design(choice.kind)

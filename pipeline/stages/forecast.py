@@ -18,12 +18,13 @@ import pandas as pd
 
 from ..errors import DataError
 from ..intervals import LEVELS, analytic_bounds, empirical_bounds, percent
-from ..models import make_model
+from ..models import BASELINES, make_model
 from ..models.inference import coefficient_table, covariance, diagnose, findings_table
 from ..spec import Scenario, Spec
+from .ahead import needs_strategy, predict_ahead
 from .backtest import BacktestResult
 from .check import PERIOD, ROW, SERIES, CheckedData
-from .features import plan_features
+from .features import Design, plan_features
 
 
 @dataclass(frozen=True)
@@ -73,11 +74,33 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     plan = plan_features(spec, SERIES).fit(data.history)
     future = data.future.sort_values([PERIOD, SERIES], kind="stable")
     history_design, y = plan.training_design(data.history)
-    future_design = plan.transform(future)
-    horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
+    origin = data.last_period.ordinal
+    horizons = (future[PERIOD].array.asi8 - origin).astype(int)
+    stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
+    designs: dict[int, Design] = {}
+
+    def predict(choice, model, frame: pd.DataFrame):
+        """Return the point forecasts, their standard errors and residual df for the rows."""
+        if stepwise and choice.kind in BASELINES:
+            design = Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
+                            frame[PERIOD].array.asi8)
+            return model.predict(design), None, None
+        if stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
+            point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin)
+            return point, se, df
+        if id(frame) not in designs:
+            designs[id(frame)] = plan.transform(frame)
+        design = designs[id(frame)]
+        if hasattr(model, "prediction_se"):
+            return model.predict(design), model.prediction_se(design), model.df_resid_
+        return model.predict(design), None, None
+
     predictions = backtest.predictions
     forecasts, coefficients, summaries, scenario_rows = [], [], [], []
-    warnings = [*history_design.notes, *future_design.notes]
+    warnings = [*history_design.notes]
+    if stepwise:
+        warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
+                        f"the {spec.multi_step} strategy (multi_step)")
     diagnostics = vif = influential = pd.DataFrame()
     fitted = {}
     for choice in spec.models:
@@ -88,15 +111,14 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         if hasattr(model, "describe"):
             warnings.append(f"{kind}: {model.describe()}")
         if len(future):
-            point = model.predict(future_design)
+            point, se, df = predict(choice, model, future)
             table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
                      "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
             own = predictions[predictions["model"] == kind]
             errors = pd.DataFrame({"horizon": own["horizon"], "error": own["actual"] - own["prediction"]})
             for level in LEVELS:
-                if hasattr(model, "prediction_se"):
-                    low, high = analytic_bounds(point, model.prediction_se(future_design),
-                                                model.df_resid_, level)
+                if se is not None:
+                    low, high = analytic_bounds(point, se, df, level)
                 else:
                     low = high = np.full(len(point), np.nan)
                 table[f"analytic_low_{percent(level)}"] = low
@@ -135,12 +157,12 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             raise spec.error(("scenarios",), "scenarios need months to forecast, and the input has none")
         try:
             changed = apply_scenario(future, scenario)
-            changed_design = plan.transform(changed)
         except (TypeError, ValueError) as exc:
             raise DataError(f"scenario '{scenario.name}' cannot be applied: {exc}") from None
-        for kind, model in fitted.items():
-            base = model.predict(future_design)
-            what_if = model.predict(changed_design)
+        for choice in spec.models:
+            kind, model = choice.kind, fitted[choice.kind]
+            base = predict(choice, model, future)[0]
+            what_if = predict(choice, model, changed)[0]
             scenario_rows.append(pd.DataFrame({
                 "scenario": scenario.name, "period": future[PERIOD].astype(str).to_numpy(),
                 "series": future[SERIES].to_numpy(), "model": kind, "base_forecast": base,
