@@ -1,0 +1,182 @@
+"""Evaluate stage: the verdict against the mean baseline, and metrics equal to scikit-learn's.
+
+Simulated data (fixed seeds, written to tmp_path): one panel where the drivers
+truly move the target, one where the target is noise around a constant.
+References: sklearn.metrics (mean_absolute_error, root_mean_squared_error,
+mean_absolute_percentage_error, r2_score), pandas group-bys for the breakdowns
+and the MASE scale, and the Diebold–Mariano / Harvey–Leybourne–Newbold formula
+written out here (see tests/test_significance.py for the citations).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.stats
+import yaml
+from sklearn.metrics import (
+    mean_absolute_error,
+    mean_absolute_percentage_error,
+    r2_score,
+    root_mean_squared_error,
+)
+
+import pipeline
+from pipeline.stages.backtest import run_backtest
+from pipeline.stages.check import PERIOD, SERIES
+from pipeline.stages.evaluate import evaluate
+
+ROLLING = {"method": "rolling_origin", "horizon": 3, "min_train_periods": 24, "origins": 12}
+
+
+def load(folder: Path, frame: pd.DataFrame, models: list, validation: dict | None = None, **extra):
+    folder.mkdir(parents=True, exist_ok=True)
+    frame.to_csv(folder / "data.csv", index=False)
+    spec = {"name": "evaluate-test",
+            "input": {"file": "data.csv", "date_column": "month", "series": ["region"]},
+            "target": "y",
+            "drivers": {"numeric": ["x1", "x2"], "categorical": [{"column": "region"}]},
+            "validation": validation or ROLLING, "models": models, **extra,
+            "output": {"folder": "reports"}}
+    path = folder / "spec.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    spec = pipeline.load_spec(path)
+    return spec, pipeline.check(spec)
+
+
+def simulated(seed: int, signal: bool, n_months: int = 60) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    months = pd.date_range("2015-01-01", periods=n_months, freq="MS")
+    regions = ["East", "North", "West"]
+    frame = pd.DataFrame([(m.strftime("%Y-%m-%d"), r) for m in months for r in regions],
+                         columns=["month", "region"])
+    n = len(frame)
+    frame["x1"] = rng.normal(size=n).round(6)
+    frame["x2"] = rng.normal(size=n).round(6)
+    level = frame["region"].map({"East": 120.0, "North": 100.0, "West": 80.0})
+    if signal:
+        frame["y"] = (level + 8 * frame["x1"] - 5 * frame["x2"] + rng.normal(size=n)).round(6)
+    else:
+        frame["y"] = (100 + 5 * rng.normal(size=n)).round(6)
+    return frame
+
+
+def run(tmp_path, frame, models, **kwargs):
+    spec, data = load(tmp_path, frame, models, **kwargs)
+    result = run_backtest(spec, data)
+    return spec, data, result, evaluate(spec, result)
+
+
+def reference_dm(d, h):
+    n = len(d)
+    mean = sum(d) / n
+    gamma = [sum((d[t] - mean) * (d[t - k] - mean) for t in range(k, n)) / n for k in range(h)]
+    variance = gamma[0] + 2 * sum(gamma[1:])
+    statistic = mean / math.sqrt(variance / n) * math.sqrt((n + 1 - 2 * h + h * (h - 1) / n) / n)
+    return statistic, float(scipy.stats.t.sf(statistic, df=n - 1))
+
+
+def test_a_model_that_truly_helps_beats_the_mean_baseline_and_is_recommended(tmp_path):
+    _, _, result, evaluation = run(tmp_path, simulated(seed=1, signal=True), ["ols"])
+    assert evaluation.recommended == "ols"
+    assert evaluation.beats_baseline
+    assert "OLS beats the mean baseline out of sample (p" in evaluation.verdict
+    row = evaluation.table.set_index("model").loc["ols"]
+    assert row["against_mean"].startswith("beats the mean baseline (p")
+    assert row["p_value"] < 0.05 and row["test_statistic"] > 0
+    assert row["skill_vs_mean"] > 0.5
+
+    # The test statistic: DM* on the mean absolute-loss difference at each of the 12 origins,
+    # with h − 1 = 2 autocovariance lags (horizon 3, one month between origins).
+    p = result.predictions
+    wide = p.pivot_table(index=["origin", "period", "series"], columns="model", values="prediction")
+    actual = p[p["model"] == "mean_baseline"].set_index(["origin", "period", "series"])["actual"]
+    diff = (wide["mean_baseline"] - actual).abs() - (wide["ols"] - actual).abs()
+    per_origin = diff.groupby(level="origin").mean().sort_index().tolist()
+    assert len(per_origin) == 12
+    statistic, p_value = reference_dm(per_origin, 3)
+    assert row["test_statistic"] == pytest.approx(statistic, rel=1e-10)
+    assert row["p_value"] == pytest.approx(p_value, rel=1e-8)
+
+
+@pytest.mark.parametrize("seed", [2, 3])
+def test_pure_noise_around_a_constant_is_no_better_than_the_mean_baseline(seed, tmp_path):
+    _, _, _, evaluation = run(tmp_path, simulated(seed=seed, signal=False), ["ols", "ridge"])
+    assert not evaluation.beats_baseline
+    verdict = evaluation.verdict
+    assert ("No model beats the mean baseline" in verdict
+            or "no better than the mean baseline" in verdict), verdict
+    if evaluation.recommended != "mean_baseline":
+        assert "may be luck" in verdict
+    for model, row in evaluation.table.set_index("model").iterrows():
+        if model != "mean_baseline":
+            assert row["against_mean"].startswith("no better than the mean baseline"), row["against_mean"]
+
+
+def reference_scales(history: pd.DataFrame, origin: str) -> dict[str, float]:
+    """In-sample MAE of the seasonal naive forecast (lag 12) per series, over months up to origin."""
+    train = history[history[PERIOD] <= pd.Period(origin, freq="M")].sort_values([SERIES, PERIOD])
+    lagged = train.groupby(SERIES)["y"].shift(12)
+    return (train["y"] - lagged).abs().groupby(train[SERIES]).mean().to_dict()
+
+
+def test_metrics_in_the_table_equal_sklearn_and_hand_formulas(tmp_path):
+    _, data, result, evaluation = run(tmp_path, simulated(seed=4, signal=True),
+                                      ["ols", "drift", "seasonal_naive", "huber"])
+    p = result.predictions
+    for origin, rows in p.groupby("origin"):
+        scales = reference_scales(data.history, origin)
+        np.testing.assert_allclose(rows["mase_scale"], rows["series"].map(scales), rtol=1e-12)
+    table = evaluation.table.set_index("model")
+    assert list(table.index)[0] == "mean_baseline"
+    assert set(table.index) == {"mean_baseline", "ols", "drift", "seasonal_naive", "huber"}
+    for model, rows in p.groupby("model"):
+        y, f = rows["actual"].to_numpy(), rows["prediction"].to_numpy()
+        error = np.abs(f - y)
+        got = table.loc[model]
+        assert got["n"] == len(y) == 12 * 3 * 3
+        assert got["mae"] == pytest.approx(mean_absolute_error(y, f), rel=1e-12)
+        assert got["rmse"] == pytest.approx(root_mean_squared_error(y, f), rel=1e-12)
+        assert got["mape"] == pytest.approx(mean_absolute_percentage_error(y, f), rel=1e-12)
+        assert got["r2"] == pytest.approx(r2_score(y, f), rel=1e-12)
+        assert got["bias"] == pytest.approx(np.mean(f - y), rel=1e-12, abs=1e-12)
+        assert got["smape"] == pytest.approx(np.mean(2 * error / (np.abs(y) + np.abs(f))), rel=1e-12)
+        assert got["wape"] == pytest.approx(error.sum() / np.abs(y).sum(), rel=1e-12)
+        assert got["mase"] == pytest.approx(np.mean(error / rows["mase_scale"].to_numpy()), rel=1e-12)
+        base = table.loc["mean_baseline", "mae"]
+        assert got["skill_vs_mean"] == pytest.approx(1 - got["mae"] / base, rel=1e-12, abs=1e-12)
+
+
+@pytest.mark.parametrize("key", ["origin", "horizon", "series"])
+def test_breakdowns_carry_skill_against_the_mean_baseline(key, tmp_path):
+    _, _, result, evaluation = run(tmp_path, simulated(seed=5, signal=True), ["ols", "last_value"])
+    table = getattr(evaluation, f"by_{key}")
+    assert {"model", key, "mae", "rmse", "smape", "wape", "mase", "r2", "bias",
+            "skill_vs_mean"} <= set(table.columns)
+    p = result.predictions
+    reference = (p.assign(abs_error=(p["prediction"] - p["actual"]).abs())
+                 .groupby(["model", key])["abs_error"].mean().unstack("model"))
+    expected_groups = {"origin": 12, "horizon": 3, "series": 3}[key]
+    assert len(reference) == expected_groups
+    assert len(table) == expected_groups * 3
+    for row in table.itertuples():
+        mae = reference.loc[getattr(row, key), row.model]
+        base = reference.loc[getattr(row, key), "mean_baseline"]
+        assert row.mae == pytest.approx(mae, rel=1e-12)
+        assert row.skill_vs_mean == pytest.approx(1 - mae / base, rel=1e-12, abs=1e-12)
+    assert (table.loc[table["model"] == "mean_baseline", "skill_vs_mean"] == 0).all()
+    if key == "horizon":
+        assert sorted(table["horizon"].unique()) == [1, 2, 3]
+
+
+def test_kfold_evaluation_has_no_horizon_breakdown_and_says_so(tmp_path):
+    _, _, _, evaluation = run(tmp_path, simulated(seed=6, signal=True), ["ols"],
+                              validation={"method": "kfold", "folds": 5, "seed": 1})
+    assert evaluation.by_horizon.empty
+    assert evaluation.table["mase"].isna().all()
+    assert any("k-fold" in note for note in evaluation.notes)
+    assert evaluation.recommended == "ols"
