@@ -37,6 +37,8 @@ def build_parser() -> argparse.ArgumentParser:
                                                 "but the problems file if asked")
     check.add_argument("spec", help="the YAML spec file")
     check.add_argument("--problems", metavar="FILE", help="also write the problems to this CSV file")
+    report = commands.add_parser("report", help="rebuild a run folder's report.html from its files")
+    report.add_argument("run_folder", help="a run folder written by castline run")
     forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json")
     forecast.add_argument("model_file", help="model.json from a run folder")
     forecast.add_argument("data_file", help="CSV, Parquet or Excel rows with the drivers filled in")
@@ -83,6 +85,7 @@ def _command_run(args) -> int:
     for note in result.evaluation.notes:
         print(f"note: {note}")
     print(f"run folder: {result.folder.path}")
+    print(f"report:     {result.folder.report}")
     print(f"summary:    {result.folder.summary}")
     return EXIT_OK
 
@@ -149,6 +152,12 @@ def _command_forecast(args) -> int:
     return EXIT_OK
 
 
+def _command_report(args) -> int:
+    from .report import build_report
+    print(f"report: {build_report(args.run_folder)}")
+    return EXIT_OK
+
+
 def _command_init(args) -> int:
     from .spec import CsvOptions
     from .starter import write_starter_spec
@@ -171,7 +180,7 @@ def _command_init(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     """Run the castline command line and return its exit code."""
     args = build_parser().parse_args(argv)
-    handlers = {"run": _command_run, "check": _command_check, "init": _command_init,
+    handlers = {"run": _command_run, "check": _command_check, "init": _command_init, "report": _command_report,
                 "forecast": _command_forecast}
     try:
         return handlers[args.command](args)

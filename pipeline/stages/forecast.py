@@ -39,6 +39,7 @@ class ForecastResult:
     influential: pd.DataFrame = field(default_factory=pd.DataFrame)
     scenarios: pd.DataFrame = field(default_factory=pd.DataFrame)
     warnings: list[str] = field(default_factory=list)
+    residuals: pd.DataFrame = field(default_factory=pd.DataFrame)  # final OLS fit, per history row
     plan: object = None               # the feature plan fitted on all history
     fitted: dict = field(default_factory=dict)   # model kind → model fitted on all history
 
@@ -101,7 +102,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     if stepwise:
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")
-    diagnostics = vif = influential = pd.DataFrame()
+    diagnostics = vif = influential = residuals = pd.DataFrame()
     fitted = {}
     for choice in spec.models:
         kind = choice.kind
@@ -140,6 +141,10 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                 fit, matrix, groups=history_design.series, order=history_design.period,
                 row_labels=_row_labels(data.history, history_design))
             diagnostics = findings_table(findings)
+            residuals = pd.DataFrame({
+                "period": pd.PeriodIndex.from_ordinals(history_design.period, freq="M").astype(str),
+                "series": history_design.series, "fitted": matrix[:, fit.kept] @ fit.coef[fit.kept],
+                "residual": fit.residuals})
             diagnostics.insert(0, "model", kind)
             summaries.append({"model": kind, "rows": len(y), "terms": len(fit.names),
                               "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
@@ -175,4 +180,4 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         fit_summary=pd.DataFrame(summaries), diagnostics=diagnostics, vif=vif,
         influential=influential,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
-        warnings=warnings, plan=plan, fitted=fitted)
+        warnings=warnings, residuals=residuals, plan=plan, fitted=fitted)

@@ -22,22 +22,13 @@ import yaml
 
 from .. import __version__
 from ..errors import UserError
+from ..report import CAUTIONS, build_report
 from ..spec import Spec
 from ..stored_model import model_document
 from .backtest import BacktestResult
-from .check import CheckedData
+from .check import PERIOD, SERIES, CheckedData
 from .evaluate import Evaluation
 from .forecast import ForecastResult
-
-CAUTIONS = [
-    "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
-    "have been, and the next months can be further off.",
-    "The models learn from the history in the input file only. A change the history does not "
-    "hold (a new product, a new competitor, a new way of pricing) is not in these numbers.",
-    "The comparison rests on the validation windows of this run; other windows can rank the "
-    "models differently, and a significance test is only as good as its assumptions "
-    "(errors comparable from one origin to the next).",
-]
 
 
 @dataclass(frozen=True)
@@ -47,6 +38,7 @@ class RunFolder:
     run_id: str
     path: Path
     summary: Path
+    report: Path
 
 
 def package_versions() -> dict[str, str]:
@@ -249,6 +241,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         metrics = {
             "run_id": run_id, "created": created, "castline_version": __version__,
             "spec_name": spec.name, "validation": resolved["validation"],
+            "validation_text": describe_validation(spec),
             "package_versions": package_versions(),
             "recommended": evaluation.recommended, "verdict": evaluation.verdict,
             "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
@@ -273,12 +266,18 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             forecast.scenarios.to_csv(staging / "scenarios.csv", index=False)
         document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
         (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
+        data.history[[PERIOD, SERIES, spec.target]].rename(
+            columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
+            period=lambda t: t["period"].astype(str)).to_csv(staging / "history.csv", index=False)
+        forecast.residuals.to_csv(staging / "residuals.csv", index=False)
         (staging / "summary.md").write_text(
             render_summary(spec, run_id, created, data_print, evaluation, forecast),
             encoding="utf-8")
+        build_report(staging)
         final = folder / run_id
         os.rename(staging, final)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
-    return RunFolder(run_id=run_id, path=final, summary=final / "summary.md")
+    return RunFolder(run_id=run_id, path=final, summary=final / "summary.md",
+                     report=final / "report.html")

@@ -1,0 +1,211 @@
+"""The report's pictures: matplotlib, non-interactive, deterministic, colour-blind-safe.
+
+Each function returns a Figure value: PNG bytes as a data URI plus the text
+that stands in for the picture for a reader who cannot see it.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+from dataclasses import dataclass
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.dates as mdates  # noqa: E402
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import scipy.stats  # noqa: E402
+
+# Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
+PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
+BASELINE_COLOUR = "#7F7F7F"
+MAX_PANELS = 6
+
+plt.rcParams.update({
+    "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
+    "axes.grid": True, "grid.color": "#DDDDDD", "grid.linewidth": 0.6,
+    "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline",
+})
+
+
+@dataclass(frozen=True)
+class Figure:
+    """A picture for the report and its text alternative."""
+
+    uri: str
+    alt: str
+
+
+def _colours(models: list[str]) -> dict[str, str]:
+    others = [m for m in models if m != "mean_baseline"]
+    colours = {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(others)}
+    colours["mean_baseline"] = BASELINE_COLOUR
+    return colours
+
+
+def _finish(figure, alt: str) -> Figure:
+    buffer = io.BytesIO()
+    figure.tight_layout()
+    # No timestamp or software tag in the file, so the same run draws the same bytes.
+    figure.savefig(buffer, format="png", metadata={"Software": None})
+    plt.close(figure)
+    return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
+
+
+def _date_axis(axis) -> None:
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
+    axis.xaxis.set_major_locator(locator)
+    axis.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+
+
+def _months(values) -> pd.DatetimeIndex:
+    return pd.PeriodIndex(values, freq="M").to_timestamp()
+
+
+def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure:
+    """Actuals and each model's out-of-sample predictions, summed over series; origins marked."""
+    actual = history.groupby("period")["actual"].sum().sort_index()
+    figure, axis = plt.subplots(figsize=(8, 3.4))
+    axis.plot(_months(actual.index), actual.to_numpy(), color="#000000", linewidth=1.2, label="actual")
+    models = list(dict.fromkeys(predictions["model"]))
+    colours = _colours(models)
+    for model in models:
+        own = predictions[predictions["model"] == model]
+        # With overlapping origins, show each month's prediction from its nearest origin.
+        nearest = own.sort_values("horizon").drop_duplicates(["period", "series"])
+        total = nearest.groupby("period")["prediction"].sum().sort_index()
+        axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
+                  marker=".", markersize=3, linewidth=1, color=colours[model], label=model)
+    origins = [o for o in dict.fromkeys(predictions["origin"]) if str(o)[:4].isdigit()]
+    for origin in origins[-24:]:
+        axis.axvline(_months([origin])[0], color="#BBBBBB", linewidth=0.6, linestyle=":")
+    axis.set_ylabel("target, all series")
+    _date_axis(axis)
+    axis.legend(loc="upper left", fontsize=7, ncol=3, frameon=False)
+    alt = (f"Line chart of the actual target summed over all series from {actual.index.min()} to "
+           f"{actual.index.max()}, with the out-of-sample predictions of {', '.join(models)} over "
+           f"the scored months; {len(origins)} forecast origins are marked by dotted vertical lines.")
+    return _finish(figure, alt)
+
+
+def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
+    """MAE per model at each origin or horizon."""
+    figure, axis = plt.subplots(figsize=(8, 2.8))
+    models = list(dict.fromkeys(table["model"]))
+    colours = _colours(models)
+    for model in models:
+        own = table[table["model"] == model]
+        positions = np.arange(len(own))
+        axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
+                  color=colours[model], label=model)
+        axis.set_xticks(positions)
+        axis.set_xticklabels([str(v) for v in own[key]], rotation=45 if len(own) > 8 else 0,
+                             fontsize=7, ha="right" if len(own) > 8 else "center")
+    axis.set_xlabel(label)
+    axis.set_ylabel("MAE")
+    axis.legend(fontsize=7, frameon=False, ncol=3)
+    worst = table.loc[table["mae"].idxmax()] if len(table) else None
+    alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
+           + (f"The largest error is {worst['mae']:.4g} ({worst['model']}, {label} {worst[key]})."
+              if worst is not None else ""))
+    return _finish(figure, alt)
+
+
+def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, method: str,
+                     scenarios: pd.DataFrame | None) -> Figure:
+    """History and the forecast with 80% and 95% intervals, one panel per series."""
+    own = forecast[forecast["model"] == model]
+    series = list(dict.fromkeys(own["series"])) or list(dict.fromkeys(history["series"]))
+    if len(series) > MAX_PANELS:
+        size = history.groupby("series")["actual"].mean().sort_values(ascending=False)
+        series = [s for s in size.index if s in set(series)][:MAX_PANELS]
+    columns = min(2, len(series)) or 1
+    rows = int(np.ceil(len(series) / columns)) or 1
+    figure, axes = plt.subplots(rows, columns, figsize=(8, 2.4 * rows), squeeze=False)
+    for index, name in enumerate(series):
+        axis = axes[index // columns][index % columns]
+        past = history[history["series"] == name].sort_values("period").tail(36)
+        axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1, label="actual")
+        ahead = own[own["series"] == name].sort_values("period")
+        if len(ahead):
+            months = _months(ahead["period"])
+            for level, shade in (("95", 0.18), ("80", 0.32)):
+                low, high = ahead.get(f"{method}_low_{level}"), ahead.get(f"{method}_high_{level}")
+                if low is not None and low.notna().any():
+                    axis.fill_between(months, low, high, color=PALETTE[0], alpha=shade, linewidth=0,
+                                      label=f"{level}% interval")
+            axis.plot(months, ahead["forecast"], color=PALETTE[0], marker="o", markersize=3,
+                      linewidth=1.2, label="forecast")
+            if scenarios is not None and len(scenarios):
+                for number, (scenario, rows_) in enumerate(scenarios[(scenarios["model"] == model)
+                                                                     & (scenarios["series"] == name)]
+                                                           .groupby("scenario", sort=False)):
+                    rows_ = rows_.sort_values("period")
+                    axis.plot(_months(rows_["period"]), rows_["scenario_forecast"], linestyle="--",
+                              linewidth=1, color=PALETTE[(number + 1) % len(PALETTE)], label=scenario)
+        axis.set_title(str(name), fontsize=8)
+        _date_axis(axis)
+        if index == 0:
+            axis.legend(fontsize=6, frameon=False, loc="upper left")
+    for index in range(len(series), rows * columns):
+        axes[index // columns][index % columns].axis("off")
+    alt = (f"{len(series)} small line charts, one per series ({', '.join(map(str, series))}): the last "
+           f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
+           f"ahead with shaded 80% and 95% {method} intervals"
+           + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else "."))
+    return _finish(figure, alt)
+
+
+def coefficient_picture(terms: pd.DataFrame) -> Figure:
+    """Each driver's estimate with its 95% interval (the intercept left out)."""
+    shown = terms[terms["term"] != "intercept"].dropna(subset=["estimate"])
+    figure, axis = plt.subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
+    positions = np.arange(len(shown))[::-1]
+    has_interval = {"low_95", "high_95"} <= set(shown.columns) and shown["low_95"].notna().any()
+    if has_interval:
+        axis.errorbar(shown["estimate"], positions,
+                      xerr=[shown["estimate"] - shown["low_95"], shown["high_95"] - shown["estimate"]],
+                      fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
+    else:
+        axis.plot(shown["estimate"], positions, "o", color=PALETTE[0], markersize=3)
+    axis.axvline(0, color="#000000", linewidth=0.8)
+    axis.set_yticks(positions)
+    axis.set_yticklabels(shown["term"], fontsize=7)
+    axis.set_xlabel("effect on the target per unit of the driver" + (" (95% interval)" if has_interval else ""))
+    crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
+    alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
+           + (f"; {crossing} of the intervals include zero." if has_interval else "."))
+    return _finish(figure, alt)
+
+
+def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
+    """Residuals over time, against fitted values, and against the normal quantiles."""
+    pictures = []
+    by_month = residuals.groupby("period")["residual"].mean().sort_index()
+    figure, axis = plt.subplots(figsize=(8, 2.6))
+    axis.plot(_months(by_month.index), by_month.to_numpy(), color=PALETTE[0], linewidth=1)
+    axis.axhline(0, color="#000000", linewidth=0.8)
+    axis.set_ylabel("residual (mean over series)")
+    _date_axis(axis)
+    pictures.append(_finish(figure, "Line chart of the final fit's residuals over time, averaged "
+                            "over series; a pattern or drift means the model misses something."))
+    figure, axis = plt.subplots(figsize=(4, 3))
+    axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
+    axis.axhline(0, color="#000000", linewidth=0.8)
+    axis.set_xlabel("fitted value")
+    axis.set_ylabel("residual")
+    pictures.append(_finish(figure, "Scatter of residuals against fitted values; a funnel shape "
+                            "means the spread changes with the level."))
+    figure, axis = plt.subplots(figsize=(4, 3))
+    (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
+    axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
+    axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)
+    axis.set_xlabel("normal quantile")
+    axis.set_ylabel("ordered residual")
+    pictures.append(_finish(figure, "Normal quantile plot of the residuals; points off the line "
+                            "in the tails mean larger surprises than a normal curve allows."))
+    return pictures

@@ -1,0 +1,179 @@
+"""The HTML report: opened in a real browser, escaped, and faithful to metrics.json.
+
+The browser is Debian's headless Chromium driven by Selenium (.ci/run installs
+chromium and chromium-driver when absent). The data are the invented demo (a
+plumbing test), plus a copy whose region names are markup.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import shutil
+import subprocess
+import sys
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+
+import pipeline
+from pipeline.report import build_report
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "configs" / "compost_demo.yaml"
+SECTIONS = ["answer", "comparison", "backtest", "forecast", "drivers", "residuals", "data", "run",
+            "cautions"]
+HOSTILE = "<script>alert(1)</script>"
+CHROMIUM, CHROMEDRIVER = shutil.which("chromium"), shutil.which("chromedriver")
+
+
+@pytest.fixture(scope="module")
+def run_folder(tmp_path_factory) -> Path:
+    return pipeline.run(DEMO, output_folder=tmp_path_factory.mktemp("runs")).folder.path
+
+
+class _Cells(HTMLParser):
+    """Collect, per table id, the rows of data-value attributes and texts."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: dict[str, list[list[tuple[str | None, str]]]] = {}
+        self.scripts = 0
+        self._table: str | None = None
+        self._row: list | None = None
+        self._cell: list | None = None
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        if tag == "script":
+            self.scripts += 1
+        if tag == "table":
+            self._table = attrs.get("id") or f"table{len(self.tables)}"
+            self.tables[self._table] = []
+        elif tag == "tr" and self._table:
+            self._row = []
+        elif tag == "td" and self._row is not None:
+            self._cell = [attrs.get("data-value"), ""]
+
+    def handle_data(self, data):
+        if self._cell is not None:
+            self._cell[1] += data
+
+    def handle_endtag(self, tag):
+        if tag == "td" and self._cell is not None:
+            self._row.append(tuple(self._cell))
+            self._cell = None
+        elif tag == "tr" and self._row is not None:
+            if self._row:
+                self.tables[self._table].append(self._row)
+            self._row = None
+        elif tag == "table":
+            self._table = None
+
+
+def test_the_comparison_table_holds_the_numbers_of_metrics_json(run_folder):
+    html = (run_folder / "report.html").read_text(encoding="utf-8")
+    metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
+    cells = _Cells()
+    cells.feed(html)
+    rows = cells.tables["comparison-table"]
+    header = re.search(r'<table id="comparison-table">\s*<thead><tr>(.*?)</tr>', html, re.S).group(1)
+    columns = re.findall(r"<th[^>]*>(.*?)</th>", header)
+    assert [row[0][1] for row in rows] == [m["model"] for m in metrics["models"]]
+    assert rows[0][0][1] == "mean_baseline"
+    for row, model in zip(rows, metrics["models"]):
+        for column, (value, _) in zip(columns, row):
+            if column in ("model", "against_mean"):
+                continue
+            expected = model[column]
+            if expected is None or (isinstance(expected, float) and math.isnan(expected)):
+                assert value in ("", "None", "nan")
+            else:
+                assert float(value) == expected, (model["model"], column)
+
+
+def test_the_answer_states_the_verdict_skill_and_p_value(run_folder):
+    html = (run_folder / "report.html").read_text(encoding="utf-8")
+    metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
+    answer = html[html.index('<section id="answer">'):html.index('<section id="comparison">')]
+    assert metrics["verdict"].replace("'", "&#39;") in answer
+    chosen = next(m for m in metrics["models"] if m["model"] == metrics["recommended"])
+    assert f'data-value="{chosen["skill_vs_mean"]}"' in answer
+    assert f'data-value="{chosen["p_value"]}"' in answer
+
+
+def test_the_report_is_rebuilt_from_the_folder_alone(run_folder, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(run_folder, copy)
+    (copy / "report.html").unlink()
+    done = subprocess.run([sys.executable, "-m", "pipeline", "report", str(copy)],
+                          capture_output=True, text=True, cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert (copy / "report.html").read_text(encoding="utf-8") == \
+        (run_folder / "report.html").read_text(encoding="utf-8")
+
+
+def test_report_on_a_folder_that_is_not_a_run_exits_2(tmp_path):
+    done = subprocess.run([sys.executable, "-m", "pipeline", "report", str(tmp_path)],
+                          capture_output=True, text=True, cwd=tmp_path)
+    assert done.returncode == 2
+    assert done.stderr.startswith("castline: ") and len(done.stderr.strip().splitlines()) == 1
+
+
+def test_the_page_forbids_every_request_but_inline_pictures(run_folder):
+    html = (run_folder / "report.html").read_text(encoding="utf-8")
+    assert "default-src 'none'; img-src data:" in html
+    assert not re.search(r'(src|href)="(?!data:)', html)
+
+
+def test_markup_in_the_data_appears_as_text(tmp_path):
+    data = (ROOT / "data_samples" / "compost_sales.csv").read_text(encoding="utf-8")
+    (tmp_path / "hostile.csv").write_text(data.replace(",South,", f",{HOSTILE},"), encoding="utf-8")
+    spec = DEMO.read_text(encoding="utf-8").replace("../data_samples/compost_sales.csv", "hostile.csv")
+    (tmp_path / "spec.yaml").write_text(spec, encoding="utf-8")
+    folder = pipeline.run(tmp_path / "spec.yaml", output_folder=tmp_path / "runs").folder.path
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert HOSTILE not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    cells = _Cells()
+    cells.feed(html)
+    assert cells.scripts == 0
+
+
+@pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), reason="needs Debian's chromium and chromium-driver")
+def test_the_report_opens_in_a_browser_with_every_section_and_image_and_no_request(run_folder, tmp_path):
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                 "--disable-dev-shm-usage", f"--user-data-dir={tmp_path / 'profile'}"):
+        options.add_argument(flag)
+    options.set_capability("goog:loggingPrefs", {"performance": "ALL"})
+    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
+    try:
+        driver.get_log("performance")   # drop what the browser's start page asked for
+        driver.get((run_folder / "report.html").as_uri())
+        present = driver.execute_script(
+            "return Array.from(document.querySelectorAll('section')).map(s => s.id);")
+        assert present == SECTIONS
+        images = driver.execute_script(
+            "return Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.alt.length]);")
+        assert images and all(done and width > 0 and alt > 20 for done, width, alt in images)
+        requests = [json.loads(entry["message"])["message"] for entry in driver.get_log("performance")]
+        urls = [m["params"]["request"]["url"] for m in requests if m["method"] == "Network.requestWillBeSent"]
+        # chrome:// URLs are the browser's own pages (its start page), not the network.
+        assert any(url.startswith("file://") for url in urls), urls
+        network = [url for url in urls
+                   if not url.startswith(("file://", "data:", "chrome://", "chrome-untrusted://"))]
+        assert network == []
+        # The page's own record of every resource it fetched (data: URIs are not fetched).
+        fetched = driver.execute_script(
+            "return performance.getEntriesByType('resource').map(e => e.name);")
+        assert [name for name in fetched if not name.startswith(("file:", "data:"))] == []
+    finally:
+        driver.quit()
