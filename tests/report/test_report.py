@@ -19,7 +19,6 @@ from pathlib import Path
 import pytest
 
 import pipeline
-from pipeline.report import build_report
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "configs" / "compost_demo.yaml"
