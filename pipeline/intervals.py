@@ -59,7 +59,8 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
     """Return, per model, method and level, the share of backtest actuals inside the interval.
 
     Analytic intervals use each origin's own fit. Empirical intervals at an
-    origin use only the errors of earlier origins, as a live run would.
+    origin use only the errors of earlier origins for months already past at
+    that origin, as a live run would.
     """
     rows = []
     for model, own in predictions.groupby("model", sort=False):
@@ -73,8 +74,11 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
                              "coverage": float(inside.mean()), "n": len(with_se)})
             inside_count, scored = 0, 0
             origins = sorted(own["origin"].unique())
+            time_ordered = all(str(o)[:4].isdigit() for o in origins)
             for index, origin in enumerate(origins):
                 earlier = own[own["origin"].isin(origins[:index])]
+                if time_ordered:  # only errors of months already past at this origin
+                    earlier = earlier[earlier["period"].astype(str) <= str(origin)]
                 if len(earlier) < MIN_ERRORS:
                     continue
                 errors = pd.DataFrame({"horizon": earlier["horizon"],

@@ -328,6 +328,20 @@ class DriverChange(StrictModel):
     where: dict[str, str | float | list[str | float]] = Field(
         default_factory=dict, description="only rows whose columns hold these values")
 
+    @field_validator("where", mode="before")
+    @classmethod
+    def _levels_as_text(cls, value: Any) -> Any:
+        # Levels are compared as text: 102 written bare must match the level '102'.
+        def text(item):
+            if isinstance(item, bool):
+                return str(item)
+            if isinstance(item, float) and item.is_integer():
+                return str(int(item))
+            return str(item) if isinstance(item, (int, float)) else item
+        if isinstance(value, dict):
+            return {k: [text(i) for i in v] if isinstance(v, list) else text(v) for k, v in value.items()}
+        return value
+
     @model_validator(mode="after")
     def _one_change(self) -> DriverChange:
         given = [k for k in ("set", "add", "percent") if getattr(self, k) is not None]

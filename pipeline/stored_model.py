@@ -117,7 +117,8 @@ def decode(value: Any, parts: list | None = None) -> Any:
     if "__settings__" in value:
         from . import spec as spec_module
         cls = getattr(spec_module, str(value.get("class")), None)
-        if not (isinstance(cls, type) and issubclass(cls, BaseModel)):
+        if not (isinstance(cls, type) and issubclass(cls, spec_module.StrictModel)
+                and cls is not spec_module.StrictModel):
             raise ModelFileError(f"unknown settings class {value.get('class')!r}")
         return cls.model_validate(value["__settings__"])
     raise ModelFileError(f"unexpected value {sorted(value)!r}")
@@ -143,7 +144,9 @@ def _rebuild(entry: dict, allowed: dict[str, type], parts: list | None = None):
         raise ModelFileError(f"class {name!r} is not one castline stores")
     obj = allowed[name].__new__(allowed[name])
     for attribute, value in entry["state"].items():
-        if not attribute.isidentifier() or attribute.startswith("__"):
+        if not attribute.isidentifier() or attribute.startswith("__") or \
+                callable(getattr(allowed[name], attribute, None)) or \
+                isinstance(getattr(allowed[name], attribute, None), property):
             raise ModelFileError(f"bad attribute name {attribute!r}")
         setattr(obj, attribute, decode(value, parts))
     return obj
@@ -166,7 +169,10 @@ class StoredLinear:
     def predict(self, design) -> np.ndarray:
         # The same arithmetic as the run's own OLS prediction, so the numbers agree exactly.
         matrix = np.column_stack([np.ones(len(design.matrix)), design.matrix])
-        predicted = matrix @ np.concatenate([[self.intercept_], self.coef_])
+        if matrix.shape[1] != len(self.coef_) + 1:
+            raise ModelFileError(f"the model has {len(self.coef_)} coefficients for "
+                                 f"{matrix.shape[1] - 1} features")
+        predicted = (matrix * np.concatenate([[self.intercept_], self.coef_])).sum(axis=1)
         return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 
@@ -234,10 +240,11 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
 class StoredModel:
     """A run's fitted feature plan and models, loaded from JSON, ready to forecast."""
 
-    def __init__(self, document: _Envelope, plan, models: dict) -> None:
+    def __init__(self, document: _Envelope, plan, models: dict, path: Path | None = None) -> None:
         self.document = document
         self.plan = plan
         self.models = models
+        self.path = path
 
     def prepare(self, frame: pd.DataFrame, file: str = "") -> pd.DataFrame:
         """Return the rows with the month, series and row columns the plan expects."""
@@ -262,15 +269,25 @@ class StoredModel:
             design = self.plan.transform(prepared)
         except KeyError as exc:
             raise DataError(f"the file lacks a driver column the model needs: {exc}", file=file) from None
+        except (AttributeError, TypeError, ValueError, IndexError) as exc:
+            raise ModelFileError(f"{self.path}: the model file is damaged: its feature plan cannot "
+                                 f"be applied ({type(exc).__name__}: {exc})") from None
         kinds = [model] if model else list(self.models)
         out = []
         for kind in kinds:
             if kind not in self.models:
                 raise UserError(f"the model file holds no model '{kind}' (it holds: "
                                 f"{', '.join(self.models)})")
+            try:
+                values = self.models[kind].predict(design)
+            except ModelFileError as exc:
+                raise ModelFileError(f"{self.path}: the model file is damaged: {exc}") from None
+            except (AttributeError, TypeError, ValueError, KeyError, IndexError) as exc:
+                raise ModelFileError(f"{self.path}: the model file is damaged: model '{kind}' cannot "
+                                     f"predict ({type(exc).__name__}: {exc})") from None
             out.append(pd.DataFrame({"period": prepared[PERIOD].astype(str).to_numpy(),
                                      "series": prepared[SERIES].to_numpy(), "model": kind,
-                                     "forecast": self.models[kind].predict(design)}))
+                                     "forecast": values}))
         return pd.concat(out, ignore_index=True)
 
 
@@ -294,6 +311,8 @@ def load_model(path: str | Path) -> StoredModel:
     try:
         transformers = _allowed_classes(features)
         plan_entry = document.plan
+        if plan_entry.get("class") != "FeaturePlan":
+            raise ModelFileError("the plan is not a feature plan")
         parts = [_rebuild(part, transformers) for part in plan_entry.get("parts", [])]
         plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
                         transformers, parts)
@@ -318,4 +337,4 @@ def load_model(path: str | Path) -> StoredModel:
         raise ModelFileError(f"{path}: {exc}") from None
     except (KeyError, TypeError, ValueError, AttributeError) as exc:
         raise ModelFileError(f"{path}: damaged model file ({type(exc).__name__}: {exc})") from None
-    return StoredModel(document, plan, models)
+    return StoredModel(document, plan, models, path)

@@ -8,10 +8,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import pandas as pd
-import pytest
 
 import pipeline
-from pipeline.errors import SpecError
 
 DEMO_DATA = Path(__file__).resolve().parents[1] / "data_samples" / "compost_sales.csv"
 
@@ -76,12 +74,11 @@ def test_a_log_target_run_says_it_applied_the_smearing_correction(tmp_path):
     assert ols.notna().all() and (ols > 0).all()
 
 
-def test_a_lag_of_the_target_shorter_than_the_holdout_stops_at_its_line(tmp_path):
+def test_a_lag_of_the_target_shorter_than_the_holdout_uses_the_multi_step_strategy(tmp_path):
+    """A 3-month lag with 12 months held out: the direct strategy (the default) fits one
+    model per horizon with only the lags known at the origin, and says so."""
     path = write(tmp_path, transform="none", lag=3)
-    with pytest.raises(SpecError) as stopped:
-        pipeline.run(path)
-    line = next(n for n, text in enumerate(path.read_text().splitlines(), 1) if "lags: [3]" in text)
-    assert str(stopped.value).startswith(f"{path}:{line}: drivers.lags[0].lags[0]: "
-                                         "'bags_sold, 3 months earlier' reaches past the forecast "
-                                         "origin (2025-10)")
-    assert not (tmp_path / "runs").exists() or not any((tmp_path / "runs").iterdir())
+    result = pipeline.run(path)
+    assert any("direct strategy (multi_step)" in note for note in result.evaluation.notes)
+    ols = result.predictions[result.predictions["model"] == "ols"]
+    assert ols["prediction"].notna().all() and set(ols["horizon"]) == set(range(1, 13))

@@ -212,7 +212,11 @@ def _recorded(monkeypatch, predictions: pd.DataFrame) -> tuple[list[pd.DataFrame
     monkeypatch.setattr(intervals, "empirical_bounds", recorder)
     coverage(predictions)
     origins = sorted(predictions["origin"].unique())
-    scored = [o for i, o in enumerate(origins) if 3 * i >= MIN_ERRORS]   # 3 rows per origin
+    # An origin is scored once the earlier origins' errors for months already past number
+    # at least MIN_ERRORS.
+    scored = [o for i, o in enumerate(origins)
+              if ((predictions["origin"].isin(origins[:i])) & (predictions["period"] <= o)).sum()
+              >= MIN_ERRORS]
     assert len(recorder.calls) == 2 * len(scored)                        # one per origin and level
     return recorder.calls, [o for _ in intervals.LEVELS for o in scored]   # level by level
 
@@ -223,14 +227,11 @@ def test_an_empirical_interval_at_an_origin_only_uses_errors_of_earlier_origins(
     origins = sorted(predictions["origin"].unique())
     for used, origin in zip(calls, scored):
         assert (used["origin"] < origin).all()
-        assert len(used) == 3 * origins.index(origin)              # every earlier origin, all horizons
+        earlier = predictions[predictions["origin"].isin(origins[:origins.index(origin)])]
+        # every earlier origin's error for a month already past at this origin
+        assert len(used) == int((earlier["period"] <= origin).sum())
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "coverage() lets an origin use the errors of every earlier origin at every horizon, so an "
-    "earlier origin's 2- and 3-month-ahead errors concern months after the current origin: "
-    "actuals a live run at that origin could not yet know (the docstring promises 'as a live "
-    "run would')"))
 def test_an_empirical_interval_only_uses_errors_whose_month_was_known_at_the_origin(monkeypatch):
     predictions = _rolling_predictions()
     calls, scored = _recorded(monkeypatch, predictions)

@@ -120,11 +120,6 @@ def test_the_loaded_model_forecasts_exactly_what_the_run_wrote(which, runs):
             np.testing.assert_allclose(mine, in_memory, rtol=1e-12, atol=0, err_msg=kind)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "OLS forecasts are bit for bit only when the rows come in the run's order (by month, then "
-    "series): StoredLinear.predict and OLSModel.predict both compute matrix @ coefficients, and "
-    "the BLAS product's rounding of a row depends on where the row sits in the matrix, so the "
-    "same rows in file order (or any other order) differ from forecast.csv in the last bit"))
 def test_the_loaded_ols_forecast_is_bit_for_bit_whatever_the_order_of_the_rows(runs):
     result = runs["calendar"]
     stored = load_model(result.folder.path / "model.json")
@@ -393,9 +388,7 @@ def test_load_model_raises_model_file_error_naming_the_file(calendar_document, t
         load_model(path)
 
 
-@pytest.mark.parametrize("case", [
-    pytest.param(name, marks=pytest.mark.xfail(strict=True, reason=reason))
-    for name, (_, reason) in sorted(DAMAGED.items())])
+@pytest.mark.parametrize("case", sorted(DAMAGED))
 def test_a_damaged_file_stops_with_exit_2_not_an_internal_error(case, calendar_document, new_rows,
                                                                tmp_path, capsys, no_code_runs):
     change, _ = DAMAGED[case]

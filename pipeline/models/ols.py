@@ -201,7 +201,8 @@ class OLSModel:
         return self
 
     def predict(self, design) -> np.ndarray:
-        return self._with_intercept(design.matrix) @ self.coef_
+        # Row by row, so a row's prediction does not depend on the rows beside it.
+        return (self._with_intercept(design.matrix) * self.coef_).sum(axis=1)
 
     def prediction_se(self, design) -> np.ndarray:
         """Return the standard error of a new observation's prediction, s·sqrt(1 + x'(X'X)⁻¹x)."""

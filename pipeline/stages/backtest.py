@@ -292,6 +292,11 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         furthest = int((split.test[PERIOD].array.asi8 - split.origin.ordinal).max()) \
             if split.origin is not None and len(split.test) else 0
         stepwise = needs_strategy(spec, furthest)
+        strategy_note = (f"the backtest predicts up to {furthest} months ahead but a lag of the "
+                         f"target is shorter: the linear models use the {spec.multi_step} strategy "
+                         "(multi_step)")
+        if stepwise and strategy_note not in notes:
+            notes.append(strategy_note)
         for choice in spec.models:
             se = df_resid = None
             if choice.kind == "ols" and split.label in fast_ols:

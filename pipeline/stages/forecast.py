@@ -52,6 +52,10 @@ def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
         for column, wanted in change.where.items():
             options = wanted if isinstance(wanted, list) else [wanted]
             mask &= changed[column].astype(str).isin([str(o) for o in options])
+        if not mask.any():
+            raise DataError(f"scenario '{scenario.name}': no month to forecast has "
+                            + " and ".join(f"{c} = {v}" for c, v in change.where.items())
+                            + f", so the change to {change.column} changes nothing")
         if change.set is not None:
             changed.loc[mask, change.column] = change.set
         elif change.add is not None:
@@ -157,6 +161,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                 terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
         terms.insert(0, "model", kind)
         coefficients.append(terms)
+    if id(future) in designs:  # what the features did to the months to forecast
+        warnings += [note for note in designs[id(future)].notes if note not in warnings]
     for scenario in spec.scenarios:
         if not len(future):
             raise spec.error(("scenarios",), "scenarios need months to forecast, and the input has none")

@@ -413,11 +413,6 @@ def test_a_scenario_where_selects_rows_by_a_text_level(tmp_path):
     np.testing.assert_allclose(changed.loc[moved, "shelf_price"], future.loc[moved, "shelf_price"] - 1)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "a `where` level written as a bare number in YAML (region: 102, for series named by number) "
-    "is read as the float 102.0 and compared as the text '102.0' with the column's '102', so the "
-    "scenario silently changes no row; quoted ('102') it works. Other level keys (reference, "
-    "order) turn numbers into text with _as_text; DriverChange.where does not"))
 def test_a_scenario_where_on_a_level_written_as_a_number_selects_its_rows(tmp_path):
     frame = simulate(3)
     frame["region"] = frame["region"].map({"North": 101, "South": 102})
