@@ -161,9 +161,14 @@ def _command_report(args) -> int:
 def _command_init(args) -> int:
     from .spec import CsvOptions
     from .starter import write_starter_spec
+    given = args.delimiter or args.decimal != "." or args.thousands or args.encoding != "utf-8"
     try:
-        csv = CsvOptions(delimiter=args.delimiter, decimal=args.decimal, thousands=args.thousands,
-                         encoding=args.encoding) if args.delimiter else None
+        csv = None
+        if given:
+            from .starter import sniff_delimiter
+            delimiter = args.delimiter or sniff_delimiter(Path(args.data_file))
+            csv = CsvOptions(delimiter=delimiter, decimal=args.decimal, thousands=args.thousands,
+                             encoding=args.encoding)
     except ValueError as exc:
         raise UserError(f"the CSV options are inconsistent: {exc.errors()[0]['msg']}") from None
     sheet = int(args.sheet) if str(args.sheet).isdigit() else args.sheet

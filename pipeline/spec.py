@@ -549,6 +549,9 @@ def _section_class(path: KeyPath) -> type[BaseModel] | None:
             args = typing.get_args(current)
             current = args[0] if args else None
             continue
+        if typing.get_origin(current) is dict:   # a mapping of names (columns) to sections
+            current = typing.get_args(current)[1]
+            continue
         if not (isinstance(current, type) and issubclass(current, BaseModel)):
             return None
         field = current.model_fields.get(part)
@@ -756,6 +759,16 @@ _TYPES_FOR_ROLE = {
     "a series column": ("category", "text", "whole_number"),
     "a grouping column": ("category", "text", "whole_number", "date"),
 }
+
+
+def text_columns(spec: Spec) -> list[str]:
+    """Return the columns read as text (levels, keys): '1' stays '1', never 1.0."""
+    roles = column_roles(spec)
+    chosen = [c for c, role in roles.items()
+              if role in ("a categorical driver", "a series column", "a grouping column")
+              and (c not in spec.columns or spec.columns[c].type in ("category", "text"))]
+    chosen += [c for c, rule in spec.columns.items() if rule.type in ("category", "text") and c not in chosen]
+    return chosen
 
 
 def column_roles(spec: Spec) -> dict[str, str]:

@@ -56,7 +56,7 @@ def guess_format(path: Path) -> str:
     return "excel" if suffix in (".xlsx", ".xlsm") else "csv"
 
 
-def _sniff_delimiter(path: Path) -> str:
+def sniff_delimiter(path: Path) -> str:
     with path.open("rb") as handle:
         sample = handle.read(16384).decode("utf-8", errors="replace")
     try:
@@ -113,7 +113,7 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     """Return what the spec for a data file would most likely say."""
     file_format = guess_format(path)
     if csv is None and file_format == "csv":
-        csv = CsvOptions(delimiter=_sniff_delimiter(path))
+        csv = CsvOptions(delimiter=sniff_delimiter(path))
     csv = csv or CsvOptions()
     frame = read_table(path, file_format, csv, sheet)
     frame = frame.dropna(how="all")
@@ -211,7 +211,10 @@ def render_spec(found: Inference, spec_path: Path) -> str:
         f"  file: {_yaml_value(data_file)}",
     ]
     if found.file_format == "csv" and found.csv != CsvOptions():
-        lines += ["  csv:", f"    delimiter: {_yaml_value(found.csv.delimiter)}"]
+        lines.append("  csv:")
+        for key, value in found.csv.model_dump().items():
+            if value != getattr(CsvOptions(), key):
+                lines.append(f"    {key}: {_yaml_value(value)}")
     lines += [
         f"  date_column: {_yaml_value(found.date_column)}",
         f"  period: month{'' if found.frequency == 'month' else '   # the dates look ' + found.frequency + 'ly: aggregate to months first'}",

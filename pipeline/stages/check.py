@@ -185,13 +185,27 @@ def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput) -> list[Proble
         located = group.dropna(subset=["index"]).sort_values("index")
         first = located.iloc[0] if len(located) else group.iloc[0]
         row = raw.location(first["index"]) if len(located) else None
-        problems.append(Problem(_check_words(check), str(column), row,
-                                _show(first["failure_case"]), count=len(group)))
+        value, count = _show(first["failure_case"]), len(group)
+        if row is None and column in raw.frame.columns and "datetime" in check:
+            row, value, count = _first_unparsed_date(raw, str(column))
+        problems.append(Problem(_check_words(check), str(column), row, value, count=count))
     return problems
 
 
+def _first_unparsed_date(raw: RawInput, column: str) -> tuple[int | None, str, int]:
+    """Return the row, value and count of the dates not written like the column's first one."""
+    values = raw.frame[column]
+    parsed = pd.to_datetime(values, errors="coerce")   # the format of the first date, for all
+    bad = parsed.isna() & values.notna()
+    if not bad.any():
+        return None, "(a value that is not a date)", 1
+    index = int(np.flatnonzero(bad.to_numpy())[0])
+    return raw.location(index), (f"{values.iloc[index]!r} (not written like the first date, "
+                                 f"{values.dropna().iloc[0]!r})"), int(bad.sum())
+
+
 def _show(value) -> str:
-    if value is None or (isinstance(value, float) and np.isnan(value)):
+    if value is None or (not isinstance(value, str) and pd.isna(value)) or value in ("NaT", "nan"):
         return "(empty)"
     return repr(value) if isinstance(value, str) else str(value)
 
@@ -344,8 +358,10 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
     for driver in spec.drivers.categorical:
         if getattr(driver, "unseen", "stop") != "stop":
             continue
-        known = set(frame.loc[~future, driver.column].dropna().astype(str))
-        new_level = future & frame[driver.column].notna() & ~frame[driver.column].astype(str).isin(known)
+        known = set(map(str, frame.loc[~future, driver.column].dropna().unique()))
+        future_levels = frame.loc[future, driver.column]
+        new_level = pd.Series(False, index=frame.index)
+        new_level[future] = future_levels.notna() & ~future_levels.astype(str).isin(known)
         if new_level.any():
             row = _first(frame, new_level)
             problems.append(Problem("level not seen in history", driver.column, _row(row),
@@ -429,7 +445,9 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, today) ->
         if rule.type == "date":
             frame[column] = pd.to_datetime(values, errors="coerce", format="mixed")
         elif rule.type in ("number", "whole_number"):
-            frame[column] = pd.to_numeric(values, errors="coerce")
+            numbers = pd.to_numeric(values, errors="coerce")
+            # A cell that is there but not a number is reported as such, not as missing.
+            frame[column] = numbers.mask(numbers.isna() & values.notna(), 0.0)
         else:
             frame[column] = values
     readable = frame[spec.input.date_column].notna()
@@ -442,7 +460,9 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, today) ->
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = frame.index.to_numpy() + raw.first_row_number
     problems = _duplicates(frame, spec)
-    gaps = missing_months(frame)
+    # A row whose date cannot be read is left out here; its month is not missing.
+    dates_readable = not any(p.column == spec.input.date_column for p in found)
+    gaps = missing_months(frame) if dates_readable else pd.DataFrame()
     if len(gaps) and spec.input.gaps == "refuse":
         problems.append(_gap_problem(gaps, spec, "month missing"))
     if spec.input.gaps == "refuse":

@@ -6,10 +6,11 @@ import hashlib
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ..errors import DataError
-from ..spec import CsvOptions, Spec
+from ..spec import CsvOptions, Spec, text_columns
 
 
 @dataclass(frozen=True)
@@ -56,6 +57,18 @@ def _head(path: Path, size: int = 4096) -> bytes:
         return handle.read(size)
 
 
+def _undecodable_line(path: Path, encoding: str) -> int | str:
+    """Return the line of the first byte that the encoding cannot decode."""
+    data = path.read_bytes()
+    try:
+        data.decode(encoding)
+    except UnicodeDecodeError as exc:
+        return data[: exc.start].count(b"\n") + 1
+    except LookupError:
+        return "?"
+    return "?"
+
+
 def _looks_like(head: bytes) -> str | None:
     """Return what a file's first bytes say it is, if they name a known binary format."""
     for signature, name in _SIGNATURES:
@@ -66,7 +79,7 @@ def _looks_like(head: bytes) -> str | None:
     return None
 
 
-def _read_csv(options: CsvOptions, path: Path) -> pd.DataFrame:
+def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
     head = _head(path)
     kind = _looks_like(head)
     if kind:
@@ -74,9 +87,15 @@ def _read_csv(options: CsvOptions, path: Path) -> pd.DataFrame:
                         file=str(path))
     encoding = "utf-8-sig" if options.encoding.lower().replace("_", "-") in ("utf-8", "utf8") \
         else options.encoding
-    return pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
-                       thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
-                       skipinitialspace=True)
+    frame = pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
+                        thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
+                        skipinitialspace=True, dtype={c: str for c in text_columns} or None)
+    # Blank lines inside the file stay (as empty rows, at their line); those at its end go.
+    empty = frame.isna().all(axis=1).to_numpy()
+    if empty.any() and empty[-1]:
+        last = len(empty) - int(np.argmin(empty[::-1])) if not empty.all() else 0
+        frame = frame.iloc[:last]
+    return frame
 
 
 def _read_parquet(path: Path) -> pd.DataFrame:
@@ -99,7 +118,7 @@ def _read_excel(sheet: str | int, path: Path) -> pd.DataFrame:
 
 
 def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
-               sheet: str | int = 0) -> pd.DataFrame:
+               sheet: str | int = 0, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
     """Return a data file's rows as read, column names stripped.
 
     Raises DataError naming the file when it is empty, unreadable or not of the format.
@@ -114,14 +133,15 @@ def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
         elif file_format == "excel":
             frame = _read_excel(sheet, path)
         else:
-            frame = _read_csv(csv, path)
+            frame = _read_csv(csv, path, text_columns)
     except DataError:
         raise
     except pd.errors.EmptyDataError:
         raise DataError("the file holds no header and no rows", file=shown) from None
-    except UnicodeDecodeError as exc:
-        raise DataError(f"is not {csv.encoding} text (byte {exc.start} cannot be "
-                        "decoded); set input.csv.encoding", file=shown) from None
+    except UnicodeDecodeError:
+        raise DataError(f"is not {csv.encoding} text (line {_undecodable_line(path, csv.encoding)} "
+                        "holds a byte that cannot be decoded); set input.csv.encoding",
+                        file=shown) from None
     except pd.errors.ParserError as exc:
         raise DataError(f"cannot be read as CSV: {' '.join(str(exc).split())}", file=shown) from None
     except PermissionError:
@@ -145,5 +165,6 @@ def read_input(spec: Spec) -> RawInput:
     """Return the raw rows of the spec's input file with the file's identity."""
     path = spec.input.file
     file_format = spec.input.resolved_format
-    frame = read_table(path, file_format, spec.input.csv, spec.input.sheet)
+    frame = read_table(path, file_format, spec.input.csv, spec.input.sheet,
+                       text_columns=tuple(text_columns(spec)))
     return RawInput(frame=frame, path=path, file_format=file_format, sha256=file_sha256(path))

@@ -227,10 +227,7 @@ def test_every_problem_of_a_file_is_reported_at_once(tmp_path):
     assert rows == sorted(rows), "problems are listed in file order"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "the byte offset comes from the UnicodeDecodeError of one pandas read chunk, so past the "
-    "first chunk it is counted from the chunk's start, not from the start of the file"))
-def test_an_undecodable_byte_is_placed_from_the_start_of_the_file(tmp_path):
+def test_an_undecodable_byte_is_placed_at_its_line_in_the_file(tmp_path):
     rows = ["month,region,sales,price,channel"]
     rows += [f"2020-{m:02d}-01,R{r:05d},1,1.5,shop" for r in range(5000) for m in range(1, 7)]
     rows.append("2020-01-01,Zürich,1,1.5,shop")
@@ -239,8 +236,8 @@ def test_an_undecodable_byte_is_placed_from_the_start_of_the_file(tmp_path):
     case = {"file": str(tmp_path / "big.csv"), "spec": {"drivers": {"categorical": []}}}
     with pytest.raises(DataError) as caught:
         run_case(case, tmp_path)
-    offset = data.index("ü".encode("latin-1"))
-    assert f"(byte {offset} cannot be decoded)" in str(caught.value)
+    line = data[: data.index("ü".encode("latin-1"))].count(b"\n") + 1   # counted in the test
+    assert f"(line {line} holds a byte that cannot be decoded)" in str(caught.value)
 
 
 def test_the_as_of_default_is_today(tmp_path):
@@ -291,11 +288,7 @@ SPEC_MISTAKES = [
     pytest.param("  price:\n    type: numeric\n",
                  14, "columns.price.type", "must be 'number'", id="unknown_type"),
     pytest.param("  price:\n    type: number\n    minimum: 0\n",
-                 15, "columns.price.minimum", "did you mean 'min'?", id="unknown_rule_key",
-                 marks=pytest.mark.xfail(strict=True, reason=(
-                     "an unknown key inside a column rule says only 'unknown key': the "
-                     "suggestion lookup (spec._section_class) stops at the dict of columns "
-                     "and never reaches ColumnRule"))),
+                 15, "columns.price.minimum", "did you mean 'min'?", id="unknown_rule_key"),
 ]
 
 

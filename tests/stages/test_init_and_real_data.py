@@ -178,9 +178,6 @@ def test_init_without_a_date_column_is_one_line(outcomes):
     assert not (outcome.cwd / "counts.spec.yaml").exists()
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "cli._command_init builds CsvOptions only when --delimiter is given, so --decimal and "
-    "--thousands alone are silently ignored and init reports 'no numeric column to forecast'"))
 def test_init_honours_decimal_and_thousands_without_delimiter(outcomes):
     outcome = outcomes["decimal"]
     assert outcome.returncode == 0, outcome.stderr
@@ -197,10 +194,6 @@ def test_init_with_every_csv_option_infers_the_numbers(outcomes):
     assert spec["columns"]["price"]["type"] == "number"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "starter.render_spec writes only input.csv.delimiter, dropping the decimal and thousands "
-    "marks init was given, so 'castline check' on the spec init wrote refuses every number "
-    "('not a number' '4,5')"))
 def test_check_passes_on_the_spec_init_wrote_for_a_decimal_comma_file(outcomes):
     spec = yaml.safe_load((outcomes["decimal_all"].cwd / "eu.yaml").read_text(encoding="utf-8"))
     assert spec["input"]["csv"] == {"delimiter": ";", "decimal": ",", "thousands": "."}
