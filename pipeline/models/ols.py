@@ -234,14 +234,20 @@ class GrowingLeastSquares:
         self.rows_ = 0
         self.r_ = np.empty((0, len(self.scale) + 1))
 
+    BLOCK = 8192   # rows factorised at a time: small enough to stay in cache
+
     def add(self, matrix: np.ndarray, y: np.ndarray) -> GrowingLeastSquares:
-        """Take in a block of rows."""
-        if len(matrix) == 0:
-            return self
-        block = np.column_stack([np.asarray(matrix, float) / self.scale, np.asarray(y, float)])
-        stacked = np.vstack([self.r_, block])
-        self.r_ = scipy.linalg.qr(stacked, mode="r", check_finite=False)[0][: stacked.shape[1]]
-        self.rows_ += len(matrix)
+        """Take in rows, a cache-sized block at a time."""
+        columns = len(self.scale) + 1
+        for start in range(0, len(matrix), self.BLOCK):
+            rows = slice(start, start + self.BLOCK)
+            stacked = np.empty((self.r_.shape[0] + len(matrix[rows]), columns))
+            stacked[: self.r_.shape[0]] = self.r_
+            stacked[self.r_.shape[0]:, :-1] = np.asarray(matrix[rows], float) / self.scale
+            stacked[self.r_.shape[0]:, -1] = y[rows]
+            self.r_ = scipy.linalg.qr(stacked, mode="r", overwrite_a=True,
+                                      check_finite=False)[0][:columns]
+            self.rows_ += len(matrix[rows])
         return self
 
     def solve(self) -> np.ndarray | None:
@@ -265,3 +271,28 @@ class GrowingLeastSquares:
         residual_ss = float(self.r_[p, p] ** 2) if self.r_.shape[0] > p else 0.0
         s = np.sqrt(residual_ss / (self.rows_ - p))
         return s * np.sqrt(1.0 + np.einsum("ij,ij->j", z, z))
+
+
+def expanding_ols_predictions(matrix: np.ndarray, y: np.ndarray, months: np.ndarray,
+                              origins: list[int], tests: list[np.ndarray]
+                              ) -> list[tuple[np.ndarray, np.ndarray, int]] | None:
+    """Return, per origin, OLS predictions for its test rows, their standard errors and the
+    residual df, fitting on every row up to the origin; one QR factor grows across origins.
+
+    ``matrix`` (intercept column included), ``y`` and ``months`` are sorted by month;
+    ``origins`` are month ordinals in increasing order; ``tests`` the test rows' designs.
+    Returns None when a window is rank-deficient (the careful fit must take over).
+    """
+    norms = np.sqrt(np.einsum("ij,ij->j", matrix, matrix))
+    solver = GrowingLeastSquares(np.where(norms > 0, norms, 1.0))
+    taken = 0
+    out = []
+    for origin, test in zip(origins, tests):
+        end = int(np.searchsorted(months, origin, side="right"))
+        solver.add(matrix[taken:end], y[taken:end])
+        taken = end
+        beta = solver.solve()
+        if beta is None:
+            return None
+        out.append(((test * beta).sum(axis=1), solver.prediction_se(test), solver.rows_ - matrix.shape[1]))
+    return out

@@ -19,7 +19,7 @@ import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
 from ..models import BASELINES, make_model
-from ..models.ols import GrowingLeastSquares
+from ..models.ols import expanding_ols_predictions
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
@@ -109,15 +109,29 @@ def _time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
                              f"min_train_periods + gap + horizon = {needed}")
         horizon = validation.gap + validation.horizon
     splits = []
-    history = data.history
+    history = sorted_by_month(data.history)
+    ordinals = history[PERIOD].array.asi8
+
+    def rows(first: int, last: int) -> slice:
+        return slice(int(np.searchsorted(ordinals, months[first].ordinal, side="left")),
+                     int(np.searchsorted(ordinals, months[last].ordinal, side="right")))
+
     for window in windows:
-        in_train = (history[PERIOD] >= months[window.train_start]) & (history[PERIOD] <= months[window.origin])
-        in_test = (history[PERIOD] >= months[window.test_start]) & (history[PERIOD] <= months[window.test_end])
+        # Windows are slices of the month-sorted history: no copy of the training rows.
         origin = months[window.origin]
-        splits.append(Split(label=str(origin), train=history[in_train],
-                            test=history[in_test].sort_values([PERIOD, SERIES], kind="stable"),
+        splits.append(Split(label=str(origin), train=history.iloc[rows(window.train_start, window.origin)],
+                            test=history.iloc[rows(window.test_start, window.test_end)]
+                            .sort_values([PERIOD, SERIES], kind="stable"),
                             origin=origin))
     return splits, horizon
+
+
+def sorted_by_month(history: pd.DataFrame) -> pd.DataFrame:
+    """Return the history in month order (file order within a month)."""
+    order = np.argsort(history[PERIOD].array.asi8, kind="stable")
+    if (order == np.arange(len(order))).all():
+        return history
+    return history.iloc[order].reset_index(drop=True)
 
 
 def _fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
@@ -207,32 +221,23 @@ def _check_rows(spec: Spec, split: Split, terms: int) -> None:
 
 def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
     """Return the OLS predictions (with their standard errors and residual df) of every split,
-    growing one QR factor across origins."""
-    ordered = history.sort_values(PERIOD, kind="stable")
-    design = plan.transform(ordered)
-    matrix = design.matrix
-    if spec.intercept:
-        matrix = np.column_stack([np.ones(len(matrix)), matrix])
-    y = ordered[spec.target].to_numpy(float)
-    months = ordered[PERIOD].array.asi8
-    norms = np.sqrt(np.einsum("ij,ij->j", matrix, matrix))
-    solver = GrowingLeastSquares(np.where(norms > 0, norms, 1.0))
-    taken = 0
-    out: dict[str, tuple] = {}
-    for split in splits:
-        end = int(np.searchsorted(months, split.origin.ordinal, side="right"))
-        solver.add(matrix[taken:end], y[taken:end])
-        taken = end
-        beta = solver.solve()
-        if beta is None:  # rank-deficient window: the careful fit drops and names columns
-            return {}
-        test_design = plan.transform(split.test)
-        test_matrix = test_design.matrix
-        if spec.intercept:
-            test_matrix = np.column_stack([np.ones(len(test_matrix)), test_matrix])
-        out[split.label] = (test_matrix @ beta, solver.prediction_se(test_matrix),
-                            solver.rows_ - matrix.shape[1])
-    return out
+    growing one QR factor across origins. ``history`` is sorted by month."""
+    def with_intercept(matrix: np.ndarray) -> np.ndarray:
+        if not spec.intercept:
+            return matrix
+        full = np.empty((len(matrix), matrix.shape[1] + 1))
+        full[:, 0] = 1.0
+        full[:, 1:] = matrix
+        return full
+
+    matrix = with_intercept(plan.transform(history).matrix)
+    tests = [with_intercept(plan.transform(split.test).matrix) for split in splits]
+    found = expanding_ols_predictions(matrix, history[spec.target].to_numpy(float),
+                                      history[PERIOD].array.asi8,
+                                      [split.origin.ordinal for split in splits], tests)
+    if found is None:  # rank-deficient window: the careful fit drops and names columns
+        return {}
+    return {split.label: result for split, result in zip(splits, found)}
 
 
 def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
@@ -262,7 +267,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     if "ols" in spec.model_kinds and expanding and len(splits) > 1 and plain:
         states = {_plan_state(plan) for plan in plans}
         if len(states) == 1:
-            fast_ols = _growing_ols(spec, splits, plans[0], data.history)
+            fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
     frames = []
     for split, plan in zip(splits, plans):
         scales = mase_scales(split.train, spec.target) if time_ordered else {}
