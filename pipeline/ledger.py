@@ -1,0 +1,834 @@
+"""The run ledger: every run's identity, metrics and forecasts in one SQLite file, and the
+track record read back from it (how earlier forecasts turned out, how the metrics moved).
+
+One file, by default ``ledger.sqlite`` in the folder the run folders are written to
+(``output.ledger`` moves it). Tables, one row per:
+
+- ``runs``: run (id, time, spec name, sha256 of the resolved spec and the spec itself,
+  input sha256, castline version, months covered, recommended model, where its folder is);
+- ``model_metrics``, ``origin_metrics``, ``horizon_metrics``: model, and model and origin or
+  months ahead, of a run's backtest;
+- ``forecasts``: forecast a run made (period, series, months ahead, model, value, the
+  analytic and empirical 80% and 95% bounds, and which of the two the summary stated);
+- ``coefficients``: term of each final fit;
+- ``periods``: month of a run's input, with a sha256 of that month's rows, so that two runs
+  can tell which months were added or revised between them;
+- ``realised``: earlier forecast whose month has an actual in a later run's data, scored
+  by that later run (recorded when first scored and again whenever the actual is revised);
+- ``schema_version``: the schema's version (``SCHEMA_VERSION``). An older ledger is
+  upgraded in place by the ``MIGRATIONS`` when a run records into it (one transaction);
+  reading an older ledger upgrades a copy in memory and leaves the file as it is.
+
+Safety. Every run is recorded in one transaction; the file is in WAL mode with a busy
+timeout, so runs started together queue for the write lock and each lands whole. A file
+that is not a ledger, is damaged, or was written by a newer castline stops the run with
+one line (exit 2) and is never written to.
+
+The run folder and the ledger row. The ledger commit is the moment a run is made:
+
+1. publish writes every file of the run into its hidden ``.incomplete-<run id>`` folder;
+2. one transaction records the run, marked ``placing``, with both folder paths;
+3. the hidden folder is renamed into place, and the row is marked ``placed``.
+
+A run folder is never visible without its ledger row: the rename comes after the
+commit. A ledger row counts (in history, compare and the track record) once it is
+``placed`` or its run folder exists, so a row is never visible without its folder either.
+A run stopped before step 2 leaves no row (SQLite discards the open transaction) and no
+visible folder. A run stopped between steps 2 and 3 left a complete folder and a committed
+row: the next run that records into the ledger finishes it (renames the folder into place),
+so the run appears whole, later. If the rename itself fails, the row is deleted again.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import shutil
+import sqlite3
+from collections.abc import Iterator
+from contextlib import closing, contextmanager
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .errors import UserError
+from .spec import BASELINE, Spec
+from .stages.check import PERIOD, ROW, SERIES, CheckedData
+
+LEDGER_FILE = "ledger.sqlite"
+SCHEMA_VERSION = 2
+BUSY_SECONDS = 60.0          # how long a run waits for another run's write to finish
+SQLITE_HEADER = b"SQLite format 3\x00"
+SCORES = ["n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
+INTERVAL_COLUMNS = [f"{method}_{side}_{level}" for method in ("analytic", "empirical")
+                    for level in ("80", "95") for side in ("low", "high")]
+
+# Each entry upgrades the schema from the version before it. A new ledger runs them all.
+MIGRATIONS: dict[int, str] = {
+    1: """
+        CREATE TABLE schema_version (version INTEGER NOT NULL);
+        INSERT INTO schema_version (version) VALUES (1);
+        CREATE TABLE runs (
+            run_id TEXT PRIMARY KEY,
+            created TEXT NOT NULL,
+            spec_name TEXT NOT NULL,
+            spec_hash TEXT NOT NULL,
+            spec_json TEXT NOT NULL,
+            input_sha256 TEXT NOT NULL,
+            castline_version TEXT NOT NULL,
+            first_period TEXT,
+            last_period TEXT,
+            history_rows INTEGER,
+            future_rows INTEGER,
+            recommended TEXT,
+            select_by TEXT,
+            beats_baseline INTEGER,
+            folder TEXT NOT NULL,
+            staging TEXT NOT NULL,
+            state TEXT NOT NULL CHECK (state IN ('placing', 'placed'))
+        );
+        CREATE INDEX runs_by_name ON runs (spec_name, created);
+        CREATE TABLE model_metrics (
+            run_id TEXT NOT NULL, model TEXT NOT NULL,
+            n INTEGER, mae REAL, rmse REAL, mape REAL, smape REAL, wape REAL, mase REAL,
+            r2 REAL, bias REAL, skill_vs_mean REAL, p_value REAL,
+            PRIMARY KEY (run_id, model)
+        );
+        CREATE TABLE origin_metrics (
+            run_id TEXT NOT NULL, model TEXT NOT NULL, origin TEXT NOT NULL,
+            n INTEGER, mae REAL, rmse REAL, mape REAL, smape REAL, wape REAL, mase REAL,
+            r2 REAL, bias REAL, skill_vs_mean REAL,
+            PRIMARY KEY (run_id, model, origin)
+        );
+        CREATE TABLE horizon_metrics (
+            run_id TEXT NOT NULL, model TEXT NOT NULL, horizon INTEGER NOT NULL,
+            n INTEGER, mae REAL, rmse REAL, bias REAL, skill_vs_mean REAL,
+            PRIMARY KEY (run_id, model, horizon)
+        );
+        CREATE TABLE forecasts (
+            run_id TEXT NOT NULL, model TEXT NOT NULL, period TEXT NOT NULL,
+            series TEXT NOT NULL, horizon INTEGER NOT NULL, forecast REAL,
+            analytic_low_80 REAL, analytic_high_80 REAL, analytic_low_95 REAL,
+            analytic_high_95 REAL, empirical_low_80 REAL, empirical_high_80 REAL,
+            empirical_low_95 REAL, empirical_high_95 REAL,
+            PRIMARY KEY (run_id, model, period, series)
+        );
+        CREATE TABLE coefficients (
+            run_id TEXT NOT NULL, model TEXT NOT NULL, term TEXT NOT NULL,
+            estimate REAL, std_error REAL
+        );
+        CREATE INDEX coefficients_by_run ON coefficients (run_id)
+    """,
+    # v2: the interval each forecast's summary stated, per-month fingerprints of the
+    # input, and the scores of earlier forecasts against the actuals that came later.
+    2: """
+        ALTER TABLE forecasts ADD COLUMN interval_method TEXT;
+        CREATE TABLE periods (
+            run_id TEXT NOT NULL, period TEXT NOT NULL,
+            actual_rows INTEGER NOT NULL, planned_rows INTEGER NOT NULL, sha256 TEXT NOT NULL,
+            PRIMARY KEY (run_id, period)
+        );
+        CREATE TABLE realised (
+            run_id TEXT NOT NULL, forecast_run_id TEXT NOT NULL, model TEXT NOT NULL,
+            period TEXT NOT NULL, series TEXT NOT NULL, horizon INTEGER NOT NULL,
+            forecast REAL, actual REAL, error REAL, expected_mae REAL, interval_method TEXT,
+            low_80 REAL, high_80 REAL, low_95 REAL, high_95 REAL,
+            inside_80 INTEGER, inside_95 INTEGER,
+            backtest_low_95 REAL, backtest_high_95 REAL, within_backtest_95 INTEGER,
+            PRIMARY KEY (run_id, forecast_run_id, model, period, series)
+        );
+        CREATE INDEX realised_by_forecast_run ON realised (forecast_run_id);
+        UPDATE schema_version SET version = 2
+    """,
+}
+RUN_TABLES = ["model_metrics", "origin_metrics", "horizon_metrics", "forecasts", "coefficients",
+              "periods", "realised", "runs"]
+REALISED_COLUMNS = ["forecast_run_id", "forecast_created", "model", "period", "series", "horizon",
+                    "forecast", "actual", "error", "expected_mae", "interval_method", "low_80",
+                    "high_80", "low_95", "high_95", "inside_80", "inside_95", "backtest_low_95",
+                    "backtest_high_95", "within_backtest_95", "recorded"]
+
+
+def ledger_path(spec: Spec, output_folder: str | Path | None = None) -> Path:
+    """Return the ledger file a run of the spec records into: output.ledger, or
+    ledger.sqlite in the folder its run folders are written to."""
+    if spec.output.ledger is not None:
+        return Path(spec.output.ledger)
+    return (Path(output_folder) if output_folder else spec.output.folder).resolve() / LEDGER_FILE
+
+
+# ---------------------------------------------------------------- opening the file
+
+def _ledger_error(path: Path, exc: sqlite3.Error) -> UserError | None:
+    """Return the user-facing error for an SQLite failure the user can act on, else None."""
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    text = " ".join(str(exc).split())
+    if name.startswith(("SQLITE_NOTADB", "SQLITE_CORRUPT")) or "malformed" in text \
+            or "not a database" in text:
+        return UserError(f"{path}: the run ledger is damaged ({text}); it was left as it is: move "
+                         "it aside (the next run starts a new ledger) or restore a copy")
+    if name.startswith(("SQLITE_BUSY", "SQLITE_LOCKED")) or "locked" in text:
+        return UserError(f"{path}: the run ledger stayed busy for {BUSY_SECONDS:g} s (another "
+                         "castline run is writing to it); try again")
+    if name.startswith(("SQLITE_CANTOPEN", "SQLITE_PERM", "SQLITE_READONLY", "SQLITE_IOERR",
+                        "SQLITE_FULL")) or "readonly" in text or "disk" in text \
+            or "unable to open" in text:
+        return UserError(f"{path}: cannot use the run ledger: {text}")
+    return None
+
+
+@contextmanager
+def _ledger_errors(path: Path) -> Iterator[None]:
+    """Turn SQLite failures the user can act on into a one-line UserError naming the file."""
+    try:
+        yield
+    except sqlite3.Error as exc:
+        mistake = _ledger_error(path, exc)
+        if mistake is None:
+            raise
+        raise mistake from None
+
+
+def _refuse_unusable(path: Path) -> None:
+    """Stop before SQLite touches a path that is a folder or a file that is not SQLite."""
+    if path.is_dir():
+        raise UserError(f"{path}: the run ledger path is a folder, not a file")
+    if path.exists() and path.stat().st_size > 0:
+        with path.open("rb") as handle:
+            head = handle.read(len(SQLITE_HEADER))
+        if head != SQLITE_HEADER:
+            raise UserError(f"{path}: the run ledger is damaged or is not a ledger (it is not an "
+                            "SQLite database); it was left as it is: move it aside (the next run "
+                            "starts a new ledger) or restore a copy")
+
+
+def _schema_version(conn: sqlite3.Connection, path: Path) -> int:
+    """Return the ledger's schema version: 0 for an empty file."""
+    tables = {row[0] for row in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    if "schema_version" not in tables:
+        if tables:
+            raise UserError(f"{path}: is an SQLite database but not a castline run ledger (no "
+                            "schema_version table); it was left as it is: set output.ledger to "
+                            "another file")
+        return 0
+    row = conn.execute("SELECT version FROM schema_version").fetchone()
+    if row is None or not isinstance(row[0], int):
+        raise UserError(f"{path}: the run ledger's schema_version table is empty or damaged; "
+                        "it was left as it is")
+    if row[0] > SCHEMA_VERSION:
+        raise UserError(f"{path}: the run ledger was written by a newer castline (schema version "
+                        f"{row[0]}; this castline {__version__} reads up to {SCHEMA_VERSION}); "
+                        "upgrade castline")
+    return row[0]
+
+
+def _execute_script(conn: sqlite3.Connection, script: str) -> None:
+    # Not executescript(): it commits first, and a migration must stay inside its transaction.
+    for statement in script.split(";"):
+        if statement.strip():
+            conn.execute(statement)
+
+
+def migrate(conn: sqlite3.Connection, version: int, upto: int = SCHEMA_VERSION) -> None:
+    """Apply the migrations after `version`, up to `upto`, on an open transaction."""
+    for step in range(version + 1, upto + 1):
+        _execute_script(conn, MIGRATIONS[step])
+
+
+@contextmanager
+def _transaction(conn: sqlite3.Connection) -> Iterator[None]:
+    """Run a block in one write transaction: taken at once, committed whole or not at all."""
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        yield
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
+    conn.execute("COMMIT")
+
+
+def _connect(path: Path, *, create: bool) -> sqlite3.Connection:
+    mode = "rwc" if create else "rw"
+    conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode={mode}", uri=True,
+                           timeout=BUSY_SECONDS, isolation_level=None)
+    conn.execute(f"PRAGMA busy_timeout = {int(BUSY_SECONDS * 1000)}")
+    return conn
+
+
+def _open_for_writing(path: Path) -> sqlite3.Connection:
+    """Return a connection to the ledger, created or upgraded to the current schema."""
+    _refuse_unusable(path)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UserError(f"{path.parent}: cannot create the ledger's folder: {exc.strerror}") from None
+    conn = _connect(path, create=True)
+    try:
+        if path.stat().st_size > 0:
+            check = conn.execute("PRAGMA quick_check(1)").fetchone()
+            if check is None or check[0] != "ok":
+                found = " ".join(str(check[0]).split()) if check else "no answer from the check"
+                raise UserError(f"{path}: the run ledger is damaged ({found}); it was left as it "
+                                "is: move it aside (the next run starts a new ledger) or restore "
+                                "a copy")
+        conn.execute("PRAGMA journal_mode = WAL")   # waits on busy_timeout like any write
+        conn.execute("PRAGMA synchronous = FULL")   # the commit is the run's commit point
+        with _transaction(conn):
+            version = _schema_version(conn, path)
+            migrate(conn, version)
+    except BaseException:
+        conn.close()
+        raise
+    return conn
+
+
+def _open_for_reading(path: Path) -> sqlite3.Connection:
+    """Return a connection for reading the ledger at the current schema; never writes the file.
+
+    An older ledger is copied into memory and upgraded there.
+    """
+    _refuse_unusable(path)
+    conn = _connect(path, create=False)
+    try:
+        conn.execute("PRAGMA query_only = ON")
+        version = _schema_version(conn, path)
+        if version == SCHEMA_VERSION:
+            return conn
+        memory = sqlite3.connect(":memory:", isolation_level=None)
+        conn.backup(memory)
+    except BaseException:
+        conn.close()
+        raise
+    conn.close()
+    with _transaction(memory):
+        migrate(memory, version)
+    return memory
+
+
+@contextmanager
+def reading(path: Path) -> Iterator[sqlite3.Connection]:
+    """Open the ledger for reading, with its problems reported as one-line user errors."""
+    path = Path(path)
+    if not path.exists():
+        raise UserError(f"{path}: no run ledger here yet; 'castline run' records every run in it")
+    with _ledger_errors(path):
+        with closing(_open_for_reading(path)) as conn:
+            yield conn
+
+
+# ---------------------------------------------------------------- values in and out
+
+def _plain(value):
+    """Return a value SQLite stores: numpy scalars as Python ones, NaN and NA as NULL."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, bool | int | float | str):
+        return value
+    if isinstance(value, pd.Period | pd.Timestamp):
+        return str(value)
+    return str(value)
+
+
+def _insert(conn: sqlite3.Connection, table: str, rows: list[dict]) -> None:
+    if not rows:
+        return
+    columns = list(rows[0])
+    conn.executemany(f"INSERT INTO {table} ({', '.join(columns)}) VALUES "
+                     f"({', '.join('?' for _ in columns)})",
+                     [[_plain(row.get(c)) for c in columns] for row in rows])
+
+
+def _frame_rows(frame: pd.DataFrame, columns: list[str], **fixed) -> list[dict]:
+    """Return the frame's rows as dicts of the given columns (absent columns as NULL)."""
+    if frame is None or not len(frame):
+        return []
+    present = [c for c in columns if c in frame.columns]
+    return [{**fixed, **{c: row.get(c) for c in columns}}
+            for row in frame[present].to_dict(orient="records")]
+
+
+def _query(conn: sqlite3.Connection, sql: str, parameters=()) -> pd.DataFrame:
+    cursor = conn.execute(sql, parameters)
+    names = [d[0] for d in cursor.description]
+    return pd.DataFrame(cursor.fetchall(), columns=names)
+
+
+def spec_hash(resolved: dict) -> str:
+    """Return the sha256 of the resolved spec, written as canonical JSON (keys sorted)."""
+    text = json.dumps(resolved, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _canonical(value):
+    """Return a cell as text that does not depend on how the column's type was read."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, float | int | np.number) and not isinstance(value, bool | np.bool_):
+        number = float(value)
+        return None if math.isnan(number) else repr(number)
+    if isinstance(value, pd.Timestamp | datetime):
+        return value.isoformat()
+    return str(value)
+
+
+def period_fingerprints(data: CheckedData) -> pd.DataFrame:
+    """Return, per month of the input, its rows with and without actuals and a sha256 of them.
+
+    The hash covers every column the spec uses (the target included), rows ordered by
+    series; line numbers are left out, so adding rows elsewhere changes no month's hash.
+    """
+    internal = {PERIOD, SERIES, ROW}
+    rows = pd.concat([data.history.assign(_actual=True), data.future.assign(_actual=False)],
+                     ignore_index=True)
+    columns = sorted(c for c in data.history.columns if c not in internal)
+    out = []
+    for period, group in rows.groupby(PERIOD, sort=True):
+        group = group.sort_values(SERIES, kind="stable")
+        cells = [[_canonical(v) for v in row] for row in group[columns].itertuples(index=False)]
+        digest = hashlib.sha256(json.dumps([columns, cells]).encode("utf-8")).hexdigest()
+        actual = int(group["_actual"].sum())
+        out.append({"period": str(period), "actual_rows": actual,
+                    "planned_rows": len(group) - actual, "sha256": digest})
+    return pd.DataFrame(out, columns=["period", "actual_rows", "planned_rows", "sha256"])
+
+
+# ---------------------------------------------------------------- recording a run
+
+def _stated_methods(evaluation, forecast) -> dict[str, str]:
+    """Return, per model, the interval method its forecasts were stated with in the summary."""
+    from .stages.publish import _trusted_method   # the summary's own rule; publish imports us
+    table = forecast.forecast
+    return {model: _trusted_method(evaluation, model, rows)
+            for model, rows in table.groupby("model", sort=False)} if len(table) else {}
+
+
+def _run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data: CheckedData,
+              evaluation, forecast, track: TrackRecord | None, staging: Path,
+              final: Path) -> dict[str, list[dict]]:
+    """Return every row the ledger records for a run, table by table."""
+    methods = _stated_methods(evaluation, forecast)
+    forecasts = _frame_rows(forecast.forecast, ["model", "period", "series", "horizon", "forecast",
+                                                *INTERVAL_COLUMNS], run_id=run_id)
+    for row in forecasts:
+        row["interval_method"] = methods.get(row["model"])
+    realised = []
+    if track is not None and len(track.realised):
+        kept = track.realised[track.realised["recorded"]]
+        realised = _frame_rows(kept, [c for c in REALISED_COLUMNS
+                                      if c not in ("recorded", "forecast_created")], run_id=run_id)
+    by_origin = evaluation.by_origin.assign(origin=evaluation.by_origin["origin"].astype(str)) \
+        if len(evaluation.by_origin) else evaluation.by_origin
+    coefficients = forecast.coefficients
+    return {
+        "runs": [{
+            "run_id": run_id, "created": created.isoformat(timespec="microseconds"),
+            "spec_name": spec.name, "spec_hash": spec_hash(resolved),
+            "spec_json": json.dumps(resolved, sort_keys=True, ensure_ascii=False),
+            "input_sha256": data.raw.sha256, "castline_version": __version__,
+            "first_period": str(data.first_period), "last_period": str(data.last_period),
+            "history_rows": len(data.history), "future_rows": len(data.future),
+            "recommended": evaluation.recommended, "select_by": evaluation.select_by,
+            "beats_baseline": bool(evaluation.beats_baseline), "folder": str(final),
+            "staging": str(staging), "state": "placing"}],
+        "model_metrics": _frame_rows(evaluation.table, ["model", *SCORES, "p_value"], run_id=run_id),
+        "origin_metrics": _frame_rows(by_origin, ["model", "origin", *SCORES], run_id=run_id),
+        "horizon_metrics": _frame_rows(evaluation.by_horizon, ["model", "horizon", "n", "mae", "rmse",
+                                                               "bias", "skill_vs_mean"], run_id=run_id),
+        "forecasts": forecasts,
+        "coefficients": _frame_rows(coefficients, ["model", "term", "estimate", "std_error"],
+                                    run_id=run_id),
+        "periods": _frame_rows(period_fingerprints(data), ["period", "actual_rows", "planned_rows",
+                                                           "sha256"], run_id=run_id),
+        "realised": realised,
+    }
+
+
+def _insert_run(conn: sqlite3.Connection, rows: dict[str, list[dict]]) -> None:
+    """Insert a run's rows, every table, on the open transaction."""
+    for table in ["runs", *[t for t in RUN_TABLES if t != "runs"]]:
+        _insert(conn, table, rows.get(table, []))
+
+
+def _delete_run(conn: sqlite3.Connection, run_id: str) -> None:
+    for table in RUN_TABLES:
+        conn.execute(f"DELETE FROM {table} WHERE run_id = ?", (run_id,))
+
+
+def _place(staging: Path, final: Path) -> None:
+    """Rename the run's hidden folder into place (done already if another run finished it)."""
+    try:
+        os.rename(staging, final)
+    except FileNotFoundError:
+        if not final.is_dir():
+            raise
+
+
+def _finish_interrupted_runs(conn: sqlite3.Connection) -> None:
+    """Finish the runs recorded but not placed (a run stopped between its commit and its
+    rename): rename their complete hidden folders into place; drop rows whose folder is gone.
+
+    Called on an open write transaction, so two runs never finish the same run at once.
+    """
+    pending = conn.execute("SELECT run_id, folder, staging FROM runs WHERE state = 'placing'").fetchall()
+    for run_id, folder, staging in pending:
+        final, hidden = Path(folder), Path(staging)
+        if not final.exists() and hidden.is_dir():
+            try:
+                os.rename(hidden, final)
+            except OSError:
+                continue   # still out of sight; a later run tries again
+        if final.is_dir():
+            conn.execute("UPDATE runs SET state = 'placed' WHERE run_id = ?", (run_id,))
+        elif not hidden.exists():
+            _delete_run(conn, run_id)
+
+
+def _withdraw(conn: sqlite3.Connection, run_id: str, staging: Path, final: Path) -> None:
+    """Undo a recorded run whose folder could not be placed: delete its rows, discard its folder."""
+    try:
+        with _transaction(conn):
+            if final.is_dir():
+                return
+            _delete_run(conn, run_id)
+    except sqlite3.Error:
+        pass   # the row stays out of sight (no folder); the next run drops it
+    discard = staging.with_name(staging.name.replace(".incomplete-", ".discarded-", 1))
+    try:
+        os.rename(staging, discard)   # out of reach of a run finishing interrupted runs
+    except OSError:
+        return
+    shutil.rmtree(discard, ignore_errors=True)
+
+
+def record_and_place(ledger_file: Path, staging: Path, final: Path, *, run_id: str,
+                     created: datetime, spec: Spec, resolved: dict, data: CheckedData, evaluation,
+                     forecast, track: TrackRecord | None) -> None:
+    """Record the run in the ledger in one transaction, then rename its folder into place.
+
+    See the module's docstring for why this order leaves no run half-visible.
+    """
+    rows = _run_rows(run_id=run_id, created=created, spec=spec, resolved=resolved, data=data,
+                     evaluation=evaluation, forecast=forecast, track=track, staging=staging,
+                     final=final)
+    with _ledger_errors(ledger_file):
+        conn = _open_for_writing(ledger_file)
+        try:
+            with _transaction(conn):
+                _finish_interrupted_runs(conn)
+                _insert_run(conn, rows)
+            try:
+                _place(staging, final)
+            except BaseException:
+                _withdraw(conn, run_id, staging, final)
+                raise
+            try:
+                with _transaction(conn):
+                    conn.execute("UPDATE runs SET state = 'placed' WHERE run_id = ?", (run_id,))
+            except sqlite3.Error:
+                pass   # the run is made and counts already (its folder exists)
+        finally:
+            conn.close()
+
+
+# ---------------------------------------------------------------- reading runs
+
+def visible_runs(conn: sqlite3.Connection, name: str | None = None) -> pd.DataFrame:
+    """Return the runs that count, oldest first: placed, or recorded with their folder in place."""
+    sql = ("SELECT run_id, created, spec_name, spec_hash, input_sha256, castline_version, "
+           "first_period, last_period, history_rows, future_rows, recommended, select_by, "
+           "beats_baseline, folder, state FROM runs")
+    runs = _query(conn, sql + (" WHERE spec_name = ?" if name else "") + " ORDER BY created, run_id",
+                  (name,) if name else ())
+    counts = [state == "placed" or Path(folder).is_dir()
+              for state, folder in zip(runs["state"], runs["folder"])]
+    return runs[np.asarray(counts, bool)].drop(columns=["state"]).reset_index(drop=True)
+
+
+def _rows_of(conn: sqlite3.Connection, table: str, run_ids, extra: str = "",
+             parameters: tuple = ()) -> pd.DataFrame:
+    """Return a table's rows for the given runs."""
+    run_ids = list(run_ids)
+    if not run_ids:
+        return _query(conn, f"SELECT * FROM {table} WHERE 0")
+    frames = []
+    for start in range(0, len(run_ids), 500):   # SQLite caps the parameters of one statement
+        chunk = run_ids[start:start + 500]
+        marks = ", ".join("?" for _ in chunk)
+        frames.append(_query(conn, f"SELECT * FROM {table} WHERE run_id IN ({marks}){extra}",
+                             (*chunk, *parameters)))
+    return pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0]
+
+
+def _latest_realised(conn: sqlite3.Connection, runs: pd.DataFrame) -> pd.DataFrame:
+    """Return each earlier forecast's latest score: the row recorded by the newest run that counts."""
+    scored = _rows_of(conn, "realised", runs["run_id"])
+    if not len(scored):
+        return scored
+    order = dict(zip(runs["run_id"], range(len(runs))))
+    scored = scored[scored["forecast_run_id"].isin(order)].copy()
+    scored["_order"] = scored["run_id"].map(order)
+    scored = scored.sort_values("_order", kind="stable")
+    latest = scored.drop_duplicates(["forecast_run_id", "model", "period", "series"], keep="last")
+    return latest.drop(columns=["_order"]).reset_index(drop=True)
+
+
+# ---------------------------------------------------------------- the track record
+
+@dataclass(frozen=True)
+class TrackRecord:
+    """How the forecasts of earlier runs of a spec turned out against this run's actuals,
+    and the warnings that follow; read from the ledger before the run is published."""
+
+    ledger: Path
+    realised: pd.DataFrame          # one row per earlier forecast whose month now has an actual
+    by_horizon: pd.DataFrame        # per earlier run, model and months ahead
+    earlier_runs: int
+    recommended: dict[str, str] = field(default_factory=dict)   # earlier run → its recommended model
+    warnings: list[str] = field(default_factory=list)
+    runs_without_skill: int = 0     # runs in a row, this one included, not beating the baseline
+
+
+def _empty_realised() -> pd.DataFrame:
+    return pd.DataFrame(columns=REALISED_COLUMNS)
+
+
+def score_forecasts(forecasts: pd.DataFrame, actuals: pd.DataFrame,
+                    expected: pd.DataFrame) -> pd.DataFrame:
+    """Return each forecast that has an actual, scored: error (forecast − actual), whether
+    the actual fell inside the stated 80% and 95% intervals and inside the backtest's 95%
+    range of errors at that horizon, and the MAE the backtest led the user to expect.
+
+    ``forecasts`` has the ledger's forecast columns and forecast_created; ``actuals`` has
+    period, series and actual; ``expected`` has run_id, model, horizon and expected_mae
+    (horizon NaN for a model's overall MAE, used where its horizon was not measured).
+    """
+    if not len(forecasts):
+        return _empty_realised().drop(columns=["recorded"])
+    scored = forecasts.merge(actuals, on=["period", "series"], how="inner")
+    if not len(scored):
+        return _empty_realised().drop(columns=["recorded"])
+    scored["error"] = scored["forecast"] - scored["actual"]
+    stated = scored["interval_method"].astype(object).where(scored["interval_method"].notna(), None)
+    fallback = np.where(scored["empirical_low_95"].notna(), "empirical", "analytic")
+    scored["interval_method"] = [s if s else f for s, f in zip(stated, fallback)]
+    empirical = scored["interval_method"].to_numpy() == "empirical"
+    for level in ("80", "95"):
+        for side in ("low", "high"):
+            scored[f"{side}_{level}"] = np.where(empirical, scored[f"empirical_{side}_{level}"],
+                                                 scored[f"analytic_{side}_{level}"]).astype(float)
+        low, high = scored[f"low_{level}"], scored[f"high_{level}"]
+        inside = (scored["actual"] >= low) & (scored["actual"] <= high)
+        scored[f"inside_{level}"] = inside.astype(object).where(low.notna() & high.notna(), None)
+    # The backtest's 95% range of errors at the horizon: the empirical interval's offsets
+    # (built from the backtest's own errors), else the stated 95% interval's.
+    use_empirical = scored["empirical_low_95"].notna()
+    high_bound = scored["empirical_high_95"].where(use_empirical, scored["high_95"])
+    low_bound = scored["empirical_low_95"].where(use_empirical, scored["low_95"])
+    scored["backtest_low_95"] = scored["forecast"] - high_bound
+    scored["backtest_high_95"] = scored["forecast"] - low_bound
+    within = (scored["error"] >= scored["backtest_low_95"]) & (scored["error"] <= scored["backtest_high_95"])
+    scored["within_backtest_95"] = within.astype(object).where(scored["backtest_low_95"].notna(), None)
+    at_horizon = expected[expected["horizon"].notna()].astype({"horizon": int})
+    overall = expected[expected["horizon"].isna()].drop(columns=["horizon"])
+    scored = scored.merge(at_horizon, left_on=["forecast_run_id", "model", "horizon"],
+                          right_on=["run_id", "model", "horizon"], how="left").drop(columns=["run_id"])
+    scored = scored.merge(overall.rename(columns={"expected_mae": "_overall"}),
+                          left_on=["forecast_run_id", "model"], right_on=["run_id", "model"],
+                          how="left").drop(columns=["run_id"])
+    scored["expected_mae"] = scored["expected_mae"].fillna(scored["_overall"])
+    columns = [c for c in REALISED_COLUMNS if c != "recorded"]
+    return scored[columns].sort_values(["forecast_created", "model", "period", "series"],
+                                       kind="stable").reset_index(drop=True)
+
+
+def summarise_realised(realised: pd.DataFrame) -> pd.DataFrame:
+    """Return, per forecast run, model and months ahead: how many forecasts have actuals,
+    their MAE and bias against the MAE the backtest expected, and how often the actual
+    fell inside the stated 80% and 95% intervals and the backtest's 95% range."""
+    columns = ["forecast_run_id", "forecast_created", "model", "horizon", "n", "realised_mae",
+               "expected_mae", "realised_bias", "inside_80", "inside_95", "within_backtest_95"]
+    if not len(realised):
+        return pd.DataFrame(columns=columns)
+    rows = []
+    for (run_id, created, model, horizon), group in realised.groupby(
+            ["forecast_run_id", "forecast_created", "model", "horizon"], sort=False):
+        def share(column: str) -> float:
+            known = group[column].dropna()
+            return float(known.astype(bool).mean()) if len(known) else float("nan")
+        rows.append({"forecast_run_id": run_id, "forecast_created": created, "model": model,
+                     "horizon": int(horizon), "n": len(group),
+                     "realised_mae": float(group["error"].abs().mean()),
+                     "expected_mae": float(group["expected_mae"].iloc[0])
+                     if group["expected_mae"].notna().any() else float("nan"),
+                     "realised_bias": float(group["error"].mean()),
+                     "inside_80": share("inside_80"), "inside_95": share("inside_95"),
+                     "within_backtest_95": share("within_backtest_95")})
+    return pd.DataFrame(rows, columns=columns).sort_values(
+        ["forecast_created", "forecast_run_id", "model", "horizon"], kind="stable").reset_index(drop=True)
+
+
+def _expected_errors(conn: sqlite3.Connection, run_ids) -> pd.DataFrame:
+    """Return the backtest MAE per run, model and horizon, and overall (horizon NaN)."""
+    horizons = _rows_of(conn, "horizon_metrics", run_ids)[["run_id", "model", "horizon", "mae"]]
+    overall = _rows_of(conn, "model_metrics", run_ids)[["run_id", "model", "mae"]].assign(horizon=np.nan)
+    frame = pd.concat([horizons.astype({"horizon": float}), overall], ignore_index=True)
+    return frame.rename(columns={"mae": "expected_mae"})
+
+
+def _earlier_forecasts(conn: sqlite3.Connection, runs: pd.DataFrame, through: str) -> pd.DataFrame:
+    """Return the forecasts the runs made for months up to `through`, with each run's time."""
+    forecasts = _rows_of(conn, "forecasts", runs["run_id"], " AND period <= ?", (through,))
+    created = dict(zip(runs["run_id"], runs["created"]))
+    return forecasts.rename(columns={"run_id": "forecast_run_id"}).assign(
+        forecast_created=lambda t: t["forecast_run_id"].map(created))
+
+
+def _actuals(spec: Spec, data: CheckedData) -> pd.DataFrame:
+    return pd.DataFrame({"period": data.history[PERIOD].astype(str).to_numpy(),
+                         "series": data.history[SERIES].astype(str).to_numpy(),
+                         "actual": data.history[spec.target].to_numpy(float)})
+
+
+def _signed(value: float) -> str:
+    return f"{value:+,.4g}"
+
+
+def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
+    """Return a warning when forecasts of the latest run that has actuals now, from the model it
+    recommended, missed by more than the backtest's 95% range of errors."""
+    if not len(realised):
+        return None
+    latest = realised.sort_values(["forecast_created", "forecast_run_id"]).iloc[-1]["forecast_run_id"]
+    recommended = runs.set_index("run_id")["recommended"].get(latest)
+    rows = realised[(realised["forecast_run_id"] == latest) & (realised["model"] == recommended)]
+    judged = rows[rows["within_backtest_95"].notna()]
+    outside = judged[~judged["within_backtest_95"].astype(bool)]
+    if not len(outside):
+        return None
+    shown = "; ".join(f"{r.period} {r.series} ({r.horizon} month(s) ahead): error {_signed(r.error)} "
+                      f"outside {_signed(r.backtest_low_95)} to {_signed(r.backtest_high_95)}"
+                      for r in outside.head(3).itertuples())
+    more = f"; and {len(outside) - 3} more" if len(outside) > 3 else ""
+    return (f"realised accuracy: {len(outside)} of {len(judged)} forecasts that run {latest} made "
+            f"with {recommended} missed by more than the backtest's 95% range of errors "
+            f"(error = forecast − actual): {shown}{more}. The model may be getting worse, or the "
+            "months just past were unusual.")
+
+
+def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str | None, int]:
+    """Return a warning when the recommended model has not beaten the mean baseline in the last
+    N runs (this one included), and how many runs in a row it has not."""
+    record = [bool(b) for b in runs["beats_baseline"]] + [bool(beats_now)]
+    streak = 0
+    for beat in reversed(record):
+        if beat:
+            break
+        streak += 1
+    wanted = spec.output.warn_after_runs_without_skill
+    if streak < wanted:
+        return None, streak
+    since = runs["created"].iloc[len(runs) - wanted + 1][:10] if wanted > 1 else "this run"
+    return (f"the recommended model has not beaten the mean baseline in the last {wanted} run(s) "
+            f"(since {since}; {streak} in a row): the plain average forecasts as well; review the "
+            f"drivers (output.warn_after_runs_without_skill: {wanted})"), streak
+
+
+def track_record(spec: Spec, data: CheckedData, evaluation, *,
+                 output_folder: str | Path | None = None) -> TrackRecord:
+    """Return how earlier runs' forecasts turned out against this run's actuals, and the
+    warnings for this run; reads the ledger (never writes it).
+
+    A damaged ledger stops the run here, before anything is written.
+    """
+    path = ledger_path(spec, output_folder)
+    if not path.exists() or (path.is_file() and path.stat().st_size == 0):
+        runs = pd.DataFrame(columns=["run_id", "created", "recommended", "beats_baseline"])
+        realised, latest = _empty_realised(), pd.DataFrame()
+    else:
+        with reading(path) as conn:
+            runs = visible_runs(conn, spec.name)
+            forecasts = _earlier_forecasts(conn, runs, str(data.last_period))
+            expected = _expected_errors(conn, runs["run_id"])
+            latest = _latest_realised(conn, runs)
+        realised = score_forecasts(forecasts, _actuals(spec, data), expected)
+    if len(realised) and len(latest):
+        # Record a score when it is new, or when the actual was revised since it was recorded.
+        key = ["forecast_run_id", "model", "period", "series"]
+        before = realised.merge(latest[key + ["actual"]].rename(columns={"actual": "_before"}),
+                                on=key, how="left")["_before"].astype(float).to_numpy()
+        realised["recorded"] = np.isnan(before) | (before != realised["actual"].to_numpy(float))
+    elif len(realised):
+        realised["recorded"] = True
+    else:
+        realised = _empty_realised()
+    warnings = [w for w in [_realised_warning(realised, runs)] if w]
+    skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
+    if skill:
+        warnings.append(skill)
+    return TrackRecord(ledger=path, realised=realised, by_horizon=summarise_realised(realised),
+                       earlier_runs=len(runs), recommended=dict(zip(runs["run_id"], runs["recommended"])),
+                       warnings=warnings, runs_without_skill=streak)
+
+
+def _markdown(frame: pd.DataFrame) -> str:
+    def cell(value) -> str:
+        if isinstance(value, float):
+            return "n/a" if not math.isfinite(value) else f"{value:.4g}"
+        return str(value)
+    lines = ["| " + " | ".join(frame.columns) + " |", "|" + "|".join(" --- " for _ in frame.columns) + "|"]
+    lines += ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
+    return "\n".join(lines)
+
+
+def track_record_section(track: TrackRecord, runs_shown: int = 12) -> str:
+    """Return the summary's track-record section in Markdown."""
+    lines = ["## Track record", ""]
+    lines += [f"- **Warning:** {w}" for w in track.warnings]
+    if track.warnings:
+        lines.append("")
+    if not track.earlier_runs:
+        lines += [f"This is the first run of this spec in the ledger `{track.ledger}`; later runs "
+                  "score its forecasts as their months' actuals arrive.", ""]
+        return "\n".join(lines)
+    lines += [f"{track.earlier_runs} earlier run(s) of this spec are in the ledger `{track.ledger}`."]
+    table = track.by_horizon
+    table = table[[track.recommended.get(r) == m for r, m in zip(table["forecast_run_id"], table["model"])]]
+    if not len(table):
+        lines += ["None of their forecasts has an actual in this run's data yet.", ""]
+        return "\n".join(lines)
+    runs = list(dict.fromkeys(table["forecast_run_id"]))[-runs_shown:]
+    shown = table[table["forecast_run_id"].isin(runs)]
+    shown = pd.DataFrame({
+        "run": shown["forecast_run_id"], "model": shown["model"], "months ahead": shown["horizon"],
+        "forecasts": shown["n"], "realised MAE": shown["realised_mae"],
+        "expected MAE": shown["expected_mae"], "realised bias": shown["realised_bias"],
+        "inside 80%": shown["inside_80"], "inside 95%": shown["inside_95"]})
+    lines += ["", "How their forecasts turned out now that the months have actuals (each run's "
+              "recommended model; expected MAE is that run's backtest MAE at the same months "
+              "ahead; bias is forecast − actual; inside is the share of actuals within the "
+              "interval the run stated). Every scored forecast is in realised.csv.", "",
+              _markdown(shown), ""]
+    return "\n".join(lines)
+
+
+def with_track_record(summary: str, track: TrackRecord | None) -> str:
+    """Return the summary with the track-record section put before its data section."""
+    if track is None:
+        return summary
+    section = track_record_section(track) + "\n"
+    for heading in ("\n## Data\n", "\n## Cautions\n"):
+        if heading in summary:
+            at = summary.index(heading) + 1
+            return summary[:at] + section + summary[at:]
+    return summary.rstrip("\n") + "\n\n" + section
