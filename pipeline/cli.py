@@ -291,11 +291,13 @@ def _print_comparison(comparison) -> None:
         print("  no month's rows changed")
     print()
     moves = comparison.coefficients
-    print(f"Coefficients: the {len(moves)} largest moves (change_in_se: the change in the "
-          "earlier run's standard errors)")
     if len(moves):
+        print(f"Coefficients: the {len(moves)} largest moves (change_in_se: the change in the "
+              "earlier run's standard errors)")
         _print_table(moves.to_dict(orient="records"), list(moves.columns),
                      align_right=("earlier", "later", "change", "change_in_se"))
+    else:
+        print("Coefficients: no coefficient moved")
     print()
     print("Metrics (backtest; skill = 1 − MAE / MAE of the mean baseline):")
     metrics = comparison.metrics
@@ -397,6 +399,9 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("castline: interrupted; no run folder was written", file=sys.stderr)
         return 130
+    except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
+        sys.stdout = None
+        return EXIT_OK
     except Exception:  # an internal error: keep the traceback for the bug report
         traceback.print_exc()
         print("castline: internal error (a bug in castline, not in your spec or data)",

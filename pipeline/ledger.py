@@ -722,10 +722,10 @@ def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
                       f"outside {_signed(r.backtest_low_95)} to {_signed(r.backtest_high_95)}"
                       for r in outside.head(3).itertuples())
     more = f"; and {len(outside) - 3} more" if len(outside) > 3 else ""
-    return (f"realised accuracy: {len(outside)} of {len(judged)} forecasts that run {latest} made "
-            f"with {recommended} missed by more than the backtest's 95% range of errors "
-            f"(error = forecast − actual): {shown}{more}. The model may be getting worse, or the "
-            "months just past were unusual.")
+    return (f"realised accuracy: {len(outside)} of {len(judged)} forecasts from {latest} "
+            f"({recommended}, the model it recommended) missed by more than the backtest's 95% "
+            f"range of errors (about 1 in 20 would by chance; error = forecast − actual): "
+            f"{shown}{more}. The model may be getting worse, or the months just past were unusual.")
 
 
 def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str | None, int]:
@@ -896,6 +896,8 @@ def plot_history(table: pd.DataFrame, metric: str, path: Path, title: str) -> No
     axes = figure.subplots()
     several = table["spec_name"].nunique() > 1
     for (name, model), rows in table.groupby(["spec_name", "model"], sort=False):
+        if metric == "skill_vs_mean" and model == BASELINE:
+            continue   # 0 by definition: the line drawn at 0 stands for it
         when = pd.to_datetime(rows["created"], utc=True, format="ISO8601")
         axes.plot(when, rows[metric].astype(float), marker="o",
                   label=f"{name}: {model}" if several else model)
@@ -995,6 +997,7 @@ def coefficient_moves(earlier: pd.DataFrame, later: pd.DataFrame, top: int) -> p
     both["change_in_se"] = both["change"] / both["std_error_earlier"]
     both["_rank"] = both["change_in_se"].abs().fillna(-1)
     both["_size"] = both["change"].abs().fillna(np.inf)   # a term added or dropped ranks high
+    both = both[both["change"].ne(0)]   # unchanged terms are not moves (added or dropped ones are)
     both = both.sort_values(["_rank", "_size"], ascending=False, kind="stable")
     columns = ["model", "term", "estimate_earlier", "estimate_later", "change", "change_in_se"]
     return both[columns].rename(columns={"estimate_earlier": "earlier", "estimate_later": "later"}) \
