@@ -192,7 +192,7 @@ def test_two_runs_started_together_both_land_whole(tmp_path):
     outcomes = [child.communicate(timeout=CHILD_LIMIT) for child in children]
     for child, (out, err) in zip(children, outcomes):
         assert child.returncode == 0, err
-        assert "Traceback" not in err
+        assert "Traceback" not in err and "run folder: " in out
     runs = tmp_path / "runs"
     folders = visible(runs)
     assert len(folders) == 2
