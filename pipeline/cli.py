@@ -155,11 +155,6 @@ def _shown(table, columns: list[str]) -> list[dict]:
     return [{c: row[c] for c in columns} for row in rows]
 
 
-def _records(table) -> list[dict]:
-    from .ledger import _plain
-    return [{k: _plain(v) for k, v in row.items()} for row in table.to_dict(orient="records")]
-
-
 def _command_history(args) -> int:
     from . import ledger
     path, name = _ledger_to_read(args)
@@ -186,9 +181,9 @@ def _command_history(args) -> int:
     elif args.format == "json":
         document = {"ledger": str(path), "spec_name": name}
         if show in ("metrics", "all"):
-            document["metrics"] = _records(metrics)
+            document["metrics"] = ledger.json_records(metrics)
         if show in ("realised", "all"):
-            document["realised"] = _records(realised)
+            document["realised"] = ledger.json_records(realised)
         print(json.dumps(document, indent=2, ensure_ascii=False))
     else:
         _print_history(path, name, metrics, realised, show)

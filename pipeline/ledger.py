@@ -340,6 +340,11 @@ def _plain(value):
     return str(value)
 
 
+def json_records(frame: pd.DataFrame) -> list[dict]:
+    """Return a table's rows as JSON-ready dicts (NaN as null, numpy scalars as numbers)."""
+    return [{k: _plain(v) for k, v in row.items()} for row in frame.to_dict(orient="records")]
+
+
 def _insert(conn: sqlite3.Connection, table: str, rows: list[dict]) -> None:
     if not rows:
         return
@@ -1032,8 +1037,7 @@ class Comparison:
 
     def as_dict(self) -> dict:
         """Return the comparison as plain JSON-ready values."""
-        def records(frame: pd.DataFrame) -> list[dict]:
-            return [{k: _plain(v) for k, v in row.items()} for row in frame.to_dict(orient="records")]
+        records = json_records
         return {"earlier": self.earlier, "later": self.later, "given_newest_first": self.swapped,
                 "spec_changes": records(self.spec), "data": self.data_summary(),
                 "months": records(self.months) if self.months_recorded else None,
