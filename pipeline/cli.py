@@ -80,6 +80,7 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+# ledger.HISTORY_METRICS, written out so that building the parser (and --help) loads no pandas.
 PLOT_METRICS = ["mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
 
 

@@ -407,3 +407,7 @@ def test_history_as_csv_and_a_plot(replay, capsys, tmp_path):
     printed = capsys.readouterr().out
     assert f"{RERUNS} run(s) of compost-by-region" in printed
     assert "mean_baseline" not in printed
+
+
+def test_the_plot_metrics_offered_are_the_ones_history_gives():
+    assert cli.PLOT_METRICS == ledger.HISTORY_METRICS
