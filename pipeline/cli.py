@@ -7,6 +7,7 @@ internal error.
 from __future__ import annotations
 
 import argparse
+import json
 import math
 import sys
 import traceback
@@ -53,7 +54,36 @@ def build_parser() -> argparse.ArgumentParser:
     init.add_argument("--thousands", help="CSV: the thousands separator (default none)")
     init.add_argument("--encoding", default="utf-8", help="CSV: the text encoding (default utf-8)")
     init.add_argument("--sheet", default="0", help="Excel: the sheet name or position (default 0)")
+    history = commands.add_parser("history", help="the runs in the run ledger: metrics over time and "
+                                                  "how their forecasts turned out")
+    history.add_argument("spec_or_name", nargs="?", metavar="SPEC_OR_NAME",
+                         help="a spec file (its ledger and name), or a spec's name with --ledger; "
+                              "without it, every run in --ledger")
+    history.add_argument("--ledger", metavar="PATH", help="the ledger file (default: the spec's)")
+    history.add_argument("--show", choices=["metrics", "realised", "all"],
+                         help="the backtest metrics per run, how the forecasts turned out, or both "
+                              "(default: both; metrics for --format csv)")
+    history.add_argument("--format", choices=["table", "csv", "json"], default="table",
+                         help="how to print (default table)")
+    history.add_argument("--model", help="only this model")
+    history.add_argument("--plot", metavar="FILE", help="also draw --metric per model across the "
+                                                        "run dates into this image (.png, .svg, .pdf)")
+    history.add_argument("--metric", default="mae", choices=[*PLOT_METRICS, "skill"],
+                         help="the metric to plot (default mae; skill = skill_vs_mean)")
+    compare = commands.add_parser("compare", help="what changed between two runs: spec keys, data, "
+                                                  "coefficients and metrics")
+    compare.add_argument("first", metavar="RUN_A", help="a run id (or its start) or a run folder")
+    compare.add_argument("second", metavar="RUN_B", help="a run id (or its start) or a run folder")
+    compare.add_argument("--ledger", metavar="PATH", help="the ledger file (default: the one "
+                                                          "beside the run folders given)")
+    compare.add_argument("--format", choices=["table", "json"], default="table")
+    compare.add_argument("--top", type=int, default=10, metavar="N",
+                         help="how many coefficient moves to show (default 10)")
     return parser
+
+
+# ledger.HISTORY_METRICS, written out so that building the parser (and --help) loads no pandas.
+PLOT_METRICS = ["mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
 
 
 def _fmt(value) -> str:
@@ -84,10 +114,193 @@ def _command_run(args) -> int:
         print(f"warning: {warning}")
     for note in result.evaluation.notes:
         print(f"note: {note}")
+    track = result.track
+    for warning in track.warnings if track else []:
+        print(f"warning: {warning}")
     print(f"run folder: {result.folder.path}")
     print(f"report:     {result.folder.report}")
     print(f"summary:    {result.folder.summary}")
+    if track:
+        print(f"ledger:     {track.ledger}")
     return EXIT_OK
+
+
+def _ledger_to_read(args) -> tuple[Path, str | None]:
+    """Return the ledger file and the spec name (if any) a history command asks about."""
+    from .ledger import ledger_path
+    from .spec import load_spec
+    given = args.spec_or_name
+    ledger_file = Path(args.ledger) if args.ledger else None
+    name = None
+    if given:
+        as_path = Path(given)
+        if as_path.is_file() or as_path.suffix.lower() in (".yaml", ".yml"):
+            spec = load_spec(as_path)
+            name, ledger_file = spec.name, ledger_file or ledger_path(spec)
+        else:
+            name = given
+    if ledger_file is None:
+        raise UserError(f"give --ledger PATH to read the runs of '{given}', or give its spec file"
+                        if given else "give a spec file, or --ledger PATH, to say which run "
+                                      "ledger to read")
+    return ledger_file, name
+
+
+def _shown(table, columns: list[str]) -> list[dict]:
+    rows = table.to_dict(orient="records")
+    for row in rows:
+        for key, value in row.items():
+            if isinstance(value, bool):
+                row[key] = "yes" if value else ""
+            elif key in ("created", "forecast_created") and isinstance(value, str):
+                row[key] = value[:19].replace("T", " ")
+            elif value is None:
+                row[key] = float("nan")
+    return [{c: row[c] for c in columns} for row in rows]
+
+
+def _command_history(args) -> int:
+    from . import ledger
+    path, name = _ledger_to_read(args)
+    with ledger.reading(path) as conn:
+        runs = ledger.visible_runs(conn)
+        if not len(runs):
+            raise UserError(f"{path}: no runs recorded yet; 'castline run' records every run here")
+        if name is not None and name not in set(runs["spec_name"]):
+            raise UserError(f"{path}: no runs of '{name}' (recorded: "
+                            f"{', '.join(sorted(set(runs['spec_name'])))})")
+        metrics = ledger.metrics_history(conn, name)
+        realised = ledger.realised_history(conn, name)
+    if args.model:
+        if args.model not in set(metrics["model"]):
+            raise UserError(f"--model: no runs with model '{args.model}' (models: "
+                            f"{', '.join(sorted(set(metrics['model'])))})")
+        metrics = metrics[metrics["model"] == args.model]
+        realised = realised[realised["model"] == args.model]
+    show = args.show or ("metrics" if args.format == "csv" else "all")
+    if args.format == "csv":
+        if show == "all":
+            raise UserError("--format csv writes one table: add --show metrics or --show realised")
+        (metrics if show == "metrics" else realised).to_csv(sys.stdout, index=False)
+    elif args.format == "json":
+        document = {"ledger": str(path), "spec_name": name}
+        if show in ("metrics", "all"):
+            document["metrics"] = ledger.json_records(metrics)
+        if show in ("realised", "all"):
+            document["realised"] = ledger.json_records(realised)
+        print(json.dumps(document, indent=2, ensure_ascii=False))
+    else:
+        _print_history(path, name, metrics, realised, show)
+    if args.plot:
+        metric = "skill_vs_mean" if args.metric == "skill" else args.metric
+        title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
+        ledger.plot_history(metrics, metric, Path(args.plot), title)
+        if args.format == "table":
+            print(f"plot written to {args.plot}")
+    return EXIT_OK
+
+
+def _print_history(path: Path, name: str | None, metrics, realised, show: str) -> None:
+    runs = metrics.drop_duplicates("run_id")
+    print(f"ledger: {path}; {len(runs)} run(s)" + (f" of {name}" if name else "")
+          + f", {runs['created'].iloc[0][:10]} to {runs['created'].iloc[-1][:10]}")
+    several = name is None and metrics["spec_name"].nunique() > 1
+    lead = ["spec_name"] if several else []
+    if show in ("metrics", "all"):
+        print()
+        print("Backtest metrics per run (change: from the run before; skill = 1 − MAE / MAE of "
+              "the mean baseline):")
+        _print_table(_shown(metrics, [*lead, "created", "run_id", "last_period", "model", "mae",
+                                      "mae_change", "rmse", "rmse_change", "skill_vs_mean",
+                                      "skill_vs_mean_change", "recommended"]),
+                     [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
+                      "rmse_change", "skill_vs_mean", "skill_vs_mean_change", "recommended"],
+                     align_right=("mae", "mae_change", "rmse", "rmse_change", "skill_vs_mean",
+                                  "skill_vs_mean_change"))
+    if show in ("realised", "all"):
+        print()
+        if not len(realised):
+            print("How the forecasts turned out: none of the forecasts has an actual in a later "
+                  "run's data yet.")
+            return
+        print("How the forecasts turned out (error = forecast − actual; expected = the run's "
+              "backtest MAE at the same months ahead; inside = share of actuals within the "
+              "stated interval):")
+        columns = [*lead, "forecast_created", "forecast_run_id", "model", "horizon", "n",
+                   "realised_mae", "expected_mae", "realised_bias", "inside_80", "inside_95",
+                   "scored_through"]
+        _print_table(_shown(realised, columns), columns,
+                     align_right=("horizon", "n", "realised_mae", "expected_mae", "realised_bias",
+                                  "inside_80", "inside_95"))
+
+
+def _command_compare(args) -> int:
+    from . import ledger
+    references, beside = [], None
+    for given in (args.first, args.second):
+        folder = Path(given)
+        if folder.is_dir():
+            references.append(folder.resolve().name)
+            beside = beside or folder.resolve().parent / ledger.LEDGER_FILE
+        else:
+            references.append(given)
+    path = Path(args.ledger) if args.ledger else beside
+    if path is None:
+        raise UserError("give --ledger PATH to find runs by id, or give the run folders")
+    if args.top < 1:
+        raise UserError("--top: give 1 or more")
+    with ledger.reading(path) as conn:
+        comparison = ledger.compare_runs(conn, references[0], references[1], path, top=args.top)
+    if args.format == "json":
+        print(json.dumps(comparison.as_dict(), indent=2, ensure_ascii=False))
+    else:
+        _print_comparison(comparison)
+    return EXIT_OK
+
+
+def _print_comparison(comparison) -> None:
+    for word, run in (("earlier", comparison.earlier), ("later", comparison.later)):
+        print(f"{word + ':':8} {run['run_id']} ({run['created'][:19].replace('T', ' ')}; "
+              f"actuals {run['first_period']} to {run['last_period']}, {run['history_rows']} rows; "
+              f"recommended {run['recommended']}; castline {run['castline_version']})")
+    if comparison.swapped:
+        print("(the runs were given newest first; changes are read from the earlier to the later)")
+    print()
+    spec = comparison.spec
+    if not len(spec):
+        print(f"Spec: the same resolved spec (sha256 {comparison.later['spec_hash'][:12]}…)")
+    else:
+        print(f"Spec: {len(spec)} key(s) differ")
+        _print_table(spec.to_dict(orient="records"), ["key", "earlier", "later"], align_right=())
+    print()
+    data = comparison.data_summary()
+    same = "the same input file bytes" if data["same_input"] else (
+        f"the input changed (sha256 {comparison.earlier['input_sha256'][:12]}… → "
+        f"{comparison.later['input_sha256'][:12]}…)")
+    print(f"Data: {same}; rows with actuals {data['rows_with_actuals_earlier']} → "
+          f"{data['rows_with_actuals_later']} ({data['rows_with_actuals_added']:+d})")
+    if not comparison.months_recorded:
+        print("  months: not compared (a run was recorded before the ledger kept a fingerprint "
+              "of each month)")
+    elif len(comparison.months):
+        _print_table(comparison.months.to_dict(orient="records"),
+                     ["period", "change", "earlier_actual_rows", "later_actual_rows"],
+                     align_right=("earlier_actual_rows", "later_actual_rows"))
+    else:
+        print("  no month's rows changed")
+    print()
+    moves = comparison.coefficients
+    if len(moves):
+        print(f"Coefficients: the {len(moves)} largest moves (change_in_se: the change in the "
+              "earlier run's standard errors)")
+        _print_table(moves.to_dict(orient="records"), list(moves.columns),
+                     align_right=("earlier", "later", "change", "change_in_se"))
+    else:
+        print("Coefficients: no coefficient moved")
+    print()
+    print("Metrics (backtest; skill = 1 − MAE / MAE of the mean baseline):")
+    metrics = comparison.metrics
+    _print_table(metrics.to_dict(orient="records"), list(metrics.columns))
 
 
 def _write_problems(path: str, problems) -> None:
@@ -185,8 +398,9 @@ def _command_init(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     """Run the castline command line and return its exit code."""
     args = build_parser().parse_args(argv)
-    handlers = {"run": _command_run, "check": _command_check, "init": _command_init, "report": _command_report,
-                "forecast": _command_forecast}
+    handlers = {"run": _command_run, "check": _command_check, "init": _command_init,
+                "report": _command_report, "forecast": _command_forecast,
+                "history": _command_history, "compare": _command_compare}
     try:
         return handlers[args.command](args)
     except UserError as mistake:
@@ -195,6 +409,9 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("castline: interrupted; no run folder was written", file=sys.stderr)
         return 130
+    except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
+        sys.stdout = None
+        return EXIT_OK
     except Exception:  # an internal error: keep the traceback for the bug report
         traceback.print_exc()
         print("castline: internal error (a bug in castline, not in your spec or data)",

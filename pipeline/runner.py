@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from . import ledger
 from .errors import DataError
 from .spec import Spec, load_spec
 from .stages.backtest import BacktestResult, plan_splits, run_backtest
@@ -28,6 +29,7 @@ class RunResult:
     evaluation: Evaluation
     forecast_result: ForecastResult
     folder: RunFolder
+    track: ledger.TrackRecord | None = None   # earlier runs' forecasts scored against this data
 
     @property
     def metrics(self) -> pd.DataFrame:
@@ -47,7 +49,13 @@ class RunResult:
 
     @property
     def warnings(self) -> list[str]:
-        return self.forecast_result.warnings + self.evaluation.notes
+        track = self.track.warnings if self.track else []
+        return self.forecast_result.warnings + self.evaluation.notes + track
+
+    @property
+    def realised(self) -> pd.DataFrame:
+        """Return the earlier forecasts whose months have actuals in this run's data, scored."""
+        return self.track.realised if self.track else pd.DataFrame()
 
 
 def _as_spec(spec_or_path: Spec | str | Path) -> Spec:
@@ -86,7 +94,8 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
         backtest = run_backtest(spec, data)
         evaluation = evaluate(spec, backtest)
         forecast = make_forecast(spec, data, backtest)
+    track = ledger.track_record(spec, data, evaluation, output_folder=output_folder)
     folder = publish(spec, data, backtest, evaluation, forecast,
-                     output_folder=Path(output_folder) if output_folder else None)
+                     output_folder=Path(output_folder) if output_folder else None, track=track)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
-                     forecast_result=forecast, folder=folder)
+                     forecast_result=forecast, folder=folder, track=track)

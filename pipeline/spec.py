@@ -359,6 +359,12 @@ class Scenario(StrictModel):
 
 class OutputSection(StrictModel):
     folder: Path = Field(description="run folders are created inside it")
+    ledger: Path | None = Field(
+        None, description="the run ledger, an SQLite file that records every run; default "
+                          "ledger.sqlite in the folder the run folders are written to")
+    warn_after_runs_without_skill: int = Field(
+        3, strict=True, ge=1, description="warn when the recommended model has not beaten the "
+                                          "mean baseline in this many runs in a row")
 
 
 class Spec(StrictModel):
@@ -683,9 +689,12 @@ def load_spec(path: str | Path) -> Spec:
     output_folder = _resolve(spec.output.folder, base)
     if output_folder.exists() and not output_folder.is_dir():
         raise fail(("output", "folder"), f"exists and is not a folder: {output_folder}")
+    ledger_file = _resolve(spec.output.ledger, base) if spec.output.ledger else None
+    if ledger_file is not None and ledger_file.is_dir():
+        raise fail(("output", "ledger"), f"is a folder, not a ledger file: {ledger_file}")
     resolved = spec.model_copy(update={
         "input": spec.input.model_copy(update={"file": data_file}),
-        "output": spec.output.model_copy(update={"folder": output_folder}),
+        "output": spec.output.model_copy(update={"folder": output_folder, "ledger": ledger_file}),
     })
     resolved._source = spec_path
     resolved._lines = lines

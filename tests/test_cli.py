@@ -298,7 +298,7 @@ def test_run_prints_the_run_folder_and_summary_and_they_exist(outcomes):
     assert summary_path.parent == folder_path
     # output.folder is ../reports, read from the spec's folder (configs/), not from cwd
     assert folder_path.parent == (outcome.cwd / "reports").resolve()
-    assert [p.name for p in folder_path.parent.iterdir()] == [folder_path.name]
+    assert sorted(p.name for p in folder_path.parent.iterdir()) == sorted([folder_path.name, "ledger.sqlite"])
     assert "mean_baseline" in outcome.stdout and "ols" in outcome.stdout
 
 

@@ -14,8 +14,10 @@ import json
 import os
 import re
 import shutil
+import sqlite3
 import subprocess
 import sys
+from contextlib import closing
 from pathlib import Path
 
 import numpy as np
@@ -290,7 +292,7 @@ def test_two_runs_give_two_folders_that_sort_by_time(tmp_path):
     first = pipeline.run(DEMO_SPEC, output_folder=tmp_path).folder.path
     second = pipeline.run(DEMO_SPEC, output_folder=tmp_path).folder.path
     assert first != second
-    assert sorted(p.name for p in tmp_path.iterdir()) == [first.name, second.name]
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([first.name, second.name, "ledger.sqlite"])
     for folder in (first, second):
         assert RUN_FILES <= {p.name for p in folder.iterdir()}
 
@@ -309,7 +311,11 @@ def earlier_run(tmp_path):
 
 
 def assert_only_the_earlier_run(out: Path, folder: Path, before: dict[str, bytes]) -> None:
-    assert [p.name for p in out.iterdir()] == [folder.name], "a failed run left a folder behind"
+    assert sorted(p.name for p in out.iterdir()) == sorted([folder.name, "ledger.sqlite"]), \
+        "a failed run left a folder behind"
+    with closing(sqlite3.connect(out / "ledger.sqlite")) as ledger:
+        assert ledger.execute("SELECT run_id FROM runs").fetchall() == [(folder.name,)], \
+            "a failed run left a row in the run ledger"
     assert tree_bytes(folder) == before, "a failed run changed an earlier run"
 
 

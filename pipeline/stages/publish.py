@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import secrets
 import shutil
 from dataclasses import dataclass
@@ -20,7 +19,7 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from .. import __version__
+from .. import __version__, ledger
 from ..errors import UserError
 from ..report import CAUTIONS, build_report
 from ..spec import Spec
@@ -217,8 +216,9 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
 
 
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
-            forecast: ForecastResult, *, output_folder: Path | None = None) -> RunFolder:
-    """Write the run folder atomically and return where it landed."""
+            forecast: ForecastResult, *, output_folder: Path | None = None,
+            track: ledger.TrackRecord | None = None) -> RunFolder:
+    """Write the run folder atomically, record it in the run ledger, and return where it landed."""
     folder = Path(output_folder) if output_folder else spec.output.folder
     try:
         folder.mkdir(parents=True, exist_ok=True)
@@ -235,6 +235,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         data_print = fingerprint(data)
         resolved = spec.model_dump(mode="json")
         resolved["output"]["folder"] = str(folder.resolve())
+        resolved["output"]["ledger"] = str(ledger.ledger_path(spec, folder))
         (staging / "spec.yaml").write_text(
             yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True), encoding="utf-8")
         (staging / "fingerprint.json").write_text(json.dumps(data_print, indent=2), encoding="utf-8")
@@ -270,12 +271,16 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
             period=lambda t: t["period"].astype(str)).to_csv(staging / "history.csv", index=False)
         forecast.residuals.to_csv(staging / "residuals.csv", index=False)
-        (staging / "summary.md").write_text(
-            render_summary(spec, run_id, created, data_print, evaluation, forecast),
+        if track is not None:
+            track.realised.to_csv(staging / "realised.csv", index=False)
+        (staging / "summary.md").write_text(ledger.with_track_record(
+            render_summary(spec, run_id, created, data_print, evaluation, forecast), track),
             encoding="utf-8")
         build_report(staging)
         final = folder / run_id
-        os.rename(staging, final)
+        ledger.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,
+                                created=now, spec=spec, resolved=resolved, data=data,
+                                evaluation=evaluation, forecast=forecast, track=track)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
