@@ -523,8 +523,13 @@ def _union_member(current: Any, tag: Any) -> type[BaseModel] | None:
     return None
 
 
-def _without_tags(loc: KeyPath) -> KeyPath:
-    """Return an error location without the union tags pydantic inserts (validation.holdout.x)."""
+def _walk(loc: KeyPath) -> tuple[KeyPath, Any]:
+    """Follow an error location through the spec's sections.
+
+    Return the location without the union tags pydantic inserts
+    (validation.holdout.x becomes validation.x) and the type found at its end
+    (None where the path leaves the spec's sections).
+    """
     kept: list = []
     current: Any = Spec
     for part in loc:
@@ -536,45 +541,32 @@ def _without_tags(loc: KeyPath) -> KeyPath:
         if isinstance(part, int):
             args = typing.get_args(current)
             current = args[0] if args else None
+        elif typing.get_origin(current) is dict:   # a mapping of names (columns) to sections
+            current = typing.get_args(current)[1]
         elif isinstance(current, type) and issubclass(current, BaseModel) and part in current.model_fields:
             current = current.model_fields[part].annotation
+            # Unwrap Annotated, Optional and single-member unions down to the class.
+            while typing.get_origin(current) in (Annotated, Union, types.UnionType):
+                members = [a for a in typing.get_args(current) if a is not type(None)]
+                if typing.get_origin(current) is Annotated:
+                    members = members[:1]
+                if len(members) != 1:
+                    break
+                current = members[0]
         else:
             current = None
-    return tuple(kept)
+    return tuple(kept), current
+
+
+def _without_tags(loc: KeyPath) -> KeyPath:
+    """Return an error location without the union tags pydantic inserts."""
+    return _walk(loc)[0]
 
 
 def _section_class(path: KeyPath) -> type[BaseModel] | None:
     """Return the spec section class found at the key path, if the path leads to one."""
-    current: Any = Spec
-    for part in path:
-        tagged = _union_member(current, part)
-        if tagged is not None:
-            current = tagged
-            continue
-        if isinstance(part, int):
-            args = typing.get_args(current)
-            current = args[0] if args else None
-            continue
-        if typing.get_origin(current) is dict:   # a mapping of names (columns) to sections
-            current = typing.get_args(current)[1]
-            continue
-        if not (isinstance(current, type) and issubclass(current, BaseModel)):
-            return None
-        field = current.model_fields.get(part)
-        if field is None:
-            return None
-        current = field.annotation
-        # Unwrap Annotated, Optional and single-member unions down to the class.
-        while typing.get_origin(current) in (Annotated, Union, types.UnionType):
-            members = [a for a in typing.get_args(current) if a is not type(None)]
-            if typing.get_origin(current) is Annotated:
-                members = members[:1]
-            if len(members) != 1:
-                break
-            current = members[0]
-    if isinstance(current, type) and issubclass(current, BaseModel):
-        return current
-    return None
+    current = _walk(path)[1]
+    return current if isinstance(current, type) and issubclass(current, BaseModel) else None
 
 
 def _describe(error: dict[str, Any]) -> str:
