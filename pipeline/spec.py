@@ -403,6 +403,7 @@ class Spec(StrictModel):
 
     _source: Path | None = PrivateAttr(None)
     _lines: dict = PrivateAttr(default_factory=dict)
+    _written_models: list = PrivateAttr(default_factory=list)   # kinds in the file's order
 
     def error(self, key: KeyPath, message: str) -> SpecError:
         """Return a SpecError placed at a key of the spec file this spec was read from."""
@@ -669,6 +670,8 @@ def load_spec(path: str | Path) -> Spec:
                         key=format_key_path(loc) or None) from None
 
     spec._source = spec_path
+    written = data.get("models") if isinstance(data.get("models"), list) else []
+    spec._written_models = [m.get("kind") if isinstance(m, dict) else m for m in written]
     spec._lines = lines
     fail = spec.error
     _check_roles(spec, fail)
@@ -743,8 +746,10 @@ def _check_models(spec: Spec, fail) -> None:
     """Refuse models and metrics that need a time order under a scheme without one."""
     if spec.validation.method in TIME_ORDERED:
         return
-    for index, choice in enumerate(spec.models[1:]):
+    written = spec._written_models or [m.kind for m in spec.models[1:]]
+    for choice in spec.models[1:]:
         if choice.kind in ("last_value", "seasonal_naive", "drift"):
+            index = written.index(choice.kind) if choice.kind in written else 0
             raise fail(("models", index), f"'{choice.kind}' needs months in time order; "
                        f"validation method '{spec.validation.method}' has none")
     if spec.select_by == "mase":

@@ -407,9 +407,6 @@ def test_time_based_baselines_under_kfold_are_refused_at_their_line(kind, valida
     assert kind in str(raised.value) and "time order" in str(raised.value)
 
 
-@pytest.mark.xfail(strict=True, reason="spec._check_models numbers models after the prepended mean "
-                   "baseline: with mean_baseline listed first, the error points at models[0] "
-                   "(the mean_baseline line) instead of the refused model")
 def test_refused_baseline_is_placed_at_its_own_line_when_mean_baseline_is_listed(tmp_path):
     path = write_spec(tmp_path, panel(n_series=2, n_months=12), validation={"method": "kfold", "folds": 3},
                       models=["mean_baseline", "drift"], numeric=["x1"])
