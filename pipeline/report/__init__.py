@@ -64,6 +64,25 @@ def _environment() -> jinja2.Environment:
     return environment
 
 
+def markdown_table(frame: pd.DataFrame) -> str:
+    """Return a table in Markdown, numbers as the report shows them, pipes escaped."""
+    def cell(value) -> str:
+        return format_number(value).replace("|", "\\|").replace("\n", " ")
+    header = "| " + " | ".join(cell(c) for c in frame.columns) + " |"
+    rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
+    body = ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
+    return "\n".join([header, rule, *body])
+
+
+def render_markdown(template: str, **context) -> str:
+    """Return a Markdown template rendered (Markdown is not HTML: tables escape their pipes)."""
+    environment = jinja2.Environment(loader=jinja2.PackageLoader("pipeline.report", "templates"),
+                                     autoescape=False, undefined=jinja2.StrictUndefined,
+                                     trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+    environment.filters["table"] = markdown_table
+    return environment.get_template(template).render(**context)
+
+
 def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
     path = folder / name
     if not path.exists() or path.stat().st_size == 0:

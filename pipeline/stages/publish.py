@@ -21,7 +21,7 @@ import yaml
 
 from .. import __version__, ledger
 from ..errors import UserError
-from ..report import CAUTIONS, build_report
+from ..report import CAUTIONS, build_report, render_markdown
 from ..spec import Spec
 from ..stored_model import model_document
 from .backtest import BacktestResult
@@ -92,17 +92,6 @@ def fingerprint(data: CheckedData) -> dict:
     }
 
 
-def _markdown_table(frame: pd.DataFrame, digits: int = 4) -> str:
-    def cell(value) -> str:
-        if isinstance(value, float):
-            return "n/a" if not math.isfinite(value) else f"{value:.{digits}g}"
-        return str(value).replace("|", "\\|")
-    header = "| " + " | ".join(str(c) for c in frame.columns) + " |"
-    rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
-    body = ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
-    return "\n".join([header, rule, *body])
-
-
 def describe_validation(spec: Spec) -> str:
     """Return the validation scheme in words."""
     v = spec.validation
@@ -131,88 +120,42 @@ def _trusted_method(evaluation: Evaluation, model: str, rows: pd.DataFrame) -> s
 
 def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
                    evaluation: Evaluation, forecast: ForecastResult) -> str:
-    """Return the run's summary in Markdown: the answer first, the evidence after."""
-    table = evaluation.table[["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2",
-                              "bias", "skill_vs_mean", "against_mean"]]
-    lines = [
-        f"# {spec.name}: forecast run {run_id}",
-        "",
-        "## The answer",
-        "",
-        evaluation.verdict,
-        "",
-        f"Recommended model: **{evaluation.recommended}** (best {evaluation.select_by.upper()} "
-        "out of sample" + ("" if evaluation.beats_baseline or evaluation.recommended == "mean_baseline"
-                           else "; not significantly better than the mean baseline") + ").",
-        "",
-        f"## Model comparison ({describe_validation(spec)})",
-        "",
-        _markdown_table(table),
-        "",
-        "MAPE, sMAPE and WAPE are fractions (0.05 = 5%). MASE divides each error by the "
-        "in-sample error of the same-month-last-year forecast (below 1 beats it). R² is out of "
-        "sample. Bias is prediction − actual: positive means the forecasts ran high. Skill is "
-        "1 − MAE / MAE of the mean baseline.",
-        "",
-    ]
+    """Return the run's summary in Markdown (from its template): the answer first, the evidence after."""
+    def some(frame: pd.DataFrame) -> pd.DataFrame | None:
+        return frame if len(frame) else None
+
+    comparison = evaluation.table[["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2",
+                                   "bias", "skill_vs_mean", "against_mean"]]
     recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
-    lines += ["## Forecast", ""]
+    method = shown = None
     if len(recommended):
         method = _trusted_method(evaluation, evaluation.recommended, recommended)
         shown = recommended[["period", "series", "forecast"]].copy()
         for level in ("80", "95"):
             shown[f"{level}% from"] = recommended[f"{method}_low_{level}"].to_numpy()
             shown[f"{level}% to"] = recommended[f"{method}_high_{level}"].to_numpy()
-        lines += [f"From the {evaluation.recommended} model, refitted on all history, with "
-                  f"{method} intervals:", "", _markdown_table(shown), ""]
-    else:
-        lines += ["The input has no future rows (rows without the target after the last "
-                  "actual), so there is nothing to forecast yet.", ""]
-    if len(evaluation.coverage):
-        lines += ["## How often the intervals held in the backtest", "",
-                  "The share of backtest actuals that fell inside each kind of interval. An 80% "
-                  "interval should hold about 80% of the time; trust the method that comes closest.",
-                  "", _markdown_table(evaluation.coverage), ""]
+    scenarios = None
     if len(forecast.scenarios):
-        main = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended]
-        lines += ["## Scenarios", "", f"What-if forecasts from the {evaluation.recommended} model "
-                  "and their difference from the base forecast:", "",
-                  _markdown_table(main.drop(columns=["model"])), ""]
+        scenarios = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended].drop(columns=["model"])
     terms = forecast.coefficients[forecast.coefficients["model"] == evaluation.recommended]
     if not len(terms) or evaluation.recommended in ("mean_baseline", "last_value", "seasonal_naive", "drift"):
         terms = forecast.coefficients[forecast.coefficients["model"] == "ols"]
-    if len(terms):
-        model = str(terms["model"].iloc[0])
-        kind = terms["standard_errors"].iloc[0] if "standard_errors" in terms else None
-        heading = f"## Drivers ({model} on all history" + (f", {kind} standard errors)" if kind else ")")
-        lines += [heading, "", _markdown_table(terms.drop(columns=["model"]).dropna(axis=1, how="all")), ""]
-    if len(forecast.fit_summary):
-        lines += ["## Fit", "", _markdown_table(forecast.fit_summary), ""]
+    diagnostics = None
     if len(forecast.diagnostics):
-        table = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
-        table["flagged"] = np.where(table["flagged"], "FLAG", "")
-        lines += ["## Residual checks (OLS on all history)", "", _markdown_table(table), ""]
-        if len(forecast.influential):
-            lines += ["Most influential rows (Cook's distance):", "",
-                      _markdown_table(forecast.influential), ""]
-    notes = forecast.warnings + evaluation.notes
-    if notes:
-        lines += ["## Warnings and notes", "", *[f"- {note}" for note in notes], ""]
-    lines += [
-        "## Data", "",
-        f"- file: `{data_print['file']}` (sha256 `{data_print['sha256'][:16]}…`)",
-        f"- rows: {data_print['rows']} ({data_print['history_rows']} with actuals, "
-        f"{data_print['future_rows']} to forecast)",
-        f"- periods: {data_print['first_period']} to {data_print['last_period']}",
-        f"- series: {', '.join(data_print['series'])}",
-        "- checks: every column rule and calendar check passed"
-        + (" except these, allowed by the spec:" if data_print["problems_allowed"] else ""),
-        *[f"  - {p['check']}: column '{p['column']}', {p['value']} ({p['count']} in all)"
-          for p in data_print["problems_allowed"]], "",
-        "## Cautions", "", *[f"- {text}" for text in CAUTIONS], "",
-        f"castline {__version__}, run {run_id}, {created}", "",
-    ]
-    return "\n".join(lines)
+        diagnostics = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
+        diagnostics["flagged"] = np.where(diagnostics["flagged"], "FLAG", "")
+    return render_markdown(
+        "summary.md.j2", spec_name=spec.name, run_id=run_id, created=created,
+        verdict=evaluation.verdict, recommended=evaluation.recommended,
+        select_by=evaluation.select_by, beats=evaluation.beats_baseline,
+        validation=describe_validation(spec), comparison=comparison, forecast=shown, method=method,
+        coverage=some(evaluation.coverage), scenarios=scenarios,
+        terms=terms.drop(columns=["model"]).dropna(axis=1, how="all") if len(terms) else None,
+        terms_model=str(terms["model"].iloc[0]) if len(terms) else "",
+        standard_errors=terms["standard_errors"].iloc[0] if len(terms) and "standard_errors" in terms else None,
+        fit=some(forecast.fit_summary), diagnostics=diagnostics, influential=some(forecast.influential),
+        notes=forecast.warnings + evaluation.notes, data=data_print, cautions=CAUTIONS,
+        castline_version=__version__)
 
 
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
