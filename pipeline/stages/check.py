@@ -109,6 +109,11 @@ def _on_numbers(test):
 
 
 _finite = _on_numbers(lambda v: ~np.isinf(v))
+# Beyond this size a value's square (and the sums of squares a fit takes) can overflow:
+# squares of values up to 1e150, summed over up to 1e8 rows, stay below the largest
+# double, about 1.8e308 (numpy.finfo(float).max). Infinities are reported by _finite.
+HUGE = 1e150
+_not_huge = _on_numbers(lambda v: (np.abs(v) <= HUGE) | np.isinf(v))
 _whole = _on_numbers(lambda v: v == np.round(v))
 
 
@@ -135,6 +140,7 @@ def _column_schema(rule: ColumnRule) -> pa.Column:
     checks: list[pa.Check] = []
     if rule.type in ("number", "whole_number"):
         checks.append(pa.Check(_finite, error="is infinite"))
+        checks.append(pa.Check(_not_huge, error=f"too large to compute with (beyond ±{HUGE:.0e})"))
         if rule.type == "whole_number":
             checks.append(pa.Check(_whole, error="not a whole number"))
         low, high = rule.min, rule.max
@@ -414,7 +420,8 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
         return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
-    frame[SERIES] = _series_labels(frame, spec.input.series)
+    # Plain Python strings: the series labels are read as arrays many times downstream.
+    frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
     problems = _duplicates(frame, spec)
     allowed: list[Problem] = []
