@@ -181,7 +181,8 @@ def _command_history(args) -> int:
     if args.format == "csv":
         if show == "all":
             raise UserError("--format csv writes one table: add --show metrics or --show realised")
-        (metrics if show == "metrics" else realised).to_csv(sys.stdout, index=False)
+        from .safe_csv import write_csv
+        write_csv(metrics if show == "metrics" else realised, sys.stdout)
     elif args.format == "json":
         document = {"ledger": str(path), "spec_name": name}
         if show in ("metrics", "all"):
@@ -304,10 +305,11 @@ def _print_comparison(comparison) -> None:
 
 
 def _write_problems(path: str, problems) -> None:
+    from .safe_csv import write_csv
     from .stages.check import problems_table
     target = Path(path)
     try:
-        problems_table(problems).to_csv(target, index=False)
+        write_csv(problems_table(problems), target)
     except OSError as exc:
         raise UserError(f"{target}: cannot write the problems file: {exc.strerror}") from None
     print(f"problems written to {target}")
@@ -355,8 +357,9 @@ def _command_forecast(args) -> int:
     frame = read_table(data_path, guess_format(data_path))
     table = stored.forecast(frame, args.model, file=str(data_path))
     if args.output:
+        from .safe_csv import write_csv
         try:
-            table.to_csv(args.output, index=False)
+            write_csv(table, args.output)
         except OSError as exc:
             raise UserError(f"{args.output}: cannot write the forecasts: {exc.strerror}") from None
         print(f"forecasts written to {args.output}")

@@ -86,6 +86,10 @@ class InputSection(StrictModel):
     gaps: Literal["refuse", "allow", "fill"] = Field(
         "refuse", description="months missing inside a series: refuse, allow, or fill by "
                               "interpolating between the neighbouring months")
+    max_rows: int | None = Field(None, strict=True, ge=1,
+                                 description="refuse a file with more rows than this")
+    max_megabytes: float | None = Field(None, gt=0,
+                                        description="refuse a file larger than this (1 MB = 10^6 bytes)")
 
     @property
     def resolved_format(self) -> str:
@@ -415,6 +419,14 @@ class Spec(StrictModel):
     def source(self) -> Path | None:
         """Return the spec file this spec was read from, if any."""
         return self._source
+
+    @field_validator("name", mode="before")
+    @classmethod
+    def _plain_name(cls, value: Any) -> Any:
+        # The name is written into files and the ledger: it may never read as a path.
+        if isinstance(value, str) and ("/" in value or "\\" in value or ".." in value):
+            raise ValueError("a name, not a path: '/', '\\' and '..' are refused")
+        return value
 
     @field_validator("models", mode="before")
     @classmethod

@@ -79,7 +79,8 @@ def _looks_like(head: bytes) -> str | None:
     return None
 
 
-def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
+def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = (),
+              nrows: int | None = None) -> pd.DataFrame:
     head = _head(path)
     kind = _looks_like(head)
     if kind:
@@ -89,7 +90,8 @@ def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = (
         else options.encoding
     frame = pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
                         thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
-                        skipinitialspace=True, dtype={c: str for c in text_columns} or None)
+                        skipinitialspace=True, dtype={c: str for c in text_columns} or None,
+                        nrows=nrows)
     # Blank lines inside the file stay (as empty rows, at their line); those at its end go.
     empty = frame.isna().all(axis=1).to_numpy()
     if empty.any() and empty[-1]:
@@ -106,11 +108,11 @@ def _read_parquet(path: Path) -> pd.DataFrame:
     return pd.read_parquet(path)
 
 
-def _read_excel(sheet: str | int, path: Path) -> pd.DataFrame:
+def _read_excel(sheet: str | int, path: Path, nrows: int | None = None) -> pd.DataFrame:
     if not _head(path, 4) == b"PK\x03\x04":
         raise DataError("is not an Excel .xlsx workbook", file=str(path))
     try:
-        return pd.read_excel(path, sheet_name=sheet, engine="openpyxl")
+        return pd.read_excel(path, sheet_name=sheet, engine="openpyxl", nrows=nrows)
     except (ValueError, KeyError) as exc:
         if "not found" in str(exc) or "Worksheet" in str(exc) or isinstance(exc, IndexError):
             raise DataError(f"has no sheet {sheet!r}", file=str(path)) from None
@@ -118,22 +120,31 @@ def _read_excel(sheet: str | int, path: Path) -> pd.DataFrame:
 
 
 def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
-               sheet: str | int = 0, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
+               sheet: str | int = 0, text_columns: tuple[str, ...] = (),
+               max_rows: int | None = None, max_megabytes: float | None = None) -> pd.DataFrame:
     """Return a data file's rows as read, column names stripped.
 
-    Raises DataError naming the file when it is empty, unreadable or not of the format.
+    Raises DataError naming the file when it is empty, unreadable, not of the format, or
+    beyond the limits: larger than max_megabytes (checked before reading) or holding more
+    than max_rows rows (CSV and Excel stop reading one row past the limit).
     """
     csv = csv or CsvOptions()
     shown = str(path)
+    # One row past the limit is enough to know the limit is exceeded.
+    nrows = max_rows + 1 if max_rows is not None else None
     try:
-        if path.stat().st_size == 0:
+        size = path.stat().st_size
+        if size == 0:
             raise DataError("the file is empty (0 bytes)", file=shown)
+        if max_megabytes is not None and size > max_megabytes * 1e6:
+            raise DataError(f"the file is {size / 1e6:.3g} MB, above the limit input.max_megabytes: "
+                            f"{max_megabytes:g}; raise the limit or cut the file", file=shown)
         if file_format == "parquet":
             frame = _read_parquet(path)
         elif file_format == "excel":
-            frame = _read_excel(sheet, path)
+            frame = _read_excel(sheet, path, nrows)
         else:
-            frame = _read_csv(csv, path, text_columns)
+            frame = _read_csv(csv, path, text_columns, nrows)
     except DataError:
         raise
     except pd.errors.EmptyDataError:
@@ -157,6 +168,9 @@ def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
         raise
     if frame.empty:
         raise DataError("the file has a header but no rows", file=shown)
+    if max_rows is not None and len(frame) > max_rows:
+        raise DataError(f"the file holds more than {max_rows} rows, the limit input.max_rows: "
+                        f"{max_rows}; raise the limit or cut the file", file=shown)
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame.reset_index(drop=True)
 
@@ -166,5 +180,6 @@ def read_input(spec: Spec) -> RawInput:
     path = spec.input.file
     file_format = spec.input.resolved_format
     frame = read_table(path, file_format, spec.input.csv, spec.input.sheet,
-                       text_columns=tuple(text_columns(spec)))
+                       text_columns=tuple(text_columns(spec)), max_rows=spec.input.max_rows,
+                       max_megabytes=spec.input.max_megabytes)
     return RawInput(frame=frame, path=path, file_format=file_format, sha256=file_sha256(path))

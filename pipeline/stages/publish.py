@@ -22,6 +22,7 @@ import yaml
 from .. import __version__, ledger
 from ..errors import UserError
 from ..report import CAUTIONS, build_report, render_markdown
+from ..safe_csv import write_csv
 from ..spec import Spec
 from ..stored_model import model_document
 from .backtest import BacktestResult
@@ -173,6 +174,9 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
     run_id = new_run_id(now)
     created = now.isoformat(timespec="seconds")
     staging = folder / f".incomplete-{run_id}"
+    if staging.resolve().parent != folder.resolve() or (folder / run_id).resolve().parent != folder.resolve():
+        raise UserError(f"{folder}: run id {run_id!r} would place the run folder outside the "
+                        "output folder")
     staging.mkdir()
     try:
         data_print = fingerprint(data)
@@ -199,23 +203,23 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         metrics["interval_coverage"] = _records(evaluation.coverage)
         metrics["diagnostics"] = _records(forecast.diagnostics)
         (staging / "metrics.json").write_text(json.dumps(metrics, indent=2), encoding="utf-8")
-        backtest.predictions.to_csv(staging / "predictions.csv", index=False)
-        forecast.coefficients.to_csv(staging / "coefficients.csv", index=False)
-        forecast.forecast.to_csv(staging / "forecast.csv", index=False)
-        forecast.diagnostics.to_csv(staging / "diagnostics.csv", index=False)
-        forecast.vif.to_csv(staging / "vif.csv", index=False)
-        forecast.influential.to_csv(staging / "influential_rows.csv", index=False)
-        evaluation.coverage.to_csv(staging / "interval_coverage.csv", index=False)
+        write_csv(backtest.predictions, staging / "predictions.csv")
+        write_csv(forecast.coefficients, staging / "coefficients.csv")
+        write_csv(forecast.forecast, staging / "forecast.csv")
+        write_csv(forecast.diagnostics, staging / "diagnostics.csv")
+        write_csv(forecast.vif, staging / "vif.csv")
+        write_csv(forecast.influential, staging / "influential_rows.csv")
+        write_csv(evaluation.coverage, staging / "interval_coverage.csv")
         if len(forecast.scenarios):
-            forecast.scenarios.to_csv(staging / "scenarios.csv", index=False)
+            write_csv(forecast.scenarios, staging / "scenarios.csv")
         document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
         (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
-        data.history[[PERIOD, SERIES, spec.target]].rename(
+        write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
             columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
-            period=lambda t: t["period"].astype(str)).to_csv(staging / "history.csv", index=False)
-        forecast.residuals.to_csv(staging / "residuals.csv", index=False)
+            period=lambda t: t["period"].astype(str)), staging / "history.csv")
+        write_csv(forecast.residuals, staging / "residuals.csv")
         if track is not None:
-            track.realised.to_csv(staging / "realised.csv", index=False)
+            write_csv(track.realised, staging / "realised.csv")
         (staging / "summary.md").write_text(ledger.with_track_record(
             render_summary(spec, run_id, created, data_print, evaluation, forecast), track),
             encoding="utf-8")

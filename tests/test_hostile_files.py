@@ -1,0 +1,208 @@
+"""Hostile files: CSV cells that would run as spreadsheet formulas, names that read as paths,
+and input files beyond the size and row limits set in the spec.
+
+Plumbing tests on small invented tables; no figure here is a reference value. The
+characters that start a spreadsheet formula (=, +, -, @) and the remedy (a single quote
+in front of the cell) are those of the OWASP "CSV Injection" page.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+import pandas as pd
+import pytest
+import yaml
+
+from pipeline import cli
+from pipeline.safe_csv import neutralise, neutralised, write_csv
+
+CLEAN = Path(__file__).resolve().parent / "data" / "broken_inputs" / "clean.csv"
+FORMULA = '=HYPERLINK("http://example.invalid";"click")'
+
+
+# ------------------------------------------------------------ the one function
+
+@pytest.mark.parametrize("text", ["=1+1", "+1+1", "-1+1", "@SUM(A1)", FORMULA, "-", "=cmd|' /C calc'!A0"])
+def test_text_that_starts_a_formula_gets_a_quote(text):
+    assert neutralise(text) == "'" + text
+
+
+@pytest.mark.parametrize("value", ["North", "2020-01", "", " =x", "'=x", "a=b", 3, -3, -2.5, 0.0,
+                                   float("-inf"), None, True])
+def test_anything_else_is_left_as_it_is(value):
+    assert neutralise(value) is value or neutralise(value) == value
+
+
+def test_numbers_in_a_frame_are_untouched_and_text_cells_neutralised(tmp_path):
+    frame = pd.DataFrame({"series": ["=evil", "North", "-South"], "value": [-1.5, 2.0, -3.0],
+                          "count": [-1, 2, 3], "mixed": ["@x", -4.0, None]})
+    path = tmp_path / "out.csv"
+    write_csv(frame, path)
+    rows = list(csv.reader(path.open(encoding="utf-8")))
+    assert rows[0] == ["series", "value", "count", "mixed"]
+    assert [r[0] for r in rows[1:]] == ["'=evil", "North", "'-South"]
+    assert [float(r[1]) for r in rows[1:]] == [-1.5, 2.0, -3.0]
+    assert [int(r[2]) for r in rows[1:]] == [-1, 2, 3]
+    assert [r[3] for r in rows[1:]] == ["'@x", "-4.0", ""]
+    assert frame["series"].tolist() == ["=evil", "North", "-South"]     # the original is not changed
+    assert neutralised(pd.DataFrame({"=a": [1]})).columns.tolist() == ["'=a"]
+
+
+def test_a_categorical_column_is_neutralised_too():
+    frame = pd.DataFrame({"level": pd.Categorical(["+a", "b"])})
+    assert neutralised(frame)["level"].tolist() == ["'+a", "b"]
+
+
+# ------------------------------------------------------------ through the command line
+
+def hostile_folder(tmp_path: Path, **input_keys) -> Path:
+    """Write clean.csv with a formula as one region and one channel, and a spec for it."""
+    text = CLEAN.read_text(encoding="utf-8").replace("South", FORMULA.replace('"', '""'))
+    text = text.replace(",web\n", ",@SUM(A1)\n")
+    (tmp_path / "hostile.csv").write_text(text.replace(f",{FORMULA.replace(chr(34), 2 * chr(34))},",
+                                                       f',"{FORMULA.replace(chr(34), 2 * chr(34))}",'),
+                                          encoding="utf-8")
+    spec = {"name": "hostile",
+            "input": {"file": "hostile.csv", "date_column": "month", "series": ["region"], **input_keys},
+            "target": "sales", "drivers": {"numeric": ["price"], "categorical": ["channel"]},
+            "validation": {"method": "holdout", "last_periods": 2},
+            "models": ["ols"], "output": {"folder": "out"}}
+    path = tmp_path / "spec.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    return path
+
+
+def csv_cells(path: Path) -> list[str]:
+    return [cell for row in csv.reader(path.open(encoding="utf-8")) for cell in row]
+
+
+def test_the_run_folder_csvs_hold_no_cell_that_starts_a_formula(tmp_path, capsys):
+    spec = hostile_folder(tmp_path)
+    assert cli.main(["run", str(spec)]) == 0
+    (folder,) = [p for p in (tmp_path / "out").iterdir() if p.is_dir()]
+    written = sorted(folder.glob("*.csv"))
+    assert {p.name for p in written} >= {"predictions.csv", "forecast.csv", "coefficients.csv",
+                                         "history.csv", "residuals.csv"}
+    for path in written:
+        for cell in csv_cells(path):
+            if cell[:1] in ("=", "+", "-", "@"):
+                float(cell)      # only a number may start with '-' or '+'
+    series = pd.read_csv(folder / "forecast.csv")["series"]
+    assert "'" + FORMULA in set(series)
+    assert "'" + FORMULA in set(pd.read_csv(folder / "history.csv")["series"])
+    assert (pd.read_csv(folder / "history.csv")["actual"] > 0).all()
+
+
+def test_the_problems_file_holds_no_cell_that_starts_a_formula(tmp_path, capsys):
+    spec = hostile_folder(tmp_path)
+    data = tmp_path / "hostile.csv"
+    data.write_text(data.read_text(encoding="utf-8").replace(",128,", ",=1+2,").replace(",4.4,", ",-@x,"),
+                    encoding="utf-8")
+    problems = tmp_path / "problems.csv"
+    assert cli.main(["check", str(spec), "--problems", str(problems)]) == 2
+    values = pd.read_csv(problems, dtype=str)["value"].fillna("").tolist()
+    assert any("=1+2" in v for v in values) and any("-@x" in v for v in values)
+    assert not [c for c in csv_cells(problems) if c[:1] in ("=", "+", "@")]
+
+
+# ------------------------------------------------------------ names that read as paths
+
+@pytest.mark.parametrize("name", ["..", "../escape", "/etc/passwd", "a/b", "a..b", "..\\up", "C:\\x"])
+def test_a_name_that_reads_as_a_path_is_refused_in_one_line(tmp_path, capsys, name):
+    spec = hostile_folder(tmp_path)
+    data = yaml.safe_load(spec.read_text(encoding="utf-8"))
+    data["name"] = name
+    spec.write_text(yaml.safe_dump(data, sort_keys=False), encoding="utf-8")
+    assert cli.main(["run", str(spec)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("castline: ")
+    assert f"{spec}:1: name:" in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_run_folder_lands_directly_inside_the_output_folder(tmp_path, capsys):
+    spec = hostile_folder(tmp_path)
+    assert cli.main(["run", str(spec)]) == 0
+    folders = [p for p in (tmp_path / "out").rglob("*") if p.is_dir()]
+    assert len(folders) == 1 and folders[0].parent == tmp_path / "out"
+
+
+def test_a_run_id_that_would_escape_the_output_folder_is_refused(tmp_path, capsys, monkeypatch):
+    from pipeline.stages import publish
+    spec = hostile_folder(tmp_path)
+    monkeypatch.setattr(publish, "new_run_id", lambda now=None: "../escaped")
+    assert cli.main(["run", str(spec)]) == 2
+    err = capsys.readouterr().err
+    assert "outside the output folder" in err and err.count("\n") == 1
+    assert not (tmp_path / "escaped").exists() and not (tmp_path / ".incomplete-").exists()
+
+
+# ------------------------------------------------------------ size and row limits
+
+def rows_in(path: Path) -> int:
+    return len(path.read_text(encoding="utf-8").splitlines()) - 1
+
+
+def test_a_file_with_more_rows_than_input_max_rows_is_refused_naming_file_and_limit(tmp_path, capsys):
+    spec = hostile_folder(tmp_path, max_rows=10)
+    assert rows_in(tmp_path / "hostile.csv") == 14
+    assert cli.main(["check", str(spec)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("castline: ")
+    assert str(tmp_path / "hostile.csv") in err and "input.max_rows: 10" in err
+
+
+def test_a_file_at_the_row_limit_passes(tmp_path, capsys):
+    spec = hostile_folder(tmp_path, max_rows=14)
+    assert cli.main(["check", str(spec)]) == 0
+
+
+def test_trailing_blank_lines_do_not_count_against_the_row_limit(tmp_path, capsys):
+    spec = hostile_folder(tmp_path, max_rows=14)
+    data = tmp_path / "hostile.csv"
+    data.write_text(data.read_text(encoding="utf-8") + "\n\n\n", encoding="utf-8")
+    assert cli.main(["check", str(spec)]) == 0
+
+
+def test_a_file_larger_than_input_max_megabytes_is_refused_before_it_is_read(tmp_path, capsys,
+                                                                           monkeypatch):
+    from pipeline.stages import ingest
+    spec = hostile_folder(tmp_path, max_megabytes=0.0001)          # 100 bytes; the file is larger
+    assert (tmp_path / "hostile.csv").stat().st_size > 100
+    monkeypatch.setattr(ingest, "_read_csv", lambda *a, **k: pytest.fail("the file was read"))
+    assert cli.main(["check", str(spec)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and str(tmp_path / "hostile.csv") in err
+    assert "input.max_megabytes: 0.0001" in err
+
+
+def test_a_file_within_the_size_limit_passes(tmp_path, capsys):
+    spec = hostile_folder(tmp_path, max_megabytes=1)
+    assert cli.main(["check", str(spec)]) == 0
+
+
+@pytest.mark.parametrize("keys, where", [({"max_rows": 0}, "input.max_rows"),
+                                         ({"max_rows": "many"}, "input.max_rows"),
+                                         ({"max_rows": 2.5}, "input.max_rows"),
+                                         ({"max_megabytes": -1}, "input.max_megabytes"),
+                                         ({"max_megabytes": "big"}, "input.max_megabytes")])
+def test_the_limits_are_checked(tmp_path, capsys, keys, where):
+    spec = hostile_folder(tmp_path, **keys)
+    assert cli.main(["check", str(spec)]) == 2
+    err = capsys.readouterr().err
+    assert f": {where}: " in err and err.count("\n") == 1
+
+
+def test_the_row_limit_applies_to_parquet_too(tmp_path, capsys):
+    spec = hostile_folder(tmp_path, max_rows=3)
+    frame = pd.read_csv(tmp_path / "hostile.csv")
+    frame.to_parquet(tmp_path / "hostile.parquet")
+    data = yaml.safe_load(spec.read_text(encoding="utf-8"))
+    data["input"]["file"] = "hostile.parquet"
+    spec.write_text(yaml.safe_dump(data), encoding="utf-8")
+    assert cli.main(["check", str(spec)]) == 2
+    assert "input.max_rows: 3" in capsys.readouterr().err
+    assert math.isfinite(float(len(frame)))
