@@ -247,7 +247,8 @@ class NumericTerms:
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
         values = self.prepared(frame)
-        columns = [values ** power for power in range(1, self.degree + 1)]
+        with np.errstate(over="ignore"):   # a term too large is refused when the design is built
+            columns = [values ** power for power in range(1, self.degree + 1)]
         if self.marks_missing_:
             columns.append(frame[self.column].isna().to_numpy(float))
         return np.column_stack(columns)
@@ -899,14 +900,30 @@ class FeaturePlan:
     def _notes(self, frame: pd.DataFrame) -> list[str]:
         return [note for part in self.row_parts_ if hasattr(part, "notes") for note in part.notes(frame)]
 
+    # Beyond this size a term's square, summed over many rows, overflows a float; the
+    # check stage holds the input's own numbers to the same bound.
+    LARGEST_TERM = 1e150
+
     def _design(self, frame: pd.DataFrame, matrix: np.ndarray, notes: list[str]) -> Design:
+        if matrix.size:
+            with np.errstate(invalid="ignore"):
+                too_large = ~(np.abs(matrix) <= self.LARGEST_TERM)   # also catches inf and NaN
+            if too_large.any():
+                row, column = (int(i) for i in np.argwhere(too_large)[0])
+                at = frame.iloc[row]
+                raise DataError(f"the term '{self.get_feature_names_out()[column]}' is "
+                                f"{matrix[row, column]:g} for {at[PERIOD]} (series "
+                                f"'{at[self.series_column]}'), too large to fit; rescale the driver "
+                                "or lower its degree", file=self.source,
+                                row=_first_row(frame, np.arange(len(frame)) == row))
         period = _months(frame) if PERIOD in frame.columns else None
         return Design(matrix=matrix, names=self.get_feature_names_out(),
                       series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes))
 
     def transform(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> Design:
         """Return the design of rows to predict; stop if one of their lags is unavailable."""
-        table = self.feature_table(frame, known)
+        with np.errstate(over="ignore"):   # too large a term is refused in _design
+            table = self.feature_table(frame, known)
         unavailable = table.isna().to_numpy()
         if unavailable.any():
             row, column = (int(i) for i in np.argwhere(unavailable)[0])
@@ -926,7 +943,8 @@ class FeaturePlan:
         """
         with self._located():
             self.target_scale.check(frame)
-        table = self.feature_table(frame)
+        with np.errstate(over="ignore"):
+            table = self.feature_table(frame)
         usable = ~table.isna().any(axis=1).to_numpy()
         notes = self._notes(frame)
         if not usable.all():

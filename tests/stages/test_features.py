@@ -9,6 +9,7 @@ reference values themselves.
 from __future__ import annotations
 
 from datetime import date
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -545,3 +546,23 @@ def test_baselines_keep_the_target_as_it_is():
     baseline = make_model("mean_baseline")
     assert plan.for_target(baseline, "mean_baseline") is baseline
     assert fitted_plan({}, frame).for_target(make_model("ols"), "ols").__class__ is OLSModel
+
+
+def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):
+    """A driver of 1e60 raised to a power overflows the fit (1e150 bound: a square of a larger
+    term, summed over rows, exceeds the largest float, about 1.8e308 — IEEE 754 double)."""
+    import pipeline
+    from pipeline.errors import DataError
+
+    root = Path(__file__).resolve().parents[2]
+    data = pd.read_csv(root / "data_samples" / "compost_sales.csv")
+    data.loc[5, "rainfall_mm"] = 1e60
+    data.to_csv(tmp_path / "big.csv", index=False)
+    spec = (root / "configs" / "compost_demo.yaml").read_text(encoding="utf-8")
+    spec = spec.replace("../data_samples/compost_sales.csv", "big.csv").replace(
+        "    - rainfall_mm\n", "    - column: rainfall_mm\n      degree: 6\n")
+    (tmp_path / "spec.yaml").write_text(spec, encoding="utf-8")
+    with pytest.raises(DataError) as stopped:
+        pipeline.run(tmp_path / "spec.yaml", output_folder=tmp_path / "out")
+    message = str(stopped.value)
+    assert "big.csv:7:" in message and "'rainfall_mm^3'" in message and "too large to fit" in message
