@@ -93,3 +93,16 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
             rows.append({"model": model, "method": "empirical", "level": level,
                          "coverage": inside_count / scored if scored else float("nan"), "n": scored})
     return pd.DataFrame(rows, columns=["model", "method", "level", "coverage", "n"])
+
+
+def trusted_method(coverage: pd.DataFrame | None, model: str, forecast: pd.DataFrame) -> str:
+    """Return the interval method to state for a model: of those its forecast rows carry, the
+    one whose 95% backtest coverage came closest to 95%."""
+    available = [m for m in ("analytic", "empirical")
+                 if f"{m}_low_95" in forecast.columns and forecast[f"{m}_low_95"].notna().any()]
+    if coverage is not None and len(coverage):
+        own = coverage[(coverage["model"] == model) & (coverage["level"] == 0.95)
+                       & coverage["coverage"].notna() & coverage["method"].isin(available)]
+        if len(own):
+            return str(own.assign(gap=(own["coverage"] - 0.95).abs()).sort_values("gap").iloc[0]["method"])
+    return available[0] if available else "analytic"

@@ -412,9 +412,9 @@ def period_fingerprints(data: CheckedData) -> pd.DataFrame:
 
 def _stated_methods(evaluation, forecast) -> dict[str, str]:
     """Return, per model, the interval method its forecasts were stated with in the summary."""
-    from .stages.publish import _trusted_method  # the summary's own rule; publish imports us
+    from .intervals import trusted_method  # the summary's own rule
     table = forecast.forecast
-    return {model: _trusted_method(evaluation, model, rows)
+    return {model: trusted_method(evaluation.coverage, model, rows)
             for model, rows in table.groupby("model", sort=False)} if len(table) else {}
 
 

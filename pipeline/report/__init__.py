@@ -16,6 +16,7 @@ import jinja2
 import pandas as pd
 
 from ..errors import UserError
+from ..intervals import trusted_method
 from . import plots
 
 CAUTIONS = [
@@ -111,18 +112,6 @@ def _best(rows: list[dict]) -> dict[str, str]:
     return best
 
 
-def _trusted_method(coverage: pd.DataFrame | None, model: str, forecast: pd.DataFrame) -> str:
-    """Return the interval method whose 95% backtest coverage came closest to 95%."""
-    available = [m for m in ("analytic", "empirical")
-                 if f"{m}_low_95" in forecast.columns and forecast[f"{m}_low_95"].notna().any()]
-    if coverage is not None:
-        own = coverage[(coverage["model"] == model) & (coverage["level"] == 0.95)
-                       & coverage["coverage"].notna() & coverage["method"].isin(available)]
-        if len(own):
-            return str(own.assign(gap=(own["coverage"] - 0.95).abs()).sort_values("gap").iloc[0]["method"])
-    return available[0] if available else "analytic"
-
-
 def render_report(folder: Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
     folder = Path(folder)
@@ -164,7 +153,7 @@ def render_report(folder: Path) -> str:
     forecast_picture = forecast_table = None
     if forecast is not None and len(forecast):
         own = forecast[forecast["model"] == recommended]
-        method = _trusted_method(coverage, recommended, forecast)
+        method = trusted_method(coverage, recommended, forecast[forecast["model"] == recommended])
         forecast_picture = plots.forecast_picture(history, forecast, recommended, method, scenarios)
         forecast_table = own[["period", "series", "forecast"]].copy()
         for level in ("80", "95"):

@@ -23,7 +23,7 @@ from ..models.ols import expanding_ols_predictions
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
-from .features import Design, plan_features
+from .features import Design, plan_features, series_design
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
@@ -278,9 +278,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             # all. With lags, every model fits on the rows whose lags are available.
             if kind in BASELINES and plain:
                 frame = split.train
-                return (Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
-                               frame[PERIOD].array.asi8 if PERIOD in frame.columns else None),
-                        frame[spec.target].to_numpy(float))
+                return series_design(frame, SERIES), frame[spec.target].to_numpy(float)
             if "train" not in cache:
                 cache["train"] = plan.training_design(split.train)
             return cache["train"]
@@ -288,8 +286,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
             frame = split.test
             if kind in BASELINES:
-                return Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
-                              frame[PERIOD].array.asi8 if PERIOD in frame.columns else None)
+                return series_design(frame, SERIES)
             if "test" not in cache:
                 cache["test"] = plan.transform(frame)
             return cache["test"]

@@ -717,6 +717,12 @@ class Design:
     notes: tuple[str, ...] = ()        # what the features did that a reader should know
 
 
+def series_design(frame: pd.DataFrame, series_column: str) -> Design:
+    """Return a design with no terms: the rows' series and months, all a baseline reads."""
+    period = _months(frame) if PERIOD in frame.columns else None
+    return Design(np.empty((len(frame), 0)), [], frame[series_column].to_numpy(), period)
+
+
 def _spec_error(key: KeyPath, message: str) -> SpecError:
     return SpecError(message, key=format_key_path(key))
 

@@ -24,7 +24,7 @@ from ..spec import Scenario, Spec
 from .ahead import needs_strategy, predict_ahead
 from .backtest import BacktestResult
 from .check import PERIOD, ROW, SERIES, CheckedData
-from .features import Design, plan_features
+from .features import Design, plan_features, series_design
 
 
 @dataclass(frozen=True)
@@ -87,9 +87,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     def predict(choice, model, frame: pd.DataFrame):
         """Return the point forecasts, their standard errors and residual df for the rows."""
         if stepwise and choice.kind in BASELINES:
-            design = Design(np.empty((len(frame), 0)), [], frame[SERIES].to_numpy(),
-                            frame[PERIOD].array.asi8)
-            return model.predict(design), None, None
+            return model.predict(series_design(frame, SERIES)), None, None
         if stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
             point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin)
             return point, se, df

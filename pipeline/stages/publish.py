@@ -21,6 +21,7 @@ import yaml
 
 from .. import __version__, ledger
 from ..errors import UserError
+from ..intervals import trusted_method
 from ..report import CAUTIONS, build_report, render_markdown
 from ..safe_csv import write_csv
 from ..spec import Spec
@@ -108,17 +109,6 @@ def describe_validation(spec: Spec) -> str:
     return f"{v.folds}-fold cross-validation grouped by {', '.join(v.group_by)}"
 
 
-def _trusted_method(evaluation: Evaluation, model: str, rows: pd.DataFrame) -> str:
-    """Return the interval method whose 95% backtest coverage came closest to 95%."""
-    table = evaluation.coverage
-    own = table[(table["model"] == model) & (table["level"] == 0.95) & table["coverage"].notna()]
-    available = [m for m in ("analytic", "empirical") if rows[f"{m}_low_95"].notna().any()]
-    ranked = own[own["method"].isin(available)].assign(gap=lambda t: (t["coverage"] - 0.95).abs())
-    if len(ranked):
-        return str(ranked.sort_values("gap").iloc[0]["method"])
-    return available[0] if available else "analytic"
-
-
 def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
                    evaluation: Evaluation, forecast: ForecastResult) -> str:
     """Return the run's summary in Markdown (from its template): the answer first, the evidence after."""
@@ -130,7 +120,7 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
     recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
     method = shown = None
     if len(recommended):
-        method = _trusted_method(evaluation, evaluation.recommended, recommended)
+        method = trusted_method(evaluation.coverage, evaluation.recommended, recommended)
         shown = recommended[["period", "series", "forecast"]].copy()
         for level in ("80", "95"):
             shown[f"{level}% from"] = recommended[f"{method}_low_{level}"].to_numpy()
