@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from . import ledger
+from . import execution, ledger
 from .errors import DataError
 from .spec import Spec, load_spec
 from .stages.backtest import BacktestResult, plan_splits, run_backtest
@@ -89,7 +89,7 @@ def _data_file_named(spec: Spec):
 def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None) -> RunResult:
     """Run the whole forecast a spec describes and return every table it produced."""
     spec = _as_spec(spec_or_path)
-    with _data_file_named(spec):
+    with _data_file_named(spec), execution.using(spec.compute, spec):
         data = check_data(spec, read_input(spec))
         backtest = run_backtest(spec, data)
         evaluation = evaluate(spec, backtest)

@@ -236,6 +236,25 @@ class LaggedColumn(StrictModel):
                                                 "differences end")
 
 
+class SeriesEffects(StrictModel):
+    """What models fitted over all series at once learn about each series."""
+
+    intercepts: bool = Field(True, strict=True, description="a level of its own for each series "
+                             "(with more than one series), measured against the first series")
+    slopes: list[str] = Field(default_factory=list, description="numeric drivers whose effect "
+                              "differs by series: a slope of its own for each series")
+
+
+class ComputeSection(StrictModel):
+    """Where the per-series fits run: this process, worker processes, or a Dask cluster."""
+
+    workers: int = Field(1, strict=True, ge=1, le=256,
+                         description="processes on this machine for the per-series fits")
+    scheduler: str | None = Field(None, pattern=r"^(tcp|tls|inproc|ucx|ws|wss)://\S+$",
+                                  description="address of a Dask scheduler, e.g. "
+                                              "tcp://10.0.0.5:8786; the fits then run there")
+
+
 class DriversSection(StrictModel):
     """Columns, and features of the calendar, that explain the target."""
 
@@ -245,6 +264,7 @@ class DriversSection(StrictModel):
                                           description="pairs of drivers whose product is a term")
     calendar: CalendarFeatures | None = None
     lags: list[LaggedColumn] = Field(default_factory=list)
+    series_effects: SeriesEffects = Field(default_factory=lambda: SeriesEffects())
 
     @field_validator("numeric", "categorical", "lags", mode="before")
     @classmethod
@@ -313,6 +333,19 @@ class ModelChoice(StrictModel):
     l1_share: float = Field(0.5, gt=0, lt=1, description="elastic_net: the lasso share of the penalty")
     huber_threshold: float = Field(1.35, gt=1, description="huber: residuals beyond this many "
                                                             "scale units count linearly")
+    per_series: bool = Field(False, strict=True, description="ols: fit one model to each series "
+                             "on its own (batched), instead of one model over all series")
+
+    @property
+    def name(self) -> str:
+        """Return the model's name in every table: its kind, marked when fitted per series."""
+        return f"{self.kind}_per_series" if self.per_series else self.kind
+
+    @model_validator(mode="after")
+    def _per_series_ols_only(self) -> ModelChoice:
+        if self.per_series and self.kind != "ols":
+            raise ValueError("per_series is available for ols (baselines are always per series)")
+        return self
 
     @field_validator("penalties")
     @classmethod
@@ -403,6 +436,7 @@ class Spec(StrictModel):
     autocorrelation_lags: int | None = Field(
         None, strict=True, ge=1, description="hac: lags to include; default floor(4·(n/100)^(2/9))")
     scenarios: list[Scenario] = Field(default_factory=list)
+    compute: ComputeSection = Field(default_factory=lambda: ComputeSection())
     output: OutputSection
 
     _source: Path | None = PrivateAttr(None)
@@ -438,7 +472,7 @@ class Spec(StrictModel):
     @field_validator("models")
     @classmethod
     def _baseline_always_first(cls, models: list[ModelChoice]) -> list[ModelChoice]:
-        kinds = [m.kind for m in models]
+        kinds = [m.name for m in models]
         if len(set(kinds)) != len(kinds):
             repeated = next(k for k in kinds if kinds.count(k) > 1)
             raise ValueError(f"model '{repeated}' is listed twice")
@@ -449,9 +483,14 @@ class Spec(StrictModel):
         """Return the kinds of every model fitted, the mean baseline first."""
         return [m.kind for m in self.models]
 
-    def model(self, kind: str) -> ModelChoice:
-        """Return the choice of the given kind."""
-        return next(m for m in self.models if m.kind == kind)
+    @property
+    def model_names(self) -> list[str]:
+        """Return the names of every model fitted (``ols``, ``ols_per_series``), baseline first."""
+        return [m.name for m in self.models]
+
+    def model(self, name: str) -> ModelChoice:
+        """Return the choice of the given name."""
+        return next(m for m in self.models if m.name == name)
 
     @property
     def driver_columns(self) -> list[str]:
@@ -872,6 +911,15 @@ def _check_features(spec: Spec, fail) -> None:
         if calendar.quarter and calendar.month_of_year == "dummies":
             raise fail(key + ("quarter",), "quarter dummies are sums of month dummies; use one or "
                                            "the other")
+    for index, column in enumerate(spec.drivers.series_effects.slopes):
+        key = ("drivers", "series_effects", "slopes", index)
+        if not spec.input.series:
+            raise fail(key, "series slopes need series: name the series columns in input.series")
+        if column not in numeric:
+            raise fail(key, f"'{column}' is not a numeric driver (numeric drivers: "
+                            f"{', '.join(numeric) or 'none'})")
+        if spec.drivers.series_effects.slopes.index(column) != index:
+            raise fail(key, f"'{column}' is listed twice")
     seen: set[str] = set()
     for index, lagged in enumerate(spec.drivers.lags):
         key = ("drivers", "lags", index)

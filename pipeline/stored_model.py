@@ -21,6 +21,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from . import __version__
 from .errors import DataError, UserError
 from .models import baselines
+from .models.per_series import PerSeriesOLS
 from .stages import features
 from .stages.check import PERIOD, ROW, SERIES, _series_labels
 
@@ -196,6 +197,46 @@ def _plain_linear_numbers(kind: str, model) -> dict:
     return {"intercept": encode(float(intercept)), "coef": encode(np.asarray(slopes, float))}
 
 
+def _per_series_numbers(model) -> dict:
+    transform = None
+    if isinstance(model, features.TransformedTargetModel):
+        transform = {"column": model.transform.column, "kind": model.transform.kind,
+                     "smearing": model.smearing_}
+        model = model.model
+    return {"fit_intercept": model.fit_intercept, "names": list(model.names_),
+            "series": [str(s) for s in model.series_], "coef": encode(model.coef_),
+            "means": encode(model.means_), "fell_back": encode(model.fell_back_),
+            "overall_mean": encode(model.overall_mean_), "target_transform": transform}
+
+
+class StoredPerSeries:
+    """A model per series reduced to what its point forecasts need; predicts as it did."""
+
+    def __init__(self, entry: dict) -> None:
+        model = PerSeriesOLS.__new__(PerSeriesOLS)
+        model.fit_intercept = bool(entry["fit_intercept"])
+        model.names_ = [str(n) for n in entry["names"]]
+        model.series_ = pd.Index([str(s) for s in entry["series"]], dtype=object)
+        model.coef_ = np.asarray(decode(entry["coef"]), float).reshape(len(model.series_),
+                                                                       len(model.names_))
+        model.means_ = np.asarray(decode(entry["means"]), float)
+        model.fell_back_ = np.asarray(decode(entry["fell_back"]), bool)
+        model.overall_mean_ = float(decode(entry["overall_mean"]))
+        if not (len(model.means_) == len(model.fell_back_) == len(model.series_)):
+            raise ModelFileError("a model per series has lists of different lengths")
+        self.model = model
+        scale = entry.get("target_transform")
+        self.transform = features.TargetTransform(str(scale["column"]), str(scale["kind"])) \
+            if scale else None
+        if self.transform is not None and self.transform.kind not in ("log", "log1p", "none"):
+            raise ModelFileError(f"unknown target transform {self.transform.kind!r}")
+        self.smearing_ = float(scale["smearing"]) if scale else 1.0
+
+    def predict(self, design) -> np.ndarray:
+        predicted = self.model.predict(design)
+        return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
+
+
 # ------------------------------------------------------------------ save, load
 
 class _Envelope(BaseModel):
@@ -219,7 +260,10 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
     """Return the JSON document that stores a run's fitted plan and models."""
     models = {}
     for kind, model in fitted.items():
-        if kind in LINEAR_KINDS:
+        inner = getattr(model, "model", model)
+        if isinstance(inner, PerSeriesOLS):
+            models[kind] = {"kind": "linear_per_series", **_per_series_numbers(model)}
+        elif kind in LINEAR_KINDS:
             models[kind] = {"kind": "linear", **_linear_numbers(kind, model)}
         else:
             models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}
@@ -329,6 +373,8 @@ def load_model(path: str | Path) -> StoredModel:
                 models[kind] = StoredLinear(decode(entry["intercept"]), decode(entry["coef"]),
                                             document.feature_names, transform,
                                             float(scale["smearing"]) if scale else 1.0)
+            elif entry.get("kind") == "linear_per_series":
+                models[kind] = StoredPerSeries(entry)
             elif entry.get("kind") == "baseline":
                 models[kind] = _rebuild(entry, _allowed_classes(baselines))
             else:

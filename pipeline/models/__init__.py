@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from .baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from .ols import OLSModel, least_squares
+from .per_series import PerSeriesOLS
 from .regularised import HuberModel, PenalisedModel
 
 BASELINES = {
@@ -25,6 +26,8 @@ def make_model(choice, *, intercept: bool = True):
     if kind in BASELINES:
         return BASELINES[kind]()
     if kind == "ols":
+        if getattr(choice, "per_series", False):
+            return PerSeriesOLS(fit_intercept=intercept)
         return OLSModel(fit_intercept=intercept)
     if kind == "huber":
         return HuberModel(threshold=getattr(choice, "huber_threshold", 1.35))
@@ -34,5 +37,16 @@ def make_model(choice, *, intercept: bool = True):
     raise ValueError(f"unknown model kind {kind!r}")
 
 
-__all__ = ["BASELINES", "Drift", "HuberModel", "LastValue", "MeanBaseline", "OLSModel",
+def prediction_spread(model, design) -> tuple:
+    """Return the standard error of each row's prediction and its residual df (per row for a
+    model per series), or (None, None) for a model that gives none."""
+    if not hasattr(model, "prediction_se"):
+        return None, None
+    inner = getattr(model, "model", model)   # under a target transform, the model inside
+    if hasattr(inner, "df_resid_for"):
+        return model.prediction_se(design), inner.df_resid_for(design)
+    return model.prediction_se(design), model.df_resid_
+
+
+__all__ = ["PerSeriesOLS", "prediction_spread", "BASELINES", "Drift", "HuberModel", "LastValue", "MeanBaseline", "OLSModel",
            "PenalisedModel", "SeasonalNaive", "least_squares", "make_model"]

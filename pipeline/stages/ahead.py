@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..models import make_model
+from ..models import make_model, prediction_spread
 from ..spec import LaggedColumn, ModelChoice, Spec
 from .check import PERIOD, SERIES
 from .features import FeaturePlan, plan_features, with_predictions
@@ -65,8 +65,9 @@ def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame
 
 
 def _with_se(model, design, predicted):
-    if hasattr(model, "prediction_se"):
-        return predicted, model.prediction_se(design), model.df_resid_
+    se, df = prediction_spread(model, design)
+    if se is not None:
+        return predicted, se, df
     return predicted, np.full(len(predicted), np.nan), np.nan
 
 

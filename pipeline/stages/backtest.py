@@ -12,14 +12,15 @@ once and the QR factor is grown block by block (``GrowingLeastSquares``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
-from ..models import BASELINES, make_model
+from ..models import BASELINES, make_model, prediction_spread
 from ..models.ols import expanding_ols_predictions
+from .. import progress
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
@@ -27,6 +28,30 @@ from .features import Design, plan_features, series_design
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
+
+
+FALLBACK_COLUMNS = ["model", "window", "series", "rows", "terms"]
+
+
+def _fallbacks(name: str, window: str, model) -> pd.DataFrame | None:
+    """Return the series a fitted model per series gave its mean to, labelled."""
+    inner = getattr(model, "model", model)
+    found = getattr(inner, "fallbacks_", None)
+    if found is None or not len(found):
+        return None
+    return found.assign(model=name, window=window)[FALLBACK_COLUMNS]
+
+
+def series_fallbacks(fallbacks: pd.DataFrame) -> pd.DataFrame:
+    """Return one row per model and series that fell back to its mean: in how many windows,
+    the first of them, and the fewest rows it had against the terms needed."""
+    if not len(fallbacks):
+        return pd.DataFrame(columns=["model", "series", "windows", "first_window", "fewest_rows",
+                                     "terms"])
+    grouped = fallbacks.groupby(["model", "series"], sort=False)
+    return pd.DataFrame({"windows": grouped.size(), "first_window": grouped["window"].first(),
+                         "fewest_rows": grouped["rows"].min(),
+                         "terms": grouped["terms"].max()}).reset_index()
 
 
 @dataclass(frozen=True)
@@ -59,6 +84,8 @@ class BacktestResult:
     horizon: int
     notes: list[str]
     step: int = 1
+    # Series a model per series fitted by their mean instead, per window (see ``series_fallbacks``).
+    fallbacks: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=FALLBACK_COLUMNS))
 
 
 def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap: int = 0,
@@ -264,11 +291,14 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     # Without lags or a target transform, every row of a window is fitted on as it is.
     plain = not spec.drivers.lags and spec.target_transform == "none"
-    if "ols" in spec.model_kinds and expanding and len(splits) > 1 and plain:
+    if "ols" in spec.model_names and expanding and len(splits) > 1 and plain:
         states = {_plan_state(plan) for plan in plans}
         if len(states) == 1:
             fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
     frames = []
+    fallen_back: list[pd.DataFrame | None] = []
+    bar = progress.current()
+    bar.start("origins", len(splits))
     for split, plan in zip(splits, plans):
         scales = mase_scales(split.train, spec.target) if time_ordered else {}
         cache: dict[str, tuple] = {}
@@ -301,7 +331,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             notes.append(strategy_note)
         for choice in spec.models:
             se = df_resid = None
-            if choice.kind == "ols" and split.label in fast_ols:
+            if choice.name == "ols" and split.label in fast_ols:
                 predicted, se, df_resid = fast_ols[split.label]
             elif stepwise and choice.kind not in BASELINES:
                 # A target lag is shorter than the months ahead: the spec's multi_step strategy.
@@ -312,19 +342,29 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 design, y_train = train_design(choice.kind)
                 model.fit(design, y_train)
                 predicted = model.predict(test_design(choice.kind))
-                if hasattr(model, "prediction_se"):
-                    se, df_resid = model.prediction_se(test_design(choice.kind)), model.df_resid_
-            frames.append(_frame_predictions(split, choice.kind, predicted, spec.target, scales,
+                se, df_resid = prediction_spread(model, test_design(choice.kind))
+                fallen_back.append(_fallbacks(choice.name, split.label, model))
+            frames.append(_frame_predictions(split, choice.name, predicted, spec.target, scales,
                                              se, df_resid))
         if "train" in cache:
             notes += [f"window ending {split.label}: {note}" for note in cache["train"][0].notes
                       if "left out" in note]
+        bar.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")
     predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
+    found = [frame for frame in fallen_back if frame is not None]
+    fallbacks = pd.concat(found, ignore_index=True) if found else \
+        pd.DataFrame(columns=FALLBACK_COLUMNS)
+    if len(fallbacks):
+        count = fallbacks.groupby("model")["series"].nunique()
+        notes.insert(0, "; ".join(
+            f"{name}: {n} series had no more rows than terms in some training window and were "
+            "forecast by their own mean there (listed in series_fallbacks.csv)"
+            for name, n in count.items()))
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"]
                                                               if len(notes) > 5 else []),
-                          step=getattr(spec.validation, "step", 1))
+                          step=getattr(spec.validation, "step", 1), fallbacks=fallbacks)
 

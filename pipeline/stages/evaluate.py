@@ -23,6 +23,7 @@ METRIC_COLUMNS = ["n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bi
 LOWER_IS_BETTER = {"mae", "rmse", "mape", "smape", "wape", "mase"}
 LABELS = {"mean_baseline": "the mean baseline", "last_value": "last value",
           "seasonal_naive": "same month last year", "drift": "drift", "ols": "OLS",
+          "ols_per_series": "OLS per series",
           "ridge": "ridge", "lasso": "lasso", "elastic_net": "elastic net", "huber": "Huber"}
 
 

@@ -32,6 +32,7 @@ import pandas as pd
 from ..errors import DataError, SpecError
 from ..spec import (
     BASELINE_KINDS,
+    LINEAR_KINDS,
     CalendarFeatures,
     CategoricalDriver,
     KeyPath,
@@ -483,6 +484,56 @@ class InteractionTerms:
                 for b in self.second.main_effect_names()]
 
 
+# ------------------------------------------------------------------ series effects
+
+class SeriesTerms:
+    """For models over all series at once: a 0/1 column per series but the first (its own
+    level), and, for named numeric drivers, that driver times each of those columns (its own
+    slope). The first series in sorted order is the reference, as in a treatment coding.
+
+    A series the training window did not hold gets the reference series' level and slopes,
+    and a note says so.
+    """
+
+    def __init__(self, series_column: str, intercepts: bool = True, slopes=()) -> None:
+        self.series_column = series_column
+        self.intercepts = intercepts
+        self.slopes = list(slopes)   # fitted NumericTerms, whose first-degree column is used
+
+    def fit(self, frame: pd.DataFrame, y=None) -> SeriesTerms:
+        levels = sorted(pd.unique(frame[self.series_column].astype(str)))
+        self.reference_ = levels[0] if levels else None
+        self.levels_ = levels[1:]
+        return self
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        labels = frame[self.series_column].astype(str).to_numpy()
+        codes = pd.Index(self.levels_).get_indexer(labels)
+        dummies = np.zeros((len(frame), len(self.levels_)))
+        found = codes >= 0
+        dummies[np.flatnonzero(found), codes[found]] = 1.0
+        blocks = [dummies] if self.intercepts else []
+        blocks += [dummies * part.main_effect(frame) for part in self.slopes]
+        return np.hstack(blocks) if blocks else np.empty((len(frame), 0))
+
+    def get_feature_names_out(self) -> list[str]:
+        names = [f"series: {level}" for level in self.levels_] if self.intercepts else []
+        return names + [f"{part.base_name} × series: {level}" for part in self.slopes
+                        for level in self.levels_]
+
+    def notes(self, frame: pd.DataFrame) -> list[str]:
+        labels = frame[self.series_column].astype(str)
+        unseen = ~labels.isin(self.levels_) & (labels != self.reference_)
+        if not unseen.any():
+            return []
+        names = sorted(labels[unseen].unique())
+        shown = ", ".join(f"'{name}'" for name in names[:5]) + (
+            f" and {len(names) - 5} more" if len(names) > 5 else "")
+        return [f"series {shown} had no training rows: the models over all series give "
+                f"{_which_rows(frame, unseen.to_numpy())} the level and slopes of the first "
+                f"series '{self.reference_}'"]
+
+
 # ------------------------------------------------------------------ calendar
 
 class TrendTerm:
@@ -715,6 +766,13 @@ class Design:
     series: np.ndarray
     period: np.ndarray | None = None   # month ordinals (months since 1970-01), when time-ordered
     notes: tuple[str, ...] = ()        # what the features did that a reader should know
+    series_level: np.ndarray | None = None   # columns that only tell series apart (SeriesTerms)
+
+    def rows(self, positions) -> Design:
+        """Return the design of some of its rows (positions or a slice), notes kept."""
+        return Design(self.matrix[positions], self.names, self.series[positions],
+                      None if self.period is None else self.period[positions], self.notes,
+                      self.series_level)
 
 
 def series_design(frame: pd.DataFrame, series_column: str) -> Design:
@@ -741,7 +799,7 @@ class FeaturePlan:
                  calendar: CalendarFeatures | None = None, lags: list[LaggedColumn] = (),
                  target: str | None = None, target_transform: str = "none",
                  error: Callable[[KeyPath, str], SpecError] = _spec_error,
-                 source: str | None = None) -> None:
+                 source: str | None = None, series_effects=None) -> None:
         self.numeric = list(numeric)
         self.categorical = list(categorical)
         self.series_column = series_column
@@ -752,6 +810,7 @@ class FeaturePlan:
         self.target_transform = target_transform
         self.error = error
         self.source = source
+        self.series_effects = series_effects   # a SeriesEffects spec section, or None for none
 
     # -- fitting
 
@@ -787,6 +846,12 @@ class FeaturePlan:
             parts = [*numeric.values(), *categorical.values()]
             parts += [InteractionTerms(drivers[a], drivers[b]).fit(frame) for a, b in self.interactions]
             parts += [part.fit(frame) for part in self._calendar_parts()]
+            effects = self.series_effects
+            if effects is not None and (effects.intercepts or effects.slopes):
+                terms = SeriesTerms(self.series_column, effects.intercepts,
+                                    [numeric[column] for column in effects.slopes]).fit(frame)
+                self._check_series_terms(terms, frame)
+                parts.append(terms)
             self.row_parts_ = parts
             self.lag_parts_ = [self._lag_part(index, lagged).fit(
                 self._lag_values(lagged.column, frame, numeric))
@@ -796,6 +861,19 @@ class FeaturePlan:
             self.window_end_ = (pd.Period(ordinal=int(_months(frame).max()), freq="M")
                                 if PERIOD in frame.columns and len(frame) else None)
         return self
+
+    # Series columns are dense: beyond this many cells in a window's design, the fit would
+    # need gigabytes, and a model per series (or no series intercepts) is the way.
+    LARGEST_SERIES_DESIGN = 100_000_000
+
+    def _check_series_terms(self, terms: SeriesTerms, frame: pd.DataFrame) -> None:
+        columns = len(terms.get_feature_names_out())
+        if columns * len(frame) > self.LARGEST_SERIES_DESIGN:
+            raise self.error(("drivers", "series_effects"),
+                             f"{len(terms.levels_) + 1} series give the models over all series "
+                             f"{columns} series columns on {len(frame)} rows, about "
+                             f"{columns * len(frame) * 8 / 1e9:.0f} GB; fit per series instead "
+                             "(models: [{kind: ols, per_series: true}]) or set intercepts: false")
 
     def _encoder(self, driver: CategoricalDriver):
         if driver.encoding == "ordinal":
@@ -923,8 +1001,12 @@ class FeaturePlan:
                                 "or lower its degree", file=self.source,
                                 row=_first_row(frame, np.arange(len(frame)) == row))
         period = _months(frame) if PERIOD in frame.columns else None
+        series_level = np.concatenate([
+            np.full(len(part.get_feature_names_out()), isinstance(part, SeriesTerms), bool)
+            for part in self.parts_]) if self.parts_ else np.zeros(0, bool)
         return Design(matrix=matrix, names=self.get_feature_names_out(),
-                      series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes))
+                      series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes),
+                      series_level=series_level)
 
     def transform(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> Design:
         """Return the design of rows to predict; stop if one of their lags is unavailable."""
@@ -993,4 +1075,18 @@ def plan_features(spec: Spec, series_column: str) -> FeaturePlan:
                        interactions=drivers.interactions, calendar=drivers.calendar,
                        lags=list(drivers.lags), target=spec.target,
                        target_transform=spec.target_transform, error=spec.error,
-                       source=str(spec.input.file))
+                       source=str(spec.input.file), series_effects=series_effects_of(spec))
+
+
+def series_effects_of(spec: Spec):
+    """Return the series effects the models over all series get, or None when they get none:
+    with one series, with no such model, or when the series column is itself one-hot encoded."""
+    pooled = [m for m in spec.models if m.kind in LINEAR_KINDS and not m.per_series]
+    effects = spec.drivers.series_effects
+    if not spec.input.series or not pooled:
+        return None
+    one_hot = {d.column for d in spec.drivers.categorical if d.encoding == "one_hot"}
+    if len(spec.input.series) == 1 and spec.input.series[0] in one_hot:
+        # The series' own levels are already columns; only the slopes are added.
+        return effects.model_copy(update={"intercepts": False}) if effects.slopes else None
+    return effects

@@ -18,7 +18,7 @@ import pandas as pd
 
 from ..errors import DataError
 from ..intervals import LEVELS, analytic_bounds, empirical_bounds, percent
-from ..models import BASELINES, make_model
+from ..models import BASELINES, make_model, prediction_spread
 from ..models.inference import coefficient_table, covariance, diagnose, findings_table
 from ..spec import Scenario, Spec
 from .ahead import needs_strategy, predict_ahead
@@ -41,7 +41,9 @@ class ForecastResult:
     warnings: list[str] = field(default_factory=list)
     residuals: pd.DataFrame = field(default_factory=pd.DataFrame)  # final OLS fit, per history row
     plan: object = None               # the feature plan fitted on all history
-    fitted: dict = field(default_factory=dict)   # model kind → model fitted on all history
+    fitted: dict = field(default_factory=dict)   # model name → model fitted on all history
+    # Series a model per series forecasts by their mean: too few rows for its terms.
+    fallbacks: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
@@ -94,9 +96,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         if id(frame) not in designs:
             designs[id(frame)] = plan.transform(frame)
         design = designs[id(frame)]
-        if hasattr(model, "prediction_se"):
-            return model.predict(design), model.prediction_se(design), model.df_resid_
-        return model.predict(design), None, None
+        se, df = prediction_spread(model, design)
+        return model.predict(design), se, df
 
     predictions = backtest.predictions
     forecasts, coefficients, summaries, scenario_rows = [], [], [], []
@@ -106,13 +107,21 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                         f"the {spec.multi_step} strategy (multi_step)")
     diagnostics = vif = influential = residuals = pd.DataFrame()
     fitted = {}
+    fallbacks = []
     for choice in spec.models:
-        kind = choice.kind
-        model = plan.for_target(make_model(choice, intercept=spec.intercept), kind)
+        kind = choice.name
+        model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
         model.fit(history_design, y)
         fitted[kind] = model
         if hasattr(model, "describe"):
             warnings.append(f"{kind}: {model.describe()}")
+        inner = getattr(model, "model", model)
+        if hasattr(inner, "fallbacks_"):
+            warnings += [f"{kind}: {note}" for note in inner.notes()]
+            if len(inner.fallbacks_):
+                fallbacks.append(inner.fallbacks_.assign(model=kind))
+                warnings.append(f"{kind}: {len(inner.fallbacks_)} series have no more rows than "
+                                "terms and are forecast by their own mean (series_fallbacks.csv)")
         if len(future):
             point, se, df = predict(choice, model, future)
             table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
@@ -155,7 +164,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             warnings += [f"{kind}: {item.describe()}" for item in fit.dropped]
         else:
             terms = model.coefficient_table()
-            if kind in ("ridge", "lasso", "elastic_net"):
+            if choice.kind in ("ridge", "lasso", "elastic_net"):
                 terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
         terms.insert(0, "model", kind)
         coefficients.append(terms)
@@ -169,7 +178,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         except (TypeError, ValueError) as exc:
             raise DataError(f"scenario '{scenario.name}' cannot be applied: {exc}") from None
         for choice in spec.models:
-            kind, model = choice.kind, fitted[choice.kind]
+            kind, model = choice.name, fitted[choice.name]
             base = predict(choice, model, future)[0]
             what_if = predict(choice, model, changed)[0]
             scenario_rows.append(pd.DataFrame({
@@ -184,4 +193,6 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         fit_summary=pd.DataFrame(summaries), diagnostics=diagnostics, vif=vif,
         influential=influential,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
-        warnings=warnings, residuals=residuals, plan=plan, fitted=fitted)
+        warnings=warnings, residuals=residuals, plan=plan, fitted=fitted,
+        fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
+            columns=["model", "series", "rows", "terms"]))

@@ -26,7 +26,7 @@ from ..report import CAUTIONS, build_report, render_markdown
 from ..safe_csv import write_csv
 from ..spec import Spec
 from ..stored_model import model_document
-from .backtest import BacktestResult
+from .backtest import BacktestResult, series_fallbacks
 from .check import PERIOD, SERIES, CheckedData
 from .evaluate import Evaluation
 from .forecast import ForecastResult
@@ -149,6 +149,20 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
         castline_version=__version__)
 
 
+def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:
+    """Return the series a model per series forecast by their own mean, in the backtest
+    (windows too short for its terms) and in the final fit on all history."""
+    tested = series_fallbacks(backtest.fallbacks).assign(stage="backtest")
+    final = forecast.fallbacks
+    final = pd.DataFrame({"model": final.get("model", []), "series": final.get("series", []),
+                          "windows": 1, "first_window": "all history",
+                          "fewest_rows": final.get("rows", []), "terms": final.get("terms", []),
+                          "stage": "forecast"})
+    columns = ["stage", "model", "series", "windows", "first_window", "fewest_rows", "terms"]
+    frames = [frame[columns] for frame in (tested, final) if len(frame)]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
+
+
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
             track: ledger.TrackRecord | None = None) -> RunFolder:
@@ -208,6 +222,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
             period=lambda t: t["period"].astype(str)), staging / "history.csv")
         write_csv(forecast.residuals, staging / "residuals.csv")
+        write_csv(fallback_table(backtest, forecast), staging / "series_fallbacks.csv")
         if track is not None:
             write_csv(track.realised, staging / "realised.csv")
         (staging / "summary.md").write_text(ledger.with_track_record(

@@ -1,0 +1,318 @@
+"""OLS fitted to each series on its own, many series at a time.
+
+Series are cut into chunks of ``CHUNK_SERIES`` (in order of first appearance),
+and each chunk is one task for the run's executor (this process, worker
+processes or a Dask cluster; see ``pipeline.execution``). Within a chunk, the
+series whose designs have the same shape (rows and kept columns) are stacked
+and factorised together by numpy's batched Householder QR: the columns of each
+series scaled to unit length, the solution refined twice against its own
+residuals, never the normal equations. A series whose design is short of full
+rank is handed to the careful single fit (``least_squares``), which leaves out
+and names the dependent columns.
+
+Within one series, a column that does not vary is the intercept again: it is
+left out of that series' fit (its intercept carries it). Columns that only
+tell series apart (series levels and series slopes, for models over all
+series) are never used. A series with no more rows than terms falls back to
+its own mean, and says so.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.stats
+
+from .. import execution, progress
+from .ols import INTERCEPT, least_squares
+
+CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
+
+
+@dataclass(frozen=True)
+class ChunkTask:
+    """The rows of a run of consecutive series, sorted by series, and how many each has."""
+
+    matrix: np.ndarray      # rows × terms, intercept column first when fitted
+    y: np.ndarray
+    counts: np.ndarray      # rows per series, in order
+    intercept: bool
+    names: list[str]
+
+
+@dataclass(frozen=True)
+class ChunkFit:
+    """Per series of a chunk: coefficients (0 where left out), (X'X)⁻¹, residual SD and df."""
+
+    coef: np.ndarray        # series × terms; NaN where left out
+    xtx_inverse: np.ndarray  # series × terms × terms; 0 where left out
+    resid_sd: np.ndarray
+    df_resid: np.ndarray
+    rank: np.ndarray
+    mean: np.ndarray        # each series' mean target (the fallback)
+    sd: np.ndarray          # and its standard deviation
+    fell_back: np.ndarray   # True: too few rows, the series' mean is used
+    dropped: list[tuple[int, str]]   # (series position in chunk, why a column was left out)
+
+
+def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Return x with r·x = b for a stack of upper-triangular r (g×p×p) and b (g×p×k)."""
+    p = r.shape[-1]
+    x = np.zeros_like(b)
+    for i in range(p - 1, -1, -1):
+        known = np.einsum("gj,gjk->gk", r[:, i, i + 1:], x[:, i + 1:]) if i + 1 < p else 0.0
+        x[:, i] = (b[:, i] - known) / r[:, i, i][:, None]
+    return x
+
+
+def _rank_ok(r: np.ndarray, n: int) -> np.ndarray:
+    """Return, per stacked R factor, whether its diagonal shows full rank (as least_squares)."""
+    diagonal = np.abs(np.diagonal(r, axis1=1, axis2=2))
+    tolerance = max(n, r.shape[-1]) * np.finfo(float).eps * np.maximum(diagonal.max(axis=1), 1.0)
+    return (diagonal > tolerance[:, None] * 1e3).all(axis=1)
+
+
+def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
+    """Return coef, (X'X)⁻¹, RSS and a full-rank flag for a stack g×n×p of designs."""
+    norms = np.sqrt(np.einsum("gnp,gnp->gp", x, x))
+    scaled = x / norms[:, None, :]
+    q, r = np.linalg.qr(scaled)
+    ok = _rank_ok(r, x.shape[1])
+    safe_r = np.where(ok[:, None, None], r, np.eye(r.shape[-1]))
+    target = y[:, :, None]
+    beta = _back_substitute(safe_r, np.einsum("gnp,gnk->gpk", q, target))
+    for _ in range(2):   # refinement against the residuals, as the single careful fit does
+        residual = target - np.einsum("gnp,gpk->gnk", scaled, beta)
+        beta = beta + _back_substitute(safe_r, np.einsum("gnp,gnk->gpk", q, residual))
+    residual = y - np.einsum("gnp,gp->gn", scaled, beta[:, :, 0])
+    rss = np.einsum("gn,gn->g", residual, residual)
+    identity = np.broadcast_to(np.eye(r.shape[-1]), r.shape).copy()
+    r_inverse = _back_substitute(safe_r, identity)
+    unscaled = np.einsum("gij,gkj->gik", r_inverse, r_inverse)
+    xtx_inverse = unscaled / (norms[:, :, None] * norms[:, None, :])
+    return beta[:, :, 0] / norms, xtx_inverse, rss, ok
+
+
+def fit_series_chunk(task: ChunkTask) -> ChunkFit:
+    """Return the OLS fit of every series in the task (a pure function of its numbers)."""
+    counts = np.asarray(task.counts, int)
+    series, terms = len(counts), task.matrix.shape[1]
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(int)
+    coef = np.full((series, terms), np.nan)
+    xtx_inverse = np.zeros((series, terms, terms))
+    resid_sd = np.full(series, np.nan)
+    df_resid = np.zeros(series, int)
+    rank = np.zeros(series, int)
+    fell_back = np.zeros(series, bool)
+    dropped: list[tuple[int, str]] = []
+    y = np.asarray(task.y, float)
+    present = counts > 0
+    sums = np.add.reduceat(y, starts[present]) if present.any() else np.zeros(0)
+    mean = np.full(series, np.nan)
+    mean[present] = sums / counts[present]
+    sd = np.full(series, np.nan)
+    squares = np.add.reduceat((y - np.repeat(mean[present], counts[present])) ** 2,
+                              starts[present]) if present.any() else np.zeros(0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd[present] = np.sqrt(squares / (counts[present] - 1))
+
+    # A column constant within a series repeats its intercept (or is all zeros): left out.
+    keep = np.zeros((series, terms), bool)
+    if present.any():
+        high = np.maximum.reduceat(task.matrix, starts[present], axis=0)
+        low = np.minimum.reduceat(task.matrix, starts[present], axis=0)
+        varies = high > low
+        nonzero = (high != 0) | (low != 0)
+        kept = varies if task.intercept else varies | nonzero
+        if task.intercept:
+            kept[:, 0] = True
+        keep[present] = kept
+    width = keep.sum(axis=1)
+    fell_back = counts <= width
+    groups: dict[tuple, list[int]] = {}
+    for position in np.flatnonzero(~fell_back):
+        groups.setdefault((int(counts[position]), keep[position].tobytes()), []).append(position)
+    careful: list[int] = []
+    for (rows, _), members in groups.items():
+        members = np.asarray(members)
+        columns = np.flatnonzero(keep[members[0]])
+        index = starts[members][:, None] + np.arange(rows)
+        stack = task.matrix[index][:, :, columns]
+        with np.errstate(all="ignore"):
+            beta, inverse, rss, ok = _fit_stack(stack, y[index])
+        good = members[ok]
+        coef[np.ix_(good, columns)] = beta[ok]
+        xtx_inverse[np.ix_(good, columns, columns)] = inverse[ok]
+        df_resid[good] = rows - len(columns)
+        rank[good] = len(columns)
+        resid_sd[good] = np.sqrt(rss[ok] / (rows - len(columns)))
+        careful += members[~ok].tolist()
+    for position in sorted(careful):
+        rows = slice(starts[position], starts[position] + counts[position])
+        columns = np.flatnonzero(keep[position])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            fit = least_squares(task.matrix[rows][:, columns], y[rows],
+                                [task.names[c] for c in columns], centered_r2=task.intercept)
+        if fit.df_resid <= 0:
+            fell_back[position] = True
+            continue
+        kept_here = columns[fit.kept]
+        coef[position, kept_here] = fit.coef[fit.kept]
+        xtx_inverse[np.ix_([position], kept_here, kept_here)] = \
+            fit.xtx_inverse[np.ix_(fit.kept, fit.kept)]
+        df_resid[position], rank[position], resid_sd[position] = fit.df_resid, fit.rank, fit.resid_sd
+        dropped += [(position, item.describe()) for item in fit.dropped]
+    coef[fell_back] = np.nan
+    xtx_inverse[fell_back] = 0.0
+    return ChunkFit(coef, xtx_inverse, resid_sd, df_resid, rank, mean, sd, fell_back, dropped)
+
+
+class PerSeriesOLS:
+    """OLS on the feature design, one fit per series; predictions use each row's own series."""
+
+    label = "OLS per series"
+
+    def __init__(self, fit_intercept: bool = True) -> None:
+        self.fit_intercept = fit_intercept
+
+    def _columns(self, design) -> np.ndarray:
+        matrix = np.asarray(design.matrix, float)
+        if design.series_level is not None and design.series_level.any():
+            matrix = matrix[:, ~design.series_level]
+        if self.fit_intercept:
+            full = np.empty((len(matrix), matrix.shape[1] + 1))
+            full[:, 0] = 1.0
+            full[:, 1:] = matrix
+            return full
+        return matrix
+
+    def fit(self, design, y) -> PerSeriesOLS:
+        y = np.asarray(y, float)
+        names = ([INTERCEPT] if self.fit_intercept else []) + [
+            name for name, own in zip(design.names, design.series_level
+                                      if design.series_level is not None else
+                                      np.zeros(len(design.names), bool)) if not own]
+        codes, series = pd.factorize(np.asarray(design.series))
+        order = np.argsort(codes, kind="stable")
+        matrix = self._columns(design)[order]
+        ordered_y = y[order]
+        counts = np.bincount(codes, minlength=len(series))
+        bounds = np.concatenate([[0], np.cumsum(counts)])
+        tasks = []
+        for first in range(0, len(series), CHUNK_SERIES):
+            last = min(first + CHUNK_SERIES, len(series))
+            rows = slice(bounds[first], bounds[last])
+            tasks.append(ChunkTask(matrix[rows], ordered_y[rows], counts[first:last],
+                                   self.fit_intercept, names))
+        bar = progress.current()
+        bar.start("series fitted", len(series))
+        fits = []
+        for start in range(0, len(tasks), 8):   # a few chunks at a time, so the bar moves
+            batch = tasks[start:start + 8]
+            fits += execution.current().map(fit_series_chunk, batch)
+            bar.advance("series fitted", int(sum(len(t.counts) for t in batch)))
+        self.names_ = names
+        self.series_ = pd.Index(series)
+        self.coef_ = np.vstack([f.coef for f in fits])
+        self.xtx_inverse_ = np.concatenate([f.xtx_inverse for f in fits])
+        self.resid_sd_ = np.concatenate([f.resid_sd for f in fits])
+        self.df_resids_ = np.concatenate([f.df_resid for f in fits])
+        self.rank_ = np.concatenate([f.rank for f in fits])
+        self.means_ = np.concatenate([f.mean for f in fits])
+        self.sds_ = np.concatenate([f.sd for f in fits])
+        self.fell_back_ = np.concatenate([f.fell_back for f in fits])
+        self.rows_ = counts
+        self.overall_mean_ = float(y.mean()) if len(y) else np.nan
+        offsets = np.cumsum([0] + [len(t.counts) for t in tasks])
+        self.dropped_ = [(str(series[offsets[k] + position]), why)
+                         for k, f in enumerate(fits) for position, why in f.dropped]
+        left_out = ~np.isfinite(self.coef_) & ~self.fell_back_[:, None]
+        self.constant_terms_ = sorted({names[j] for j in np.flatnonzero(left_out.any(axis=0))})
+        return self
+
+    @property
+    def fallbacks_(self) -> pd.DataFrame:
+        """Return the series fitted by their mean instead: rows they had, terms they needed."""
+        terms = len(self.names_)
+        return pd.DataFrame({"series": np.asarray(self.series_[self.fell_back_], object),
+                             "rows": self.rows_[self.fell_back_], "terms": terms})
+
+    def _lookup(self, design) -> np.ndarray:
+        return self.series_.get_indexer(np.asarray(design.series))
+
+    def predict(self, design) -> np.ndarray:
+        code = self._lookup(design)
+        x = self._columns(design)
+        known = code >= 0
+        out = np.full(len(x), self.overall_mean_)
+        rows = np.flatnonzero(known)
+        coef = np.nan_to_num(self.coef_[code[rows]], nan=0.0)
+        out[rows] = (x[rows] * coef).sum(axis=1)
+        fallback = rows[self.fell_back_[code[rows]]]
+        out[fallback] = self.means_[code[fallback]]
+        return out
+
+    def prediction_se(self, design) -> np.ndarray:
+        """Return each row's s·sqrt(1 + x'(X'X)⁻¹x) from its own series' fit (for a series on
+        its mean: s·sqrt(1 + 1/n)); NaN for a series the fit never saw."""
+        code = self._lookup(design)
+        x = self._columns(design)
+        out = np.full(len(x), np.nan)
+        rows = np.flatnonzero(code >= 0)
+        codes = code[rows]
+        spread = np.einsum("ij,ijk,ik->i", x[rows], self.xtx_inverse_[codes], x[rows])
+        out[rows] = self.resid_sd_[codes] * np.sqrt(1.0 + spread)
+        fallback = self.fell_back_[codes]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[rows[fallback]] = (self.sds_[codes[fallback]]
+                                   * np.sqrt(1.0 + 1.0 / self.rows_[codes[fallback]]))
+        return out
+
+    def df_resid_for(self, design) -> np.ndarray:
+        """Return each row's residual degrees of freedom (its series' fit), NaN if unseen."""
+        code = self._lookup(design)
+        out = np.full(len(code), np.nan)
+        rows = np.flatnonzero(code >= 0)
+        df = np.where(self.fell_back_, self.rows_ - 1, self.df_resids_).astype(float)
+        df[df <= 0] = np.nan
+        out[rows] = df[code[rows]]
+        return out
+
+    def notes(self) -> list[str]:
+        """Return what a reader should know about the fits: terms left out, fallbacks."""
+        found = []
+        if self.constant_terms_:
+            shown = ", ".join(f"'{n}'" for n in self.constant_terms_[:4]) + (
+                f" and {len(self.constant_terms_) - 4} more" if len(self.constant_terms_) > 4 else "")
+            found.append(f"{shown} do not vary within some series, so those series' fits leave "
+                         "them out (the series' own intercept carries them)")
+        if self.dropped_:
+            series, why = self.dropped_[0]
+            found.append(f"in {len({s for s, _ in self.dropped_})} series a term is a combination of "
+                         f"others and is left out (e.g. series '{series}': {why})")
+        return found
+
+    def coefficient_table(self, level: float = 0.95) -> pd.DataFrame:
+        """Return, per series and term, the estimate, standard error, t, p and interval."""
+        series_count, terms = self.coef_.shape
+        variance = np.einsum("gii->gi", self.xtx_inverse_) * self.resid_sd_[:, None] ** 2
+        stderr = np.where(np.isfinite(self.coef_), np.sqrt(np.maximum(variance, 0)), np.nan)
+        df = np.repeat(self.df_resids_.astype(float), terms)
+        df[df <= 0] = np.nan
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t_values = (self.coef_ / stderr).ravel()
+            p_values = 2 * scipy.stats.t.sf(np.abs(t_values), df)
+            multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
+        estimate = self.coef_.ravel()
+        percent = f"{level * 100:g}"
+        return pd.DataFrame({
+            "series": np.repeat(np.asarray(self.series_, object), terms),
+            "term": np.tile(self.names_, series_count), "estimate": estimate,
+            "std_error": stderr.ravel(), "t": t_values, "p_value": p_values,
+            f"low_{percent}": estimate - multiplier * stderr.ravel(),
+            f"high_{percent}": estimate + multiplier * stderr.ravel(),
+        })
