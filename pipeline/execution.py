@@ -51,12 +51,12 @@ class DaskCluster:
         return self.client.gather(futures)
 
 
-_current: contextvars.ContextVar = contextvars.ContextVar("castline_execution", default=InProcess())
+_current: contextvars.ContextVar = contextvars.ContextVar("castline_execution", default=None)
 
 
 def current():
     """Return the way the per-series fits run for the run in progress."""
-    return _current.get()
+    return _current.get() or InProcess()
 
 
 @contextmanager

@@ -31,8 +31,7 @@ class TerminalBar(Quiet):
 
     def __init__(self, stream) -> None:
         from rich.console import Console
-        from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
-                                   TimeRemainingColumn)
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
         self._bar = Progress(TextColumn("{task.description:>16}"), BarColumn(), MofNCompleteColumn(),
                              TextColumn("left"), TimeRemainingColumn(),
                              console=Console(file=stream), transient=True)
@@ -61,12 +60,12 @@ class TerminalBar(Quiet):
             self._bar.update(task, completed=self._bar.tasks[task].total)
 
 
-_current: contextvars.ContextVar = contextvars.ContextVar("castline_progress", default=Quiet())
+_current: contextvars.ContextVar = contextvars.ContextVar("castline_progress", default=None)
 
 
 def current():
     """Return where the run in progress reports how far it has got."""
-    return _current.get()
+    return _current.get() or Quiet()
 
 
 @contextmanager

@@ -18,9 +18,9 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
+from .. import progress
 from ..models import BASELINES, make_model, prediction_spread
 from ..models.ols import expanding_ols_predictions
-from .. import progress
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
