@@ -20,6 +20,15 @@ def _by_series(design, y) -> pd.DataFrame:
     return frame
 
 
+def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return the series in sorted order, each one's code per row, and each one's mean."""
+    codes, names = pd.factorize(np.asarray(design.series), sort=True)
+    values = np.asarray(y, float)
+    count = np.bincount(codes, minlength=len(names))
+    means = np.bincount(codes, weights=values, minlength=len(names)) / np.maximum(count, 1)
+    return np.asarray(names, object), codes, means
+
+
 class _PerSeriesBaseline:
     """Shared prediction for baselines that store one number per series."""
 
@@ -38,8 +47,8 @@ class MeanBaseline(_PerSeriesBaseline):
     word = "mean"
 
     def fit(self, design, y) -> MeanBaseline:
-        frame = _by_series(design, y)
-        self.values_ = frame.groupby("series")["y"].mean().to_dict()
+        names, _, means = _series_means(design, y)
+        self.values_ = dict(zip(names.tolist(), means.tolist()))
         self.fallback_ = float(np.mean(y))
         return self
 
@@ -70,11 +79,17 @@ class SeasonalNaive:
     label = "same month last year"
 
     def fit(self, design, y) -> SeasonalNaive:
-        frame = _by_series(design, y).sort_values("period", kind="stable")
-        frame["month_of_year"] = frame["period"] % SEASON
-        self.values_ = frame.groupby(["series", "month_of_year"])["y"].last().to_dict()
-        self.means_ = frame.groupby("series")["y"].mean().to_dict()
-        self.fallback_ = float(frame["y"].mean())
+        names, codes, means = _series_means(design, y)
+        values = np.asarray(y, float)
+        period = np.asarray(design.period)
+        # The last value of each (series, month of the year), months in time order.
+        order = np.argsort(period, kind="stable")[::-1]
+        keys = codes[order].astype(np.int64) * SEASON + period[order] % SEASON
+        unique, first = np.unique(keys, return_index=True)
+        self.values_ = dict(zip(zip(names[unique // SEASON].tolist(), (unique % SEASON).tolist()),
+                                values[order][first].tolist()))
+        self.means_ = dict(zip(names.tolist(), means.tolist()))
+        self.fallback_ = float(values.mean())
         return self
 
     def predict(self, design) -> np.ndarray:

@@ -267,6 +267,29 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
     return {split.label: result for split, result in zip(splits, found)}
 
 
+def _shared_design(spec: Spec, plan, data: CheckedData):
+    """Return the month-sorted history, its design and target, for windows to read rows of;
+    None when the history's row labels cannot locate a window's rows."""
+    history = sorted_by_month(data.history)
+    if not history.index.is_unique:
+        return None
+    design, y = plan.training_design(history)
+    if len(y) != len(history):
+        return None
+    return history, Design(design.matrix, design.names, design.series, design.period, (),
+                           design.series_level), y
+
+
+def _design_rows(shared, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
+    """Return the shared design and target of a window's rows (a view for a contiguous run)."""
+    history, design, y = shared
+    positions = history.index.get_indexer(frame.index)
+    if len(positions) and positions[-1] - positions[0] + 1 == len(positions) and \
+            (np.diff(positions) == 1).all():
+        positions = slice(int(positions[0]), int(positions[-1]) + 1)
+    return design.rows(positions), y[positions]
+
+
 def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     """Return the validation splits, the longest horizon and each split's fitted feature plan.
 
@@ -291,10 +314,14 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     # Without lags or a target transform, every row of a window is fitted on as it is.
     plain = not spec.drivers.lags and spec.target_transform == "none"
-    if "ols" in spec.model_names and expanding and len(splits) > 1 and plain:
-        states = {_plan_state(plan) for plan in plans}
-        if len(states) == 1:
-            fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
+    linear = [name for name, kind in zip(spec.model_names, spec.model_kinds) if kind not in BASELINES]
+    # When every window's plan learned the same thing, the design of the whole history is
+    # built once and each window reads its rows: a row's terms depend on that row alone.
+    same_plan = (plain and time_ordered and len(splits) > 1 and bool(linear)
+                 and len({_plan_state(plan) for plan in plans}) == 1)
+    shared = _shared_design(spec, plans[0], data) if same_plan else None
+    if "ols" in spec.model_names and expanding and same_plan:
+        fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
     frames = []
     fallen_back: list[pd.DataFrame | None] = []
     bar = progress.current()
@@ -310,7 +337,8 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 frame = split.train
                 return series_design(frame, SERIES), frame[spec.target].to_numpy(float)
             if "train" not in cache:
-                cache["train"] = plan.training_design(split.train)
+                cache["train"] = (_design_rows(shared, split.train) if shared is not None
+                                  else plan.training_design(split.train))
             return cache["train"]
 
         def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
@@ -318,7 +346,8 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             if kind in BASELINES:
                 return series_design(frame, SERIES)
             if "test" not in cache:
-                cache["test"] = plan.transform(frame)
+                cache["test"] = (_design_rows(shared, frame)[0] if shared is not None
+                                 else plan.transform(frame))
             return cache["test"]
 
         furthest = int((split.test[PERIOD].array.asi8 - split.origin.ordinal).max()) \

@@ -40,7 +40,8 @@ def write_spec(folder: Path, frame: pd.DataFrame, *, validation: dict, models: l
     """Write the frame as Parquet and a spec for it; return the spec's path."""
     folder.mkdir(parents=True, exist_ok=True)
     frame.to_parquet(folder / "data.parquet", index=False)
-    drivers: dict = {}
+    # The references below fit the drivers alone: no series levels unless a test asks.
+    drivers: dict = {"series_effects": extra.pop("series_effects", {"intercepts": False})}
     if numeric:
         drivers["numeric"] = numeric
     if categorical:
@@ -49,8 +50,7 @@ def write_spec(folder: Path, frame: pd.DataFrame, *, validation: dict, models: l
             "input": {"file": "data.parquet", "date_column": "month",
                       "series": ["region"] if series is None else series},
             "target": "y"}
-    if drivers:
-        spec["drivers"] = drivers
+    spec["drivers"] = drivers
     spec.update({"validation": validation, "models": models, **extra,
                  "output": {"folder": "reports"}})
     path = folder / "spec.yaml"

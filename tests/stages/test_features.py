@@ -65,9 +65,12 @@ def make_panel(months: int = 30, regions=REGIONS, seed: int = 0, start: str = "2
 
 def make_spec(drivers: dict | None = None, **top) -> Spec:
     """Return a spec built in memory (no file: cross-key rules are tested in test_spec.py)."""
+    drivers = dict(drivers or {})
+    # These tests are about the drivers' own terms: no series levels unless a test asks.
+    drivers.setdefault("series_effects", {"intercepts": False})
     data = {"name": "features-test", "target": "sales",
             "input": {"file": "data.csv", "date_column": "month", "series": ["region"]},
-            "drivers": drivers or {}, "validation": {"method": "holdout", "last_periods": 6},
+            "drivers": drivers, "validation": {"method": "holdout", "last_periods": 6},
             "output": {"folder": "out"}, **top}
     return Spec.model_validate(data)
 
