@@ -435,6 +435,11 @@ def _run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, dat
     by_origin = evaluation.by_origin.assign(origin=evaluation.by_origin["origin"].astype(str)) \
         if len(evaluation.by_origin) else evaluation.by_origin
     coefficients = forecast.coefficients
+    if "series" in coefficients.columns and coefficients["series"].notna().any():
+        # A model per series has each term once per series: the series is part of its name.
+        own = coefficients["series"].notna()
+        coefficients = coefficients.assign(term=coefficients["term"].where(
+            ~own, "series " + coefficients["series"].astype(str) + ": " + coefficients["term"]))
     return {
         "runs": [{
             "run_id": run_id, "created": created.isoformat(timespec="microseconds"),
