@@ -24,6 +24,7 @@ import pytest
 from sklearn.metrics import r2_score
 
 from pipeline import metrics
+from pipeline.stages import backtest as backtest_module
 from pipeline.stages.backtest import mase_scales
 from pipeline.stages.check import PERIOD, SERIES
 
@@ -117,6 +118,26 @@ def simulated_panel(seed: int, gaps: bool) -> pd.DataFrame:
 def test_mase_scales_equal_a_direct_pandas_computation(gaps):
     frame = simulated_panel(seed=3, gaps=gaps)
     got = mase_scales(frame, "y")
+    expected = reference_scales(frame)
+    assert set(got) == set(expected)
+    for name in expected:
+        assert got[name] == pytest.approx(expected[name], rel=1e-12), name
+
+
+@pytest.mark.parametrize("how", ["by_key", "codes_given"])
+def test_mase_scales_equal_pandas_by_key_lookup_and_with_series_codes_given(how, monkeypatch):
+    # The grid of row positions is used up to DENSE_GRID_CELLS; beyond it, a key lookup.
+    # Either way, and with the series factorised beforehand (names including a series
+    # with no row, as a window of a larger design has), the same numbers as pandas.
+    frame = simulated_panel(seed=5, gaps=True)
+    codes_given = None
+    if how == "by_key":
+        monkeypatch.setattr(backtest_module, "DENSE_GRID_CELLS", 0)
+    else:
+        codes, names = pd.factorize(frame[SERIES].to_numpy(), sort=True)
+        names = np.append(np.asarray(names, object), "absent series")
+        codes_given = (codes, names)
+    got = backtest_module.mase_scales(frame, "y", series_codes=codes_given)
     expected = reference_scales(frame)
     assert set(got) == set(expected)
     for name in expected:

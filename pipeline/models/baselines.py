@@ -21,10 +21,17 @@ def _by_series(design, y) -> pd.DataFrame:
 
 
 def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Return the series in sorted order, each one's code per row, and each one's mean."""
-    codes, names = pd.factorize(np.asarray(design.series), sort=True)
+    """Return the series with rows, in sorted order, each row's code into them, and each
+    series' mean."""
+    from ..stages.features import series_index
+    codes, names = series_index(design)
     values = np.asarray(y, float)
     count = np.bincount(codes, minlength=len(names))
+    if (count == 0).any():   # a window of a larger design: keep the series it holds
+        present = np.flatnonzero(count)
+        compact = np.full(len(names), -1)
+        compact[present] = np.arange(len(present))
+        codes, names, count = compact[codes], names[present], count[present]
     means = np.bincount(codes, weights=values, minlength=len(names)) / np.maximum(count, 1)
     return np.asarray(names, object), codes, means
 
@@ -33,7 +40,8 @@ class _PerSeriesBaseline:
     """Shared prediction for baselines that store one number per series."""
 
     def predict(self, design) -> np.ndarray:
-        return np.array([self.values_.get(s, self.fallback_) for s in design.series], float)
+        return np.array([self.values_.get(s, self.fallback_)
+                         for s in np.asarray(design.series).tolist()], float)
 
     def coefficient_table(self) -> pd.DataFrame:
         return pd.DataFrame({"term": [f"{self.word} of {s}" for s in self.values_],
@@ -93,9 +101,9 @@ class SeasonalNaive:
         return self
 
     def predict(self, design) -> np.ndarray:
-        months = np.asarray(design.period) % SEASON
+        months = (np.asarray(design.period) % SEASON).tolist()
         return np.array([self.values_.get((s, m), self.means_.get(s, self.fallback_))
-                         for s, m in zip(design.series, months)], float)
+                         for s, m in zip(np.asarray(design.series).tolist(), months)], float)
 
     def coefficient_table(self) -> pd.DataFrame:
         return pd.DataFrame({"term": [f"month {m + 1} of {s}" for s, m in self.values_],

@@ -1,6 +1,6 @@
 """OLS fitted to each series on its own, many series at a time.
 
-Series are cut into chunks of ``CHUNK_SERIES`` (in order of first appearance),
+Series are cut into chunks of ``CHUNK_SERIES`` (in sorted order of their names),
 and each chunk is one task for the run's executor (this process, worker
 processes or a Dask cluster; see ``pipeline.execution``). Within a chunk, the
 series whose designs have the same shape (rows and kept columns) are stacked
@@ -27,6 +27,7 @@ import pandas as pd
 import scipy.stats
 
 from .. import execution, progress
+from ..stages.features import series_index
 from .ols import INTERCEPT, least_squares
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
@@ -196,7 +197,13 @@ class PerSeriesOLS:
             name for name, own in zip(design.names, design.series_level
                                       if design.series_level is not None else
                                       np.zeros(len(design.names), bool)) if not own]
-        codes, series = pd.factorize(np.asarray(design.series))
+        codes, series = series_index(design)
+        counts = np.bincount(codes, minlength=len(series))
+        if (counts == 0).any():   # a window of a larger design: only the series it holds
+            present = np.flatnonzero(counts)
+            compact = np.full(len(series), -1)
+            compact[present] = np.arange(len(present))
+            codes, series = compact[codes], series[present]
         order = np.argsort(codes, kind="stable")
         matrix = self._columns(design)[order]
         ordered_y = y[order]

@@ -24,7 +24,7 @@ from ..models.ols import expanding_ols_predictions
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
-from .features import Design, plan_features, series_design
+from .features import Design, plan_features, series_design, series_index
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
@@ -181,25 +181,52 @@ def _fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
             for k, (train, test) in enumerate(folds)]
 
 
-def mase_scales(train: pd.DataFrame, target: str, season: int = 12) -> dict[str, float]:
+DENSE_GRID_CELLS = 50_000_000   # beyond this, MASE scales look months up by key, not by grid
+
+
+def mase_scales(train: pd.DataFrame, target: str, season: int = 12,
+                series_codes: tuple[np.ndarray, np.ndarray] | None = None) -> dict[str, float]:
     """Return, per series, the in-sample MAE of the seasonal naive forecast on the window.
 
     Months are matched by date (a value and the one ``season`` months earlier),
     so a gap in a series never pairs the wrong months. A series spanning less
-    than a full season uses the one-month naive forecast.
+    than a full season uses the one-month naive forecast. ``series_codes``: the
+    rows' series already factorised (codes, names), when known.
     """
-    codes, names = pd.factorize(train[SERIES].to_numpy())
+    if series_codes is None:
+        codes, names = pd.factorize(train[SERIES].to_numpy())
+    else:
+        codes, names = series_codes
+        present = np.bincount(codes, minlength=len(names)) > 0
+        if not present.all():
+            compact = np.cumsum(present) - 1
+            codes, names = compact[codes], names[present]
     months = train[PERIOD].array.asi8.astype(np.int64)
     values = train[target].to_numpy(float)
-    first = np.full(len(names), np.iinfo(np.int64).max)
-    last = np.full(len(names), np.iinfo(np.int64).min)
-    np.minimum.at(first, codes, months)
-    np.maximum.at(last, codes, months)
-    lag = np.where(last - first >= season, season, 1)[codes]
-    # One integer key per (series, month): look up the value lag months earlier.
-    span = int(months.max() - months.min()) + season + 2 if len(months) else 1
-    keys = pd.Index(codes.astype(np.int64) * span + (months - months.min()))
-    earlier = keys.get_indexer(codes.astype(np.int64) * span + (months - months.min() - lag))
+    offset = months - months.min() if len(months) else months
+    width = int(offset.max()) + 1 if len(months) else 1
+    if len(names) * width <= DENSE_GRID_CELLS:
+        # A grid of row positions by (series, month): each lookup is one index.
+        where = np.full((len(names), width), -1, np.int64)
+        where[codes, offset] = np.arange(len(months))
+        held = where >= 0
+        first = held.argmax(axis=1)
+        last = width - 1 - held[:, ::-1].argmax(axis=1)
+        lag = np.where(last - first >= season, season, 1)[codes]
+        back = offset - lag
+        earlier = np.full(len(months), -1, np.int64)
+        inside = back >= 0
+        earlier[inside] = where[codes[inside], back[inside]]
+    else:
+        first = np.full(len(names), np.iinfo(np.int64).max)
+        last = np.full(len(names), np.iinfo(np.int64).min)
+        np.minimum.at(first, codes, months)
+        np.maximum.at(last, codes, months)
+        lag = np.where(last - first >= season, season, 1)[codes]
+        # One integer key per (series, month): look up the value lag months earlier.
+        span = width + season + 2
+        keys = pd.Index(codes.astype(np.int64) * span + offset)
+        earlier = keys.get_indexer(codes.astype(np.int64) * span + (offset - lag))
     found = earlier >= 0
     diffs = np.abs(values[found] - values[earlier[found]])
     total = np.bincount(codes[found], weights=diffs, minlength=len(names))
@@ -218,6 +245,15 @@ def _plan_state(plan) -> str:
     return "|".join(parts)
 
 
+def _lookup(values: dict, keys: np.ndarray) -> np.ndarray:
+    """Return values[key] for each key (NaN for a key not in values), vectorised."""
+    if not values:
+        return np.full(len(keys), np.nan)
+    found = pd.Index(list(values)).get_indexer(keys)
+    table = np.append(np.asarray(list(values.values()), float), np.nan)
+    return table[found]
+
+
 def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target: str,
                        scales: dict[str, float], se=None, df_resid=None) -> pd.DataFrame:
     test = split.test
@@ -231,7 +267,7 @@ def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target:
     return pd.DataFrame({
         "origin": split.label, "period": period, "horizon": horizon, "series": series,
         "model": kind, "actual": test[target].to_numpy(float), "prediction": predictions,
-        "mase_scale": [scales.get(s, np.nan) for s in series],
+        "mase_scale": _lookup(scales, series),
         "prediction_se": np.nan if se is None else se,
         "df_resid": np.nan if df_resid is None else df_resid,
     })
@@ -277,7 +313,7 @@ def _shared_design(spec: Spec, plan, data: CheckedData):
     if len(y) != len(history):
         return None
     return history, Design(design.matrix, design.names, design.series, design.period, (),
-                           design.series_level), y
+                           design.series_level).with_series_codes(), y
 
 
 def _design_rows(shared, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
@@ -327,13 +363,17 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     bar = progress.current()
     bar.start("origins", len(splits))
     for split, plan in zip(splits, plans):
-        scales = mase_scales(split.train, spec.target) if time_ordered else {}
         cache: dict[str, tuple] = {}
+        window_codes = None
+        if shared is not None:
+            cache["train"] = _design_rows(shared, split.train)
+            window_codes = series_index(cache["train"][0])
+        scales = mase_scales(split.train, spec.target, series_codes=window_codes) if time_ordered else {}
 
         def train_design(kind: str, split=split, plan=plan, cache=cache) -> tuple[Design, np.ndarray]:
             # Baselines need only the series and months; the full design is built once, if at
             # all. With lags, every model fits on the rows whose lags are available.
-            if kind in BASELINES and plain:
+            if kind in BASELINES and plain and shared is None:
                 frame = split.train
                 return series_design(frame, SERIES), frame[spec.target].to_numpy(float)
             if "train" not in cache:
@@ -343,7 +383,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
 
         def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
             frame = split.test
-            if kind in BASELINES:
+            if kind in BASELINES and shared is None:
                 return series_design(frame, SERIES)
             if "test" not in cache:
                 cache["test"] = (_design_rows(shared, frame)[0] if shared is not None

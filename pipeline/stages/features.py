@@ -767,12 +767,34 @@ class Design:
     period: np.ndarray | None = None   # month ordinals (months since 1970-01), when time-ordered
     notes: tuple[str, ...] = ()        # what the features did that a reader should know
     series_level: np.ndarray | None = None   # columns that only tell series apart (SeriesTerms)
+    # The rows' series as codes into sorted names, when known already (a window of a larger
+    # design); the names may include series that have no row here.
+    series_codes: np.ndarray | None = None
+    series_names: np.ndarray | None = None
 
     def rows(self, positions) -> Design:
         """Return the design of some of its rows (positions or a slice), notes kept."""
         return Design(self.matrix[positions], self.names, self.series[positions],
                       None if self.period is None else self.period[positions], self.notes,
-                      self.series_level)
+                      self.series_level,
+                      None if self.series_codes is None else self.series_codes[positions],
+                      self.series_names)
+
+    def with_series_codes(self) -> Design:
+        """Return the design with its series factorised once, for windows to share."""
+        codes, names = series_index(self)
+        return Design(self.matrix, self.names, self.series, self.period, self.notes,
+                      self.series_level, codes, names)
+
+
+def series_index(design) -> tuple[np.ndarray, np.ndarray]:
+    """Return each row's series as a code into the sorted series names, and those names
+    (which, for a window of a larger design, may include series with no row in it)."""
+    codes = getattr(design, "series_codes", None)
+    if codes is not None:
+        return codes, design.series_names
+    codes, names = pd.factorize(np.asarray(design.series), sort=True)
+    return codes, np.asarray(names, dtype=object)
 
 
 def series_design(frame: pd.DataFrame, series_column: str) -> Design:
