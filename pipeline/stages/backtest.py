@@ -33,11 +33,18 @@ PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual"
 FALLBACK_COLUMNS = ["model", "window", "series", "rows", "terms"]
 
 
-def _fallbacks(name: str, window: str, model) -> pd.DataFrame | None:
-    """Return the series a fitted model per series gave its mean to, labelled."""
+def _fallbacks(name: str, window: str, model, predicted_series: np.ndarray) -> pd.DataFrame | None:
+    """Return the series a fitted model per series gave its mean to, labelled, and those it
+    predicted without a row of them to fit on (given the mean of every series)."""
     inner = getattr(model, "model", model)
     found = getattr(inner, "fallbacks_", None)
-    if found is None or not len(found):
+    if found is None:
+        return None
+    unseen = pd.unique(predicted_series[inner.series_.get_indexer(predicted_series) < 0])
+    if len(unseen):
+        found = pd.concat([found, pd.DataFrame({"series": unseen, "rows": 0,
+                                                "terms": len(inner.names_)})], ignore_index=True)
+    if not len(found):
         return None
     return found.assign(model=name, window=window)[FALLBACK_COLUMNS]
 
@@ -412,7 +419,8 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 model.fit(design, y_train)
                 predicted = model.predict(test_design(choice.kind))
                 se, df_resid = prediction_spread(model, test_design(choice.kind))
-                fallen_back.append(_fallbacks(choice.name, split.label, model))
+                fallen_back.append(_fallbacks(choice.name, split.label, model,
+                                              np.asarray(split.test[SERIES].to_numpy())))
             frames.append(_frame_predictions(split, choice.name, predicted, spec.target, scales,
                                              se, df_resid))
         if "train" in cache:
@@ -430,7 +438,8 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         count = fallbacks.groupby("model")["series"].nunique()
         notes.insert(0, "; ".join(
             f"{name}: {n} series had no more rows than terms in some training window and were "
-            "forecast by their own mean there (listed in series_fallbacks.csv)"
+            "forecast by their own mean there, or by the mean of all series when the window held "
+            "none of their rows (listed in series_fallbacks.csv)"
             for name, n in count.items()))
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"]
