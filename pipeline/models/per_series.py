@@ -132,7 +132,7 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
             kept[:, 0] = True
         keep[present] = kept
     width = keep.sum(axis=1)
-    fell_back = counts <= width
+    fell_back = (counts <= width) | (width == 0)   # no column to fit on: the mean
     groups: dict[tuple, list[int]] = {}
     for position in np.flatnonzero(~fell_back):
         groups.setdefault((int(counts[position]), keep[position].tobytes()), []).append(position)

@@ -411,8 +411,11 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 predicted, se, df_resid = fast_ols[split.label]
             elif stepwise and choice.kind not in BASELINES:
                 # A target lag is shorter than the months ahead: the spec's multi_step strategy.
-                predicted, se, df_resid, _ = predict_ahead(spec, choice, split.train, split.test,
-                                                           split.origin.ordinal)
+                predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
+                                                              split.origin.ordinal)
+                fallen_back += [_fallbacks(choice.name, split.label, model,
+                                           np.asarray(split.test[SERIES].to_numpy()))
+                                for _, _, model in used]
             else:
                 model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
                 design, y_train = train_design(choice.kind)
