@@ -56,7 +56,7 @@ def series_fallbacks(fallbacks: pd.DataFrame) -> pd.DataFrame:
         return pd.DataFrame(columns=["model", "series", "windows", "first_window", "fewest_rows",
                                      "terms"])
     grouped = fallbacks.groupby(["model", "series"], sort=False)
-    return pd.DataFrame({"windows": grouped.size(), "first_window": grouped["window"].first(),
+    return pd.DataFrame({"windows": grouped["window"].nunique(), "first_window": grouped["window"].first(),
                          "fewest_rows": grouped["rows"].min(),
                          "terms": grouped["terms"].max()}).reset_index()
 
