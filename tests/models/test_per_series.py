@@ -328,3 +328,17 @@ def test_nist_wampler_datasets_stacked_as_series_of_one_shape(monkeypatch):
     copies = fit_series_chunk(_nist_task("longley", copies=3))
     for position in range(3):
         np.testing.assert_allclose(copies.coef[position], alone.coef[0], rtol=1e-13)
+
+
+@pytest.mark.xfail(strict=True, raises=ValueError, reason="bug: without an intercept, a series "
+                   "whose every column is all zeros keeps no column, is not a fallback "
+                   "(rows > 0 terms) and reaches _fit_stack with zero columns: numpy raises "
+                   "'zero-size array to reduction operation maximum' (per_series._rank_ok)")
+def test_without_an_intercept_a_series_with_only_zero_columns_does_not_stop_the_fit():
+    rng = np.random.default_rng(0)
+    series = np.repeat(["a", "b"], 10)
+    matrix = rng.normal(size=(20, 2))
+    matrix[10:] = 0.0          # e.g. a promotion driver that is 0 throughout series 'b'
+    model = PerSeriesOLS(fit_intercept=False).fit(Design(matrix, ["u", "v"], series),
+                                                 rng.normal(size=20))
+    assert np.isfinite(model.predict(Design(matrix, ["u", "v"], series))).all()
