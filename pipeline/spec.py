@@ -645,6 +645,9 @@ def _describe(error: dict[str, Any]) -> str:
     if message.startswith("Value error, "):
         message = message[len("Value error, "):]
     message = message.replace("Input should be", "must be")
+    if kind == "string_pattern_mismatch" and "://" in str(error.get("ctx", {}).get("pattern", "")):
+        return (f"{error['input']!r} is not a Dask scheduler address: give protocol://host:port, "
+                "e.g. tcp://10.0.0.5:8786 (protocols: tcp, tls, inproc, ucx, ws, wss)")
     if kind == "string_pattern_mismatch":
         return (f"{error['input']!r} is not a plain name: use letters, digits, '-', '_' and '.', "
                 "starting with a letter or digit")

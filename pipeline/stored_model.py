@@ -129,8 +129,8 @@ def _hashable(value):
     return tuple(value) if isinstance(value, list) else value
 
 
-def _state(obj) -> dict[str, Any]:
-    return {name: encode(val) for name, val in vars(obj).items() if not name.startswith("__")}
+def _state(obj, parts: list | None = None) -> dict[str, Any]:
+    return {name: encode(val, parts) for name, val in vars(obj).items() if not name.startswith("__")}
 
 
 def _allowed_classes(module) -> dict[str, type]:
@@ -139,11 +139,12 @@ def _allowed_classes(module) -> dict[str, type]:
             and hasattr(cls, "fit") and (hasattr(cls, "transform") or hasattr(cls, "predict"))}
 
 
-def _rebuild(entry: dict, allowed: dict[str, type], parts: list | None = None):
+def _rebuild(entry: dict, allowed: dict[str, type], parts: list | None = None, obj=None):
     name = entry.get("class")
     if name not in allowed:
         raise ModelFileError(f"class {name!r} is not one castline stores")
-    obj = allowed[name].__new__(allowed[name])
+    if obj is None:
+        obj = allowed[name].__new__(allowed[name])
     for attribute, value in entry["state"].items():
         if not attribute.isidentifier() or attribute.startswith("__") or \
                 callable(getattr(allowed[name], attribute, None)) or \
@@ -267,7 +268,9 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
             models[kind] = {"kind": "linear", **_linear_numbers(kind, model)}
         else:
             models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}
-    parts = [{"class": type(part).__name__, "state": _state(part)} for part in plan.parts_]
+    # A part may refer to another (an interaction or series slopes to a driver's terms).
+    parts = [{"class": type(part).__name__, "state": _state(part, plan.parts_)}
+             for part in plan.parts_]
     # The plan's other lists of features refer to the same objects as parts_; a bound
     # method (how to report a spec error) is not state and is restored to the default.
     plan_state = {key: encode(val, plan.parts_) for key, val in vars(plan).items()
@@ -357,7 +360,11 @@ def load_model(path: str | Path) -> StoredModel:
         plan_entry = document.plan
         if plan_entry.get("class") != "FeaturePlan":
             raise ModelFileError("the plan is not a feature plan")
-        parts = [_rebuild(part, transformers) for part in plan_entry.get("parts", [])]
+        entries = plan_entry.get("parts", [])
+        # Every part first, then their states, which may refer to one another.
+        parts = [_rebuild({"class": part.get("class"), "state": {}}, transformers) for part in entries]
+        for part, entry in zip(parts, entries):
+            _rebuild(entry, transformers, parts, obj=part)
         plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
                         transformers, parts)
         plan.parts_ = parts

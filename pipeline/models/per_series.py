@@ -57,6 +57,7 @@ class ChunkFit:
     sd: np.ndarray          # and its standard deviation
     fell_back: np.ndarray   # True: too few rows, the series' mean is used
     dropped: list[tuple[int, str]]   # (series position in chunk, why a column was left out)
+    constant: np.ndarray | None = None   # series × terms: left out as not varying in the series
 
 
 def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -169,7 +170,9 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
         dropped += [(position, item.describe()) for item in fit.dropped]
     coef[fell_back] = np.nan
     xtx_inverse[fell_back] = 0.0
-    return ChunkFit(coef, xtx_inverse, resid_sd, df_resid, rank, mean, sd, fell_back, dropped)
+    constant = ~keep & ~fell_back[:, None]
+    return ChunkFit(coef, xtx_inverse, resid_sd, df_resid, rank, mean, sd, fell_back, dropped,
+                    constant)
 
 
 class PerSeriesOLS:
@@ -237,7 +240,8 @@ class PerSeriesOLS:
         offsets = np.cumsum([0] + [len(t.counts) for t in tasks])
         self.dropped_ = [(str(series[offsets[k] + position]), why)
                          for k, f in enumerate(fits) for position, why in f.dropped]
-        left_out = ~np.isfinite(self.coef_) & ~self.fell_back_[:, None]
+        # Only the columns constant within a series (not those collinear with others there).
+        left_out = np.vstack([f.constant for f in fits])
         self.constant_terms_ = sorted({names[j] for j in np.flatnonzero(left_out.any(axis=0))})
         return self
 
