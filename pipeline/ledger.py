@@ -1007,7 +1007,10 @@ def coefficient_moves(earlier: pd.DataFrame, later: pd.DataFrame, top: int) -> p
     both["change_in_se"] = both["change"] / both["std_error_earlier"]
     both["_rank"] = both["change_in_se"].abs().fillna(-1)
     both["_size"] = both["change"].abs().fillna(np.inf)   # a term added or dropped ranks high
-    both = both[both["change"].ne(0)]   # unchanged terms are not moves (added or dropped ones are)
+    # Unchanged terms are not moves (added or dropped ones are), nor are terms left out of
+    # both fits (a term constant within a series, in a model per series).
+    both = both[both["change"].ne(0)
+                & ~(both["estimate_earlier"].isna() & both["estimate_later"].isna())]
     both = both.sort_values(["_rank", "_size"], ascending=False, kind="stable")
     columns = ["model", "term", "estimate_earlier", "estimate_later", "change", "change_in_se"]
     return both[columns].rename(columns={"estimate_earlier": "earlier", "estimate_later": "later"}) \
