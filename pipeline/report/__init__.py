@@ -1,7 +1,11 @@
 """The comparison report: one self-contained HTML page built from a run folder's files alone.
 
 ``build_report(folder)`` reads the artefacts a run wrote (never refits) and
-writes ``report.html``: the answer first, then the evidence. Everything is
+writes ``report.html``: the answer first, then the evidence. A run of many
+series stays readable: the pictures show a few series (named in their
+captions), long tables show their first rows and name the CSV that holds the
+rest, the drivers of a model per series are summarised across series, and the
+Per series section summarises series.csv. Everything is
 inline (styles, pictures as data URIs), so the page makes no network request;
 every value from the data is escaped by the template engine.
 """
@@ -172,20 +176,22 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
     return view
 
 
-def featured_model(rows: list[dict], models: list[str], recommended: str, select_by: str) -> str | None:
+def featured_model(rows: list[dict], candidates: list[str], shown: list[str], recommended: str,
+                   select_by: str) -> str | None:
     """Return the model whose worst series are pictured: the recommended one, or when that is the
     mean baseline, the shown model with the best overall score."""
-    if recommended in models:
+    if recommended in candidates:
         return recommended
     scores = {row["model"]: row.get(select_by) for row in rows}
-    ranked = [m for m in models if isinstance(scores.get(m), (int, float)) and math.isfinite(scores[m])]
-    return min(ranked, key=lambda m: scores[m]) if ranked else (models[0] if models else None)
+    ranked = [m for m in shown if isinstance(scores.get(m), (int, float)) and math.isfinite(scores[m])]
+    return min(ranked, key=lambda m: scores[m]) if ranked else (shown[0] if shown else None)
 
 
 def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fallbacks: pd.DataFrame | None,
                     *, rows: list[dict], recommended: str, select_by: str, level: float,
                     series_count: int) -> dict | None:
-    """Return what the Per series section shows, or None for a run of one series.
+    """Return what the Per series section shows, or None for a run of one series (or of the
+    mean baseline alone, which has nothing to compare per series).
 
     The models summarised are the linear ones (the naive baselines when there is none);
     the worst series are those of the featured model (``featured_model``).
@@ -194,6 +200,8 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
         return None
     others = [m for m in dict.fromkeys(series_table["model"]) if m != "mean_baseline"]
     models = [m for m in others if m not in BASELINE_MODELS] or others
+    if not models:
+        return None
     by_model = {row["model"]: row for row in summary}
     table = pd.DataFrame([{
         "model": m, "series": by_model[m]["series"],
@@ -201,7 +209,7 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
         "significantly": share_text(by_model[m]["beats_significantly"], by_model[m]["series"]),
         "skill 25%": by_model[m]["skill_q25"], "median skill": by_model[m]["skill_median"],
         "skill 75%": by_model[m]["skill_q75"]} for m in models if m in by_model])
-    featured = featured_model(rows, models, recommended, select_by)
+    featured = featured_model(rows, others, models, recommended, select_by)
     own = series_table[(series_table["model"] == featured) & series_table["skill_vs_mean"].notna()]
     worst = own.sort_values("skill_vs_mean", kind="stable").head(WORST_SHOWN)
     base_mae = series_table[series_table["model"] == "mean_baseline"].set_index("series")["mae"]
@@ -227,7 +235,9 @@ def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
     if not path.exists() or path.stat().st_size == 0:
         return None
     try:
-        frame = pd.read_csv(path, keep_default_na=True)
+        # Whole-column type inference: a column empty for most rows (a per-series model's
+        # series column in coefficients.csv) is read the same however long the file is.
+        frame = pd.read_csv(path, keep_default_na=True, low_memory=False)
     except pd.errors.EmptyDataError:
         return None
     return frame if len(frame.columns) else None
@@ -342,6 +352,7 @@ def render_report(folder: Path) -> str:
         residual_pictures=plots.residual_pictures(residuals) if residuals is not None and len(residuals) else [],
         diagnostics=diagnostics.to_dict(orient="records") if diagnostics is not None else [],
         influential=influential, data=data, series_names=named(data.get("series", [])),
+        names_shown=NAMES_SHOWN,
         notes=metrics.get("notes", []),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),

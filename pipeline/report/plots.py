@@ -247,6 +247,9 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="upper left")
     clipped = int(sum((v < -1).sum() for v in values.values()))
+    if clipped:
+        axis.annotate(f"{clipped:,} below −1", xy=(low, 0), xytext=(4, 14), textcoords="offset points",
+                      fontsize=7, color="#333333")
     alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
            "the model beats it; " + "; ".join(parts)
            + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
@@ -270,7 +273,8 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
         rows = _nearest(own[own["model"] == kind]).sort_values("period")
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
                   marker=".", markersize=3, linewidth=1, label=kind)
-    axis.set_title(f"{name} (skill {skill:.3g})", fontsize=8)
+    # A "$" in a series name would start matplotlib's maths notation.
+    axis.set_title(f"{name} (skill {skill:.3g})".replace("$", r"\$"), fontsize=8)
     _date_axis(axis)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "

@@ -24,6 +24,7 @@ from ..errors import UserError
 from ..intervals import trusted_method
 from ..report import (
     CAUTIONS,
+    NAMES_SHOWN,
     TABLE_ROWS,
     build_report,
     drivers_view,
@@ -163,6 +164,7 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
         drivers=drivers, terms=terms if terms is not None and len(terms) else None,
         terms_model=drivers["model"] or "", standard_errors=standard_errors,
         per_series=per_series, series_names=named(data_print.get("series", [])),
+        names_shown=NAMES_SHOWN,
         fit=some(forecast.fit_summary), diagnostics=diagnostics, influential=some(forecast.influential),
         notes=forecast.warnings + evaluation.notes, data=data_print, cautions=CAUTIONS,
         castline_version=__version__)
