@@ -1,7 +1,11 @@
 """The comparison report: one self-contained HTML page built from a run folder's files alone.
 
 ``build_report(folder)`` reads the artefacts a run wrote (never refits) and
-writes ``report.html``: the answer first, then the evidence. Everything is
+writes ``report.html``: the answer first, then the evidence. A run of many
+series stays readable: the pictures show a few series (named in their
+captions), long tables show their first rows and name the CSV that holds the
+rest, the drivers of a model per series are summarised across series, and the
+Per series section summarises series.csv. Everything is
 inline (styles, pictures as data URIs), so the page makes no network request;
 every value from the data is escaped by the template engine.
 """
@@ -13,6 +17,7 @@ import math
 from pathlib import Path
 
 import jinja2
+import numpy as np
 import pandas as pd
 
 from ..errors import UserError
@@ -36,6 +41,14 @@ LOWER_IS_BETTER = ("mae", "rmse", "mape", "smape", "wape", "mase")
 HIGHER_IS_BETTER = ("r2", "skill_vs_mean")
 COMPARISON = ["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias",
               "skill_vs_mean", "p_value", "against_mean"]
+BASELINE_MODELS = ("mean_baseline", "last_value", "seasonal_naive", "drift")
+# With more series than this, pictures show a few series and the drivers are summarised
+# across series; the run folder's CSV files keep every row.
+MANY_SERIES = plots.MAX_PANELS
+TABLE_ROWS = 50        # rows of a long table shown before pointing to its CSV file
+NAMES_SHOWN = 20       # series named in a list before "and N more"
+WORST_SHOWN = 5        # worst series pictured in the Per series section
+SIGNIFICANT = 0.05     # a coefficient's p-value counted as small in the summary across series
 
 
 def format_number(value) -> str:
@@ -84,12 +97,147 @@ def render_markdown(template: str, **context) -> str:
     return environment.get_template(template).render(**context)
 
 
+def named(names, shown: int = NAMES_SHOWN) -> str:
+    """Return names joined by commas, the first ``shown`` of them and how many more."""
+    names = [str(n) for n in names]
+    more = len(names) - shown
+    return ", ".join(names[:shown]) + (f" and {more:,} more" if more > 0 else "")
+
+
+def share_text(count: int, total: int) -> str:
+    """Return "12 of 30 (40.0%)"."""
+    return f"{count:,} of {total:,} ({count / total:.1%})" if total else "none"
+
+
+def _is_series_effect(terms: pd.Series) -> pd.Series:
+    # Models over all series name a series' own level "series: NAME" and its own slope
+    # "DRIVER × series: NAME" (pipeline.stages.features).
+    text = terms.astype(str)
+    return text.str.startswith("series: ") | text.str.contains(" × series: ", regex=False)
+
+
+def _effect_group(term: str) -> str:
+    if term.startswith("series: "):
+        return "series level (each series against the first)"
+    return term.split(" × series: ", 1)[0] + " × series (each series' own slope)"
+
+
+def spread_across_series(terms: pd.DataFrame, groups: pd.Series) -> pd.DataFrame:
+    """Return, per group of coefficients (in order of first appearance), how many series have an
+    estimate, the median estimate and its quartiles, and the share of those with p < 0.05."""
+    frame = pd.DataFrame({"term": groups.to_numpy(), "estimate": terms["estimate"].to_numpy(float),
+                          "p": terms["p_value"].to_numpy(float) if "p_value" in terms
+                          else np.full(len(terms), np.nan)})
+    frame = frame[np.isfinite(frame["estimate"])]
+    grouped = frame.groupby("term", sort=False)
+    table = pd.DataFrame({
+        "series": grouped["estimate"].size(), "median estimate": grouped["estimate"].median(),
+        "25%": grouped["estimate"].quantile(0.25), "75%": grouped["estimate"].quantile(0.75),
+        f"share p < {SIGNIFICANT:g}": grouped["p"].apply(
+            lambda p: float((p[np.isfinite(p)] < SIGNIFICANT).mean()) if np.isfinite(p).any()
+            else float("nan")),
+    }).reset_index()
+    return table
+
+
+def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int) -> dict:
+    """Return what the Drivers section shows: the linear model described, its terms (at most
+    TABLE_ROWS), and with many series a summary across series instead of a row per series."""
+    view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": ""}
+    if coefficients is None or not len(coefficients):
+        return view
+    models = set(coefficients["model"])
+    linear = "ols" if "ols" in models else None
+    if recommended in models and recommended not in BASELINE_MODELS:
+        linear = recommended
+    if linear is None:
+        return view
+    terms = coefficients[coefficients["model"] == linear].drop(columns=["model"]).dropna(axis=1, how="all")
+    kind = terms["standard_errors"].iloc[0] if "standard_errors" in terms else None
+    view["model"] = linear
+    view["note"] = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
+                    + "; the 95% interval is for each coefficient.")
+    many = series_count > MANY_SERIES
+    if many and "series" in terms and terms["series"].notna().any():
+        # One fit per series: a row per series and term would bury the drivers.
+        view.update(per_series=True, spread=spread_across_series(terms, terms["term"]), terms=None,
+                    note=f"{linear} fitted on each series' own history: per term, the median "
+                         "estimate across series, its quartiles, and the share of series whose "
+                         f"p-value is below {SIGNIFICANT:g}; coefficients.csv holds every series' "
+                         "row.")
+        return view
+    if many:
+        effects = _is_series_effect(terms["term"])
+        if effects.any():
+            view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group))
+            terms = terms[~effects]
+    view["rows"] = len(terms)
+    view["terms"] = terms.head(TABLE_ROWS)
+    return view
+
+
+def featured_model(rows: list[dict], candidates: list[str], shown: list[str], recommended: str,
+                   select_by: str) -> str | None:
+    """Return the model whose worst series are pictured: the recommended one, or when that is the
+    mean baseline, the shown model with the best overall score."""
+    if recommended in candidates:
+        return recommended
+    scores = {row["model"]: row.get(select_by) for row in rows}
+    ranked = [m for m in shown if isinstance(scores.get(m), (int, float)) and math.isfinite(scores[m])]
+    return min(ranked, key=lambda m: scores[m]) if ranked else (shown[0] if shown else None)
+
+
+def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fallbacks: pd.DataFrame | None,
+                    *, rows: list[dict], recommended: str, select_by: str, level: float,
+                    series_count: int) -> dict | None:
+    """Return what the Per series section shows, or None for a run of one series (or of the
+    mean baseline alone, which has nothing to compare per series).
+
+    The models summarised are the linear ones (the naive baselines when there is none);
+    the worst series are those of the featured model (``featured_model``).
+    """
+    if series_count <= 1 or series_table is None or not len(series_table):
+        return None
+    others = [m for m in dict.fromkeys(series_table["model"]) if m != "mean_baseline"]
+    models = [m for m in others if m not in BASELINE_MODELS] or others
+    if not models:
+        return None
+    by_model = {row["model"]: row for row in summary}
+    table = pd.DataFrame([{
+        "model": m, "series": by_model[m]["series"],
+        "beats the mean baseline": share_text(by_model[m]["beats"], by_model[m]["series"]),
+        "significantly": share_text(by_model[m]["beats_significantly"], by_model[m]["series"]),
+        "skill 25%": by_model[m]["skill_q25"], "median skill": by_model[m]["skill_median"],
+        "skill 75%": by_model[m]["skill_q75"]} for m in models if m in by_model])
+    featured = featured_model(rows, others, models, recommended, select_by)
+    own = series_table[(series_table["model"] == featured) & series_table["skill_vs_mean"].notna()]
+    worst = own.sort_values("skill_vs_mean", kind="stable").head(WORST_SHOWN)
+    base_mae = series_table[series_table["model"] == "mean_baseline"].set_index("series")["mae"]
+    worst = pd.DataFrame({"series": worst["series"].astype(str).to_numpy(),
+                          "skill_vs_mean": worst["skill_vs_mean"].to_numpy(float),
+                          "p_value": worst["p_value"].to_numpy(float),
+                          "mae": worst["mae"].to_numpy(float),
+                          "mean baseline mae": worst["series"].map(base_mae).to_numpy(float)})
+    fell_back = None
+    if fallbacks is not None and len(fallbacks):
+        names = list(dict.fromkeys(fallbacks["series"].astype(str)))
+        counts = fallbacks.groupby(["model", "stage"], sort=False)["series"].nunique()
+        fell_back = {"count": len(names), "names": named(names),
+                     "how": "; ".join(f"{model}: {n:,} in the {'backtest' if stage == 'backtest' else 'final fit'}"
+                                      for (model, stage), n in counts.items())}
+    return {"count": series_count, "models": models, "summary": table, "featured": featured,
+            "worst": worst, "fallbacks": fell_back, "level": level,
+            "series_rows": len(series_table)}
+
+
 def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
     path = folder / name
     if not path.exists() or path.stat().st_size == 0:
         return None
     try:
-        frame = pd.read_csv(path, keep_default_na=True)
+        # Whole-column type inference: a column empty for most rows (a per-series model's
+        # series column in coefficients.csv) is read the same however long the file is.
+        frame = pd.read_csv(path, keep_default_na=True, low_memory=False)
     except pd.errors.EmptyDataError:
         return None
     return frame if len(frame.columns) else None
@@ -134,7 +282,9 @@ def render_report(folder: Path) -> str:
     residuals = _read_csv(folder, "residuals.csv")
     diagnostics = _read_csv(folder, "diagnostics.csv")
     influential = _read_csv(folder, "influential_rows.csv")
-    for frame in (predictions, forecast, history, scenarios, residuals):
+    series_table = _read_csv(folder, "series.csv")
+    fallbacks = _read_csv(folder, "series_fallbacks.csv")
+    for frame in (predictions, forecast, history, scenarios, residuals, series_table):
         for column in ("series", "period", "origin", "model", "scenario"):
             if frame is not None and column in frame.columns:
                 frame[column] = frame[column].astype(str)
@@ -150,7 +300,22 @@ def render_report(folder: Path) -> str:
     if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
         backtest_pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
 
+    series_count = len(data.get("series", [])) or metrics.get("series_count", 0)
+    per_series = per_series_view(
+        series_table, metrics.get("series_summary", []), fallbacks, rows=rows,
+        recommended=recommended, select_by=metrics.get("select_by", "mae"),
+        level=metrics.get("significance_level", 0.05), series_count=series_count)
+    if per_series is not None:
+        every_model = list(dict.fromkeys(predictions["model"]))
+        per_series["histogram"] = plots.skill_histogram(series_table, per_series["models"], every_model)
+        worst = predictions[predictions["series"].isin(set(per_series["worst"]["series"]))]
+        per_series["pictures"] = [
+            plots.series_picture(history, worst[worst["series"] == row.series], row.series,
+                                 per_series["featured"], row.skill_vs_mean, every_model)
+            for row in per_series["worst"].itertuples()]
+
     forecast_picture = forecast_table = None
+    forecast_rows = 0
     if forecast is not None and len(forecast):
         own = forecast[forecast["model"] == recommended]
         method = trusted_method(coverage, recommended, forecast[forecast["model"] == recommended])
@@ -159,15 +324,17 @@ def render_report(folder: Path) -> str:
         for level in ("80", "95"):
             forecast_table[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
             forecast_table[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
-    linear = "ols" if coefficients is not None and (coefficients["model"] == "ols").any() else None
-    if coefficients is not None and recommended in set(coefficients["model"]) and \
-            recommended not in ("mean_baseline", "last_value", "seasonal_naive", "drift"):
-        linear = recommended
-    terms = coefficients[coefficients["model"] == linear].drop(columns=["model"]).dropna(axis=1, how="all") \
-        if linear else None
-    kind = terms["standard_errors"].iloc[0] if terms is not None and "standard_errors" in terms else None
-    note = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
-            + "; the 95% interval is for each coefficient.") if linear else ""
+        forecast_rows = len(forecast_table)
+        forecast_table = forecast_table.head(TABLE_ROWS)
+    shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
+        if scenarios is not None and len(scenarios) else None
+    drivers = drivers_view(coefficients, recommended, series_count)
+    if drivers["per_series"]:
+        coefficient_picture = plots.spread_picture(drivers["spread"], drivers["model"])
+    elif drivers["terms"] is not None and len(drivers["terms"]):
+        coefficient_picture = plots.coefficient_picture(drivers["terms"])
+    else:
+        coefficient_picture = None
     return _environment().get_template("report.html.j2").render(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
         validation=metrics.get("validation_text", metrics.get("validation", {}).get("method", "")),
@@ -177,13 +344,16 @@ def render_report(folder: Path) -> str:
         comparison=rows, comparison_columns=[c for c in COMPARISON if any(c in r for r in rows)],
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,
-        scenarios=scenarios[scenarios["model"] == recommended].drop(columns=["model"])
-        if scenarios is not None and len(scenarios) else None,
-        coefficient_picture=plots.coefficient_picture(terms) if terms is not None and len(terms) else None,
-        coefficients=terms, coefficients_note=note,
+        forecast_rows=forecast_rows, per_series=per_series,
+        scenarios=shown_scenarios.head(TABLE_ROWS) if shown_scenarios is not None else None,
+        scenario_rows=len(shown_scenarios) if shown_scenarios is not None else 0,
+        coefficient_picture=coefficient_picture, drivers=drivers,
+        coefficients=drivers["terms"], coefficients_note=drivers["note"],
         residual_pictures=plots.residual_pictures(residuals) if residuals is not None and len(residuals) else [],
         diagnostics=diagnostics.to_dict(orient="records") if diagnostics is not None else [],
-        influential=influential, data=data, notes=metrics.get("notes", []),
+        influential=influential, data=data, series_names=named(data.get("series", [])),
+        names_shown=NAMES_SHOWN,
+        notes=metrics.get("notes", []),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
         spec_text=(folder / "spec.yaml").read_text(encoding="utf-8"), cautions=CAUTIONS)

@@ -66,6 +66,20 @@ def _months(values) -> pd.DatetimeIndex:
     return pd.PeriodIndex(values, freq="M").to_timestamp()
 
 
+def largest_series(history: pd.DataFrame, among=None, count: int = MAX_PANELS) -> list:
+    """Return the names of the ``count`` series with the largest total actuals (ties by name
+    order in the history), among the given names if any."""
+    totals = history.groupby("series", sort=False)["actual"].sum()
+    if among is not None:
+        totals = totals[totals.index.isin(set(among))]
+    return list(totals.sort_values(ascending=False, kind="stable").index[:count])
+
+
+def _nearest(predictions: pd.DataFrame) -> pd.DataFrame:
+    """Return one prediction per period and series: the one from the nearest origin."""
+    return predictions.sort_values("horizon", kind="stable").drop_duplicates(["period", "series"])
+
+
 def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure:
     """Actuals and each model's out-of-sample predictions, summed over series; origins marked."""
     actual = history.groupby("period")["actual"].sum().sort_index()
@@ -76,8 +90,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     for model in models:
         own = predictions[predictions["model"] == model]
         # With overlapping origins, show each month's prediction from its nearest origin.
-        nearest = own.sort_values("horizon").drop_duplicates(["period", "series"])
-        total = nearest.groupby("period")["prediction"].sum().sort_index()
+        total = _nearest(own).groupby("period")["prediction"].sum().sort_index()
         axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
                   marker=".", markersize=3, linewidth=1, color=colours[model], label=model)
     origins = [o for o in dict.fromkeys(predictions["origin"]) if str(o)[:4].isdigit()]
@@ -86,7 +99,9 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     axis.set_ylabel("target, all series")
     _date_axis(axis)
     axis.legend(loc="upper left", fontsize=7, ncol=3, frameon=False)
-    alt = (f"Line chart of the actual target summed over all series from {actual.index.min()} to "
+    count = history["series"].nunique()
+    summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
+    alt = (f"Line chart of the actual target {summed} from {actual.index.min()} to "
            f"{actual.index.max()}, with the out-of-sample predictions of {', '.join(models)} over "
            f"the scored months; {len(origins)} forecast origins are marked by dotted vertical lines.")
     return _finish(figure, alt)
@@ -117,12 +132,13 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
 
 def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, method: str,
                      scenarios: pd.DataFrame | None) -> Figure:
-    """History and the forecast with 80% and 95% intervals, one panel per series."""
+    """History and the forecast with 80% and 95% intervals, one panel per series: with more
+    series than panels, the series with the largest total actuals."""
     own = forecast[forecast["model"] == model]
     series = list(dict.fromkeys(own["series"])) or list(dict.fromkeys(history["series"]))
-    if len(series) > MAX_PANELS:
-        size = history.groupby("series")["actual"].mean().sort_values(ascending=False)
-        series = [s for s in size.index if s in set(series)][:MAX_PANELS]
+    total = len(series)
+    if total > MAX_PANELS:
+        series = largest_series(history, series)
     columns = min(2, len(series)) or 1
     rows = int(np.ceil(len(series) / columns)) or 1
     figure, axes = plt.subplots(rows, columns, figsize=(8, 2.4 * rows), squeeze=False)
@@ -153,7 +169,10 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
             axis.legend(fontsize=6, frameon=False, loc="upper left")
     for index in range(len(series), rows * columns):
         axes[index // columns][index % columns].axis("off")
-    alt = (f"{len(series)} small line charts, one per series ({', '.join(map(str, series))}): the last "
+    which = (f"one per series ({', '.join(map(str, series))})" if total <= MAX_PANELS else
+             f"for the {len(series)} of {total:,} series with the largest total actuals "
+             f"({', '.join(map(str, series))}; forecast.csv holds every series)")
+    alt = (f"{len(series)} small line charts, {which}: the last "
            f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else "."))
@@ -179,6 +198,89 @@ def coefficient_picture(terms: pd.DataFrame) -> Figure:
     crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
     alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
            + (f"; {crossing} of the intervals include zero." if has_interval else "."))
+    return _finish(figure, alt)
+
+
+def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
+    """Each term's median estimate across series with the quartiles as bars (intercept left out)."""
+    shown = spread[spread["term"] != "intercept"].dropna(subset=["median estimate"])
+    figure, axis = plt.subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
+    positions = np.arange(len(shown))[::-1]
+    middle = shown["median estimate"].to_numpy(float)
+    axis.errorbar(middle, positions, xerr=[middle - shown["25%"].to_numpy(float),
+                                           shown["75%"].to_numpy(float) - middle],
+                  fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
+    axis.axvline(0, color="#000000", linewidth=0.8)
+    axis.set_yticks(positions)
+    axis.set_yticklabels(shown["term"], fontsize=7)
+    axis.set_xlabel("effect on the target per unit of the driver: median across series, "
+                    "bars from the 25% to the 75% quantile")
+    crossing = int(((shown["25%"] < 0) & (shown["75%"] > 0)).sum())
+    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series: the median "
+           f"estimate with bars over the middle half of the series; for {crossing} of the "
+           "terms the middle half includes zero.")
+    return _finish(figure, alt)
+
+
+def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str]) -> Figure:
+    """Per-series skill against the mean baseline, one outline per model, skill below −1 in
+    the leftmost bar (skill is at most 1, so the other end needs no clipping)."""
+    colours = _colours(all_models)
+    values = {m: series_table.loc[series_table["model"] == m, "skill_vs_mean"].dropna().to_numpy(float)
+              for m in models}
+    found = np.concatenate([v for v in values.values() if len(v)] or [np.zeros(1)])
+    low = max(-1.0, float(found.min()))
+    high = max(float(found.max()), low + 0.1)
+    edges = np.linspace(low, high, 31)
+    figure, axis = plt.subplots(figsize=(8, 2.8))
+    parts = []
+    for model in models:
+        own = values[model]
+        if not len(own):
+            continue
+        axis.hist(np.clip(own, low, high), bins=edges, histtype="step", linewidth=1.4,
+                  color=colours[model], label=model)
+        parts.append(f"{model}: {len(own):,} series, median {np.median(own):.3g}, "
+                     f"{(own > 0).mean():.0%} above 0")
+    axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label="as good as the mean")
+    axis.set_xlabel("skill against the mean baseline (1 − MAE / MAE of the mean), per series")
+    axis.set_ylabel("series")
+    axis.legend(fontsize=7, frameon=False, loc="upper left")
+    clipped = int(sum((v < -1).sum() for v in values.values()))
+    if clipped:
+        axis.annotate(f"{clipped:,} below −1", xy=(low, 0), xytext=(4, 14), textcoords="offset points",
+                      fontsize=7, color="#333333")
+    alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
+           "the model beats it; " + "; ".join(parts)
+           + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
+    return _finish(figure, alt)
+
+
+def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model: str,
+                   skill: float, all_models: list[str]) -> Figure:
+    """One series: actuals, and the model's and the mean baseline's backtest predictions (the
+    model in the colour the other pictures give it)."""
+    past = history[history["series"] == name].sort_values("period")
+    own = predictions[predictions["series"] == name]
+    scored = sorted(set(own["period"]))
+    # Actuals from a year before the first scored month, so the level before it shows.
+    start = str(pd.Period(scored[0], freq="M") - 12) if scored else None
+    past = past[past["period"] >= start] if start else past.tail(36)
+    figure, axis = plt.subplots(figsize=(4, 2.3))
+    axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1.1, label="actual")
+    colours = _colours(all_models)
+    for kind, style in ((model, "-"), ("mean_baseline", "--")):
+        rows = _nearest(own[own["model"] == kind]).sort_values("period")
+        axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
+                  marker=".", markersize=3, linewidth=1, label=kind)
+    # A "$" in a series name would start matplotlib's maths notation.
+    axis.set_title(f"{name} (skill {skill:.3g})".replace("$", r"\$"), fontsize=8)
+    _date_axis(axis)
+    axis.legend(fontsize=6, frameon=False, loc="upper left")
+    alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "
+           f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
+           f"baseline for the {len(scored)} months scored (nearest origin first); the skill of "
+           f"{model} on this series is {skill:.3g}.")
     return _finish(figure, alt)
 
 

@@ -22,7 +22,16 @@ import yaml
 from .. import __version__, ledger
 from ..errors import UserError
 from ..intervals import trusted_method
-from ..report import CAUTIONS, build_report, render_markdown
+from ..report import (
+    CAUTIONS,
+    NAMES_SHOWN,
+    TABLE_ROWS,
+    build_report,
+    drivers_view,
+    named,
+    per_series_view,
+    render_markdown,
+)
 from ..safe_csv import write_csv
 from ..spec import Spec
 from ..stored_model import model_document
@@ -110,7 +119,8 @@ def describe_validation(spec: Spec) -> str:
 
 
 def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
-                   evaluation: Evaluation, forecast: ForecastResult) -> str:
+                   evaluation: Evaluation, forecast: ForecastResult,
+                   fallbacks: pd.DataFrame | None = None) -> str:
     """Return the run's summary in Markdown (from its template): the answer first, the evidence after."""
     def some(frame: pd.DataFrame) -> pd.DataFrame | None:
         return frame if len(frame) else None
@@ -128,9 +138,15 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
     scenarios = None
     if len(forecast.scenarios):
         scenarios = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended].drop(columns=["model"])
-    terms = forecast.coefficients[forecast.coefficients["model"] == evaluation.recommended]
-    if not len(terms) or evaluation.recommended in ("mean_baseline", "last_value", "seasonal_naive", "drift"):
-        terms = forecast.coefficients[forecast.coefficients["model"] == "ols"]
+    series_count = len(data_print.get("series", []))
+    drivers = drivers_view(forecast.coefficients, evaluation.recommended, series_count)
+    terms = drivers["terms"]
+    standard_errors = terms["standard_errors"].iloc[0] \
+        if terms is not None and len(terms) and "standard_errors" in terms else None
+    per_series = per_series_view(
+        evaluation.by_series, _records(evaluation.series_summary), fallbacks,
+        rows=_records(evaluation.table), recommended=evaluation.recommended,
+        select_by=evaluation.select_by, level=spec.significance_level, series_count=series_count)
     diagnostics = None
     if len(forecast.diagnostics):
         diagnostics = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
@@ -139,11 +155,16 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
         "summary.md.j2", spec_name=spec.name, run_id=run_id, created=created,
         verdict=evaluation.verdict, recommended=evaluation.recommended,
         select_by=evaluation.select_by, beats=evaluation.beats_baseline,
-        validation=describe_validation(spec), comparison=comparison, forecast=shown, method=method,
-        coverage=some(evaluation.coverage), scenarios=scenarios,
-        terms=terms.drop(columns=["model"]).dropna(axis=1, how="all") if len(terms) else None,
-        terms_model=str(terms["model"].iloc[0]) if len(terms) else "",
-        standard_errors=terms["standard_errors"].iloc[0] if len(terms) and "standard_errors" in terms else None,
+        validation=describe_validation(spec), comparison=comparison,
+        forecast=shown.head(TABLE_ROWS) if shown is not None else None,
+        forecast_rows=len(shown) if shown is not None else 0, method=method,
+        coverage=some(evaluation.coverage),
+        scenarios=scenarios.head(TABLE_ROWS) if scenarios is not None else None,
+        scenario_rows=len(scenarios) if scenarios is not None else 0,
+        drivers=drivers, terms=terms if terms is not None and len(terms) else None,
+        terms_model=drivers["model"] or "", standard_errors=standard_errors,
+        per_series=per_series, series_names=named(data_print.get("series", [])),
+        names_shown=NAMES_SHOWN,
         fit=some(forecast.fit_summary), diagnostics=diagnostics, influential=some(forecast.influential),
         notes=forecast.warnings + evaluation.notes, data=data_print, cautions=CAUTIONS,
         castline_version=__version__)
@@ -202,6 +223,10 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         metrics["by_origin"] = _records(evaluation.by_origin)
         metrics["by_horizon"] = _records(evaluation.by_horizon)
         metrics["by_series"] = _records(evaluation.by_series)
+        # What the report's Per series section shows; series.csv holds every row behind it.
+        metrics["series_count"] = len(data.series_names)
+        metrics["significance_level"] = spec.significance_level
+        metrics["series_summary"] = _records(evaluation.series_summary)
         metrics["beats_baseline"] = evaluation.beats_baseline
         metrics["select_by"] = evaluation.select_by
         metrics["interval_coverage"] = _records(evaluation.coverage)
@@ -222,11 +247,13 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
             period=lambda t: t["period"].astype(str)), staging / "history.csv")
         write_csv(forecast.residuals, staging / "residuals.csv")
-        write_csv(fallback_table(backtest, forecast), staging / "series_fallbacks.csv")
+        fallbacks = fallback_table(backtest, forecast)
+        write_csv(fallbacks, staging / "series_fallbacks.csv")
+        write_csv(evaluation.by_series, staging / "series.csv")
         if track is not None:
             write_csv(track.realised, staging / "realised.csv")
         (staging / "summary.md").write_text(ledger.with_track_record(
-            render_summary(spec, run_id, created, data_print, evaluation, forecast), track),
+            render_summary(spec, run_id, created, data_print, evaluation, forecast, fallbacks), track),
             encoding="utf-8")
         build_report(staging)
         final = folder / run_id

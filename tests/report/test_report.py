@@ -22,8 +22,9 @@ import pipeline
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "configs" / "compost_demo.yaml"
-SECTIONS = ["answer", "comparison", "backtest", "forecast", "drivers", "residuals", "data", "run",
-            "cautions"]
+# The demo has four series, so the page has the Per series section after the backtest.
+SECTIONS = ["answer", "comparison", "backtest", "per-series", "forecast", "drivers", "residuals",
+            "data", "run", "cautions"]
 HOSTILE = "<script>alert(1)</script>"
 CHROMIUM, CHROMEDRIVER = shutil.which("chromium"), shutil.which("chromedriver")
 
