@@ -48,11 +48,13 @@ def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, errors: pd.Data
     if not offsets:
         return low, high
     known = np.array(sorted(offsets))
-    for i, horizon in enumerate(horizons):
-        # Beyond the backtest's horizons, use the furthest one measured.
-        use = known[known <= horizon].max() if (known <= horizon).any() else known.min()
-        low[i], high[i] = forecast[i] + offsets[use][0], forecast[i] + offsets[use][1]
-    return low, high
+    # Each row takes the furthest measured horizon not beyond its own (beyond the backtest's
+    # horizons, the furthest measured; before the first, the first).
+    use = np.maximum(np.searchsorted(known, np.asarray(horizons), side="right") - 1, 0)
+    below = np.array([offsets[k][0] for k in known])
+    above = np.array([offsets[k][1] for k in known])
+    forecast = np.asarray(forecast, float)
+    return forecast + below[use], forecast + above[use]
 
 
 def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
@@ -75,15 +77,18 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
             inside_count, scored = 0, 0
             origins = sorted(own["origin"].unique())
             time_ordered = all(str(o)[:4].isdigit() for o in origins)
+            origin_of = own["origin"].to_numpy()
+            period_of = own["period"].astype(str).to_numpy()
             for index, origin in enumerate(origins):
-                earlier = own[own["origin"].isin(origins[:index])]
+                mask = np.isin(origin_of, origins[:index])
                 if time_ordered:  # only errors of months already past at this origin
-                    earlier = earlier[earlier["period"].astype(str) <= str(origin)]
+                    mask &= period_of <= str(origin)
+                earlier = own[mask]
                 if len(earlier) < MIN_ERRORS:
                     continue
                 errors = pd.DataFrame({"horizon": earlier["horizon"],
                                        "error": earlier["actual"] - earlier["prediction"]})
-                now = own[own["origin"] == origin]
+                now = own[origin_of == origin]
                 low, high = empirical_bounds(now["prediction"].to_numpy(), now["horizon"].to_numpy(),
                                              errors, level)
                 known = np.isfinite(low)

@@ -164,6 +164,12 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             warnings += [f"{kind}: {item.describe()}" for item in fit.dropped]
         else:
             terms = model.coefficient_table()
+            if hasattr(inner, "fallbacks_"):
+                terms["standard_errors"] = "classical"
+                if spec.standard_errors != "classical":
+                    warnings.append(f"{kind}: its coefficients' standard errors are classical; "
+                                    f"standard_errors: {spec.standard_errors} applies to the "
+                                    "models over all series")
             if choice.kind in ("ridge", "lasso", "elastic_net"):
                 terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
         terms.insert(0, "model", kind)
