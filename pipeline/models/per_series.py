@@ -300,7 +300,9 @@ class PerSeriesOLS:
             shown = ", ".join(f"'{n}'" for n in self.constant_terms_[:4]) + (
                 f" and {len(self.constant_terms_) - 4} more" if len(self.constant_terms_) > 4 else "")
             found.append(f"{shown} do not vary within some series, so those series' fits leave "
-                         "them out (the series' own intercept carries them)")
+                         "them out (the series' own intercept carries them)" if self.fit_intercept
+                         else f"{shown} are all zeros within some series, so those series' fits "
+                              "leave them out")
         if self.dropped_:
             series, why = self.dropped_[0]
             found.append(f"in {len({s for s, _ in self.dropped_})} series a term is a combination of "
