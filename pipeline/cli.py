@@ -112,6 +112,12 @@ def _command_run(args) -> int:
                  ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"])
     print()
     print(result.evaluation.verdict)
+    summary = result.evaluation.series_summary
+    if len(summary) and int(summary["series"].max()) > 1:
+        for row in summary.itertuples():
+            print(f"per series: {row.model} beats the mean baseline in {row.beats} of {row.series} "
+                  f"series ({row.beats_share:.0%}), significantly in {row.beats_significantly} "
+                  f"({row.significant_share:.0%}); see series.csv")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
     for note in result.evaluation.notes:
