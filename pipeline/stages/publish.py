@@ -222,8 +222,8 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         }
         metrics["by_origin"] = _records(evaluation.by_origin)
         metrics["by_horizon"] = _records(evaluation.by_horizon)
-        metrics["by_series"] = _records(evaluation.by_series)
-        # What the report's Per series section shows; series.csv holds every row behind it.
+        # Per series, the metrics are in series.csv (at thousands of series they would make
+        # this file tens of megabytes); here, what the report's Per series section shows.
         metrics["series_count"] = len(data.series_names)
         metrics["significance_level"] = spec.significance_level
         metrics["series_summary"] = _records(evaluation.series_summary)
