@@ -261,8 +261,8 @@ def _lookup(values: dict, keys: np.ndarray) -> np.ndarray:
     return table[found]
 
 
-def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target: str,
-                       scales: dict[str, float], se=None, df_resid=None) -> pd.DataFrame:
+def _split_columns(split: Split, target: str, scales: dict[str, float]) -> dict:
+    """Return the prediction table's columns every model of a split shares."""
     test = split.test
     if split.origin is not None:
         horizon = (test[PERIOD].array.asi8 - split.origin.ordinal).astype(int)
@@ -271,10 +271,16 @@ def _frame_predictions(split: Split, kind: str, predictions: np.ndarray, target:
         horizon = np.zeros(len(test), int)
         period = test[PERIOD].astype(str).to_numpy() if PERIOD in test.columns else ""
     series = test[SERIES].to_numpy()
+    return {"origin": split.label, "period": period, "horizon": horizon, "series": series,
+            "actual": test[target].to_numpy(float), "mase_scale": _lookup(scales, series)}
+
+
+def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None,
+                       df_resid=None) -> pd.DataFrame:
     return pd.DataFrame({
-        "origin": split.label, "period": period, "horizon": horizon, "series": series,
-        "model": kind, "actual": test[target].to_numpy(float), "prediction": predictions,
-        "mase_scale": _lookup(scales, series),
+        "origin": shared["origin"], "period": shared["period"], "horizon": shared["horizon"],
+        "series": shared["series"], "model": kind, "actual": shared["actual"],
+        "prediction": predictions, "mase_scale": shared["mase_scale"],
         "prediction_se": np.nan if se is None else se,
         "df_resid": np.nan if df_resid is None else df_resid,
     })
@@ -376,6 +382,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             cache["train"] = _design_rows(shared, split.train)
             window_codes = series_index(cache["train"][0])
         scales = mase_scales(split.train, spec.target, series_codes=window_codes) if time_ordered else {}
+        columns = _split_columns(split, spec.target, scales)
 
         def train_design(kind: str, split=split, plan=plan, cache=cache) -> tuple[Design, np.ndarray]:
             # Baselines need only the series and months; the full design is built once, if at
@@ -424,8 +431,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                 se, df_resid = prediction_spread(model, test_design(choice.kind))
                 fallen_back.append(_fallbacks(choice.name, split.label, model,
                                               np.asarray(split.test[SERIES].to_numpy())))
-            frames.append(_frame_predictions(split, choice.name, predicted, spec.target, scales,
-                                             se, df_resid))
+            frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid))
         if "train" in cache:
             notes += [f"window ending {split.label}: {note}" for note in cache["train"][0].notes
                       if "left out" in note]
