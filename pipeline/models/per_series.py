@@ -84,18 +84,22 @@ def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
     q, r = np.linalg.qr(scaled)
     ok = _rank_ok(r, x.shape[1])
     safe_r = np.where(ok[:, None, None], r, np.eye(r.shape[-1]))
-    target = y[:, :, None]
-    beta = _back_substitute(safe_r, np.einsum("gnp,gnk->gpk", q, target))
-    for _ in range(2):   # refinement against the residuals, as the single careful fit does
-        residual = target - np.einsum("gnp,gpk->gnk", scaled, beta)
-        beta = beta + _back_substitute(safe_r, np.einsum("gnp,gnk->gpk", q, residual))
-    residual = y - np.einsum("gnp,gp->gn", scaled, beta[:, :, 0])
-    rss = np.einsum("gn,gn->g", residual, residual)
+    # R⁻¹ by back substitution once; every solve below multiplies by it, and the two
+    # refinement steps against the residuals (as the single careful fit takes) restore
+    # what the explicit inverse costs in accuracy.
     identity = np.broadcast_to(np.eye(r.shape[-1]), r.shape).copy()
     r_inverse = _back_substitute(safe_r, identity)
+    def solve(values: np.ndarray) -> np.ndarray:   # R⁻¹·Qᵀ·values, per series
+        return np.einsum("gij,gj->gi", r_inverse, np.einsum("gnj,gn->gj", q, values))
+
+    beta = solve(y)
+    for _ in range(2):
+        beta = beta + solve(y - np.einsum("gnp,gp->gn", scaled, beta))
+    residual = y - np.einsum("gnp,gp->gn", scaled, beta)
+    rss = np.einsum("gn,gn->g", residual, residual)
     unscaled = np.einsum("gij,gkj->gik", r_inverse, r_inverse)
     xtx_inverse = unscaled / (norms[:, :, None] * norms[:, None, :])
-    return beta[:, :, 0] / norms, xtx_inverse, rss, ok
+    return beta / norms, xtx_inverse, rss, ok
 
 
 def fit_series_chunk(task: ChunkTask) -> ChunkFit:
