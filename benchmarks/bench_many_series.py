@@ -16,7 +16,7 @@ Measured in this one process, best of 3:
       OLS on each series' training window and predicts its test months, and computes the
       series' mean and same-month-last-year forecasts with numpy;
   (b') the same loop with the statsmodels fits alone (no baselines).
-Target (issue 9): (b)/(a) ≥ 15 and peak memory under 2 GB. Also prints series per
+Target (issue 9): (b)/(a) ≥ 15 and (b')/(a) ≥ 15, and peak memory under 2 GB. Also prints series per
 second, and checks that (a) and (b) predict the same numbers (relative 1e-8). The
 loop runs once (it takes tens of seconds); pass --loop-series N to time it on the
 first N series and scale up, on a slow machine.
@@ -184,11 +184,12 @@ def main() -> int:
               f"(scaled from {max(1, len(looped) // 5)} series)")
 
     # Same numbers: castline's OLS per series against statsmodels, origin by origin.
-    ours = predictions[predictions["model"] == "ols_per_series"].set_index(["origin", "series", "period"])
+    ours = predictions[predictions["model"] == "ols_per_series"].set_index(
+        ["origin", "series", "period"]).sort_index()
     worst = 0.0
     for (origin, name), (predicted, *_rest) in list(reference.items())[:2000]:
         label = str(pd.Period(origin, freq="M"))
-        mine = ours.loc[(label, name)].sort_index()["prediction"].to_numpy()
+        mine = ours.loc[(label, name)]["prediction"].to_numpy()
         worst = max(worst, float(np.max(np.abs(mine - predicted) / np.maximum(np.abs(predicted), 1e-300))))
     print(f"\nagreement with statsmodels (2,000 series-origins): max relative difference {worst:.2e}")
     print(f"castline: {args.series / castline:,.0f} series per second "
@@ -196,7 +197,8 @@ def main() -> int:
     print(f"peak memory of the process after castline's backtest: {peak:,.0f} MB (target < 2,048 MB)")
     print(f"ratio (b)/(a) = {loop / castline:.1f}x faster than the statsmodels loop with baselines "
           f"(target >= 15x); fits only: {loop_fits / castline:.1f}x")
-    on_target = loop / castline >= 15 and peak < 2048 and worst < 1e-8
+    # The target holds against both loops: the equivalent job, and the statsmodels fits alone.
+    on_target = min(loop, loop_fits) / castline >= 15 and peak < 2048 and worst < 1e-8
     print("targets met" if on_target else "TARGET MISSED")
     if args.profile or not on_target:
         profiler = cProfile.Profile()
