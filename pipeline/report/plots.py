@@ -40,6 +40,11 @@ class Figure:
     alt: str
 
 
+
+def as_text(value) -> str:
+    """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
+    return str(value).replace("$", r"\$")
+
 def _colours(models: list[str]) -> dict[str, str]:
     others = [m for m in models if m != "mean_baseline"]
     colours = {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(others)}
@@ -163,7 +168,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
                     rows_ = rows_.sort_values("period")
                     axis.plot(_months(rows_["period"]), rows_["scenario_forecast"], linestyle="--",
                               linewidth=1, color=PALETTE[(number + 1) % len(PALETTE)], label=scenario)
-        axis.set_title(str(name), fontsize=8)
+        axis.set_title(as_text(name), fontsize=8)
         _date_axis(axis)
         if index == 0:
             axis.legend(fontsize=6, frameon=False, loc="upper left")
@@ -193,7 +198,7 @@ def coefficient_picture(terms: pd.DataFrame) -> Figure:
         axis.plot(shown["estimate"], positions, "o", color=PALETTE[0], markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
-    axis.set_yticklabels(shown["term"], fontsize=7)
+    axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
     axis.set_xlabel("effect on the target per unit of the driver" + (" (95% interval)" if has_interval else ""))
     crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
     alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
@@ -212,7 +217,7 @@ def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
                   fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
-    axis.set_yticklabels(shown["term"], fontsize=7)
+    axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
     axis.set_xlabel("effect on the target per unit of the driver: median across series, "
                     "bars from the 25% to the 75% quantile")
     crossing = int(((shown["25%"] < 0) & (shown["75%"] > 0)).sum())
@@ -274,7 +279,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
                   marker=".", markersize=3, linewidth=1, label=kind)
     # A "$" in a series name would start matplotlib's maths notation.
-    axis.set_title(f"{name} (skill {skill:.3g})".replace("$", r"\$"), fontsize=8)
+    axis.set_title(as_text(f"{name} (skill {skill:.3g})"), fontsize=8)
     _date_axis(axis)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "

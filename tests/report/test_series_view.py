@@ -279,3 +279,16 @@ def test_a_series_name_with_dollar_signs_is_drawn_as_text():
                                 "prediction": [4.0, 5.0, 3.0, 3.0]})
     picture = plots.series_picture(history, predictions, "a$_$b", "ols", -0.5, ["mean_baseline", "ols"])
     assert picture.uri.startswith("data:image/png;base64,") and "a$_$b" in picture.alt
+
+
+def test_a_dollar_sign_in_a_series_name_is_drawn_as_text_in_the_forecast_picture():
+    # matplotlib reads text between two '$' as maths (its mathtext, from its documentation):
+    # "a$_$b" would fail to parse as a panel title; castline escapes it.
+    history = pd.DataFrame({"period": [str(p) for p in pd.period_range("2024-01", periods=6, freq="M")],
+                            "series": "a$_$b", "actual": np.arange(6.0)})
+    forecast = pd.DataFrame({"period": ["2024-07", "2024-08"], "series": "a$_$b", "model": "ols",
+                             "horizon": [1, 2], "forecast": [6.0, 7.0],
+                             "analytic_low_80": [5.0, 6.0], "analytic_high_80": [7.0, 8.0],
+                             "analytic_low_95": [4.0, 5.0], "analytic_high_95": [8.0, 9.0]})
+    picture = plots.forecast_picture(history, forecast, "ols", "analytic", None)
+    assert picture.uri.startswith("data:image/png;base64,") and "a$_$b" in picture.alt
