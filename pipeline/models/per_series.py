@@ -225,9 +225,13 @@ class PerSeriesOLS:
         bar = progress.current()
         bar.start("series fitted", len(series))
         fits = []
-        for start in range(0, len(tasks), 8):   # a few chunks at a time, so the bar moves
-            batch = tasks[start:start + 8]
-            fits += execution.current().map(fit_series_chunk, batch)
+        runner = execution.current()
+        # Here, a few chunks at a time so the bar moves; elsewhere, all at once, since each
+        # hand-over to worker processes or a cluster has a cost of its own.
+        step = 8 if isinstance(runner, execution.InProcess) else max(len(tasks), 1)
+        for start in range(0, len(tasks), step):
+            batch = tasks[start:start + step]
+            fits += runner.map(fit_series_chunk, batch)
             bar.advance("series fitted", int(sum(len(t.counts) for t in batch)))
         self.names_ = names
         self.series_ = pd.Index(series)
