@@ -26,11 +26,9 @@ from __future__ import annotations
 
 import argparse
 import cProfile
-import gc
 import io
 import os
 import pstats
-import resource
 import sys
 import tempfile
 import time
@@ -43,6 +41,8 @@ import yaml
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+
+from bench_backtest import best_of, max_rss_mb  # noqa: E402  (the same timing as the other benchmark)
 
 import pipeline  # noqa: E402
 from pipeline.stages.backtest import run_backtest  # noqa: E402
@@ -110,23 +110,6 @@ def statsmodels_loop(frame: pd.DataFrame, drivers: list[str], origin_months: lis
             else:
                 out[(origin, name)] = (predicted,)
     return out
-
-
-def best_of(label: str, fn, repeats: int = 3) -> tuple[float, object]:
-    times, result = [], None
-    for k in range(repeats):
-        result = None
-        gc.collect()
-        start = time.perf_counter()
-        result = fn()
-        times.append(time.perf_counter() - start)
-        print(f"  {label:<52} run {k + 1}: {times[-1]:8.3f} s", flush=True)
-    return min(times), result
-
-
-def max_rss_mb() -> float:
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return rss / 1024 / 1024 if sys.platform == "darwin" else rss / 1024
 
 
 def main() -> int:

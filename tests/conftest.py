@@ -12,3 +12,13 @@ DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
 @pytest.fixture
 def demo_spec_path() -> Path:
     return DEMO_SPEC
+
+
+@pytest.fixture(scope="module")
+def dask_cluster():
+    """An in-process Dask cluster (dask.distributed.LocalCluster) over TCP on this machine."""
+    distributed = pytest.importorskip("dask.distributed")
+    cluster = distributed.LocalCluster(n_workers=2, processes=False, threads_per_worker=1,
+                                       protocol="tcp://", host="127.0.0.1", dashboard_address=":0")
+    yield cluster
+    cluster.close()

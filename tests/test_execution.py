@@ -59,13 +59,6 @@ def test_worker_processes_return_every_result_in_order_from_other_processes():
     assert runner.map(where, [5]) == [(5, os.getpid())]
 
 
-@pytest.fixture(scope="module")
-def dask_cluster():
-    distributed = pytest.importorskip("dask.distributed")
-    cluster = distributed.LocalCluster(n_workers=2, processes=False, threads_per_worker=1,
-                                       protocol="tcp://", host="127.0.0.1", dashboard_address=":0")
-    yield cluster
-    cluster.close()
 
 
 def test_a_dask_scheduler_runs_the_tasks_in_order_and_the_client_is_closed_after(dask_cluster):

@@ -445,13 +445,6 @@ def masked(folder: Path, where: Path) -> dict[str, bytes]:
     return out
 
 
-@pytest.fixture(scope="module")
-def dask_cluster():
-    distributed = pytest.importorskip("dask.distributed")
-    cluster = distributed.LocalCluster(n_workers=2, processes=False, threads_per_worker=1,
-                                       protocol="tcp://", host="127.0.0.1", dashboard_address=":0")
-    yield cluster
-    cluster.close()
 
 
 def test_local_worker_processes_and_dask_give_the_same_artefacts(tmp_path, dask_cluster):
