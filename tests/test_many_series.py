@@ -600,3 +600,19 @@ def test_compare_of_two_identical_per_series_runs_reports_no_coefficient_moves(t
     code, out, err = run_cli(["compare", *folders, "--format", "json"])
     assert code == 0, err
     assert json.loads(out)["coefficient_moves"] == []
+
+
+def test_series_columns_too_large_for_memory_stop_with_one_line_at_series_effects(tmp_path, monkeypatch):
+    # The models over all series hold a dense 0/1 column per series; beyond
+    # FeaturePlan.LARGEST_SERIES_DESIGN cells the check stops before any fit, naming the key
+    # and pointing to the model per series. The bound is lowered here so ten series cross it.
+    from pipeline.stages.features import FeaturePlan
+    monkeypatch.setattr(FeaturePlan, "LARGEST_SERIES_DESIGN", 100)
+    path = write_many_series(tmp_path)
+    code, out, err = run_cli(["check", str(path)])
+    assert code == 2, (out, err)
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "drivers.series_effects" in lines[0] and "per_series" in lines[0]
+    assert "Traceback" not in err
+    code, out, err = run_cli(["run", str(path)])
+    assert code == 2 and not (tmp_path / "out").exists()
