@@ -38,19 +38,46 @@ def diebold_mariano(loss_baseline, loss_model, horizon: int = 1) -> ComparisonTe
     if baseline.shape != model.shape:
         raise ValueError("the two loss series differ in length")
     d = baseline - model
-    n = len(d)
-    if n < 3 or horizon < 1:
-        return ComparisonTest(float("nan"), float("nan"), n, horizon)
-    centred = d - d.mean()
-    autocov = [float(centred[k:] @ centred[: n - k]) / n for k in range(min(horizon, n))]
-    long_run = autocov[0] + 2 * sum(autocov[1:])
-    if long_run <= 0:  # the overlap correction can turn negative in short samples
-        long_run = autocov[0]
-    if long_run <= 0:
-        same = bool(np.all(d == 0))
-        return ComparisonTest(float("nan") if same else np.sign(d.mean()) * np.inf,
-                              1.0 if same or d.mean() < 0 else 0.0, n, horizon)
-    statistic = d.mean() / np.sqrt(long_run / n)
-    correction = np.sqrt((n + 1 - 2 * horizon + horizon * (horizon - 1) / n) / n)
-    corrected = float(statistic * correction)
-    return ComparisonTest(corrected, float(scipy.stats.t.sf(corrected, df=n - 1)), n, horizon)
+    statistic, p_value = diebold_mariano_by_group(d, np.array([0]), np.array([len(d)]), horizon) \
+        if len(d) else (np.array([np.nan]), np.array([np.nan]))
+    return ComparisonTest(float(statistic[0]), float(p_value[0]), len(d), horizon)
+
+
+def diebold_mariano_by_group(differences: np.ndarray, starts: np.ndarray, sizes: np.ndarray,
+                            horizon: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return, per group, the corrected statistic and its one-sided p-value (as in
+    ``diebold_mariano``), for many groups at once.
+
+    ``differences`` holds the loss differences (baseline − model) of every
+    group, each group contiguous and in time order from ``starts`` for ``sizes``
+    values. A group of fewer than 3 values gets NaN; when the long-run variance
+    is not positive the lag-0 variance is used, and when that is 0 too the
+    statistic is ±inf (NaN if every difference is 0) with p 0 or 1.
+    """
+    count = len(starts)
+    if not count:
+        return np.zeros(0), np.zeros(0)
+    group = np.repeat(np.arange(count), sizes)
+    n = sizes.astype(float)
+    mean = (np.add.reduceat(differences, starts) if len(starts) else np.zeros(0)) / n
+    centred = differences - mean[group]
+    autocov = np.zeros((max(horizon, 1), count))
+    for lag in range(max(horizon, 0)):
+        # Products of values lag apart within the same group; a group shorter than the lag has none.
+        same = group[lag:] == group[:len(group) - lag]
+        products = centred[lag:][same] * centred[:len(group) - lag][same]
+        autocov[lag] = np.bincount(group[lag:][same], weights=products, minlength=count) / n
+    long_run = autocov[0] + 2 * autocov[1:].sum(axis=0)
+    long_run = np.where(long_run <= 0, autocov[0], long_run)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        statistic = mean / np.sqrt(long_run / n)
+        correction = np.sqrt((n + 1 - 2 * horizon + horizon * (horizon - 1) / n) / n)
+        corrected = statistic * correction
+        p_value = scipy.stats.t.sf(corrected, df=n - 1)
+        # No spread at all: the differences are all 0 (no evidence either way) or all one sign.
+        flat = long_run <= 0
+        all_zero = np.bincount(group, weights=(differences != 0).astype(float), minlength=count) == 0
+        corrected = np.where(flat, np.where(all_zero, np.nan, np.sign(mean) * np.inf), corrected)
+    p_value = np.where(flat, np.where(all_zero | (mean < 0), 1.0, 0.0), p_value)
+    short = (sizes < 3) | (horizon < 1)
+    return np.where(short, np.nan, corrected), np.where(short, np.nan, p_value)

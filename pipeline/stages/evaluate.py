@@ -15,11 +15,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-import scipy.stats
 
 from .. import metrics
 from ..intervals import coverage
-from ..significance import diebold_mariano
+from ..significance import diebold_mariano, diebold_mariano_by_group
 from ..spec import BASELINE, Spec
 from .backtest import BacktestResult
 
@@ -216,46 +215,6 @@ def loss_differences(predictions: pd.DataFrame, model: str, backtest: BacktestRe
     return frame["d"].to_numpy(), 1, f"the loss of each of the {len(frame)} rows scored"
 
 
-def batched_diebold_mariano(differences: np.ndarray, starts: np.ndarray, sizes: np.ndarray,
-                            horizon: int) -> tuple[np.ndarray, np.ndarray]:
-    """Return, per group, the statistic and one-sided p-value of ``diebold_mariano``.
-
-    ``differences`` holds the loss differences (baseline − model) of every
-    group, each group contiguous and in time order from ``starts`` for ``sizes``
-    values. Every step is that of ``significance.diebold_mariano`` (same
-    autocovariances, same fallbacks when the long-run variance is not positive,
-    same Harvey–Leybourne–Newbold scaling and Student's t on n − 1 df), done for
-    all groups at once; the tests check the two agree series by series.
-    """
-    count = len(starts)
-    if not count:
-        return np.zeros(0), np.zeros(0)
-    group = np.repeat(np.arange(count), sizes)
-    n = sizes.astype(float)
-    mean = _sums(differences, starts) / n
-    centred = differences - mean[group]
-    autocov = np.zeros((max(horizon, 1), count))
-    for lag in range(max(horizon, 0)):
-        # Products of values lag apart within the same group; a group shorter than the lag has none.
-        same = group[lag:] == group[:len(group) - lag]
-        products = centred[lag:][same] * centred[:len(group) - lag][same]
-        autocov[lag] = np.bincount(group[lag:][same], weights=products, minlength=count) / n
-    long_run = autocov[0] + 2 * autocov[1:].sum(axis=0)
-    long_run = np.where(long_run <= 0, autocov[0], long_run)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        statistic = mean / np.sqrt(long_run / n)
-        correction = np.sqrt((n + 1 - 2 * horizon + horizon * (horizon - 1) / n) / n)
-        corrected = statistic * correction
-        p_value = scipy.stats.t.sf(corrected, df=n - 1)
-        # No spread at all: the differences are all 0 (no evidence either way) or all one sign.
-        flat = long_run <= 0
-        all_zero = np.bincount(group, weights=(differences != 0).astype(float), minlength=count) == 0
-        corrected = np.where(flat, np.where(all_zero, np.nan, np.sign(mean) * np.inf), corrected)
-    p_value = np.where(flat, np.where(all_zero | (mean < 0), 1.0, 0.0), p_value)
-    short = (sizes < 3) | (horizon < 1)
-    return np.where(short, np.nan, corrected), np.where(short, np.nan, p_value)
-
-
 def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
                  select_by: str) -> pd.DataFrame:
     """Return, per model other than the mean baseline and per series, the one-sided
@@ -298,7 +257,7 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
         starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(codes) else \
             np.zeros(0, np.int64)
         sizes = np.diff(np.r_[starts, len(codes)])
-        statistic, p_value = batched_diebold_mariano(differences[order], starts, sizes, lags)
+        statistic, p_value = diebold_mariano_by_group(differences[order], starts, sizes, lags)
         frames.append(pd.DataFrame({"model": name, "series": names[codes[starts]],
                                     "test_statistic": statistic, "p_value": p_value,
                                     "test_n": sizes.astype(np.int64)}))

@@ -3,7 +3,8 @@
 Hand-made predictions tables (fixed seeds) stand in for a backtest. References:
 ``score`` (the metric definitions, one call per group) for the grouped metrics;
 ``pipeline.significance.diebold_mariano`` called on each series' loss
-differences, formed here with pandas; and, for one series, the
+differences, formed here with pandas (it is itself checked against the published
+formula in tests/test_significance.py); and, for one series, the
 Diebold–Mariano statistic (Diebold & Mariano 1995) with the small-sample
 correction of Harvey, Leybourne & Newbold (1997, eq. 9: the statistic times
 sqrt((n + 1 − 2h + h(h − 1)/n) / n), compared with Student's t on n − 1 df),
@@ -19,12 +20,11 @@ import pandas as pd
 import pytest
 import scipy.stats
 
-from pipeline.significance import diebold_mariano
+from pipeline.significance import diebold_mariano, diebold_mariano_by_group
 from pipeline.stages.backtest import PREDICTION_COLUMNS, BacktestResult
 from pipeline.stages.evaluate import (
     METRIC_COLUMNS,
     _scores_by,
-    batched_diebold_mariano,
     evaluate,
     grouped_scores,
     series_summary,
@@ -186,20 +186,21 @@ def test_batched_test_on_a_sequence_worked_by_hand():
     # d = 1..5, h = 1: mean 3, variance (4+1+0+1+4)/5 = 2, DM = 3 / sqrt(2/5);
     # the correction sqrt((5 + 1 − 2) / 5) = sqrt(0.8) makes it 3·sqrt(2) exactly.
     d = np.arange(1.0, 6.0)
-    statistic, p_value = batched_diebold_mariano(d, np.array([0]), np.array([5]), 1)
+    statistic, p_value = diebold_mariano_by_group(d, np.array([0]), np.array([5]), 1)
     assert statistic[0] == pytest.approx(3 * math.sqrt(2), rel=1e-14)
     assert p_value[0] == pytest.approx(scipy.stats.t.sf(3 * math.sqrt(2), 4), rel=1e-12)
 
 
 @pytest.mark.parametrize("horizon", [1, 2, 3, 5])
-def test_batched_test_equals_the_test_function_group_by_group(horizon):
+def test_many_groups_at_once_equal_each_group_alone(horizon):
+    # Groups side by side must not reach into each other (lags stop at a group's edge).
     rng = np.random.default_rng(horizon)
     groups = [rng.normal(0.3, 1, size) for size in rng.integers(1, 30, 60)]
     groups += [np.zeros(7), np.full(6, 0.5), np.full(6, -0.5), np.array([1.0, np.nan, 2.0, 3.0]),
                np.array([5.0, -5.0, 5.0, -5.0])]   # ties, constant gains and losses, a gap
     sizes = np.array([len(g) for g in groups])
     starts = np.r_[0, np.cumsum(sizes)[:-1]]
-    statistic, p_value = batched_diebold_mariano(np.concatenate(groups), starts, sizes, horizon)
+    statistic, p_value = diebold_mariano_by_group(np.concatenate(groups), starts, sizes, horizon)
     for index, d in enumerate(groups):
         with np.errstate(invalid="ignore", divide="ignore"):
             expected = diebold_mariano(d, np.zeros_like(d), horizon=horizon)
