@@ -21,17 +21,12 @@ def _by_series(design, y) -> pd.DataFrame:
 
 
 def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Return the series with rows, in sorted order, each row's code into them, and each
+    """Return the series the rows hold, in sorted order, each row's code into them, and each
     series' mean."""
     from ..stages.features import series_index
     codes, names = series_index(design)
     values = np.asarray(y, float)
     count = np.bincount(codes, minlength=len(names))
-    if (count == 0).any():   # a window of a larger design: keep the series it holds
-        present = np.flatnonzero(count)
-        compact = np.full(len(names), -1)
-        compact[present] = np.arange(len(present))
-        codes, names, count = compact[codes], names[present], count[present]
     means = np.bincount(codes, weights=values, minlength=len(names)) / np.maximum(count, 1)
     return np.asarray(names, object), codes, means
 

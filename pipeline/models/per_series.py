@@ -205,12 +205,6 @@ class PerSeriesOLS:
                                       if design.series_level is not None else
                                       np.zeros(len(design.names), bool)) if not own]
         codes, series = series_index(design)
-        counts = np.bincount(codes, minlength=len(series))
-        if (counts == 0).any():   # a window of a larger design: only the series it holds
-            present = np.flatnonzero(counts)
-            compact = np.full(len(series), -1)
-            compact[present] = np.arange(len(present))
-            codes, series = compact[codes], series[present]
         order = np.argsort(codes, kind="stable")
         matrix = self._columns(design)[order]
         ordered_y = y[order]

@@ -24,7 +24,7 @@ from ..models.ols import expanding_ols_predictions
 from ..spec import Spec
 from .ahead import needs_strategy, predict_ahead
 from .check import PERIOD, SERIES, CheckedData
-from .features import Design, plan_features, series_design, series_index
+from .features import Design, held_series, plan_features, series_design, series_index
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
@@ -203,11 +203,7 @@ def mase_scales(train: pd.DataFrame, target: str, season: int = 12,
     if series_codes is None:
         codes, names = pd.factorize(train[SERIES].to_numpy())
     else:
-        codes, names = series_codes
-        present = np.bincount(codes, minlength=len(names)) > 0
-        if not present.all():
-            compact = np.cumsum(present) - 1
-            codes, names = compact[codes], names[present]
+        codes, names = held_series(*series_codes)
     months = train[PERIOD].array.asi8.astype(np.int64)
     values = train[target].to_numpy(float)
     offset = months - months.min() if len(months) else months

@@ -788,13 +788,21 @@ class Design:
 
 
 def series_index(design) -> tuple[np.ndarray, np.ndarray]:
-    """Return each row's series as a code into the sorted series names, and those names
-    (which, for a window of a larger design, may include series with no row in it)."""
+    """Return each row's series as a code into the sorted names of the series it holds."""
     codes = getattr(design, "series_codes", None)
-    if codes is not None:
-        return codes, design.series_names
-    codes, names = pd.factorize(np.asarray(design.series), sort=True)
-    return codes, np.asarray(names, dtype=object)
+    if codes is None:
+        codes, names = pd.factorize(np.asarray(design.series), sort=True)
+        return codes, np.asarray(names, dtype=object)
+    return held_series(codes, design.series_names)
+
+
+def held_series(codes: np.ndarray, names: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return codes and names with the names no row has left out (a window of a larger
+    design holds only some of its series), the codes renumbered to match."""
+    held = np.bincount(codes, minlength=len(names)) > 0
+    if held.all():
+        return codes, names
+    return (np.cumsum(held) - 1)[codes], names[held]
 
 
 def series_design(frame: pd.DataFrame, series_column: str) -> Design:
