@@ -178,14 +178,28 @@ class StoredLinear:
         return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 
-def _linear_numbers(kind: str, model) -> dict:
-    transform = None
+def _unwrapped(model) -> tuple[object, dict | None]:
+    """Return the model inside a target transform and the transform's entry (or None)."""
     if isinstance(model, features.TransformedTargetModel):
-        transform = {"column": model.transform.column, "kind": model.transform.kind,
-                     "smearing": model.smearing_}
-        model = model.model
-    numbers = _plain_linear_numbers(kind, model)
-    return {**numbers, "target_transform": transform}
+        return model.model, {"column": model.transform.column, "kind": model.transform.kind,
+                             "smearing": model.smearing_}
+    return model, None
+
+
+def _transform_of(entry: dict) -> tuple[features.TargetTransform | None, float]:
+    """Return a stored model's target transform (or None) and its smearing factor."""
+    scale = entry.get("target_transform")
+    if not scale:
+        return None, 1.0
+    transform = features.TargetTransform(str(scale["column"]), str(scale["kind"]))
+    if transform.kind not in ("log", "log1p", "none"):
+        raise ModelFileError(f"unknown target transform {transform.kind!r}")
+    return transform, float(scale["smearing"])
+
+
+def _linear_numbers(kind: str, model) -> dict:
+    model, transform = _unwrapped(model)
+    return {**_plain_linear_numbers(kind, model), "target_transform": transform}
 
 
 def _plain_linear_numbers(kind: str, model) -> dict:
@@ -199,11 +213,7 @@ def _plain_linear_numbers(kind: str, model) -> dict:
 
 
 def _per_series_numbers(model) -> dict:
-    transform = None
-    if isinstance(model, features.TransformedTargetModel):
-        transform = {"column": model.transform.column, "kind": model.transform.kind,
-                     "smearing": model.smearing_}
-        model = model.model
+    model, transform = _unwrapped(model)
     return {"fit_intercept": model.fit_intercept, "names": list(model.names_),
             "series": [str(s) for s in model.series_], "coef": encode(model.coef_),
             "means": encode(model.means_), "fell_back": encode(model.fell_back_),
@@ -226,12 +236,7 @@ class StoredPerSeries:
         if not (len(model.means_) == len(model.fell_back_) == len(model.series_)):
             raise ModelFileError("a model per series has lists of different lengths")
         self.model = model
-        scale = entry.get("target_transform")
-        self.transform = features.TargetTransform(str(scale["column"]), str(scale["kind"])) \
-            if scale else None
-        if self.transform is not None and self.transform.kind not in ("log", "log1p", "none"):
-            raise ModelFileError(f"unknown target transform {self.transform.kind!r}")
-        self.smearing_ = float(scale["smearing"]) if scale else 1.0
+        self.transform, self.smearing_ = _transform_of(entry)
 
     def predict(self, design) -> np.ndarray:
         predicted = self.model.predict(design)
@@ -372,14 +377,9 @@ def load_model(path: str | Path) -> StoredModel:
         models = {}
         for kind, entry in document.models.items():
             if entry.get("kind") == "linear":
-                scale = entry.get("target_transform")
-                transform = features.TargetTransform(str(scale["column"]), str(scale["kind"])) \
-                    if scale else None
-                if transform is not None and transform.kind not in ("log", "log1p", "none"):
-                    raise ModelFileError(f"unknown target transform {transform.kind!r}")
+                transform, smearing = _transform_of(entry)
                 models[kind] = StoredLinear(decode(entry["intercept"]), decode(entry["coef"]),
-                                            document.feature_names, transform,
-                                            float(scale["smearing"]) if scale else 1.0)
+                                            document.feature_names, transform, smearing)
             elif entry.get("kind") == "linear_per_series":
                 models[kind] = StoredPerSeries(entry)
             elif entry.get("kind") == "baseline":

@@ -116,7 +116,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         if hasattr(model, "describe"):
             warnings.append(f"{kind}: {model.describe()}")
         inner = getattr(model, "model", model)
-        if hasattr(inner, "fallbacks_"):
+        if choice.per_series:
             warnings += [f"{kind}: {note}" for note in inner.notes()]
             if len(inner.fallbacks_):
                 fallbacks.append(inner.fallbacks_.assign(model=kind))
@@ -164,7 +164,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             warnings += [f"{kind}: {item.describe()}" for item in fit.dropped]
         else:
             terms = model.coefficient_table()
-            if hasattr(inner, "fallbacks_"):
+            if choice.per_series:
                 terms["standard_errors"] = "classical"
                 if spec.standard_errors != "classical":
                     warnings.append(f"{kind}: its coefficients' standard errors are classical; "
