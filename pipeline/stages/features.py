@@ -378,9 +378,13 @@ class OneHotEncoder(_LevelEncoder):
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
         labels = self._labels(frame)
-        if not self.levels_:
-            return np.empty((len(frame), 0))
-        return np.column_stack([(labels == level).to_numpy(float) for level in self.levels_])
+        # One column per level, filled by each row's position among the levels (the
+        # reference row has none): one pass over the rows, however many levels there are.
+        codes = pd.Index(self.levels_).get_indexer(labels.to_numpy())
+        columns = np.zeros((len(frame), len(self.levels_)))
+        rows = np.flatnonzero(codes >= 0)
+        columns[rows, codes[rows]] = 1.0
+        return columns
 
     def get_feature_names_out(self) -> list[str]:
         return [f"{self.column}: {level}" for level in self.levels_]
@@ -486,44 +490,41 @@ class InteractionTerms:
 
 # ------------------------------------------------------------------ series effects
 
-class SeriesTerms:
-    """For models over all series at once: a 0/1 column per series but the first (its own
-    level), and, for named numeric drivers, that driver times each of those columns (its own
-    slope). The first series in sorted order is the reference, as in a treatment coding.
+class SeriesTerms(OneHotEncoder):
+    """For models over all series at once: the series one-hot encoded (a 0/1 column per
+    series but the first, its own level), and, for named numeric drivers, that driver times
+    each of those columns (its own slope). The first series in sorted order is the
+    reference, as in a treatment coding.
 
     A series the training window did not hold gets the reference series' level and slopes,
     and a note says so.
     """
 
     def __init__(self, series_column: str, intercepts: bool = True, slopes=()) -> None:
-        self.series_column = series_column
+        super().__init__(series_column, unseen="use_reference")
         self.intercepts = intercepts
         self.slopes = list(slopes)   # fitted NumericTerms, whose first-degree column is used
 
     def fit(self, frame: pd.DataFrame, y=None) -> SeriesTerms:
-        levels = sorted(pd.unique(frame[self.series_column].astype(str)))
-        self.reference_ = levels[0] if levels else None
-        self.levels_ = levels[1:]
+        self._fit_levels(frame)
+        self.reference_ = self.known_levels_[0] if self.known_levels_ else None
+        self.levels_ = self.known_levels_[1:]
         return self
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
-        labels = frame[self.series_column].astype(str).to_numpy()
-        codes = pd.Index(self.levels_).get_indexer(labels)
-        dummies = np.zeros((len(frame), len(self.levels_)))
-        found = codes >= 0
-        dummies[np.flatnonzero(found), codes[found]] = 1.0
+        dummies = super().transform(frame)
         blocks = [dummies] if self.intercepts else []
         blocks += [dummies * part.main_effect(frame) for part in self.slopes]
         return np.hstack(blocks) if blocks else np.empty((len(frame), 0))
 
     def get_feature_names_out(self) -> list[str]:
-        names = [f"series: {level}" for level in self.levels_] if self.intercepts else []
-        return names + [f"{part.base_name} × series: {level}" for part in self.slopes
-                        for level in self.levels_]
+        levels = super().get_feature_names_out()
+        return (levels if self.intercepts else []) + [
+            f"{part.base_name} × {level}" for part in self.slopes for level in levels]
 
     def notes(self, frame: pd.DataFrame) -> list[str]:
-        labels = frame[self.series_column].astype(str)
-        unseen = ~labels.isin(self.levels_) & (labels != self.reference_)
+        labels = frame[self.column].astype(str)
+        unseen = ~labels.isin(self.known_levels_)
         if not unseen.any():
             return []
         names = sorted(labels[unseen].unique())
