@@ -13,8 +13,8 @@ import sys
 import traceback
 from pathlib import Path
 
-from . import __version__
-from .errors import UserError
+from pipeline import __version__
+from pipeline.errors import UserError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
 
@@ -103,8 +103,8 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
 
 
 def _command_run(args) -> int:
-    from .progress import showing
-    from .runner import run
+    from pipeline.progress import showing
+    from pipeline.runner import run
     with showing(sys.stderr):   # a bar only when standard error is a terminal
         result = run(args.spec, output_folder=args.output_folder)
     table = result.metrics
@@ -135,8 +135,8 @@ def _command_run(args) -> int:
 
 def _ledger_to_read(args) -> tuple[Path, str | None]:
     """Return the ledger file and the spec name (if any) a history command asks about."""
-    from .ledger import ledger_path
-    from .spec import load_spec
+    from pipeline.ledger import ledger_path
+    from pipeline.spec import load_spec
     given = args.spec_or_name
     ledger_file = Path(args.ledger) if args.ledger else None
     name = None
@@ -168,7 +168,7 @@ def _shown(table, columns: list[str]) -> list[dict]:
 
 
 def _command_history(args) -> int:
-    from . import ledger
+    from pipeline import ledger
     path, name = _ledger_to_read(args)
     with ledger.reading(path) as conn:
         runs = ledger.visible_runs(conn)
@@ -189,7 +189,7 @@ def _command_history(args) -> int:
     if args.format == "csv":
         if show == "all":
             raise UserError("--format csv writes one table: add --show metrics or --show realised")
-        from .safe_csv import write_csv
+        from pipeline.safe_csv import write_csv
         write_csv(metrics if show == "metrics" else realised, sys.stdout)
     elif args.format == "json":
         document = {"ledger": str(path), "spec_name": name}
@@ -244,7 +244,7 @@ def _print_history(path: Path, name: str | None, metrics, realised, show: str) -
 
 
 def _command_compare(args) -> int:
-    from . import ledger
+    from pipeline import ledger
     references, beside = [], None
     for given in (args.first, args.second):
         folder = Path(given)
@@ -313,8 +313,8 @@ def _print_comparison(comparison) -> None:
 
 
 def _write_problems(path: str, problems) -> None:
-    from .safe_csv import write_csv
-    from .stages.check import problems_table
+    from pipeline.safe_csv import write_csv
+    from pipeline.stages.check import problems_table
     target = Path(path)
     try:
         write_csv(problems_table(problems), target)
@@ -330,8 +330,8 @@ def _print_problems(problems) -> None:
 
 
 def _command_check(args) -> int:
-    from .runner import check
-    from .stages.check import CheckFailed
+    from pipeline.runner import check
+    from pipeline.stages.check import CheckFailed
     try:
         data = check(args.spec)
     except CheckFailed as failure:
@@ -355,9 +355,9 @@ def _command_check(args) -> int:
 
 
 def _command_forecast(args) -> int:
-    from .stages.ingest import read_table
-    from .starter import guess_format
-    from .stored_model import load_model
+    from pipeline.stages.ingest import read_table
+    from pipeline.starter import guess_format
+    from pipeline.stored_model import load_model
     stored = load_model(args.model_file)
     data_path = Path(args.data_file)
     if not data_path.is_file():
@@ -365,7 +365,7 @@ def _command_forecast(args) -> int:
     frame = read_table(data_path, guess_format(data_path))
     table = stored.forecast(frame, args.model, file=str(data_path))
     if args.output:
-        from .safe_csv import write_csv
+        from pipeline.safe_csv import write_csv
         try:
             write_csv(table, args.output)
         except OSError as exc:
@@ -377,19 +377,19 @@ def _command_forecast(args) -> int:
 
 
 def _command_report(args) -> int:
-    from .report import build_report
+    from pipeline.report import build_report
     print(f"report: {build_report(args.run_folder)}")
     return EXIT_OK
 
 
 def _command_init(args) -> int:
-    from .spec import CsvOptions
-    from .starter import write_starter_spec
+    from pipeline.spec import CsvOptions
+    from pipeline.starter import write_starter_spec
     given = args.delimiter or args.decimal != "." or args.thousands or args.encoding != "utf-8"
     try:
         csv = None
         if given:
-            from .starter import sniff_delimiter
+            from pipeline.starter import sniff_delimiter
             delimiter = args.delimiter or sniff_delimiter(Path(args.data_file))
             csv = CsvOptions(delimiter=delimiter, decimal=args.decimal, thousands=args.thousands,
                              encoding=args.encoding)

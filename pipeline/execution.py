@@ -12,7 +12,7 @@ import contextvars
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 
-from .errors import SpecError
+from pipeline.errors import SpecError
 
 
 class InProcess:

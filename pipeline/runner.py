@@ -8,15 +8,15 @@ from pathlib import Path
 
 import pandas as pd
 
-from . import execution, ledger
-from .errors import DataError
-from .spec import Spec, load_spec
-from .stages.backtest import BacktestResult, plan_splits, run_backtest
-from .stages.check import CheckedData, check_data
-from .stages.evaluate import Evaluation, evaluate
-from .stages.forecast import ForecastResult, make_forecast
-from .stages.ingest import read_input
-from .stages.publish import RunFolder, publish
+from pipeline import execution, ledger
+from pipeline.errors import DataError
+from pipeline.spec import Spec, load_spec
+from pipeline.stages.backtest import BacktestResult, plan_splits, run_backtest
+from pipeline.stages.check import CheckedData, check_data
+from pipeline.stages.evaluate import Evaluation, evaluate
+from pipeline.stages.forecast import ForecastResult, make_forecast
+from pipeline.stages.ingest import read_input
+from pipeline.stages.publish import RunFolder, publish
 
 
 @dataclass(frozen=True)

@@ -26,7 +26,7 @@ from pydantic import (
     model_validator,
 )
 
-from .errors import SpecError
+from pipeline.errors import SpecError
 
 KeyPath = tuple[str | int, ...]
 BASELINE = "mean_baseline"

@@ -17,9 +17,9 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from .errors import DataError, UserError
-from .spec import CsvOptions
-from .stages.ingest import read_table
+from pipeline.errors import DataError, UserError
+from pipeline.spec import CsvOptions
+from pipeline.stages.ingest import read_table
 
 _DATE_NAMES = ("month", "date", "period", "time", "day", "week")
 _MAX_LEVELS = 30

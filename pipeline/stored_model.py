@@ -18,12 +18,12 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from . import __version__
-from .errors import DataError, UserError
-from .models import baselines
-from .models.per_series import PerSeriesOLS
-from .stages import features
-from .stages.check import PERIOD, ROW, SERIES, _series_labels
+from pipeline import __version__
+from pipeline.errors import DataError, UserError
+from pipeline.models import baselines
+from pipeline.models.per_series import PerSeriesOLS
+from pipeline.stages import features
+from pipeline.stages.check import PERIOD, ROW, SERIES, _series_labels
 
 FORMAT = "castline-model"
 FORMAT_VERSION = 1
@@ -116,7 +116,7 @@ def decode(value: Any, parts: list | None = None) -> Any:
     if "__pairs__" in value:
         return {_hashable(decode(k)): decode(v) for k, v in value["__pairs__"]}
     if "__settings__" in value:
-        from . import spec as spec_module
+        from pipeline import spec as spec_module
         cls = getattr(spec_module, str(value.get("class")), None)
         if not (isinstance(cls, type) and issubclass(cls, spec_module.StrictModel)
                 and cls is not spec_module.StrictModel):

@@ -7,10 +7,10 @@ spec's model choice.
 
 from __future__ import annotations
 
-from .baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
-from .ols import OLSModel, least_squares
-from .per_series import PerSeriesOLS
-from .regularised import HuberModel, PenalisedModel
+from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
+from pipeline.models.ols import OLSModel, least_squares
+from pipeline.models.per_series import PerSeriesOLS
+from pipeline.models.regularised import HuberModel, PenalisedModel
 
 BASELINES = {
     "mean_baseline": MeanBaseline,

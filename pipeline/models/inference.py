@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
-from .ols import INTERCEPT, LeastSquaresFit, least_squares
+from pipeline.models.ols import INTERCEPT, LeastSquaresFit, least_squares
 
 ALPHA = 0.05
 

@@ -26,9 +26,9 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
-from .. import execution, progress
-from ..stages.features import series_index
-from .ols import INTERCEPT, least_squares
+from pipeline import execution, progress
+from pipeline.models.ols import INTERCEPT, least_squares
+from pipeline.stages.features import series_index
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
 

@@ -16,7 +16,7 @@ import pandas as pd
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import ElasticNet, HuberRegressor, Lasso, Ridge
 
-from .ols import INTERCEPT
+from pipeline.models.ols import INTERCEPT
 
 DEFAULT_PENALTIES = {
     "ridge": list(np.logspace(-3, 3, 13)),

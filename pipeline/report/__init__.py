@@ -20,9 +20,9 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from ..errors import UserError
-from ..intervals import trusted_method
-from . import plots
+from pipeline.errors import UserError
+from pipeline.intervals import trusted_method
+from pipeline.report import plots
 
 CAUTIONS = [
     "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "

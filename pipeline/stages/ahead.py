@@ -17,10 +17,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..models import make_model, prediction_spread
-from ..spec import LaggedColumn, ModelChoice, Spec
-from .check import PERIOD, SERIES
-from .features import FeaturePlan, plan_features, with_predictions
+from pipeline.models import make_model, prediction_spread
+from pipeline.spec import LaggedColumn, ModelChoice, Spec
+from pipeline.stages.check import PERIOD, SERIES
+from pipeline.stages.features import FeaturePlan, plan_features, with_predictions
 
 
 def target_lags_reach(spec: Spec) -> int | None:

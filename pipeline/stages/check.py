@@ -21,9 +21,9 @@ import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
-from ..errors import DataError
-from ..spec import ColumnRule, Spec, column_roles
-from .ingest import RawInput
+from pipeline.errors import DataError
+from pipeline.spec import ColumnRule, Spec, column_roles
+from pipeline.stages.ingest import RawInput
 
 PERIOD = "period"
 SERIES = "series"

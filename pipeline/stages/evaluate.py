@@ -16,11 +16,11 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .. import metrics
-from ..intervals import coverage
-from ..significance import diebold_mariano, diebold_mariano_by_group
-from ..spec import BASELINE, Spec
-from .backtest import BacktestResult
+from pipeline import metrics
+from pipeline.intervals import coverage
+from pipeline.significance import diebold_mariano, diebold_mariano_by_group
+from pipeline.spec import BASELINE, Spec
+from pipeline.stages.backtest import BacktestResult
 
 METRIC_COLUMNS = ["n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias"]
 LOWER_IS_BETTER = {"mae", "rmse", "mape", "smape", "wape", "mase"}

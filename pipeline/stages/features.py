@@ -29,8 +29,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError, SpecError
-from ..spec import (
+from pipeline.errors import DataError, SpecError
+from pipeline.spec import (
     BASELINE_KINDS,
     LINEAR_KINDS,
     CalendarFeatures,
@@ -41,7 +41,7 @@ from ..spec import (
     Spec,
     format_key_path,
 )
-from .check import PERIOD, ROW
+from pipeline.stages.check import PERIOD, ROW
 
 MONTH_NAMES = list(calendar_module.month_name)   # MONTH_NAMES[3] == "March"
 

@@ -16,15 +16,15 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError
-from ..intervals import LEVELS, analytic_bounds, empirical_bounds, percent
-from ..models import BASELINES, make_model, prediction_spread
-from ..models.inference import coefficient_table, covariance, diagnose, findings_table
-from ..spec import Scenario, Spec
-from .ahead import needs_strategy, predict_ahead
-from .backtest import BacktestResult
-from .check import PERIOD, ROW, SERIES, CheckedData
-from .features import Design, plan_features, series_design
+from pipeline.errors import DataError
+from pipeline.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
+from pipeline.models import BASELINES, make_model, prediction_spread
+from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
+from pipeline.spec import Scenario, Spec
+from pipeline.stages.ahead import needs_strategy, predict_ahead
+from pipeline.stages.backtest import BacktestResult
+from pipeline.stages.check import PERIOD, ROW, SERIES, CheckedData
+from pipeline.stages.features import Design, plan_features, series_design
 
 
 @dataclass(frozen=True)

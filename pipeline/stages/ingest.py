@@ -9,8 +9,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError
-from ..spec import CsvOptions, Spec, text_columns
+from pipeline.errors import DataError
+from pipeline.spec import CsvOptions, Spec, text_columns
 
 
 @dataclass(frozen=True)

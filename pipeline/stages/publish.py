@@ -19,10 +19,10 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from .. import __version__, ledger
-from ..errors import UserError
-from ..intervals import trusted_method
-from ..report import (
+from pipeline import __version__, ledger
+from pipeline.errors import UserError
+from pipeline.intervals import trusted_method
+from pipeline.report import (
     CAUTIONS,
     NAMES_SHOWN,
     TABLE_ROWS,
@@ -32,13 +32,13 @@ from ..report import (
     per_series_view,
     render_markdown,
 )
-from ..safe_csv import write_csv
-from ..spec import Spec
-from ..stored_model import model_document
-from .backtest import BacktestResult, series_fallbacks
-from .check import PERIOD, SERIES, CheckedData
-from .evaluate import Evaluation
-from .forecast import ForecastResult
+from pipeline.safe_csv import write_csv
+from pipeline.spec import Spec
+from pipeline.stages.backtest import BacktestResult, series_fallbacks
+from pipeline.stages.check import PERIOD, SERIES, CheckedData
+from pipeline.stages.evaluate import Evaluation
+from pipeline.stages.forecast import ForecastResult
+from pipeline.stored_model import model_document
 
 
 @dataclass(frozen=True)
