@@ -140,7 +140,7 @@ def main() -> int:
                                              args.workers))
         data = pipeline.check(spec)
 
-    from pipeline import execution
+    from pipeline.core import execution
     print("\ntimings:")
     with execution.using(spec.compute, spec):
         castline, result = best_of("(a) castline run_backtest, 3 models", lambda: run_backtest(spec, data))

@@ -2,7 +2,7 @@
 
 __version__ = "0.1.0"
 
-from pipeline.errors import DataError, SpecError, UserError  # noqa: E402
+from pipeline.core.errors import DataError, SpecError, UserError  # noqa: E402
 
 _LAZY = {"RunResult": "runner", "check": "runner", "run": "runner", "Spec": "spec",
          "load_spec": "spec"}

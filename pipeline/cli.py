@@ -14,7 +14,7 @@ import traceback
 from pathlib import Path
 
 from pipeline import __version__
-from pipeline.errors import UserError
+from pipeline.core.errors import UserError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
 
@@ -103,7 +103,7 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
 
 
 def _command_run(args) -> int:
-    from pipeline.progress import showing
+    from pipeline.core.progress import showing
     from pipeline.runner import run
     with showing(sys.stderr):   # a bar only when standard error is a terminal
         result = run(args.spec, output_folder=args.output_folder)

@@ -57,9 +57,10 @@ import numpy as np
 import pandas as pd
 
 from pipeline import __version__
-from pipeline.errors import UserError
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.errors import UserError
 from pipeline.spec import BASELINE, Spec
-from pipeline.stages.check import PERIOD, ROW, SERIES, CheckedData
+from pipeline.stages.check import CheckedData
 
 LEDGER_FILE = "ledger.sqlite"
 SCHEMA_VERSION = 2
@@ -412,7 +413,7 @@ def period_fingerprints(data: CheckedData) -> pd.DataFrame:
 
 def _stated_methods(evaluation, forecast) -> dict[str, str]:
     """Return, per model, the interval method its forecasts were stated with in the summary."""
-    from pipeline.intervals import trusted_method  # the summary's own rule
+    from pipeline.core.intervals import trusted_method  # the summary's own rule
     table = forecast.forecast
     return {model: trusted_method(evaluation.coverage, model, rows)
             for model, rows in table.groupby("model", sort=False)} if len(table) else {}

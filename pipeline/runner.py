@@ -8,8 +8,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from pipeline import execution, ledger
-from pipeline.errors import DataError
+from pipeline import ledger
+from pipeline.core import execution
+from pipeline.core.errors import DataError
 from pipeline.spec import Spec, load_spec
 from pipeline.stages.backtest import BacktestResult, plan_splits, run_backtest
 from pipeline.stages.check import CheckedData, check_data

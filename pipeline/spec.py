@@ -26,7 +26,7 @@ from pydantic import (
     model_validator,
 )
 
-from pipeline.errors import SpecError
+from pipeline.core.errors import SpecError
 
 KeyPath = tuple[str | int, ...]
 BASELINE = "mean_baseline"

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from pipeline.errors import DataError, UserError
+from pipeline.core.errors import DataError, UserError
 from pipeline.spec import CsvOptions
 from pipeline.stages.ingest import read_table
 

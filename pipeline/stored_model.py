@@ -19,11 +19,12 @@ import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from pipeline import __version__
-from pipeline.errors import DataError, UserError
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.errors import DataError, UserError
 from pipeline.models import baselines
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.stages import features
-from pipeline.stages.check import PERIOD, ROW, SERIES, _series_labels
+from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
 FORMAT_VERSION = 1

@@ -1,5 +1,5 @@
-"""Where the per-series fits run (pipeline.execution) and how a run reports progress
-(pipeline.progress).
+"""Where the per-series fits run (pipeline.core.execution) and how a run reports progress
+(pipeline.core.progress).
 
 References: the same tasks run here in this process (a list comprehension); the process
 ids the tasks report; a Dask LocalCluster started in this test process; an in-memory
@@ -14,11 +14,11 @@ import os
 import numpy as np
 import pytest
 
-from pipeline import execution, progress
-from pipeline.errors import SpecError
+from pipeline.core import execution, progress
+from pipeline.core.design import Design
+from pipeline.core.errors import SpecError
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.spec import ComputeSection
-from pipeline.stages.features import Design
 
 
 def square(value: int) -> int:

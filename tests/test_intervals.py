@@ -14,10 +14,10 @@ import pytest
 import scipy.stats
 import statsmodels.api as sm
 
-from pipeline import intervals
-from pipeline.intervals import MIN_ERRORS, analytic_bounds, coverage, empirical_bounds, empirical_offsets
+from pipeline.core import intervals
+from pipeline.core.design import Design
+from pipeline.core.intervals import MIN_ERRORS, analytic_bounds, coverage, empirical_bounds, empirical_offsets
 from pipeline.models.ols import OLSModel
-from pipeline.stages.features import Design
 
 
 def _design(matrix: np.ndarray, names: list[str] | None = None) -> Design:

@@ -28,7 +28,7 @@ import yaml
 
 import pipeline
 from pipeline import cli, ledger
-from pipeline.errors import SpecError
+from pipeline.core.errors import SpecError
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"

@@ -1,4 +1,4 @@
-"""Accuracy measures in pipeline.metrics against scikit-learn (reference library),
+"""Accuracy measures in pipeline.core.metrics against scikit-learn (reference library),
 direct numpy computations written here, and hand-worked examples."""
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from sklearn.metrics import mean_absolute_error, mean_absolute_percentage_error
 
-from pipeline.metrics import bias, mae, mape, rmse, skill
+from pipeline.core.metrics import bias, mae, mape, rmse, skill
 
 try:  # scikit-learn >= 1.4
     from sklearn.metrics import root_mean_squared_error

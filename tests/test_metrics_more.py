@@ -23,10 +23,10 @@ import pandas as pd
 import pytest
 from sklearn.metrics import r2_score
 
-from pipeline import metrics
+from pipeline.core import metrics
+from pipeline.core.columns import PERIOD, SERIES
 from pipeline.stages import backtest as backtest_module
 from pipeline.stages.backtest import mase_scales
-from pipeline.stages.check import PERIOD, SERIES
 
 ACTUAL = [100.0, 120.0, 80.0, 50.0]
 PREDICTED = [110.0, 100.0, 80.0, 60.0]

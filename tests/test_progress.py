@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import io
 
-from pipeline import progress
+from pipeline.core import progress
 from pipeline.models.per_series import CHUNK_SERIES
 
 

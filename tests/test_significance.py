@@ -23,7 +23,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from pipeline.significance import diebold_mariano
+from pipeline.core.significance import diebold_mariano
 
 
 def reference_dm(loss_baseline, loss_model, h: int) -> tuple[float, float]:

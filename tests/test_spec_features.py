@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.errors import SpecError
+from pipeline.core.errors import SpecError
 from pipeline.spec import load_spec
 
 DATA = Path(__file__).resolve().parents[1] / "data_samples" / "compost_sales.csv"

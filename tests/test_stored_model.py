@@ -141,7 +141,7 @@ def test_one_model_can_be_asked_for_and_an_unknown_one_is_refused(runs):
     stored = load_model(runs["calendar"].folder.path / "model.json")
     only = stored.forecast(_future(runs["calendar"]), model="ridge")
     assert set(only["model"]) == {"ridge"}
-    with pytest.raises(pipeline.errors.UserError, match="holds no model 'lasso'"):
+    with pytest.raises(pipeline.core.errors.UserError, match="holds no model 'lasso'"):
         stored.forecast(_future(runs["calendar"]), model="lasso")
 
 

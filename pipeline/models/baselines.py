@@ -23,7 +23,7 @@ def _by_series(design, y) -> pd.DataFrame:
 def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return the series the rows hold, in sorted order, each row's code into them, and each
     series' mean."""
-    from pipeline.stages.features import series_index
+    from pipeline.core.design import series_index
     codes, names = series_index(design)
     values = np.asarray(y, float)
     count = np.bincount(codes, minlength=len(names))

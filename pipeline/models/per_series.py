@@ -2,7 +2,7 @@
 
 Series are cut into chunks of ``CHUNK_SERIES`` (in sorted order of their names),
 and each chunk is one task for the run's executor (this process, worker
-processes or a Dask cluster; see ``pipeline.execution``). Within a chunk, the
+processes or a Dask cluster; see ``pipeline.core.execution``). Within a chunk, the
 series whose designs have the same shape (rows and kept columns) are stacked
 and factorised together by numpy's batched Householder QR: the columns of each
 series scaled to unit length, the solution refined twice against its own
@@ -26,9 +26,9 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
-from pipeline import execution, progress
+from pipeline.core import execution, progress
+from pipeline.core.design import series_index
 from pipeline.models.ols import INTERCEPT, least_squares
-from pipeline.stages.features import series_index
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
 

@@ -20,8 +20,8 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from pipeline.errors import UserError
-from pipeline.intervals import trusted_method
+from pipeline.core.errors import UserError
+from pipeline.core.intervals import trusted_method
 from pipeline.report import plots
 
 CAUTIONS = [

@@ -17,9 +17,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.columns import PERIOD, SERIES
 from pipeline.models import make_model, prediction_spread
 from pipeline.spec import LaggedColumn, ModelChoice, Spec
-from pipeline.stages.check import PERIOD, SERIES
 from pipeline.stages.features import FeaturePlan, plan_features, with_predictions
 
 

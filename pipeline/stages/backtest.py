@@ -18,13 +18,15 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
-from pipeline import progress
+from pipeline.core import progress
+from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
 from pipeline.stages.ahead import needs_strategy, predict_ahead
-from pipeline.stages.check import PERIOD, SERIES, CheckedData
-from pipeline.stages.features import Design, held_series, plan_features, series_design, series_index
+from pipeline.stages.check import CheckedData
+from pipeline.stages.features import plan_features
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]

@@ -21,13 +21,11 @@ import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
-from pipeline.errors import DataError
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.errors import DataError
 from pipeline.spec import ColumnRule, Spec, column_roles
 from pipeline.stages.ingest import RawInput
 
-PERIOD = "period"
-SERIES = "series"
-ROW = "source_row"
 ALL_SERIES = "all"
 PROBLEM_COLUMNS = ["check", "column", "row", "value", "count"]
 

@@ -16,9 +16,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from pipeline import metrics
-from pipeline.intervals import coverage
-from pipeline.significance import diebold_mariano, diebold_mariano_by_group
+from pipeline.core import metrics
+from pipeline.core.intervals import coverage
+from pipeline.core.significance import diebold_mariano, diebold_mariano_by_group
 from pipeline.spec import BASELINE, Spec
 from pipeline.stages.backtest import BacktestResult
 

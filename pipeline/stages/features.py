@@ -24,12 +24,13 @@ from __future__ import annotations
 import calendar as calendar_module
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from pipeline.errors import DataError, SpecError
+from pipeline.core.columns import PERIOD, ROW, month_ordinals
+from pipeline.core.design import Design
+from pipeline.core.errors import DataError, SpecError
 from pipeline.spec import (
     BASELINE_KINDS,
     LINEAR_KINDS,
@@ -41,7 +42,6 @@ from pipeline.spec import (
     Spec,
     format_key_path,
 )
-from pipeline.stages.check import PERIOD, ROW
 
 MONTH_NAMES = list(calendar_module.month_name)   # MONTH_NAMES[3] == "March"
 
@@ -52,11 +52,6 @@ def _power_name(column: str, power: int) -> str:
     if power == 1:
         return column
     return f"({column})^{power}" if " " in column else f"{column}^{power}"
-
-
-def _months(frame: pd.DataFrame) -> np.ndarray:
-    """Return each row's month as an ordinal (months since 1970-01)."""
-    return np.asarray(frame[PERIOD].array.asi8, dtype=np.int64)
 
 
 def _first_row(frame: pd.DataFrame, mask: np.ndarray) -> int | None:
@@ -541,11 +536,11 @@ class TrendTerm:
     """Months since the first month of the training window (0 in that month)."""
 
     def fit(self, frame: pd.DataFrame, y=None) -> TrendTerm:
-        self.first_month_ = pd.Period(ordinal=int(_months(frame).min()), freq="M")
+        self.first_month_ = pd.Period(ordinal=int(month_ordinals(frame).min()), freq="M")
         return self
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
-        return (_months(frame) - self.first_month_.ordinal).astype(float)[:, None]
+        return (month_ordinals(frame) - self.first_month_.ordinal).astype(float)[:, None]
 
     def get_feature_names_out(self) -> list[str]:
         return [f"months since {self.first_month_}"]
@@ -663,7 +658,7 @@ class WorkingDays:
         return self
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
-        return working_days_in_month(_months(frame), self.closures)[:, None]
+        return working_days_in_month(month_ordinals(frame), self.closures)[:, None]
 
     def get_feature_names_out(self) -> list[str]:
         return ["working days in the month"]
@@ -758,60 +753,6 @@ def with_predictions(known: pd.DataFrame | None, rows: pd.DataFrame, predicted,
 
 # ------------------------------------------------------------------ the plan
 
-@dataclass(frozen=True)
-class Design:
-    """The numbers a model is fitted on or predicts from, with their names."""
-
-    matrix: np.ndarray
-    names: list[str]
-    series: np.ndarray
-    period: np.ndarray | None = None   # month ordinals (months since 1970-01), when time-ordered
-    notes: tuple[str, ...] = ()        # what the features did that a reader should know
-    series_level: np.ndarray | None = None   # columns that only tell series apart (SeriesTerms)
-    # The rows' series as codes into sorted names, when known already (a window of a larger
-    # design); the names may include series that have no row here.
-    series_codes: np.ndarray | None = None
-    series_names: np.ndarray | None = None
-
-    def rows(self, positions) -> Design:
-        """Return the design of some of its rows (positions or a slice), notes kept."""
-        return Design(self.matrix[positions], self.names, self.series[positions],
-                      None if self.period is None else self.period[positions], self.notes,
-                      self.series_level,
-                      None if self.series_codes is None else self.series_codes[positions],
-                      self.series_names)
-
-    def with_series_codes(self) -> Design:
-        """Return the design with its series factorised once, for windows to share."""
-        codes, names = series_index(self)
-        return Design(self.matrix, self.names, self.series, self.period, self.notes,
-                      self.series_level, codes, names)
-
-
-def series_index(design) -> tuple[np.ndarray, np.ndarray]:
-    """Return each row's series as a code into the sorted names of the series it holds."""
-    codes = getattr(design, "series_codes", None)
-    if codes is None:
-        codes, names = pd.factorize(np.asarray(design.series), sort=True)
-        return codes, np.asarray(names, dtype=object)
-    return held_series(codes, design.series_names)
-
-
-def held_series(codes: np.ndarray, names: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return codes and names with the names no row has left out (a window of a larger
-    design holds only some of its series), the codes renumbered to match."""
-    held = np.bincount(codes, minlength=len(names)) > 0
-    if held.all():
-        return codes, names
-    return (np.cumsum(held) - 1)[codes], names[held]
-
-
-def series_design(frame: pd.DataFrame, series_column: str) -> Design:
-    """Return a design with no terms: the rows' series and months, all a baseline reads."""
-    period = _months(frame) if PERIOD in frame.columns else None
-    return Design(np.empty((len(frame), 0)), [], frame[series_column].to_numpy(), period)
-
-
 def _spec_error(key: KeyPath, message: str) -> SpecError:
     return SpecError(message, key=format_key_path(key))
 
@@ -889,7 +830,7 @@ class FeaturePlan:
                 for index, lagged in enumerate(self.lags)]
             self.parts_ = [*self.row_parts_, *self.lag_parts_]
             self.numeric_parts_ = numeric
-            self.window_end_ = (pd.Period(ordinal=int(_months(frame).max()), freq="M")
+            self.window_end_ = (pd.Period(ordinal=int(month_ordinals(frame).max()), freq="M")
                                 if PERIOD in frame.columns and len(frame) else None)
         return self
 
@@ -951,7 +892,7 @@ class FeaturePlan:
             fill = numeric[column].fill_value_ if column in numeric else None
             if fill is not None:
                 values = np.where(np.isnan(values), fill, values)
-        index = pd.MultiIndex.from_arrays([rows[self.series_column].to_numpy(), _months(rows)])
+        index = pd.MultiIndex.from_arrays([rows[self.series_column].to_numpy(), month_ordinals(rows)])
         return pd.Series(values, index=index, dtype=float)
 
     # -- transforming
@@ -962,7 +903,7 @@ class FeaturePlan:
         if known is not None and self.target in known.columns:
             has_target = known[self.target].notna().to_numpy()
             if has_target.any():
-                months.append(int(_months(known)[has_target].max()))
+                months.append(int(month_ordinals(known)[has_target].max()))
         return max(months) if months else None
 
     def _check_reach(self, frame: pd.DataFrame, known: pd.DataFrame | None) -> None:
@@ -971,7 +912,7 @@ class FeaturePlan:
         origin = self._origin(known)
         if not targets or origin is None or not len(frame):
             return
-        ahead = int((_months(frame) - origin).max())
+        ahead = int((month_ordinals(frame) - origin).max())
         for part in targets:
             for back, key, name in part.reaches():
                 if back < ahead:
@@ -995,7 +936,7 @@ class FeaturePlan:
             blocks = [part.transform(frame) for part in self.row_parts_]
             if self.lag_parts_:
                 series = frame[self.series_column].to_numpy()
-                months = _months(frame)
+                months = month_ordinals(frame)
                 for part in self.lag_parts_:
                     blocks.append(part.transform(series, months, self._extra_values(part, frame, known)))
         matrix = np.hstack(blocks) if blocks else np.empty((len(frame), 0))
@@ -1031,7 +972,7 @@ class FeaturePlan:
                                 f"'{at[self.series_column]}'), too large to fit; rescale the driver "
                                 "or lower its degree", file=self.source,
                                 row=_first_row(frame, np.arange(len(frame)) == row))
-        period = _months(frame) if PERIOD in frame.columns else None
+        period = month_ordinals(frame) if PERIOD in frame.columns else None
         series_level = np.concatenate([
             np.full(len(part.get_feature_names_out()), isinstance(part, SeriesTerms), bool)
             for part in self.parts_]) if self.parts_ else np.zeros(0, bool)

@@ -16,15 +16,17 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from pipeline.errors import DataError
-from pipeline.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.design import Design, series_design
+from pipeline.core.errors import DataError
+from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
 from pipeline.stages.ahead import needs_strategy, predict_ahead
 from pipeline.stages.backtest import BacktestResult
-from pipeline.stages.check import PERIOD, ROW, SERIES, CheckedData
-from pipeline.stages.features import Design, plan_features, series_design
+from pipeline.stages.check import CheckedData
+from pipeline.stages.features import plan_features
 
 
 @dataclass(frozen=True)

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.errors import DataError
+from pipeline.core.errors import DataError
 from pipeline.spec import CsvOptions, Spec, text_columns
 
 

@@ -20,8 +20,9 @@ import pandas as pd
 import yaml
 
 from pipeline import __version__, ledger
-from pipeline.errors import UserError
-from pipeline.intervals import trusted_method
+from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.errors import UserError
+from pipeline.core.intervals import trusted_method
 from pipeline.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -35,7 +36,7 @@ from pipeline.report import (
 from pipeline.safe_csv import write_csv
 from pipeline.spec import Spec
 from pipeline.stages.backtest import BacktestResult, series_fallbacks
-from pipeline.stages.check import PERIOD, SERIES, CheckedData
+from pipeline.stages.check import CheckedData
 from pipeline.stages.evaluate import Evaluation
 from pipeline.stages.forecast import ForecastResult
 from pipeline.stored_model import model_document

@@ -25,10 +25,11 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.datasets import grunfeld
 
+from pipeline.core.design import Design
 from pipeline.models import per_series
 from pipeline.models.ols import INTERCEPT
 from pipeline.models.per_series import ChunkTask, PerSeriesOLS, fit_series_chunk
-from pipeline.stages.features import Design, PolynomialTerms
+from pipeline.stages.features import PolynomialTerms
 
 RTOL = 1e-8
 

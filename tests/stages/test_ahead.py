@@ -16,8 +16,8 @@ import pytest
 import statsmodels.api as sm
 
 import pipeline
+from pipeline.core.columns import PERIOD
 from pipeline.stages import ahead
-from pipeline.stages.check import PERIOD
 
 
 def _simulated(path, months=72, future=3, seed=5):

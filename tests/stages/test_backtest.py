@@ -26,10 +26,10 @@ from sklearn.preprocessing import StandardScaler
 
 import pipeline
 import pipeline.stages.backtest as backtest_stage
-from pipeline.errors import SpecError
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.errors import SpecError
 from pipeline.models.regularised import PenalisedModel
 from pipeline.stages.backtest import rolling_origin_windows, run_backtest
-from pipeline.stages.check import PERIOD, ROW, SERIES
 
 # ------------------------------------------------------------------ helpers
 

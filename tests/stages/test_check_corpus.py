@@ -26,8 +26,9 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline.errors import DataError, SpecError
-from pipeline.stages.check import PERIOD, ROW, SERIES, CheckedData, CheckFailed, Problem, check_data
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.errors import DataError, SpecError
+from pipeline.stages.check import CheckedData, CheckFailed, Problem, check_data
 from pipeline.stages.ingest import read_input
 
 CORPUS = Path(__file__).resolve().parents[1] / "data" / "broken_inputs"

@@ -26,8 +26,8 @@ from sklearn.metrics import (
 )
 
 import pipeline
+from pipeline.core.columns import PERIOD, SERIES
 from pipeline.stages.backtest import run_backtest
-from pipeline.stages.check import PERIOD, SERIES
 from pipeline.stages.evaluate import evaluate
 
 ROLLING = {"method": "rolling_origin", "horizon": 3, "min_train_periods": 24, "origins": 12}

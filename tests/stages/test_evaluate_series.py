@@ -27,8 +27,8 @@ import pytest
 import scipy.stats
 from statsmodels.tsa.stattools import acovf
 
+from pipeline.core.significance import diebold_mariano_by_group
 from pipeline.safe_csv import write_csv
-from pipeline.significance import diebold_mariano_by_group
 from pipeline.stages.backtest import PREDICTION_COLUMNS, BacktestResult
 from pipeline.stages.evaluate import (
     METRIC_COLUMNS,

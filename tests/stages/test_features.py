@@ -18,14 +18,15 @@ import statsmodels.formula.api as smf
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from pipeline.errors import DataError, SpecError
+from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.design import Design
+from pipeline.core.errors import DataError, SpecError
 from pipeline.models import make_model
 from pipeline.models.ols import OLSModel
 from pipeline.spec import Spec
 from pipeline.stages.backtest import run_backtest
-from pipeline.stages.check import PERIOD, ROW, SERIES, CheckedData
+from pipeline.stages.check import CheckedData
 from pipeline.stages.features import (
-    Design,
     FourierTerms,
     NumericTerms,
     OneHotEncoder,
@@ -555,7 +556,7 @@ def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):
     """A driver of 1e60 raised to a power overflows the fit (1e150 bound: a square of a larger
     term, summed over rows, exceeds the largest float, about 1.8e308 — IEEE 754 double)."""
     import pipeline
-    from pipeline.errors import DataError
+    from pipeline.core.errors import DataError
 
     root = Path(__file__).resolve().parents[2]
     data = pd.read_csv(root / "data_samples" / "compost_sales.csv")

@@ -18,7 +18,7 @@ import statsmodels.api as sm
 import yaml
 
 import pipeline
-from pipeline.errors import SpecError, UserError
+from pipeline.core.errors import SpecError, UserError
 from pipeline.models.inference import newey_west_lags
 
 HISTORY_MONTHS = 96

@@ -23,7 +23,7 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline.stages.check import PERIOD
+from pipeline.core.columns import PERIOD
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"

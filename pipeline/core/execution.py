@@ -12,7 +12,7 @@ import contextvars
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 
-from pipeline.errors import SpecError
+from pipeline.core.errors import SpecError
 
 
 class InProcess:
