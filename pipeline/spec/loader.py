@@ -1,0 +1,213 @@
+"""Reading a spec file: safe YAML, every key checked, each problem placed at its line.
+
+Only this module reads the YAML. Every key is checked: unknown keys are refused
+with the nearest valid key suggested, and each problem is reported as
+``FILE:LINE: key.path: what is wrong``. Relative paths resolve against the
+folder of the spec file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import types
+import typing
+from pathlib import Path
+from typing import Annotated, Any, Union
+
+import yaml
+from pydantic import BaseModel, ValidationError
+
+from pipeline.core.errors import SpecError
+from pipeline.spec.keys import DuplicateKey, KeyPath, format_key_path, line_for, line_map
+from pipeline.spec.rules import check_roles
+from pipeline.spec.schema import Spec
+
+
+def _union_member(current: Any, tag: Any) -> type[BaseModel] | None:
+    """Return the member of a tagged union of sections that the tag (a method name) picks."""
+    if not isinstance(tag, str):
+        return None
+    while typing.get_origin(current) is Annotated:
+        current = typing.get_args(current)[0]
+    if typing.get_origin(current) not in (Union, types.UnionType):
+        return None
+    for member in typing.get_args(current):
+        field = getattr(member, "model_fields", {}).get("method")
+        if field is not None and tag in typing.get_args(field.annotation):
+            return member
+    return None
+
+
+def _walk(loc: KeyPath) -> tuple[KeyPath, Any]:
+    """Follow an error location through the spec's sections.
+
+    Return the location without the union tags pydantic inserts
+    (validation.holdout.x becomes validation.x) and the type found at its end
+    (None where the path leaves the spec's sections).
+    """
+    kept: list = []
+    current: Any = Spec
+    for part in loc:
+        member = _union_member(current, part)
+        if member is not None:
+            current = member
+            continue
+        kept.append(part)
+        if isinstance(part, int):
+            args = typing.get_args(current)
+            current = args[0] if args else None
+        elif typing.get_origin(current) is dict:   # a mapping of names (columns) to sections
+            current = typing.get_args(current)[1]
+        elif isinstance(current, type) and issubclass(current, BaseModel) and part in current.model_fields:
+            current = current.model_fields[part].annotation
+            # Unwrap Annotated, Optional and single-member unions down to the class.
+            while typing.get_origin(current) in (Annotated, Union, types.UnionType):
+                members = [a for a in typing.get_args(current) if a is not type(None)]
+                if typing.get_origin(current) is Annotated:
+                    members = members[:1]
+                if len(members) != 1:
+                    break
+                current = members[0]
+        else:
+            current = None
+    return tuple(kept), current
+
+
+def _without_tags(loc: KeyPath) -> KeyPath:
+    """Return an error location without the union tags pydantic inserts."""
+    return _walk(loc)[0]
+
+
+def _section_class(path: KeyPath) -> type[BaseModel] | None:
+    """Return the spec section class found at the key path, if the path leads to one."""
+    current = _walk(path)[1]
+    return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _describe(error: dict[str, Any]) -> str:
+    """Turn one pydantic error into plain words, with a suggestion for unknown keys."""
+    kind = error["type"]
+    loc: KeyPath = tuple(p for p in error["loc"])
+    if kind == "extra_forbidden":
+        section = _section_class(loc[:-1])
+        valid = sorted(section.model_fields) if section else []
+        close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
+        hint = f"; did you mean '{close[0]}'?" if close else (
+            f"; valid keys here: {', '.join(valid)}" if valid else "")
+        return f"unknown key{hint}"
+    if kind == "missing":
+        return "this key is required but missing"
+    if kind == "literal_error":
+        return f"{error['msg'].replace('Input should be', 'must be')} (got {error['input']!r})"
+    if kind == "union_tag_invalid":
+        ctx = error.get("ctx", {})
+        return f"unknown method {ctx.get('tag')!r}; expected one of {ctx.get('expected_tags')}"
+    if kind == "union_tag_not_found":
+        return "the key 'method' is required here"
+    message = error["msg"]
+    if message.startswith("Value error, "):
+        message = message[len("Value error, "):]
+    message = message.replace("Input should be", "must be")
+    if kind == "string_pattern_mismatch" and "://" in str(error.get("ctx", {}).get("pattern", "")):
+        return (f"{error['input']!r} is not a Dask scheduler address: give protocol://host:port, "
+                "e.g. tcp://10.0.0.5:8786 (protocols: tcp, tls, inproc, ucx, ws, wss)")
+    if kind == "string_pattern_mismatch":
+        return (f"{error['input']!r} is not a plain name: use letters, digits, '-', '_' and '.', "
+                "starting with a letter or digit")
+    if kind.endswith("_type") or kind.endswith("_parsing"):
+        message += f" (got {error['input']!r})"
+    return message
+
+
+def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
+    """Return the spec file's data and the line of every key, with a safe loader."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SpecError("no such spec file", file=str(path)) from None
+    except IsADirectoryError:
+        raise SpecError("is a folder, not a spec file", file=str(path)) from None
+    except UnicodeDecodeError:
+        raise SpecError("the spec is not UTF-8 text", file=str(path)) from None
+    except OSError as exc:
+        raise SpecError(f"cannot read the spec: {exc.strerror}", file=str(path)) from None
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        data = yaml.load(text, Loader=yaml.SafeLoader)  # noqa: S506 - SafeLoader constructs no objects
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line = min(mark.line + 1, max(1, len(text.splitlines()))) if mark else None
+        what = exc.problem or exc.context or "malformed YAML"
+        if "\\t" in str(what) or "\t" in str(what):
+            what = "a tab character: YAML indents with spaces only"
+        elif exc.context and "flow" in str(exc.context):
+            what = f"{what} ({exc.context}); a bracket or brace is not closed"
+        if "tag" in str(what) or "constructor" in type(exc).__name__.lower():
+            what = f"YAML tags that build objects are not allowed ({what})"
+        raise SpecError(f"{what}", file=str(path), line=line) from None
+    except yaml.YAMLError as exc:
+        raise SpecError(f"malformed YAML: {exc}", file=str(path)) from None
+    if node is None or data is None:
+        raise SpecError("the spec file is empty", file=str(path), line=1)
+    if not isinstance(data, dict):
+        raise SpecError("the spec must be a mapping of keys to values", file=str(path), line=1)
+    try:
+        return data, line_map(node)
+    except DuplicateKey as dup:
+        raise SpecError(dup.message, file=str(path), line=dup.line,
+                        key=format_key_path(dup.path)) from None
+
+
+def _resolve(raw: Path, base: Path) -> Path:
+    expanded = raw.expanduser()
+    return (expanded if expanded.is_absolute() else base / expanded).resolve()
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Return the typed spec read from a YAML file, with every path resolved.
+
+    Raises SpecError naming the file, line and key of the first problem.
+    """
+    spec_path = Path(path)
+    data, lines = _read_yaml(spec_path)
+    shown = str(spec_path)
+    try:
+        spec = Spec.model_validate(data)
+    except ValidationError as exc:
+        # An unknown key is usually why a required one is missing: report it first.
+        errors = sorted(exc.errors(), key=lambda e: (e["type"] != "extra_forbidden",
+                                                     line_for(lines, _without_tags(tuple(e["loc"]))) or 0))
+        first = errors[0]
+        loc = _without_tags(tuple(first["loc"]))
+        if first["type"] == "union_tag_invalid":
+            loc += ("method",)
+        elif first["type"] != "missing" and loc not in lines and loc[:-1] in lines and len(loc) > 1:
+            loc = loc[:-1]  # a bare name standing for a mapping (models: [ols] is {kind: ols})
+        raise SpecError(_describe(first), file=shown, line=line_for(lines, loc),
+                        key=format_key_path(loc) or None) from None
+
+    spec._source = spec_path
+    written = data.get("models") if isinstance(data.get("models"), list) else []
+    spec._written_models = [m.get("kind") if isinstance(m, dict) else m for m in written]
+    spec._lines = lines
+    fail = spec.error
+    check_roles(spec, fail)
+    base = spec_path.resolve().parent
+    data_file = _resolve(spec.input.file, base)
+    if not data_file.exists():
+        raise fail(("input", "file"), f"no such data file: {data_file}")
+    if data_file.is_dir():
+        raise fail(("input", "file"), f"is a folder, not a data file: {data_file}")
+    output_folder = _resolve(spec.output.folder, base)
+    if output_folder.exists() and not output_folder.is_dir():
+        raise fail(("output", "folder"), f"exists and is not a folder: {output_folder}")
+    ledger_file = _resolve(spec.output.ledger, base) if spec.output.ledger else None
+    if ledger_file is not None and ledger_file.is_dir():
+        raise fail(("output", "ledger"), f"is a folder, not a ledger file: {ledger_file}")
+    resolved = spec.model_copy(update={
+        "input": spec.input.model_copy(update={"file": data_file}),
+        "output": spec.output.model_copy(update={"folder": output_folder, "ledger": ledger_file}),
+    })
+    resolved._source = spec_path
+    resolved._lines = lines
+    return resolved

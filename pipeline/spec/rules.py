@@ -1,0 +1,199 @@
+"""Rules across keys: roles of columns, models, scenarios and features that must agree.
+
+Each rule takes the typed spec and ``fail`` (``Spec.error``), which places its
+message at the key's line.
+"""
+
+from __future__ import annotations
+
+from pipeline.spec.schema import TIME_ORDERED, Spec
+
+
+def check_roles(spec: Spec, fail) -> None:
+    """Refuse a column given two roles (target, date, series, driver) or listed twice."""
+    seen: dict[str, str] = {spec.target: "the target", spec.input.date_column: "the date column"}
+    for index, column in enumerate(spec.input.series):
+        if column in seen:
+            raise fail(("input", "series", index), f"column '{column}' is already {seen[column]}")
+        seen[column] = "a series column"
+    series = set(spec.input.series)
+    for group in ("numeric", "categorical"):
+        for index, driver in enumerate(getattr(spec.drivers, group)):
+            key = ("drivers", group, index, "column")
+            column = driver.column
+            if column in seen and not (group == "categorical" and column in series
+                                       and seen[column] == "a series column"):
+                raise fail(key, f"column '{column}' is already {seen[column]}")
+            seen[column] = "a driver"
+    if not spec.intercept and not spec.has_features:
+        raise fail(("intercept",), "a model without an intercept needs at least one driver")
+    _check_column_rules(spec, fail)
+    _check_models(spec, fail)
+    _check_scenarios(spec, fail)
+    _check_features(spec, fail)
+
+
+def _check_scenarios(spec: Spec, fail) -> None:
+    """Refuse scenarios that change a column no model uses, or repeat a name."""
+    names: set[str] = set()
+    usable = set(spec.driver_columns)
+    numeric = {d.column for d in spec.drivers.numeric}
+    for index, scenario in enumerate(spec.scenarios):
+        if scenario.name in names:
+            raise fail(("scenarios", index, "name"), f"scenario '{scenario.name}' is named twice")
+        names.add(scenario.name)
+        for number, change in enumerate(scenario.changes):
+            key = ("scenarios", index, "changes", number)
+            if change.column not in usable:
+                raise fail(key + ("column",), f"'{change.column}' is not a driver, so changing it "
+                           "changes no forecast")
+            if change.column not in numeric and change.set is None:
+                raise fail(key + ("column",), f"'{change.column}' is categorical: use set, not "
+                           "add or percent")
+            for column in change.where:
+                if column not in column_roles(spec):
+                    raise fail(key + ("where", column), f"'{column}' is not a column the spec uses")
+
+
+def _check_models(spec: Spec, fail) -> None:
+    """Refuse models and metrics that need a time order under a scheme without one."""
+    if spec.validation.method in TIME_ORDERED:
+        return
+    written = spec._written_models or [m.kind for m in spec.models[1:]]
+    for choice in spec.models[1:]:
+        if choice.kind in ("last_value", "seasonal_naive", "drift"):
+            index = written.index(choice.kind) if choice.kind in written else 0
+            raise fail(("models", index), f"'{choice.kind}' needs months in time order; "
+                       f"validation method '{spec.validation.method}' has none")
+    if spec.select_by == "mase":
+        raise fail(("select_by",), "MASE needs months in time order; choose another metric "
+                   f"for validation method '{spec.validation.method}'")
+
+
+_TYPES_FOR_ROLE = {
+    "the target": ("number", "whole_number"),
+    "the date column": ("date",),
+    "a numeric driver": ("number", "whole_number"),
+    "a categorical driver": ("category", "text", "whole_number"),
+    "a series column": ("category", "text", "whole_number"),
+    "a grouping column": ("category", "text", "whole_number", "date"),
+}
+
+
+def text_columns(spec: Spec) -> list[str]:
+    """Return the columns read as text (levels, keys): '1' stays '1', never 1.0."""
+    roles = column_roles(spec)
+    chosen = [c for c, role in roles.items()
+              if role in ("a categorical driver", "a series column", "a grouping column")
+              and (c not in spec.columns or spec.columns[c].type in ("category", "text"))]
+    chosen += [c for c, rule in spec.columns.items() if rule.type in ("category", "text") and c not in chosen]
+    return chosen
+
+
+def column_roles(spec: Spec) -> dict[str, str]:
+    """Return the role of every column the spec uses."""
+    roles = {spec.input.date_column: "the date column", spec.target: "the target"}
+    roles.update({column: "a series column" for column in spec.input.series})
+    roles.update({d.column: "a numeric driver" for d in spec.drivers.numeric})
+    roles.update({d.column: "a categorical driver" for d in spec.drivers.categorical})
+    if spec.validation.method == "grouped_kfold":
+        roles.update({c: "a grouping column" for c in spec.validation.group_by if c not in roles})
+    return roles
+
+
+def _check_column_rules(spec: Spec, fail) -> None:
+    """Refuse column rules that contradict themselves or the column's role."""
+    roles = column_roles(spec)
+    for column, rule in spec.columns.items():
+        key = ("columns", column)
+        if rule.min is not None and rule.max is not None and rule.min > rule.max:
+            raise fail(key + ("min",), f"min {rule.min:g} is above max {rule.max:g}")
+        if (rule.min is not None or rule.max is not None) and rule.type not in ("number", "whole_number"):
+            bound = "min" if rule.min is not None else "max"
+            raise fail(key + (bound,), f"min and max apply to numbers, not to type '{rule.type}'")
+        if rule.allowed is not None and rule.type != "category":
+            raise fail(key + ("allowed",), f"allowed levels apply to type 'category', not '{rule.type}'")
+        role = roles.get(column)
+        if role and rule.type not in _TYPES_FOR_ROLE[role]:
+            wanted = " or ".join(_TYPES_FOR_ROLE[role])
+            raise fail(key + ("type",), f"'{column}' is {role}, so its type must be {wanted}")
+        if rule.missing_allowed and role in ("the date column", "a series column"):
+            raise fail(key + ("missing_allowed",), f"'{column}' is {role} and may not be missing")
+        if (rule.missing_allowed and role in ("a numeric driver", "a categorical driver")
+                and column not in spec.filled_driver_columns):
+            fill = " (or set missing: mean or median on the driver to fill it)" \
+                if role == "a numeric driver" else ""
+            raise fail(key + ("missing_allowed",), f"'{column}' is {role}: the models need a "
+                       f"value in every row, so it may not be missing{fill}")
+
+
+def _check_features(spec: Spec, fail) -> None:
+    """Refuse feature keys that contradict each other (each problem placed at its key)."""
+    for index, driver in enumerate(spec.drivers.categorical):
+        key = ("drivers", "categorical", index)
+        if driver.encoding == "ordinal":
+            if driver.order is None:
+                raise fail(key + ("encoding",), "ordinal encoding needs `order`: the levels, "
+                                                "lowest first")
+            if len(set(driver.order)) != len(driver.order):
+                raise fail(key + ("order",), "a level is listed twice")
+            if driver.reference is not None and driver.reference not in driver.order:
+                raise fail(key + ("reference",), f"'{driver.reference}' is not one of the "
+                                                 f"levels in `order`")
+            if driver.group_below is not None:
+                raise fail(key + ("group_below",), "grouping rare levels would break the order "
+                                                   "of an ordinal driver")
+        elif driver.order is not None:
+            raise fail(key + ("order",), "`order` applies to encoding: ordinal")
+        if driver.smoothing is not None and driver.encoding != "target_mean":
+            raise fail(key + ("smoothing",), "`smoothing` applies to encoding: target_mean")
+    numeric = [d.column for d in spec.drivers.numeric]
+    drivers = set(spec.driver_columns)
+    pairs: set[frozenset[str]] = set()
+    for index, pair in enumerate(spec.drivers.interactions):
+        key = ("drivers", "interactions", index)
+        if len(pair) != 2:
+            raise fail(key, f"an interaction is a pair of drivers, like [{', '.join(numeric[:2]) or 'a, b'}]")
+        for place, column in enumerate(pair):
+            if column not in drivers:
+                listed = ", ".join(spec.driver_columns) or "none"
+                raise fail(key + (place,), f"'{column}' is not a driver (drivers: {listed})")
+        if pair[0] == pair[1]:
+            raise fail(key, "an interaction needs two different drivers (for a square, use degree: 2)")
+        if frozenset(pair) in pairs:
+            raise fail(key, "this pair is listed twice")
+        pairs.add(frozenset(pair))
+    calendar = spec.drivers.calendar
+    if calendar is not None:
+        key = ("drivers", "calendar")
+        if calendar.harmonics is not None and calendar.month_of_year != "fourier":
+            raise fail(key + ("harmonics",), "`harmonics` applies to month_of_year: fourier")
+        if calendar.closures and not calendar.working_days:
+            raise fail(key + ("closures",), "`closures` applies to working_days: true")
+        if calendar.quarter and calendar.month_of_year == "dummies":
+            raise fail(key + ("quarter",), "quarter dummies are sums of month dummies; use one or "
+                                           "the other")
+    for index, column in enumerate(spec.drivers.series_effects.slopes):
+        key = ("drivers", "series_effects", "slopes", index)
+        if not spec.input.series:
+            raise fail(key, "series slopes need series: name the series columns in input.series")
+        if column not in numeric:
+            raise fail(key, f"'{column}' is not a numeric driver (numeric drivers: "
+                            f"{', '.join(numeric) or 'none'})")
+        if spec.drivers.series_effects.slopes.index(column) != index:
+            raise fail(key, f"'{column}' is listed twice")
+    seen: set[str] = set()
+    for index, lagged in enumerate(spec.drivers.lags):
+        key = ("drivers", "lags", index)
+        if lagged.column != spec.target and lagged.column not in numeric:
+            raise fail(key + ("column",), f"'{lagged.column}' is neither the target nor a numeric "
+                                          "driver; lags are taken of those")
+        if lagged.column in seen:
+            raise fail(key + ("column",), f"'{lagged.column}' already has an entry in drivers.lags")
+        seen.add(lagged.column)
+        if not (lagged.lags or lagged.rolling_means or lagged.differences):
+            raise fail(key, "give at least one of lags, rolling_means or differences")
+        for name in ("lags", "rolling_means", "differences"):
+            values = getattr(lagged, name)
+            if len(set(values)) != len(values):
+                raise fail(key + (name,), "a value is listed twice")
