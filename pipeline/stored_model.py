@@ -21,9 +21,12 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from pipeline import __version__
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError, UserError
+from pipeline.features import calendar, categorical, interactions, lags, numeric, series
+from pipeline.features import plan as plan_module
+from pipeline.features.target import TargetTransform
 from pipeline.models import baselines
 from pipeline.models.per_series import PerSeriesOLS
-from pipeline.stages import features
+from pipeline.models.transformed import TransformedTargetModel
 from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
@@ -134,6 +137,10 @@ def _state(obj, parts: list | None = None) -> dict[str, Any]:
     return {name: encode(val, parts) for name, val in vars(obj).items() if not name.startswith("__")}
 
 
+# The modules whose classes a model file's feature plan may be rebuilt from.
+FEATURE_MODULES = (numeric, categorical, interactions, series, calendar, lags, plan_module)
+
+
 def _allowed_classes(module) -> dict[str, type]:
     return {name: cls for name, cls in vars(module).items()
             if isinstance(cls, type) and cls.__module__ == module.__name__
@@ -162,7 +169,7 @@ class StoredLinear:
     target transform (with its smearing factor) that turns its predictions into means."""
 
     def __init__(self, intercept: float, coef: np.ndarray, names: list[str],
-                 transform: features.TargetTransform | None = None, smearing: float = 1.0) -> None:
+                 transform: TargetTransform | None = None, smearing: float = 1.0) -> None:
         self.intercept_ = float(intercept)
         self.coef_ = np.asarray(coef, float)
         self.names_ = list(names)
@@ -181,18 +188,18 @@ class StoredLinear:
 
 def _unwrapped(model) -> tuple[object, dict | None]:
     """Return the model inside a target transform and the transform's entry (or None)."""
-    if isinstance(model, features.TransformedTargetModel):
+    if isinstance(model, TransformedTargetModel):
         return model.model, {"column": model.transform.column, "kind": model.transform.kind,
                              "smearing": model.smearing_}
     return model, None
 
 
-def _transform_of(entry: dict) -> tuple[features.TargetTransform | None, float]:
+def _transform_of(entry: dict) -> tuple[TargetTransform | None, float]:
     """Return a stored model's target transform (or None) and its smearing factor."""
     scale = entry.get("target_transform")
     if not scale:
         return None, 1.0
-    transform = features.TargetTransform(str(scale["column"]), str(scale["kind"]))
+    transform = TargetTransform(str(scale["column"]), str(scale["kind"]))
     if transform.kind not in ("log", "log1p", "none"):
         raise ModelFileError(f"unknown target transform {transform.kind!r}")
     return transform, float(scale["smearing"])
@@ -362,7 +369,8 @@ def load_model(path: str | Path) -> StoredModel:
     if document.format != FORMAT or document.format_version != FORMAT_VERSION:
         raise ModelFileError(f"{path}: not a castline model file of version {FORMAT_VERSION}")
     try:
-        transformers = _allowed_classes(features)
+        transformers = {name: cls for module in FEATURE_MODULES
+                        for name, cls in _allowed_classes(module).items()}
         plan_entry = document.plan
         if plan_entry.get("class") != "FeaturePlan":
             raise ModelFileError("the plan is not a feature plan")
@@ -374,7 +382,7 @@ def load_model(path: str | Path) -> StoredModel:
         plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
                         transformers, parts)
         plan.parts_ = parts
-        plan.error = features._spec_error
+        plan.error = plan_module.unplaced_spec_error
         models = {}
         for kind, entry in document.models.items():
             if entry.get("kind") == "linear":

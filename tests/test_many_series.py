@@ -606,7 +606,7 @@ def test_series_columns_too_large_for_memory_stop_with_one_line_at_series_effect
     # The models over all series hold a dense 0/1 column per series; beyond
     # FeaturePlan.LARGEST_SERIES_DESIGN cells the check stops before any fit, naming the key
     # and pointing to the model per series. The bound is lowered here so ten series cross it.
-    from pipeline.stages.features import FeaturePlan
+    from pipeline.features.plan import FeaturePlan
     monkeypatch.setattr(FeaturePlan, "LARGEST_SERIES_DESIGN", 100)
     path = write_many_series(tmp_path)
     code, out, err = run_cli(["check", str(path)])

@@ -11,6 +11,7 @@ from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNa
 from pipeline.models.ols import OLSModel, least_squares
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.regularised import HuberModel, PenalisedModel
+from pipeline.models.transformed import TransformedTargetModel
 
 BASELINES = {
     "mean_baseline": MeanBaseline,
@@ -20,9 +21,21 @@ BASELINES = {
 }
 
 
-def make_model(choice, *, intercept: bool = True):
-    """Return a new, unfitted model for a spec's model choice (or a bare kind name)."""
+def make_model(choice, *, intercept: bool = True, target=None):
+    """Return a new, unfitted model for a spec's model choice (or a bare kind name).
+
+    With a target transform other than none (``target``, the plan's ``target_scale``), a
+    linear model is fitted on the transformed target and its predictions turned back into
+    means; a baseline always works on the target as it is.
+    """
     kind = choice if isinstance(choice, str) else choice.kind
+    model = _new_model(choice, kind, intercept)
+    if target is None or target.kind == "none" or kind in BASELINES:
+        return model
+    return TransformedTargetModel(model, target)
+
+
+def _new_model(choice, kind: str, intercept: bool):
     if kind in BASELINES:
         return BASELINES[kind]()
     if kind == "ols":
@@ -49,4 +62,4 @@ def prediction_spread(model, design) -> tuple:
 
 
 __all__ = ["PerSeriesOLS", "prediction_spread", "BASELINES", "Drift", "HuberModel", "LastValue", "MeanBaseline", "OLSModel",
-           "PenalisedModel", "SeasonalNaive", "least_squares", "make_model"]
+           "PenalisedModel", "SeasonalNaive", "TransformedTargetModel", "least_squares", "make_model"]

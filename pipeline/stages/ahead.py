@@ -18,9 +18,10 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.features.lags import with_predictions
+from pipeline.features.plan import FeaturePlan, plan_features
 from pipeline.models import make_model, prediction_spread
 from pipeline.spec import LaggedColumn, ModelChoice, Spec
-from pipeline.stages.features import FeaturePlan, plan_features, with_predictions
 
 
 def target_lags_reach(spec: Spec) -> int | None:
@@ -60,7 +61,7 @@ def spec_for_horizon(spec: Spec, horizon: int) -> Spec:
 
 def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame):
     design, y = plan.training_design(train)
-    model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
+    model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
     return model.fit(design, y)
 
 

@@ -21,12 +21,12 @@ from sklearn.model_selection import GroupKFold, KFold
 from pipeline.core import progress
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
+from pipeline.features.plan import plan_features
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
 from pipeline.stages.ahead import needs_strategy, predict_ahead
 from pipeline.stages.check import CheckedData
-from pipeline.stages.features import plan_features
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
@@ -422,7 +422,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
                                            np.asarray(split.test[SERIES].to_numpy()))
                                 for _, _, model in used]
             else:
-                model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
+                model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
                 design, y_train = train_design(choice.kind)
                 model.fit(design, y_train)
                 predicted = model.predict(test_design(choice.kind))

@@ -20,13 +20,13 @@ from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design, series_design
 from pipeline.core.errors import DataError
 from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
+from pipeline.features.plan import plan_features
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
 from pipeline.stages.ahead import needs_strategy, predict_ahead
 from pipeline.stages.backtest import BacktestResult
 from pipeline.stages.check import CheckedData
-from pipeline.stages.features import plan_features
 
 
 @dataclass(frozen=True)
@@ -112,7 +112,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     fallbacks = []
     for choice in spec.models:
         kind = choice.name
-        model = plan.for_target(make_model(choice, intercept=spec.intercept), choice.kind)
+        model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
         model.fit(history_design, y)
         fitted[kind] = model
         if hasattr(model, "describe"):

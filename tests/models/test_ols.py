@@ -20,8 +20,8 @@ from sklearn.linear_model import LinearRegression
 from statsmodels.datasets import stackloss
 
 from pipeline.core.design import Design
+from pipeline.features.numeric import PolynomialTerms
 from pipeline.models.ols import INTERCEPT, Collinearity, OLSModel
-from pipeline.stages.features import PolynomialTerms
 
 NIST_DIR = Path(__file__).resolve().parents[1] / "data" / "nist_strd"
 NIST_CERTIFIED = json.loads((NIST_DIR / "certified.json").read_text())  # values stay strings

@@ -26,10 +26,10 @@ import statsmodels.api as sm
 from statsmodels.datasets import grunfeld
 
 from pipeline.core.design import Design
+from pipeline.features.numeric import PolynomialTerms
 from pipeline.models import per_series
 from pipeline.models.ols import INTERCEPT
 from pipeline.models.per_series import ChunkTask, PerSeriesOLS, fit_series_chunk
-from pipeline.stages.features import PolynomialTerms
 
 RTOL = 1e-8
 

@@ -21,23 +21,18 @@ from hypothesis import strategies as st
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design
 from pipeline.core.errors import DataError, SpecError
-from pipeline.models import make_model
+from pipeline.features.calendar import FourierTerms, working_days_in_month
+from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
+from pipeline.features.lags import with_predictions
+from pipeline.features.numeric import NumericTerms
+from pipeline.features.plan import plan_features
+from pipeline.features.target import TargetTransform
+from pipeline.models import MeanBaseline, make_model
 from pipeline.models.ols import OLSModel
+from pipeline.models.transformed import TransformedTargetModel
 from pipeline.spec import Spec
 from pipeline.stages.backtest import run_backtest
 from pipeline.stages.check import CheckedData
-from pipeline.stages.features import (
-    FourierTerms,
-    NumericTerms,
-    OneHotEncoder,
-    OrdinalEncoder,
-    TargetMeanEncoder,
-    TargetTransform,
-    TransformedTargetModel,
-    plan_features,
-    with_predictions,
-    working_days_in_month,
-)
 
 REGIONS = ("East", "North", "West")
 
@@ -231,7 +226,7 @@ def _outputs_at(frame: pd.DataFrame, origin: pd.Period):
     test = frame[(frame[PERIOD] > origin) & (frame[PERIOD] <= origin + HORIZON)]
     plan = plan_features(LEAKAGE_SPEC, SERIES).fit(train)
     design, y = plan.training_design(train)
-    model = plan.for_target(make_model("ols"), "ols").fit(design, y)
+    model = make_model("ols", target=plan.target_scale).fit(design, y)
     table = plan.feature_table(test)
     return design.matrix, model.model.coef_, table, model.predict(plan.transform(test)), test
 
@@ -546,10 +541,9 @@ def test_a_non_positive_target_under_log_is_refused_naming_column_and_row():
 def test_baselines_keep_the_target_as_it_is():
     frame = make_panel(months=6)
     plan = fitted_plan({"numeric": ["price"]}, frame, target_transform="log")
-    assert isinstance(plan.for_target(make_model("ols"), "ols"), TransformedTargetModel)
-    baseline = make_model("mean_baseline")
-    assert plan.for_target(baseline, "mean_baseline") is baseline
-    assert fitted_plan({}, frame).for_target(make_model("ols"), "ols").__class__ is OLSModel
+    assert isinstance(make_model("ols", target=plan.target_scale), TransformedTargetModel)
+    assert make_model("mean_baseline", target=plan.target_scale).__class__ is MeanBaseline
+    assert make_model("ols", target=fitted_plan({}, frame).target_scale).__class__ is OLSModel
 
 
 def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):

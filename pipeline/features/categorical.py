@@ -1,0 +1,184 @@
+"""Categorical drivers turned into numbers: one-hot, ordinal, or the target's smoothed mean."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from pipeline.core.errors import DataError
+from pipeline.features.rows import first_row, which_rows
+
+
+class _LevelEncoder:
+    """What every categorical encoding shares: levels as text, rare levels grouped,
+    a reference level, and the policy for a level the training rows did not hold."""
+
+    def __init__(self, column: str, reference: str | None = None, group_below: int | None = None,
+                 unseen: str = "stop") -> None:
+        self.column = column
+        self.reference = reference
+        self.group_below = group_below
+        self.unseen = unseen
+
+    @property
+    def group_label(self) -> str:
+        return f"other (levels with fewer than {self.group_below} rows)"
+
+    def _fit_levels(self, frame: pd.DataFrame) -> pd.Series:
+        """Learn the levels, the grouped levels and the reference; return the training labels."""
+        values = frame[self.column].astype(str)
+        counts = values.value_counts()
+        rare = sorted(level for level in counts.index
+                      if self.group_below is not None and counts[level] < self.group_below)
+        self.grouped_ = rare
+        labels = values.where(~values.isin(rare), self.group_label) if rare else values
+        grouped_counts = labels.value_counts()
+        levels = sorted(grouped_counts.index)
+        if self.reference is not None:
+            if self.reference in rare:
+                raise DataError(f"the reference level '{self.reference}' has fewer than "
+                                f"{self.group_below} training rows, so it is grouped with the other "
+                                "rare levels; choose another reference", column=self.column)
+            if self.reference not in grouped_counts.index:
+                raise DataError(f"the reference level '{self.reference}' does not occur in the "
+                                f"training rows (levels: {', '.join(levels)})", column=self.column)
+            self.reference_ = self.reference
+        else:
+            top = grouped_counts.max()
+            self.reference_ = min(level for level in levels if grouped_counts[level] == top)
+        self.known_levels_ = levels
+        return labels
+
+    def _labels(self, frame: pd.DataFrame) -> pd.Series:
+        """Return each row's level as learned: rare levels grouped, unseen ones by the policy."""
+        values = frame[self.column].astype(str)
+        if self.grouped_:
+            values = values.where(~values.isin(self.grouped_), self.group_label)
+        unseen = ~values.isin(self.known_levels_)
+        if unseen.any():
+            if self.unseen == "stop":
+                first = values[unseen].iloc[0]
+                raise DataError(f"level '{first}' was not in the training rows (known: "
+                                f"{', '.join(self.known_levels_)}); set unseen: use_reference to "
+                                "treat such levels as the reference level",
+                                column=self.column, row=first_row(frame, unseen.to_numpy()))
+            values = values.where(~unseen, self.reference_)
+        return values
+
+    def notes(self, frame: pd.DataFrame) -> list[str]:
+        """Return a warning for each level met here that the training rows did not hold."""
+        values = frame[self.column].astype(str)
+        unseen = ~values.isin(self.known_levels_) & ~values.isin(self.grouped_)
+        if self.unseen != "use_reference" or not unseen.any():
+            return []
+        levels = ", ".join(f"'{level}'" for level in sorted(values[unseen].unique()))
+        return [f"{self.column}: level {levels} was not in the training rows; "
+                f"{which_rows(frame, unseen.to_numpy())} were treated as the reference level "
+                f"'{self.reference_}'"]
+
+    def main_effect(self, frame: pd.DataFrame) -> np.ndarray:
+        return self.transform(frame)
+
+    def main_effect_names(self) -> list[str]:
+        return self.get_feature_names_out()
+
+
+class OneHotEncoder(_LevelEncoder):
+    """One 0/1 column per level of a category, less the reference level.
+
+    The reference is the level named in the spec, or else the most frequent
+    level in the training window (ties broken alphabetically).
+    """
+
+    def fit(self, frame: pd.DataFrame, y=None) -> OneHotEncoder:
+        self._fit_levels(frame)
+        self.levels_ = [level for level in self.known_levels_ if level != self.reference_]
+        return self
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        labels = self._labels(frame)
+        # One column per level, filled by each row's position among the levels (the
+        # reference row has none): one pass over the rows, however many levels there are.
+        codes = pd.Index(self.levels_).get_indexer(labels.to_numpy())
+        columns = np.zeros((len(frame), len(self.levels_)))
+        rows = np.flatnonzero(codes >= 0)
+        columns[rows, codes[rows]] = 1.0
+        return columns
+
+    def get_feature_names_out(self) -> list[str]:
+        return [f"{self.column}: {level}" for level in self.levels_]
+
+
+class OrdinalEncoder(_LevelEncoder):
+    """A category with a natural order, as the place of its level in that order (0 = lowest).
+
+    The order comes from the spec. A training level missing from the order is
+    refused; a level in the order but not in the training rows keeps its place.
+    """
+
+    def __init__(self, column: str, order: list[str], reference: str | None = None,
+                 unseen: str = "stop") -> None:
+        super().__init__(column, reference=reference, group_below=None, unseen=unseen)
+        self.order = order
+
+    def fit(self, frame: pd.DataFrame, y=None) -> OrdinalEncoder:
+        values = frame[self.column].astype(str)
+        outside = ~values.isin(self.order)
+        if outside.any():
+            raise DataError(f"level '{values[outside].iloc[0]}' is not in the order given in the "
+                            f"spec ({', '.join(self.order)})", column=self.column,
+                            row=first_row(frame, outside.to_numpy()))
+        self.grouped_ = []
+        self.known_levels_ = list(self.order)
+        if self.reference is not None:
+            self.reference_ = self.reference
+        else:   # the most frequent level, ties broken by the order
+            counts = values.value_counts()
+            self.reference_ = max(self.order, key=lambda level: (counts.get(level, 0),
+                                                                 -self.order.index(level)))
+        self.ranks_ = {level: float(place) for place, level in enumerate(self.order)}
+        return self
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        return self._labels(frame).map(self.ranks_).to_numpy(float)[:, None]
+
+    def get_feature_names_out(self) -> list[str]:
+        shown = [f"{level} = {place}" for place, level in enumerate(self.order)]
+        if len(shown) > 4:
+            shown = shown[:2] + ["…"] + shown[-1:]
+        return [f"{self.column}: rank ({', '.join(shown)})"]
+
+
+class TargetMeanEncoder(_LevelEncoder):
+    """A category as the smoothed mean of the target in each level, learned in the window.
+
+    With n training rows in a level whose mean is m_level, the overall mean
+    m_all and a smoothing weight w, the level's value is
+    (n · m_level + w · m_all) / (n + w): a level with few rows is pulled
+    towards the overall mean. The target is taken on the scale the models fit.
+    """
+
+    def __init__(self, column: str, smoothing: float = 10.0, reference: str | None = None,
+                 group_below: int | None = None, unseen: str = "stop",
+                 target_name: str = "the target") -> None:
+        super().__init__(column, reference=reference, group_below=group_below, unseen=unseen)
+        self.smoothing = smoothing
+        self.target_name = target_name
+
+    def fit(self, frame: pd.DataFrame, y=None) -> TargetMeanEncoder:
+        if y is None:
+            raise ValueError("target-mean encoding is fitted with the target")
+        labels = self._fit_levels(frame)
+        target = pd.Series(np.asarray(y, dtype=float), index=frame.index)
+        self.overall_mean_ = float(target.mean())
+        stats = target.groupby(labels.to_numpy()).agg(["count", "mean"])
+        weight = self.smoothing
+        smoothed = (stats["count"] * stats["mean"] + weight * self.overall_mean_) / (stats["count"] + weight)
+        self.means_ = {str(level): float(value) for level, value in smoothed.items()}
+        return self
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        return self._labels(frame).map(self.means_).to_numpy(float)[:, None]
+
+    def get_feature_names_out(self) -> list[str]:
+        return [f"{self.column}: smoothed mean of {self.target_name}"]

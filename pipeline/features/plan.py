@@ -1,0 +1,339 @@
+"""The feature plan: turn driver columns into the numeric design a linear model fits.
+
+Every transformer here follows the scikit-learn contract: ``fit`` learns from
+the rows of one training window only (levels, reference levels, quantiles,
+fill values, target means, means and standard deviations, the first month of
+the trend, the values lags are taken from) and keeps what it learned in
+attributes ending in ``_``; ``transform`` applies what was learned and never
+learns. ``get_feature_names_out()`` names every column so that a coefficient
+reads without a legend (``region: South``, ``month: March``,
+``bags_sold, 12 months earlier``).
+
+A fitted ``FeaturePlan`` remembers the window it was fitted on. Lags of the
+target are taken only from the target values of that window, or from values
+the caller hands over explicitly in ``known`` (predictions fed back, for a
+recursive multi-step forecast; see ``with_predictions``). A target value in
+the rows being transformed is never read, so transforming the rows after the
+origin cannot see their actuals. Drivers of the rows being transformed are
+inputs the analyst supplies for those months, and are used, as the unlagged
+drivers are.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+
+import numpy as np
+import pandas as pd
+
+from pipeline.core.columns import PERIOD, month_ordinals
+from pipeline.core.design import Design
+from pipeline.core.errors import DataError, SpecError
+from pipeline.features.calendar import FourierTerms, MonthDummies, QuarterDummies, TrendTerm, WorkingDays
+from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
+from pipeline.features.interactions import InteractionTerms
+from pipeline.features.lags import LagFeatures
+from pipeline.features.numeric import NumericTerms
+from pipeline.features.rows import first_row, which_rows
+from pipeline.features.series import SeriesTerms, series_effects_of
+from pipeline.features.target import TargetTransform
+from pipeline.spec import (
+    CalendarFeatures,
+    CategoricalDriver,
+    KeyPath,
+    LaggedColumn,
+    NumericDriver,
+    Spec,
+    format_key_path,
+)
+
+
+def unplaced_spec_error(key: KeyPath, message: str) -> SpecError:
+    return SpecError(message, key=format_key_path(key))
+
+
+class FeaturePlan:
+    """Every feature the spec asks for, in a fixed order, fitted together on one window.
+
+    Order of the columns: numeric drivers, categorical drivers, interactions,
+    calendar, lags. Use ``training_design`` for the rows a model is fitted on
+    (rows whose lags are unavailable are left out and said so) and
+    ``transform`` for the rows it predicts.
+    """
+
+    def __init__(self, numeric: list[NumericDriver], categorical: list[CategoricalDriver],
+                 series_column: str, *, interactions: list[list[str]] = (),
+                 calendar: CalendarFeatures | None = None, lags: list[LaggedColumn] = (),
+                 target: str | None = None, target_transform: str = "none",
+                 error: Callable[[KeyPath, str], SpecError] = unplaced_spec_error,
+                 source: str | None = None, series_effects=None) -> None:
+        self.numeric = list(numeric)
+        self.categorical = list(categorical)
+        self.series_column = series_column
+        self.interactions = [list(pair) for pair in interactions]
+        self.calendar = calendar
+        self.lags = list(lags)
+        self.target = target
+        self.target_transform = target_transform
+        self.error = error
+        self.source = source
+        self.series_effects = series_effects   # a SeriesEffects spec section, or None for none
+
+    # -- fitting
+
+    @contextmanager
+    def _located(self) -> Iterator[None]:
+        """Name the input file in a DataError raised by a transformer, which cannot know it."""
+        try:
+            yield
+        except DataError as problem:
+            if problem.file is None and self.source is not None:
+                raise DataError(problem.message, file=self.source, column=problem.column,
+                                row=problem.row) from None
+            raise
+
+    @property
+    def target_scale(self) -> TargetTransform:
+        return TargetTransform(self.target or "the target", self.target_transform)
+
+    def _target_values(self, frame: pd.DataFrame) -> np.ndarray | None:
+        if self.target is None or self.target not in frame.columns:
+            return None
+        return self.target_scale.forward(frame[self.target].to_numpy(float))
+
+    def fit(self, frame: pd.DataFrame) -> FeaturePlan:
+        with self._located():
+            self.target_scale.check(frame)
+            y = self._target_values(frame)
+            numeric = {d.column: NumericTerms(d.column, d.degree, d.transform, d.clip_quantiles,
+                                              d.missing, d.standardise).fit(frame)
+                       for d in self.numeric}
+            categorical = {d.column: self._encoder(d).fit(frame, y) for d in self.categorical}
+            drivers = {**numeric, **categorical}
+            parts = [*numeric.values(), *categorical.values()]
+            parts += [InteractionTerms(drivers[a], drivers[b]).fit(frame) for a, b in self.interactions]
+            parts += [part.fit(frame) for part in self._calendar_parts()]
+            effects = self.series_effects
+            if effects is not None and (effects.intercepts or effects.slopes):
+                terms = SeriesTerms(self.series_column, effects.intercepts,
+                                    [numeric[column] for column in effects.slopes]).fit(frame)
+                self._check_series_terms(terms, frame)
+                parts.append(terms)
+            self.row_parts_ = parts
+            self.lag_parts_ = [self._lag_part(index, lagged).fit(
+                self._lag_values(lagged.column, frame, numeric))
+                for index, lagged in enumerate(self.lags)]
+            self.parts_ = [*self.row_parts_, *self.lag_parts_]
+            self.numeric_parts_ = numeric
+            self.window_end_ = (pd.Period(ordinal=int(month_ordinals(frame).max()), freq="M")
+                                if PERIOD in frame.columns and len(frame) else None)
+        return self
+
+    # Series columns are dense: beyond this many cells in a window's design, the fit would
+    # need gigabytes, and a model per series (or no series intercepts) is the way.
+    LARGEST_SERIES_DESIGN = 100_000_000
+
+    def _check_series_terms(self, terms: SeriesTerms, frame: pd.DataFrame) -> None:
+        columns = len(terms.get_feature_names_out())
+        if columns * len(frame) > self.LARGEST_SERIES_DESIGN:
+            raise self.error(("drivers", "series_effects"),
+                             f"{len(terms.levels_) + 1} series give the models over all series "
+                             f"{columns} series columns on {len(frame)} rows, about "
+                             f"{columns * len(frame) * 8 / 1e9:.0f} GB; fit per series instead "
+                             "(models: [{kind: ols, per_series: true}]) or set intercepts: false")
+
+    def _encoder(self, driver: CategoricalDriver):
+        if driver.encoding == "ordinal":
+            return OrdinalEncoder(driver.column, driver.order, driver.reference, driver.unseen)
+        if driver.encoding == "target_mean":
+            if self.target is None:
+                raise ValueError("target-mean encoding needs the plan to know the target column")
+            return TargetMeanEncoder(driver.column, driver.effective_smoothing, driver.reference,
+                                     driver.group_below, driver.unseen, self.target_scale.name)
+        return OneHotEncoder(driver.column, driver.reference, driver.group_below, driver.unseen)
+
+    def _calendar_parts(self) -> list:
+        calendar = self.calendar
+        if calendar is None:
+            return []
+        parts: list = [TrendTerm()] if calendar.trend else []
+        if calendar.month_of_year == "dummies":
+            parts.append(MonthDummies())
+        elif calendar.month_of_year == "fourier":
+            parts.append(FourierTerms(calendar.effective_harmonics))
+        if calendar.quarter:
+            parts.append(QuarterDummies())
+        if calendar.working_days:
+            parts.append(WorkingDays(calendar.closures))
+        return parts
+
+    def _lag_part(self, index: int, lagged: LaggedColumn) -> LagFeatures:
+        of_target = lagged.column == self.target
+        label = self.target_scale.name if of_target else lagged.column
+        return LagFeatures(lagged.column, lagged.lags, lagged.rolling_means, lagged.differences,
+                           lagged.start_lag, label=label, of_target=of_target,
+                           key=("drivers", "lags", index))
+
+    def _lag_values(self, column: str, frame: pd.DataFrame, numeric: dict | None = None) -> pd.Series:
+        """Return a lagged column's values keyed by (series, month): the target on the models'
+        scale (rows without it left out), a driver filled as the driver is."""
+        numeric = self.numeric_parts_ if numeric is None else numeric
+        if column == self.target:
+            rows = frame[frame[column].notna()]
+            values = self.target_scale.forward(rows[column].to_numpy(float))
+        else:
+            rows = frame
+            values = rows[column].to_numpy(float)
+            fill = numeric[column].fill_value_ if column in numeric else None
+            if fill is not None:
+                values = np.where(np.isnan(values), fill, values)
+        index = pd.MultiIndex.from_arrays([rows[self.series_column].to_numpy(), month_ordinals(rows)])
+        return pd.Series(values, index=index, dtype=float)
+
+    # -- transforming
+
+    def _origin(self, known: pd.DataFrame | None) -> int | None:
+        """Return the last month whose target is known: the window's, or a later one in known."""
+        months = [self.window_end_.ordinal] if self.window_end_ is not None else []
+        if known is not None and self.target in known.columns:
+            has_target = known[self.target].notna().to_numpy()
+            if has_target.any():
+                months.append(int(month_ordinals(known)[has_target].max()))
+        return max(months) if months else None
+
+    def _check_reach(self, frame: pd.DataFrame, known: pd.DataFrame | None) -> None:
+        """Stop with a SpecError if a lag of the target reads a month after the origin."""
+        targets = [part for part in self.lag_parts_ if part.of_target]
+        origin = self._origin(known)
+        if not targets or origin is None or not len(frame):
+            return
+        ahead = int((month_ordinals(frame) - origin).max())
+        for part in targets:
+            for back, key, name in part.reaches():
+                if back < ahead:
+                    at = pd.Period(ordinal=origin, freq="M")
+                    raise self.error(key, f"'{name}' reaches past the forecast origin ({at}): the "
+                                          f"months predicted run up to {ahead} months after it, so "
+                                          f"each lag of the target must be at least {ahead} months "
+                                          "(a strategy that feeds predictions back month by month "
+                                          "is not offered yet)")
+
+    def feature_table(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> pd.DataFrame:
+        """Return the features of the rows as a table (columns named, the frame's index),
+        with NaN where a lag is unavailable.
+
+        ``known`` holds rows whose target is known beyond the training window
+        (predictions fed back, see ``with_predictions``); target values in
+        ``frame`` itself are never read.
+        """
+        with self._located():
+            self._check_reach(frame, known)
+            blocks = [part.transform(frame) for part in self.row_parts_]
+            if self.lag_parts_:
+                series = frame[self.series_column].to_numpy()
+                months = month_ordinals(frame)
+                for part in self.lag_parts_:
+                    blocks.append(part.transform(series, months, self._extra_values(part, frame, known)))
+        matrix = np.hstack(blocks) if blocks else np.empty((len(frame), 0))
+        return pd.DataFrame(matrix, index=frame.index, columns=self.get_feature_names_out())
+
+    def _extra_values(self, part: LagFeatures, frame: pd.DataFrame,
+                      known: pd.DataFrame | None) -> pd.Series | None:
+        """Return the values a lag may read beyond the window: for the target, those in
+        known only; for a driver, those of the rows themselves and of known."""
+        sources = [] if part.of_target else [frame]
+        if known is not None:
+            sources.append(known)
+        if not sources:
+            return None
+        return pd.concat([self._lag_values(part.column, source) for source in sources])
+
+    def _notes(self, frame: pd.DataFrame) -> list[str]:
+        return [note for part in self.row_parts_ if hasattr(part, "notes") for note in part.notes(frame)]
+
+    # Beyond this size a term's square, summed over many rows, overflows a float; the
+    # check stage holds the input's own numbers to the same bound.
+    LARGEST_TERM = 1e150
+
+    def _design(self, frame: pd.DataFrame, matrix: np.ndarray, notes: list[str]) -> Design:
+        if matrix.size:
+            with np.errstate(invalid="ignore"):
+                too_large = ~(np.abs(matrix) <= self.LARGEST_TERM)   # also catches inf and NaN
+            if too_large.any():
+                row, column = (int(i) for i in np.argwhere(too_large)[0])
+                at = frame.iloc[row]
+                raise DataError(f"the term '{self.get_feature_names_out()[column]}' is "
+                                f"{matrix[row, column]:g} for {at[PERIOD]} (series "
+                                f"'{at[self.series_column]}'), too large to fit; rescale the driver "
+                                "or lower its degree", file=self.source,
+                                row=first_row(frame, np.arange(len(frame)) == row))
+        period = month_ordinals(frame) if PERIOD in frame.columns else None
+        series_level = np.concatenate([
+            np.full(len(part.get_feature_names_out()), isinstance(part, SeriesTerms), bool)
+            for part in self.parts_]) if self.parts_ else np.zeros(0, bool)
+        return Design(matrix=matrix, names=self.get_feature_names_out(),
+                      series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes),
+                      series_level=series_level)
+
+    def transform(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> Design:
+        """Return the design of rows to predict; stop if one of their lags is unavailable."""
+        with np.errstate(over="ignore"):   # too large a term is refused in _design
+            table = self.feature_table(frame, known)
+        unavailable = table.isna().to_numpy()
+        if unavailable.any():
+            row, column = (int(i) for i in np.argwhere(unavailable)[0])
+            at = frame.iloc[row]
+            raise DataError(f"'{table.columns[column]}' is not available for {at[PERIOD]} (series "
+                            f"'{at[self.series_column]}'): the month it reads is before the "
+                            "series starts or missing", file=self.source,
+                            row=first_row(frame, np.arange(len(frame)) == row))
+        return self._design(frame, table.to_numpy(), self._notes(frame))
+
+    def training_design(self, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
+        """Return the design and the target of the training rows a model can be fitted on.
+
+        Rows whose lags reach before their series starts (the first months of
+        each series, or months after a gap) are left out, and the design's
+        notes say how many.
+        """
+        with self._located():
+            self.target_scale.check(frame)
+        with np.errstate(over="ignore"):
+            table = self.feature_table(frame)
+        usable = ~table.isna().any(axis=1).to_numpy()
+        notes = self._notes(frame)
+        if not usable.all():
+            if not usable.any():
+                raise DataError("no training row has every lag available: the lags reach further "
+                                "back than the training window holds", file=self.source)
+            left_out = frame[~usable]
+            notes.append(f"{which_rows(frame, ~usable)} were left out of every model's fit: their "
+                         f"lags reach before the first month of their series or into a missing "
+                         f"month (left out: {left_out[PERIOD].min()} to {left_out[PERIOD].max()})")
+        kept = frame[usable]
+        y = kept[self.target].to_numpy(float) if self.target in kept.columns else np.empty(0)
+        return self._design(kept, table.to_numpy()[usable], notes), y
+
+    @property
+    def shortest_target_lag(self) -> int | None:
+        """Return the fewest months back any feature reads the target, or None."""
+        reaches = [back for part in self._unfitted_lag_parts() if part.of_target
+                   for back, _, _ in part.reaches()]
+        return min(reaches) if reaches else None
+
+    def _unfitted_lag_parts(self) -> list[LagFeatures]:
+        return [self._lag_part(index, lagged) for index, lagged in enumerate(self.lags)]
+
+    def get_feature_names_out(self) -> list[str]:
+        return [name for part in self.parts_ for name in part.get_feature_names_out()]
+
+
+def plan_features(spec: Spec, series_column: str) -> FeaturePlan:
+    """Return the unfitted feature plan the spec describes."""
+    drivers = spec.drivers
+    return FeaturePlan(list(drivers.numeric), list(drivers.categorical), series_column,
+                       interactions=drivers.interactions, calendar=drivers.calendar,
+                       lags=list(drivers.lags), target=spec.target,
+                       target_transform=spec.target_transform, error=spec.error,
+                       source=str(spec.input.file), series_effects=series_effects_of(spec))

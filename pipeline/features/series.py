@@ -1,0 +1,72 @@
+"""What models fitted over all series learn about each series: a level, slopes."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from pipeline.features.categorical import OneHotEncoder
+from pipeline.features.rows import which_rows
+from pipeline.spec import (
+    LINEAR_KINDS,
+    Spec,
+)
+
+
+class SeriesTerms(OneHotEncoder):
+    """For models over all series at once: the series one-hot encoded (a 0/1 column per
+    series but the first, its own level), and, for named numeric drivers, that driver times
+    each of those columns (its own slope). The first series in sorted order is the
+    reference, as in a treatment coding.
+
+    A series the training window did not hold gets the reference series' level and slopes,
+    and a note says so.
+    """
+
+    def __init__(self, series_column: str, intercepts: bool = True, slopes=()) -> None:
+        super().__init__(series_column, unseen="use_reference")
+        self.intercepts = intercepts
+        self.slopes = list(slopes)   # fitted NumericTerms, whose first-degree column is used
+
+    def fit(self, frame: pd.DataFrame, y=None) -> SeriesTerms:
+        self._fit_levels(frame)
+        self.reference_ = self.known_levels_[0] if self.known_levels_ else None
+        self.levels_ = self.known_levels_[1:]
+        return self
+
+    def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        dummies = super().transform(frame)
+        blocks = [dummies] if self.intercepts else []
+        blocks += [dummies * part.main_effect(frame) for part in self.slopes]
+        return np.hstack(blocks) if blocks else np.empty((len(frame), 0))
+
+    def get_feature_names_out(self) -> list[str]:
+        levels = super().get_feature_names_out()
+        return (levels if self.intercepts else []) + [
+            f"{part.base_name} × {level}" for part in self.slopes for level in levels]
+
+    def notes(self, frame: pd.DataFrame) -> list[str]:
+        labels = frame[self.column].astype(str)
+        unseen = ~labels.isin(self.known_levels_)
+        if not unseen.any():
+            return []
+        names = sorted(labels[unseen].unique())
+        shown = ", ".join(f"'{name}'" for name in names[:5]) + (
+            f" and {len(names) - 5} more" if len(names) > 5 else "")
+        return [f"series {shown} had no training rows: the models over all series give "
+                f"{which_rows(frame, unseen.to_numpy())} the level and slopes of the first "
+                f"series '{self.reference_}'"]
+
+
+def series_effects_of(spec: Spec):
+    """Return the series effects the models over all series get, or None when they get none:
+    with one series, with no such model, or when the series column is itself one-hot encoded."""
+    pooled = [m for m in spec.models if m.kind in LINEAR_KINDS and not m.per_series]
+    effects = spec.drivers.series_effects
+    if not spec.input.series or not pooled:
+        return None
+    one_hot = {d.column for d in spec.drivers.categorical if d.encoding == "one_hot"}
+    if len(spec.input.series) == 1 and spec.input.series[0] in one_hot:
+        # The series' own levels are already columns; only the slopes are added.
+        return effects.model_copy(update={"intercepts": False}) if effects.slopes else None
+    return effects
