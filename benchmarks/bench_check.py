@@ -1,11 +1,11 @@
 """Benchmark: castline's read + data checks against reading the same CSV with pandas alone.
 
 Not a test. Run with ``.venv/bin/python benchmarks/bench_check.py`` (add
-``--profile`` to print where castline's time goes, ``--rows`` and ``--series`` to
-change the size). It builds a CSV of 1,000,000 rows x 20 columns in a temporary
-folder — 10,000 series x 100 months (the last month to forecast), a series key,
-the target, 14 numeric drivers and three category columns — and times, best of
-three:
+``--profile`` to print where castline's time goes, ``--series`` and ``--months`` to
+change the size, ``--repeats`` to change how many timed runs). It builds a CSV of
+1,000,000 rows x 20 columns in a temporary folder — 10,000 series x 100 months
+(the last month to forecast), a series key, the target, 14 numeric drivers and
+three category columns — and times, best of three:
 
 - pandas alone: ``pd.read_csv`` with the options castline's reader passes
   (``pipeline.stages.ingest._read_csv``);

@@ -1,0 +1,76 @@
+"""Every benchmark in benchmarks/ runs to the end at a tiny size and prints its ratios.
+
+Nothing here depends on timing: the benchmarks report a missed speed target and still
+exit 0, and only the presence of the ratio lines (with a number) is checked. A new
+benchmark needs an entry in TINY, or test_every_benchmark_has_a_tiny_size fails.
+"""
+
+from __future__ import annotations
+
+import functools
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+BENCHMARKS = sorted(path.name for path in (ROOT / "benchmarks").glob("bench_*.py"))
+
+NUMBER = r"[0-9]+(?:\.[0-9]+)?"
+
+# Per benchmark: the tiny arguments, and the lines (regexes) its output must contain.
+TINY: dict[str, tuple[list[str], list[str]]] = {
+    # 12 origins at horizon 1 need at least 15 months (min_train_periods >= 2).
+    "bench_backtest.py": (
+        ["--series", "20", "--months", "16", "--drivers", "3"],
+        [rf"castline / lstsq\s+=\s+{NUMBER}\s+\(target <= 1\.0\)\s+(met|MISSED)",
+         rf"sklearn / castline =\s+{NUMBER}\s+\(target >= 10\)\s+(met|MISSED)"],
+    ),
+    "bench_check.py": (
+        ["--series", "20", "--months", "24", "--repeats", "1"],
+        [rf"pandas read_csv alone\s+{NUMBER} s",
+         rf"castline read_input\+check_data\s+{NUMBER} s",
+         rf"ratio\s+{NUMBER} x\s+\(target < 3x: (met|NOT met)\)"],
+    ),
+    # 12 origins at horizon 3 need at least 16 months; 30 leaves a year for the seasonal naive.
+    "bench_many_series.py": (
+        ["--series", "10", "--months", "30", "--drivers", "2"],
+        [rf"ratio \(b\)/\(a\) = {NUMBER}x faster than the statsmodels loop with baselines "
+         rf"\(target >= 15x\); fits only: {NUMBER}x",
+         r"(targets met|TARGET MISSED)"],
+    ),
+}
+
+
+def test_every_benchmark_has_a_tiny_size():
+    assert BENCHMARKS, "no benchmarks/bench_*.py found"
+    assert set(BENCHMARKS) == set(TINY)
+
+
+@functools.cache
+def run(name: str) -> subprocess.CompletedProcess:
+    """Run one benchmark at its tiny size (once per session), from the repository root."""
+    arguments, _ = TINY[name]
+    # The timeout only stops a hung run; no timing is asserted.
+    return subprocess.run([sys.executable, str(ROOT / "benchmarks" / name), *arguments],
+                          cwd=ROOT, capture_output=True, text=True, timeout=600)
+
+
+@pytest.mark.parametrize("name", BENCHMARKS)
+def test_benchmark_runs_at_a_tiny_size(name):
+    _, expected = TINY[name]
+    done = run(name)
+    assert done.returncode == 0, (done.stdout + done.stderr)[-4000:]
+    for pattern in expected:
+        assert re.search(pattern, done.stdout, re.MULTILINE), f"{pattern!r} not in:\n{done.stdout[-4000:]}"
+
+
+def test_many_series_benchmark_agrees_with_statsmodels():
+    """bench_many_series prints how far castline's per-series predictions are from statsmodels'."""
+    done = run("bench_many_series.py")
+    assert done.returncode == 0, (done.stdout + done.stderr)[-4000:]
+    found = re.search(r"max relative difference ([0-9.]+e[-+][0-9]+)", done.stdout)
+    assert found, done.stdout[-4000:]
+    assert float(found.group(1)) < 1e-8
