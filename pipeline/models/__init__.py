@@ -9,8 +9,8 @@ from __future__ import annotations
 
 from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from pipeline.models.ols import OLSModel, least_squares
+from pipeline.models.penalised import HuberModel, PenalisedModel
 from pipeline.models.per_series import PerSeriesOLS
-from pipeline.models.regularised import HuberModel, PenalisedModel
 from pipeline.models.transformed import TransformedTargetModel
 
 BASELINES = {

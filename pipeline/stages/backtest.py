@@ -16,7 +16,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import GroupKFold, KFold
 
 from pipeline.core import progress
 from pipeline.core.columns import PERIOD, SERIES
@@ -25,8 +24,9 @@ from pipeline.features.plan import plan_features
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
-from pipeline.stages.ahead import needs_strategy, predict_ahead
 from pipeline.stages.check import CheckedData
+from pipeline.stages.multistep import needs_strategy, predict_ahead
+from pipeline.stages.splits import Split, sorted_by_month, validation_splits
 
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
                       "mase_scale", "prediction_se", "df_resid"]
@@ -64,26 +64,6 @@ def series_fallbacks(fallbacks: pd.DataFrame) -> pd.DataFrame:
 
 
 @dataclass(frozen=True)
-class OriginWindow:
-    """One origin of a time-ordered scheme, as positions in the sorted list of months."""
-
-    origin: int          # index of the origin month (the last month of training)
-    train_start: int     # index of the first training month
-    test_start: int      # index of the first predicted month
-    test_end: int        # index of the last predicted month
-
-
-@dataclass(frozen=True)
-class Split:
-    """One training window and the rows predicted from it."""
-
-    label: str                 # the origin month, or "fold k"
-    train: pd.DataFrame
-    test: pd.DataFrame
-    origin: pd.Period | None = None
-
-
-@dataclass(frozen=True)
 class BacktestResult:
     """Out-of-sample predictions: one row per origin, period, series and model."""
 
@@ -95,99 +75,6 @@ class BacktestResult:
     step: int = 1
     # Series a model per series fitted by their mean instead, per window (see ``series_fallbacks``).
     fallbacks: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=FALLBACK_COLUMNS))
-
-
-def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap: int = 0,
-                           step: int = 1, window: str = "expanding",
-                           origins: int | None = None) -> list[OriginWindow]:
-    """Return every origin that has min_train months before it and a full horizon after.
-
-    Origins are counted back from the latest possible one, ``step`` months apart,
-    so the newest data is always scored. Raises ValueError saying how many
-    origins the data allows when ``origins`` asks for more.
-    """
-    last = n_periods - 1 - gap - horizon
-    positions = list(range(last, min_train - 2, -step))[::-1]
-    if origins is not None:
-        if origins > len(positions):
-            raise ValueError(f"asks for {origins} origins but the history allows at most "
-                             f"{len(positions)}")
-        positions = positions[-origins:]
-    return [OriginWindow(origin=i,
-                         train_start=0 if window == "expanding" else i - min_train + 1,
-                         test_start=i + 1 + gap, test_end=i + gap + horizon)
-            for i in positions]
-
-
-def _time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
-    validation = spec.validation
-    months = np.sort(data.history[PERIOD].unique())
-    if validation.method == "holdout":
-        held_out = validation.last_periods
-        if held_out >= len(months):
-            raise spec.error(("validation", "last_periods"),
-                             f"holding out {held_out} months leaves nothing to fit on: the history "
-                             f"has {len(months)} months, so at most {len(months) - 1} can be held out")
-        windows = [OriginWindow(len(months) - held_out - 1, 0, len(months) - held_out, len(months) - 1)]
-        horizon = held_out
-    else:
-        needed = validation.min_train_periods + validation.gap + validation.horizon
-        try:
-            windows = rolling_origin_windows(
-                len(months), horizon=validation.horizon, min_train=validation.min_train_periods,
-                gap=validation.gap, step=validation.step, window=validation.window,
-                origins=validation.origins)
-        except ValueError as exc:
-            raise spec.error(("validation", "origins"), f"{exc} (history: {len(months)} months)") from None
-        if not windows:
-            raise spec.error(("validation", "min_train_periods"),
-                             f"the history has {len(months)} months; one origin needs "
-                             f"min_train_periods + gap + horizon = {needed}")
-        horizon = validation.gap + validation.horizon
-    splits = []
-    history = sorted_by_month(data.history)
-    ordinals = history[PERIOD].array.asi8
-
-    def rows(first: int, last: int) -> slice:
-        return slice(int(np.searchsorted(ordinals, months[first].ordinal, side="left")),
-                     int(np.searchsorted(ordinals, months[last].ordinal, side="right")))
-
-    for window in windows:
-        # Windows are slices of the month-sorted history: no copy of the training rows.
-        origin = months[window.origin]
-        splits.append(Split(label=str(origin), train=history.iloc[rows(window.train_start, window.origin)],
-                            test=history.iloc[rows(window.test_start, window.test_end)]
-                            .sort_values([PERIOD, SERIES], kind="stable"),
-                            origin=origin))
-    return splits, horizon
-
-
-def sorted_by_month(history: pd.DataFrame) -> pd.DataFrame:
-    """Return the history in month order (file order within a month)."""
-    order = np.argsort(history[PERIOD].array.asi8, kind="stable")
-    if (order == np.arange(len(order))).all():
-        return history
-    return history.iloc[order].reset_index(drop=True)
-
-
-def _fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
-    validation = spec.validation
-    history = data.history.reset_index(drop=True)
-    if validation.method == "kfold":
-        if validation.folds > len(history):
-            raise spec.error(("validation", "folds"),
-                             f"{validation.folds} folds need at least as many rows; the history has "
-                             f"{len(history)}")
-        folds = KFold(n_splits=validation.folds, shuffle=True, random_state=validation.seed).split(history)
-    else:
-        groups = history[validation.group_by].astype(str).agg(" / ".join, axis=1)
-        if groups.nunique() < validation.folds:
-            raise spec.error(("validation", "folds"),
-                             f"{validation.folds} folds need as many groups; the columns "
-                             f"{', '.join(validation.group_by)} hold {groups.nunique()}")
-        folds = GroupKFold(n_splits=validation.folds).split(history, groups=groups)
-    return [Split(label=f"fold {k + 1}", train=history.iloc[train], test=history.iloc[test])
-            for k, (train, test) in enumerate(folds)]
 
 
 DENSE_GRID_CELLS = 50_000_000   # beyond this, MASE scales look months up by key, not by grid
@@ -342,10 +229,7 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
 
     Raises SpecError when the validation scheme does not fit the data.
     """
-    if spec.validation.method in ("holdout", "rolling_origin"):
-        splits, horizon = _time_splits(spec, data)
-    else:
-        splits, horizon = _fold_splits(spec, data), 0
+    splits, horizon = validation_splits(spec, data)
     plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))

@@ -24,9 +24,9 @@ from pipeline.features.plan import plan_features
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
-from pipeline.stages.ahead import needs_strategy, predict_ahead
 from pipeline.stages.backtest import BacktestResult
 from pipeline.stages.check import CheckedData
+from pipeline.stages.multistep import needs_strategy, predict_ahead
 
 
 @dataclass(frozen=True)

@@ -28,8 +28,9 @@ import pipeline
 import pipeline.stages.backtest as backtest_stage
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import SpecError
-from pipeline.models.regularised import PenalisedModel
-from pipeline.stages.backtest import rolling_origin_windows, run_backtest
+from pipeline.models.penalised import PenalisedModel
+from pipeline.stages.backtest import run_backtest
+from pipeline.stages.splits import rolling_origin_windows
 
 # ------------------------------------------------------------------ helpers
 

@@ -17,7 +17,7 @@ import statsmodels.api as sm
 
 import pipeline
 from pipeline.core.columns import PERIOD
-from pipeline.stages import ahead
+from pipeline.stages import multistep
 
 
 def _simulated(path, months=72, future=3, seed=5):
@@ -58,10 +58,10 @@ def _spec(tmp_path, strategy, lags="[1, 2]"):
 
 def test_spec_for_horizon_keeps_only_lags_known_at_the_origin(tmp_path):
     spec = _spec(tmp_path, "direct", "[1, 3, 12]")
-    assert ahead.target_lags_reach(spec) == 1
-    assert [lag.lags for lag in ahead.spec_for_horizon(spec, 3).drivers.lags] == [[3, 12]]
-    assert not ahead.spec_for_horizon(spec, 13).drivers.lags
-    assert ahead.needs_strategy(spec, 2) and not ahead.needs_strategy(spec, 1)
+    assert multistep.target_lags_reach(spec) == 1
+    assert [lag.lags for lag in multistep.spec_for_horizon(spec, 3).drivers.lags] == [[3, 12]]
+    assert not multistep.spec_for_horizon(spec, 13).drivers.lags
+    assert multistep.needs_strategy(spec, 2) and not multistep.needs_strategy(spec, 1)
 
 
 @pytest.mark.parametrize("strategy", ["direct", "recursive"])
@@ -71,10 +71,10 @@ def test_changing_actuals_after_the_origin_changes_no_prediction(tmp_path, strat
     splits = pipeline.runner.plan_splits(spec, data)[0]
     split = splits[0]
     choice = spec.model("ols")
-    first = ahead.predict_ahead(spec, choice, split.train, split.test, split.origin.ordinal)[0]
+    first = multistep.predict_ahead(spec, choice, split.train, split.test, split.origin.ordinal)[0]
     scrambled = split.test.copy()
     scrambled["y"] = scrambled["y"] * 10 + 1000
-    second = ahead.predict_ahead(spec, choice, split.train, scrambled, split.origin.ordinal)[0]
+    second = multistep.predict_ahead(spec, choice, split.train, scrambled, split.origin.ordinal)[0]
     np.testing.assert_array_equal(first, second)
 
 
@@ -82,7 +82,7 @@ def test_direct_strategy_equals_a_statsmodels_fit_per_horizon(tmp_path):
     spec = _spec(tmp_path, "direct")
     data = pipeline.check(spec)
     split = pipeline.runner.plan_splits(spec, data)[0][0]
-    got = ahead.predict_ahead(spec, spec.model("ols"), split.train, split.test, split.origin.ordinal)[0]
+    got = multistep.predict_ahead(spec, spec.model("ols"), split.train, split.test, split.origin.ordinal)[0]
     history = data.history.sort_values(PERIOD).reset_index(drop=True)
     origin = split.origin.ordinal
     months = history[PERIOD].array.asi8
@@ -105,7 +105,7 @@ def test_recursive_strategy_feeds_each_prediction_to_the_next_month(tmp_path):
     spec = _spec(tmp_path, "recursive")
     data = pipeline.check(spec)
     split = pipeline.runner.plan_splits(spec, data)[0][0]
-    got = ahead.predict_ahead(spec, spec.model("ols"), split.train, split.test, split.origin.ordinal)[0]
+    got = multistep.predict_ahead(spec, spec.model("ols"), split.train, split.test, split.origin.ordinal)[0]
     train = split.train.sort_values(PERIOD).copy()
     train["lag1"], train["lag2"] = train["y"].shift(1), train["y"].shift(2)
     train = train.dropna(subset=["lag1", "lag2"])

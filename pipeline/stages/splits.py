@@ -1,0 +1,140 @@
+"""Splits: the backtest's training windows and the rows each predicts.
+
+Time-ordered schemes (holdout, rolling origin) cut the sorted months at each
+origin; k-fold and grouped k-fold cut rows without a time order.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from sklearn.model_selection import GroupKFold, KFold
+
+from pipeline.core.columns import PERIOD, SERIES
+from pipeline.spec import Spec
+from pipeline.stages.check import CheckedData
+
+
+@dataclass(frozen=True)
+class OriginWindow:
+    """One origin of a time-ordered scheme, as positions in the sorted list of months."""
+
+    origin: int          # index of the origin month (the last month of training)
+    train_start: int     # index of the first training month
+    test_start: int      # index of the first predicted month
+    test_end: int        # index of the last predicted month
+
+
+@dataclass(frozen=True)
+class Split:
+    """One training window and the rows predicted from it."""
+
+    label: str                 # the origin month, or "fold k"
+    train: pd.DataFrame
+    test: pd.DataFrame
+    origin: pd.Period | None = None
+
+
+def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap: int = 0,
+                           step: int = 1, window: str = "expanding",
+                           origins: int | None = None) -> list[OriginWindow]:
+    """Return every origin that has min_train months before it and a full horizon after.
+
+    Origins are counted back from the latest possible one, ``step`` months apart,
+    so the newest data is always scored. Raises ValueError saying how many
+    origins the data allows when ``origins`` asks for more.
+    """
+    last = n_periods - 1 - gap - horizon
+    positions = list(range(last, min_train - 2, -step))[::-1]
+    if origins is not None:
+        if origins > len(positions):
+            raise ValueError(f"asks for {origins} origins but the history allows at most "
+                             f"{len(positions)}")
+        positions = positions[-origins:]
+    return [OriginWindow(origin=i,
+                         train_start=0 if window == "expanding" else i - min_train + 1,
+                         test_start=i + 1 + gap, test_end=i + gap + horizon)
+            for i in positions]
+
+
+def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
+    validation = spec.validation
+    months = np.sort(data.history[PERIOD].unique())
+    if validation.method == "holdout":
+        held_out = validation.last_periods
+        if held_out >= len(months):
+            raise spec.error(("validation", "last_periods"),
+                             f"holding out {held_out} months leaves nothing to fit on: the history "
+                             f"has {len(months)} months, so at most {len(months) - 1} can be held out")
+        windows = [OriginWindow(len(months) - held_out - 1, 0, len(months) - held_out, len(months) - 1)]
+        horizon = held_out
+    else:
+        needed = validation.min_train_periods + validation.gap + validation.horizon
+        try:
+            windows = rolling_origin_windows(
+                len(months), horizon=validation.horizon, min_train=validation.min_train_periods,
+                gap=validation.gap, step=validation.step, window=validation.window,
+                origins=validation.origins)
+        except ValueError as exc:
+            raise spec.error(("validation", "origins"), f"{exc} (history: {len(months)} months)") from None
+        if not windows:
+            raise spec.error(("validation", "min_train_periods"),
+                             f"the history has {len(months)} months; one origin needs "
+                             f"min_train_periods + gap + horizon = {needed}")
+        horizon = validation.gap + validation.horizon
+    splits = []
+    history = sorted_by_month(data.history)
+    ordinals = history[PERIOD].array.asi8
+
+    def rows(first: int, last: int) -> slice:
+        return slice(int(np.searchsorted(ordinals, months[first].ordinal, side="left")),
+                     int(np.searchsorted(ordinals, months[last].ordinal, side="right")))
+
+    for window in windows:
+        # Windows are slices of the month-sorted history: no copy of the training rows.
+        origin = months[window.origin]
+        splits.append(Split(label=str(origin), train=history.iloc[rows(window.train_start, window.origin)],
+                            test=history.iloc[rows(window.test_start, window.test_end)]
+                            .sort_values([PERIOD, SERIES], kind="stable"),
+                            origin=origin))
+    return splits, horizon
+
+
+def sorted_by_month(history: pd.DataFrame) -> pd.DataFrame:
+    """Return the history in month order (file order within a month)."""
+    order = np.argsort(history[PERIOD].array.asi8, kind="stable")
+    if (order == np.arange(len(order))).all():
+        return history
+    return history.iloc[order].reset_index(drop=True)
+
+
+def fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
+    validation = spec.validation
+    history = data.history.reset_index(drop=True)
+    if validation.method == "kfold":
+        if validation.folds > len(history):
+            raise spec.error(("validation", "folds"),
+                             f"{validation.folds} folds need at least as many rows; the history has "
+                             f"{len(history)}")
+        folds = KFold(n_splits=validation.folds, shuffle=True, random_state=validation.seed).split(history)
+    else:
+        groups = history[validation.group_by].astype(str).agg(" / ".join, axis=1)
+        if groups.nunique() < validation.folds:
+            raise spec.error(("validation", "folds"),
+                             f"{validation.folds} folds need as many groups; the columns "
+                             f"{', '.join(validation.group_by)} hold {groups.nunique()}")
+        folds = GroupKFold(n_splits=validation.folds).split(history, groups=groups)
+    return [Split(label=f"fold {k + 1}", train=history.iloc[train], test=history.iloc[test])
+            for k, (train, test) in enumerate(folds)]
+
+
+def validation_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
+    """Return the spec's validation splits and the longest horizon (0 without a time order).
+
+    Raises SpecError when the validation scheme does not fit the data.
+    """
+    if spec.validation.method in ("holdout", "rolling_origin"):
+        return time_splits(spec, data)
+    return fold_splits(spec, data), 0
