@@ -1,8 +1,7 @@
 """castline: a monthly forecast rerun from one YAML spec, checked against the mean baseline."""
 
-__version__ = "0.1.0"
-
-from pipeline.core.errors import DataError, SpecError, UserError  # noqa: E402
+from pipeline.core.errors import DataError, SpecError, UserError
+from pipeline.core.version import __version__
 
 _LAZY = {"RunResult": "runner", "check": "runner", "run": "runner", "Spec": "spec",
          "load_spec": "spec"}

@@ -13,8 +13,8 @@ import sys
 import traceback
 from pathlib import Path
 
-from pipeline import __version__
 from pipeline.core.errors import UserError
+from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
 
@@ -135,7 +135,7 @@ def _command_run(args) -> int:
 
 def _ledger_to_read(args) -> tuple[Path, str | None]:
     """Return the ledger file and the spec name (if any) a history command asks about."""
-    from pipeline.ledger import ledger_path
+    from pipeline.record.ledger import ledger_path
     from pipeline.spec import load_spec
     given = args.spec_or_name
     ledger_file = Path(args.ledger) if args.ledger else None
@@ -168,7 +168,9 @@ def _shown(table, columns: list[str]) -> list[dict]:
 
 
 def _command_history(args) -> int:
-    from pipeline import ledger
+    from pipeline.present.history_plot import plot_history
+    from pipeline.record import ledger
+    from pipeline.review import history
     path, name = _ledger_to_read(args)
     with ledger.reading(path) as conn:
         runs = ledger.visible_runs(conn)
@@ -177,8 +179,8 @@ def _command_history(args) -> int:
         if name is not None and name not in set(runs["spec_name"]):
             raise UserError(f"{path}: no runs of '{name}' (recorded: "
                             f"{', '.join(sorted(set(runs['spec_name'])))})")
-        metrics = ledger.metrics_history(conn, name)
-        realised = ledger.realised_history(conn, name)
+        metrics = history.metrics_history(conn, name)
+        realised = history.realised_history(conn, name)
     if args.model:
         if args.model not in set(metrics["model"]):
             raise UserError(f"--model: no runs with model '{args.model}' (models: "
@@ -189,7 +191,7 @@ def _command_history(args) -> int:
     if args.format == "csv":
         if show == "all":
             raise UserError("--format csv writes one table: add --show metrics or --show realised")
-        from pipeline.safe_csv import write_csv
+        from pipeline.record.safe_csv import write_csv
         write_csv(metrics if show == "metrics" else realised, sys.stdout)
     elif args.format == "json":
         document = {"ledger": str(path), "spec_name": name}
@@ -203,7 +205,7 @@ def _command_history(args) -> int:
     if args.plot:
         metric = "skill_vs_mean" if args.metric == "skill" else args.metric
         title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
-        ledger.plot_history(metrics, metric, Path(args.plot), title)
+        plot_history(metrics, metric, Path(args.plot), title)
         if args.format == "table":
             print(f"plot written to {args.plot}")
     return EXIT_OK
@@ -244,7 +246,8 @@ def _print_history(path: Path, name: str | None, metrics, realised, show: str) -
 
 
 def _command_compare(args) -> int:
-    from pipeline import ledger
+    from pipeline.record import ledger
+    from pipeline.review.compare import compare_runs
     references, beside = [], None
     for given in (args.first, args.second):
         folder = Path(given)
@@ -259,7 +262,7 @@ def _command_compare(args) -> int:
     if args.top < 1:
         raise UserError("--top: give 1 or more")
     with ledger.reading(path) as conn:
-        comparison = ledger.compare_runs(conn, references[0], references[1], path, top=args.top)
+        comparison = compare_runs(conn, references[0], references[1], path, top=args.top)
     if args.format == "json":
         print(json.dumps(comparison.as_dict(), indent=2, ensure_ascii=False))
     else:
@@ -313,7 +316,7 @@ def _print_comparison(comparison) -> None:
 
 
 def _write_problems(path: str, problems) -> None:
-    from pipeline.safe_csv import write_csv
+    from pipeline.record.safe_csv import write_csv
     from pipeline.stages.check import problems_table
     target = Path(path)
     try:
@@ -355,9 +358,9 @@ def _command_check(args) -> int:
 
 
 def _command_forecast(args) -> int:
+    from pipeline.record.model_file import load_model
     from pipeline.stages.ingest import read_table
     from pipeline.starter import guess_format
-    from pipeline.stored_model import load_model
     stored = load_model(args.model_file)
     data_path = Path(args.data_file)
     if not data_path.is_file():
@@ -365,7 +368,7 @@ def _command_forecast(args) -> int:
     frame = read_table(data_path, guess_format(data_path))
     table = stored.forecast(frame, args.model, file=str(data_path))
     if args.output:
-        from pipeline.safe_csv import write_csv
+        from pipeline.record.safe_csv import write_csv
         try:
             write_csv(table, args.output)
         except OSError as exc:
@@ -377,8 +380,10 @@ def _command_forecast(args) -> int:
 
 
 def _command_report(args) -> int:
-    from pipeline.report import build_report
-    print(f"report: {build_report(args.run_folder)}")
+    from pipeline.present.report import render_report
+    from pipeline.record.run_folder import write_page
+    folder = Path(args.run_folder)
+    print(f"report: {write_page(folder, 'report.html', render_report(folder))}")
     return EXIT_OK
 
 

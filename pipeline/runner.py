@@ -8,16 +8,17 @@ from pathlib import Path
 
 import pandas as pd
 
-from pipeline import ledger
 from pipeline.core import execution
 from pipeline.core.errors import DataError
+from pipeline.present.pages import page_renderer
+from pipeline.record.run_folder import RunFolder, publish
+from pipeline.review.track_record import TrackRecord, track_record
 from pipeline.spec import Spec, load_spec
 from pipeline.stages.backtest import BacktestResult, plan_splits, run_backtest
 from pipeline.stages.check import CheckedData, check_data
 from pipeline.stages.evaluate import Evaluation, evaluate
 from pipeline.stages.forecast import ForecastResult, make_forecast
 from pipeline.stages.ingest import read_input
-from pipeline.stages.publish import RunFolder, publish
 
 
 @dataclass(frozen=True)
@@ -30,7 +31,7 @@ class RunResult:
     evaluation: Evaluation
     forecast_result: ForecastResult
     folder: RunFolder
-    track: ledger.TrackRecord | None = None   # earlier runs' forecasts scored against this data
+    track: TrackRecord | None = None   # earlier runs' forecasts scored against this data
 
     @property
     def metrics(self) -> pd.DataFrame:
@@ -95,8 +96,10 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
         backtest = run_backtest(spec, data)
         evaluation = evaluate(spec, backtest)
         forecast = make_forecast(spec, data, backtest)
-    track = ledger.track_record(spec, data, evaluation, output_folder=output_folder)
+    track = track_record(spec, data, evaluation, output_folder=output_folder)
     folder = publish(spec, data, backtest, evaluation, forecast,
-                     output_folder=Path(output_folder) if output_folder else None, track=track)
+                     output_folder=Path(output_folder) if output_folder else None,
+                     realised=track.realised if track else None,
+                     pages=page_renderer(spec, evaluation, forecast, track))
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)

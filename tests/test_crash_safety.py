@@ -33,11 +33,11 @@ from test_ledger_safety import (
 )
 
 import pipeline
-from pipeline import ledger
+from pipeline.record import ledger
 
 # The child of test_ledger_safety.py, with more points to stop at.
 MORE_POINTS = r'''
-import pipeline.stages.publish as publish
+import pipeline.present.pages as pages
 if point == "ingest":           # reading the input file: nothing made yet
     runner.read_input = pause_first(runner.read_input)
 elif point == "checked":        # the data checked, no model fitted
@@ -45,7 +45,7 @@ elif point == "checked":        # the data checked, no model fitted
 elif point == "forecast":       # every model fitted, nothing written
     runner.make_forecast = then_pause(runner.make_forecast)
 elif point == "writing":        # the hidden run folder half written: CSVs, no report yet
-    publish.build_report = pause_first(publish.build_report)
+    pages.render_report = pause_first(pages.render_report)
 elif point == "renamed":        # the folder renamed into place, the ledger row not yet 'placed'
     ledger._place = then_pause(ledger._place)
 '''

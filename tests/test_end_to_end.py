@@ -26,7 +26,7 @@ import pytest
 import statsmodels.formula.api as smf
 
 import pipeline
-import pipeline.stages.publish as publish_stage
+import pipeline.present.pages as pages
 from pipeline import UserError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -344,7 +344,7 @@ def test_a_run_failing_on_the_summary_leaves_nothing(earlier_run, monkeypatch):
     def broken(*args, **kwargs):
         raise RuntimeError("summary failed")
 
-    monkeypatch.setattr(publish_stage, "render_summary", broken)
+    monkeypatch.setattr(pages, "render_summary", broken)
     with pytest.raises(RuntimeError):
         pipeline.run(DEMO_SPEC, output_folder=out)
     assert_only_the_earlier_run(out, folder, before)

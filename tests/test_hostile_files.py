@@ -17,7 +17,7 @@ import pytest
 import yaml
 
 from pipeline import cli
-from pipeline.safe_csv import neutralise, neutralised, write_csv
+from pipeline.record.safe_csv import neutralise, neutralised, write_csv
 
 CLEAN = Path(__file__).resolve().parent / "data" / "broken_inputs" / "clean.csv"
 FORMULA = '=HYPERLINK("http://example.invalid";"click")'
@@ -131,7 +131,7 @@ def test_a_run_folder_lands_directly_inside_the_output_folder(tmp_path, capsys):
 
 
 def test_a_run_id_that_would_escape_the_output_folder_is_refused(tmp_path, capsys, monkeypatch):
-    from pipeline.stages import publish
+    from pipeline.record import run_folder as publish
     spec = hostile_folder(tmp_path)
     monkeypatch.setattr(publish, "new_run_id", lambda now=None: "../escaped")
     assert cli.main(["run", str(spec)]) == 2

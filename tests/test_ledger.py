@@ -30,7 +30,9 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline import cli, ledger
+from pipeline import cli
+from pipeline.record import ledger
+from pipeline.review import history
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
@@ -410,4 +412,4 @@ def test_history_as_csv_and_a_plot(replay, capsys, tmp_path):
 
 
 def test_the_plot_metrics_offered_are_the_ones_history_gives():
-    assert cli.PLOT_METRICS == ledger.HISTORY_METRICS
+    assert cli.PLOT_METRICS == history.HISTORY_METRICS

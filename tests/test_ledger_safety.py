@@ -27,8 +27,9 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline import cli, ledger
+from pipeline import cli
 from pipeline.core.errors import SpecError
+from pipeline.record import ledger
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
@@ -39,7 +40,7 @@ CHILD_LIMIT = 300          # seconds a child may take to reach its point before 
 CHILD = r"""
 import sys, time
 from pathlib import Path
-import pipeline.ledger as ledger
+import pipeline.record.ledger.write as ledger
 import pipeline.runner as runner
 from pipeline.cli import main
 

@@ -22,7 +22,7 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline import ledger
+from pipeline.record import ledger
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"

@@ -29,7 +29,7 @@ import yaml
 
 import pipeline
 from pipeline import cli
-from pipeline.stored_model import ModelFileError, load_model
+from pipeline.record.model_file import ModelFileError, load_model
 
 HISTORY, FUTURE = 84, 6
 

@@ -24,7 +24,7 @@ from pipeline.features.plan import plan_features
 from pipeline.models import BASELINES, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
-from pipeline.stages.backtest import BacktestResult
+from pipeline.stages.backtest import BacktestResult, series_fallbacks
 from pipeline.stages.check import CheckedData
 from pipeline.stages.multistep import needs_strategy, predict_ahead
 
@@ -204,3 +204,17 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         warnings=warnings, residuals=residuals, plan=plan, fitted=fitted,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]))
+
+
+def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:
+    """Return the series a model per series forecast by their own mean, in the backtest
+    (windows too short for its terms) and in the final fit on all history."""
+    tested = series_fallbacks(backtest.fallbacks).assign(stage="backtest")
+    final = forecast.fallbacks
+    final = pd.DataFrame({"model": final.get("model", []), "series": final.get("series", []),
+                          "windows": 1, "first_window": "all history",
+                          "fewest_rows": final.get("rows", []), "terms": final.get("terms", []),
+                          "stage": "forecast"})
+    columns = ["stage", "model", "series", "windows", "first_window", "fewest_rows", "terms"]
+    frames = [frame[columns] for frame in (tested, final) if len(frame)]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)

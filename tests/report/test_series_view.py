@@ -24,7 +24,8 @@ import pytest
 import yaml
 
 import pipeline
-from pipeline.report import TABLE_ROWS, drivers_view, per_series_view, plots
+from pipeline.present import plots
+from pipeline.present.report import TABLE_ROWS, drivers_view, per_series_view
 
 ROOT = Path(__file__).resolve().parents[2]
 SHORT = "zz-late"

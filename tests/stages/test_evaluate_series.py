@@ -28,7 +28,7 @@ import scipy.stats
 from statsmodels.tsa.stattools import acovf
 
 from pipeline.core.significance import diebold_mariano_by_group
-from pipeline.safe_csv import write_csv
+from pipeline.record.safe_csv import write_csv
 from pipeline.stages.backtest import PREDICTION_COLUMNS, BacktestResult
 from pipeline.stages.evaluate import (
     METRIC_COLUMNS,

@@ -1,4 +1,4 @@
-"""Publish: write the run folder. The only stage that writes anything.
+"""The run folder: every file of a run, written by this module alone.
 
 Everything is written into a hidden temporary folder beside the final one and
 renamed into place at the end, so a failed or killed run leaves no visible
@@ -11,35 +11,27 @@ import json
 import math
 import secrets
 import shutil
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import yaml
 
-from pipeline import __version__, ledger
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.errors import UserError
-from pipeline.core.intervals import trusted_method
-from pipeline.report import (
-    CAUTIONS,
-    NAMES_SHOWN,
-    TABLE_ROWS,
-    build_report,
-    drivers_view,
-    named,
-    per_series_view,
-    render_markdown,
-)
-from pipeline.safe_csv import write_csv
+from pipeline.core.version import __version__
+from pipeline.record import ledger
+from pipeline.record.ledger import write as ledger_write
+from pipeline.record.model_file import model_document
+from pipeline.record.safe_csv import write_csv
 from pipeline.spec import Spec
-from pipeline.stages.backtest import BacktestResult, series_fallbacks
+from pipeline.spec.wording import describe_validation
+from pipeline.stages.backtest import BacktestResult
 from pipeline.stages.check import CheckedData
 from pipeline.stages.evaluate import Evaluation
-from pipeline.stages.forecast import ForecastResult
-from pipeline.stored_model import model_document
+from pipeline.stages.forecast import ForecastResult, fallback_table
 
 
 @dataclass(frozen=True)
@@ -104,91 +96,29 @@ def fingerprint(data: CheckedData) -> dict:
     }
 
 
-def describe_validation(spec: Spec) -> str:
-    """Return the validation scheme in words."""
-    v = spec.validation
-    if v.method == "holdout":
-        return f"holdout of the last {v.last_periods} months"
-    if v.method == "rolling_origin":
-        gap = f", a gap of {v.gap} months" if v.gap else ""
-        limit = f", the last {v.origins} origins" if v.origins else ""
-        return (f"rolling origin, {v.window} window of at least {v.min_train_periods} months, "
-                f"horizon {v.horizon}{gap}, every {v.step} month(s){limit}")
-    if v.method == "kfold":
-        return f"{v.folds}-fold cross-validation, shuffled with seed {v.seed}"
-    return f"{v.folds}-fold cross-validation grouped by {', '.join(v.group_by)}"
+# Renders the pages people read from a staged run folder's files:
+# (staging folder, run id, created, fingerprint, fallback table) -> {file name: text}.
+PageRenderer = Callable[[Path, str, str, dict, pd.DataFrame], dict[str, str]]
 
 
-def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
-                   evaluation: Evaluation, forecast: ForecastResult,
-                   fallbacks: pd.DataFrame | None = None) -> str:
-    """Return the run's summary in Markdown (from its template): the answer first, the evidence after."""
-    def some(frame: pd.DataFrame) -> pd.DataFrame | None:
-        return frame if len(frame) else None
-
-    comparison = evaluation.table[["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2",
-                                   "bias", "skill_vs_mean", "against_mean"]]
-    recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
-    method = shown = None
-    if len(recommended):
-        method = trusted_method(evaluation.coverage, evaluation.recommended, recommended)
-        shown = recommended[["period", "series", "forecast"]].copy()
-        for level in ("80", "95"):
-            shown[f"{level}% from"] = recommended[f"{method}_low_{level}"].to_numpy()
-            shown[f"{level}% to"] = recommended[f"{method}_high_{level}"].to_numpy()
-    scenarios = None
-    if len(forecast.scenarios):
-        scenarios = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended].drop(columns=["model"])
-    series_count = len(data_print.get("series", []))
-    drivers = drivers_view(forecast.coefficients, evaluation.recommended, series_count)
-    terms = drivers["terms"]
-    standard_errors = terms["standard_errors"].iloc[0] \
-        if terms is not None and len(terms) and "standard_errors" in terms else None
-    per_series = per_series_view(
-        evaluation.by_series, _records(evaluation.series_summary), fallbacks,
-        rows=_records(evaluation.table), recommended=evaluation.recommended,
-        select_by=evaluation.select_by, level=spec.significance_level, series_count=series_count)
-    diagnostics = None
-    if len(forecast.diagnostics):
-        diagnostics = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
-        diagnostics["flagged"] = np.where(diagnostics["flagged"], "FLAG", "")
-    return render_markdown(
-        "summary.md.j2", spec_name=spec.name, run_id=run_id, created=created,
-        verdict=evaluation.verdict, recommended=evaluation.recommended,
-        select_by=evaluation.select_by, beats=evaluation.beats_baseline,
-        validation=describe_validation(spec), comparison=comparison,
-        forecast=shown.head(TABLE_ROWS) if shown is not None else None,
-        forecast_rows=len(shown) if shown is not None else 0, method=method,
-        coverage=some(evaluation.coverage),
-        scenarios=scenarios.head(TABLE_ROWS) if scenarios is not None else None,
-        scenario_rows=len(scenarios) if scenarios is not None else 0,
-        drivers=drivers, terms=terms if terms is not None and len(terms) else None,
-        terms_model=drivers["model"] or "", standard_errors=standard_errors,
-        per_series=per_series, series_names=named(data_print.get("series", [])),
-        names_shown=NAMES_SHOWN,
-        fit=some(forecast.fit_summary), diagnostics=diagnostics, influential=some(forecast.influential),
-        notes=forecast.warnings + evaluation.notes, data=data_print, cautions=CAUTIONS,
-        castline_version=__version__)
-
-
-def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:
-    """Return the series a model per series forecast by their own mean, in the backtest
-    (windows too short for its terms) and in the final fit on all history."""
-    tested = series_fallbacks(backtest.fallbacks).assign(stage="backtest")
-    final = forecast.fallbacks
-    final = pd.DataFrame({"model": final.get("model", []), "series": final.get("series", []),
-                          "windows": 1, "first_window": "all history",
-                          "fewest_rows": final.get("rows", []), "terms": final.get("terms", []),
-                          "stage": "forecast"})
-    columns = ["stage", "model", "series", "windows", "first_window", "fewest_rows", "terms"]
-    frames = [frame[columns] for frame in (tested, final) if len(frame)]
-    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
+def write_page(folder: Path, name: str, text: str) -> Path:
+    """Write a page (report.html, summary.md) into a run folder atomically; return its path."""
+    target = Path(folder) / name
+    partial = Path(folder) / f".{name}.partial"
+    partial.write_text(text, encoding="utf-8")
+    partial.replace(target)
+    return target
 
 
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
-            track: ledger.TrackRecord | None = None) -> RunFolder:
-    """Write the run folder atomically, record it in the run ledger, and return where it landed."""
+            realised: pd.DataFrame | None = None, pages: PageRenderer) -> RunFolder:
+    """Write the run folder atomically, record it in the run ledger, and return where it landed.
+
+    ``realised`` is the track record's table (earlier forecasts scored against this data);
+    ``pages`` renders the pages read by people (summary.md, report.html) from the files
+    already written: castline's presentation layer, handed in by the runner.
+    """
     folder = Path(output_folder) if output_folder else spec.output.folder
     try:
         folder.mkdir(parents=True, exist_ok=True)
@@ -251,16 +181,15 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         fallbacks = fallback_table(backtest, forecast)
         write_csv(fallbacks, staging / "series_fallbacks.csv")
         write_csv(evaluation.by_series, staging / "series.csv")
-        if track is not None:
-            write_csv(track.realised, staging / "realised.csv")
-        (staging / "summary.md").write_text(ledger.with_track_record(
-            render_summary(spec, run_id, created, data_print, evaluation, forecast, fallbacks), track),
-            encoding="utf-8")
-        build_report(staging)
+        if realised is not None:
+            write_csv(realised, staging / "realised.csv")
+        for name, text in pages(staging, run_id, created, data_print, fallbacks).items():
+            write_page(staging, name, text)
         final = folder / run_id
-        ledger.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,
+        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,
                                 created=now, spec=spec, resolved=resolved, data=data,
-                                evaluation=evaluation, forecast=forecast, track=track)
+                                evaluation=evaluation, forecast=forecast,
+                                realised=realised)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise

@@ -18,9 +18,9 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from pipeline import __version__
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError, UserError
+from pipeline.core.version import __version__
 from pipeline.features import calendar, categorical, interactions, lags, numeric, series
 from pipeline.features import plan as plan_module
 from pipeline.features.target import TargetTransform

@@ -22,7 +22,7 @@ import pandas as pd
 
 from pipeline.core.errors import UserError
 from pipeline.core.intervals import trusted_method
-from pipeline.report import plots
+from pipeline.present import plots
 
 CAUTIONS = [
     "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
@@ -70,7 +70,7 @@ def format_number(value) -> str:
 
 def _environment() -> jinja2.Environment:
     environment = jinja2.Environment(
-        loader=jinja2.PackageLoader("pipeline.report", "templates"),
+        loader=jinja2.PackageLoader("pipeline.present", "templates"),
         autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
         undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     environment.filters["num"] = format_number
@@ -90,7 +90,7 @@ def markdown_table(frame: pd.DataFrame) -> str:
 
 def render_markdown(template: str, **context) -> str:
     """Return a Markdown template rendered (Markdown is not HTML: tables escape their pipes)."""
-    environment = jinja2.Environment(loader=jinja2.PackageLoader("pipeline.report", "templates"),
+    environment = jinja2.Environment(loader=jinja2.PackageLoader("pipeline.present", "templates"),
                                      autoescape=False, undefined=jinja2.StrictUndefined,
                                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
     environment.filters["table"] = markdown_table
@@ -357,14 +357,3 @@ def render_report(folder: Path) -> str:
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
         spec_text=(folder / "spec.yaml").read_text(encoding="utf-8"), cautions=CAUTIONS)
-
-
-def build_report(folder: str | Path) -> Path:
-    """Write report.html into a run folder from its files alone and return its path."""
-    folder = Path(folder)
-    html = render_report(folder)
-    target = folder / "report.html"
-    partial = folder / ".report.html.partial"
-    partial.write_text(html, encoding="utf-8")
-    partial.replace(target)
-    return target

@@ -1,0 +1,62 @@
+"""The summary's Track record section, in Markdown."""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+
+from pipeline.review.track_record import TrackRecord
+
+
+def _markdown(frame: pd.DataFrame) -> str:
+    def cell(value) -> str:
+        if isinstance(value, float):
+            return "n/a" if not math.isfinite(value) else f"{value:.4g}"
+        return str(value)
+    lines = ["| " + " | ".join(frame.columns) + " |", "|" + "|".join(" --- " for _ in frame.columns) + "|"]
+    lines += ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
+    return "\n".join(lines)
+
+
+def track_record_section(track: TrackRecord, runs_shown: int = 12) -> str:
+    """Return the summary's track-record section in Markdown."""
+    lines = ["## Track record", ""]
+    lines += [f"- **Warning:** {w}" for w in track.warnings]
+    if track.warnings:
+        lines.append("")
+    if not track.earlier_runs:
+        lines += [f"This is the first run of this spec in the ledger `{track.ledger}`; later runs "
+                  "score its forecasts as their months' actuals arrive.", ""]
+        return "\n".join(lines)
+    lines += [f"{track.earlier_runs} earlier run(s) of this spec are in the ledger `{track.ledger}`."]
+    table = track.by_horizon
+    table = table[[track.recommended.get(r) == m for r, m in zip(table["forecast_run_id"], table["model"])]]
+    if not len(table):
+        lines += ["None of their forecasts has an actual in this run's data yet.", ""]
+        return "\n".join(lines)
+    runs = list(dict.fromkeys(table["forecast_run_id"]))[-runs_shown:]
+    shown = table[table["forecast_run_id"].isin(runs)]
+    shown = pd.DataFrame({
+        "run": shown["forecast_run_id"], "model": shown["model"], "months ahead": shown["horizon"],
+        "forecasts": shown["n"], "realised MAE": shown["realised_mae"],
+        "expected MAE": shown["expected_mae"], "realised bias": shown["realised_bias"],
+        "inside 80%": shown["inside_80"], "inside 95%": shown["inside_95"]})
+    lines += ["", "How their forecasts turned out now that the months have actuals (each run's "
+              "recommended model; expected MAE is that run's backtest MAE at the same months "
+              "ahead; bias is forecast − actual; inside is the share of actuals within the "
+              "interval the run stated). Every scored forecast is in realised.csv.", "",
+              _markdown(shown), ""]
+    return "\n".join(lines)
+
+
+def with_track_record(summary: str, track: TrackRecord | None) -> str:
+    """Return the summary with the track-record section put before its data section."""
+    if track is None:
+        return summary
+    section = track_record_section(track) + "\n"
+    for heading in ("\n## Data\n", "\n## Cautions\n"):
+        if heading in summary:
+            at = summary.index(heading) + 1
+            return summary[:at] + section + summary[at:]
+    return summary.rstrip("\n") + "\n\n" + section

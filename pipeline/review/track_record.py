@@ -1,0 +1,216 @@
+"""The track record: earlier forecasts scored against the actuals that came later.
+
+Read before a run is published; nothing here writes."""
+
+from __future__ import annotations
+
+import sqlite3
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from pipeline.core.columns import PERIOD, SERIES
+from pipeline.record.ledger.read import latest_realised, rows_of, visible_runs
+from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading
+from pipeline.spec import Spec
+from pipeline.stages.check import CheckedData
+
+
+@dataclass(frozen=True)
+class TrackRecord:
+    """How the forecasts of earlier runs of a spec turned out against this run's actuals,
+    and the warnings that follow; read from the ledger before the run is published."""
+
+    ledger: Path
+    realised: pd.DataFrame          # one row per earlier forecast whose month now has an actual
+    by_horizon: pd.DataFrame        # per earlier run, model and months ahead
+    earlier_runs: int
+    recommended: dict[str, str] = field(default_factory=dict)   # earlier run → its recommended model
+    warnings: list[str] = field(default_factory=list)
+    runs_without_skill: int = 0     # runs in a row, this one included, not beating the baseline
+
+
+def _empty_realised() -> pd.DataFrame:
+    return pd.DataFrame(columns=REALISED_COLUMNS)
+
+
+def score_forecasts(forecasts: pd.DataFrame, actuals: pd.DataFrame,
+                    expected: pd.DataFrame) -> pd.DataFrame:
+    """Return each forecast that has an actual, scored: error (forecast − actual), whether
+    the actual fell inside the stated 80% and 95% intervals and inside the backtest's 95%
+    range of errors at that horizon, and the MAE the backtest led the user to expect.
+
+    ``forecasts`` has the ledger's forecast columns and forecast_created; ``actuals`` has
+    period, series and actual; ``expected`` has run_id, model, horizon and expected_mae
+    (horizon NaN for a model's overall MAE, used where its horizon was not measured).
+    """
+    if not len(forecasts):
+        return _empty_realised().drop(columns=["recorded"])
+    scored = forecasts.merge(actuals, on=["period", "series"], how="inner")
+    if not len(scored):
+        return _empty_realised().drop(columns=["recorded"])
+    scored["error"] = scored["forecast"] - scored["actual"]
+    stated = scored["interval_method"].astype(object).where(scored["interval_method"].notna(), None)
+    fallback = np.where(scored["empirical_low_95"].notna(), "empirical", "analytic")
+    scored["interval_method"] = [s if s else f for s, f in zip(stated, fallback)]
+    empirical = scored["interval_method"].to_numpy() == "empirical"
+    for level in ("80", "95"):
+        for side in ("low", "high"):
+            scored[f"{side}_{level}"] = np.where(empirical, scored[f"empirical_{side}_{level}"],
+                                                 scored[f"analytic_{side}_{level}"]).astype(float)
+        low, high = scored[f"low_{level}"], scored[f"high_{level}"]
+        inside = (scored["actual"] >= low) & (scored["actual"] <= high)
+        scored[f"inside_{level}"] = inside.astype(object).where(low.notna() & high.notna(), None)
+    # The backtest's 95% range of errors at the horizon: the empirical interval's offsets
+    # (built from the backtest's own errors), else the stated 95% interval's.
+    use_empirical = scored["empirical_low_95"].notna()
+    high_bound = scored["empirical_high_95"].where(use_empirical, scored["high_95"])
+    low_bound = scored["empirical_low_95"].where(use_empirical, scored["low_95"])
+    scored["backtest_low_95"] = scored["forecast"] - high_bound
+    scored["backtest_high_95"] = scored["forecast"] - low_bound
+    within = (scored["error"] >= scored["backtest_low_95"]) & (scored["error"] <= scored["backtest_high_95"])
+    scored["within_backtest_95"] = within.astype(object).where(scored["backtest_low_95"].notna(), None)
+    at_horizon = expected[expected["horizon"].notna()].astype({"horizon": int})
+    overall = expected[expected["horizon"].isna()].drop(columns=["horizon"])
+    scored = scored.merge(at_horizon, left_on=["forecast_run_id", "model", "horizon"],
+                          right_on=["run_id", "model", "horizon"], how="left").drop(columns=["run_id"])
+    scored = scored.merge(overall.rename(columns={"expected_mae": "_overall"}),
+                          left_on=["forecast_run_id", "model"], right_on=["run_id", "model"],
+                          how="left").drop(columns=["run_id"])
+    scored["expected_mae"] = scored["expected_mae"].fillna(scored["_overall"])
+    columns = [c for c in REALISED_COLUMNS if c != "recorded"]
+    return scored[columns].sort_values(["forecast_created", "model", "period", "series"],
+                                       kind="stable").reset_index(drop=True)
+
+
+def summarise_realised(realised: pd.DataFrame) -> pd.DataFrame:
+    """Return, per forecast run, model and months ahead: how many forecasts have actuals,
+    their MAE and bias against the MAE the backtest expected, and how often the actual
+    fell inside the stated 80% and 95% intervals and the backtest's 95% range."""
+    columns = ["forecast_run_id", "forecast_created", "model", "horizon", "n", "realised_mae",
+               "expected_mae", "realised_bias", "inside_80", "inside_95", "within_backtest_95"]
+    if not len(realised):
+        return pd.DataFrame(columns=columns)
+    def share(values: pd.Series) -> float:
+        known = values.dropna()
+        return float(known.astype(bool).mean()) if len(known) else float("nan")
+
+    rows = []
+    for (run_id, created, model, horizon), group in realised.groupby(
+            ["forecast_run_id", "forecast_created", "model", "horizon"], sort=False):
+        errors = group["error"].astype(float)
+        expected = group["expected_mae"].astype(float).dropna()
+        rows.append({"forecast_run_id": run_id, "forecast_created": created, "model": model,
+                     "horizon": int(horizon), "n": len(group),
+                     "realised_mae": float(errors.abs().mean()),
+                     "expected_mae": float(expected.iloc[0]) if len(expected) else float("nan"),
+                     "realised_bias": float(errors.mean()),
+                     "inside_80": share(group["inside_80"]), "inside_95": share(group["inside_95"]),
+                     "within_backtest_95": share(group["within_backtest_95"])})
+    return pd.DataFrame(rows, columns=columns).sort_values(
+        ["forecast_created", "forecast_run_id", "model", "horizon"], kind="stable").reset_index(drop=True)
+
+
+def _expected_errors(conn: sqlite3.Connection, run_ids) -> pd.DataFrame:
+    """Return the backtest MAE per run, model and horizon, and overall (horizon NaN)."""
+    horizons = rows_of(conn, "horizon_metrics", run_ids)[["run_id", "model", "horizon", "mae"]]
+    overall = rows_of(conn, "model_metrics", run_ids)[["run_id", "model", "mae"]].assign(horizon=np.nan)
+    frame = pd.concat([horizons.astype({"horizon": float}), overall], ignore_index=True)
+    return frame.rename(columns={"mae": "expected_mae"})
+
+
+def _earlier_forecasts(conn: sqlite3.Connection, runs: pd.DataFrame, through: str) -> pd.DataFrame:
+    """Return the forecasts the runs made for months up to `through`, with each run's time."""
+    forecasts = rows_of(conn, "forecasts", runs["run_id"], " AND period <= ?", (through,))
+    created = dict(zip(runs["run_id"], runs["created"]))
+    return forecasts.rename(columns={"run_id": "forecast_run_id"}).assign(
+        forecast_created=lambda t: t["forecast_run_id"].map(created))
+
+
+def _actuals(spec: Spec, data: CheckedData) -> pd.DataFrame:
+    return pd.DataFrame({"period": data.history[PERIOD].astype(str).to_numpy(),
+                         "series": data.history[SERIES].astype(str).to_numpy(),
+                         "actual": data.history[spec.target].to_numpy(float)})
+
+
+def _signed(value: float) -> str:
+    return f"{value:+,.4g}"
+
+
+def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
+    """Return a warning when forecasts of the latest run that has actuals now, from the model it
+    recommended, missed by more than the backtest's 95% range of errors."""
+    if not len(realised):
+        return None
+    latest = realised.sort_values(["forecast_created", "forecast_run_id"]).iloc[-1]["forecast_run_id"]
+    recommended = runs.set_index("run_id")["recommended"].get(latest)
+    rows = realised[(realised["forecast_run_id"] == latest) & (realised["model"] == recommended)]
+    judged = rows[rows["within_backtest_95"].notna()]
+    outside = judged[~judged["within_backtest_95"].astype(bool)]
+    if not len(outside):
+        return None
+    shown = "; ".join(f"{r.period} {r.series} ({r.horizon} month(s) ahead): error {_signed(r.error)} "
+                      f"outside {_signed(r.backtest_low_95)} to {_signed(r.backtest_high_95)}"
+                      for r in outside.head(3).itertuples())
+    more = f"; and {len(outside) - 3} more" if len(outside) > 3 else ""
+    return (f"realised accuracy: {len(outside)} of {len(judged)} forecasts from {latest} "
+            f"({recommended}, the model it recommended) missed by more than the backtest's 95% "
+            f"range of errors (about 1 in 20 would by chance; error = forecast − actual): "
+            f"{shown}{more}. The model may be getting worse, or the months just past were unusual.")
+
+
+def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str | None, int]:
+    """Return a warning when the recommended model has not beaten the mean baseline in the last
+    N runs (this one included), and how many runs in a row it has not."""
+    record = [bool(b) for b in runs["beats_baseline"]] + [bool(beats_now)]
+    streak = 0
+    for beat in reversed(record):
+        if beat:
+            break
+        streak += 1
+    wanted = spec.output.warn_after_runs_without_skill
+    if streak < wanted:
+        return None, streak
+    since = runs["created"].iloc[len(runs) - wanted + 1][:10] if wanted > 1 else "this run"
+    return (f"the recommended model has not beaten the mean baseline in the last {wanted} run(s) "
+            f"(since {since}; {streak} in a row): the plain average forecasts as well; review the "
+            f"drivers (output.warn_after_runs_without_skill: {wanted})"), streak
+
+
+def track_record(spec: Spec, data: CheckedData, evaluation, *,
+                 output_folder: str | Path | None = None) -> TrackRecord:
+    """Return how earlier runs' forecasts turned out against this run's actuals, and the
+    warnings for this run; reads the ledger (never writes it).
+
+    A damaged ledger stops the run here, before anything is written.
+    """
+    path = ledger_path(spec, output_folder)
+    if not path.exists() or (path.is_file() and path.stat().st_size == 0):
+        runs = pd.DataFrame(columns=["run_id", "created", "recommended", "beats_baseline"])
+        realised, latest = _empty_realised(), pd.DataFrame()
+    else:
+        with reading(path) as conn:
+            runs = visible_runs(conn, spec.name)
+            forecasts = _earlier_forecasts(conn, runs, str(data.last_period))
+            expected = _expected_errors(conn, runs["run_id"])
+            latest = latest_realised(conn, runs)
+        realised = score_forecasts(forecasts, _actuals(spec, data), expected)
+    if len(realised) and len(latest):
+        # Record a score when it is new, or when the actual was revised since it was recorded.
+        key = ["forecast_run_id", "model", "period", "series"]
+        before = realised.merge(latest[key + ["actual"]].rename(columns={"actual": "_before"}),
+                                on=key, how="left")["_before"].astype(float).to_numpy()
+        realised["recorded"] = np.isnan(before) | (before != realised["actual"].to_numpy(float))
+    elif len(realised):
+        realised["recorded"] = True
+    else:
+        realised = _empty_realised()
+    warnings = [w for w in [_realised_warning(realised, runs)] if w]
+    skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
+    if skill:
+        warnings.append(skill)
+    return TrackRecord(ledger=path, realised=realised, by_horizon=summarise_realised(realised),
+                       earlier_runs=len(runs), recommended=dict(zip(runs["run_id"], runs["recommended"])),
+                       warnings=warnings, runs_without_skill=streak)
