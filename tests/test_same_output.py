@@ -29,7 +29,8 @@ import pandas as pd
 import pytest
 import yaml
 
-STORED = Path(__file__).resolve().parent / "data" / "same_output"
+ROOT = Path(__file__).resolve().parents[1]
+STORED = ROOT / "tests" / "data" / "same_output"
 REWRITE = os.environ.get("CASTLINE_WRITE_SAME_OUTPUT") == "1"
 SPECS = ["demo", "wide"]
 
@@ -41,7 +42,7 @@ MASKS = [
 
 
 def _masked(text: str, folder: Path) -> str:
-    text = text.replace(str(folder), "TMP")
+    text = text.replace(str(folder), "TMP").replace(str(ROOT), "REPO")
     for pattern, replacement in MASKS:
         text = pattern.sub(replacement, text)
     return text
