@@ -360,7 +360,7 @@ def _command_check(args) -> int:
 def _command_forecast(args) -> int:
     from pipeline.record.model_file import load_model
     from pipeline.stages.ingest import read_table
-    from pipeline.starter import guess_format
+    from pipeline.stages.survey import guess_format
     stored = load_model(args.model_file)
     data_path = Path(args.data_file)
     if not data_path.is_file():
@@ -388,20 +388,20 @@ def _command_report(args) -> int:
 
 
 def _command_init(args) -> int:
+    from pipeline.runner import init
     from pipeline.spec import CsvOptions
-    from pipeline.starter import write_starter_spec
     given = args.delimiter or args.decimal != "." or args.thousands or args.encoding != "utf-8"
     try:
         csv = None
         if given:
-            from pipeline.starter import sniff_delimiter
+            from pipeline.stages.survey import sniff_delimiter
             delimiter = args.delimiter or sniff_delimiter(Path(args.data_file))
             csv = CsvOptions(delimiter=delimiter, decimal=args.decimal, thousands=args.thousands,
                              encoding=args.encoding)
     except ValueError as exc:
         raise UserError(f"the CSV options are inconsistent: {exc.errors()[0]['msg']}") from None
     sheet = int(args.sheet) if str(args.sheet).isdigit() else args.sheet
-    path, found = write_starter_spec(args.data_file, args.spec_file, csv=csv, sheet=sheet)
+    path, found = init(args.data_file, args.spec_file, csv=csv, sheet=sheet)
     print(f"wrote {path}: date column '{found.date_column}' ({found.frequency}ly, "
           f"{found.periods} months), target '{found.target}', "
           f"series key {found.series or 'none'}")

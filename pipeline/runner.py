@@ -9,16 +9,19 @@ from pathlib import Path
 import pandas as pd
 
 from pipeline.core import execution
-from pipeline.core.errors import DataError
+from pipeline.core.errors import DataError, UserError
 from pipeline.present.pages import page_renderer
+from pipeline.present.starter_spec import render_spec
+from pipeline.record.new_file import write_new_file
 from pipeline.record.run_folder import RunFolder, publish
 from pipeline.review.track_record import TrackRecord, track_record
-from pipeline.spec import Spec, load_spec
+from pipeline.spec import CsvOptions, Spec, load_spec
 from pipeline.stages.backtest import BacktestResult, plan_splits, run_backtest
 from pipeline.stages.check import CheckedData, check_data
 from pipeline.stages.evaluate import Evaluation, evaluate
 from pipeline.stages.forecast import ForecastResult, make_forecast
 from pipeline.stages.ingest import read_input
+from pipeline.stages.survey import Inference, infer
 
 
 @dataclass(frozen=True)
@@ -103,3 +106,25 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
                      pages=page_renderer(spec, evaluation, forecast, track))
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)
+
+
+def init(data_file: str | Path, spec_file: str | Path | None = None, *,
+         csv: CsvOptions | None = None, sheet: str | int = 0) -> tuple[Path, Inference]:
+    """Write a starter spec for a data file and return its path and the survey; never overwrites.
+
+    Raises DataError when the data file is missing or unreadable, UserError when the spec
+    file exists already or cannot be written.
+    """
+    data_path = Path(data_file)
+    if not data_path.exists():
+        raise DataError("no such data file", file=str(data_path))
+    if data_path.is_dir():
+        raise DataError("is a folder, not a data file", file=str(data_path))
+    target = Path(spec_file) if spec_file else Path(f"{data_path.stem}.spec.yaml")
+    refusal = "already exists; castline init never overwrites a file"
+    if target.exists():
+        raise UserError(f"{target}: {refusal} (choose another name with --spec-file)")
+    found = infer(data_path, csv=csv, sheet=sheet)
+    write_new_file(target, render_spec(found, target), what="spec", refusal=refusal,
+                   hint=" (choose another name with --spec-file)")
+    return target, found

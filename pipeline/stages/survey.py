@@ -1,28 +1,27 @@
-"""A starter spec from a data file: infer what the spec would say, write it commented.
+"""Survey a data file for a starter spec: column types, the date column and its
+frequency, the likely series key and target candidates.
 
-Used by ``castline init DATA_FILE``. The inference is a first draft for a
-person to edit: column types, the date column and its frequency, the likely
-series key and target candidates.
-"""
+Used by ``castline init DATA_FILE``. The survey is a first draft for a person to
+edit, not a checked spec."""
 
 from __future__ import annotations
 
 import csv as csv_module
-import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import yaml
 
-from pipeline.core.errors import DataError, UserError
+from pipeline.core.errors import DataError
 from pipeline.spec import CsvOptions
 from pipeline.stages.ingest import read_table
 
 _DATE_NAMES = ("month", "date", "period", "time", "day", "week")
-_MAX_LEVELS = 30
+
+
+MAX_LEVELS = 30
 
 
 @dataclass
@@ -88,7 +87,7 @@ def _column_type(values: pd.Series) -> str:
     if len(present) and numbers.notna().all():
         return "whole_number" if bool(np.all(numbers == np.round(numbers))) else "number"
     distinct = present.nunique()
-    return "category" if distinct <= max(_MAX_LEVELS, 0.05 * len(present)) else "text"
+    return "category" if distinct <= max(MAX_LEVELS, 0.05 * len(present)) else "text"
 
 
 def _frequency(dates: pd.Series) -> str:
@@ -182,102 +181,3 @@ def _series_key(frame: pd.DataFrame, months: pd.Series, categories: list[str]) -
                 if not identity.duplicated().any():
                     return columns
     return []
-
-
-def _yaml_value(value) -> str:
-    return yaml.safe_dump(value, default_flow_style=True, allow_unicode=True).strip().removesuffix("...").strip()
-
-
-def _gaps_line(found: Inference) -> str:
-    if found.history_gaps:
-        return (f"  gaps: fill              # {found.history_gaps} month(s) inside the history lack "
-                "the target or a row: filled by interpolation (refuse | allow | fill)")
-    return "  gaps: refuse            # months missing inside a series: refuse | allow | fill"
-
-
-def render_spec(found: Inference, spec_path: Path) -> str:
-    """Return a commented starter spec for the inferred data."""
-    data_file = os.path.relpath(found.path.resolve(), spec_path.resolve().parent)
-    name = re.sub(r"[^A-Za-z0-9_.-]+", "-", found.path.stem).strip("-.") or "forecast"
-    periods = found.periods
-    holdout = min(12, max(1, periods // 5))
-    lines = [
-        f"# Starter spec written by 'castline init' from {found.path.name}",
-        f"# ({found.rows} rows, {periods} months). Everything below is a guess to check and edit.",
-        "",
-        f"name: {_yaml_value(name)}",
-        "",
-        "input:",
-        f"  file: {_yaml_value(data_file)}",
-    ]
-    if found.file_format == "csv" and found.csv != CsvOptions():
-        lines.append("  csv:")
-        for key, value in found.csv.model_dump().items():
-            if value != getattr(CsvOptions(), key):
-                lines.append(f"    {key}: {_yaml_value(value)}")
-    lines += [
-        f"  date_column: {_yaml_value(found.date_column)}",
-        f"  period: month{'' if found.frequency == 'month' else '   # the dates look ' + found.frequency + 'ly: aggregate to months first'}",
-        f"  series: {_yaml_value(found.series)}" + ("   # columns that, with the month, identify a row"
-                                                  if found.series else "   # one series: no key needed"),
-        _gaps_line(found),
-        "",
-        f"# Other candidates for the target: {', '.join(found.target_candidates[1:]) or 'none'}",
-        f"target: {_yaml_value(found.target)}",
-        "",
-        "drivers:",
-        "  numeric:" + ("" if found.numeric_drivers else " []"),
-        *[f"    - {_yaml_value(c)}" for c in found.numeric_drivers],
-        "  categorical:" + ("" if found.categorical_drivers or found.series else " []"),
-        *[f"    - column: {_yaml_value(c)}\n      encoding: one_hot" for c in found.categorical_drivers + found.series],
-        "",
-        "# What each column must hold; a run stops when the data breaks a rule.",
-        "columns:",
-    ]
-    for column, kind in found.types.items():
-        rule = {"type": kind}
-        if found.missing[column] and column not in (found.date_column,):
-            rule["missing_allowed"] = True
-        if kind == "category" and len(found.levels.get(column, [])) <= _MAX_LEVELS:
-            rule["allowed"] = found.levels[column]
-        if column in found.numeric_drivers or column in found.categorical_drivers + found.series:
-            rule.pop("missing_allowed", None)
-        lines.append(f"  {_yaml_value(column)}: {_yaml_value(rule)}")
-    lines += [
-        "",
-        f"# Test out of sample on the last {holdout} months of history.",
-        "validation:",
-        "  method: holdout",
-        f"  last_periods: {holdout}",
-        "",
-        "models: [ols]               # the mean baseline is always fitted beside them",
-        "",
-        "output:",
-        "  folder: reports",
-        "",
-    ]
-    return "\n".join(lines)
-
-
-def write_starter_spec(data_file: str | Path, spec_file: str | Path | None = None, *,
-                       csv: CsvOptions | None = None, sheet: str | int = 0) -> tuple[Path, Inference]:
-    """Write a starter spec for a data file and return its path; never overwrites."""
-    data_path = Path(data_file)
-    if not data_path.exists():
-        raise DataError("no such data file", file=str(data_path))
-    if data_path.is_dir():
-        raise DataError("is a folder, not a data file", file=str(data_path))
-    target = Path(spec_file) if spec_file else Path(f"{data_path.stem}.spec.yaml")
-    if target.exists():
-        raise UserError(f"{target}: already exists; castline init never overwrites a file "
-                        "(choose another name with --spec-file)")
-    found = infer(data_path, csv=csv, sheet=sheet)
-    text = render_spec(found, target)
-    try:
-        with target.open("x", encoding="utf-8") as handle:
-            handle.write(text)
-    except FileExistsError:
-        raise UserError(f"{target}: already exists; castline init never overwrites a file") from None
-    except OSError as exc:
-        raise UserError(f"{target}: cannot write the spec: {exc.strerror}") from None
-    return target, found
