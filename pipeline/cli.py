@@ -13,6 +13,7 @@ import sys
 import traceback
 from pathlib import Path
 
+from pipeline.core.catalogue import METRIC_NAMES, SKILL
 from pipeline.core.errors import UserError
 from pipeline.core.version import __version__
 
@@ -82,8 +83,8 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-# ledger.HISTORY_METRICS, written out so that building the parser (and --help) loads no pandas.
-PLOT_METRICS = ["mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
+# The metrics history can plot (review.history.HISTORY_METRICS); the catalogue loads no pandas.
+PLOT_METRICS = [*METRIC_NAMES, SKILL]
 
 
 def _fmt(value) -> str:

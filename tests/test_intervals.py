@@ -38,7 +38,7 @@ def test_the_analytic_interval_equals_statsmodels_get_prediction(level):
 
     model = OLSModel().fit(_design(x), y)
     new = _design(x_new)
-    low, high = analytic_bounds(model.predict(new), model.prediction_se(new), model.df_resid_, level)
+    low, high = analytic_bounds(model.predict(new), model.prediction_se(new), model.residual_df(), level)
 
     reference = sm.OLS(y, sm.add_constant(x)).fit()
     # statsmodels OLSResults.get_prediction(x_new).summary_frame(alpha=1 − level)
@@ -56,7 +56,7 @@ def test_the_analytic_interval_without_an_intercept_equals_statsmodels():
     x_new = rng.uniform(0, 5, (5, 2))
     model = OLSModel(fit_intercept=False).fit(_design(x), y)
     low, high = analytic_bounds(model.predict(_design(x_new)), model.prediction_se(_design(x_new)),
-                                model.df_resid_, 0.95)
+                                model.residual_df(), 0.95)
     frame = sm.OLS(y, x).fit().get_prediction(x_new).summary_frame(alpha=0.05)   # statsmodels
     np.testing.assert_allclose(low, frame["obs_ci_lower"], rtol=1e-10)
     np.testing.assert_allclose(high, frame["obs_ci_upper"], rtol=1e-10)
@@ -84,7 +84,7 @@ def test_the_95_interval_covers_about_95_percent_of_simulated_future_values():
         y = beta[0] + x @ beta[1:] + rng.normal(0, 2.0, n + ahead)
         model = OLSModel().fit(_design(x[:n]), y[:n])
         new = _design(x[n:])
-        low, high = analytic_bounds(model.predict(new), model.prediction_se(new), model.df_resid_, 0.95)
+        low, high = analytic_bounds(model.predict(new), model.prediction_se(new), model.residual_df(), 0.95)
         inside += int(((low <= y[n:]) & (y[n:] <= high)).sum())
     share = inside / (fits * ahead)
     assert fits * ahead == 2000

@@ -104,3 +104,38 @@ def r2_out_of_sample(actual, predicted) -> float:
     if total == 0:
         return float("nan")
     return float(1.0 - np.sum((actual - predicted) ** 2) / total)
+
+
+# One signature for every metric, (actual, predicted, scale) -> float, as the catalogue
+# (pipeline.core.catalogue.METRICS) calls them.
+
+def mae_score(actual, predicted, scale=None) -> float:
+    return mae(actual, predicted)
+
+
+def rmse_score(actual, predicted, scale=None) -> float:
+    return rmse(actual, predicted)
+
+
+def mape_score(actual, predicted, scale=None) -> float:
+    return mape(actual, predicted)[0]
+
+
+def smape_score(actual, predicted, scale=None) -> float:
+    return smape(actual, predicted)[0]
+
+
+def wape_score(actual, predicted, scale=None) -> float:
+    return wape(actual, predicted)
+
+
+def mase_score(actual, predicted, scale=None) -> float:
+    return mase(actual, predicted, scale) if scale is not None else float("nan")
+
+
+def r2_score(actual, predicted, scale=None) -> float:
+    return r2_out_of_sample(actual, predicted) if len(actual) > 1 else float("nan")
+
+
+def bias_score(actual, predicted, scale=None) -> float:
+    return bias(actual, predicted)

@@ -5,12 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.features.categorical import OneHotEncoder
 from pipeline.features.rows import which_rows
-from pipeline.spec import (
-    LINEAR_KINDS,
-    Spec,
-)
+from pipeline.spec import Spec
 
 
 class SeriesTerms(OneHotEncoder):

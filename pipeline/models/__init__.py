@@ -1,65 +1,50 @@
-"""Models behind one small interface: ``fit(design, y)`` returns self, ``predict(design)``,
-``coefficient_table()``.
+"""Models, each following one contract (``models.contract.Model``): baselines, OLS and its
+inference, OLS per series, penalised and robust fits, and the transformed-target wrapper.
 
-A new model is a class with that interface, built by ``make_model`` from the
-spec's model choice.
+``make_model`` builds the model a spec's choice names, from the catalogue
+(``pipeline.core.catalogue``): a new kind is a new module here and one catalogue entry.
 """
 
 from __future__ import annotations
 
+from pipeline.core.catalogue import BASELINE_KINDS, MODELS
 from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
+from pipeline.models.contract import Model
 from pipeline.models.ols import OLSModel, least_squares
 from pipeline.models.penalised import HuberModel, PenalisedModel
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
 
-BASELINES = {
-    "mean_baseline": MeanBaseline,
-    "last_value": LastValue,
-    "seasonal_naive": SeasonalNaive,
-    "drift": Drift,
-}
 
-
-def make_model(choice, *, intercept: bool = True, target=None):
+def make_model(choice, *, intercept: bool = True, target=None) -> Model:
     """Return a new, unfitted model for a spec's model choice (or a bare kind name).
 
     With a target transform other than none (``target``, the plan's ``target_scale``), a
     linear model is fitted on the transformed target and its predictions turned back into
     means; a baseline always works on the target as it is.
+
+    Raises ValueError for a kind the catalogue does not hold.
     """
-    kind = choice if isinstance(choice, str) else choice.kind
-    model = _new_model(choice, kind, intercept)
-    if target is None or target.kind == "none" or kind in BASELINES:
+    name = choice if isinstance(choice, str) else choice.kind
+    if name not in MODELS:
+        raise ValueError(f"unknown model kind {name!r}")
+    kind = MODELS[name]
+    per_series = bool(getattr(choice, "per_series", False))
+    model = kind.model_class(per_series).from_choice(choice, fit_intercept=intercept)
+    if target is None or target.kind == "none" or kind.baseline:
         return model
     return TransformedTargetModel(model, target)
 
 
-def _new_model(choice, kind: str, intercept: bool):
-    if kind in BASELINES:
-        return BASELINES[kind]()
-    if kind == "ols":
-        if getattr(choice, "per_series", False):
-            return PerSeriesOLS(fit_intercept=intercept)
-        return OLSModel(fit_intercept=intercept)
-    if kind == "huber":
-        return HuberModel(threshold=getattr(choice, "huber_threshold", 1.35))
-    if kind in ("ridge", "lasso", "elastic_net"):
-        return PenalisedModel(kind, penalties=getattr(choice, "penalties", None),
-                              l1_share=getattr(choice, "l1_share", 0.5))
-    raise ValueError(f"unknown model kind {kind!r}")
-
-
-def prediction_spread(model, design) -> tuple:
+def prediction_spread(model: Model, design) -> tuple:
     """Return the standard error of each row's prediction and its residual df (per row for a
     model per series), or (None, None) for a model that gives none."""
-    if not hasattr(model, "prediction_se"):
+    se = model.prediction_se(design)
+    if se is None:
         return None, None
-    inner = getattr(model, "model", model)   # under a target transform, the model inside
-    if hasattr(inner, "df_resid_for"):
-        return model.prediction_se(design), inner.df_resid_for(design)
-    return model.prediction_se(design), model.df_resid_
+    return se, model.residual_df(design)
 
 
-__all__ = ["PerSeriesOLS", "prediction_spread", "BASELINES", "Drift", "HuberModel", "LastValue", "MeanBaseline", "OLSModel",
-           "PenalisedModel", "SeasonalNaive", "TransformedTargetModel", "least_squares", "make_model"]
+__all__ = ["BASELINE_KINDS", "Drift", "HuberModel", "LastValue", "MeanBaseline", "Model", "OLSModel",
+           "PenalisedModel", "PerSeriesOLS", "SeasonalNaive", "TransformedTargetModel", "least_squares",
+           "make_model", "prediction_spread"]

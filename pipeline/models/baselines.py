@@ -10,6 +10,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.design import series_index
+from pipeline.models.contract import Model
+
 SEASON = 12
 
 
@@ -23,7 +26,6 @@ def _by_series(design, y) -> pd.DataFrame:
 def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Return the series the rows hold, in sorted order, each row's code into them, and each
     series' mean."""
-    from pipeline.core.design import series_index
     codes, names = series_index(design)
     values = np.asarray(y, float)
     count = np.bincount(codes, minlength=len(names))
@@ -31,7 +33,7 @@ def _series_means(design, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return np.asarray(names, object), codes, means
 
 
-class _PerSeriesBaseline:
+class _PerSeriesBaseline(Model):
     """Shared prediction for baselines that store one number per series."""
 
     def predict(self, design) -> np.ndarray:
@@ -46,7 +48,6 @@ class _PerSeriesBaseline:
 class MeanBaseline(_PerSeriesBaseline):
     """Predicts, for each series, the mean of its target over the training window."""
 
-    label = "mean baseline"
     word = "mean"
 
     def fit(self, design, y) -> MeanBaseline:
@@ -55,15 +56,11 @@ class MeanBaseline(_PerSeriesBaseline):
         self.fallback_ = float(np.mean(y))
         return self
 
-    @property
-    def means_(self) -> dict:
-        return self.values_
 
 
 class LastValue(_PerSeriesBaseline):
     """Predicts, for each series, its last value in the training window."""
 
-    label = "last value"
     word = "last value"
 
     def fit(self, design, y) -> LastValue:
@@ -73,13 +70,12 @@ class LastValue(_PerSeriesBaseline):
         return self
 
 
-class SeasonalNaive:
+class SeasonalNaive(Model):
     """Predicts, for each series, its value in the same month of the latest year in training.
 
     A month of the year that the training window lacks falls back to the series' mean.
     """
 
-    label = "same month last year"
 
     def fit(self, design, y) -> SeasonalNaive:
         names, codes, means = _series_means(design, y)
@@ -105,10 +101,9 @@ class SeasonalNaive:
                              "estimate": list(self.values_.values())})
 
 
-class Drift:
+class Drift(Model):
     """Predicts, for each series, the straight line through its first and last training values."""
 
-    label = "drift"
 
     def fit(self, design, y) -> Drift:
         frame = _by_series(design, y).sort_values("period", kind="stable")

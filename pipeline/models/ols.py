@@ -18,6 +18,8 @@ import pandas as pd
 import scipy.linalg
 import scipy.stats
 
+from pipeline.models.contract import Model
+
 INTERCEPT = "intercept"
 
 
@@ -178,13 +180,15 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
                            leverage=leverage)
 
 
-class OLSModel:
+class OLSModel(Model):
     """OLS on the feature design, with or without an intercept."""
-
-    label = "OLS"
 
     def __init__(self, fit_intercept: bool = True) -> None:
         self.fit_intercept = fit_intercept
+
+    @classmethod
+    def from_choice(cls, choice, *, fit_intercept: bool = True) -> OLSModel:
+        return cls(fit_intercept=fit_intercept)
 
     def _with_intercept(self, matrix: np.ndarray) -> np.ndarray:
         if self.fit_intercept:
@@ -211,12 +215,19 @@ class OLSModel:
         inverse = self.fit_.xtx_inverse[np.ix_(kept, kept)]
         return self.fit_.resid_sd * np.sqrt(1.0 + np.einsum("ij,jk,ik->i", x, inverse, x))
 
-    @property
-    def df_resid_(self) -> int:
+    def residual_df(self, design=None) -> int:
         return self.fit_.df_resid
 
     def coefficient_table(self) -> pd.DataFrame:
         return self.fit_.coefficient_table()
+
+    def linear_coefficients(self) -> tuple[float, np.ndarray]:
+        coef = self.coef_
+        return (float(coef[0]), coef[1:]) if self.fit_intercept else (0.0, coef)
+
+    @property
+    def least_squares_fit(self) -> LeastSquaresFit:
+        return self.fit_
 
 
 class GrowingLeastSquares:

@@ -16,6 +16,7 @@ import pandas as pd
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import ElasticNet, HuberRegressor, Lasso, Ridge
 
+from pipeline.models.contract import Model
 from pipeline.models.ols import INTERCEPT
 
 DEFAULT_PENALTIES = {
@@ -26,15 +27,22 @@ DEFAULT_PENALTIES = {
 INNER_SHARE = 0.2   # share of the training window's months held out to choose the penalty
 
 
-class _Standardised:
-    """Centre and scale the drivers (and, for the penalised fits, the target) on the window."""
+class _Standardised(Model):
+    """Centre and scale the drivers and the target on the window; without an intercept, only
+    scale them (by their root mean square), since centring would put an intercept back."""
 
     def _learn_scaling(self, matrix: np.ndarray, y: np.ndarray) -> None:
-        self.x_mean_ = matrix.mean(axis=0) if len(matrix) else np.zeros(matrix.shape[1])
-        spread = matrix.std(axis=0)
+        if self.fit_intercept:
+            self.x_mean_ = matrix.mean(axis=0) if len(matrix) else np.zeros(matrix.shape[1])
+            spread = matrix.std(axis=0)
+            self.y_mean_ = float(np.mean(y))
+            spread_y = float(np.std(y))
+        else:
+            self.x_mean_ = np.zeros(matrix.shape[1])
+            spread = np.sqrt(np.mean(matrix ** 2, axis=0)) if len(matrix) else np.ones(matrix.shape[1])
+            self.y_mean_ = 0.0
+            spread_y = float(np.sqrt(np.mean(np.square(y)))) if len(y) else 1.0
         self.x_scale_ = np.where(spread > 0, spread, 1.0)
-        self.y_mean_ = float(np.mean(y))
-        spread_y = float(np.std(y))
         self.y_scale_ = spread_y if spread_y > 0 else 1.0
 
     def _x(self, matrix: np.ndarray) -> np.ndarray:
@@ -46,28 +54,46 @@ class _Standardised:
         original = standard / self.x_scale_
         intercept = self.y_mean_ + float(self.estimator_.intercept_) * self.y_scale_ \
             - float(original @ self.x_mean_)
+        if not self.fit_intercept:
+            return pd.DataFrame({"term": list(names), "estimate": original,
+                                 "estimate_standardised": standard})
         return pd.DataFrame({
             "term": [INTERCEPT] + list(names),
             "estimate": np.concatenate([[intercept], original]),
             "estimate_standardised": np.concatenate([[np.nan], standard]),
         })
 
+    def linear_coefficients(self) -> tuple[float, np.ndarray]:
+        estimates = self.coefficient_table()["estimate"].to_numpy(float)
+        return (float(estimates[0]), estimates[1:]) if self.fit_intercept else (0.0, estimates)
+
 
 class PenalisedModel(_Standardised):
     """Ridge, lasso or elastic net with the penalty chosen inside the training window."""
 
-    def __init__(self, kind: str, penalties: list[float] | None = None, l1_share: float = 0.5) -> None:
+    def __init__(self, kind: str, penalties: list[float] | None = None, l1_share: float = 0.5,
+                 fit_intercept: bool = True) -> None:
         self.kind = kind
         self.penalties = penalties
         self.l1_share = l1_share
-        self.label = {"ridge": "ridge", "lasso": "lasso", "elastic_net": "elastic net"}[kind]
+        self.fit_intercept = fit_intercept
+
+    @classmethod
+    def from_choice(cls, choice, *, fit_intercept: bool = True) -> PenalisedModel:
+        if isinstance(choice, str):
+            return cls(choice, fit_intercept=fit_intercept)
+        return cls(choice.kind, penalties=choice.penalties, l1_share=choice.l1_share,
+                   fit_intercept=fit_intercept)
 
     def _estimator(self, penalty: float):
+        # The target and drivers are centred already when there is an intercept; the
+        # estimator's own intercept is then zero and left out.
         if self.kind == "ridge":
-            return Ridge(alpha=penalty)
+            return Ridge(alpha=penalty, fit_intercept=self.fit_intercept)
         if self.kind == "lasso":
-            return Lasso(alpha=penalty, max_iter=10000)
-        return ElasticNet(alpha=penalty, l1_ratio=self.l1_share, max_iter=10000)
+            return Lasso(alpha=penalty, max_iter=10000, fit_intercept=self.fit_intercept)
+        return ElasticNet(alpha=penalty, l1_ratio=self.l1_share, max_iter=10000,
+                          fit_intercept=self.fit_intercept)
 
     def _fit_scaled(self, matrix: np.ndarray, y: np.ndarray, penalty: float):
         with warnings.catch_warnings():
@@ -116,10 +142,14 @@ class PenalisedModel(_Standardised):
 class HuberModel(_Standardised):
     """Linear regression with Huber's loss: large residuals count linearly, not squared."""
 
-    label = "Huber"
-
-    def __init__(self, threshold: float = 1.35) -> None:
+    def __init__(self, threshold: float = 1.35, fit_intercept: bool = True) -> None:
         self.threshold = threshold
+        self.fit_intercept = fit_intercept
+
+    @classmethod
+    def from_choice(cls, choice, *, fit_intercept: bool = True) -> HuberModel:
+        threshold = 1.35 if isinstance(choice, str) else choice.huber_threshold
+        return cls(threshold=threshold, fit_intercept=fit_intercept)
 
     def fit(self, design, y) -> HuberModel:
         y = np.asarray(y, float)
@@ -127,7 +157,8 @@ class HuberModel(_Standardised):
         self._learn_scaling(design.matrix, y)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
-            self.estimator_ = HuberRegressor(epsilon=self.threshold, alpha=0.0, max_iter=1000).fit(
+            self.estimator_ = HuberRegressor(epsilon=self.threshold, alpha=0.0, max_iter=1000,
+                                            fit_intercept=self.fit_intercept).fit(
                 self._x(design.matrix), (y - self.y_mean_) / self.y_scale_)
         return self
 

@@ -28,6 +28,7 @@ import scipy.stats
 
 from pipeline.core import execution, progress
 from pipeline.core.design import series_index
+from pipeline.models.contract import Model
 from pipeline.models.ols import INTERCEPT, least_squares
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
@@ -179,13 +180,15 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
                     constant)
 
 
-class PerSeriesOLS:
+class PerSeriesOLS(Model):
     """OLS on the feature design, one fit per series; predictions use each row's own series."""
-
-    label = "OLS per series"
 
     def __init__(self, fit_intercept: bool = True) -> None:
         self.fit_intercept = fit_intercept
+
+    @classmethod
+    def from_choice(cls, choice, *, fit_intercept: bool = True) -> PerSeriesOLS:
+        return cls(fit_intercept=fit_intercept)
 
     def _columns(self, design) -> np.ndarray:
         matrix = np.asarray(design.matrix, float)
@@ -285,7 +288,7 @@ class PerSeriesOLS:
                                    * np.sqrt(1.0 + 1.0 / self.rows_[codes[fallback]]))
         return out
 
-    def df_resid_for(self, design) -> np.ndarray:
+    def residual_df(self, design) -> np.ndarray:
         """Return each row's residual degrees of freedom (its series' fit), NaN if unseen."""
         code = self._lookup(design)
         out = np.full(len(code), np.nan)

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from pipeline.core.catalogue import BASELINE
 from pipeline.core.errors import UserError
-from pipeline.spec import BASELINE
 
 
 def plot_history(table: pd.DataFrame, metric: str, path: Path, title: str) -> None:

@@ -20,6 +20,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES
 from pipeline.core.errors import UserError
 from pipeline.core.intervals import trusted_method
 from pipeline.present import plots
@@ -37,11 +38,7 @@ CAUTIONS = [
 ]
 REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
             "coefficients.csv", "history.csv"]
-LOWER_IS_BETTER = ("mae", "rmse", "mape", "smape", "wape", "mase")
-HIGHER_IS_BETTER = ("r2", "skill_vs_mean")
-COMPARISON = ["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias",
-              "skill_vs_mean", "p_value", "against_mean"]
-BASELINE_MODELS = ("mean_baseline", "last_value", "seasonal_naive", "drift")
+COMPARISON = ["model", *SCORES, "p_value", "against_mean"]
 # With more series than this, pictures show a few series and the drivers are summarised
 # across series; the run folder's CSV files keep every row.
 MANY_SERIES = plots.MAX_PANELS
@@ -148,7 +145,7 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
         return view
     models = set(coefficients["model"])
     linear = "ols" if "ols" in models else None
-    if recommended in models and recommended not in BASELINE_MODELS:
+    if recommended in models and recommended not in BASELINE_KINDS:
         linear = recommended
     if linear is None:
         return view
@@ -199,7 +196,7 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
     if series_count <= 1 or series_table is None or not len(series_table):
         return None
     others = [m for m in dict.fromkeys(series_table["model"]) if m != "mean_baseline"]
-    models = [m for m in others if m not in BASELINE_MODELS] or others
+    models = [m for m in others if m not in BASELINE_KINDS] or others
     if not models:
         return None
     by_model = {row["model"]: row for row in summary}

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import SCORES
 from pipeline.core.intervals import trusted_method
 from pipeline.core.version import __version__
 from pipeline.present.report import (
@@ -33,8 +34,7 @@ def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
     def some(frame: pd.DataFrame) -> pd.DataFrame | None:
         return frame if len(frame) else None
 
-    comparison = evaluation.table[["model", "n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2",
-                                   "bias", "skill_vs_mean", "against_mean"]]
+    comparison = evaluation.table[["model", *SCORES, "against_mean"]]
     recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
     method = shown = None
     if len(recommended):

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from pipeline.core.catalogue import model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError, UserError
 from pipeline.core.version import __version__
@@ -31,7 +32,6 @@ from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
 FORMAT_VERSION = 1
-LINEAR_KINDS = ("ols", "ridge", "lasso", "elastic_net", "huber")
 
 
 class ModelFileError(UserError):
@@ -211,12 +211,7 @@ def _linear_numbers(kind: str, model) -> dict:
 
 
 def _plain_linear_numbers(kind: str, model) -> dict:
-    if kind == "ols":
-        coef = model.coef_
-        intercept, slopes = (coef[0], coef[1:]) if model.fit_intercept else (0.0, coef)
-    else:
-        table = model.coefficient_table()
-        intercept, slopes = table["estimate"].iloc[0], table["estimate"].to_numpy()[1:]
+    intercept, slopes = model.linear_coefficients()
     return {"intercept": encode(float(intercept)), "coef": encode(np.asarray(slopes, float))}
 
 
@@ -274,10 +269,9 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
     """Return the JSON document that stores a run's fitted plan and models."""
     models = {}
     for kind, model in fitted.items():
-        inner = getattr(model, "model", model)
-        if isinstance(inner, PerSeriesOLS):
+        if isinstance(model.inner, PerSeriesOLS):
             models[kind] = {"kind": "linear_per_series", **_per_series_numbers(model)}
-        elif kind in LINEAR_KINDS:
+        elif model_kind(kind).family == "linear":
             models[kind] = {"kind": "linear", **_linear_numbers(kind, model)}
         else:
             models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}

@@ -10,11 +10,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import BASELINE
 from pipeline.core.errors import UserError
 from pipeline.record.ledger.read import rows_of, visible_runs
 from pipeline.record.ledger.store import json_records, plain
 from pipeline.review.history import CHANGED
-from pipeline.spec import BASELINE
 
 
 def find_run(conn: sqlite3.Connection, reference: str, ledger_file: Path) -> pd.Series:

@@ -6,14 +6,14 @@ import sqlite3
 
 import pandas as pd
 
+from pipeline.core.catalogue import BASELINE, METRIC_NAMES, SKILL
 from pipeline.record.ledger.read import latest_realised, rows_of, visible_runs
 from pipeline.review.track_record import summarise_realised
-from pipeline.spec import BASELINE
 
-HISTORY_METRICS = ["mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
+HISTORY_METRICS = [*METRIC_NAMES, SKILL]
 
 
-CHANGED = ["mae", "rmse", "skill_vs_mean"]   # the headline metrics, with the change from the run before
+CHANGED = ["mae", "rmse", SKILL]   # the headline metrics, with the change from the run before
 
 
 def metrics_history(conn: sqlite3.Connection, name: str | None = None) -> pd.DataFrame:

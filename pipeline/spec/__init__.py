@@ -8,10 +8,6 @@ from pipeline.spec.keys import KeyPath, format_key_path
 from pipeline.spec.loader import load_spec
 from pipeline.spec.rules import column_roles, text_columns
 from pipeline.spec.schema import (
-    BASELINE,
-    BASELINE_KINDS,
-    LINEAR_KINDS,
-    SELECT_METRICS,
     TIME_ORDERED,
     CalendarFeatures,
     CategoricalDriver,
@@ -36,7 +32,7 @@ from pipeline.spec.schema import (
 )
 
 __all__ = [
-    "BASELINE", "BASELINE_KINDS", "LINEAR_KINDS", "SELECT_METRICS", "TIME_ORDERED", "CalendarFeatures",
+    "TIME_ORDERED", "CalendarFeatures",
     "CategoricalDriver", "ColumnRule", "ComputeSection", "CsvOptions", "DriverChange", "DriversSection",
     "GroupedKFoldValidation", "HoldoutValidation", "InputSection", "KFoldValidation", "KeyPath",
     "LaggedColumn", "ModelChoice", "NumericDriver", "OutputSection", "RollingOriginValidation",

@@ -6,6 +6,7 @@ message at the key's line.
 
 from __future__ import annotations
 
+from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
 from pipeline.spec.schema import TIME_ORDERED, Spec
 
 
@@ -61,12 +62,12 @@ def _check_models(spec: Spec, fail) -> None:
         return
     written = spec._written_models or [m.kind for m in spec.models[1:]]
     for choice in spec.models[1:]:
-        if choice.kind in ("last_value", "seasonal_naive", "drift"):
+        if MODELS[choice.kind].can("needs_time_order"):
             index = written.index(choice.kind) if choice.kind in written else 0
             raise fail(("models", index), f"'{choice.kind}' needs months in time order; "
                        f"validation method '{spec.validation.method}' has none")
-    if spec.select_by == "mase":
-        raise fail(("select_by",), "MASE needs months in time order; choose another metric "
+    if METRIC_BY_NAME[spec.select_by].needs_time_order:
+        raise fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs months in time order; choose another metric "
                    f"for validation method '{spec.validation.method}'")
 
 

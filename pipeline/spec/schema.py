@@ -18,10 +18,9 @@ from pydantic import (
     model_validator,
 )
 
+from pipeline.core.catalogue import BASELINE, MODELS, PER_SERIES, PER_SERIES_KINDS, SELECT_METRICS
 from pipeline.core.errors import SpecError
 from pipeline.spec.keys import KeyPath, format_key_path, line_for
-
-BASELINE = "mean_baseline"
 
 
 class StrictModel(BaseModel):
@@ -308,17 +307,13 @@ class GroupedKFoldValidation(StrictModel):
 Validation = Annotated[HoldoutValidation | RollingOriginValidation | KFoldValidation | GroupedKFoldValidation, Field(discriminator="method")]
 TIME_ORDERED = ("holdout", "rolling_origin")
 
-BASELINE_KINDS = ("mean_baseline", "last_value", "seasonal_naive", "drift")
-LINEAR_KINDS = ("ols", "ridge", "lasso", "elastic_net", "huber")
-ModelKind = Literal["mean_baseline", "last_value", "seasonal_naive", "drift",
-                    "ols", "ridge", "lasso", "elastic_net", "huber"]
-SELECT_METRICS = ("mae", "rmse", "mape", "smape", "wape", "mase")
+ModelKindName = Literal[tuple(MODELS)]   # every kind in the catalogue, in its order
 
 
 class ModelChoice(StrictModel):
     """One model to fit and compare; a bare name stands for its defaults."""
 
-    kind: ModelKind
+    kind: ModelKindName
     penalties: list[float] | None = Field(
         None, description="ridge, lasso, elastic_net: penalties to choose from by an inner, "
                           "time-ordered validation inside each training window")
@@ -331,12 +326,13 @@ class ModelChoice(StrictModel):
     @property
     def name(self) -> str:
         """Return the model's name in every table: its kind, marked when fitted per series."""
-        return f"{self.kind}_per_series" if self.per_series else self.kind
+        return f"{self.kind}{PER_SERIES}" if self.per_series else self.kind
 
     @model_validator(mode="after")
     def _per_series_ols_only(self) -> ModelChoice:
-        if self.per_series and self.kind != "ols":
-            raise ValueError("per_series is available for ols (baselines are always per series)")
+        if self.per_series and not MODELS[self.kind].can("per_series"):
+            offered = ", ".join(PER_SERIES_KINDS)
+            raise ValueError(f"per_series is available for {offered} (baselines are always per series)")
         return self
 
     @field_validator("penalties")
@@ -418,7 +414,7 @@ class Spec(StrictModel):
     validation: Validation
     # validate_default: without a `models` key the baseline must still be put first.
     models: list[ModelChoice] = Field(default_factory=lambda: [{"kind": "ols"}], validate_default=True)
-    select_by: Literal["mae", "rmse", "mape", "smape", "wape", "mase"] = Field(
+    select_by: Literal[SELECT_METRICS] = Field(
         "mae", description="the metric that picks the recommended model")
     significance_level: float = Field(0.05, gt=0, lt=0.5, description="a model beats the mean "
                                       "baseline when the one-sided test's p is below this")

@@ -18,10 +18,11 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core import progress
+from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.features.plan import plan_features
-from pipeline.models import BASELINES, make_model, prediction_spread
+from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
 from pipeline.stages.check import CheckedData
@@ -38,8 +39,8 @@ FALLBACK_COLUMNS = ["model", "window", "series", "rows", "terms"]
 def _fallbacks(name: str, window: str, model, predicted_series: np.ndarray) -> pd.DataFrame | None:
     """Return the series a fitted model per series gave its mean to, labelled, and those it
     predicted without a row of them to fit on (given the mean of every series)."""
-    inner = getattr(model, "model", model)
-    found = getattr(inner, "fallbacks_", None)
+    inner = model.inner
+    found = inner.fallbacks_
     if found is None:
         return None
     unseen = pd.unique(predicted_series[inner.series_.get_indexer(predicted_series) < 0])
@@ -172,7 +173,7 @@ def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None
 
 
 def _check_rows(spec: Spec, split: Split, terms: int) -> None:
-    linear = [k for k in spec.model_kinds if k in ("ols", "ridge", "lasso", "elastic_net", "huber")]
+    linear = [k for k in spec.model_kinds if k in LINEAR_KINDS]
     if linear and len(split.train) <= terms:
         key = ("validation", "last_periods" if spec.validation.method == "holdout" else
                "min_train_periods" if spec.validation.method == "rolling_origin" else "folds")
@@ -245,7 +246,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     # Without lags or a target transform, every row of a window is fitted on as it is.
     plain = not spec.drivers.lags and spec.target_transform == "none"
-    linear = [name for name, kind in zip(spec.model_names, spec.model_kinds) if kind not in BASELINES]
+    linear = [name for name, kind in zip(spec.model_names, spec.model_kinds) if kind not in BASELINE_KINDS]
     # When every window's plan learned the same thing, the design of the whole history is
     # built once and each window reads its rows: a row's terms depend on that row alone.
     same_plan = (plain and time_ordered and len(splits) > 1 and bool(linear)
@@ -269,7 +270,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         def train_design(kind: str, split=split, plan=plan, cache=cache) -> tuple[Design, np.ndarray]:
             # Baselines need only the series and months; the full design is built once, if at
             # all. With lags, every model fits on the rows whose lags are available.
-            if kind in BASELINES and plain and shared is None:
+            if kind in BASELINE_KINDS and plain and shared is None:
                 frame = split.train
                 return series_design(frame, SERIES), frame[spec.target].to_numpy(float)
             if "train" not in cache:
@@ -279,7 +280,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
 
         def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
             frame = split.test
-            if kind in BASELINES and shared is None:
+            if kind in BASELINE_KINDS and shared is None:
                 return series_design(frame, SERIES)
             if "test" not in cache:
                 cache["test"] = (_design_rows(shared, frame)[0] if shared is not None
@@ -298,7 +299,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             se = df_resid = None
             if choice.name == "ols" and split.label in fast_ols:
                 predicted, se, df_resid = fast_ols[split.label]
-            elif stepwise and choice.kind not in BASELINES:
+            elif stepwise and choice.kind not in BASELINE_KINDS:
                 # A target lag is shorter than the months ahead: the spec's multi_step strategy.
                 predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
                                                               split.origin.ordinal)

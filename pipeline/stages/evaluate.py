@@ -17,17 +17,13 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core import metrics
+from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
 from pipeline.core.intervals import coverage
 from pipeline.core.significance import diebold_mariano, diebold_mariano_by_group
-from pipeline.spec import BASELINE, Spec
+from pipeline.spec import Spec
 from pipeline.stages.backtest import BacktestResult
 
-METRIC_COLUMNS = ["n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias"]
-LOWER_IS_BETTER = {"mae", "rmse", "mape", "smape", "wape", "mase"}
-LABELS = {"mean_baseline": "the mean baseline", "last_value": "last value",
-          "seasonal_naive": "same month last year", "drift": "drift", "ols": "OLS",
-          "ols_per_series": "OLS per series",
-          "ridge": "ridge", "lasso": "lasso", "elastic_net": "elastic net", "huber": "Huber"}
+METRIC_COLUMNS = ["n", *METRIC_NAMES]
 
 
 @dataclass(frozen=True)
@@ -53,20 +49,9 @@ def score(actual, predicted, scale=None) -> dict[str, float]:
     """Return every metric of one set of predictions."""
     actual = np.asarray(actual, float)
     predicted = np.asarray(predicted, float)
-    mape_value, zeros = metrics.mape(actual, predicted)
-    smape_value, _ = metrics.smape(actual, predicted)
-    return {
-        "n": len(actual),
-        "mae": metrics.mae(actual, predicted),
-        "rmse": metrics.rmse(actual, predicted),
-        "mape": mape_value,
-        "smape": smape_value,
-        "wape": metrics.wape(actual, predicted),
-        "mase": metrics.mase(actual, predicted, scale) if scale is not None else float("nan"),
-        "r2": metrics.r2_out_of_sample(actual, predicted) if len(actual) > 1 else float("nan"),
-        "bias": metrics.bias(actual, predicted),
-        "mape_rows_left_out": zeros,
-    }
+    return {"n": len(actual),
+            **{metric.name: metric.compute(actual, predicted, scale) for metric in METRICS},
+            "mape_rows_left_out": metrics.mape(actual, predicted)[1]}
 
 
 def _scores_by(predictions: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
@@ -356,7 +341,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
         p = float(best["p_value"])
         beats = bool(np.isfinite(p) and p < level)
         lower = 1 - best[select_by] / baseline_value if baseline_value else np.nan
-        name = LABELS.get(recommended, recommended)
+        name = model_label(recommended)
         if beats:
             verdict = (f"{name} beats the mean baseline out of sample ({_p_text(p)}): its {metric} is "
                        f"{lower:.1%} lower ({best[select_by]:.4g} against {baseline_value:.4g}).")

@@ -16,12 +16,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import MODELS
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design, series_design
 from pipeline.core.errors import DataError
 from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
 from pipeline.features.plan import plan_features
-from pipeline.models import BASELINES, make_model, prediction_spread
+from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
 from pipeline.stages.backtest import BacktestResult, series_fallbacks
@@ -90,7 +91,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
 
     def predict(choice, model, frame: pd.DataFrame):
         """Return the point forecasts, their standard errors and residual df for the rows."""
-        if stepwise and choice.kind in BASELINES:
+        if stepwise and choice.kind in BASELINE_KINDS:
             return model.predict(series_design(frame, SERIES)), None, None
         if stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
             point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin)
@@ -115,9 +116,10 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
         model.fit(history_design, y)
         fitted[kind] = model
-        if hasattr(model, "describe"):
-            warnings.append(f"{kind}: {model.describe()}")
-        inner = getattr(model, "model", model)
+        described = model.describe()
+        if described:
+            warnings.append(f"{kind}: {described}")
+        inner = model.inner
         if choice.per_series:
             warnings += [f"{kind}: {note}" for note in inner.notes()]
             if len(inner.fallbacks_):
@@ -142,10 +144,9 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                 table[f"empirical_low_{percent(level)}"] = low
                 table[f"empirical_high_{percent(level)}"] = high
             forecasts.append(pd.DataFrame(table))
-        fit = getattr(model, "fit_", None)
+        fit = model.least_squares_fit
         if fit is not None:
-            inner = getattr(model, "model", model)   # under a target transform, the OLS inside
-            matrix = inner._with_intercept(history_design.matrix)
+            matrix = model.design_matrix(history_design)
             cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
                              groups=history_design.series, order=history_design.period)
             terms = coefficient_table(fit, cov)
@@ -172,7 +173,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                     warnings.append(f"{kind}: its coefficients' standard errors are classical; "
                                     f"standard_errors: {spec.standard_errors} applies to the "
                                     "models over all series")
-            if choice.kind in ("ridge", "lasso", "elastic_net"):
+            if MODELS[choice.kind].can("penalised"):
                 terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
         terms.insert(0, "model", kind)
         coefficients.append(terms)

@@ -119,7 +119,7 @@ def test_each_series_equals_statsmodels_ols_on_that_series_alone(generated, name
     design = _design(new)
     assert _relative(model.predict(design), predicted.predicted_mean) < RTOL
     assert _relative(model.prediction_se(design), predicted.se_obs) < RTOL
-    np.testing.assert_array_equal(model.df_resid_for(design), reference.df_resid)
+    np.testing.assert_array_equal(model.residual_df(design), reference.df_resid)
     # The interval the run states: t quantile on the series' own df (statsmodels conf_int).
     np.testing.assert_allclose(table.loc[terms, "low_95"], reference.conf_int(0.05)[:, 0], rtol=RTOL)
     np.testing.assert_allclose(table.loc[terms, "p_value"], reference.pvalues, rtol=1e-6, atol=1e-300)
@@ -161,7 +161,7 @@ def test_a_series_with_no_more_rows_than_terms_is_its_own_mean(generated):
     np.testing.assert_allclose(model.predict(design), own.mean(), rtol=1e-14)
     np.testing.assert_allclose(model.prediction_se(design),
                                own.std(ddof=1) * math.sqrt(1 + 1 / len(own)), rtol=1e-12)
-    np.testing.assert_array_equal(model.df_resid_for(design), len(own) - 1)
+    np.testing.assert_array_equal(model.residual_df(design), len(own) - 1)
     assert model.coefficient_table().query("series == 'short'")["estimate"].isna().all()
     fallbacks = model.fallbacks_
     assert fallbacks["series"].tolist() == ["short"]
@@ -175,7 +175,7 @@ def test_a_series_the_fit_never_saw_gets_the_overall_mean_and_no_se(generated):
     design = _design(_new_rows("never-seen", seed=2))
     np.testing.assert_allclose(model.predict(design), frame["y"].mean(), rtol=1e-14)
     assert np.isnan(model.prediction_se(design)).all()
-    assert np.isnan(model.df_resid_for(design)).all()
+    assert np.isnan(model.residual_df(design)).all()
 
 
 def test_without_an_intercept_each_series_equals_statsmodels_without_a_constant():

@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core import catalogue
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
 from pipeline.record.ledger.migrations import SCHEMA_VERSION, migrate, schema_version
@@ -29,7 +30,7 @@ BUSY_SECONDS = 60.0          # how long a run waits for another run's write to f
 SQLITE_HEADER = b"SQLite format 3\x00"
 
 
-SCORES = ["n", "mae", "rmse", "mape", "smape", "wape", "mase", "r2", "bias", "skill_vs_mean"]
+SCORES = list(catalogue.SCORES)   # a column per score in the metric tables (a new one needs a migration)
 
 
 INTERVAL_COLUMNS = [f"{method}_{side}_{level}" for method in ("analytic", "empirical")
