@@ -8,13 +8,13 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 import traceback
 from pathlib import Path
 
 from pipeline.core.catalogue import METRIC_NAMES, SKILL
 from pipeline.core.errors import UserError
+from pipeline.core.formatting import format_number
 from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
@@ -87,14 +87,8 @@ def build_parser() -> argparse.ArgumentParser:
 PLOT_METRICS = [*METRIC_NAMES, SKILL]
 
 
-def _fmt(value) -> str:
-    if isinstance(value, float):
-        return "n/a" if not math.isfinite(value) else f"{value:,.4g}"
-    return str(value)
-
-
 def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
-    cells = [[_fmt(row[c]) for c in columns] for row in rows]
+    cells = [[format_number(row[c]) for c in columns] for row in rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
     right = set(align_right) if align_right is not None else set(columns[1:])
     print("  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip())
@@ -381,10 +375,11 @@ def _command_forecast(args) -> int:
 
 
 def _command_report(args) -> int:
-    from pipeline.present.report import render_report
+    from pipeline.present.pages import render_pages
     from pipeline.record.run_folder import write_page
     folder = Path(args.run_folder)
-    print(f"report: {write_page(folder, 'report.html', render_report(folder))}")
+    for name, text in render_pages(folder).items():
+        print(f"{name.split('.')[0]}: {write_page(folder, name, text)}")
     return EXIT_OK
 
 

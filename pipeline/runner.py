@@ -10,7 +10,7 @@ import pandas as pd
 
 from pipeline.core import execution
 from pipeline.core.errors import DataError, UserError
-from pipeline.present.pages import page_renderer
+from pipeline.present.pages import render_pages
 from pipeline.present.starter_spec import render_spec
 from pipeline.record.new_file import write_new_file
 from pipeline.record.run_folder import RunFolder, publish
@@ -102,8 +102,7 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     track = track_record(spec, data, evaluation, output_folder=output_folder)
     folder = publish(spec, data, backtest, evaluation, forecast,
                      output_folder=Path(output_folder) if output_folder else None,
-                     realised=track.realised if track else None,
-                     pages=page_renderer(spec, evaluation, forecast, track))
+                     realised=track.realised, track=track.facts(), pages=render_pages)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)
 

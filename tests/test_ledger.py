@@ -19,6 +19,7 @@ import hashlib
 import importlib.util
 import io
 import json
+import shutil
 import sqlite3
 from contextlib import closing
 from dataclasses import dataclass
@@ -323,6 +324,18 @@ def test_the_summary_shows_the_track_record_before_the_data(replay):
     scored = scored_forecasts(replay.reruns[0], replay.reruns[-1].data)
     one_ahead = scored[(scored["model"] == "ols") & (scored["horizon"] == 1)]
     assert f"| {one_ahead['error'].abs().mean():.4g} |" in first_run_row
+
+
+def test_the_summary_with_a_track_record_is_rebuilt_from_the_folder_alone(replay, tmp_path, capsys):
+    # The track record comes from the ledger at run time; the folder keeps it (track_record.json,
+    # realised.csv), so castline report writes the same summary without the ledger or the run.
+    copy = tmp_path / "copy"
+    shutil.copytree(replay.reruns[-1].folder, copy)
+    (copy / "summary.md").unlink()
+    assert cli.main(["report", str(copy)]) == 0
+    rebuilt = (copy / "summary.md").read_text(encoding="utf-8")
+    assert rebuilt == (replay.reruns[-1].folder / "summary.md").read_text(encoding="utf-8")
+    assert "## Track record" in rebuilt
 
 
 # ---------------------------------------------------------------- compare

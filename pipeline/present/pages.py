@@ -1,26 +1,20 @@
-"""The pages a run folder holds for people: summary.md and report.html."""
+"""The pages a run folder holds for people: summary.md and report.html, from its files."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-import pandas as pd
-
 from pipeline.present.report import render_report
+from pipeline.present.run_files import load_run_files
 from pipeline.present.summary import render_summary
-from pipeline.present.track_record import with_track_record
-from pipeline.review.track_record import TrackRecord
-from pipeline.spec import Spec
-from pipeline.stages.evaluate import Evaluation
-from pipeline.stages.forecast import ForecastResult
+
+PAGES = ("summary.md", "report.html")
 
 
-def page_renderer(spec: Spec, evaluation: Evaluation, forecast: ForecastResult,
-                  track: TrackRecord | None):
-    """Return the function the run folder writer calls, once the data files are staged, to
-    render the pages: (staging folder, run id, created, fingerprint, fallbacks) -> pages."""
-    def pages(staging: Path, run_id: str, created: str, data_print: dict,
-              fallbacks: pd.DataFrame) -> dict[str, str]:
-        summary = render_summary(spec, run_id, created, data_print, evaluation, forecast, fallbacks)
-        return {"summary.md": with_track_record(summary, track), "report.html": render_report(staging)}
-    return pages
+def render_pages(folder: str | Path) -> dict[str, str]:
+    """Return every page of a run folder, rendered from its files alone: {file name: text}.
+
+    Raises UserError when the folder is not a complete run folder.
+    """
+    files = load_run_files(folder)
+    return {"summary.md": render_summary(files), "report.html": render_report(files)}

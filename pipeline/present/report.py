@@ -12,7 +12,6 @@ every value from the data is escaped by the template engine.
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 
@@ -21,9 +20,10 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES
-from pipeline.core.errors import UserError
+from pipeline.core.formatting import format_number, markdown_table
 from pipeline.core.intervals import trusted_method
 from pipeline.present import plots
+from pipeline.present.run_files import RunFiles, load_run_files
 
 CAUTIONS = [
     "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
@@ -36,8 +36,6 @@ CAUTIONS = [
     "The comparison rests on the validation windows of this run; other windows can rank the "
     "models differently, and a significance test is only as good as its assumptions.",
 ]
-REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
-            "coefficients.csv", "history.csv"]
 COMPARISON = ["model", *SCORES, "p_value", "against_mean"]
 # With more series than this, pictures show a few series and the drivers are summarised
 # across series; the run folder's CSV files keep every row.
@@ -48,23 +46,6 @@ WORST_SHOWN = 5        # worst series pictured in the Per series section
 SIGNIFICANT = 0.05     # a coefficient's p-value counted as small in the summary across series
 
 
-def format_number(value) -> str:
-    """Return a number as the report shows it: four significant digits, n/a when missing."""
-    if value is None or value == "":
-        return "n/a"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return f"{value:,}"
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return "n/a"
-        if value != 0 and abs(value) < 0.001:
-            return f"{value:.3g}"
-        return f"{value:,.4g}" if abs(value) >= 1e4 else f"{value:.4g}"
-    return str(value)
-
-
 def _environment() -> jinja2.Environment:
     environment = jinja2.Environment(
         loader=jinja2.PackageLoader("pipeline.present", "templates"),
@@ -73,16 +54,6 @@ def _environment() -> jinja2.Environment:
     environment.filters["num"] = format_number
     environment.globals["zip"] = zip
     return environment
-
-
-def markdown_table(frame: pd.DataFrame) -> str:
-    """Return a table in Markdown, numbers as the report shows them, pipes escaped."""
-    def cell(value) -> str:
-        return format_number(value).replace("|", "\\|").replace("\n", " ")
-    header = "| " + " | ".join(cell(c) for c in frame.columns) + " |"
-    rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
-    body = ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
-    return "\n".join([header, rule, *body])
 
 
 def render_markdown(template: str, **context) -> str:
@@ -227,19 +198,6 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
             "series_rows": len(series_table)}
 
 
-def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
-    path = folder / name
-    if not path.exists() or path.stat().st_size == 0:
-        return None
-    try:
-        # Whole-column type inference: a column empty for most rows (a per-series model's
-        # series column in coefficients.csv) is read the same however long the file is.
-        frame = pd.read_csv(path, keep_default_na=True, low_memory=False)
-    except pd.errors.EmptyDataError:
-        return None
-    return frame if len(frame.columns) else None
-
-
 def _best(rows: list[dict]) -> dict[str, str]:
     best = {}
     for column in LOWER_IS_BETTER + HIGHER_IS_BETTER + ("bias",):
@@ -257,34 +215,21 @@ def _best(rows: list[dict]) -> dict[str, str]:
     return best
 
 
-def render_report(folder: Path) -> str:
+def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
-    folder = Path(folder)
-    missing = [name for name in REQUIRED if not (folder / name).exists()]
-    if not folder.is_dir():
-        raise UserError(f"{folder}: no such run folder")
-    if missing:
-        raise UserError(f"{folder}: not a complete castline run folder (missing {', '.join(missing)})")
-    try:
-        metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
-        data = json.loads((folder / "fingerprint.json").read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise UserError(f"{folder}: a run file cannot be read ({exc})") from None
-    predictions = _read_csv(folder, "predictions.csv")
-    forecast = _read_csv(folder, "forecast.csv")
-    history = _read_csv(folder, "history.csv")
-    coefficients = _read_csv(folder, "coefficients.csv")
-    coverage = _read_csv(folder, "interval_coverage.csv")
-    scenarios = _read_csv(folder, "scenarios.csv")
-    residuals = _read_csv(folder, "residuals.csv")
-    diagnostics = _read_csv(folder, "diagnostics.csv")
-    influential = _read_csv(folder, "influential_rows.csv")
-    series_table = _read_csv(folder, "series.csv")
-    fallbacks = _read_csv(folder, "series_fallbacks.csv")
-    for frame in (predictions, forecast, history, scenarios, residuals, series_table):
-        for column in ("series", "period", "origin", "model", "scenario"):
-            if frame is not None and column in frame.columns:
-                frame[column] = frame[column].astype(str)
+    files = files if isinstance(files, RunFiles) else load_run_files(files)
+    metrics, data = files.metrics, files.fingerprint
+    predictions = files.table("predictions.csv")
+    forecast = files.table("forecast.csv")
+    history = files.table("history.csv")
+    coefficients = files.table("coefficients.csv")
+    coverage = files.table("interval_coverage.csv")
+    scenarios = files.table("scenarios.csv")
+    residuals = files.table("residuals.csv")
+    diagnostics = files.table("diagnostics.csv")
+    influential = files.table("influential_rows.csv")
+    series_table = files.table("series.csv")
+    fallbacks = files.table("series_fallbacks.csv")
 
     rows = metrics["models"]
     recommended = metrics["recommended"]
@@ -353,4 +298,4 @@ def render_report(folder: Path) -> str:
         notes=metrics.get("notes", []),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
-        spec_text=(folder / "spec.yaml").read_text(encoding="utf-8"), cautions=CAUTIONS)
+        spec_text=files.spec_text, cautions=CAUTIONS)

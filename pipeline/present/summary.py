@@ -1,4 +1,7 @@
-"""summary.md: the run's answer and evidence in Markdown, for a pull request or an e-mail."""
+"""summary.md: the run's answer and evidence in Markdown, for a pull request or an e-mail.
+
+Rendered from the run folder's files alone (``present.run_files``), as the report is.
+"""
 
 from __future__ import annotations
 
@@ -7,7 +10,6 @@ import pandas as pd
 
 from pipeline.core.catalogue import SCORES
 from pipeline.core.intervals import trusted_method
-from pipeline.core.version import __version__
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -17,62 +19,75 @@ from pipeline.present.report import (
     per_series_view,
     render_markdown,
 )
-from pipeline.spec import Spec
-from pipeline.spec.wording import describe_validation
-from pipeline.stages.evaluate import Evaluation
-from pipeline.stages.forecast import ForecastResult
+from pipeline.present.run_files import RunFiles
+from pipeline.present.track_record import with_track_record
 
 
-def _records(frame: pd.DataFrame) -> list[dict]:
-    return frame.to_dict(orient="records")
+def _some(frame: pd.DataFrame | None) -> pd.DataFrame | None:
+    return frame if frame is not None and len(frame) else None
 
 
-def render_summary(spec: Spec, run_id: str, created: str, data_print: dict,
-                   evaluation: Evaluation, forecast: ForecastResult,
-                   fallbacks: pd.DataFrame | None = None) -> str:
-    """Return the run's summary in Markdown (from its template): the answer first, the evidence after."""
-    def some(frame: pd.DataFrame) -> pd.DataFrame | None:
-        return frame if len(frame) else None
+def _forecast_shown(files: RunFiles, recommended: str, coverage) -> tuple[pd.DataFrame | None, str | None]:
+    """Return the recommended model's forecast with the intervals the summary states, and
+    which intervals they are (analytic or empirical)."""
+    forecast = files.table("forecast.csv")
+    if forecast is None:
+        return None, None
+    own = forecast[forecast["model"] == recommended]
+    if not len(own):
+        return None, None
+    method = trusted_method(coverage, recommended, own)
+    shown = own[["period", "series", "forecast"]].copy()
+    for level in ("80", "95"):
+        shown[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
+        shown[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
+    return shown, method
 
-    comparison = evaluation.table[["model", *SCORES, "against_mean"]]
-    recommended = forecast.forecast[forecast.forecast["model"] == evaluation.recommended]
-    method = shown = None
-    if len(recommended):
-        method = trusted_method(evaluation.coverage, evaluation.recommended, recommended)
-        shown = recommended[["period", "series", "forecast"]].copy()
-        for level in ("80", "95"):
-            shown[f"{level}% from"] = recommended[f"{method}_low_{level}"].to_numpy()
-            shown[f"{level}% to"] = recommended[f"{method}_high_{level}"].to_numpy()
-    scenarios = None
-    if len(forecast.scenarios):
-        scenarios = forecast.scenarios[forecast.scenarios["model"] == evaluation.recommended].drop(columns=["model"])
+
+def _diagnostics(files: RunFiles) -> pd.DataFrame | None:
+    found = _some(files.table("diagnostics.csv"))
+    if found is None:
+        return None
+    shown = found[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
+    shown["flagged"] = np.where(shown["flagged"].astype(bool), "FLAG", "")
+    return shown
+
+
+def render_summary(files: RunFiles) -> str:
+    """Return the run's summary in Markdown (from its template): the answer first, the evidence
+    after, and the track record of earlier runs when the run folder holds one."""
+    metrics, data_print = files.metrics, files.fingerprint
+    recommended, rows = metrics["recommended"], metrics["models"]
+    coverage = files.table("interval_coverage.csv")
+    shown, method = _forecast_shown(files, recommended, coverage)
+    scenarios = _some(files.table("scenarios.csv"))
+    if scenarios is not None:
+        scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"])
     series_count = len(data_print.get("series", []))
-    drivers = drivers_view(forecast.coefficients, evaluation.recommended, series_count)
+    drivers = drivers_view(files.table("coefficients.csv"), recommended, series_count)
     terms = drivers["terms"]
     standard_errors = terms["standard_errors"].iloc[0] \
         if terms is not None and len(terms) and "standard_errors" in terms else None
     per_series = per_series_view(
-        evaluation.by_series, _records(evaluation.series_summary), fallbacks,
-        rows=_records(evaluation.table), recommended=evaluation.recommended,
-        select_by=evaluation.select_by, level=spec.significance_level, series_count=series_count)
-    diagnostics = None
-    if len(forecast.diagnostics):
-        diagnostics = forecast.diagnostics[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
-        diagnostics["flagged"] = np.where(diagnostics["flagged"], "FLAG", "")
-    return render_markdown(
-        "summary.md.j2", spec_name=spec.name, run_id=run_id, created=created,
-        verdict=evaluation.verdict, recommended=evaluation.recommended,
-        select_by=evaluation.select_by, beats=evaluation.beats_baseline,
-        validation=describe_validation(spec), comparison=comparison,
+        files.table("series.csv"), metrics.get("series_summary", []), files.table("series_fallbacks.csv"),
+        rows=rows, recommended=recommended, select_by=metrics["select_by"],
+        level=metrics["significance_level"], series_count=series_count)
+    summary = render_markdown(
+        "summary.md.j2", spec_name=metrics["spec_name"], run_id=metrics["run_id"],
+        created=metrics["created"], verdict=metrics["verdict"], recommended=recommended,
+        select_by=metrics["select_by"], beats=metrics["beats_baseline"],
+        validation=metrics["validation_text"],
+        comparison=pd.DataFrame(rows)[["model", *SCORES, "against_mean"]],
         forecast=shown.head(TABLE_ROWS) if shown is not None else None,
         forecast_rows=len(shown) if shown is not None else 0, method=method,
-        coverage=some(evaluation.coverage),
+        coverage=_some(coverage),
         scenarios=scenarios.head(TABLE_ROWS) if scenarios is not None else None,
         scenario_rows=len(scenarios) if scenarios is not None else 0,
         drivers=drivers, terms=terms if terms is not None and len(terms) else None,
         terms_model=drivers["model"] or "", standard_errors=standard_errors,
         per_series=per_series, series_names=named(data_print.get("series", [])),
-        names_shown=NAMES_SHOWN,
-        fit=some(forecast.fit_summary), diagnostics=diagnostics, influential=some(forecast.influential),
-        notes=forecast.warnings + evaluation.notes, data=data_print, cautions=CAUTIONS,
-        castline_version=__version__)
+        names_shown=NAMES_SHOWN, fit=_some(pd.DataFrame(metrics.get("fit", []))),
+        diagnostics=_diagnostics(files), influential=_some(files.table("influential_rows.csv")),
+        notes=metrics.get("notes", []), data=data_print, cautions=CAUTIONS,
+        castline_version=metrics.get("castline_version", ""))
+    return with_track_record(summary, files.track, files.table("realised.csv"))

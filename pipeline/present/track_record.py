@@ -1,37 +1,32 @@
-"""The summary's Track record section, in Markdown."""
+"""The summary's Track record section, in Markdown, from the run folder's files
+(track_record.json and realised.csv)."""
 
 from __future__ import annotations
 
-import math
-
 import pandas as pd
 
-from pipeline.review.track_record import TrackRecord
+from pipeline.core.formatting import markdown_table
+from pipeline.review.track_record import summarise_realised
 
 
-def _markdown(frame: pd.DataFrame) -> str:
-    def cell(value) -> str:
-        if isinstance(value, float):
-            return "n/a" if not math.isfinite(value) else f"{value:.4g}"
-        return str(value)
-    lines = ["| " + " | ".join(frame.columns) + " |", "|" + "|".join(" --- " for _ in frame.columns) + "|"]
-    lines += ["| " + " | ".join(cell(v) for v in row) + " |" for row in frame.itertuples(index=False)]
-    return "\n".join(lines)
+def track_record_section(track: dict, realised: pd.DataFrame | None, runs_shown: int = 12) -> str:
+    """Return the summary's track-record section in Markdown.
 
-
-def track_record_section(track: TrackRecord, runs_shown: int = 12) -> str:
-    """Return the summary's track-record section in Markdown."""
+    ``track`` is track_record.json (ledger, earlier_runs, recommended, warnings);
+    ``realised`` is realised.csv, the earlier forecasts scored against this run's actuals.
+    """
     lines = ["## Track record", ""]
-    lines += [f"- **Warning:** {w}" for w in track.warnings]
-    if track.warnings:
+    lines += [f"- **Warning:** {w}" for w in track["warnings"]]
+    if track["warnings"]:
         lines.append("")
-    if not track.earlier_runs:
-        lines += [f"This is the first run of this spec in the ledger `{track.ledger}`; later runs "
+    if not track["earlier_runs"]:
+        lines += [f"This is the first run of this spec in the ledger `{track['ledger']}`; later runs "
                   "score its forecasts as their months' actuals arrive.", ""]
         return "\n".join(lines)
-    lines += [f"{track.earlier_runs} earlier run(s) of this spec are in the ledger `{track.ledger}`."]
-    table = track.by_horizon
-    table = table[[track.recommended.get(r) == m for r, m in zip(table["forecast_run_id"], table["model"])]]
+    lines += [f"{track['earlier_runs']} earlier run(s) of this spec are in the ledger `{track['ledger']}`."]
+    table = summarise_realised(realised if realised is not None else pd.DataFrame(columns=["forecast_run_id"]))
+    recommended = track["recommended"]
+    table = table[[recommended.get(r) == m for r, m in zip(table["forecast_run_id"], table["model"])]]
     if not len(table):
         lines += ["None of their forecasts has an actual in this run's data yet.", ""]
         return "\n".join(lines)
@@ -46,15 +41,15 @@ def track_record_section(track: TrackRecord, runs_shown: int = 12) -> str:
               "recommended model; expected MAE is that run's backtest MAE at the same months "
               "ahead; bias is forecast − actual; inside is the share of actuals within the "
               "interval the run stated). Every scored forecast is in realised.csv.", "",
-              _markdown(shown), ""]
+              markdown_table(shown), ""]
     return "\n".join(lines)
 
 
-def with_track_record(summary: str, track: TrackRecord | None) -> str:
+def with_track_record(summary: str, track: dict | None, realised: pd.DataFrame | None) -> str:
     """Return the summary with the track-record section put before its data section."""
     if track is None:
         return summary
-    section = track_record_section(track) + "\n"
+    section = track_record_section(track, realised) + "\n"
     for heading in ("\n## Data\n", "\n## Cautions\n"):
         if heading in summary:
             at = summary.index(heading) + 1

@@ -96,9 +96,8 @@ def fingerprint(data: CheckedData) -> dict:
     }
 
 
-# Renders the pages people read from a staged run folder's files:
-# (staging folder, run id, created, fingerprint, fallback table) -> {file name: text}.
-PageRenderer = Callable[[Path, str, str, dict, pd.DataFrame], dict[str, str]]
+# Renders the pages people read from a staged run folder's files alone: folder -> {file name: text}.
+PageRenderer = Callable[[Path], dict[str, str]]
 
 
 def write_page(folder: Path, name: str, text: str) -> Path:
@@ -112,10 +111,13 @@ def write_page(folder: Path, name: str, text: str) -> Path:
 
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
-            realised: pd.DataFrame | None = None, pages: PageRenderer) -> RunFolder:
+            realised: pd.DataFrame | None = None, track: dict | None = None,
+            pages: PageRenderer) -> RunFolder:
     """Write the run folder atomically, record it in the run ledger, and return where it landed.
 
-    ``realised`` is the track record's table (earlier forecasts scored against this data);
+    ``realised`` is the track record's table (earlier forecasts scored against this data) and
+    ``track`` what else the track record found (track_record.json: ledger, earlier runs,
+    warnings);
     ``pages`` renders the pages read by people (summary.md, report.html) from the files
     already written: castline's presentation layer, handed in by the runner.
     """
@@ -183,7 +185,9 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         write_csv(evaluation.by_series, staging / "series.csv")
         if realised is not None:
             write_csv(realised, staging / "realised.csv")
-        for name, text in pages(staging, run_id, created, data_print, fallbacks).items():
+        if track is not None:
+            (staging / "track_record.json").write_text(json.dumps(track, indent=2), encoding="utf-8")
+        for name, text in pages(staging).items():
             write_page(staging, name, text)
         final = folder / run_id
         ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,

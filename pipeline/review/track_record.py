@@ -31,6 +31,13 @@ class TrackRecord:
     warnings: list[str] = field(default_factory=list)
     runs_without_skill: int = 0     # runs in a row, this one included, not beating the baseline
 
+    def facts(self) -> dict:
+        """Return what the run folder keeps of it (track_record.json) beside realised.csv, so
+        the summary can be rendered again from the folder alone."""
+        return {"ledger": str(self.ledger), "earlier_runs": self.earlier_runs,
+                "recommended": dict(self.recommended), "warnings": list(self.warnings),
+                "runs_without_skill": self.runs_without_skill}
+
 
 def _empty_realised() -> pd.DataFrame:
     return pd.DataFrame(columns=REALISED_COLUMNS)

@@ -211,15 +211,20 @@ def test_series_terms_of_a_pooled_model_are_summarised_with_many_series(many):
     assert few["spread"] is None and len(few["terms"]) == len(pooled)
 
 
-def test_the_report_is_rebuilt_byte_for_byte_from_the_folder(many, tmp_path):
+def test_the_report_and_summary_are_rebuilt_byte_for_byte_from_the_folder(many, tmp_path):
+    # Both pages come from the run folder's files alone: without the run's memory, castline
+    # report writes them again exactly as the run did.
     copy = tmp_path / "copy"
     shutil.copytree(many.folder.path, copy)
     (copy / "report.html").unlink()
+    (copy / "summary.md").unlink()
     environment = {**os.environ, "PYTHONPATH": str(ROOT)}   # this checkout's code
     done = subprocess.run([sys.executable, "-m", "pipeline", "report", str(copy)],
                           capture_output=True, text=True, cwd=tmp_path, env=environment)
     assert done.returncode == 0, done.stderr
     assert (copy / "report.html").read_bytes() == (many.folder.path / "report.html").read_bytes()
+    assert (copy / "summary.md").read_bytes() == (many.folder.path / "summary.md").read_bytes()
+    assert f"summary: {copy / 'summary.md'}" in done.stdout and f"report: {copy / 'report.html'}" in done.stdout
 
 
 def test_a_one_series_run_has_no_per_series_section(one):

@@ -1,0 +1,81 @@
+"""A run folder's files, read back for the pages people read (report.html, summary.md).
+
+Both pages are rendered from these files alone, never from a run's memory, so
+``castline report RUN_FOLDER`` rebuilds them exactly as the run wrote them.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from pipeline.core.errors import UserError
+
+REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
+            "coefficients.csv", "history.csv"]
+# Columns that hold names (of series, months, origins, models, scenarios), read as text.
+NAME_COLUMNS = ("series", "period", "origin", "model", "scenario")
+NAMED_TABLES = ("predictions.csv", "forecast.csv", "history.csv", "scenarios.csv", "residuals.csv",
+                "series.csv")
+
+
+def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
+    path = folder / name
+    if not path.exists() or path.stat().st_size == 0:
+        return None
+    try:
+        # Whole-column type inference: a column empty for most rows (a per-series model's
+        # series column in coefficients.csv) is read the same however long the file is.
+        frame = pd.read_csv(path, keep_default_na=True, low_memory=False)
+    except pd.errors.EmptyDataError:
+        return None
+    return frame if len(frame.columns) else None
+
+
+@dataclass(frozen=True)
+class RunFiles:
+    """A run folder's JSON documents, spec text and tables (each read once, when first asked)."""
+
+    folder: Path
+    metrics: dict
+    fingerprint: dict
+    spec_text: str
+    track: dict | None = None     # track_record.json: what the ledger said of earlier runs
+    _tables: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def table(self, name: str) -> pd.DataFrame | None:
+        """Return a CSV file of the run as a table (None when absent or empty)."""
+        if name not in self._tables:
+            frame = _read_csv(self.folder, name)
+            if frame is not None and name in NAMED_TABLES:
+                for column in NAME_COLUMNS:
+                    if column in frame.columns:
+                        frame[column] = frame[column].astype(str)
+            self._tables[name] = frame
+        return self._tables[name]
+
+
+def load_run_files(folder: str | Path) -> RunFiles:
+    """Return a run folder's files, read back.
+
+    Raises UserError (one line naming the folder) when it is not a complete run folder or a
+    file of it cannot be read.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise UserError(f"{folder}: no such run folder")
+    missing = [name for name in REQUIRED if not (folder / name).exists()]
+    if missing:
+        raise UserError(f"{folder}: not a complete castline run folder (missing {', '.join(missing)})")
+    try:
+        metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
+        fingerprint = json.loads((folder / "fingerprint.json").read_text(encoding="utf-8"))
+        spec_text = (folder / "spec.yaml").read_text(encoding="utf-8")
+        track_file = folder / "track_record.json"
+        track = json.loads(track_file.read_text(encoding="utf-8")) if track_file.exists() else None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UserError(f"{folder}: a run file cannot be read ({exc})") from None
+    return RunFiles(folder, metrics, fingerprint, spec_text, track)
