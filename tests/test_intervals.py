@@ -95,7 +95,7 @@ def test_the_95_interval_covers_about_95_percent_of_simulated_future_values():
 
 def _errors(rng: np.random.Generator, counts: dict[int, int]) -> pd.DataFrame:
     rows = [(h, e) for h, count in counts.items() for e in rng.standard_t(4, count) * h]
-    return pd.DataFrame(rows, columns=["horizon", "error"])
+    return pd.DataFrame(rows, columns=["horizon", "residual"])
 
 
 @pytest.mark.parametrize("level", [0.80, 0.95])
@@ -106,7 +106,7 @@ def test_empirical_offsets_equal_numpy_quantiles_per_horizon(level):
     tail = (1 - level) / 2
     assert sorted(offsets) == [1, 2, 3]                            # horizon 4 has too few errors
     for horizon, (low, high) in offsets.items():
-        values = errors.loc[errors["horizon"] == horizon, "error"].to_numpy()
+        values = errors.loc[errors["horizon"] == horizon, "residual"].to_numpy()
         assert low == np.quantile(values, tail)                    # numpy.quantile, linear
         assert high == np.quantile(values, 1 - tail)
 
@@ -124,14 +124,14 @@ def test_empirical_bounds_add_the_offsets_of_the_horizon_and_reuse_the_furthest_
 
 
 def test_empirical_bounds_are_nan_with_too_few_errors():
-    errors = pd.DataFrame({"horizon": [1] * (MIN_ERRORS - 1), "error": np.arange(MIN_ERRORS - 1.0)})
+    errors = pd.DataFrame({"horizon": [1] * (MIN_ERRORS - 1), "residual": np.arange(MIN_ERRORS - 1.0)})
     low, high = empirical_bounds(np.array([1.0, 2.0]), np.array([1, 2]), errors, 0.95)
     assert np.isnan(low).all() and np.isnan(high).all()
 
 
 def test_empirical_bounds_without_time_order_pool_every_error():
     # k-fold predictions all have horizon 0; with none per horizon above the minimum, all pool.
-    errors = pd.DataFrame({"horizon": 0, "error": np.linspace(-5, 5, 11)})
+    errors = pd.DataFrame({"horizon": 0, "residual": np.linspace(-5, 5, 11)})
     low, high = empirical_bounds(np.array([10.0]), np.array([0]), errors, 0.8)
     assert low[0] == 10 + np.quantile(np.linspace(-5, 5, 11), 0.1)   # numpy.quantile: −4
     assert high[0] == 10 + np.quantile(np.linspace(-5, 5, 11), 0.9)  # numpy.quantile: +4

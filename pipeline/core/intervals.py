@@ -21,28 +21,30 @@ def analytic_bounds(prediction, se, df, level: float) -> tuple[np.ndarray, np.nd
     return prediction - multiplier * se, prediction + multiplier * se
 
 
-def empirical_offsets(errors: pd.DataFrame, level: float) -> dict[int, tuple[float, float]]:
-    """Return, per horizon, the error quantiles bounding the central share ``level``.
+def empirical_offsets(residuals: pd.DataFrame, level: float) -> dict[int, tuple[float, float]]:
+    """Return, per horizon, the residual quantiles bounding the central share ``level``.
 
-    ``errors`` holds columns horizon and error (actual − prediction). Horizons
-    with fewer than MIN_ERRORS errors are left out.
+    ``residuals`` holds columns horizon and residual: actual − prediction, what must be
+    added to a prediction to reach the actual (the opposite sign of an error, which is
+    prediction − actual everywhere in castline). Horizons with fewer than MIN_ERRORS
+    residuals are left out.
     """
     tail = (1 - level) / 2
     offsets = {}
-    for horizon, group in errors.groupby("horizon"):
-        values = group["error"].to_numpy(float)
+    for horizon, group in residuals.groupby("horizon"):
+        values = group["residual"].to_numpy(float)
         if len(values) >= MIN_ERRORS:
             offsets[int(horizon)] = (float(np.quantile(values, tail)),
                                      float(np.quantile(values, 1 - tail)))
     return offsets
 
 
-def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, errors: pd.DataFrame,
+def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, residuals: pd.DataFrame,
                      level: float) -> tuple[np.ndarray, np.ndarray]:
-    """Return forecast + the error quantiles of its horizon (NaN where too few errors)."""
-    offsets = empirical_offsets(errors, level)
-    if not offsets and len(errors) >= MIN_ERRORS:  # no time order (k-fold): all errors together
-        offsets = empirical_offsets(errors.assign(horizon=0), level)
+    """Return forecast + the residual quantiles of its horizon (NaN where too few residuals)."""
+    offsets = empirical_offsets(residuals, level)
+    if not offsets and len(residuals) >= MIN_ERRORS:  # no time order (k-fold): all together
+        offsets = empirical_offsets(residuals.assign(horizon=0), level)
     low = np.full(len(forecast), np.nan)
     high = np.full(len(forecast), np.nan)
     if not offsets:
@@ -86,11 +88,11 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
                 earlier = own[mask]
                 if len(earlier) < MIN_ERRORS:
                     continue
-                errors = pd.DataFrame({"horizon": earlier["horizon"],
-                                       "error": earlier["actual"] - earlier["prediction"]})
+                residuals = pd.DataFrame({"horizon": earlier["horizon"],
+                                          "residual": earlier["actual"] - earlier["prediction"]})
                 now = own[origin_of == origin]
                 low, high = empirical_bounds(now["prediction"].to_numpy(), now["horizon"].to_numpy(),
-                                             errors, level)
+                                             residuals, level)
                 known = np.isfinite(low)
                 actual = now["actual"].to_numpy()[known]
                 inside_count += int(((actual >= low[known]) & (actual <= high[known])).sum())

@@ -1,7 +1,10 @@
 """Accuracy measures: pure functions of (actual, predicted).
 
-Errors are taken as prediction − actual, so a positive bias means the
-forecast ran high.
+One sign for "error", here and everywhere in castline: error = prediction − actual,
+so a positive bias means the forecasts ran high (the track record's realised errors,
+the significance test's losses and every table follow it). What is added to a
+prediction to reach the actual, actual − prediction, is called a residual instead
+(the fit's residuals, and the backtest residuals the empirical intervals are read from).
 """
 
 from __future__ import annotations

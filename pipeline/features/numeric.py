@@ -124,5 +124,3 @@ class NumericTerms:
                 f"the {self.missing} of the training window ({self.fill_value_:.4g}){marked}"]
 
 
-# The name the OLS tests and earlier code know this transformer by.
-PolynomialTerms = NumericTerms

@@ -216,8 +216,8 @@ class FeaturePlan:
                     raise self.error(key, f"'{name}' reaches past the forecast origin ({at}): the "
                                           f"months predicted run up to {ahead} months after it, so "
                                           f"each lag of the target must be at least {ahead} months "
-                                          "(a strategy that feeds predictions back month by month "
-                                          "is not offered yet)")
+                                          "(or multi_step: recursive feeds predictions back "
+                                          "month by month)")
 
     def feature_table(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> pd.DataFrame:
         """Return the features of the rows as a table (columns named, the frame's index),
@@ -314,16 +314,6 @@ class FeaturePlan:
         kept = frame[usable]
         y = kept[self.target].to_numpy(float) if self.target in kept.columns else np.empty(0)
         return self._design(kept, table.to_numpy()[usable], notes), y
-
-    @property
-    def shortest_target_lag(self) -> int | None:
-        """Return the fewest months back any feature reads the target, or None."""
-        reaches = [back for part in self._unfitted_lag_parts() if part.of_target
-                   for back, _, _ in part.reaches()]
-        return min(reaches) if reaches else None
-
-    def _unfitted_lag_parts(self) -> list[LagFeatures]:
-        return [self._lag_part(index, lagged) for index, lagged in enumerate(self.lags)]
 
     def get_feature_names_out(self) -> list[str]:
         return [name for part in self.parts_ for name in part.get_feature_names_out()]

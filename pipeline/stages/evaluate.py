@@ -165,7 +165,7 @@ def _loss(errors: np.ndarray, select_by: str) -> np.ndarray:
     return errors ** 2 if select_by == "rmse" else np.abs(errors)
 
 
-def test_lags(backtest: BacktestResult, origins: int) -> int:
+def autocovariance_lags(backtest: BacktestResult, origins: int) -> int:
     """Return how many autocovariance lags the test allows for (its horizon h).
 
     Over rolling origins, forecasts from origins less than a horizon apart
@@ -191,7 +191,7 @@ def loss_differences(predictions: pd.DataFrame, model: str, backtest: BacktestRe
     origins = frame["origin"].nunique()
     if backtest.scheme == "rolling_origin" and origins >= 3:
         series = frame.groupby("origin", sort=True)["d"].mean()
-        return series.to_numpy(), test_lags(backtest, origins), \
+        return series.to_numpy(), autocovariance_lags(backtest, origins), \
             f"the mean loss at each of {origins} origins"
     if backtest.scheme in ("holdout", "rolling_origin"):
         series = frame.groupby("period", sort=True)["d"].mean()
@@ -208,7 +208,7 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
     For one series the loss differences (baseline − model, the loss of
     ``select_by``) are taken row by row over the rows both predicted, ordered by
     origin then period, with as many lags as the overall test allows for
-    (``test_lags``). Columns: model, series, test_statistic, p_value, test_n.
+    (``autocovariance_lags``). Columns: model, series, test_statistic, p_value, test_n.
     """
     columns = ["model", "series", "test_statistic", "p_value", "test_n"]
     if not len(predictions):
@@ -225,7 +225,7 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
     base = np.flatnonzero(model == BASELINE)
     base = base[~pd.Index(key[base]).duplicated()]   # the first row of a duplicated cell, as pivot_table
     base_index = pd.Index(key[base])
-    lags = test_lags(backtest, int(predictions["origin"].nunique()))
+    lags = autocovariance_lags(backtest, int(predictions["origin"].nunique()))
     frames = []
     for name in dict.fromkeys(model):
         if name == BASELINE:

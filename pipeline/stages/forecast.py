@@ -131,7 +131,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
             table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
                      "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
             own = predictions[predictions["model"] == kind]
-            errors = pd.DataFrame({"horizon": own["horizon"], "error": own["actual"] - own["prediction"]})
+            backtest_residuals = pd.DataFrame({"horizon": own["horizon"],
+                                               "residual": own["actual"] - own["prediction"]})
             for level in LEVELS:
                 if se is not None:
                     low, high = analytic_bounds(point, se, df, level)
@@ -140,7 +141,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
                 table[f"analytic_low_{percent(level)}"] = low
                 table[f"analytic_high_{percent(level)}"] = high
             for level in LEVELS:
-                low, high = empirical_bounds(point, horizons, errors, level)
+                low, high = empirical_bounds(point, horizons, backtest_residuals, level)
                 table[f"empirical_low_{percent(level)}"] = low
                 table[f"empirical_high_{percent(level)}"] = high
             forecasts.append(pd.DataFrame(table))

@@ -1,7 +1,7 @@
 """Numerical checks of castline's own OLS path against outside references.
 
 Every reference value below has its source named beside it. The fits all go
-through the code the pipeline uses: ``PolynomialTerms`` / ``Design`` from
+through the code the pipeline uses: ``NumericTerms`` / ``Design`` from
 ``pipeline.stages.features`` and ``OLSModel`` from ``pipeline.models.ols``.
 """
 
@@ -20,7 +20,7 @@ from sklearn.linear_model import LinearRegression
 from statsmodels.datasets import stackloss
 
 from pipeline.core.design import Design
-from pipeline.features.numeric import PolynomialTerms
+from pipeline.features.numeric import NumericTerms
 from pipeline.models.ols import INTERCEPT, Collinearity, OLSModel
 
 NIST_DIR = Path(__file__).resolve().parents[1] / "data" / "nist_strd"
@@ -64,7 +64,7 @@ def _nist_fit(name: str) -> OLSModel:
         columns = [column for column in frame.columns if column != "y"]
         design = _design(frame[columns].to_numpy(float), columns)
     else:                            # polynomial in x up to the certified degree
-        terms = PolynomialTerms("x", certified["degree"]).fit(frame)
+        terms = NumericTerms("x", certified["degree"]).fit(frame)
         design = _design(terms.transform(frame), terms.get_feature_names_out())
     model = OLSModel(fit_intercept=certified["intercept"])
     return model.fit(design, frame["y"].to_numpy(float))

@@ -26,7 +26,7 @@ import statsmodels.api as sm
 from statsmodels.datasets import grunfeld
 
 from pipeline.core.design import Design
-from pipeline.features.numeric import PolynomialTerms
+from pipeline.features.numeric import NumericTerms
 from pipeline.models import per_series
 from pipeline.models.ols import INTERCEPT
 from pipeline.models.per_series import ChunkTask, PerSeriesOLS, fit_series_chunk
@@ -262,7 +262,7 @@ def _nist_task(name: str, copies: int = 1) -> ChunkTask:
         columns = [c for c in frame.columns if c != "y"]
         matrix = frame[columns].to_numpy(float)
     else:
-        terms = PolynomialTerms("x", certified["degree"]).fit(frame)
+        terms = NumericTerms("x", certified["degree"]).fit(frame)
         matrix, columns = terms.transform(frame), terms.get_feature_names_out()
     if certified["intercept"]:
         matrix = np.column_stack([np.ones(len(matrix)), matrix])
