@@ -20,7 +20,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from pipeline.core.catalogue import model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
-from pipeline.core.errors import DataError, UserError
+from pipeline.core.errors import DataError, ModelFileError, UserError
 from pipeline.core.version import __version__
 from pipeline.features import calendar, categorical, interactions, lags, numeric, series
 from pipeline.features import plan as plan_module
@@ -32,10 +32,6 @@ from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
 FORMAT_VERSION = 1
-
-
-class ModelFileError(UserError):
-    """A model file that is not one castline wrote, or is damaged."""
 
 
 # ------------------------------------------------------------ tagged JSON values
