@@ -256,10 +256,8 @@ class TargetMeanEncoder(_LevelEncoder):
         with StoredFields(data, cls.__name__, parts, version) as fields:
             column, reference = fields.text("column"), fields.text("reference", optional=True)
             group_below = fields.whole("group_below", minimum=1, optional=True)
-            encoder = cls(column, smoothing=None, reference=reference, group_below=group_below,
-                          unseen=fields.choice("unseen", UNSEEN))
-            encoder.smoothing = fields.number("smoothing")
-            encoder.target_name = fields.text("target_name")
+            encoder = cls(column, fields.number("smoothing"), reference, group_below,
+                          fields.choice("unseen", UNSEEN), fields.text("target_name"))
             encoder.grouped_ = fields.texts("grouped_")
             encoder.reference_ = fields.text("reference_", optional=True)
             encoder.known_levels_ = fields.texts("known_levels_")
