@@ -64,3 +64,7 @@ class DataError(UserError):
             parts.append(f"column '{self.column}'")
         prefix = ": ".join(parts)
         return f"{prefix}: {self.message}" if prefix else self.message
+
+
+class ModelFileError(UserError):
+    """A model file that is not one castline wrote, or is damaged."""

@@ -8,7 +8,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, month_ordinals
-from pipeline.core.errors import DataError
+from pipeline.core.errors import DataError, ModelFileError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.rows import first_row
 
 MONTH_NAMES = list(calendar_module.month_name)   # MONTH_NAMES[3] == "March"
@@ -27,11 +28,24 @@ class TrendTerm:
     def get_feature_names_out(self) -> list[str]:
         return [f"months since {self.first_month_}"]
 
+    def to_dict(self, parts=()) -> dict:
+        """Return what was learned, as stored in a model file."""
+        return encode_fields({"first_month_": self.first_month_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> TrendTerm:
+        """Return the fitted term ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            term = cls()
+            term.first_month_ = fields.period("first_month_")
+        return term
+
 
 class _PeriodDummies:
     """A 0/1 column per calendar level seen in the window, less the reference (the first seen)."""
 
     word = ""
+    levels = range(0)   # the levels there are (months 1 to 12, quarters 1 to 4)
 
     def _level(self, frame: pd.DataFrame) -> np.ndarray:
         raise NotImplementedError
@@ -59,11 +73,28 @@ class _PeriodDummies:
     def get_feature_names_out(self) -> list[str]:
         return [f"{self.word}: {self._label(level)}" for level in self.levels_]
 
+    def to_dict(self, parts=()) -> dict:
+        """Return what was learned, as stored in a model file."""
+        return encode_fields({"reference_": self.reference_, "levels_": self.levels_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION):
+        """Return the fitted dummies ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            dummies = cls()
+            dummies.reference_ = fields.whole("reference_")
+            dummies.levels_ = fields.wholes("levels_")
+        seen = [dummies.reference_, *dummies.levels_]
+        if not set(seen) <= set(cls.levels) or seen != sorted(set(seen)):
+            raise ModelFileError(f"{cls.__name__}: its levels are not {cls.word}s in order")
+        return dummies
+
 
 class MonthDummies(_PeriodDummies):
     """A 0/1 column per month of the year, less January (or the first month the window holds)."""
 
     word = "month"
+    levels = range(1, 13)
 
     def _level(self, frame: pd.DataFrame) -> np.ndarray:
         return frame[PERIOD].dt.month.to_numpy(int)
@@ -76,6 +107,7 @@ class QuarterDummies(_PeriodDummies):
     """A 0/1 column per quarter, less the first quarter (or the first the window holds)."""
 
     word = "quarter"
+    levels = range(1, 5)
 
     def _level(self, frame: pd.DataFrame) -> np.ndarray:
         return frame[PERIOD].dt.quarter.to_numpy(int)
@@ -114,6 +146,20 @@ class FourierTerms:
     def get_feature_names_out(self) -> list[str]:
         return [f"{kind}(2π·{f'{k}·' if k > 1 else ''}month/12)" for kind, k in self._pairs()]
 
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings, as stored in a model file."""
+        return encode_fields({"harmonics": self.harmonics, "fitted_": self.fitted_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> FourierTerms:
+        """Return the fitted terms ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            terms = cls(fields.whole("harmonics", minimum=1))
+            if terms.harmonics > 6:
+                raise fields.bad("harmonics", "at most 6")
+            terms.fitted_ = _fitted(fields)
+        return terms
+
 
 def working_days_in_month(months: np.ndarray, closures=()) -> np.ndarray:
     """Return, for each month ordinal, its weekdays (Monday to Friday) not among the closures."""
@@ -144,3 +190,25 @@ class WorkingDays:
 
     def get_feature_names_out(self) -> list[str]:
         return ["working days in the month"]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings (the closure dates), as stored in a model file."""
+        return encode_fields({"closures": self.closures, "fitted_": self.fitted_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> WorkingDays:
+        """Return the fitted term ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            closures = fields.value("closures")
+            if not isinstance(closures, list) or not all(isinstance(day, pd.Timestamp) for day in closures):
+                raise fields.bad("closures", "a list of dates")
+            days = cls([day.date() for day in closures])
+            days.fitted_ = _fitted(fields)
+        return days
+
+
+def _fitted(fields: StoredFields) -> bool:
+    """Read the mark a term with nothing to learn sets when fitted."""
+    if fields.raw("fitted_") is not True:
+        raise fields.bad("fitted_", "true")
+    return True

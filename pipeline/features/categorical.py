@@ -5,8 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.errors import DataError
+from pipeline.core.errors import DataError, ModelFileError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.rows import first_row, which_rows
+
+UNSEEN = ("stop", "use_reference")
 
 
 class _LevelEncoder:
@@ -76,6 +79,15 @@ class _LevelEncoder:
                 f"{which_rows(frame, unseen.to_numpy())} were treated as the reference level "
                 f"'{self.reference_}'"]
 
+    def _check_levels(self) -> None:
+        """Refuse learned levels, read from a model file, that do not agree with one another."""
+        known = set(self.known_levels_)
+        reference_ok = self.reference_ in known if known else self.reference_ is None
+        if not reference_ok or not set(self.grouped_).isdisjoint(known) or \
+                not set(getattr(self, "levels_", ())) <= known:
+            raise ModelFileError(f"{type(self).__name__} of '{self.column}': its learned levels do "
+                                 "not agree with one another")
+
     def main_effect(self, frame: pd.DataFrame) -> np.ndarray:
         return self.transform(frame)
 
@@ -107,6 +119,27 @@ class OneHotEncoder(_LevelEncoder):
 
     def get_feature_names_out(self) -> list[str]:
         return [f"{self.column}: {level}" for level in self.levels_]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and what was learned, as stored in a model file."""
+        return encode_fields({
+            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "unseen": self.unseen, "grouped_": self.grouped_, "reference_": self.reference_,
+            "known_levels_": self.known_levels_, "levels_": self.levels_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> OneHotEncoder:
+        """Return the fitted encoder ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            encoder = cls(fields.text("column"), fields.text("reference", optional=True),
+                          fields.whole("group_below", minimum=1, optional=True),
+                          fields.choice("unseen", UNSEEN))
+            encoder.grouped_ = fields.texts("grouped_")
+            encoder.reference_ = fields.text("reference_", optional=True)
+            encoder.known_levels_ = fields.texts("known_levels_")
+            encoder.levels_ = fields.texts("levels_")
+        encoder._check_levels()
+        return encoder
 
 
 class OrdinalEncoder(_LevelEncoder):
@@ -148,6 +181,31 @@ class OrdinalEncoder(_LevelEncoder):
             shown = shown[:2] + ["…"] + shown[-1:]
         return [f"{self.column}: rank ({', '.join(shown)})"]
 
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and what was learned, as stored in a model file."""
+        return encode_fields({
+            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "unseen": self.unseen, "order": self.order, "grouped_": self.grouped_,
+            "known_levels_": self.known_levels_, "reference_": self.reference_,
+            "ranks_": self.ranks_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> OrdinalEncoder:
+        """Return the fitted encoder ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            column, reference = fields.text("column"), fields.text("reference", optional=True)
+            if fields.raw("group_below") is not None:
+                raise fields.bad("group_below", "empty (an ordinal encoding groups no levels)")
+            encoder = cls(column, fields.texts("order"), reference, fields.choice("unseen", UNSEEN))
+            encoder.grouped_ = fields.texts("grouped_")
+            encoder.known_levels_ = fields.texts("known_levels_")
+            encoder.reference_ = fields.text("reference_", optional=True)
+            encoder.ranks_ = fields.number_map("ranks_")
+        encoder._check_levels()
+        if sorted(encoder.ranks_) != sorted(encoder.known_levels_):
+            raise ModelFileError(f"{cls.__name__} of '{column}': its ranks are not those of its levels")
+        return encoder
+
 
 class TargetMeanEncoder(_LevelEncoder):
     """A category as the smoothed mean of the target in each level, learned in the window.
@@ -182,3 +240,30 @@ class TargetMeanEncoder(_LevelEncoder):
 
     def get_feature_names_out(self) -> list[str]:
         return [f"{self.column}: smoothed mean of {self.target_name}"]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and what was learned, as stored in a model file."""
+        return encode_fields({
+            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "unseen": self.unseen, "smoothing": self.smoothing, "target_name": self.target_name,
+            "grouped_": self.grouped_, "reference_": self.reference_,
+            "known_levels_": self.known_levels_, "overall_mean_": self.overall_mean_,
+            "means_": self.means_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> TargetMeanEncoder:
+        """Return the fitted encoder ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            column, reference = fields.text("column"), fields.text("reference", optional=True)
+            group_below = fields.whole("group_below", minimum=1, optional=True)
+            encoder = cls(column, fields.number("smoothing"), reference, group_below,
+                          fields.choice("unseen", UNSEEN), fields.text("target_name"))
+            encoder.grouped_ = fields.texts("grouped_")
+            encoder.reference_ = fields.text("reference_", optional=True)
+            encoder.known_levels_ = fields.texts("known_levels_")
+            encoder.overall_mean_ = fields.number("overall_mean_")
+            encoder.means_ = fields.number_map("means_")
+        encoder._check_levels()
+        if sorted(encoder.means_) != sorted(encoder.known_levels_):
+            raise ModelFileError(f"{cls.__name__} of '{column}': its means are not those of its levels")
+        return encoder

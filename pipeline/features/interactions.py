@@ -5,6 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
+from pipeline.features.categorical import _LevelEncoder
+from pipeline.features.numeric import NumericTerms
+
+DRIVERS = (NumericTerms, _LevelEncoder)   # the parts an interaction may multiply
+
 
 class InteractionTerms:
     """The products of two fitted drivers' first-degree columns (a category: each of its columns)."""
@@ -25,3 +31,18 @@ class InteractionTerms:
     def get_feature_names_out(self) -> list[str]:
         return [f"{a} × {b}" for a in self.first.main_effect_names()
                 for b in self.second.main_effect_names()]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the two drivers, as references to their places in ``parts``, as stored."""
+        return encode_fields({"first": self.first, "second": self.second, "fitted_": self.fitted_}, parts)
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> InteractionTerms:
+        """Return the terms ``to_dict`` stored (``parts``: the features read before, which the
+        two drivers are among)."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            terms = cls(fields.part("first", DRIVERS), fields.part("second", DRIVERS))
+            if fields.raw("fitted_") is not True:
+                raise fields.bad("fitted_", "true")
+            terms.fitted_ = True
+        return terms

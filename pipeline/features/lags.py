@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.rows import months_phrase
 from pipeline.spec import (
     KeyPath,
@@ -81,6 +82,41 @@ class LagFeatures:
         names += [f"{label}, {months_phrase(start)} earlier minus {months_phrase(start + span)} "
                   "earlier" for span in self.differences]
         return names
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and the window's values, as stored in a model file."""
+        return encode_fields({
+            "column": self.column, "lags": self.lags, "rolling_means": self.rolling_means,
+            "differences": self.differences, "start_lag": self.start_lag, "label": self.label,
+            "of_target": self.of_target, "key": self.key, "values_": self.values_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> LagFeatures:
+        """Return the fitted features ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            column = fields.text("column")
+            lags, rolling = fields.wholes("lags", minimum=1), fields.wholes("rolling_means", minimum=2)
+            differences, start = fields.wholes("differences", minimum=1), fields.whole("start_lag", minimum=1)
+            label, of_target = fields.text("label"), fields.flag("of_target")
+            key = fields.value("key")
+            if not isinstance(key, tuple) or not all(isinstance(k, (str, int)) for k in key):
+                raise fields.bad("key", "a spec key path")
+            features = cls(column, lags, rolling, differences, start, label=label,
+                           of_target=of_target, key=key)
+            features.values_ = _window_values(fields)
+        return features
+
+
+def _window_values(fields: StoredFields) -> pd.Series:
+    """Read the window's values back: numbers keyed by (series, month ordinal)."""
+    values = fields.value("values_")
+    index = values.index if isinstance(values, pd.Series) else None
+    if index is None or index.nlevels != 2 or (len(values) and not (
+            pd.api.types.is_numeric_dtype(values.dtype)
+            and all(isinstance(s, str) for s in index.get_level_values(0))
+            and pd.api.types.is_integer_dtype(index.get_level_values(1)))):
+        raise fields.bad("values_", "numbers keyed by series and month")
+    return values.astype(float)
 
 
 def with_predictions(known: pd.DataFrame | None, rows: pd.DataFrame, predicted,

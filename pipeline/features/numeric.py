@@ -5,8 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.errors import DataError
+from pipeline.core.errors import DataError, ModelFileError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.rows import first_row, which_rows
+
+TRANSFORMS = ("none", "log", "log1p")
+FILLS = ("refuse", "mean", "median")
 
 
 def power_name(column: str, power: int) -> str:
@@ -122,5 +126,34 @@ class NumericTerms:
                   " (the training window had a value in every row, so no was-missing column)")
         return [f"{self.column}: {which_rows(frame, missing)} had no value and were filled with "
                 f"the {self.missing} of the training window ({self.fill_value_:.4g}){marked}"]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and what was learned, as stored in a model file."""
+        return encode_fields({
+            "column": self.column, "degree": self.degree, "transform_kind": self.transform_kind,
+            "clip_quantiles": self.clip_quantiles, "missing": self.missing,
+            "standardise": self.standardise, "marks_missing_": self.marks_missing_,
+            "fill_value_": self.fill_value_, "clip_bounds_": self.clip_bounds_,
+            "centre_": self.centre_, "scale_": self.scale_})
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> NumericTerms:
+        """Return the fitted terms ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            terms = cls(fields.text("column"), fields.whole("degree", minimum=1),
+                        fields.choice("transform_kind", TRANSFORMS),
+                        fields.numbers("clip_quantiles", optional=True, length=2),
+                        fields.choice("missing", FILLS), fields.flag("standardise"))
+            terms.marks_missing_ = fields.flag("marks_missing_")
+            terms.fill_value_ = fields.number("fill_value_", optional=True)
+            terms.clip_bounds_ = fields.numbers("clip_bounds_", optional=True, length=2, kind=tuple)
+            terms.centre_ = fields.number("centre_")
+            terms.scale_ = fields.number("scale_")
+        if not terms.scale_ > 0:
+            raise ModelFileError(f"{cls.__name__} of '{terms.column}': its scale is not above 0")
+        if (terms.fill_value_ is None) != (terms.missing == "refuse"):
+            raise ModelFileError(f"{cls.__name__}: a fill value is stored if and only if the "
+                                 "driver's missing values are filled")
+        return terms
 
 

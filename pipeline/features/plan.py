@@ -29,7 +29,8 @@ import pandas as pd
 
 from pipeline.core.columns import PERIOD, month_ordinals
 from pipeline.core.design import Design
-from pipeline.core.errors import DataError, SpecError
+from pipeline.core.errors import DataError, ModelFileError, SpecError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode, encode_settings
 from pipeline.features.calendar import FourierTerms, MonthDummies, QuarterDummies, TrendTerm, WorkingDays
 from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
 from pipeline.features.interactions import InteractionTerms
@@ -44,9 +45,16 @@ from pipeline.spec import (
     KeyPath,
     LaggedColumn,
     NumericDriver,
+    SeriesEffects,
     Spec,
     format_key_path,
 )
+
+# Every class a fitted plan's parts may be, by the name a model file gives it: the only
+# classes a model file's plan is rebuilt from (each with to_dict and from_dict).
+PART_CLASSES: dict[str, type] = {cls.__name__: cls for cls in (
+    NumericTerms, OneHotEncoder, OrdinalEncoder, TargetMeanEncoder, InteractionTerms, TrendTerm,
+    MonthDummies, FourierTerms, QuarterDummies, WorkingDays, SeriesTerms, LagFeatures)}
 
 
 def unplaced_spec_error(key: KeyPath, message: str) -> SpecError:
@@ -317,6 +325,81 @@ class FeaturePlan:
 
     def get_feature_names_out(self) -> list[str]:
         return [name for part in self.parts_ for name in part.get_feature_names_out()]
+
+    # -- storing
+
+    def to_dict(self) -> dict:
+        """Return the fitted plan as a model file stores it: its settings and what it learned
+        (``state``), and each part's class and fields (``parts``), in the order of the columns.
+        A part or a list of them in the state is a reference to its place in ``parts``; how to
+        report a spec error is not stored."""
+        parts = self.parts_
+        state = {
+            "numeric": [encode_settings(d) for d in self.numeric],
+            "categorical": [encode_settings(d) for d in self.categorical],
+            "series_column": self.series_column, "interactions": self.interactions,
+            "calendar": encode_settings(self.calendar) if self.calendar is not None else None,
+            "lags": [encode_settings(lagged) for lagged in self.lags],
+            "target": self.target, "target_transform": self.target_transform, "source": self.source,
+            "series_effects": (encode_settings(self.series_effects)
+                               if self.series_effects is not None else None),
+            "row_parts_": encode(self.row_parts_, parts), "lag_parts_": encode(self.lag_parts_, parts),
+            "numeric_parts_": encode(self.numeric_parts_, parts),
+            "window_end_": encode(self.window_end_)}
+        return {"class": type(self).__name__, "state": state,
+                "parts": [{"class": type(part).__name__, "state": part.to_dict(parts)} for part in parts]}
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> FeaturePlan:
+        """Return the fitted plan ``to_dict`` stored, its parts rebuilt in order (a part may
+        refer only to one before it), only from the classes in ``PART_CLASSES``."""
+        with StoredFields(data, "the plan", version=version) as entry:
+            if entry.raw("class") != cls.__name__:
+                raise ModelFileError("the plan is not a feature plan")
+            stored_parts = entry.raw("parts")
+            if not isinstance(stored_parts, list):
+                raise entry.bad("parts", "a list")
+            parts: list = []
+            for stored in stored_parts:
+                with StoredFields(stored, "a feature of the plan", version=version) as part:
+                    name = part.raw("class")
+                    if not isinstance(name, str) or name not in PART_CLASSES:
+                        raise ModelFileError(f"class {name!r} is not one castline stores")
+                    parts.append(PART_CLASSES[name].from_dict(part.raw("state"), parts, version))
+            plan = cls._from_state(entry.raw("state"), parts, version)
+        return plan
+
+    @classmethod
+    def _from_state(cls, data: dict, parts: list, version: int) -> FeaturePlan:
+        with StoredFields(data, "FeaturePlan", parts, version) as fields:
+            interactions = fields.raw("interactions")
+            if not isinstance(interactions, list) or not all(
+                    isinstance(pair, list) and len(pair) == 2 and all(isinstance(c, str) for c in pair)
+                    for pair in interactions):
+                raise fields.bad("interactions", "a list of pairs of columns")
+            plan = cls(fields.settings_list("numeric", NumericDriver),
+                       fields.settings_list("categorical", CategoricalDriver),
+                       fields.text("series_column"), interactions=interactions,
+                       calendar=fields.settings("calendar", CalendarFeatures, optional=True),
+                       lags=fields.settings_list("lags", LaggedColumn),
+                       target=fields.text("target", optional=True),
+                       target_transform=fields.choice("target_transform", ("none", "log", "log1p")),
+                       source=fields.text("source", optional=True),
+                       series_effects=fields.settings("series_effects", SeriesEffects, optional=True))
+            row_kinds = tuple(kind for kind in PART_CLASSES.values() if kind is not LagFeatures)
+            plan.row_parts_ = fields.part_list("row_parts_", row_kinds)
+            plan.lag_parts_ = fields.part_list("lag_parts_", LagFeatures)
+            numeric = fields.value("numeric_parts_")
+            if not isinstance(numeric, dict) or not all(
+                    isinstance(part, NumericTerms) and part.column == column
+                    for column, part in numeric.items()):
+                raise fields.bad("numeric_parts_", "the numeric drivers' features by column")
+            plan.numeric_parts_ = numeric
+            plan.window_end_ = fields.period("window_end_", optional=True)
+        plan.parts_ = parts
+        if [id(part) for part in [*plan.row_parts_, *plan.lag_parts_]] != [id(part) for part in parts]:
+            raise ModelFileError("the plan's features are not its parts, each once, in order")
+        return plan
 
 
 def plan_features(spec: Spec, series_column: str) -> FeaturePlan:

@@ -6,7 +6,9 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.categorical import OneHotEncoder
+from pipeline.features.numeric import NumericTerms
 from pipeline.features.rows import which_rows
 from pipeline.spec import Spec
 
@@ -54,6 +56,32 @@ class SeriesTerms(OneHotEncoder):
         return [f"series {shown} had no training rows: the models over all series give "
                 f"{which_rows(frame, unseen.to_numpy())} the level and slopes of the first "
                 f"series '{self.reference_}'"]
+
+    def to_dict(self, parts=()) -> dict:
+        """Return the settings and what was learned, as stored in a model file; each slope's
+        driver as a reference to its place in ``parts``."""
+        return encode_fields({
+            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "unseen": self.unseen, "intercepts": self.intercepts, "slopes": self.slopes,
+            "grouped_": self.grouped_, "reference_": self.reference_,
+            "known_levels_": self.known_levels_, "levels_": self.levels_}, parts)
+
+    @classmethod
+    def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> SeriesTerms:
+        """Return the fitted terms ``to_dict`` stored (``parts``: the features read before, which
+        the slopes refer to)."""
+        with StoredFields(data, cls.__name__, parts, version) as fields:
+            column = fields.text("column")
+            for key, fixed in (("reference", None), ("group_below", None), ("unseen", "use_reference")):
+                if fields.raw(key) != fixed:
+                    raise fields.bad(key, repr(fixed))
+            terms = cls(column, fields.flag("intercepts"), fields.part_list("slopes", NumericTerms))
+            terms.grouped_ = fields.texts("grouped_")
+            terms.reference_ = fields.text("reference_", optional=True)
+            terms.known_levels_ = fields.texts("known_levels_")
+            terms.levels_ = fields.texts("levels_")
+        terms._check_levels()
+        return terms
 
 
 def series_effects_of(spec: Spec):

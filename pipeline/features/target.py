@@ -6,7 +6,10 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.errors import DataError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields
 from pipeline.features.rows import first_row
+
+KINDS = ("none", "log", "log1p")
 
 
 class TargetTransform:
@@ -15,6 +18,16 @@ class TargetTransform:
     def __init__(self, column: str, kind: str = "none") -> None:
         self.column = column
         self.kind = kind
+
+    def to_dict(self) -> dict:
+        """Return the transform as a model file stores it."""
+        return {"column": self.column, "kind": self.kind}
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> TargetTransform:
+        """Return the transform ``to_dict`` stored."""
+        with StoredFields(data, "the target transform", version=version) as fields:
+            return cls(fields.text("column"), fields.choice("kind", KINDS))
 
     @property
     def name(self) -> str:

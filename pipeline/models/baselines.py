@@ -11,6 +11,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.design import series_index
+from pipeline.core.errors import ModelFileError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields, is_number
 from pipeline.models.contract import Model
 
 SEASON = 12
@@ -43,6 +45,20 @@ class _PerSeriesBaseline(Model):
     def coefficient_table(self) -> pd.DataFrame:
         return pd.DataFrame({"term": [f"{self.word} of {s}" for s in self.values_],
                              "estimate": list(self.values_.values())})
+
+    def to_dict(self) -> dict:
+        """Return what was learned, as a model file stores it: each series' number and the
+        number for a series the window did not hold."""
+        return encode_fields({"values_": self.values_, "fallback_": self.fallback_})
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION):
+        """Return the fitted baseline ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, version=version) as fields:
+            model = cls()
+            model.values_ = fields.number_map("values_")
+            model.fallback_ = fields.number("fallback_")
+        return model
 
 
 class MeanBaseline(_PerSeriesBaseline):
@@ -100,6 +116,28 @@ class SeasonalNaive(Model):
         return pd.DataFrame({"term": [f"month {m + 1} of {s}" for s, m in self.values_],
                              "estimate": list(self.values_.values())})
 
+    def to_dict(self) -> dict:
+        """Return what was learned, as a model file stores it: the value of each (series,
+        month of the year from 0), each series' mean, and the overall mean."""
+        return encode_fields({"values_": self.values_, "means_": self.means_,
+                              "fallback_": self.fallback_})
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> SeasonalNaive:
+        """Return the fitted baseline ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, version=version) as fields:
+            model = cls()
+            values = fields.value("values_")
+            if not isinstance(values, dict) or not all(
+                    isinstance(key, tuple) and len(key) == 2 and isinstance(key[0], str)
+                    and isinstance(key[1], int) and not isinstance(key[1], bool)
+                    and 0 <= key[1] < SEASON and is_number(value) for key, value in values.items()):
+                raise fields.bad("values_", "a table of numbers by series and month of the year")
+            model.values_ = {key: float(value) for key, value in values.items()}
+            model.means_ = fields.number_map("means_")
+            model.fallback_ = fields.number("fallback_")
+        return model
+
 
 class Drift(Model):
     """Predicts, for each series, the straight line through its first and last training values."""
@@ -129,3 +167,26 @@ class Drift(Model):
     def coefficient_table(self) -> pd.DataFrame:
         return pd.DataFrame({"term": [f"slope per month of {s}" for s in self.slope_],
                              "estimate": list(self.slope_.values())})
+
+    def to_dict(self) -> dict:
+        """Return what was learned, as a model file stores it: per series, its last value,
+        the month of it (an ordinal) and the slope; and the overall mean."""
+        return encode_fields({"last_": self.last_, "last_period_": self.last_period_,
+                              "slope_": self.slope_, "fallback_": self.fallback_})
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> Drift:
+        """Return the fitted baseline ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, version=version) as fields:
+            model = cls()
+            model.last_ = fields.number_map("last_")
+            periods = fields.value("last_period_")
+            if not isinstance(periods, dict) or not all(
+                    isinstance(month, int) and not isinstance(month, bool) for month in periods.values()):
+                raise fields.bad("last_period_", "a table of months by series")
+            model.last_period_ = periods
+            model.slope_ = fields.number_map("slope_")
+            model.fallback_ = fields.number("fallback_")
+        if not model.last_.keys() == model.last_period_.keys() == model.slope_.keys():
+            raise ModelFileError(f"{cls.__name__}: its tables name different series")
+        return model

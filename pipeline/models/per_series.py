@@ -28,6 +28,8 @@ import scipy.stats
 
 from pipeline.core import execution, progress
 from pipeline.core.design import series_index
+from pipeline.core.errors import ModelFileError
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode
 from pipeline.models.contract import Model
 from pipeline.models.ols import INTERCEPT, least_squares
 
@@ -271,6 +273,32 @@ class PerSeriesOLS(Model):
         fallback = rows[self.fell_back_[code[rows]]]
         out[fallback] = self.means_[code[fallback]]
         return out
+
+    def to_dict(self) -> dict:
+        """Return what the point forecasts need, as a model file stores it: the terms, the
+        series, each one's coefficients (NaN where left out), mean and whether it fell back
+        to it, and the mean over all series (for a series the fit never saw)."""
+        return {"fit_intercept": self.fit_intercept, "names": list(self.names_),
+                "series": [str(s) for s in self.series_], "coef": encode(self.coef_),
+                "means": encode(self.means_), "fell_back": encode(self.fell_back_),
+                "overall_mean": encode(self.overall_mean_)}
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> PerSeriesOLS:
+        """Return the model ``to_dict`` stored. It predicts as the fitted model did, but holds
+        only what the point forecasts need: no standard errors, notes or coefficient table."""
+        with StoredFields(data, "a model per series", version=version) as fields:
+            model = cls(fit_intercept=fields.flag("fit_intercept"))
+            model.names_ = fields.texts("names")
+            model.series_ = pd.Index(fields.texts("series"), dtype=object)
+            model.coef_ = fields.array("coef", "float64", ndim=2)
+            model.means_ = fields.array("means", "float64", ndim=1)
+            model.fell_back_ = fields.array("fell_back", "bool", ndim=1)
+            model.overall_mean_ = fields.number("overall_mean")
+        if not (model.coef_.shape == (len(model.series_), len(model.names_))
+                and len(model.means_) == len(model.fell_back_) == len(model.series_)):
+            raise ModelFileError("a model per series has lists of different lengths")
+        return model
 
     def prediction_se(self, design) -> np.ndarray:
         """Return each row's s·sqrt(1 + x'(X'X)⁻¹x) from its own series' fit (for a series on

@@ -1,18 +1,17 @@
 """A fitted run saved as JSON, and loaded back to forecast new rows. Never a pickle.
 
 The file holds the feature plan (each transformer's settings and what it
-learned), every model's fitted numbers, and the versions that made it. Loading
-checks the file's shape and builds only the transformer and model classes
-named in an allow-list, so a model file cannot run code.
+learned), every model's fitted numbers, and the versions that made it. Each
+stored part writes and reads its own named fields (``to_dict`` and the
+classmethod ``from_dict``, see ``pipeline.core.stored``); loading builds only
+the classes in the plan's ``PART_CLASSES`` and in ``BASELINES`` below, so a
+model file cannot run code, and a damaged one stops with a ``ModelFileError``.
 """
 
 from __future__ import annotations
 
 import json
-import math
-from datetime import date, datetime
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -20,146 +19,41 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from pipeline.core.catalogue import model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
-from pipeline.core.errors import DataError, UserError
+from pipeline.core.errors import DataError, ModelFileError, UserError
+from pipeline.core.stored import FORMAT_VERSION, READABLE_VERSIONS, StoredFields, encode
 from pipeline.core.version import __version__
-from pipeline.features import calendar, categorical, interactions, lags, numeric, series
-from pipeline.features import plan as plan_module
+from pipeline.features.plan import FeaturePlan
 from pipeline.features.target import TargetTransform
-from pipeline.models import baselines
+from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
 from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
-FORMAT_VERSION = 1
+
+# The baselines a model file may hold, by the class name it gives them.
+BASELINES: dict[str, type] = {cls.__name__: cls for cls in (MeanBaseline, LastValue, SeasonalNaive, Drift)}
+
+__all__ = ["FORMAT", "FORMAT_VERSION", "ModelFileError", "StoredModel", "load_model", "model_document"]
 
 
-class ModelFileError(UserError):
-    """A model file that is not one castline wrote, or is damaged."""
+# ------------------------------------------------------------ target transform
+
+def _scale_from_dict(scale, version: int) -> tuple[TargetTransform | None, float]:
+    """Return a stored model's target transform (or None) and its smearing factor."""
+    if scale is None:
+        return None, 1.0
+    if not isinstance(scale, dict):
+        raise ModelFileError("the target transform is not a JSON object")
+    fields = dict(scale)
+    smearing = fields.pop("smearing", None)
+    if not isinstance(smearing, (int, float)) or isinstance(smearing, bool):
+        raise ModelFileError("the target transform's smearing factor is missing or not a number")
+    return TargetTransform.from_dict(fields, version), float(smearing)
 
 
-# ------------------------------------------------------------ tagged JSON values
-
-def encode(value: Any, parts: list | None = None) -> Any:
-    """Return a JSON-safe form of a learned value, with tags for what JSON cannot hold.
-
-    ``parts``: objects stored elsewhere in the file, written as references to them.
-    """
-    if parts is not None:
-        for index, part in enumerate(parts):
-            if value is part:
-                return {"__part__": index}
-        if isinstance(value, list):
-            return [encode(v, parts) for v in value]
-        if isinstance(value, dict) and all(isinstance(k, str) for k in value):
-            return {"__dict__": {k: encode(v, parts) for k, v in value.items()}}
-    if isinstance(value, pd.Series):
-        index = value.index
-        return {"__series__": {"values": encode(value.to_numpy()),
-                               "index": [encode(i) for i in index.tolist()],
-                               "names": [str(n) if n is not None else None for n in index.names],
-                               "name": str(value.name) if value.name is not None else None}}
-    if isinstance(value, np.ndarray):
-        return {"__array__": [encode(v) for v in value.tolist()], "dtype": str(value.dtype)}
-    if isinstance(value, np.generic):
-        return encode(value.item())
-    if isinstance(value, float) and not math.isfinite(value):
-        return {"__float__": repr(value)}
-    if isinstance(value, tuple):
-        return {"__tuple__": [encode(v) for v in value]}
-    if isinstance(value, pd.Period):
-        return {"__period__": str(value), "freq": "M"}
-    if isinstance(value, (pd.Timestamp, datetime, date)):
-        return {"__date__": value.isoformat()}
-    if isinstance(value, dict):
-        if all(isinstance(k, str) for k in value):
-            return {"__dict__": {k: encode(v) for k, v in value.items()}}
-        return {"__pairs__": [[encode(k), encode(v)] for k, v in value.items()]}
-    if isinstance(value, list):
-        return [encode(v) for v in value]
-    if value is None or isinstance(value, (bool, int, float, str)):
-        return value
-    if isinstance(value, BaseModel):
-        return {"__settings__": value.model_dump(mode="json"), "class": type(value).__name__}
-    raise TypeError(f"cannot store a value of type {type(value).__name__}")
-
-
-def decode(value: Any, parts: list | None = None) -> Any:
-    """Return the value a tagged JSON form stands for (``parts``: the objects referred to)."""
-    if isinstance(value, list):
-        return [decode(v, parts) for v in value]
-    if not isinstance(value, dict):
-        return value
-    if "__part__" in value:
-        if parts is None or not isinstance(value["__part__"], int) or not 0 <= value["__part__"] < len(parts):
-            raise ModelFileError("a reference to a feature that is not in the file")
-        return parts[value["__part__"]]
-    if "__series__" in value:
-        body = value["__series__"]
-        index_values = [decode(i) for i in body["index"]]
-        names = body.get("names") or [None]
-        index = (pd.MultiIndex.from_tuples(index_values, names=names) if len(names) > 1
-                 else pd.Index(index_values, name=names[0]))
-        return pd.Series(decode(body["values"]), index=index, name=body.get("name"))
-    if "__array__" in value:
-        dtype = value.get("dtype", "float64")
-        if dtype not in ("float64", "int64", "bool", "object", "int32", "float32") and not dtype.startswith("<U"):
-            raise ModelFileError(f"unexpected array type {dtype!r}")
-        items = [decode(v) for v in value["__array__"]]
-        return np.array(items, dtype=object if dtype == "object" or dtype.startswith("<U") else dtype)
-    if "__float__" in value:
-        return float(value["__float__"])
-    if "__tuple__" in value:
-        return tuple(decode(v) for v in value["__tuple__"])
-    if "__period__" in value:
-        return pd.Period(value["__period__"], freq="M")
-    if "__date__" in value:
-        return pd.Timestamp(value["__date__"])
-    if "__dict__" in value:
-        return {k: decode(v, parts) for k, v in value["__dict__"].items()}
-    if "__pairs__" in value:
-        return {_hashable(decode(k)): decode(v) for k, v in value["__pairs__"]}
-    if "__settings__" in value:
-        from pipeline import spec as spec_module
-        cls = getattr(spec_module, str(value.get("class")), None)
-        if not (isinstance(cls, type) and issubclass(cls, spec_module.StrictModel)
-                and cls is not spec_module.StrictModel):
-            raise ModelFileError(f"unknown settings class {value.get('class')!r}")
-        return cls.model_validate(value["__settings__"])
-    raise ModelFileError(f"unexpected value {sorted(value)!r}")
-
-
-def _hashable(value):
-    return tuple(value) if isinstance(value, list) else value
-
-
-def _state(obj, parts: list | None = None) -> dict[str, Any]:
-    return {name: encode(val, parts) for name, val in vars(obj).items() if not name.startswith("__")}
-
-
-# The modules whose classes a model file's feature plan may be rebuilt from.
-FEATURE_MODULES = (numeric, categorical, interactions, series, calendar, lags, plan_module)
-
-
-def _allowed_classes(module) -> dict[str, type]:
-    return {name: cls for name, cls in vars(module).items()
-            if isinstance(cls, type) and cls.__module__ == module.__name__
-            and hasattr(cls, "fit") and (hasattr(cls, "transform") or hasattr(cls, "predict"))}
-
-
-def _rebuild(entry: dict, allowed: dict[str, type], parts: list | None = None, obj=None):
-    name = entry.get("class")
-    if name not in allowed:
-        raise ModelFileError(f"class {name!r} is not one castline stores")
-    if obj is None:
-        obj = allowed[name].__new__(allowed[name])
-    for attribute, value in entry["state"].items():
-        if not attribute.isidentifier() or attribute.startswith("__") or \
-                callable(getattr(allowed[name], attribute, None)) or \
-                isinstance(getattr(allowed[name], attribute, None), property):
-            raise ModelFileError(f"bad attribute name {attribute!r}")
-        setattr(obj, attribute, decode(value, parts))
-    return obj
+def _scale_to_dict(transform: TargetTransform | None, smearing: float) -> dict | None:
+    return None if transform is None else {**transform.to_dict(), "smearing": smearing}
 
 
 # --------------------------------------------------------------- linear models
@@ -176,6 +70,31 @@ class StoredLinear:
         self.transform = transform
         self.smearing_ = float(smearing)
 
+    @classmethod
+    def from_model(cls, model, names: list[str]) -> StoredLinear:
+        """Return the numbers of a fitted linear model (wrapped in its target transform or not)."""
+        intercept, slopes = model.linear_coefficients()
+        transform = model.transform if isinstance(model, TransformedTargetModel) else None
+        smearing = model.smearing_ if transform is not None else 1.0
+        return cls(intercept, slopes, names, transform, smearing)
+
+    def to_dict(self) -> dict:
+        """Return the numbers as a model file stores them (the names are the file's
+        feature_names)."""
+        return {"intercept": encode(self.intercept_), "coef": encode(self.coef_),
+                "target_transform": _scale_to_dict(self.transform, self.smearing_)}
+
+    @classmethod
+    def from_dict(cls, data: dict, names: list[str], version: int = FORMAT_VERSION) -> StoredLinear:
+        """Return the model ``to_dict`` stored, whose coefficients go with the names."""
+        with StoredFields(data, "a linear model", version=version) as fields:
+            intercept = fields.number("intercept")
+            coef = fields.array("coef", "float64", ndim=1)
+            transform, smearing = _scale_from_dict(fields.raw("target_transform"), version)
+        if len(coef) != len(names):
+            raise ModelFileError(f"the model has {len(coef)} coefficients for {len(names)} features")
+        return cls(intercept, coef, names, transform, smearing)
+
     def predict(self, design) -> np.ndarray:
         # The same arithmetic as the run's own OLS prediction, so the numbers agree exactly.
         matrix = np.column_stack([np.ones(len(design.matrix)), design.matrix])
@@ -186,60 +105,35 @@ class StoredLinear:
         return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 
-def _unwrapped(model) -> tuple[object, dict | None]:
-    """Return the model inside a target transform and the transform's entry (or None)."""
-    if isinstance(model, TransformedTargetModel):
-        return model.model, {"column": model.transform.column, "kind": model.transform.kind,
-                             "smearing": model.smearing_}
-    return model, None
-
-
-def _transform_of(entry: dict) -> tuple[TargetTransform | None, float]:
-    """Return a stored model's target transform (or None) and its smearing factor."""
-    scale = entry.get("target_transform")
-    if not scale:
-        return None, 1.0
-    transform = TargetTransform(str(scale["column"]), str(scale["kind"]))
-    if transform.kind not in ("log", "log1p", "none"):
-        raise ModelFileError(f"unknown target transform {transform.kind!r}")
-    return transform, float(scale["smearing"])
-
-
-def _linear_numbers(kind: str, model) -> dict:
-    model, transform = _unwrapped(model)
-    return {**_plain_linear_numbers(kind, model), "target_transform": transform}
-
-
-def _plain_linear_numbers(kind: str, model) -> dict:
-    intercept, slopes = model.linear_coefficients()
-    return {"intercept": encode(float(intercept)), "coef": encode(np.asarray(slopes, float))}
-
-
-def _per_series_numbers(model) -> dict:
-    model, transform = _unwrapped(model)
-    return {"fit_intercept": model.fit_intercept, "names": list(model.names_),
-            "series": [str(s) for s in model.series_], "coef": encode(model.coef_),
-            "means": encode(model.means_), "fell_back": encode(model.fell_back_),
-            "overall_mean": encode(model.overall_mean_), "target_transform": transform}
-
-
 class StoredPerSeries:
     """A model per series reduced to what its point forecasts need; predicts as it did."""
 
-    def __init__(self, entry: dict) -> None:
-        model = PerSeriesOLS.__new__(PerSeriesOLS)
-        model.fit_intercept = bool(entry["fit_intercept"])
-        model.names_ = [str(n) for n in entry["names"]]
-        model.series_ = pd.Index([str(s) for s in entry["series"]], dtype=object)
-        model.coef_ = np.asarray(decode(entry["coef"]), float).reshape(len(model.series_),
-                                                                       len(model.names_))
-        model.means_ = np.asarray(decode(entry["means"]), float)
-        model.fell_back_ = np.asarray(decode(entry["fell_back"]), bool)
-        model.overall_mean_ = float(decode(entry["overall_mean"]))
-        if not (len(model.means_) == len(model.fell_back_) == len(model.series_)):
-            raise ModelFileError("a model per series has lists of different lengths")
+    def __init__(self, model: PerSeriesOLS, transform: TargetTransform | None = None,
+                 smearing: float = 1.0) -> None:
         self.model = model
-        self.transform, self.smearing_ = _transform_of(entry)
+        self.transform = transform
+        self.smearing_ = float(smearing)
+
+    @classmethod
+    def from_model(cls, model) -> StoredPerSeries:
+        """Return a fitted model per series (wrapped in its target transform or not)."""
+        if isinstance(model, TransformedTargetModel):
+            return cls(model.model, model.transform, model.smearing_)
+        return cls(model)
+
+    def to_dict(self) -> dict:
+        """Return the model as a model file stores it: PerSeriesOLS's fields and the target
+        transform."""
+        return {**self.model.to_dict(), "target_transform": _scale_to_dict(self.transform, self.smearing_)}
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> StoredPerSeries:
+        """Return the model ``to_dict`` stored."""
+        if not isinstance(data, dict) or "target_transform" not in data:
+            raise ModelFileError("a model per series: the field 'target_transform' is missing")
+        own = dict(data)
+        transform, smearing = _scale_from_dict(own.pop("target_transform"), version)
+        return cls(PerSeriesOLS.from_dict(own, version), transform, smearing)
 
     def predict(self, design) -> np.ndarray:
         predicted = self.model.predict(design)
@@ -267,28 +161,37 @@ class _Envelope(BaseModel):
 
 def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
     """Return the JSON document that stores a run's fitted plan and models."""
+    names = plan.get_feature_names_out()
     models = {}
     for kind, model in fitted.items():
         if isinstance(model.inner, PerSeriesOLS):
-            models[kind] = {"kind": "linear_per_series", **_per_series_numbers(model)}
+            models[kind] = {"kind": "linear_per_series", **StoredPerSeries.from_model(model).to_dict()}
         elif model_kind(kind).family == "linear":
-            models[kind] = {"kind": "linear", **_linear_numbers(kind, model)}
+            models[kind] = {"kind": "linear", **StoredLinear.from_model(model, names).to_dict()}
         else:
-            models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": _state(model)}
-    # A part may refer to another (an interaction or series slopes to a driver's terms).
-    parts = [{"class": type(part).__name__, "state": _state(part, plan.parts_)}
-             for part in plan.parts_]
-    # The plan's other lists of features refer to the same objects as parts_; a bound
-    # method (how to report a spec error) is not state and is restored to the default.
-    plan_state = {key: encode(val, plan.parts_) for key, val in vars(plan).items()
-                  if key != "parts_" and not callable(val)}
+            models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": model.to_dict()}
     return {
         "format": FORMAT, "format_version": FORMAT_VERSION, "castline_version": __version__,
         "spec_name": spec.name, "target": spec.target, "date_column": spec.input.date_column,
-        "series_columns": list(spec.input.series), "feature_names": plan.get_feature_names_out(),
-        "plan": {"class": type(plan).__name__, "state": plan_state, "parts": parts},
-        "models": models, "versions": versions,
+        "series_columns": list(spec.input.series), "feature_names": names,
+        "plan": plan.to_dict(), "models": models, "versions": versions,
     }
+
+
+def _model_from_dict(kind: str, entry: dict, names: list[str], version: int):
+    """Return the stored model of one kind, ready to predict."""
+    stored = {key: value for key, value in entry.items() if key != "kind"}
+    if entry.get("kind") == "linear":
+        return StoredLinear.from_dict(stored, names, version)
+    if entry.get("kind") == "linear_per_series":
+        return StoredPerSeries.from_dict(stored, version)
+    if entry.get("kind") == "baseline":
+        with StoredFields(stored, f"model '{kind}'", version=version) as fields:
+            name = fields.raw("class")
+            if not isinstance(name, str) or name not in BASELINES:
+                raise ModelFileError(f"class {name!r} is not one castline stores")
+            return BASELINES[name].from_dict(fields.raw("state"), version)
+    raise ModelFileError(f"model '{kind}' has an unknown kind")
 
 
 class StoredModel:
@@ -360,35 +263,16 @@ def load_model(path: str | Path) -> StoredModel:
         first = exc.errors()[0]
         where = ".".join(str(p) for p in first["loc"])
         raise ModelFileError(f"{path}: not a castline model file ({where}: {first['msg']})") from None
-    if document.format != FORMAT or document.format_version != FORMAT_VERSION:
-        raise ModelFileError(f"{path}: not a castline model file of version {FORMAT_VERSION}")
+    if document.format != FORMAT or document.format_version not in READABLE_VERSIONS:
+        raise ModelFileError(f"{path}: not a castline model file of version "
+                             f"{' or '.join(str(v) for v in READABLE_VERSIONS)}")
+    version = document.format_version
     try:
-        transformers = {name: cls for module in FEATURE_MODULES
-                        for name, cls in _allowed_classes(module).items()}
-        plan_entry = document.plan
-        if plan_entry.get("class") != "FeaturePlan":
-            raise ModelFileError("the plan is not a feature plan")
-        entries = plan_entry.get("parts", [])
-        # Every part first, then their states, which may refer to one another.
-        parts = [_rebuild({"class": part.get("class"), "state": {}}, transformers) for part in entries]
-        for part, entry in zip(parts, entries):
-            _rebuild(entry, transformers, parts, obj=part)
-        plan = _rebuild({"class": plan_entry.get("class"), "state": plan_entry.get("state", {})},
-                        transformers, parts)
-        plan.parts_ = parts
-        plan.error = plan_module.unplaced_spec_error
-        models = {}
-        for kind, entry in document.models.items():
-            if entry.get("kind") == "linear":
-                transform, smearing = _transform_of(entry)
-                models[kind] = StoredLinear(decode(entry["intercept"]), decode(entry["coef"]),
-                                            document.feature_names, transform, smearing)
-            elif entry.get("kind") == "linear_per_series":
-                models[kind] = StoredPerSeries(entry)
-            elif entry.get("kind") == "baseline":
-                models[kind] = _rebuild(entry, _allowed_classes(baselines))
-            else:
-                raise ModelFileError(f"model '{kind}' has an unknown kind")
+        plan = FeaturePlan.from_dict(document.plan, version)
+        if plan.get_feature_names_out() != document.feature_names:
+            raise ModelFileError("the feature plan does not give the features the models were fitted on")
+        models = {kind: _model_from_dict(kind, entry, document.feature_names, version)
+                  for kind, entry in document.models.items()}
     except ModelFileError as exc:
         raise ModelFileError(f"{path}: {exc}") from None
     except (KeyError, TypeError, ValueError, AttributeError) as exc:

@@ -1,0 +1,181 @@
+"""pipeline/record/model_file.py: model files written by earlier versions keep loading.
+
+The reference for each forecast is the forecast.csv the run itself wrote when it wrote
+the model file (tests/data/model_files_v1/, made by castline 0.1.0; its README says how).
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline import cli
+from pipeline.core.errors import ModelFileError, UserError
+from pipeline.features.plan import PART_CLASSES, FeaturePlan
+from pipeline.features.target import TargetTransform
+from pipeline.models.per_series import PerSeriesOLS
+from pipeline.record import model_file
+from pipeline.record.model_file import load_model
+
+V1 = Path(__file__).resolve().parents[1] / "data" / "model_files_v1"
+FIXTURES = ["demo", "wide", "calendar"]
+
+
+def _keyed(table: pd.DataFrame) -> pd.Series:
+    return table.set_index(["period", "series", "model"])["forecast"].sort_index()
+
+
+def _assert_same_forecasts(written: Path, folder: Path) -> None:
+    mine = _keyed(pd.read_csv(written))
+    theirs = _keyed(pd.read_csv(folder / "forecast.csv"))      # what the run wrote at the time
+    assert list(mine.index) == list(theirs.index)
+    np.testing.assert_allclose(mine.to_numpy(), theirs.to_numpy(), rtol=1e-9, atol=0)
+
+
+@pytest.mark.parametrize("name", FIXTURES)
+def test_a_version_1_model_file_forecasts_what_its_run_wrote(name, tmp_path, capsys):
+    folder = V1 / name
+    output = tmp_path / "forecast.csv"
+    code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
+                     "--output", str(output)])
+    assert code == 0, capsys.readouterr().err
+    _assert_same_forecasts(output, folder)
+
+
+def test_a_version_1_model_file_forecasts_through_the_command_in_a_subprocess(tmp_path):
+    folder = V1 / "wide"
+    output = tmp_path / "forecast.csv"
+    done = subprocess.run([sys.executable, "-m", "pipeline", "forecast", str(folder / "model.json"),
+                           str(folder / "rows.csv"), "--output", str(output)],
+                          capture_output=True, text=True, timeout=120,
+                          env={**os.environ, "PYTHONWARNINGS": "ignore"})
+    assert done.returncode == 0, done.stderr
+    _assert_same_forecasts(output, folder)
+
+
+# ------------------------------------------------------------------ the fields of each part
+
+def _document(name: str) -> dict:
+    return json.loads((V1 / name / "model.json").read_text(encoding="utf-8"))
+
+
+@pytest.mark.parametrize("name", FIXTURES)
+def test_a_version_1_file_read_and_written_again_is_the_same_json(name):
+    # Each part's to_dict writes exactly the fields (names, order, tags) castline 0.1.0 wrote.
+    document = _document(name)
+    plan = FeaturePlan.from_dict(document["plan"], version=1)
+    assert plan.to_dict() == document["plan"]
+    assert json.dumps(plan.to_dict()) == json.dumps(document["plan"])   # the order of the keys too
+    for kind, entry in document["models"].items():
+        stored = model_file._model_from_dict(kind, entry, document["feature_names"], 1)
+        again = ({"kind": "baseline", "class": type(stored).__name__, "state": stored.to_dict()}
+                 if entry["kind"] == "baseline" else {"kind": entry["kind"], **stored.to_dict()})
+        assert json.dumps(again) == json.dumps(entry), kind
+
+
+def test_the_fixtures_hold_every_kind_of_stored_part():
+    # A new stored class needs a model file holding it among the fixtures (of the version
+    # that brought it: tests/data/model_files_v<N>/), or nothing checks it keeps loading.
+    documents = [json.loads(path.read_text(encoding="utf-8"))
+                 for path in V1.parent.glob("model_files_v*/*/model.json")]
+    held = {part["class"] for document in documents for part in document["plan"]["parts"]}
+    baselines = {entry["class"] for document in documents for entry in document["models"].values()
+                 if entry["kind"] == "baseline"}
+    kinds = {entry["kind"] for document in documents for entry in document["models"].values()}
+    assert held == set(PART_CLASSES)
+    assert baselines == set(model_file.BASELINES)
+    assert kinds == {"linear", "linear_per_series", "baseline"}
+
+
+@pytest.mark.parametrize("cls", [*PART_CLASSES.values(), *model_file.BASELINES.values(), PerSeriesOLS,
+                                 TargetTransform])
+def test_each_stored_class_reads_the_fields_it_writes_itself(cls):
+    # A subclass that writes fields of its own must read them too (SeriesTerms, not OneHotEncoder's).
+    def owner(method: str) -> type:
+        return next(base for base in cls.__mro__ if method in vars(base))
+    assert owner("to_dict") is owner("from_dict"), cls
+
+
+HOSTILE = [None, True, -1, 1.5, "text", [], [1, "a"], {}, {"__part__": 0}, {"__array__": "x"},
+           {"__float__": "nan"}, {"__series__": {}}, {"__period__": "not a month"}, {"__tuple__": 3}]
+
+
+def _label(entry: dict) -> str:
+    return entry.get("class", entry.get("kind"))
+
+
+def _each_field(document: dict, skip: set[str] = frozenset()):
+    """Yield (where, the holder of a field in a copy of the document, the field's key) for every
+    field of every stored part and model, and of the plan, but those of the classes in skip."""
+    for place, part in enumerate(document["plan"]["parts"]):
+        if part["class"] not in skip:
+            for key in part["state"]:
+                yield (f"part {place} ({part['class']}) {key}",
+                       lambda d, p=place: d["plan"]["parts"][p]["state"], key)
+    if "FeaturePlan" not in skip:
+        for key in document["plan"]["state"]:
+            yield f"plan {key}", lambda d: d["plan"]["state"], key
+    for kind, entry in document["models"].items():
+        if _label(entry) in skip:
+            continue
+        baseline = entry["kind"] == "baseline"
+        for key in (entry["state"] if baseline else entry):
+            if key != "kind":
+                yield (f"model {kind} {key}",
+                       lambda d, m=kind, b=baseline: d["models"][m]["state"] if b else d["models"][m], key)
+
+
+def _classes(name: str) -> set[str]:
+    document = _document(name)
+    return ({part["class"] for part in document["plan"]["parts"]} | {"FeaturePlan"}
+            | {_label(entry) for entry in document["models"].values()})
+
+
+def _load_and_forecast(document: dict, rows: pd.DataFrame, path: Path):
+    path.write_text(json.dumps(document), encoding="utf-8")
+    try:
+        stored = load_model(path)
+    except ModelFileError as exc:
+        assert "\n" not in str(exc) and str(path) in str(exc)
+        return "refused"
+    try:
+        stored.forecast(rows)
+    except UserError:
+        return "refused at forecast"
+    return "loaded"
+
+
+@pytest.mark.filterwarnings("ignore:overflow encountered:RuntimeWarning")
+@pytest.mark.parametrize("name", ["demo", "calendar", "wide"])
+def test_any_field_damaged_missing_or_added_stops_with_a_model_file_error_or_still_forecasts(
+        name, tmp_path):
+    # Never another exception (an internal error, exit 1): each field of each part, set to a
+    # value of each kind, removed, and a field added. The wide file (large, for its window of
+    # lagged values) only for the classes the other two lack.
+    skip = _classes("demo") | _classes("calendar") if name == "wide" else set()
+    document = _document(name)
+    rows = pd.read_csv(V1 / name / "rows.csv")
+    path = tmp_path / "model.json"
+    outcomes = {}
+    for where, holder, key in _each_field(document, skip):
+        for value in [*HOSTILE, "REMOVE"]:
+            changed = copy.deepcopy(document)
+            if value == "REMOVE":
+                del holder(changed)[key]
+            else:
+                holder(changed)[key] = value
+            outcomes[(where, repr(value))] = _load_and_forecast(changed, rows, path)
+            if value == "REMOVE":
+                assert outcomes[(where, repr(value))] == "refused", where
+        added = copy.deepcopy(document)
+        holder(added)[key + "_extra"] = holder(added)[key]
+        assert _load_and_forecast(added, rows, path) == "refused", where
+    assert "refused" in outcomes.values()
