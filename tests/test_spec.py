@@ -438,3 +438,35 @@ def test_no_intercept_and_no_drivers(write):
     path = write(text)
     error = refused(path)
     assert_placed(error, path, line_of(text, "intercept:"), "intercept")
+
+
+# ---------------------------------------------------------------- where the spec came from
+
+def test_origin_is_carried_by_copies_but_never_dumped(write):
+    path = write(BASE)
+    spec = load_spec(path)
+    assert spec.source == path
+    assert spec.origin.written_models == ("ols",)
+    assert "origin" not in spec.model_dump() and "origin" not in spec.model_dump(mode="json")
+    assert '"origin"' not in spec.model_dump_json()
+    copied = spec.model_copy(update={"target": "other"})
+    assert copied.source == path
+    error = copied.error(("validation", "last_periods"), "too many")
+    assert str(error) == f"{path}:{line_of(BASE, 'last_periods:')}: validation.last_periods: too many"
+
+
+def test_a_spec_made_in_code_has_no_origin_and_errors_are_unplaced():
+    spec = Spec.model_validate({"name": "x", "input": {"file": "d.csv", "date_column": "month"},
+                                "target": "y", "validation": {"method": "holdout", "last_periods": 2},
+                                "output": {"folder": "out"}})
+    assert spec.origin is None and spec.source is None
+    assert str(spec.error(("target",), "wrong")) == "target: wrong"
+
+
+@pytest.mark.parametrize("value", ["null", "{path: elsewhere.yaml}", "here"])
+def test_origin_cannot_be_written_in_the_spec_file(write, value):
+    text = BASE + f"origin: {value}\n"
+    path = write(text)
+    error = refused(path)
+    assert_placed(error, path, line_of(text, "origin:"), "origin")
+    assert error.message.startswith("unknown key") and "'origin'" not in error.message

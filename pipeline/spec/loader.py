@@ -18,7 +18,7 @@ import yaml
 from pydantic import BaseModel, ValidationError
 
 from pipeline.core.errors import SpecError
-from pipeline.spec.keys import DuplicateKey, KeyPath, format_key_path, line_for, line_map
+from pipeline.spec.keys import DuplicateKey, KeyPath, SpecOrigin, format_key_path, line_for, line_map
 from pipeline.spec.rules import check_roles
 from pipeline.spec.schema import Spec
 
@@ -90,7 +90,7 @@ def _describe(error: dict[str, Any]) -> str:
     loc: KeyPath = tuple(p for p in error["loc"])
     if kind == "extra_forbidden":
         section = _section_class(loc[:-1])
-        valid = sorted(section.model_fields) if section else []
+        valid = sorted(k for k, f in section.model_fields.items() if not f.exclude) if section else []
         close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
         hint = f"; did you mean '{close[0]}'?" if close else (
             f"; valid keys here: {', '.join(valid)}" if valid else "")
@@ -186,10 +186,9 @@ def load_spec(path: str | Path) -> Spec:
         raise SpecError(_describe(first), file=shown, line=line_for(lines, loc),
                         key=format_key_path(loc) or None) from None
 
-    spec._source = spec_path
     written = data.get("models") if isinstance(data.get("models"), list) else []
-    spec._written_models = [m.get("kind") if isinstance(m, dict) else m for m in written]
-    spec._lines = lines
+    spec = spec.model_copy(update={"origin": SpecOrigin.read(
+        spec_path, lines, [m.get("kind") if isinstance(m, dict) else m for m in written])})
     fail = spec.error
     check_roles(spec, fail)
     base = spec_path.resolve().parent
@@ -204,10 +203,7 @@ def load_spec(path: str | Path) -> Spec:
     ledger_file = _resolve(spec.output.ledger, base) if spec.output.ledger else None
     if ledger_file is not None and ledger_file.is_dir():
         raise fail(("output", "ledger"), f"is a folder, not a ledger file: {ledger_file}")
-    resolved = spec.model_copy(update={
+    return spec.model_copy(update={
         "input": spec.input.model_copy(update={"file": data_file}),
         "output": spec.output.model_copy(update={"folder": output_folder, "ledger": ledger_file}),
     })
-    resolved._source = spec_path
-    resolved._lines = lines
-    return resolved

@@ -60,7 +60,7 @@ def _check_models(spec: Spec, fail) -> None:
     """Refuse models and metrics that need a time order under a scheme without one."""
     if spec.validation.method in TIME_ORDERED:
         return
-    written = spec._written_models or [m.kind for m in spec.models[1:]]
+    written = list(spec.origin.written_models) if spec.origin else [m.kind for m in spec.models[1:]]
     for choice in spec.models[1:]:
         if MODELS[choice.kind].can("needs_time_order"):
             index = written.index(choice.kind) if choice.kind in written else 0
