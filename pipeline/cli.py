@@ -415,8 +415,9 @@ def main(argv: list[str] | None = None) -> int:
                 "history": _command_history, "compare": _command_compare}
     try:
         return handlers[args.command](args)
-    except UserError as mistake:
-        print(f"castline: {mistake.one_line()}", file=sys.stderr)
+    except UserError as mistake:   # one line per problem (a spec may have several)
+        for line in mistake.lines():
+            print(f"castline: {line}", file=sys.stderr)
         return EXIT_USER
     except KeyboardInterrupt:
         print("castline: interrupted; no run folder was written", file=sys.stderr)

@@ -322,6 +322,38 @@ def test_check_lists_a_duplicated_month_at_its_second_line(tmp_path, monkeypatch
     assert (row, column) == (str(DUPLICATE_LINE), "month") and "twice" in rest
 
 
+def test_check_prints_every_spec_problem_on_a_line_of_its_own(tmp_path, monkeypatch, capsys):
+    demo_copy(tmp_path)
+    edit_spec(tmp_path, "name: compost-by-region", "name: compost/by-region")
+    edit_spec(tmp_path, "  series: [region]", "  serie: [region]")
+    edit_spec(tmp_path, "  last_periods: 12", "  last_periods: -1")
+    monkeypatch.chdir(tmp_path)
+    code, out, err = call_main(["check", str(SPEC)], capsys)
+    assert code == 2 and out == "" and "Traceback" not in err, err
+    assert err.endswith("\n") and err.splitlines() == [
+        f"castline: {SPEC}:{spec_line(tmp_path, 'name:')}: name: a name, not a path: "
+        "'/', '\\' and '..' are refused",
+        f"castline: {SPEC}:{spec_line(tmp_path, 'serie:')}: input.serie: unknown key; "
+        "did you mean 'series'?",
+        f"castline: {SPEC}:{spec_line(tmp_path, 'last_periods:')}: validation.last_periods: "
+        "must be greater than or equal to 1",
+    ]
+
+
+def test_run_prints_every_spec_rule_problem_and_writes_nothing(tmp_path, monkeypatch, capsys):
+    demo_copy(tmp_path)
+    edit_spec(tmp_path, "  series: [region]", "  series: [region, bags_sold, month]")
+    monkeypatch.chdir(tmp_path)
+    code, out, err = call_main(["run", str(SPEC)], capsys)
+    line = spec_line(tmp_path, "series:")
+    assert code == 2 and out == "" and "Traceback" not in err, err
+    assert err.splitlines() == [
+        f"castline: {SPEC}:{line}: input.series[1]: column 'bags_sold' is already the target",
+        f"castline: {SPEC}:{line}: input.series[2]: column 'month' is already the date column",
+    ]
+    assert not (tmp_path / "reports").exists()
+
+
 def test_run_without_a_spec(capsys):
     with pytest.raises(SystemExit) as info:
         call_main(["run"], capsys)

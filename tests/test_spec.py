@@ -438,3 +438,156 @@ def test_no_intercept_and_no_drivers(write):
     path = write(text)
     error = refused(path)
     assert_placed(error, path, line_of(text, "intercept:"), "intercept")
+
+
+# ---------------------------------------------------------------- where the spec came from
+
+def test_origin_is_carried_by_copies_but_never_dumped(write):
+    path = write(BASE)
+    spec = load_spec(path)
+    assert spec.source == path
+    assert spec.origin.written_models == ("ols",)
+    assert "origin" not in spec.model_dump() and "origin" not in spec.model_dump(mode="json")
+    assert '"origin"' not in spec.model_dump_json()
+    copied = spec.model_copy(update={"target": "other"})
+    assert copied.source == path
+    error = copied.error(("validation", "last_periods"), "too many")
+    assert str(error) == f"{path}:{line_of(BASE, 'last_periods:')}: validation.last_periods: too many"
+
+
+def test_a_spec_made_in_code_has_no_origin_and_errors_are_unplaced():
+    spec = Spec.model_validate({"name": "x", "input": {"file": "d.csv", "date_column": "month"},
+                                "target": "y", "validation": {"method": "holdout", "last_periods": 2},
+                                "output": {"folder": "out"}})
+    assert spec.origin is None and spec.source is None
+    assert str(spec.error(("target",), "wrong")) == "target: wrong"
+
+
+@pytest.mark.parametrize("value", ["null", "{path: elsewhere.yaml}", "here"])
+def test_origin_cannot_be_written_in_the_spec_file(write, value):
+    text = BASE + f"origin: {value}\n"
+    path = write(text)
+    error = refused(path)
+    assert_placed(error, path, line_of(text, "origin:"), "origin")
+    assert error.message.startswith("unknown key") and "'origin'" not in error.message
+
+
+# ---------------------------------------------------------------- every problem at once
+
+def every_problem(path: Path) -> list[str]:
+    """Return the line of each problem loading the spec reports, after checking the first is str()."""
+    error = refused(path)
+    lines = error.lines()
+    assert lines[0] == str(error) and len(error.problems) == len(lines)
+    return lines
+
+
+def test_independent_problems_are_all_reported_in_file_order(write):
+    text = edit("name: demo\n", "name: de/mo\n")
+    text = edit("  date_column: month\n", "  date_column: month\n  gaps: sometimes\n", text)
+    text = edit("      degree: 2\n", "      degree: 9\n", text)
+    text = edit("  last_periods: 12\n", "  last_periods: 0\n", text)
+    path = write(text)
+    lines = every_problem(path)
+    assert [line.split(": ", 2)[:2] for line in lines] == [
+        [f"{path}:{line_of(text, 'name:')}", "name"],
+        [f"{path}:{line_of(text, 'gaps:')}", "input.gaps"],
+        [f"{path}:{line_of(text, 'degree:')}", "drivers.numeric[1].degree"],
+        [f"{path}:{line_of(text, 'last_periods:')}", "validation.last_periods"],
+    ]
+    assert "a name, not a path" in lines[0] and "(got 'sometimes')" in lines[1]
+
+
+def test_an_unknown_key_comes_before_the_missing_key_it_caused(write):
+    # targt (unknown) makes target missing; the missing key has no line of its own (line 1),
+    # yet is reported after the unknown key; the later bad value keeps its place in file order.
+    text = edit("target: bags_sold\n", "targt: bags_sold\n")
+    text = edit("  last_periods: 12\n", "  last_periods: 0\n", text)
+    path = write(text)
+    lines = every_problem(path)
+    assert lines == [
+        f"{path}:{line_of(text, 'targt:')}: targt: unknown key; did you mean 'target'?",
+        f"{path}:1: target: this key is required but missing",
+        f"{path}:{line_of(text, 'last_periods:')}: validation.last_periods: "
+        "must be greater than or equal to 1",
+    ]
+
+
+def test_a_missing_key_without_an_unknown_one_beside_it_keeps_its_place(write):
+    text = edit("  date_column: month\n", "").replace("target: bags_sold\n", "targt: bags_sold\n")
+    path = write(text)
+    lines = every_problem(path)
+    assert [line.split(": ", 2)[1] for line in lines] == ["input.date_column", "targt", "target"]
+
+
+def test_a_value_of_no_member_of_a_union_is_one_problem(write):
+    text = edit("  date_column: month\n", "  date_column: month\n  sheet: [1]\n")
+    path = write(text)
+    lines = every_problem(path)
+    assert len(lines) == 1 and ": input.sheet: " in lines[0], lines
+
+
+def test_rule_problems_are_collected_across_models_scenarios_and_column_rules(write):
+    text = edit("  method: holdout\n  last_periods: 12\n", "  method: kfold\n")
+    text = edit("models: [ols]\n", "models: [last_value, ols, drift]\nselect_by: mase\n", text)
+    text += ("columns:\n  bags_sold:\n    type: number\n    min: 5\n    max: 1\n"
+             "scenarios:\n  - name: cheaper\n    changes:\n      - {column: bags_sold, add: 1}\n")
+    path = write(text)
+    lines = every_problem(path)
+    assert lines == [
+        f"{path}:{line_of(text, 'models:')}: models[0]: 'last_value' needs months in time order; "
+        "validation method 'kfold' has none",
+        f"{path}:{line_of(text, 'models:')}: models[2]: 'drift' needs months in time order; "
+        "validation method 'kfold' has none",
+        f"{path}:{line_of(text, 'select_by:')}: select_by: MASE needs months in time order; choose "
+        "another metric for validation method 'kfold'",
+        f"{path}:{line_of(text, 'min: 5')}: columns.bags_sold.min: min 5 is above max 1",
+        f"{path}:{line_of(text, 'column: bags_sold, add')}: scenarios[0].changes[0].column: "
+        "'bags_sold' is not a driver, so changing it changes no forecast",
+    ]
+
+
+def test_each_driver_with_a_taken_role_is_reported(write):
+    text = edit("    - shelf_price\n", "    - shelf_price\n    - bags_sold\n    - month\n")
+    path = write(text)
+    lines = every_problem(path)
+    assert lines == [
+        f"{path}:{line_of(text, '- bags_sold')}: drivers.numeric[1].column: column 'bags_sold' is "
+        "already the target",
+        f"{path}:{line_of(text, '- month')}: drivers.numeric[2].column: column 'month' is already "
+        "the date column",
+    ]
+
+
+def test_one_problem_per_item_where_later_ones_follow_from_the_first(write):
+    # An ordinal driver without order: its group_below is not judged as well.
+    text = edit("      reference: North\n", "      encoding: ordinal\n      group_below: 3\n")
+    text = edit("      degree: 2\n", "      degree: 2\n  interactions: [[shelf_price, nope], "
+                "[shelf_price, shelf_price]]\n", text)
+    path = write(text)
+    lines = every_problem(path)
+    assert [line.split(": ", 2)[1] for line in lines] == [
+        "drivers.interactions[0][1]", "drivers.interactions[1]", "drivers.categorical[0].encoding"]
+
+
+def test_a_missing_data_file_is_reported_with_the_rule_problems(write, tmp_path):
+    text = edit("file: data.csv", "file: absent.csv")
+    text = edit("models: [ols]\n", "models: [ols]\nintercept: false\n", text)
+    text = text.replace("drivers:\n  numeric:\n    - shelf_price\n    - column: mean_temp_c\n"
+                        "      degree: 2\n  categorical:\n    - column: region\n"
+                        "      reference: North\n", "")
+    path = write(text)
+    lines = every_problem(path)
+    assert lines == [
+        f"{path}:{line_of(text, 'file:')}: input.file: no such data file: {tmp_path / 'absent.csv'}",
+        f"{path}:{line_of(text, 'intercept:')}: intercept: a model without an intercept needs at "
+        "least one driver",
+    ]
+
+
+def test_several_problems_pickle_with_all_of_them(write):
+    import pickle
+    text = edit("target: bags_sold\n", "targt: bags_sold\n")
+    error = refused(write(text))
+    again = pickle.loads(pickle.dumps(error))
+    assert isinstance(again, SpecError) and again.lines() == error.lines() and str(again) == str(error)

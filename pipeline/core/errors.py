@@ -16,6 +16,10 @@ class UserError(Exception):
         """Return the message folded onto a single line."""
         return " ".join(str(self).split())
 
+    def lines(self) -> list[str]:
+        """Return one line per problem (a single one unless the error gathers several)."""
+        return [self.one_line()]
+
 
 class SpecError(UserError):
     """The spec file is unreadable, malformed or inconsistent.
@@ -37,6 +41,44 @@ class SpecError(UserError):
             place = f"{self.file}:{self.line}: " if self.line else f"{self.file}: "
         key = f"{self.key}: " if self.key else ""
         return f"{place}{key}{self.message}"
+
+    @property
+    def problems(self) -> tuple[SpecError, ...]:
+        """Return every problem this error reports: here, itself."""
+        return (self,)
+
+    @staticmethod
+    def of(problems: list[SpecError]) -> SpecError:
+        """Return the error to raise for one or more problems: the problem, or SpecErrors."""
+        if not problems:
+            raise ValueError("no problems to report")
+        return problems[0] if len(problems) == 1 else SpecErrors(problems)
+
+
+class SpecErrors(SpecError):
+    """Several problems in one spec file, each placed at its line, in the order given.
+
+    It reads as its first problem (``str``, ``message``, ``file``, ``line``,
+    ``key``), so a caller that expects one SpecError still sees one;
+    ``problems`` holds them all and ``lines()`` renders one line each.
+    """
+
+    def __init__(self, problems: list[SpecError]) -> None:
+        if not problems:
+            raise ValueError("SpecErrors needs at least one problem")
+        self._problems = tuple(p for problem in problems for p in problem.problems)
+        first = self._problems[0]
+        super().__init__(first.message, file=first.file, line=first.line, key=first.key)
+
+    @property
+    def problems(self) -> tuple[SpecError, ...]:
+        return self._problems
+
+    def lines(self) -> list[str]:
+        return [problem.one_line() for problem in self._problems]
+
+    def __reduce__(self):
+        return (SpecErrors, (list(self._problems),))
 
 
 class DataError(UserError):

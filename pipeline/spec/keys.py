@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from pathlib import Path
+
 import yaml
 
 KeyPath = tuple[str | int, ...]
@@ -51,3 +54,24 @@ def line_for(lines: dict[KeyPath, int], path: KeyPath) -> int | None:
         if path[:length] in lines:
             return lines[path[:length]]
     return None
+
+
+@dataclass(frozen=True)
+class SpecOrigin:
+    """Where a spec was read from: its file, the line of every key, and the model kinds as written.
+
+    Immutable, and never part of the resolved spec (not dumped, not hashed).
+    """
+
+    path: Path
+    lines: tuple[tuple[KeyPath, int], ...] = ()
+    written_models: tuple[str, ...] = ()   # the kinds under `models`, in the file's order
+
+    @classmethod
+    def read(cls, path: Path, lines: dict[KeyPath, int], written_models: list[str]) -> SpecOrigin:
+        """Return the origin of a spec read from ``path`` with the given line map."""
+        return cls(path, tuple(lines.items()), tuple(written_models))
+
+    def line(self, path: KeyPath) -> int | None:
+        """Return the line of the key path, or of its nearest ancestor written in the file."""
+        return line_for(dict(self.lines), path)

@@ -18,8 +18,8 @@ import yaml
 from pydantic import BaseModel, ValidationError
 
 from pipeline.core.errors import SpecError
-from pipeline.spec.keys import DuplicateKey, KeyPath, format_key_path, line_for, line_map
-from pipeline.spec.rules import check_roles
+from pipeline.spec.keys import DuplicateKey, KeyPath, SpecOrigin, format_key_path, line_for, line_map
+from pipeline.spec.rules import check_rules
 from pipeline.spec.schema import Spec
 
 
@@ -90,7 +90,7 @@ def _describe(error: dict[str, Any]) -> str:
     loc: KeyPath = tuple(p for p in error["loc"])
     if kind == "extra_forbidden":
         section = _section_class(loc[:-1])
-        valid = sorted(section.model_fields) if section else []
+        valid = sorted(k for k, f in section.model_fields.items() if not f.exclude) if section else []
         close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
         hint = f"; did you mean '{close[0]}'?" if close else (
             f"; valid keys here: {', '.join(valid)}" if valid else "")
@@ -163,51 +163,76 @@ def _resolve(raw: Path, base: Path) -> Path:
     return (expanded if expanded.is_absolute() else base / expanded).resolve()
 
 
+def _schema_problems(exc: ValidationError, lines: dict[KeyPath, int], shown: str) -> list[SpecError]:
+    """Return every problem pydantic found, one per key, in the order of their lines.
+
+    An unknown key is usually why a required key beside it is missing: such a
+    missing key is reported after the unknown keys of its section.
+    """
+    found: dict[KeyPath, tuple[dict[str, Any], int | None]] = {}
+    for error in exc.errors():
+        loc = _without_tags(tuple(error["loc"]))
+        if error["type"] == "union_tag_invalid":
+            loc += ("method",)
+        elif error["type"] != "missing" and loc not in lines and loc[:-1] in lines and len(loc) > 1:
+            loc = loc[:-1]  # a bare name standing for a mapping (models: [ols] is {kind: ols})
+        found.setdefault(loc, (error, line_for(lines, loc)))   # one problem per key: the first
+    unknown_lines: dict[KeyPath, list[int]] = {}
+    for loc, (error, line) in found.items():
+        if error["type"] == "extra_forbidden":
+            unknown_lines.setdefault(loc[:-1], []).append(line or 0)
+
+    def order(item: tuple[int, tuple[KeyPath, tuple[dict[str, Any], int | None]]]) -> tuple[int, int, int]:
+        index, (loc, (error, line)) = item
+        caused = error["type"] == "missing" and loc[:-1] in unknown_lines
+        at = max([line or 0, *unknown_lines[loc[:-1]]]) if caused else line or 0
+        return at, int(caused), index
+
+    return [SpecError(_describe(error), file=shown, line=line, key=format_key_path(loc) or None)
+            for _, (loc, (error, line)) in sorted(enumerate(found.items()), key=order)]
+
+
+def _path_problems(spec: Spec, base: Path) -> list[SpecError]:
+    """Return the problems of the data file, the output folder and the ledger named in the spec."""
+    problems = []
+    data_file = _resolve(spec.input.file, base)
+    if not data_file.exists():
+        problems.append(spec.error(("input", "file"), f"no such data file: {data_file}"))
+    elif data_file.is_dir():
+        problems.append(spec.error(("input", "file"), f"is a folder, not a data file: {data_file}"))
+    output_folder = _resolve(spec.output.folder, base)
+    if output_folder.exists() and not output_folder.is_dir():
+        problems.append(spec.error(("output", "folder"), f"exists and is not a folder: {output_folder}"))
+    ledger_file = _resolve(spec.output.ledger, base) if spec.output.ledger else None
+    if ledger_file is not None and ledger_file.is_dir():
+        problems.append(spec.error(("output", "ledger"), f"is a folder, not a ledger file: {ledger_file}"))
+    return problems
+
+
 def load_spec(path: str | Path) -> Spec:
     """Return the typed spec read from a YAML file, with every path resolved.
 
-    Raises SpecError naming the file, line and key of the first problem.
+    Raises SpecError naming the file, line and key of a problem; where the spec
+    has several, a SpecErrors holding each, in the order of their lines (its
+    message is the first).
     """
     spec_path = Path(path)
     data, lines = _read_yaml(spec_path)
-    shown = str(spec_path)
     try:
         spec = Spec.model_validate(data)
     except ValidationError as exc:
-        # An unknown key is usually why a required one is missing: report it first.
-        errors = sorted(exc.errors(), key=lambda e: (e["type"] != "extra_forbidden",
-                                                     line_for(lines, _without_tags(tuple(e["loc"]))) or 0))
-        first = errors[0]
-        loc = _without_tags(tuple(first["loc"]))
-        if first["type"] == "union_tag_invalid":
-            loc += ("method",)
-        elif first["type"] != "missing" and loc not in lines and loc[:-1] in lines and len(loc) > 1:
-            loc = loc[:-1]  # a bare name standing for a mapping (models: [ols] is {kind: ols})
-        raise SpecError(_describe(first), file=shown, line=line_for(lines, loc),
-                        key=format_key_path(loc) or None) from None
-
-    spec._source = spec_path
+        raise SpecError.of(_schema_problems(exc, lines, str(spec_path))) from None
     written = data.get("models") if isinstance(data.get("models"), list) else []
-    spec._written_models = [m.get("kind") if isinstance(m, dict) else m for m in written]
-    spec._lines = lines
-    fail = spec.error
-    check_roles(spec, fail)
+    spec = spec.model_copy(update={"origin": SpecOrigin.read(
+        spec_path, lines, [m.get("kind") if isinstance(m, dict) else m for m in written])})
     base = spec_path.resolve().parent
-    data_file = _resolve(spec.input.file, base)
-    if not data_file.exists():
-        raise fail(("input", "file"), f"no such data file: {data_file}")
-    if data_file.is_dir():
-        raise fail(("input", "file"), f"is a folder, not a data file: {data_file}")
-    output_folder = _resolve(spec.output.folder, base)
-    if output_folder.exists() and not output_folder.is_dir():
-        raise fail(("output", "folder"), f"exists and is not a folder: {output_folder}")
-    ledger_file = _resolve(spec.output.ledger, base) if spec.output.ledger else None
-    if ledger_file is not None and ledger_file.is_dir():
-        raise fail(("output", "ledger"), f"is a folder, not a ledger file: {ledger_file}")
-    resolved = spec.model_copy(update={
-        "input": spec.input.model_copy(update={"file": data_file}),
-        "output": spec.output.model_copy(update={"folder": output_folder, "ledger": ledger_file}),
+    problems = check_rules(spec, spec.error) + _path_problems(spec, base)
+    if problems:
+        raise SpecError.of(sorted(problems, key=lambda p: p.line or 0))
+    output = spec.output
+    return spec.model_copy(update={
+        "input": spec.input.model_copy(update={"file": _resolve(spec.input.file, base)}),
+        "output": output.model_copy(update={
+            "folder": _resolve(output.folder, base),
+            "ledger": _resolve(output.ledger, base) if output.ledger else None}),
     })
-    resolved._source = spec_path
-    resolved._lines = lines
-    return resolved

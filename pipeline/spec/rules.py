@@ -1,21 +1,39 @@
 """Rules across keys: roles of columns, models, scenarios and features that must agree.
 
 Each rule takes the typed spec and ``fail`` (``Spec.error``), which places its
-message at the key's line.
+message at the key's line, and returns every problem it finds: one per item
+(a driver, a model, a scenario's change, a column's rule), since the later
+problems of one item often follow from its first.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
+from pipeline.core.errors import SpecError
+from pipeline.spec.keys import KeyPath
 from pipeline.spec.schema import TIME_ORDERED, Spec
 
+Fail = Callable[[KeyPath, str], SpecError]
 
-def check_roles(spec: Spec, fail) -> None:
+
+def check_rules(spec: Spec, fail: Fail) -> list[SpecError]:
+    """Return every problem across keys, rule by rule (an empty list when the spec is sound)."""
+    problems = check_roles(spec, fail)
+    if not problems:   # the column rules are judged against the roles, which must be sound first
+        problems += _check_column_rules(spec, fail)
+    return problems + _check_models(spec, fail) + _check_scenarios(spec, fail) + _check_features(spec, fail)
+
+
+def check_roles(spec: Spec, fail: Fail) -> list[SpecError]:
     """Refuse a column given two roles (target, date, series, driver) or listed twice."""
+    problems = []
     seen: dict[str, str] = {spec.target: "the target", spec.input.date_column: "the date column"}
     for index, column in enumerate(spec.input.series):
         if column in seen:
-            raise fail(("input", "series", index), f"column '{column}' is already {seen[column]}")
+            problems.append(fail(("input", "series", index), f"column '{column}' is already {seen[column]}"))
+            continue
         seen[column] = "a series column"
     series = set(spec.input.series)
     for group in ("numeric", "categorical"):
@@ -24,51 +42,54 @@ def check_roles(spec: Spec, fail) -> None:
             column = driver.column
             if column in seen and not (group == "categorical" and column in series
                                        and seen[column] == "a series column"):
-                raise fail(key, f"column '{column}' is already {seen[column]}")
+                problems.append(fail(key, f"column '{column}' is already {seen[column]}"))
+                continue
             seen[column] = "a driver"
     if not spec.intercept and not spec.has_features:
-        raise fail(("intercept",), "a model without an intercept needs at least one driver")
-    _check_column_rules(spec, fail)
-    _check_models(spec, fail)
-    _check_scenarios(spec, fail)
-    _check_features(spec, fail)
+        problems.append(fail(("intercept",), "a model without an intercept needs at least one driver"))
+    return problems
 
 
-def _check_scenarios(spec: Spec, fail) -> None:
+def _check_scenarios(spec: Spec, fail: Fail) -> list[SpecError]:
     """Refuse scenarios that change a column no model uses, or repeat a name."""
+    problems = []
     names: set[str] = set()
     usable = set(spec.driver_columns)
     numeric = {d.column for d in spec.drivers.numeric}
+    roles = column_roles(spec)
     for index, scenario in enumerate(spec.scenarios):
         if scenario.name in names:
-            raise fail(("scenarios", index, "name"), f"scenario '{scenario.name}' is named twice")
+            problems.append(fail(("scenarios", index, "name"), f"scenario '{scenario.name}' is named twice"))
         names.add(scenario.name)
         for number, change in enumerate(scenario.changes):
             key = ("scenarios", index, "changes", number)
             if change.column not in usable:
-                raise fail(key + ("column",), f"'{change.column}' is not a driver, so changing it "
-                           "changes no forecast")
-            if change.column not in numeric and change.set is None:
-                raise fail(key + ("column",), f"'{change.column}' is categorical: use set, not "
-                           "add or percent")
-            for column in change.where:
-                if column not in column_roles(spec):
-                    raise fail(key + ("where", column), f"'{column}' is not a column the spec uses")
+                problems.append(fail(key + ("column",), f"'{change.column}' is not a driver, so "
+                                     "changing it changes no forecast"))
+            elif change.column not in numeric and change.set is None:
+                problems.append(fail(key + ("column",), f"'{change.column}' is categorical: use set, "
+                                     "not add or percent"))
+            problems += [fail(key + ("where", column), f"'{column}' is not a column the spec uses")
+                         for column in change.where if column not in roles]
+    return problems
 
 
-def _check_models(spec: Spec, fail) -> None:
+def _check_models(spec: Spec, fail: Fail) -> list[SpecError]:
     """Refuse models and metrics that need a time order under a scheme without one."""
     if spec.validation.method in TIME_ORDERED:
-        return
-    written = spec._written_models or [m.kind for m in spec.models[1:]]
+        return []
+    problems = []
+    written = list(spec.origin.written_models) if spec.origin else [m.kind for m in spec.models[1:]]
     for choice in spec.models[1:]:
         if MODELS[choice.kind].can("needs_time_order"):
             index = written.index(choice.kind) if choice.kind in written else 0
-            raise fail(("models", index), f"'{choice.kind}' needs months in time order; "
-                       f"validation method '{spec.validation.method}' has none")
+            problems.append(fail(("models", index), f"'{choice.kind}' needs months in time order; "
+                                 f"validation method '{spec.validation.method}' has none"))
     if METRIC_BY_NAME[spec.select_by].needs_time_order:
-        raise fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs months in time order; choose another metric "
-                   f"for validation method '{spec.validation.method}'")
+        problems.append(fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs months in "
+                             "time order; choose another metric "
+                             f"for validation method '{spec.validation.method}'"))
+    return problems
 
 
 _TYPES_FOR_ROLE = {
@@ -102,99 +123,126 @@ def column_roles(spec: Spec) -> dict[str, str]:
     return roles
 
 
-def _check_column_rules(spec: Spec, fail) -> None:
-    """Refuse column rules that contradict themselves or the column's role."""
+def _check_column_rules(spec: Spec, fail: Fail) -> list[SpecError]:
+    """Refuse column rules that contradict themselves or the column's role (one problem per column)."""
     roles = column_roles(spec)
-    for column, rule in spec.columns.items():
-        key = ("columns", column)
-        if rule.min is not None and rule.max is not None and rule.min > rule.max:
-            raise fail(key + ("min",), f"min {rule.min:g} is above max {rule.max:g}")
-        if (rule.min is not None or rule.max is not None) and rule.type not in ("number", "whole_number"):
-            bound = "min" if rule.min is not None else "max"
-            raise fail(key + (bound,), f"min and max apply to numbers, not to type '{rule.type}'")
-        if rule.allowed is not None and rule.type != "category":
-            raise fail(key + ("allowed",), f"allowed levels apply to type 'category', not '{rule.type}'")
-        role = roles.get(column)
-        if role and rule.type not in _TYPES_FOR_ROLE[role]:
-            wanted = " or ".join(_TYPES_FOR_ROLE[role])
-            raise fail(key + ("type",), f"'{column}' is {role}, so its type must be {wanted}")
-        if rule.missing_allowed and role in ("the date column", "a series column"):
-            raise fail(key + ("missing_allowed",), f"'{column}' is {role} and may not be missing")
-        if (rule.missing_allowed and role in ("a numeric driver", "a categorical driver")
-                and column not in spec.filled_driver_columns):
-            fill = " (or set missing: mean or median on the driver to fill it)" \
-                if role == "a numeric driver" else ""
-            raise fail(key + ("missing_allowed",), f"'{column}' is {role}: the models need a "
-                       f"value in every row, so it may not be missing{fill}")
+    found = (_column_rule_problem(spec, column, rule, roles.get(column), fail)
+             for column, rule in spec.columns.items())
+    return [problem for problem in found if problem is not None]
 
 
-def _check_features(spec: Spec, fail) -> None:
-    """Refuse feature keys that contradict each other (each problem placed at its key)."""
-    for index, driver in enumerate(spec.drivers.categorical):
-        key = ("drivers", "categorical", index)
-        if driver.encoding == "ordinal":
-            if driver.order is None:
-                raise fail(key + ("encoding",), "ordinal encoding needs `order`: the levels, "
-                                                "lowest first")
-            if len(set(driver.order)) != len(driver.order):
-                raise fail(key + ("order",), "a level is listed twice")
-            if driver.reference is not None and driver.reference not in driver.order:
-                raise fail(key + ("reference",), f"'{driver.reference}' is not one of the "
-                                                 f"levels in `order`")
-            if driver.group_below is not None:
-                raise fail(key + ("group_below",), "grouping rare levels would break the order "
-                                                   "of an ordinal driver")
-        elif driver.order is not None:
-            raise fail(key + ("order",), "`order` applies to encoding: ordinal")
-        if driver.smoothing is not None and driver.encoding != "target_mean":
-            raise fail(key + ("smoothing",), "`smoothing` applies to encoding: target_mean")
+def _column_rule_problem(spec: Spec, column: str, rule, role: str | None, fail: Fail) -> SpecError | None:
+    key = ("columns", column)
+    if rule.min is not None and rule.max is not None and rule.min > rule.max:
+        return fail(key + ("min",), f"min {rule.min:g} is above max {rule.max:g}")
+    if (rule.min is not None or rule.max is not None) and rule.type not in ("number", "whole_number"):
+        bound = "min" if rule.min is not None else "max"
+        return fail(key + (bound,), f"min and max apply to numbers, not to type '{rule.type}'")
+    if rule.allowed is not None and rule.type != "category":
+        return fail(key + ("allowed",), f"allowed levels apply to type 'category', not '{rule.type}'")
+    if role and rule.type not in _TYPES_FOR_ROLE[role]:
+        wanted = " or ".join(_TYPES_FOR_ROLE[role])
+        return fail(key + ("type",), f"'{column}' is {role}, so its type must be {wanted}")
+    if rule.missing_allowed and role in ("the date column", "a series column"):
+        return fail(key + ("missing_allowed",), f"'{column}' is {role} and may not be missing")
+    if (rule.missing_allowed and role in ("a numeric driver", "a categorical driver")
+            and column not in spec.filled_driver_columns):
+        fill = " (or set missing: mean or median on the driver to fill it)" \
+            if role == "a numeric driver" else ""
+        return fail(key + ("missing_allowed",), f"'{column}' is {role}: the models need a "
+                    f"value in every row, so it may not be missing{fill}")
+    return None
+
+
+def _check_features(spec: Spec, fail: Fail) -> list[SpecError]:
+    """Refuse feature keys that contradict each other (each problem placed at its key).
+
+    One problem per categorical driver, interaction, series slope and entry of
+    drivers.lags; the calendar's keys are judged each on its own.
+    """
+    problems = [_categorical_problem(driver, ("drivers", "categorical", index), fail)
+                for index, driver in enumerate(spec.drivers.categorical)]
     numeric = [d.column for d in spec.drivers.numeric]
-    drivers = set(spec.driver_columns)
     pairs: set[frozenset[str]] = set()
     for index, pair in enumerate(spec.drivers.interactions):
-        key = ("drivers", "interactions", index)
-        if len(pair) != 2:
-            raise fail(key, f"an interaction is a pair of drivers, like [{', '.join(numeric[:2]) or 'a, b'}]")
-        for place, column in enumerate(pair):
-            if column not in drivers:
-                listed = ", ".join(spec.driver_columns) or "none"
-                raise fail(key + (place,), f"'{column}' is not a driver (drivers: {listed})")
-        if pair[0] == pair[1]:
-            raise fail(key, "an interaction needs two different drivers (for a square, use degree: 2)")
-        if frozenset(pair) in pairs:
-            raise fail(key, "this pair is listed twice")
-        pairs.add(frozenset(pair))
+        problem = _interaction_problem(spec, pair, ("drivers", "interactions", index), pairs, fail)
+        problems.append(problem)
+        if problem is None:
+            pairs.add(frozenset(pair))
     calendar = spec.drivers.calendar
     if calendar is not None:
         key = ("drivers", "calendar")
         if calendar.harmonics is not None and calendar.month_of_year != "fourier":
-            raise fail(key + ("harmonics",), "`harmonics` applies to month_of_year: fourier")
+            problems.append(fail(key + ("harmonics",), "`harmonics` applies to month_of_year: fourier"))
         if calendar.closures and not calendar.working_days:
-            raise fail(key + ("closures",), "`closures` applies to working_days: true")
+            problems.append(fail(key + ("closures",), "`closures` applies to working_days: true"))
         if calendar.quarter and calendar.month_of_year == "dummies":
-            raise fail(key + ("quarter",), "quarter dummies are sums of month dummies; use one or "
-                                           "the other")
-    for index, column in enumerate(spec.drivers.series_effects.slopes):
+            problems.append(fail(key + ("quarter",), "quarter dummies are sums of month dummies; use "
+                                                     "one or the other"))
+    slopes = spec.drivers.series_effects.slopes
+    for index, column in enumerate(slopes):
         key = ("drivers", "series_effects", "slopes", index)
-        if not spec.input.series:
-            raise fail(key, "series slopes need series: name the series columns in input.series")
+        if not spec.input.series:   # said once, at the first slope
+            problems.append(fail(key, "series slopes need series: name the series columns in "
+                                      "input.series"))
+            break
         if column not in numeric:
-            raise fail(key, f"'{column}' is not a numeric driver (numeric drivers: "
-                            f"{', '.join(numeric) or 'none'})")
-        if spec.drivers.series_effects.slopes.index(column) != index:
-            raise fail(key, f"'{column}' is listed twice")
+            problems.append(fail(key, f"'{column}' is not a numeric driver (numeric drivers: "
+                                      f"{', '.join(numeric) or 'none'})"))
+        elif slopes.index(column) != index:
+            problems.append(fail(key, f"'{column}' is listed twice"))
     seen: set[str] = set()
     for index, lagged in enumerate(spec.drivers.lags):
-        key = ("drivers", "lags", index)
-        if lagged.column != spec.target and lagged.column not in numeric:
-            raise fail(key + ("column",), f"'{lagged.column}' is neither the target nor a numeric "
-                                          "driver; lags are taken of those")
-        if lagged.column in seen:
-            raise fail(key + ("column",), f"'{lagged.column}' already has an entry in drivers.lags")
+        problems.append(_lags_problem(spec, lagged, ("drivers", "lags", index), numeric, seen, fail))
         seen.add(lagged.column)
-        if not (lagged.lags or lagged.rolling_means or lagged.differences):
-            raise fail(key, "give at least one of lags, rolling_means or differences")
-        for name in ("lags", "rolling_means", "differences"):
-            values = getattr(lagged, name)
-            if len(set(values)) != len(values):
-                raise fail(key + (name,), "a value is listed twice")
+    return [problem for problem in problems if problem is not None]
+
+
+def _categorical_problem(driver, key: KeyPath, fail: Fail) -> SpecError | None:
+    if driver.encoding == "ordinal":
+        if driver.order is None:
+            return fail(key + ("encoding",), "ordinal encoding needs `order`: the levels, lowest first")
+        if len(set(driver.order)) != len(driver.order):
+            return fail(key + ("order",), "a level is listed twice")
+        if driver.reference is not None and driver.reference not in driver.order:
+            return fail(key + ("reference",), f"'{driver.reference}' is not one of the levels in `order`")
+        if driver.group_below is not None:
+            return fail(key + ("group_below",), "grouping rare levels would break the order of an "
+                                                "ordinal driver")
+    elif driver.order is not None:
+        return fail(key + ("order",), "`order` applies to encoding: ordinal")
+    if driver.smoothing is not None and driver.encoding != "target_mean":
+        return fail(key + ("smoothing",), "`smoothing` applies to encoding: target_mean")
+    return None
+
+
+def _interaction_problem(spec: Spec, pair: list[str], key: KeyPath, pairs: set[frozenset[str]],
+                         fail: Fail) -> SpecError | None:
+    numeric = [d.column for d in spec.drivers.numeric]
+    if len(pair) != 2:
+        return fail(key, f"an interaction is a pair of drivers, like [{', '.join(numeric[:2]) or 'a, b'}]")
+    for place, column in enumerate(pair):
+        if column not in spec.driver_columns:
+            listed = ", ".join(spec.driver_columns) or "none"
+            return fail(key + (place,), f"'{column}' is not a driver (drivers: {listed})")
+    if pair[0] == pair[1]:
+        return fail(key, "an interaction needs two different drivers (for a square, use degree: 2)")
+    if frozenset(pair) in pairs:
+        return fail(key, "this pair is listed twice")
+    return None
+
+
+def _lags_problem(spec: Spec, lagged, key: KeyPath, numeric: list[str], seen: set[str],
+                  fail: Fail) -> SpecError | None:
+    if lagged.column != spec.target and lagged.column not in numeric:
+        return fail(key + ("column",), f"'{lagged.column}' is neither the target nor a numeric "
+                                       "driver; lags are taken of those")
+    if lagged.column in seen:
+        return fail(key + ("column",), f"'{lagged.column}' already has an entry in drivers.lags")
+    if not (lagged.lags or lagged.rolling_means or lagged.differences):
+        return fail(key, "give at least one of lags, rolling_means or differences")
+    for name in ("lags", "rolling_means", "differences"):
+        values = getattr(lagged, name)
+        if len(set(values)) != len(values):
+            return fail(key + (name,), "a value is listed twice")
+    return None

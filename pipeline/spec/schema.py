@@ -13,14 +13,14 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
-    PrivateAttr,
     field_validator,
     model_validator,
 )
+from pydantic_core import PydanticCustomError
 
 from pipeline.core.catalogue import BASELINE, MODELS, PER_SERIES, PER_SERIES_KINDS, SELECT_METRICS
 from pipeline.core.errors import SpecError
-from pipeline.spec.keys import KeyPath, format_key_path, line_for
+from pipeline.spec.keys import KeyPath, SpecOrigin, format_key_path
 
 
 class StrictModel(BaseModel):
@@ -427,20 +427,27 @@ class Spec(StrictModel):
     compute: ComputeSection = Field(default_factory=lambda: ComputeSection())
     output: OutputSection
 
-    _source: Path | None = PrivateAttr(None)
-    _lines: dict = PrivateAttr(default_factory=dict)
-    _written_models: list = PrivateAttr(default_factory=list)   # kinds in the file's order
+    # Where the spec was read from (set by the loader, carried by model_copy). It is not a key:
+    # the file cannot set it, and it is left out of model_dump, the run's spec.yaml and its hash.
+    origin: SpecOrigin | None = Field(None, exclude=True, repr=False)
+
+    @field_validator("origin", mode="plain")
+    @classmethod
+    def _origin_is_not_a_key(cls, value: Any) -> SpecOrigin:
+        if isinstance(value, SpecOrigin):
+            return value
+        raise PydanticCustomError("extra_forbidden", "Extra inputs are not permitted")
 
     def error(self, key: KeyPath, message: str) -> SpecError:
         """Return a SpecError placed at a key of the spec file this spec was read from."""
-        line = line_for(self._lines, key) if self._lines else None
-        return SpecError(message, file=str(self._source) if self._source else None, line=line,
-                         key=format_key_path(key))
+        origin = self.origin
+        return SpecError(message, file=str(origin.path) if origin else None,
+                         line=origin.line(key) if origin else None, key=format_key_path(key))
 
     @property
     def source(self) -> Path | None:
         """Return the spec file this spec was read from, if any."""
-        return self._source
+        return self.origin.path if self.origin else None
 
     @field_validator("name", mode="before")
     @classmethod

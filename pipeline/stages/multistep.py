@@ -54,9 +54,7 @@ def spec_for_horizon(spec: Spec, horizon: int) -> Spec:
         if lags or lagged.rolling_means or lagged.differences:
             kept.append(lagged.model_copy(update={"lags": lags, "start_lag": start}))
     drivers = spec.drivers.model_copy(update={"lags": kept})
-    changed = spec.model_copy(update={"drivers": drivers})
-    changed._source, changed._lines = spec._source, spec._lines
-    return changed
+    return spec.model_copy(update={"drivers": drivers})   # carries the spec's origin
 
 
 def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame):
