@@ -109,6 +109,65 @@ def write_page(folder: Path, name: str, text: str) -> Path:
     return target
 
 
+def _output_folder(spec: Spec, output_folder: Path | None) -> Path:
+    """Return the folder run folders go into, created if need be."""
+    folder = Path(output_folder) if output_folder else spec.output.folder
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except FileExistsError:
+        raise UserError(f"{folder}: the output folder exists and is not a folder") from None
+    except OSError as exc:
+        raise UserError(f"{folder}: cannot create the output folder: {exc.strerror}") from None
+    return folder
+
+
+def _metrics_document(spec: Spec, data: CheckedData, evaluation: Evaluation, forecast: ForecastResult,
+                      *, run_id: str, created: str, validation: dict) -> dict:
+    """Return metrics.json: the run's identity, every model's metrics and the answer."""
+    return {
+        "run_id": run_id, "created": created, "castline_version": __version__,
+        "spec_name": spec.name, "validation": validation,
+        "validation_text": describe_validation(spec),
+        "package_versions": package_versions(),
+        "recommended": evaluation.recommended, "verdict": evaluation.verdict,
+        "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
+        "notes": forecast.warnings + evaluation.notes,
+        "by_origin": _records(evaluation.by_origin),
+        "by_horizon": _records(evaluation.by_horizon),
+        # Per series, the metrics are in series.csv (at thousands of series they would make
+        # this file tens of megabytes); here, what the report's Per series section shows.
+        "series_count": len(data.series_names),
+        "significance_level": spec.significance_level,
+        "series_summary": _records(evaluation.series_summary),
+        "beats_baseline": evaluation.beats_baseline,
+        "select_by": evaluation.select_by,
+        "interval_coverage": _records(evaluation.coverage),
+        "diagnostics": _records(forecast.diagnostics),
+    }
+
+
+def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: BacktestResult,
+                  evaluation: Evaluation, forecast: ForecastResult) -> None:
+    """Write the run's tables (CSV) and its model file into the staging folder."""
+    write_csv(backtest.predictions, staging / "predictions.csv")
+    write_csv(forecast.coefficients, staging / "coefficients.csv")
+    write_csv(forecast.forecast, staging / "forecast.csv")
+    write_csv(forecast.diagnostics, staging / "diagnostics.csv")
+    write_csv(forecast.vif, staging / "vif.csv")
+    write_csv(forecast.influential, staging / "influential_rows.csv")
+    write_csv(evaluation.coverage, staging / "interval_coverage.csv")
+    if len(forecast.scenarios):
+        write_csv(forecast.scenarios, staging / "scenarios.csv")
+    document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
+    (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
+    write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
+        columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
+        period=lambda t: t["period"].astype(str)), staging / "history.csv")
+    write_csv(forecast.residuals, staging / "residuals.csv")
+    write_csv(fallback_table(backtest, forecast), staging / "series_fallbacks.csv")
+    write_csv(evaluation.by_series, staging / "series.csv")
+
+
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
             realised: pd.DataFrame | None = None, track: dict | None = None,
@@ -117,17 +176,10 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
 
     ``realised`` is the track record's table (earlier forecasts scored against this data) and
     ``track`` what else the track record found (track_record.json: ledger, earlier runs,
-    warnings);
-    ``pages`` renders the pages read by people (summary.md, report.html) from the files
-    already written: castline's presentation layer, handed in by the runner.
+    warnings); ``pages`` renders the pages read by people (summary.md, report.html) from the
+    files already written: castline's presentation layer, handed in by the runner.
     """
-    folder = Path(output_folder) if output_folder else spec.output.folder
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except FileExistsError:
-        raise UserError(f"{folder}: the output folder exists and is not a folder") from None
-    except OSError as exc:
-        raise UserError(f"{folder}: cannot create the output folder: {exc.strerror}") from None
+    folder = _output_folder(spec, output_folder)
     now = datetime.now(UTC)
     run_id = new_run_id(now)
     created = now.isoformat(timespec="seconds")
@@ -137,52 +189,16 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
                         "output folder")
     staging.mkdir()
     try:
-        data_print = fingerprint(data)
         resolved = spec.model_dump(mode="json")
         resolved["output"]["folder"] = str(folder.resolve())
         resolved["output"]["ledger"] = str(ledger.ledger_path(spec, folder))
         (staging / "spec.yaml").write_text(
             yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True), encoding="utf-8")
-        (staging / "fingerprint.json").write_text(json.dumps(data_print, indent=2), encoding="utf-8")
-        metrics = {
-            "run_id": run_id, "created": created, "castline_version": __version__,
-            "spec_name": spec.name, "validation": resolved["validation"],
-            "validation_text": describe_validation(spec),
-            "package_versions": package_versions(),
-            "recommended": evaluation.recommended, "verdict": evaluation.verdict,
-            "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
-            "notes": forecast.warnings + evaluation.notes,
-        }
-        metrics["by_origin"] = _records(evaluation.by_origin)
-        metrics["by_horizon"] = _records(evaluation.by_horizon)
-        # Per series, the metrics are in series.csv (at thousands of series they would make
-        # this file tens of megabytes); here, what the report's Per series section shows.
-        metrics["series_count"] = len(data.series_names)
-        metrics["significance_level"] = spec.significance_level
-        metrics["series_summary"] = _records(evaluation.series_summary)
-        metrics["beats_baseline"] = evaluation.beats_baseline
-        metrics["select_by"] = evaluation.select_by
-        metrics["interval_coverage"] = _records(evaluation.coverage)
-        metrics["diagnostics"] = _records(forecast.diagnostics)
+        (staging / "fingerprint.json").write_text(json.dumps(fingerprint(data), indent=2), encoding="utf-8")
+        metrics = _metrics_document(spec, data, evaluation, forecast, run_id=run_id, created=created,
+                                    validation=resolved["validation"])
         (staging / "metrics.json").write_text(json.dumps(metrics, indent=2), encoding="utf-8")
-        write_csv(backtest.predictions, staging / "predictions.csv")
-        write_csv(forecast.coefficients, staging / "coefficients.csv")
-        write_csv(forecast.forecast, staging / "forecast.csv")
-        write_csv(forecast.diagnostics, staging / "diagnostics.csv")
-        write_csv(forecast.vif, staging / "vif.csv")
-        write_csv(forecast.influential, staging / "influential_rows.csv")
-        write_csv(evaluation.coverage, staging / "interval_coverage.csv")
-        if len(forecast.scenarios):
-            write_csv(forecast.scenarios, staging / "scenarios.csv")
-        document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
-        (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
-        write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
-            columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
-            period=lambda t: t["period"].astype(str)), staging / "history.csv")
-        write_csv(forecast.residuals, staging / "residuals.csv")
-        fallbacks = fallback_table(backtest, forecast)
-        write_csv(fallbacks, staging / "series_fallbacks.csv")
-        write_csv(evaluation.by_series, staging / "series.csv")
+        _write_tables(staging, spec, data, backtest, evaluation, forecast)
         if realised is not None:
             write_csv(realised, staging / "realised.csv")
         if track is not None:
@@ -191,9 +207,8 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             write_page(staging, name, text)
         final = folder / run_id
         ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,
-                                created=now, spec=spec, resolved=resolved, data=data,
-                                evaluation=evaluation, forecast=forecast,
-                                realised=realised)
+                                      created=now, spec=spec, resolved=resolved, data=data,
+                                      evaluation=evaluation, forecast=forecast, realised=realised)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
