@@ -42,13 +42,40 @@ def encode(value: Any, parts: Sequence | None = None) -> Any:
     reference to its place in that list.
     """
     if parts is not None:
-        for index, part in enumerate(parts):
-            if value is part:
-                return {"__part__": index}
-        if isinstance(value, list):
-            return [encode(v, parts) for v in value]
-        if isinstance(value, dict) and all(isinstance(k, str) for k in value):
-            return {"__dict__": {k: encode(v, parts) for k, v in value.items()}}
+        referred = _encode_referring(value, parts)
+        if referred is not None:
+            return referred
+    if isinstance(value, (pd.Series, np.ndarray, np.generic, pd.Period, pd.Timestamp, datetime, date)):
+        return _encode_typed(value)
+    if isinstance(value, float) and not math.isfinite(value):
+        return {"__float__": repr(value)}
+    if isinstance(value, tuple):
+        return {"__tuple__": [encode(v) for v in value]}
+    if isinstance(value, dict):
+        if all(isinstance(k, str) for k in value):
+            return {"__dict__": {k: encode(v) for k, v in value.items()}}
+        return {"__pairs__": [[encode(k), encode(v)] for k, v in value.items()]}
+    if isinstance(value, list):
+        return [encode(v) for v in value]
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    raise TypeError(f"cannot store a value of type {type(value).__name__}")
+
+
+def _encode_referring(value: Any, parts: Sequence) -> Any:
+    """Return a value that is, or holds, one of the parts, encoded with references; else None."""
+    for index, part in enumerate(parts):
+        if value is part:
+            return {"__part__": index}
+    if isinstance(value, list):
+        return [encode(v, parts) for v in value]
+    if isinstance(value, dict) and all(isinstance(k, str) for k in value):
+        return {"__dict__": {k: encode(v, parts) for k, v in value.items()}}
+    return None
+
+
+def _encode_typed(value: Any) -> Any:
+    """Return the tagged form of a pandas or numpy value, a month or a date."""
     if isinstance(value, pd.Series):
         index = value.index
         return {"__series__": {"values": encode(value.to_numpy()),
@@ -59,23 +86,9 @@ def encode(value: Any, parts: Sequence | None = None) -> Any:
         return {"__array__": [encode(v) for v in value.tolist()], "dtype": str(value.dtype)}
     if isinstance(value, np.generic):
         return encode(value.item())
-    if isinstance(value, float) and not math.isfinite(value):
-        return {"__float__": repr(value)}
-    if isinstance(value, tuple):
-        return {"__tuple__": [encode(v) for v in value]}
     if isinstance(value, pd.Period):
         return {"__period__": str(value), "freq": "M"}
-    if isinstance(value, (pd.Timestamp, datetime, date)):
-        return {"__date__": value.isoformat()}
-    if isinstance(value, dict):
-        if all(isinstance(k, str) for k in value):
-            return {"__dict__": {k: encode(v) for k, v in value.items()}}
-        return {"__pairs__": [[encode(k), encode(v)] for k, v in value.items()]}
-    if isinstance(value, list):
-        return [encode(v) for v in value]
-    if value is None or isinstance(value, (bool, int, float, str)):
-        return value
-    raise TypeError(f"cannot store a value of type {type(value).__name__}")
+    return {"__date__": value.isoformat()}
 
 
 def encode_fields(fields: dict[str, Any], parts: Sequence | None = None) -> dict[str, Any]:
