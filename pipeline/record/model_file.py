@@ -17,14 +17,13 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from pipeline.core.catalogue import model_kind
+from pipeline.core.catalogue import BASELINE_KINDS, MODELS, model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError, ModelFileError, UserError
 from pipeline.core.stored import FORMAT_VERSION, READABLE_VERSIONS, StoredFields, encode
 from pipeline.core.version import __version__
 from pipeline.features.plan import FeaturePlan
 from pipeline.features.target import TargetTransform
-from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
 from pipeline.stages.check import _series_labels
@@ -32,7 +31,8 @@ from pipeline.stages.check import _series_labels
 FORMAT = "castline-model"
 
 # The baselines a model file may hold, by the class name it gives them.
-BASELINES: dict[str, type] = {cls.__name__: cls for cls in (MeanBaseline, LastValue, SeasonalNaive, Drift)}
+# The baseline classes a model file may name: every reference kind in the catalogue.
+BASELINES: dict[str, type] = {cls.__name__: cls for cls in (MODELS[kind].model_class() for kind in BASELINE_KINDS)}
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "ModelFileError", "StoredModel", "load_model", "model_document"]
 
