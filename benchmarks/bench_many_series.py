@@ -142,8 +142,9 @@ def main() -> int:
 
     from pipeline.core import execution
     print("\ntimings:")
-    with execution.using(spec.compute, spec):
-        castline, result = best_of("(a) castline run_backtest, 3 models", lambda: run_backtest(spec, data))
+    with execution.executor_for(spec.compute, spec) as executor:
+        castline, result = best_of("(a) castline run_backtest, 3 models",
+                                   lambda: run_backtest(spec, data, executor=executor))
     peak = max_rss_mb()
     predictions = result.predictions
     assert predictions["origin"].nunique() == ORIGINS
@@ -185,9 +186,9 @@ def main() -> int:
     print("targets met" if on_target else "TARGET MISSED")
     if args.profile or not on_target:
         profiler = cProfile.Profile()
-        with execution.using(spec.compute, spec):
+        with execution.executor_for(spec.compute, spec) as executor:
             profiler.enable()
-            run_backtest(spec, data)
+            run_backtest(spec, data, executor=executor)
             profiler.disable()
         out = io.StringIO()
         pstats.Stats(profiler, stream=out).strip_dirs().sort_stats("cumulative").print_stats(25)

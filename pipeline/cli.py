@@ -100,8 +100,8 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
 def _command_run(args) -> int:
     from pipeline.core.progress import showing
     from pipeline.runner import run
-    with showing(sys.stderr):   # a bar only when standard error is a terminal
-        result = run(args.spec, output_folder=args.output_folder)
+    with showing(sys.stderr) as bar:   # a bar only when standard error is a terminal
+        result = run(args.spec, output_folder=args.output_folder, progress=bar)
     table = result.metrics
     _print_table(table.to_dict(orient="records"),
                  ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"])

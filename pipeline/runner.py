@@ -8,8 +8,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from pipeline.core import execution
 from pipeline.core.errors import DataError, UserError
+from pipeline.core.execution import executor_for
+from pipeline.core.progress import QUIET, Progress
 from pipeline.present.pages import render_pages
 from pipeline.present.starter_spec import render_spec
 from pipeline.record.new_file import write_new_file
@@ -91,14 +92,19 @@ def _data_file_named(spec: Spec):
         raise
 
 
-def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None) -> RunResult:
-    """Run the whole forecast a spec describes and return every table it produced."""
+def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None,
+        progress: Progress = QUIET) -> RunResult:
+    """Run the whole forecast a spec describes and return every table it produced.
+
+    The per-series fits run where the spec's ``compute`` section says; the backtest and
+    the forecast report how far they have got to ``progress`` (by default, nowhere).
+    """
     spec = _as_spec(spec_or_path)
-    with _data_file_named(spec), execution.using(spec.compute, spec):
+    with _data_file_named(spec), executor_for(spec.compute, spec) as executor:
         data = check_data(spec, read_input(spec))
-        backtest = run_backtest(spec, data)
+        backtest = run_backtest(spec, data, executor=executor, progress=progress)
         evaluation = evaluate(spec, backtest)
-        forecast = make_forecast(spec, data, backtest)
+        forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress)
     track = track_record(spec, data, evaluation, output_folder=output_folder)
     folder = publish(spec, data, backtest, evaluation, forecast,
                      output_folder=Path(output_folder) if output_folder else None,

@@ -1,24 +1,30 @@
 """Where the per-series fits run (pipeline.core.execution) and how a run reports progress
-(pipeline.core.progress).
+(pipeline.core.progress); both are handed to the stages and fits, never read from a global.
 
 References: the same tasks run here in this process (a list comprehension); the process
 ids the tasks report; a Dask LocalCluster started in this test process; an in-memory
-stream that is not a terminal and one that claims to be.
+stream that is not a terminal and one that claims to be; executors and progress that
+record what they are given.
 """
 
 from __future__ import annotations
 
+import contextvars
+import inspect
 import io
 import os
 
 import numpy as np
 import pytest
 
+from pipeline import runner
 from pipeline.core import execution, progress
 from pipeline.core.design import Design
 from pipeline.core.errors import SpecError
-from pipeline.models.per_series import PerSeriesOLS
-from pipeline.spec import ComputeSection
+from pipeline.models import make_model
+from pipeline.models.per_series import CHUNK_SERIES, PerSeriesOLS, fit_series_chunk
+from pipeline.spec import ComputeSection, ModelChoice
+from pipeline.stages import backtest, forecast, multistep
 
 
 def square(value: int) -> int:
@@ -31,21 +37,60 @@ def where(value: int) -> tuple[int, int]:
 
 # ---------------------------------------------------------------- execution
 
-def test_outside_a_run_the_fits_run_in_this_process():
-    assert isinstance(execution.current(), execution.InProcess)
-    assert execution.current().map(square, [1, 2, 3]) == [1, 4, 9]
+class RecordingExecutor(execution.InProcess):
+    """Runs the tasks here, as InProcess does, and records each function and batch given."""
+
+    description = "recording"
+
+    def __init__(self) -> None:
+        self.calls: list[tuple[object, int]] = []
+
+    def map(self, function, tasks):
+        self.calls.append((function, len(tasks)))
+        return super().map(function, tasks)
 
 
-def test_the_compute_section_chooses_the_way_and_the_block_restores_it():
-    with execution.using(ComputeSection()) as runner:
-        assert isinstance(runner, execution.InProcess) and execution.current() is runner
-    with execution.using(ComputeSection(workers=3)) as runner:
+def _series_design(count: int, rows: int = 12, seed: int = 3) -> tuple[Design, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    series = np.repeat([f"s{k:03d}" for k in range(count)], rows)
+    matrix = rng.normal(size=(len(series), 2))
+    return Design(matrix, ["a", "b"], series), matrix @ [1.0, -2.0] + rng.normal(size=len(series))
+
+
+def test_without_an_executor_given_the_fits_run_in_this_process():
+    assert isinstance(execution.IN_PROCESS, execution.InProcess)
+    assert execution.IN_PROCESS.map(square, [1, 2, 3]) == [1, 4, 9]
+    assert PerSeriesOLS().executor is execution.IN_PROCESS
+    assert make_model(ModelChoice(kind="ols", per_series=True)).executor is execution.IN_PROCESS
+    for function in (backtest.run_backtest, forecast.make_forecast, multistep.predict_ahead,
+                     make_model, PerSeriesOLS.from_choice):
+        assert inspect.signature(function).parameters["executor"].default is execution.IN_PROCESS
+
+
+def test_no_executor_or_progress_is_held_in_a_context_variable():
+    for module in (execution, progress):
+        assert not [name for name, value in vars(module).items()
+                    if isinstance(value, contextvars.ContextVar)]
+
+
+def test_a_model_per_series_runs_its_chunks_on_the_executor_it_is_given():
+    """Reference: the fit in this process with the default executor: the same numbers."""
+    design, y = _series_design(2 * CHUNK_SERIES + 20)
+    recording = RecordingExecutor()
+    model = make_model(ModelChoice(kind="ols", per_series=True), executor=recording)
+    there = model.fit(design, y)
+    here = PerSeriesOLS().fit(design, y)
+    assert recording.calls == [(fit_series_chunk, 3)]   # three chunks, in one batch of up to 8
+    np.testing.assert_array_equal(there.coef_, here.coef_)
+
+
+def test_the_compute_section_chooses_the_way():
+    with execution.executor_for(ComputeSection()) as runner:
+        assert isinstance(runner, execution.InProcess)
+    with execution.executor_for(ComputeSection(workers=3)) as runner:
         assert isinstance(runner, execution.WorkerProcesses) and runner.workers == 3
-        assert execution.current() is runner
-    assert isinstance(execution.current(), execution.InProcess)
-    with pytest.raises(RuntimeError), execution.using(ComputeSection(workers=2)):
+    with pytest.raises(RuntimeError), execution.executor_for(ComputeSection(workers=2)):
         raise RuntimeError("a failing run")
-    assert isinstance(execution.current(), execution.InProcess)
 
 
 def test_worker_processes_return_every_result_in_order_from_other_processes():
@@ -63,7 +108,7 @@ def test_worker_processes_return_every_result_in_order_from_other_processes():
 
 def test_a_dask_scheduler_runs_the_tasks_in_order_and_the_client_is_closed_after(dask_cluster):
     spec = ComputeSection(scheduler=dask_cluster.scheduler_address)
-    with execution.using(spec) as runner:
+    with execution.executor_for(spec) as runner:
         assert isinstance(runner, execution.DaskCluster)
         assert runner.map(square, list(range(30))) == [k * k for k in range(30)]
         client = runner.client
@@ -74,14 +119,10 @@ def test_a_dask_scheduler_runs_the_tasks_in_order_and_the_client_is_closed_after
 def test_a_model_per_series_fitted_on_dask_equals_the_fit_in_this_process(dask_cluster):
     """More series than one chunk, so several tasks go to the cluster; coefficients, (X'X)⁻¹
     and residual SDs equal the fit in this process exactly."""
-    rng = np.random.default_rng(3)
-    series = np.repeat([f"s{k:03d}" for k in range(520)], 12)
-    matrix = rng.normal(size=(len(series), 2))
-    y = matrix @ [1.0, -2.0] + rng.normal(size=len(series))
-    design = Design(matrix, ["a", "b"], series)
+    design, y = _series_design(520)
     here = PerSeriesOLS().fit(design, y)
-    with execution.using(ComputeSection(scheduler=dask_cluster.scheduler_address)):
-        there = PerSeriesOLS().fit(design, y)
+    with execution.executor_for(ComputeSection(scheduler=dask_cluster.scheduler_address)) as runner:
+        there = PerSeriesOLS(executor=runner).fit(design, y)
     assert "fit_series_chunk" in dask_cluster.scheduler.task_prefixes
     np.testing.assert_array_equal(there.coef_, here.coef_)
     np.testing.assert_array_equal(there.xtx_inverse_, here.xtx_inverse_)
@@ -90,12 +131,11 @@ def test_a_model_per_series_fitted_on_dask_equals_the_fit_in_this_process(dask_c
 
 def test_an_unreachable_scheduler_is_a_spec_error_at_compute_scheduler():
     with pytest.raises(SpecError) as caught, \
-            execution.using(ComputeSection(scheduler="tcp://127.0.0.1:1")):
-        pass
+            execution.executor_for(ComputeSection(scheduler="tcp://127.0.0.1:1")):
+        pytest.fail("the block ran without a scheduler")
     assert caught.value.key == "compute.scheduler"
     assert "cannot reach the Dask scheduler at tcp://127.0.0.1:1" in str(caught.value)
     assert "\n" not in str(caught.value)
-    assert isinstance(execution.current(), execution.InProcess)
 
 
 @pytest.mark.parametrize("address", ["127.0.0.1:8786", "http://host:8786", "tcp://"])
@@ -117,30 +157,56 @@ class _Terminal(io.StringIO):
         return True
 
 
-def _fit_some_series() -> None:
+class RecordingProgress(progress.Quiet):
+    """Records every report it is given."""
+
+    def __init__(self) -> None:
+        self.reports: list[tuple] = []
+
+    def start(self, label: str, total: int) -> None:
+        self.reports.append(("start", label, total))
+
+    def advance(self, label: str, steps: int = 1) -> None:
+        self.reports.append(("advance", label, steps))
+
+
+def _fit_some_series(bar) -> None:
     rng = np.random.default_rng(1)
     series = np.repeat(["a", "b", "c"], 10)
-    PerSeriesOLS().fit(Design(rng.normal(size=(30, 2)), ["u", "v"], series), rng.normal(size=30))
+    PerSeriesOLS(progress=bar).fit(Design(rng.normal(size=(30, 2)), ["u", "v"], series),
+                                   rng.normal(size=30))
+
+
+def test_without_a_progress_given_nothing_is_reported():
+    assert PerSeriesOLS().progress is progress.QUIET
+    assert make_model(ModelChoice(kind="ols", per_series=True)).progress is progress.QUIET
+    for function in (backtest.run_backtest, forecast.make_forecast, multistep.predict_ahead,
+                     make_model, PerSeriesOLS.from_choice, runner.run):
+        assert inspect.signature(function).parameters["progress"].default is progress.QUIET
+
+
+def test_a_model_per_series_counts_the_series_it_fitted_on_the_progress_it_is_given():
+    recording = RecordingProgress()
+    _fit_some_series(recording)
+    assert recording.reports == [("start", "series fitted", 3), ("advance", "series fitted", 3)]
 
 
 def test_progress_on_a_stream_that_is_not_a_terminal_shows_nothing():
     stream = io.StringIO()
     with progress.showing(stream) as bar:
         assert isinstance(bar, progress.Quiet) and not isinstance(bar, progress.TerminalBar)
-        assert isinstance(progress.current(), progress.Quiet)
-        _fit_some_series()
+        _fit_some_series(bar)
     assert stream.getvalue() == ""
 
 
-def test_progress_on_a_terminal_shows_the_bar_and_is_reset_after():
+def test_progress_on_a_terminal_shows_the_bar():
     """The counterpart of the test above, so that it can fail: a stream that says it is a
     terminal gets the bar's label written to it."""
     stream = _Terminal()
     with progress.showing(stream) as bar:
-        assert isinstance(bar, progress.TerminalBar) and progress.current() is bar
-        _fit_some_series()
+        assert isinstance(bar, progress.TerminalBar)
+        _fit_some_series(bar)
     assert "series fitted" in stream.getvalue()
-    assert not isinstance(progress.current(), progress.TerminalBar)
 
 
 def test_a_stream_without_isatty_is_not_a_terminal():
@@ -150,4 +216,4 @@ def test_a_stream_without_isatty_is_not_a_terminal():
 
     with progress.showing(Bare()) as bar:
         assert isinstance(bar, progress.Quiet)
-        _fit_some_series()
+        _fit_some_series(bar)

@@ -1,11 +1,18 @@
-"""Progress bars: shown on a terminal, never in a log or a pipe."""
+"""Progress bars: shown on a terminal, never in a log or a pipe; a run reports to the
+progress it is handed (by default, nowhere)."""
 
 from __future__ import annotations
 
 import io
+from pathlib import Path
 
+import yaml
+
+import pipeline
 from pipeline.core import progress
 from pipeline.models.per_series import CHUNK_SERIES
+
+ROOT = Path(__file__).resolve().parents[1]
 
 
 class FakeTerminal(io.StringIO):
@@ -15,19 +22,31 @@ class FakeTerminal(io.StringIO):
         return True
 
 
+class Recording(progress.Quiet):
+    """Records every report it is given, in order."""
+
+    def __init__(self) -> None:
+        self.reports: list[tuple] = []
+
+    def start(self, label: str, total: int) -> None:
+        self.reports.append(("start", label, total))
+
+    def advance(self, label: str, steps: int = 1) -> None:
+        self.reports.append(("advance", label, steps))
+
+
 def test_a_stream_that_is_not_a_terminal_gets_nothing():
     stream = io.StringIO()
     with progress.showing(stream) as bar:
-        assert isinstance(bar, progress.Quiet)
-        progress.current().start("origins", 3)
-        progress.current().advance("origins")
+        assert isinstance(bar, progress.Quiet) and not isinstance(bar, progress.TerminalBar)
+        bar.start("origins", 3)
+        bar.advance("origins")
     assert stream.getvalue() == ""
 
 
 def test_a_terminal_gets_bars_with_counts_for_origins_and_series():
     stream = FakeTerminal()
-    with progress.showing(stream):
-        bar = progress.current()
+    with progress.showing(stream) as bar:
         assert isinstance(bar, progress.TerminalBar)
         bar.start("origins", 12)
         bar.start("series fitted", 2 * CHUNK_SERIES)
@@ -37,5 +56,21 @@ def test_a_terminal_gets_bars_with_counts_for_origins_and_series():
     text = stream.getvalue()
     assert "origins" in text and "series fitted" in text
     assert "12/12" in text
-    # Outside the block, stages report to nothing again.
-    assert isinstance(progress.current(), progress.Quiet)
+
+
+def test_a_run_reports_origins_and_series_to_the_progress_it_is_handed(tmp_path):
+    """The demo data (for plumbing: 4 regions) at 3 rolling origins with a model per series:
+    every origin is counted, and every per-series fit (one per origin, then the final fit on
+    all history) counts its 4 series."""
+    spec = yaml.safe_load((ROOT / "configs" / "compost_demo.yaml").read_text(encoding="utf-8"))
+    spec["input"]["file"] = str(ROOT / "data_samples" / "compost_sales.csv")
+    spec["validation"] = {"method": "rolling_origin", "horizon": 3, "min_train_periods": 48,
+                          "origins": 3}
+    spec["models"] = ["ols", {"kind": "ols", "per_series": True}]
+    path = tmp_path / "spec.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    recording = Recording()
+    pipeline.run(path, output_folder=tmp_path / "out", progress=recording)
+    series = [("start", "series fitted", 4), ("advance", "series fitted", 4)]
+    origin = series + [("advance", "origins", 1)]
+    assert recording.reports == [("start", "origins", 3), *origin * 3, *series]

@@ -2,17 +2,27 @@
 
 Every way runs the same tasks (the series cut into the same chunks, see
 ``models.per_series``), each a pure function of its numbers, so a run gives
-the same digits whichever way it is executed. The way is chosen by the spec's
-``compute`` section and set for the length of a run with ``using``.
+the same digits whichever way it is executed. The runner opens the way the
+spec's ``compute`` section chooses with ``executor_for`` and hands it to the
+stages, which hand it to the fits; a fit given none runs its tasks here
+(``IN_PROCESS``).
 """
 
 from __future__ import annotations
 
-import contextvars
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
+from typing import Protocol
 
 from pipeline.core.errors import SpecError
+
+
+class Executor(Protocol):
+    """Runs a function over tasks and returns the results in the tasks' order."""
+
+    description: str
+
+    def map(self, function: Callable, tasks: Sequence) -> list: ...
 
 
 class InProcess:
@@ -51,17 +61,13 @@ class DaskCluster:
         return self.client.gather(futures)
 
 
-_current: contextvars.ContextVar = contextvars.ContextVar("castline_execution", default=None)
-
-
-def current():
-    """Return the way the per-series fits run for the run in progress."""
-    return _current.get() or InProcess()
+IN_PROCESS = InProcess()   # the default of every stage and fit that takes an executor
 
 
 @contextmanager
-def using(compute, spec=None) -> Iterator[object]:
-    """Set, for the block, where the per-series fits run, from a spec's ``compute`` section.
+def executor_for(compute, spec=None) -> Iterator[Executor]:
+    """Give, for the block, the executor a spec's ``compute`` section chooses; a Dask
+    cluster's client is closed when the block ends.
 
     Raises SpecError (placed at ``compute.scheduler``) when the scheduler cannot be reached.
     """
@@ -71,11 +77,9 @@ def using(compute, spec=None) -> Iterator[object]:
         runner = WorkerProcesses(compute.workers)
     else:
         runner = InProcess()
-    token = _current.set(runner)
     try:
         yield runner
     finally:
-        _current.reset(token)
         if isinstance(runner, DaskCluster):
             runner.client.close()
 

@@ -1,16 +1,27 @@
 """Progress of a long run: origins done, series fitted, time left.
 
-Stages report through ``current()``; by default nothing is shown. The command
-line sets a bar on the terminal for the length of a run (``showing``), and only
-when its output is a terminal, so logs and pipes stay quiet.
+Stages and fits report to the progress they are handed; by default that is
+``QUIET``, which shows nothing. The command line opens a bar for the length of
+a run (``showing``), only when its output is a terminal, so logs and pipes stay
+quiet, and hands it to the runner.
 """
 
 from __future__ import annotations
 
-import contextvars
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import Protocol
+
+
+class Progress(Protocol):
+    """Where work reports how far it has got, one count per label."""
+
+    def start(self, label: str, total: int) -> None: ...
+
+    def advance(self, label: str, steps: int = 1) -> None: ...
+
+    def finish(self, label: str) -> None: ...
 
 
 class Quiet:
@@ -60,24 +71,16 @@ class TerminalBar(Quiet):
             self._bar.update(task, completed=self._bar.tasks[task].total)
 
 
-_current: contextvars.ContextVar = contextvars.ContextVar("castline_progress", default=None)
-
-
-def current():
-    """Return where the run in progress reports how far it has got."""
-    return _current.get() or Quiet()
+QUIET = Quiet()   # the default of every stage and fit that takes a progress
 
 
 @contextmanager
-def showing(stream=None) -> Iterator[object]:
-    """Show progress bars on ``stream`` (standard error) for the block, if it is a terminal."""
+def showing(stream=None) -> Iterator[Progress]:
+    """Give, for the block, progress bars on ``stream`` (standard error) if it is a terminal,
+    and otherwise ``QUIET``."""
     stream = sys.stderr if stream is None else stream
     if not (hasattr(stream, "isatty") and stream.isatty()):
-        yield Quiet()
+        yield QUIET
         return
     with TerminalBar(stream) as bar:
-        token = _current.set(bar)
-        try:
-            yield bar
-        finally:
-            _current.reset(token)
+        yield bar

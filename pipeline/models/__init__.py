@@ -8,6 +8,8 @@ inference, OLS per series, penalised and robust fits, and the transformed-target
 from __future__ import annotations
 
 from pipeline.core.catalogue import BASELINE_KINDS, MODELS
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
 from pipeline.models.contract import Model
 from pipeline.models.ols import OLSModel, least_squares
@@ -16,12 +18,14 @@ from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
 
 
-def make_model(choice, *, intercept: bool = True, target=None) -> Model:
+def make_model(choice, *, intercept: bool = True, target=None, executor: Executor = IN_PROCESS,
+               progress: Progress = QUIET) -> Model:
     """Return a new, unfitted model for a spec's model choice (or a bare kind name).
 
     With a target transform other than none (``target``, the plan's ``target_scale``), a
     linear model is fitted on the transformed target and its predictions turned back into
-    means; a baseline always works on the target as it is.
+    means; a baseline always works on the target as it is. A model per series runs its
+    tasks on ``executor`` and counts the series it fitted on ``progress``.
 
     Raises ValueError for a kind the catalogue does not hold.
     """
@@ -30,7 +34,8 @@ def make_model(choice, *, intercept: bool = True, target=None) -> Model:
         raise ValueError(f"unknown model kind {name!r}")
     kind = MODELS[name]
     per_series = bool(getattr(choice, "per_series", False))
-    model = kind.model_class(per_series).from_choice(choice, fit_intercept=intercept)
+    model = kind.model_class(per_series).from_choice(choice, fit_intercept=intercept,
+                                                     executor=executor, progress=progress)
     if target is None or target.kind == "none" or kind.baseline:
         return model
     return TransformedTargetModel(model, target)

@@ -15,6 +15,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.design import Design
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 
 
 class Model:
@@ -23,8 +25,13 @@ class Model:
     fit_intercept: bool = False   # a model with an intercept sets it from the spec's intercept
 
     @classmethod
-    def from_choice(cls, choice, *, fit_intercept: bool = True) -> Model:
-        """Return a new, unfitted model for a spec's model choice (or a bare kind name)."""
+    def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
+                    progress: Progress = QUIET) -> Model:
+        """Return a new, unfitted model for a spec's model choice (or a bare kind name).
+
+        ``executor`` and ``progress``: where a model that fits in tasks (one per chunk of
+        series) runs them and reports how far it has got; the other models ignore them.
+        """
         return cls()
 
     def fit(self, design: Design, y) -> Model:

@@ -18,6 +18,8 @@ import pandas as pd
 import scipy.linalg
 import scipy.stats
 
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 from pipeline.models.contract import Model
 
 INTERCEPT = "intercept"
@@ -187,7 +189,8 @@ class OLSModel(Model):
         self.fit_intercept = fit_intercept
 
     @classmethod
-    def from_choice(cls, choice, *, fit_intercept: bool = True) -> OLSModel:
+    def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
+                    progress: Progress = QUIET) -> OLSModel:
         return cls(fit_intercept=fit_intercept)
 
     def _with_intercept(self, matrix: np.ndarray) -> np.ndarray:

@@ -16,6 +16,8 @@ import pandas as pd
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import ElasticNet, HuberRegressor, Lasso, Ridge
 
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 from pipeline.models.contract import Model
 from pipeline.models.ols import INTERCEPT
 
@@ -79,7 +81,8 @@ class PenalisedModel(_Standardised):
         self.fit_intercept = fit_intercept
 
     @classmethod
-    def from_choice(cls, choice, *, fit_intercept: bool = True) -> PenalisedModel:
+    def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
+                    progress: Progress = QUIET) -> PenalisedModel:
         if isinstance(choice, str):
             return cls(choice, fit_intercept=fit_intercept)
         return cls(choice.kind, penalties=choice.penalties, l1_share=choice.l1_share,
@@ -147,7 +150,8 @@ class HuberModel(_Standardised):
         self.fit_intercept = fit_intercept
 
     @classmethod
-    def from_choice(cls, choice, *, fit_intercept: bool = True) -> HuberModel:
+    def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
+                    progress: Progress = QUIET) -> HuberModel:
         threshold = 1.35 if isinstance(choice, str) else choice.huber_threshold
         return cls(threshold=threshold, fit_intercept=fit_intercept)
 

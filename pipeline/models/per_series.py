@@ -2,7 +2,8 @@
 
 Series are cut into chunks of ``CHUNK_SERIES`` (in sorted order of their names),
 and each chunk is one task for the run's executor (this process, worker
-processes or a Dask cluster; see ``pipeline.core.execution``). Within a chunk, the
+processes or a Dask cluster; see ``pipeline.core.execution``), which the model is
+given when it is made, as is where it reports progress. Within a chunk, the
 series whose designs have the same shape (rows and kept columns) are stacked
 and factorised together by numpy's batched Householder QR: the columns of each
 series scaled to unit length, the solution refined twice against its own
@@ -26,9 +27,10 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
-from pipeline.core import execution, progress
 from pipeline.core.design import series_index
 from pipeline.core.errors import ModelFileError
+from pipeline.core.execution import IN_PROCESS, Executor, InProcess
+from pipeline.core.progress import QUIET, Progress
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode
 from pipeline.models.contract import Model
 from pipeline.models.ols import INTERCEPT, least_squares
@@ -185,12 +187,16 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
 class PerSeriesOLS(Model):
     """OLS on the feature design, one fit per series; predictions use each row's own series."""
 
-    def __init__(self, fit_intercept: bool = True) -> None:
+    def __init__(self, fit_intercept: bool = True, *, executor: Executor = IN_PROCESS,
+                 progress: Progress = QUIET) -> None:
         self.fit_intercept = fit_intercept
+        self.executor = executor     # where the chunks of series are fitted
+        self.progress = progress     # where the count of series fitted goes
 
     @classmethod
-    def from_choice(cls, choice, *, fit_intercept: bool = True) -> PerSeriesOLS:
-        return cls(fit_intercept=fit_intercept)
+    def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
+                    progress: Progress = QUIET) -> PerSeriesOLS:
+        return cls(fit_intercept=fit_intercept, executor=executor, progress=progress)
 
     def _columns(self, design) -> np.ndarray:
         matrix = np.asarray(design.matrix, float)
@@ -221,17 +227,16 @@ class PerSeriesOLS(Model):
             rows = slice(bounds[first], bounds[last])
             tasks.append(ChunkTask(matrix[rows], ordered_y[rows], counts[first:last],
                                    self.fit_intercept, names))
-        bar = progress.current()
-        bar.start("series fitted", len(series))
+        self.progress.start("series fitted", len(series))
         fits = []
-        runner = execution.current()
+        runner = self.executor
         # Here, a few chunks at a time so the bar moves; elsewhere, all at once, since each
         # hand-over to worker processes or a cluster has a cost of its own.
-        step = 8 if isinstance(runner, execution.InProcess) else max(len(tasks), 1)
+        step = 8 if isinstance(runner, InProcess) else max(len(tasks), 1)
         for start in range(0, len(tasks), step):
             batch = tasks[start:start + step]
             fits += runner.map(fit_series_chunk, batch)
-            bar.advance("series fitted", int(sum(len(t.counts) for t in batch)))
+            self.progress.advance("series fitted", int(sum(len(t.counts) for t in batch)))
         self.names_ = names
         self.series_ = pd.Index(series)
         self.coef_ = np.vstack([f.coef for f in fits])

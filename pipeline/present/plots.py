@@ -2,34 +2,54 @@
 
 Each function returns a Figure value: PNG bytes as a data URI plus the text
 that stands in for the picture for a reader who cannot see it.
+
+Pictures are drawn on figures of their own with the Agg canvas, never through
+pyplot, and in the report's style (``STYLE``) set only while each is drawn: importing
+this module or drawing a picture leaves matplotlib's global settings and backend
+as they were.
 """
 
 from __future__ import annotations
 
 import base64
+import functools
 import io
 from dataclasses import dataclass
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.dates as mdates  # noqa: E402
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-import scipy.stats  # noqa: E402
+import matplotlib.dates as mdates
+import matplotlib.figure
+import numpy as np
+import pandas as pd
+import scipy.stats
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
 BASELINE_COLOUR = "#7F7F7F"
 MAX_PANELS = 6
 
-plt.rcParams.update({
+STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
     "axes.grid": True, "grid.color": "#DDDDDD", "grid.linewidth": 0.6,
     "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline",
-})
+}
+
+
+def _styled(draw):
+    """Draw (and save) the picture in the report's style, set for the drawing only."""
+    @functools.wraps(draw)
+    def styled(*args, **kwargs):
+        with matplotlib.rc_context(STYLE):
+            return draw(*args, **kwargs)
+    return styled
+
+
+def _subplots(*grid: int, figsize: tuple[float, float], **options):
+    """Return a new figure on an Agg canvas of its own, and its axes (as pyplot.subplots)."""
+    figure = matplotlib.figure.Figure(figsize=figsize)
+    FigureCanvasAgg(figure)
+    return figure, figure.subplots(*grid, **options)
 
 
 @dataclass(frozen=True)
@@ -57,7 +77,6 @@ def _finish(figure, alt: str) -> Figure:
     figure.tight_layout()
     # No timestamp or software tag in the file, so the same run draws the same bytes.
     figure.savefig(buffer, format="png", metadata={"Software": None})
-    plt.close(figure)
     return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
 
 
@@ -85,10 +104,11 @@ def _nearest(predictions: pd.DataFrame) -> pd.DataFrame:
     return predictions.sort_values("horizon", kind="stable").drop_duplicates(["period", "series"])
 
 
+@_styled
 def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure:
     """Actuals and each model's out-of-sample predictions, summed over series; origins marked."""
     actual = history.groupby("period")["actual"].sum().sort_index()
-    figure, axis = plt.subplots(figsize=(8, 3.4))
+    figure, axis = _subplots(figsize=(8, 3.4))
     axis.plot(_months(actual.index), actual.to_numpy(), color="#000000", linewidth=1.2, label="actual")
     models = list(dict.fromkeys(predictions["model"]))
     colours = _colours(models)
@@ -112,9 +132,10 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     return _finish(figure, alt)
 
 
+@_styled
 def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     """MAE per model at each origin or horizon."""
-    figure, axis = plt.subplots(figsize=(8, 2.8))
+    figure, axis = _subplots(figsize=(8, 2.8))
     models = list(dict.fromkeys(table["model"]))
     colours = _colours(models)
     for model in models:
@@ -135,6 +156,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     return _finish(figure, alt)
 
 
+@_styled
 def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, method: str,
                      scenarios: pd.DataFrame | None) -> Figure:
     """History and the forecast with 80% and 95% intervals, one panel per series: with more
@@ -146,7 +168,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
         series = largest_series(history, series)
     columns = min(2, len(series)) or 1
     rows = int(np.ceil(len(series) / columns)) or 1
-    figure, axes = plt.subplots(rows, columns, figsize=(8, 2.4 * rows), squeeze=False)
+    figure, axes = _subplots(rows, columns, figsize=(8, 2.4 * rows), squeeze=False)
     for index, name in enumerate(series):
         axis = axes[index // columns][index % columns]
         past = history[history["series"] == name].sort_values("period").tail(36)
@@ -184,10 +206,11 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     return _finish(figure, alt)
 
 
+@_styled
 def coefficient_picture(terms: pd.DataFrame) -> Figure:
     """Each driver's estimate with its 95% interval (the intercept left out)."""
     shown = terms[terms["term"] != "intercept"].dropna(subset=["estimate"])
-    figure, axis = plt.subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
+    figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
     has_interval = {"low_95", "high_95"} <= set(shown.columns) and shown["low_95"].notna().any()
     if has_interval:
@@ -206,10 +229,11 @@ def coefficient_picture(terms: pd.DataFrame) -> Figure:
     return _finish(figure, alt)
 
 
+@_styled
 def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
     """Each term's median estimate across series with the quartiles as bars (intercept left out)."""
     shown = spread[spread["term"] != "intercept"].dropna(subset=["median estimate"])
-    figure, axis = plt.subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
+    figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
     middle = shown["median estimate"].to_numpy(float)
     axis.errorbar(middle, positions, xerr=[middle - shown["25%"].to_numpy(float),
@@ -227,6 +251,7 @@ def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
     return _finish(figure, alt)
 
 
+@_styled
 def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str]) -> Figure:
     """Per-series skill against the mean baseline, one outline per model, skill below −1 in
     the leftmost bar (skill is at most 1, so the other end needs no clipping)."""
@@ -237,7 +262,7 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
     low = max(-1.0, float(found.min()))
     high = max(float(found.max()), low + 0.1)
     edges = np.linspace(low, high, 31)
-    figure, axis = plt.subplots(figsize=(8, 2.8))
+    figure, axis = _subplots(figsize=(8, 2.8))
     parts = []
     for model in models:
         own = values[model]
@@ -261,6 +286,7 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
     return _finish(figure, alt)
 
 
+@_styled
 def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model: str,
                    skill: float, all_models: list[str]) -> Figure:
     """One series: actuals, and the model's and the mean baseline's backtest predictions (the
@@ -271,7 +297,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     # Actuals from a year before the first scored month, so the level before it shows.
     start = str(pd.Period(scored[0], freq="M") - 12) if scored else None
     past = past[past["period"] >= start] if start else past.tail(36)
-    figure, axis = plt.subplots(figsize=(4, 2.3))
+    figure, axis = _subplots(figsize=(4, 2.3))
     axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1.1, label="actual")
     colours = _colours(all_models)
     for kind, style in ((model, "-"), ("mean_baseline", "--")):
@@ -289,25 +315,26 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     return _finish(figure, alt)
 
 
+@_styled
 def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     """Residuals over time, against fitted values, and against the normal quantiles."""
     pictures = []
     by_month = residuals.groupby("period")["residual"].mean().sort_index()
-    figure, axis = plt.subplots(figsize=(8, 2.6))
+    figure, axis = _subplots(figsize=(8, 2.6))
     axis.plot(_months(by_month.index), by_month.to_numpy(), color=PALETTE[0], linewidth=1)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
     _date_axis(axis)
     pictures.append(_finish(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."))
-    figure, axis = plt.subplots(figsize=(4, 3))
+    figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
     pictures.append(_finish(figure, "Scatter of residuals against fitted values; a funnel shape "
                             "means the spread changes with the level."))
-    figure, axis = plt.subplots(figsize=(4, 3))
+    figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
     axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)

@@ -17,10 +17,11 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from pipeline.core import progress
 from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
@@ -237,8 +238,13 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     return splits, horizon, plans
 
 
-def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
-    """Return every model's out-of-sample predictions under the spec's validation scheme."""
+def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCESS,
+                 progress: Progress = QUIET) -> BacktestResult:
+    """Return every model's out-of-sample predictions under the spec's validation scheme.
+
+    A model per series fits its chunks of series on ``executor``; the origins done and the
+    series fitted are counted on ``progress``.
+    """
     time_ordered = spec.validation.method in ("holdout", "rolling_origin")
     splits, horizon, plans = plan_splits(spec, data)
     notes: list[str] = []
@@ -256,8 +262,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
     frames = []
     fallen_back: list[pd.DataFrame | None] = []
-    bar = progress.current()
-    bar.start("origins", len(splits))
+    progress.start("origins", len(splits))
     for split, plan in zip(splits, plans):
         cache: dict[str, tuple] = {}
         window_codes = None
@@ -302,12 +307,14 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
             elif stepwise and choice.kind not in BASELINE_KINDS:
                 # A target lag is shorter than the months ahead: the spec's multi_step strategy.
                 predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
-                                                              split.origin.ordinal)
+                                                              split.origin.ordinal,
+                                                              executor=executor, progress=progress)
                 fallen_back += [_fallbacks(choice.name, split.label, model,
                                            np.asarray(split.test[SERIES].to_numpy()))
                                 for _, _, model in used]
             else:
-                model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
+                model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
+                                   executor=executor, progress=progress)
                 design, y_train = train_design(choice.kind)
                 model.fit(design, y_train)
                 predicted = model.predict(test_design(choice.kind))
@@ -318,7 +325,7 @@ def run_backtest(spec: Spec, data: CheckedData) -> BacktestResult:
         if "train" in cache:
             notes += [f"window ending {split.label}: {note}" for note in cache["train"][0].notes
                       if "left out" in note]
-        bar.advance("origins")
+        progress.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")

@@ -173,8 +173,12 @@ def _check_words(check: str) -> str:
     return check
 
 
-def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput) -> list[Problem]:
-    """Return one problem per (check, column), located at its first failing row."""
+def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput,
+                           typed: pd.DataFrame) -> list[Problem]:
+    """Return one problem per (check, column), located at its first failing row.
+
+    ``typed``: the spec's columns as far as the checks could coerce them to their types.
+    """
     failures = failures.copy()
     failures["check"] = failures["check"].astype(str)
     coerced = set(failures.loc[failures["check"].str.startswith("coerce_dtype"), "column"])
@@ -190,15 +194,16 @@ def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput) -> list[Proble
         first = located.iloc[0] if len(located) else group.iloc[0]
         row = raw.location(first["index"]) if len(located) else None
         value, count = _show(first["failure_case"]), len(group)
-        if row is None and column in raw.frame.columns and "datetime" in check:
-            row, value, count = _first_unparsed_date(raw, str(column))
+        if row is None and column in typed.columns and "datetime" in check:
+            row, value, count = _first_unparsed_date(raw, typed, str(column))
         problems.append(Problem(_check_words(check), str(column), row, value, count=count))
     return problems
 
 
-def _first_unparsed_date(raw: RawInput, column: str) -> tuple[int | None, str, int]:
+def _first_unparsed_date(raw: RawInput, typed: pd.DataFrame, column: str
+                         ) -> tuple[int | None, str, int]:
     """Return the row, value and count of the dates not written like the column's first one."""
-    values = raw.frame[column]
+    values = typed[column]
     parsed = pd.to_datetime(values, errors="coerce")   # the format of the first date, for all
     bad = parsed.isna() & values.notna()
     if not bad.any():
@@ -408,13 +413,14 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
                   ) -> tuple[pd.DataFrame | None, list[Problem], list[Problem]]:
     """Return the validated frame (or None), the problems that stop a run, and those allowed."""
     schema = build_schema(spec)
+    # The spec's columns in a frame of their own, coerced to their types there: the raw
+    # input stays as it was read, and the file's other columns are never copied.
+    typed = raw.frame.loc[:, raw.frame.columns.isin(list(schema.columns))].copy(deep=False)
     try:
-        # In place: the raw frame's columns are coerced to their types, which saves
-        # a copy of a file that may hold millions of rows.
-        valid = schema.validate(raw.frame, lazy=True, inplace=True)
+        valid = schema.validate(typed, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
-        problems = _problems_from_pandera(exc.failure_cases, raw)
-        problems += _calendar_despite(problems, spec, raw, today)
+        problems = _problems_from_pandera(exc.failure_cases, raw, typed)
+        problems += _calendar_despite(problems, spec, raw, typed, today)
         return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
@@ -438,15 +444,17 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     return frame, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
 
 
-def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, today) -> list[Problem]:
+def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd.DataFrame,
+                      today) -> list[Problem]:
     """Return the calendar problems of the rows whose dates and keys can be read,
-    so that one bad cell does not hide a duplicated or missing month."""
+    so that one bad cell does not hide a duplicated or missing month (``typed``: the
+    spec's columns as far as the checks could coerce them)."""
     rules = effective_rules(spec)
     if any(p.check == "column missing" for p in found):
         return []
-    frame = pd.DataFrame(index=raw.frame.index)
+    frame = pd.DataFrame(index=typed.index)
     for column, rule in rules.items():
-        values = raw.frame[column]
+        values = typed[column]
         if rule.type == "date":
             frame[column] = pd.to_datetime(values, errors="coerce", format="mixed")
         elif rule.type in ("number", "whole_number"):

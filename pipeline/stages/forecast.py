@@ -20,7 +20,9 @@ from pipeline.core.catalogue import MODELS
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design, series_design
 from pipeline.core.errors import DataError
+from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
+from pipeline.core.progress import QUIET, Progress
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
@@ -79,8 +81,13 @@ def _row_labels(history: pd.DataFrame, design) -> list[str]:
             for p, s, r in zip(history[PERIOD].astype(str), history[SERIES], rows.astype(float))]
 
 
-def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> ForecastResult:
-    """Return each model's forecast of the future rows, fitted on all history."""
+def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
+                  executor: Executor = IN_PROCESS, progress: Progress = QUIET) -> ForecastResult:
+    """Return each model's forecast of the future rows, fitted on all history.
+
+    A model per series fits its chunks of series on ``executor`` and counts them on
+    ``progress``.
+    """
     plan = plan_features(spec, SERIES).fit(data.history)
     future = data.future.sort_values([PERIOD, SERIES], kind="stable")
     history_design, y = plan.training_design(data.history)
@@ -94,7 +101,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
         if stepwise and choice.kind in BASELINE_KINDS:
             return model.predict(series_design(frame, SERIES)), None, None
         if stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
-            point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin)
+            point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin,
+                                             executor=executor, progress=progress)
             return point, se, df
         if id(frame) not in designs:
             designs[id(frame)] = plan.transform(frame)
@@ -113,7 +121,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult) -> Fo
     fallbacks = []
     for choice in spec.models:
         kind = choice.name
-        model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
+        model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
+                           executor=executor, progress=progress)
         model.fit(history_design, y)
         fitted[kind] = model
         described = model.describe()

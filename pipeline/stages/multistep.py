@@ -18,6 +18,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.progress import QUIET, Progress
 from pipeline.features.lags import with_predictions
 from pipeline.features.plan import FeaturePlan, plan_features
 from pipeline.models import make_model, prediction_spread
@@ -57,9 +59,11 @@ def spec_for_horizon(spec: Spec, horizon: int) -> Spec:
     return spec.model_copy(update={"drivers": drivers})   # carries the spec's origin
 
 
-def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame):
+def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame, *,
+         executor: Executor, progress: Progress):
     design, y = plan.training_design(train)
-    model = make_model(choice, intercept=spec.intercept, target=plan.target_scale)
+    model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
+                       executor=executor, progress=progress)
     return model.fit(design, y)
 
 
@@ -71,9 +75,11 @@ def _with_se(model, design, predicted):
 
 
 def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd.DataFrame,
-                  origin: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, list]:
+                  origin: int, *, executor: Executor = IN_PROCESS, progress: Progress = QUIET
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, list]:
     """Return predictions, their standard errors and residual df for rows after the origin
-    (a month ordinal), by the spec's multi-step strategy, and the fitted models used."""
+    (a month ordinal), by the spec's multi-step strategy, and the fitted models used
+    (a model per series fitted on ``executor``, reporting to ``progress``)."""
     ahead = rows[PERIOD].array.asi8 - origin
     predicted = np.full(len(rows), np.nan)
     se = np.full(len(rows), np.nan)
@@ -84,13 +90,13 @@ def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd
             at = ahead == horizon
             horizon_spec = spec_for_horizon(spec, int(horizon))
             plan = plan_features(horizon_spec, SERIES).fit(train)
-            model = _fit(horizon_spec, choice, plan, train)
+            model = _fit(horizon_spec, choice, plan, train, executor=executor, progress=progress)
             design = plan.transform(rows[at])
             predicted[at], se[at], df[at] = _with_se(model, design, model.predict(design))
             fitted.append((int(horizon), plan, model))
         return predicted, se, df, fitted
     plan = plan_features(spec, SERIES).fit(train)
-    model = _fit(spec, choice, plan, train)
+    model = _fit(spec, choice, plan, train, executor=executor, progress=progress)
     known = None
     for month in np.unique(rows[PERIOD].array.asi8):
         at = (rows[PERIOD].array.asi8 == month)
