@@ -238,6 +238,91 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     return splits, horizon, plans
 
 
+class _WindowDesigns:
+    """The designs of one window's training and predicted rows, each built once, when a
+    model first asks for it (baselines need only the rows' series and months)."""
+
+    def __init__(self, spec: Spec, split: Split, plan, shared, plain: bool) -> None:
+        self.spec, self.split, self.plan, self.shared, self.plain = spec, split, plan, shared, plain
+        self.cache: dict[str, tuple | Design] = {}
+        if shared is not None:
+            self.cache["train"] = _design_rows(shared, split.train)
+
+    def train(self, kind: str) -> tuple[Design, np.ndarray]:
+        # With lags, every model fits on the rows whose lags are available.
+        if kind in BASELINE_KINDS and self.plain and self.shared is None:
+            frame = self.split.train
+            return series_design(frame, SERIES), frame[self.spec.target].to_numpy(float)
+        if "train" not in self.cache:
+            self.cache["train"] = self.plan.training_design(self.split.train)
+        return self.cache["train"]
+
+    def test(self, kind: str) -> Design:
+        frame = self.split.test
+        if kind in BASELINE_KINDS and self.shared is None:
+            return series_design(frame, SERIES)
+        if "test" not in self.cache:
+            self.cache["test"] = (_design_rows(self.shared, frame)[0] if self.shared is not None
+                                  else self.plan.transform(frame))
+        return self.cache["test"]
+
+    def left_out_notes(self) -> list[str]:
+        """Return the training design's notes on rows left out of the fit, labelled."""
+        if "train" not in self.cache:
+            return []
+        return [f"window ending {self.split.label}: {note}" for note in self.cache["train"][0].notes
+                if "left out" in note]
+
+
+def _strategy_note(spec: Spec, split: Split) -> str | None:
+    """Return the note that the window predicts further ahead than a lag of the target
+    reaches (so the spec's multi_step strategy is used), or None."""
+    furthest = int((split.test[PERIOD].array.asi8 - split.origin.ordinal).max()) \
+        if split.origin is not None and len(split.test) else 0
+    if not needs_strategy(spec, furthest):
+        return None
+    return (f"the backtest predicts up to {furthest} months ahead but a lag of the "
+            f"target is shorter: the linear models use the {spec.multi_step} strategy "
+            "(multi_step)")
+
+
+def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, choice, *,
+                    stepwise: bool, fast_ols: dict, executor: Executor, progress: Progress):
+    """Return one model's predictions of a window's rows (with standard errors and residual
+    df, or None) and the series it fell back to the mean for."""
+    tested_series = np.asarray(split.test[SERIES].to_numpy())
+    if choice.name == "ols" and split.label in fast_ols:
+        return (*fast_ols[split.label], [])
+    if stepwise and choice.kind not in BASELINE_KINDS:
+        # A target lag is shorter than the months ahead: the spec's multi_step strategy.
+        predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
+                                                      split.origin.ordinal,
+                                                      executor=executor, progress=progress)
+        return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)
+                                         for _, _, model in used]
+    model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
+                       executor=executor, progress=progress)
+    design, y_train = designs.train(choice.kind)
+    model.fit(design, y_train)
+    predicted = model.predict(designs.test(choice.kind))
+    se, df_resid = prediction_spread(model, designs.test(choice.kind))
+    return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)]
+
+
+def _fallback_frame(found: list[pd.DataFrame | None]) -> pd.DataFrame:
+    frames = [frame for frame in found if frame is not None]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=FALLBACK_COLUMNS)
+
+
+def _fallback_note(fallbacks: pd.DataFrame) -> str:
+    count = fallbacks.groupby("model")["series"].nunique()
+    return "; ".join(
+        f"{name}: {n} series had no more rows than terms in some training window and were "
+        "forecast by their own mean there, or by the mean of all series when the window held "
+        "none of their rows (listed in series_fallbacks.csv)"
+        for name, n in count.items())
+
+
 def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCESS,
                  progress: Progress = QUIET) -> BacktestResult:
     """Return every model's out-of-sample predictions under the spec's validation scheme.
@@ -264,82 +349,28 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
     for split, plan in zip(splits, plans):
-        cache: dict[str, tuple] = {}
-        window_codes = None
-        if shared is not None:
-            cache["train"] = _design_rows(shared, split.train)
-            window_codes = series_index(cache["train"][0])
+        designs = _WindowDesigns(spec, split, plan, shared, plain)
+        window_codes = series_index(designs.cache["train"][0]) if shared is not None else None
         scales = mase_scales(split.train, spec.target, series_codes=window_codes) if time_ordered else {}
         columns = _split_columns(split, spec.target, scales)
-
-        def train_design(kind: str, split=split, plan=plan, cache=cache) -> tuple[Design, np.ndarray]:
-            # Baselines need only the series and months; the full design is built once, if at
-            # all. With lags, every model fits on the rows whose lags are available.
-            if kind in BASELINE_KINDS and plain and shared is None:
-                frame = split.train
-                return series_design(frame, SERIES), frame[spec.target].to_numpy(float)
-            if "train" not in cache:
-                cache["train"] = (_design_rows(shared, split.train) if shared is not None
-                                  else plan.training_design(split.train))
-            return cache["train"]
-
-        def test_design(kind: str, split=split, plan=plan, cache=cache) -> Design:
-            frame = split.test
-            if kind in BASELINE_KINDS and shared is None:
-                return series_design(frame, SERIES)
-            if "test" not in cache:
-                cache["test"] = (_design_rows(shared, frame)[0] if shared is not None
-                                 else plan.transform(frame))
-            return cache["test"]
-
-        furthest = int((split.test[PERIOD].array.asi8 - split.origin.ordinal).max()) \
-            if split.origin is not None and len(split.test) else 0
-        stepwise = needs_strategy(spec, furthest)
-        strategy_note = (f"the backtest predicts up to {furthest} months ahead but a lag of the "
-                         f"target is shorter: the linear models use the {spec.multi_step} strategy "
-                         "(multi_step)")
-        if stepwise and strategy_note not in notes:
-            notes.append(strategy_note)
+        note = _strategy_note(spec, split)
+        if note and note not in notes:
+            notes.append(note)
         for choice in spec.models:
-            se = df_resid = None
-            if choice.name == "ols" and split.label in fast_ols:
-                predicted, se, df_resid = fast_ols[split.label]
-            elif stepwise and choice.kind not in BASELINE_KINDS:
-                # A target lag is shorter than the months ahead: the spec's multi_step strategy.
-                predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
-                                                              split.origin.ordinal,
-                                                              executor=executor, progress=progress)
-                fallen_back += [_fallbacks(choice.name, split.label, model,
-                                           np.asarray(split.test[SERIES].to_numpy()))
-                                for _, _, model in used]
-            else:
-                model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
-                                   executor=executor, progress=progress)
-                design, y_train = train_design(choice.kind)
-                model.fit(design, y_train)
-                predicted = model.predict(test_design(choice.kind))
-                se, df_resid = prediction_spread(model, test_design(choice.kind))
-                fallen_back.append(_fallbacks(choice.name, split.label, model,
-                                              np.asarray(split.test[SERIES].to_numpy())))
+            predicted, se, df_resid, fell_back = _predict_window(
+                spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=fast_ols,
+                executor=executor, progress=progress)
+            fallen_back += fell_back
             frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid))
-        if "train" in cache:
-            notes += [f"window ending {split.label}: {note}" for note in cache["train"][0].notes
-                      if "left out" in note]
+        notes += designs.left_out_notes()
         progress.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")
     predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
-    found = [frame for frame in fallen_back if frame is not None]
-    fallbacks = pd.concat(found, ignore_index=True) if found else \
-        pd.DataFrame(columns=FALLBACK_COLUMNS)
+    fallbacks = _fallback_frame(fallen_back)
     if len(fallbacks):
-        count = fallbacks.groupby("model")["series"].nunique()
-        notes.insert(0, "; ".join(
-            f"{name}: {n} series had no more rows than terms in some training window and were "
-            "forecast by their own mean there, or by the mean of all series when the window held "
-            "none of their rows (listed in series_fallbacks.csv)"
-            for name, n in count.items()))
+        notes.insert(0, _fallback_note(fallbacks))
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"]
                                                               if len(notes) > 5 else []),
