@@ -81,114 +81,136 @@ def _row_labels(history: pd.DataFrame, design) -> list[str]:
             for p, s, r in zip(history[PERIOD].astype(str), history[SERIES], rows.astype(float))]
 
 
-def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
-                  executor: Executor = IN_PROCESS, progress: Progress = QUIET) -> ForecastResult:
-    """Return each model's forecast of the future rows, fitted on all history.
+class _Predictor:
+    """Predicts rows to forecast with a model fitted on all history: through the spec's
+    multi_step strategy when a target lag is shorter than the months ahead, else from the
+    rows' design (each frame's design built once)."""
 
-    A model per series fits its chunks of series on ``executor`` and counts them on
-    ``progress``.
-    """
-    plan = plan_features(spec, SERIES).fit(data.history)
-    future = data.future.sort_values([PERIOD, SERIES], kind="stable")
-    history_design, y = plan.training_design(data.history)
-    origin = data.last_period.ordinal
-    horizons = (future[PERIOD].array.asi8 - origin).astype(int)
-    stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
-    designs: dict[int, Design] = {}
+    def __init__(self, spec: Spec, data: CheckedData, plan, stepwise: bool, *,
+                 executor: Executor, progress: Progress) -> None:
+        self.spec, self.data, self.plan, self.stepwise = spec, data, plan, stepwise
+        self.executor, self.progress = executor, progress
+        self.designs: dict[int, Design] = {}
 
-    def predict(choice, model, frame: pd.DataFrame):
+    def __call__(self, choice, model, frame: pd.DataFrame):
         """Return the point forecasts, their standard errors and residual df for the rows."""
-        if stepwise and choice.kind in BASELINE_KINDS:
+        if self.stepwise and choice.kind in BASELINE_KINDS:
             return model.predict(series_design(frame, SERIES)), None, None
-        if stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
-            point, se, df, _ = predict_ahead(spec, choice, data.history, frame, origin,
-                                             executor=executor, progress=progress)
+        if self.stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
+            point, se, df, _ = predict_ahead(self.spec, choice, self.data.history, frame,
+                                             self.data.last_period.ordinal,
+                                             executor=self.executor, progress=self.progress)
             return point, se, df
-        if id(frame) not in designs:
-            designs[id(frame)] = plan.transform(frame)
-        design = designs[id(frame)]
+        if id(frame) not in self.designs:
+            self.designs[id(frame)] = self.plan.transform(frame)
+        design = self.designs[id(frame)]
         se, df = prediction_spread(model, design)
         return model.predict(design), se, df
 
-    predictions = backtest.predictions
-    forecasts, coefficients, summaries, scenario_rows = [], [], [], []
-    warnings = [*history_design.notes]
-    if stepwise:
-        warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
-                        f"the {spec.multi_step} strategy (multi_step)")
-    diagnostics = vif = influential = residuals = pd.DataFrame()
-    fitted = {}
-    fallbacks = []
-    for choice in spec.models:
-        kind = choice.name
-        model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
-                           executor=executor, progress=progress)
-        model.fit(history_design, y)
-        fitted[kind] = model
-        described = model.describe()
-        if described:
-            warnings.append(f"{kind}: {described}")
-        inner = model.inner
-        if choice.per_series:
-            warnings += [f"{kind}: {note}" for note in inner.notes()]
-            if len(inner.fallbacks_):
-                fallbacks.append(inner.fallbacks_.assign(model=kind))
-                warnings.append(f"{kind}: {len(inner.fallbacks_)} series have no more rows than "
-                                "terms and are forecast by their own mean (series_fallbacks.csv)")
-        if len(future):
-            point, se, df = predict(choice, model, future)
-            table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
-                     "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
-            own = predictions[predictions["model"] == kind]
-            backtest_residuals = pd.DataFrame({"horizon": own["horizon"],
-                                               "residual": own["actual"] - own["prediction"]})
-            for level in LEVELS:
-                if se is not None:
-                    low, high = analytic_bounds(point, se, df, level)
-                else:
-                    low = high = np.full(len(point), np.nan)
-                table[f"analytic_low_{percent(level)}"] = low
-                table[f"analytic_high_{percent(level)}"] = high
-            for level in LEVELS:
-                low, high = empirical_bounds(point, horizons, backtest_residuals, level)
-                table[f"empirical_low_{percent(level)}"] = low
-                table[f"empirical_high_{percent(level)}"] = high
-            forecasts.append(pd.DataFrame(table))
-        fit = model.least_squares_fit
-        if fit is not None:
-            matrix = model.design_matrix(history_design)
-            cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
-                             groups=history_design.series, order=history_design.period)
-            terms = coefficient_table(fit, cov)
-            terms["standard_errors"] = spec.standard_errors
-            findings, vif, influential = diagnose(
-                fit, matrix, groups=history_design.series, order=history_design.period,
-                row_labels=_row_labels(data.history, history_design))
-            diagnostics = findings_table(findings)
-            residuals = pd.DataFrame({
-                "period": pd.PeriodIndex.from_ordinals(history_design.period, freq="M").astype(str),
-                "series": history_design.series, "fitted": matrix[:, fit.kept] @ fit.coef[fit.kept],
-                "residual": fit.residuals})
-            diagnostics.insert(0, "model", kind)
-            summaries.append({"model": kind, "rows": len(y), "terms": len(fit.names),
-                              "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
-                              "resid_sd": fit.resid_sd, "condition_number": fit.condition_number,
-                              "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"})
-            warnings += [f"{kind}: {item.describe()}" for item in fit.dropped]
+    def notes_of(self, frame: pd.DataFrame) -> tuple[str, ...]:
+        """Return what the features did to the rows of a frame predicted from its design."""
+        return self.designs[id(frame)].notes if id(frame) in self.designs else ()
+
+
+def _forecast_table(kind: str, future: pd.DataFrame, horizons: np.ndarray, point, se, df,
+                    predictions: pd.DataFrame) -> pd.DataFrame:
+    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds."""
+    table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
+             "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
+    own = predictions[predictions["model"] == kind]
+    backtest_residuals = pd.DataFrame({"horizon": own["horizon"],
+                                       "residual": own["actual"] - own["prediction"]})
+    for level in LEVELS:
+        if se is not None:
+            low, high = analytic_bounds(point, se, df, level)
         else:
-            terms = model.coefficient_table()
-            if choice.per_series:
-                terms["standard_errors"] = "classical"
-                if spec.standard_errors != "classical":
-                    warnings.append(f"{kind}: its coefficients' standard errors are classical; "
-                                    f"standard_errors: {spec.standard_errors} applies to the "
-                                    "models over all series")
-            if MODELS[choice.kind].can("penalised"):
-                terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
-        terms.insert(0, "model", kind)
-        coefficients.append(terms)
-    if id(future) in designs:  # what the features did to the months to forecast
-        warnings += [note for note in designs[id(future)].notes if note not in warnings]
+            low = high = np.full(len(point), np.nan)
+        table[f"analytic_low_{percent(level)}"] = low
+        table[f"analytic_high_{percent(level)}"] = high
+    for level in LEVELS:
+        low, high = empirical_bounds(point, horizons, backtest_residuals, level)
+        table[f"empirical_low_{percent(level)}"] = low
+        table[f"empirical_high_{percent(level)}"] = high
+    return pd.DataFrame(table)
+
+
+@dataclass
+class _FitReport:
+    """What the final fit of a least-squares model says beyond its forecasts."""
+
+    terms: pd.DataFrame
+    diagnostics: pd.DataFrame
+    vif: pd.DataFrame
+    influential: pd.DataFrame
+    residuals: pd.DataFrame
+    summary: dict
+    warnings: list[str]
+
+
+def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, design: Design,
+                          y: np.ndarray) -> _FitReport:
+    """Return the coefficient table (with the spec's standard errors), the residual checks
+    and the fit's summary of a model fitted by least squares on all history."""
+    fit = model.least_squares_fit
+    matrix = model.design_matrix(design)
+    cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
+                     groups=design.series, order=design.period)
+    terms = coefficient_table(fit, cov)
+    terms["standard_errors"] = spec.standard_errors
+    findings, vif, influential = diagnose(
+        fit, matrix, groups=design.series, order=design.period,
+        row_labels=_row_labels(data.history, design))
+    diagnostics = findings_table(findings)
+    residuals = pd.DataFrame({
+        "period": pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str),
+        "series": design.series, "fitted": matrix[:, fit.kept] @ fit.coef[fit.kept],
+        "residual": fit.residuals})
+    diagnostics.insert(0, "model", kind)
+    summary = {"model": kind, "rows": len(y), "terms": len(fit.names),
+               "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
+               "resid_sd": fit.resid_sd, "condition_number": fit.condition_number,
+               "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"}
+    return _FitReport(terms, diagnostics, vif, influential, residuals, summary,
+                      [f"{kind}: {item.describe()}" for item in fit.dropped])
+
+
+def _other_terms(spec: Spec, choice, model, kind: str) -> tuple[pd.DataFrame, list[str]]:
+    """Return the coefficient table of a model not fitted by plain least squares, and the
+    warnings that go with it."""
+    terms = model.coefficient_table()
+    warnings = []
+    if choice.per_series:
+        terms["standard_errors"] = "classical"
+        if spec.standard_errors != "classical":
+            warnings.append(f"{kind}: its coefficients' standard errors are classical; "
+                            f"standard_errors: {spec.standard_errors} applies to the "
+                            "models over all series")
+    if MODELS[choice.kind].can("penalised"):
+        terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
+    return terms, warnings
+
+
+def _fit_notes(choice, model, kind: str) -> tuple[list[str], pd.DataFrame | None]:
+    """Return what the run should say about a model's final fit, and the series a model per
+    series fitted by their own mean (or None)."""
+    notes = []
+    described = model.describe()
+    if described:
+        notes.append(f"{kind}: {described}")
+    inner = model.inner
+    if not choice.per_series:
+        return notes, None
+    notes += [f"{kind}: {note}" for note in inner.notes()]
+    if not len(inner.fallbacks_):
+        return notes, None
+    notes.append(f"{kind}: {len(inner.fallbacks_)} series have no more rows than "
+                 "terms and are forecast by their own mean (series_fallbacks.csv)")
+    return notes, inner.fallbacks_.assign(model=kind)
+
+
+def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Predictor) -> list[pd.DataFrame]:
+    """Return, per scenario and model, the base forecast, the scenario's, and their difference."""
+    rows = []
     for scenario in spec.scenarios:
         if not len(future):
             raise spec.error(("scenarios",), "scenarios need months to forecast, and the input has none")
@@ -200,19 +222,72 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
             kind, model = choice.name, fitted[choice.name]
             base = predict(choice, model, future)[0]
             what_if = predict(choice, model, changed)[0]
-            scenario_rows.append(pd.DataFrame({
+            rows.append(pd.DataFrame({
                 "scenario": scenario.name, "period": future[PERIOD].astype(str).to_numpy(),
                 "series": future[SERIES].to_numpy(), "model": kind, "base_forecast": base,
                 "scenario_forecast": what_if, "difference": what_if - base,
             }))
+    return rows
+
+
+def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
+                  executor: Executor = IN_PROCESS, progress: Progress = QUIET) -> ForecastResult:
+    """Return each model's forecast of the future rows, fitted on all history.
+
+    A model per series fits its chunks of series on ``executor`` and counts them on
+    ``progress``.
+    """
+    plan = plan_features(spec, SERIES).fit(data.history)
+    future = data.future.sort_values([PERIOD, SERIES], kind="stable")
+    history_design, y = plan.training_design(data.history)
+    horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
+    stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
+    predict = _Predictor(spec, data, plan, stepwise, executor=executor, progress=progress)
+    forecasts, coefficients, summaries = [], [], []
+    warnings = [*history_design.notes]
+    if stepwise:
+        warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
+                        f"the {spec.multi_step} strategy (multi_step)")
+    report = None
+    fitted = {}
+    fallbacks = []
+    for choice in spec.models:
+        kind = choice.name
+        model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
+                           executor=executor, progress=progress)
+        model.fit(history_design, y)
+        fitted[kind] = model
+        notes, fell_back = _fit_notes(choice, model, kind)
+        warnings += notes
+        if fell_back is not None:
+            fallbacks.append(fell_back)
+        if len(future):
+            point, se, df = predict(choice, model, future)
+            forecasts.append(_forecast_table(kind, future, horizons, point, se, df, backtest.predictions))
+        if model.least_squares_fit is not None:
+            report = _least_squares_report(spec, data, model, kind, history_design, y)
+            terms = report.terms
+            summaries.append(report.summary)
+            warnings += report.warnings
+        else:
+            terms, notes = _other_terms(spec, choice, model, kind)
+            warnings += notes
+        terms.insert(0, "model", kind)
+        coefficients.append(terms)
+    # What the features did to the months to forecast.
+    warnings += [note for note in predict.notes_of(future) if note not in warnings]
+    scenario_rows = _scenario_rows(spec, future, fitted, predict)
     forecast = pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame(
         columns=["period", "horizon", "series", "model", "forecast"])
+    # Residual checks: those of the last model fitted by least squares (OLS over all series).
+    empty = pd.DataFrame()
     return ForecastResult(
         forecast=forecast, coefficients=pd.concat(coefficients, ignore_index=True),
-        fit_summary=pd.DataFrame(summaries), diagnostics=diagnostics, vif=vif,
-        influential=influential,
+        fit_summary=pd.DataFrame(summaries),
+        diagnostics=report.diagnostics if report else empty, vif=report.vif if report else empty,
+        influential=report.influential if report else empty,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
-        warnings=warnings, residuals=residuals, plan=plan, fitted=fitted,
+        warnings=warnings, residuals=report.residuals if report else empty, plan=plan, fitted=fitted,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]))
 
