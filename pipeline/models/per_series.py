@@ -107,19 +107,9 @@ def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
     return beta / norms, xtx_inverse, rss, ok
 
 
-def fit_series_chunk(task: ChunkTask) -> ChunkFit:
-    """Return the OLS fit of every series in the task (a pure function of its numbers)."""
-    counts = np.asarray(task.counts, int)
-    series, terms = len(counts), task.matrix.shape[1]
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(int)
-    coef = np.full((series, terms), np.nan)
-    xtx_inverse = np.zeros((series, terms, terms))
-    resid_sd = np.full(series, np.nan)
-    df_resid = np.zeros(series, int)
-    rank = np.zeros(series, int)
-    fell_back = np.zeros(series, bool)
-    dropped: list[tuple[int, str]] = []
-    y = np.asarray(task.y, float)
+def _series_moments(y: np.ndarray, counts: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return each series' mean and standard deviation (NaN for a series with no rows)."""
+    series = len(counts)
     present = counts > 0
     sums = np.add.reduceat(y, starts[present]) if present.any() else np.zeros(0)
     mean = np.full(series, np.nan)
@@ -129,8 +119,14 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
                               starts[present]) if present.any() else np.zeros(0)
     with np.errstate(invalid="ignore", divide="ignore"):
         sd[present] = np.sqrt(squares / (counts[present] - 1))
+    return mean, sd
 
-    # A column constant within a series repeats its intercept (or is all zeros): left out.
+
+def _kept_columns(task: ChunkTask, counts: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Return, per series, the columns its fit keeps: a column constant within a series
+    repeats its intercept (or, without one, is all zeros) and is left out."""
+    series, terms = len(counts), task.matrix.shape[1]
+    present = counts > 0
     keep = np.zeros((series, terms), bool)
     if present.any():
         high = np.maximum.reduceat(task.matrix, starts[present], axis=0)
@@ -141,8 +137,24 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
         if task.intercept:
             kept[:, 0] = True
         keep[present] = kept
-    width = keep.sum(axis=1)
-    fell_back = (counts <= width) | (width == 0)   # no column to fit on: the mean
+    return keep
+
+
+class _ChunkNumbers:
+    """The numbers of every series' fit in a chunk, filled in as the fits are made."""
+
+    def __init__(self, series: int, terms: int) -> None:
+        self.coef = np.full((series, terms), np.nan)
+        self.xtx_inverse = np.zeros((series, terms, terms))
+        self.resid_sd = np.full(series, np.nan)
+        self.df_resid = np.zeros(series, int)
+        self.rank = np.zeros(series, int)
+
+
+def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.ndarray,
+                 starts: np.ndarray, fell_back: np.ndarray, numbers: _ChunkNumbers) -> list[int]:
+    """Fit, stacked, the series with the same rows and kept columns; return the positions of
+    those a stacked fit could not take (short of full rank), for the careful single fit."""
     groups: dict[tuple, list[int]] = {}
     for position in np.flatnonzero(~fell_back):
         groups.setdefault((int(counts[position]), keep[position].tobytes()), []).append(position)
@@ -155,12 +167,21 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
         with np.errstate(all="ignore"):
             beta, inverse, rss, ok = _fit_stack(stack, y[index])
         good = members[ok]
-        coef[np.ix_(good, columns)] = beta[ok]
-        xtx_inverse[np.ix_(good, columns, columns)] = inverse[ok]
-        df_resid[good] = rows - len(columns)
-        rank[good] = len(columns)
-        resid_sd[good] = np.sqrt(rss[ok] / (rows - len(columns)))
+        numbers.coef[np.ix_(good, columns)] = beta[ok]
+        numbers.xtx_inverse[np.ix_(good, columns, columns)] = inverse[ok]
+        numbers.df_resid[good] = rows - len(columns)
+        numbers.rank[good] = len(columns)
+        numbers.resid_sd[good] = np.sqrt(rss[ok] / (rows - len(columns)))
         careful += members[~ok].tolist()
+    return careful
+
+
+def _fit_carefully(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.ndarray,
+                   starts: np.ndarray, careful: list[int], fell_back: np.ndarray,
+                   numbers: _ChunkNumbers) -> list[tuple[int, str]]:
+    """Fit each series short of full rank on its own (columns spanned by others dropped);
+    return the columns dropped, by series position."""
+    dropped: list[tuple[int, str]] = []
     for position in sorted(careful):
         rows = slice(starts[position], starts[position] + counts[position])
         columns = np.flatnonzero(keep[position])
@@ -172,16 +193,32 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
             fell_back[position] = True
             continue
         kept_here = columns[fit.kept]
-        coef[position, kept_here] = fit.coef[fit.kept]
-        xtx_inverse[np.ix_([position], kept_here, kept_here)] = \
+        numbers.coef[position, kept_here] = fit.coef[fit.kept]
+        numbers.xtx_inverse[np.ix_([position], kept_here, kept_here)] = \
             fit.xtx_inverse[np.ix_(fit.kept, fit.kept)]
-        df_resid[position], rank[position], resid_sd[position] = fit.df_resid, fit.rank, fit.resid_sd
+        numbers.df_resid[position], numbers.rank[position], numbers.resid_sd[position] = \
+            fit.df_resid, fit.rank, fit.resid_sd
         dropped += [(position, item.describe()) for item in fit.dropped]
-    coef[fell_back] = np.nan
-    xtx_inverse[fell_back] = 0.0
+    return dropped
+
+
+def fit_series_chunk(task: ChunkTask) -> ChunkFit:
+    """Return the OLS fit of every series in the task (a pure function of its numbers)."""
+    counts = np.asarray(task.counts, int)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(int)
+    y = np.asarray(task.y, float)
+    mean, sd = _series_moments(y, counts, starts)
+    keep = _kept_columns(task, counts, starts)
+    width = keep.sum(axis=1)
+    fell_back = (counts <= width) | (width == 0)   # no column to fit on: the mean
+    numbers = _ChunkNumbers(len(counts), task.matrix.shape[1])
+    careful = _fit_stacked(task, y, keep, counts, starts, fell_back, numbers)
+    dropped = _fit_carefully(task, y, keep, counts, starts, careful, fell_back, numbers)
+    numbers.coef[fell_back] = np.nan
+    numbers.xtx_inverse[fell_back] = 0.0
     constant = ~keep & ~fell_back[:, None]
-    return ChunkFit(coef, xtx_inverse, resid_sd, df_resid, rank, mean, sd, fell_back, dropped,
-                    constant)
+    return ChunkFit(numbers.coef, numbers.xtx_inverse, numbers.resid_sd, numbers.df_resid,
+                    numbers.rank, mean, sd, fell_back, dropped, constant)
 
 
 class PerSeriesOLS(Model):

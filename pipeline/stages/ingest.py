@@ -119,6 +119,45 @@ def _read_excel(sheet: str | int, path: Path, nrows: int | None = None) -> pd.Da
         raise
 
 
+def _read_any(path: Path, file_format: str, csv: CsvOptions, sheet: str | int,
+              text_columns: tuple[str, ...], nrows: int | None,
+              max_megabytes: float | None) -> pd.DataFrame:
+    """Return a file's rows as its format reads them, after checking its size."""
+    size = path.stat().st_size
+    if size == 0:
+        raise DataError("the file is empty (0 bytes)", file=str(path))
+    if max_megabytes is not None and size > max_megabytes * 1e6:
+        raise DataError(f"the file is {size / 1e6:.3g} MB, above the limit input.max_megabytes: "
+                        f"{max_megabytes:g}; raise the limit or cut the file", file=str(path))
+    if file_format == "parquet":
+        return _read_parquet(path)
+    if file_format == "excel":
+        return _read_excel(sheet, path, nrows)
+    return _read_csv(csv, path, text_columns, nrows)
+
+
+def _reading_error(exc: Exception, path: Path, file_format: str, csv: CsvOptions,
+                   sheet: str | int) -> DataError | None:
+    """Return the one-line DataError a failure to read the file means, or None for a bug."""
+    shown = str(path)
+    if isinstance(exc, pd.errors.EmptyDataError):
+        return DataError("the file holds no header and no rows", file=shown)
+    if isinstance(exc, UnicodeDecodeError):
+        return DataError(f"is not {csv.encoding} text (line {_undecodable_line(path, csv.encoding)} "
+                         "holds a byte that cannot be decoded); set input.csv.encoding", file=shown)
+    if isinstance(exc, pd.errors.ParserError):
+        return DataError(f"cannot be read as CSV: {' '.join(str(exc).split())}", file=shown)
+    if isinstance(exc, PermissionError):
+        return DataError("cannot be read: permission denied", file=shown)
+    if isinstance(exc, OSError):
+        return DataError(f"cannot be read: {exc.strerror or exc}", file=shown)
+    if isinstance(exc, IndexError):
+        return DataError(f"has no sheet {sheet!r}", file=shown)
+    if file_format in ("parquet", "excel"):   # pyarrow and openpyxl raise many kinds for a damaged file
+        return DataError(f"cannot be read as {file_format}: {' '.join(str(exc).split())}", file=shown)
+    return None
+
+
 def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
                sheet: str | int = 0, text_columns: tuple[str, ...] = (),
                max_rows: int | None = None, max_megabytes: float | None = None) -> pd.DataFrame:
@@ -129,48 +168,22 @@ def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
     than max_rows rows (CSV and Excel stop reading one row past the limit).
     """
     csv = csv or CsvOptions()
-    shown = str(path)
     # One row past the limit is enough to know the limit is exceeded.
     nrows = max_rows + 1 if max_rows is not None else None
     try:
-        size = path.stat().st_size
-        if size == 0:
-            raise DataError("the file is empty (0 bytes)", file=shown)
-        if max_megabytes is not None and size > max_megabytes * 1e6:
-            raise DataError(f"the file is {size / 1e6:.3g} MB, above the limit input.max_megabytes: "
-                            f"{max_megabytes:g}; raise the limit or cut the file", file=shown)
-        if file_format == "parquet":
-            frame = _read_parquet(path)
-        elif file_format == "excel":
-            frame = _read_excel(sheet, path, nrows)
-        else:
-            frame = _read_csv(csv, path, text_columns, nrows)
+        frame = _read_any(path, file_format, csv, sheet, text_columns, nrows, max_megabytes)
     except DataError:
         raise
-    except pd.errors.EmptyDataError:
-        raise DataError("the file holds no header and no rows", file=shown) from None
-    except UnicodeDecodeError:
-        raise DataError(f"is not {csv.encoding} text (line {_undecodable_line(path, csv.encoding)} "
-                        "holds a byte that cannot be decoded); set input.csv.encoding",
-                        file=shown) from None
-    except pd.errors.ParserError as exc:
-        raise DataError(f"cannot be read as CSV: {' '.join(str(exc).split())}", file=shown) from None
-    except PermissionError:
-        raise DataError("cannot be read: permission denied", file=shown) from None
-    except OSError as exc:
-        raise DataError(f"cannot be read: {exc.strerror or exc}", file=shown) from None
-    except IndexError:
-        raise DataError(f"has no sheet {sheet!r}", file=shown) from None
-    except Exception as exc:  # pyarrow and openpyxl raise many kinds for a damaged file
-        if file_format in ("parquet", "excel"):
-            raise DataError(f"cannot be read as {file_format}: {' '.join(str(exc).split())}",
-                            file=shown) from None
-        raise
+    except Exception as exc:
+        error = _reading_error(exc, path, file_format, csv, sheet)
+        if error is None:
+            raise
+        raise error from None
     if frame.empty:
-        raise DataError("the file has a header but no rows", file=shown)
+        raise DataError("the file has a header but no rows", file=str(path))
     if max_rows is not None and len(frame) > max_rows:
         raise DataError(f"the file holds more than {max_rows} rows, the limit input.max_rows: "
-                        f"{max_rows}; raise the limit or cut the file", file=shown)
+                        f"{max_rows}; raise the limit or cut the file", file=str(path))
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame.reset_index(drop=True)
 
