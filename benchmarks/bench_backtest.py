@@ -153,19 +153,9 @@ def profile(spec, data, top: int = 20) -> None:
         print("\n".join(line for line in out.getvalue().splitlines() if line.strip())[:6000])
 
 
-def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--series", type=int, default=10_000)
-    parser.add_argument("--months", type=int, default=100)
-    parser.add_argument("--drivers", type=int, default=40)
-    parser.add_argument("--profile", action="store_true", help="profile run_backtest even if on target")
-    args = parser.parse_args()
-
-    blas_info()
-    rows = args.series * args.months
-    print(f"\ndata: {args.series:,} series x {args.months} months = {rows:,} rows x {args.drivers} drivers; "
-          f"rolling_origin expanding, horizon {HORIZON}, {ORIGINS} origins; OLS + mean baseline")
-
+def prepare(args) -> tuple:
+    """Return the spec and checked data of the simulated panel, and the reference arrays
+    (drivers, target, design with an intercept) built once from the same numbers."""
     with tempfile.TemporaryDirectory(prefix="castline-bench-") as tmp:
         folder = Path(tmp)
         start = time.perf_counter()
@@ -181,8 +171,12 @@ def main() -> int:
         data = pipeline.check(spec)
         print(f"prepared (simulate, write Parquet, load spec, check; not timed): "
               f"{time.perf_counter() - start:.1f} s")
+    return spec, data, x, y, design
 
-    print("\ntimings (best of 3):")
+
+def time_castline(spec, data, design: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Return the best times of (a) castline's OLS backtest engine and (a') the whole backtest
+    stage, after checking the stage's OLS predictions are the engine's."""
     # (a) the OLS backtest itself, on the same design lstsq and sklearn are given: castline's
     # growing QR across the 12 expanding origins (what run_backtest calls for OLS).
     months = data.history["period"].array.asi8
@@ -205,6 +199,26 @@ def main() -> int:
     engine = np.concatenate([predicted for predicted, _se, _df in found])
     assert np.allclose(stage, engine, rtol=1e-9, atol=1e-9), float(np.max(np.abs(stage - engine)))
     del result
+    return castline, whole
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--series", type=int, default=10_000)
+    parser.add_argument("--months", type=int, default=100)
+    parser.add_argument("--drivers", type=int, default=40)
+    parser.add_argument("--profile", action="store_true", help="profile run_backtest even if on target")
+    args = parser.parse_args()
+
+    blas_info()
+    rows = args.series * args.months
+    print(f"\ndata: {args.series:,} series x {args.months} months = {rows:,} rows x {args.drivers} drivers; "
+          f"rolling_origin expanding, horizon {HORIZON}, {ORIGINS} origins; OLS + mean baseline")
+
+    spec, data, x, y, design = prepare(args)
+
+    print("\ntimings (best of 3):")
+    castline, whole = time_castline(spec, data, design, y)
     lstsq, _ = best_of("(b) numpy.linalg.lstsq, full design",
                        lambda: np.linalg.lstsq(design, y, rcond=None))
 

@@ -112,6 +112,54 @@ def statsmodels_loop(frame: pd.DataFrame, drivers: list[str], origin_months: lis
     return out
 
 
+def time_loops(frame: pd.DataFrame, drivers: list[str], origin_months, loop_series: int | None):
+    """Return the statsmodels loop's predictions and its times: (b) with the baselines, the
+    equivalent job, and (b`) its statsmodels fits alone (each scaled to every series)."""
+    series = sorted(frame["shop"].unique())
+    looped = series if loop_series is None else series[: loop_series]
+    scale = len(series) / len(looped)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        start = time.perf_counter()
+        reference = statsmodels_loop(frame, drivers, origin_months, looped)
+        loop = (time.perf_counter() - start) * scale
+        print(f"  {'(b) statsmodels loop per series per origin + baselines':<52}       : "
+              f"{loop:8.3f} s" + (f" (scaled from {len(looped)} series)" if scale != 1 else ""))
+        start = time.perf_counter()
+        statsmodels_loop(frame, drivers, origin_months, looped[: max(1, len(looped) // 5)],
+                         with_baselines=False)
+        loop_fits = (time.perf_counter() - start) * len(series) / max(1, len(looped) // 5)
+        print(f"  {'(b`) the same loop, statsmodels fits only':<52}       : {loop_fits:8.3f} s "
+              f"(scaled from {max(1, len(looped) // 5)} series)")
+    return reference, loop, loop_fits
+
+
+def agreement(predictions: pd.DataFrame, reference: dict, most: int = 2000) -> tuple[float, int]:
+    """Return the largest relative difference between castline's OLS per series and
+    statsmodels', origin by origin, over at most ``most`` series-origins, and how many."""
+    ours = predictions[predictions["model"] == "ols_per_series"].set_index(
+        ["origin", "series", "period"]).sort_index()
+    worst = 0.0
+    for (origin, name), (predicted, *_rest) in list(reference.items())[:most]:
+        label = str(pd.Period(origin, freq="M"))
+        mine = ours.loc[(label, name)]["prediction"].to_numpy()
+        worst = max(worst, float(np.max(np.abs(mine - predicted) / np.maximum(np.abs(predicted), 1e-300))))
+    return worst, min(most, len(reference))
+
+
+def profile(spec, data) -> None:
+    """Print the top functions of a cProfile of one run_backtest."""
+    from pipeline.core import execution
+    profiler = cProfile.Profile()
+    with execution.executor_for(spec.compute, spec) as executor:
+        profiler.enable()
+        run_backtest(spec, data, executor=executor)
+        profiler.disable()
+    out = io.StringIO()
+    pstats.Stats(profiler, stream=out).strip_dirs().sort_stats("cumulative").print_stats(25)
+    print(out.getvalue()[:7000])
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--series", type=int, default=5_000)
@@ -150,32 +198,10 @@ def main() -> int:
     assert predictions["origin"].nunique() == ORIGINS
     origin_months = sorted(pd.PeriodIndex(predictions["origin"].unique(), freq="M").to_timestamp())
 
-    series = sorted(frame["shop"].unique())
-    looped = series if args.loop_series is None else series[: args.loop_series]
-    scale = len(series) / len(looped)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        start = time.perf_counter()
-        reference = statsmodels_loop(frame, drivers, origin_months, looped)
-        loop = (time.perf_counter() - start) * scale
-        print(f"  {'(b) statsmodels loop per series per origin + baselines':<52}       : "
-              f"{loop:8.3f} s" + (f" (scaled from {len(looped)} series)" if scale != 1 else ""))
-        start = time.perf_counter()
-        statsmodels_loop(frame, drivers, origin_months, looped[: max(1, len(looped) // 5)],
-                         with_baselines=False)
-        loop_fits = (time.perf_counter() - start) * len(series) / max(1, len(looped) // 5)
-        print(f"  {'(b`) the same loop, statsmodels fits only':<52}       : {loop_fits:8.3f} s "
-              f"(scaled from {max(1, len(looped) // 5)} series)")
+    reference, loop, loop_fits = time_loops(frame, drivers, origin_months, args.loop_series)
 
-    # Same numbers: castline's OLS per series against statsmodels, origin by origin.
-    ours = predictions[predictions["model"] == "ols_per_series"].set_index(
-        ["origin", "series", "period"]).sort_index()
-    worst = 0.0
-    for (origin, name), (predicted, *_rest) in list(reference.items())[:2000]:
-        label = str(pd.Period(origin, freq="M"))
-        mine = ours.loc[(label, name)]["prediction"].to_numpy()
-        worst = max(worst, float(np.max(np.abs(mine - predicted) / np.maximum(np.abs(predicted), 1e-300))))
-    print(f"\nagreement with statsmodels (2,000 series-origins): max relative difference {worst:.2e}")
+    worst, compared = agreement(predictions, reference)
+    print(f"\nagreement with statsmodels ({compared:,} series-origins): max relative difference {worst:.2e}")
     print(f"castline: {args.series / castline:,.0f} series per second "
           f"({args.series:,} series x {ORIGINS} origins x 3 models in {castline:.2f} s)")
     print(f"peak memory of the process after castline's backtest: {peak:,.0f} MB (target < 2,048 MB)")
@@ -185,14 +211,7 @@ def main() -> int:
     on_target = min(loop, loop_fits) / castline >= 15 and peak < 2048 and worst < 1e-8
     print("targets met" if on_target else "TARGET MISSED")
     if args.profile or not on_target:
-        profiler = cProfile.Profile()
-        with execution.executor_for(spec.compute, spec) as executor:
-            profiler.enable()
-            run_backtest(spec, data, executor=executor)
-            profiler.disable()
-        out = io.StringIO()
-        pstats.Stats(profiler, stream=out).strip_dirs().sort_stats("cumulative").print_stats(25)
-        print(out.getvalue()[:7000])
+        profile(spec, data)
     return 0
 
 
