@@ -15,11 +15,12 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from conftest import TEST_DATA
 
 from pipeline import cli
 from pipeline.record.safe_csv import neutralise, neutralised, write_csv
 
-CLEAN = Path(__file__).resolve().parent / "data" / "broken_inputs" / "clean.csv"
+CLEAN = TEST_DATA / "broken_inputs" / "clean.csv"
 FORMULA = '=HYPERLINK("http://example.invalid";"click")'
 
 

@@ -10,12 +10,9 @@ import shutil
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 from pipeline import Spec, SpecError, load_spec
-
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 
 BASE = """\
 name: demo

@@ -4,15 +4,13 @@ progress it is handed (by default, nowhere)."""
 from __future__ import annotations
 
 import io
-from pathlib import Path
 
 import yaml
+from conftest import ROOT
 
 import pipeline
 from pipeline.core import progress
 from pipeline.models.per_series import CHUNK_SERIES
-
-ROOT = Path(__file__).resolve().parents[1]
 
 
 class FakeTerminal(io.StringIO):

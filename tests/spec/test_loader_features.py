@@ -6,11 +6,12 @@ import textwrap
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_DATA
 
 from pipeline.core.errors import SpecError
 from pipeline.spec import load_spec
 
-DATA = Path(__file__).resolve().parents[1] / "data_samples" / "compost_sales.csv"
+DATA = DEMO_DATA
 
 BASE = """\
 name: features

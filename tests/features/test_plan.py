@@ -9,12 +9,12 @@ reference values themselves.
 from __future__ import annotations
 
 from datetime import date
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from conftest import DEMO_DATA, DEMO_SPEC
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -60,7 +60,7 @@ def make_panel(months: int = 30, regions=REGIONS, seed: int = 0, start: str = "2
 
 
 def make_spec(drivers: dict | None = None, **top) -> Spec:
-    """Return a spec built in memory (no file: cross-key rules are tested in test_spec.py)."""
+    """Return a spec built in memory (no file: cross-key rules are tested in tests/spec/)."""
     drivers = dict(drivers or {})
     # These tests are about the drivers' own terms: no series levels unless a test asks.
     drivers.setdefault("series_effects", {"intercepts": False})
@@ -552,11 +552,10 @@ def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):
     import pipeline
     from pipeline.core.errors import DataError
 
-    root = Path(__file__).resolve().parents[2]
-    data = pd.read_csv(root / "data_samples" / "compost_sales.csv")
+    data = pd.read_csv(DEMO_DATA)
     data.loc[5, "rainfall_mm"] = 1e60
     data.to_csv(tmp_path / "big.csv", index=False)
-    spec = (root / "configs" / "compost_demo.yaml").read_text(encoding="utf-8")
+    spec = DEMO_SPEC.read_text(encoding="utf-8")
     spec = spec.replace("../data_samples/compost_sales.csv", "big.csv").replace(
         "    - rainfall_mm\n", "    - column: rainfall_mm\n      degree: 6\n")
     (tmp_path / "spec.yaml").write_text(spec, encoding="utf-8")
