@@ -224,4 +224,7 @@ def test_missing_allowed_on_a_driver_needs_a_fill(tmp_path):
 
 
 def test_a_spec_with_only_calendar_terms_may_leave_out_the_intercept(tmp_path):
-    load_spec(write_spec(tmp_path, "calendar:\n  month_of_year: dummies\n", "intercept: false\n"))
+    spec = load_spec(write_spec(tmp_path, "calendar:\n  month_of_year: dummies\n", "intercept: false\n"))
+    assert spec.intercept is False
+    assert spec.drivers.calendar.month_of_year == "dummies"
+    assert spec.drivers.numeric == [] and spec.drivers.categorical == []
