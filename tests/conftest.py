@@ -1,4 +1,8 @@
-"""Shared fixtures: paths to the project's own test data and the demo."""
+"""Shared fixtures, and the paths every test reads the project's files from.
+
+Tests sit at different depths of tests/; they import these paths
+(``from conftest import ROOT, TEST_DATA``) instead of working them out from their own file.
+"""
 
 from pathlib import Path
 
@@ -7,6 +11,7 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 TEST_DATA = ROOT / "tests" / "data"
 DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
+DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 
 
 @pytest.fixture

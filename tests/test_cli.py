@@ -20,12 +20,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 import pipeline
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 SPEC = Path("configs") / "demo.yaml"           # as typed on the command line, relative to cwd
 DATA = Path("data_samples") / "compost_sales.csv"
 

@@ -10,7 +10,9 @@ from __future__ import annotations
 import ast
 from pathlib import Path
 
-PACKAGE = Path(__file__).resolve().parents[1] / "pipeline"
+from conftest import ROOT
+
+PACKAGE = ROOT / "pipeline"
 LAYERS = ["core", "spec", "features", "models", "stages", "record", "review", "present"]
 TOP = len(LAYERS)
 MAX_LINES = 600

@@ -11,11 +11,10 @@ import functools
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import pytest
+from conftest import ROOT
 
-ROOT = Path(__file__).resolve().parents[2]
 BENCHMARKS = sorted(path.name for path in (ROOT / "benchmarks").glob("bench_*.py"))
 
 NUMBER = r"[0-9]+(?:\.[0-9]+)?"

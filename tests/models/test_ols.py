@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import json
 import math
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from conftest import TEST_DATA
 from sklearn.datasets import load_diabetes
 from sklearn.linear_model import LinearRegression
 from statsmodels.datasets import stackloss
@@ -23,7 +23,7 @@ from pipeline.core.design import Design
 from pipeline.features.numeric import NumericTerms
 from pipeline.models.ols import INTERCEPT, Collinearity, OLSModel
 
-NIST_DIR = Path(__file__).resolve().parents[1] / "data" / "nist_strd"
+NIST_DIR = TEST_DATA / "nist_strd"
 NIST_CERTIFIED = json.loads((NIST_DIR / "certified.json").read_text())  # values stay strings
 NIST_DATASETS = ["norris", "pontius", "noint1", "noint2", "longley",
                  "wampler1", "wampler2", "wampler3"]

@@ -17,12 +17,12 @@ from __future__ import annotations
 
 import json
 import math
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from conftest import TEST_DATA
 from statsmodels.datasets import grunfeld
 
 from pipeline.core.design import Design
@@ -33,7 +33,7 @@ from pipeline.models.per_series import ChunkTask, PerSeriesOLS, fit_series_chunk
 
 RTOL = 1e-8
 
-NIST_DIR = Path(__file__).resolve().parents[1] / "data" / "nist_strd"
+NIST_DIR = TEST_DATA / "nist_strd"
 NIST_CERTIFIED = json.loads((NIST_DIR / "certified.json").read_text())  # values stay strings
 NIST_DATASETS = ["norris", "pontius", "noint1", "noint2", "longley",
                  "wampler1", "wampler2", "wampler3"]

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import TEST_DATA
 
 from pipeline import cli
 from pipeline.core.errors import ModelFileError, UserError
@@ -25,7 +26,7 @@ from pipeline.models.per_series import PerSeriesOLS
 from pipeline.record import model_file
 from pipeline.record.model_file import load_model
 
-V1 = Path(__file__).resolve().parents[1] / "data" / "model_files_v1"
+V1 = TEST_DATA / "model_files_v1"
 FIXTURES = ["demo", "wide", "calendar"]
 
 

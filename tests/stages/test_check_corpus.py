@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import TEST_DATA
 
 import pipeline
 from pipeline.core.columns import PERIOD, ROW, SERIES
@@ -31,7 +32,7 @@ from pipeline.core.errors import DataError, SpecError
 from pipeline.stages.check import CheckedData, CheckFailed, Problem, check_data
 from pipeline.stages.ingest import read_input
 
-CORPUS = Path(__file__).resolve().parents[1] / "data" / "broken_inputs"
+CORPUS = TEST_DATA / "broken_inputs"
 MANIFEST = yaml.safe_load((CORPUS / "cases.yaml").read_text(encoding="utf-8"))
 CASES = {case["id"]: case for case in MANIFEST["cases"]}
 

@@ -6,11 +6,10 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import DEMO_DATA
 
 from pipeline.runner import check
 from pipeline.stages.check import CheckFailed
-
-DEMO_DATA = Path(__file__).resolve().parents[2] / "data_samples" / "compost_sales.csv"
 
 SPEC = """\
 name: check-features

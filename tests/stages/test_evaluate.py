@@ -5,7 +5,7 @@ truly move the target, one where the target is noise around a constant.
 References: sklearn.metrics (mean_absolute_error, root_mean_squared_error,
 mean_absolute_percentage_error, r2_score), pandas group-bys for the breakdowns
 and the MASE scale, and the Diebold–Mariano / Harvey–Leybourne–Newbold formula
-written out here (see tests/test_significance.py for the citations).
+written out here (see tests/core/test_significance.py for the citations).
 """
 
 from __future__ import annotations

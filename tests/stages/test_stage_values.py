@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from conftest import DEMO_DATA, ROOT
 from pandas.testing import assert_frame_equal
 
 from pipeline.spec import load_spec
@@ -25,8 +26,6 @@ from pipeline.stages.evaluate import evaluate
 from pipeline.stages.forecast import make_forecast
 from pipeline.stages.ingest import read_input
 
-ROOT = Path(__file__).resolve().parents[2]
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 TODAY = date(2030, 1, 1)   # after every month of the demo data
 
 

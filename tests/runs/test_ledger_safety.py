@@ -25,15 +25,13 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 import pipeline
 from pipeline import cli
 from pipeline.core.errors import SpecError
 from pipeline.record import ledger
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 CHILD_LIMIT = 300          # seconds a child may take to reach its point before the test gives up
 
 # A child `castline run`: argv = point, spec, signal file, seconds to hold at the point.

@@ -1,4 +1,4 @@
-"""Runs killed (SIGKILL) at the points tests/test_ledger_safety.py does not cover.
+"""Runs killed (SIGKILL) at the points tests/runs/test_ledger_safety.py does not cover.
 
 That file kills a run mid-backtest, with its hidden folder complete, mid-insert and after
 the ledger commit. Here a run is killed while reading its input, after the check stage,

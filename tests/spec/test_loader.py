@@ -10,12 +10,9 @@ import shutil
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 from pipeline import Spec, SpecError, load_spec
-
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 
 BASE = """\
 name: demo
@@ -212,7 +209,11 @@ def test_wrong_last_periods_points_at_its_own_line_and_key(write, value):
 
 
 def test_boolean_is_not_a_number_of_months(write):
-    refused(write(edit("last_periods: 12", "last_periods: true")))
+    text = edit("last_periods: 12", "last_periods: true")
+    path = write(text)
+    error = refused(path)
+    assert_placed(error, path, line_of(text, "last_periods:"), "validation.last_periods")
+    assert "(got True)" in error.message
 
 
 def test_missing_required_key_is_named(write):

@@ -8,10 +8,9 @@ from __future__ import annotations
 from pathlib import Path
 
 import pandas as pd
+from conftest import DEMO_DATA
 
 import pipeline
-
-DEMO_DATA = Path(__file__).resolve().parents[1] / "data_samples" / "compost_sales.csv"
 
 SPEC = """\
 name: features-run

@@ -29,14 +29,13 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import DEMO_SPEC, ROOT
 
 import pipeline
 from pipeline import cli
 from pipeline.record import ledger
 from pipeline.review import history
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
 FIRST_CUT = pd.Period("2026-05", "M")
 RERUNS = 6
 REVISED_MONTH, REVISED_SERIES, REVISION, REVISED_FROM = pd.Period("2026-06", "M"), "North", 250, 3

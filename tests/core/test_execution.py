@@ -1,9 +1,8 @@
-"""Where the per-series fits run (pipeline.core.execution) and how a run reports progress
-(pipeline.core.progress); both are handed to the stages and fits, never read from a global.
+"""Where the per-series fits run (pipeline.core.execution): handed to the stages and fits,
+never read from a global (how a run reports progress is in test_progress.py).
 
 References: the same tasks run here in this process (a list comprehension); the process
-ids the tasks report; a Dask LocalCluster started in this test process; an in-memory
-stream that is not a terminal and one that claims to be; executors and progress that
+ids the tasks report; a Dask LocalCluster started in this test process; executors that
 record what they are given.
 """
 
@@ -11,13 +10,11 @@ from __future__ import annotations
 
 import contextvars
 import inspect
-import io
 import os
 
 import numpy as np
 import pytest
 
-from pipeline import runner
 from pipeline.core import execution, progress
 from pipeline.core.design import Design
 from pipeline.core.errors import SpecError
@@ -148,72 +145,3 @@ def test_a_scheduler_address_without_a_dask_protocol_is_refused_by_the_spec(addr
 def test_workers_must_be_a_whole_number_from_1_to_256(workers):
     with pytest.raises(ValueError):
         ComputeSection(workers=workers)
-
-
-# ---------------------------------------------------------------- progress
-
-class _Terminal(io.StringIO):
-    def isatty(self) -> bool:
-        return True
-
-
-class RecordingProgress(progress.Quiet):
-    """Records every report it is given."""
-
-    def __init__(self) -> None:
-        self.reports: list[tuple] = []
-
-    def start(self, label: str, total: int) -> None:
-        self.reports.append(("start", label, total))
-
-    def advance(self, label: str, steps: int = 1) -> None:
-        self.reports.append(("advance", label, steps))
-
-
-def _fit_some_series(bar) -> None:
-    rng = np.random.default_rng(1)
-    series = np.repeat(["a", "b", "c"], 10)
-    PerSeriesOLS(progress=bar).fit(Design(rng.normal(size=(30, 2)), ["u", "v"], series),
-                                   rng.normal(size=30))
-
-
-def test_without_a_progress_given_nothing_is_reported():
-    assert PerSeriesOLS().progress is progress.QUIET
-    assert make_model(ModelChoice(kind="ols", per_series=True)).progress is progress.QUIET
-    for function in (backtest.run_backtest, forecast.make_forecast, multistep.predict_ahead,
-                     make_model, PerSeriesOLS.from_choice, runner.run):
-        assert inspect.signature(function).parameters["progress"].default is progress.QUIET
-
-
-def test_a_model_per_series_counts_the_series_it_fitted_on_the_progress_it_is_given():
-    recording = RecordingProgress()
-    _fit_some_series(recording)
-    assert recording.reports == [("start", "series fitted", 3), ("advance", "series fitted", 3)]
-
-
-def test_progress_on_a_stream_that_is_not_a_terminal_shows_nothing():
-    stream = io.StringIO()
-    with progress.showing(stream) as bar:
-        assert isinstance(bar, progress.Quiet) and not isinstance(bar, progress.TerminalBar)
-        _fit_some_series(bar)
-    assert stream.getvalue() == ""
-
-
-def test_progress_on_a_terminal_shows_the_bar():
-    """The counterpart of the test above, so that it can fail: a stream that says it is a
-    terminal gets the bar's label written to it."""
-    stream = _Terminal()
-    with progress.showing(stream) as bar:
-        assert isinstance(bar, progress.TerminalBar)
-        _fit_some_series(bar)
-    assert "series fitted" in stream.getvalue()
-
-
-def test_a_stream_without_isatty_is_not_a_terminal():
-    class Bare:
-        def write(self, text: str) -> int:
-            raise AssertionError("nothing should be written")
-
-    with progress.showing(Bare()) as bar:
-        assert isinstance(bar, progress.Quiet)
-        _fit_some_series(bar)

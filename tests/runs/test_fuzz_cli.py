@@ -19,15 +19,13 @@ from contextlib import redirect_stderr, redirect_stdout
 from pathlib import Path
 
 import yaml
+from conftest import DEMO_DATA, DEMO_SPEC, TEST_DATA
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from pipeline import cli
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
-BROKEN = ROOT / "tests" / "data" / "broken_inputs"
+BROKEN = TEST_DATA / "broken_inputs"
 SETTINGS = settings(max_examples=60, deadline=None, database=None,
                     suppress_health_check=[HealthCheck.too_slow])
 

@@ -24,14 +24,12 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 import pipeline
 import pipeline.present.pages as pages
 from pipeline import UserError
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 # The artefacts every run folder holds (a run may write more beside them).
 RUN_FILES = {"spec.yaml", "fingerprint.json", "metrics.json", "predictions.csv", "coefficients.csv",
              "forecast.csv", "summary.md"}

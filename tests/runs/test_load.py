@@ -20,13 +20,11 @@ from pathlib import Path
 
 import pytest
 import yaml
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT
 
 import pipeline
 from pipeline.record import ledger
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 CONSECUTIVE, CONCURRENT = 20, 4
 MARGIN = 0.10          # a common allowance for allocator noise (see the docstring)
 CHILD_LIMIT = 600      # seconds a child may take before the test gives up on it (not a measure)

@@ -33,12 +33,12 @@ import pytest
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
 import yaml
+from conftest import ROOT
 from statsmodels.datasets import grunfeld
 
 from pipeline import cli
 from pipeline.models import per_series
 
-ROOT = Path(__file__).resolve().parents[1]
 RTOL = 1e-8
 
 # ---------------------------------------------------------------- the data

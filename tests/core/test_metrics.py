@@ -1,5 +1,20 @@
 """Accuracy measures in pipeline.core.metrics against scikit-learn (reference library),
-direct numpy computations written here, and hand-worked examples."""
+direct numpy computations written here, and hand-worked examples.
+
+sMAPE, WAPE and MASE are worked by hand with the formulas from R. J. Hyndman &
+A. B. Koehler (2006), "Another look at measures of forecast accuracy",
+International Journal of Forecasting 22(4), 679-688:
+
+- sMAPE = mean(200 |Y_t − F_t| / (Y_t + F_t))  (section 3.3); castline reports
+  it as a fraction (no factor 100) and, like the M3/M4 competitions, puts
+  |Y_t| + |F_t| in the denominator, which is the same for the positive data used here.
+- MASE = mean(|q_t|), q_t = e_t / scale, the scale being the in-sample MAE of the
+  seasonal naive forecast (section 3.4; the scale per series is tested with
+  pipeline.stages.backtest.mase_scales in tests/stages/test_backtest_mase_scales.py).
+- WAPE = Σ|F_t − Y_t| / Σ|Y_t| (no paper needed: the definition).
+
+Out-of-sample R² is checked against sklearn.metrics.r2_score.
+"""
 
 from __future__ import annotations
 
@@ -10,8 +25,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
-from sklearn.metrics import mean_absolute_error, mean_absolute_percentage_error
+from sklearn.metrics import mean_absolute_error, mean_absolute_percentage_error, r2_score
 
+from pipeline.core import metrics
 from pipeline.core.metrics import bias, mae, mape, rmse, skill
 
 try:  # scikit-learn >= 1.4
@@ -209,3 +225,53 @@ def test_property_skill_of_baseline_against_itself(pair):
         assert math.isnan(skill(base, base))
     else:
         assert skill(base, base) == 0.0
+
+
+# ---- sMAPE, WAPE, MASE and out-of-sample R² (worked examples) ----------------------------------
+
+ACTUAL = [100.0, 120.0, 80.0, 50.0]
+PREDICTED = [110.0, 100.0, 80.0, 60.0]
+# |e| = 10, 20, 0, 10;  Y + F = 210, 220, 160, 110
+
+
+def test_smape_worked_example():
+    by_hand = (2 * 10 / 210 + 2 * 20 / 220 + 2 * 0 / 160 + 2 * 10 / 110) / 4   # = 0.114719...
+    value, left_out = metrics.smape(ACTUAL, PREDICTED)
+    assert value == pytest.approx(by_hand, rel=1e-14)
+    assert value == pytest.approx(0.11471861471861472, rel=1e-14)
+    assert left_out == 0
+
+
+def test_smape_leaves_out_rows_where_actual_and_prediction_are_both_zero():
+    value, left_out = metrics.smape([0.0, 100.0], [0.0, 110.0])
+    assert left_out == 1
+    assert value == pytest.approx(2 * 10 / 210, rel=1e-14)
+
+
+def test_smape_uses_absolute_values_in_the_denominator():
+    # Y = −100, F = −110: 2·10 / (100 + 110); the signed form would give a negative sMAPE.
+    value, _ = metrics.smape([-100.0], [-110.0])
+    assert value == pytest.approx(2 * 10 / 210, rel=1e-14)
+
+
+def test_wape_worked_example():
+    assert metrics.wape(ACTUAL, PREDICTED) == pytest.approx((10 + 20 + 0 + 10) / (100 + 120 + 80 + 50),
+                                                           rel=1e-14)
+
+
+def test_mase_leaves_out_rows_without_a_usable_scale():
+    scale = [12.0, np.nan, 0.0, 12.0]
+    assert metrics.mase(ACTUAL, PREDICTED, scale) == pytest.approx((10 / 12 + 10 / 12) / 2, rel=1e-14)
+    assert np.isnan(metrics.mase(ACTUAL, PREDICTED, [np.nan] * 4))
+
+
+def test_r2_out_of_sample_equals_sklearn_r2_score():
+    rng = np.random.default_rng(7)
+    actual = rng.normal(50, 10, size=200)
+    for predicted in (actual + rng.normal(0, 3, size=200), np.full(200, 55.0), actual[::-1].copy()):
+        assert metrics.r2_out_of_sample(actual, predicted) == pytest.approx(
+            r2_score(actual, predicted), rel=1e-12, abs=1e-12)
+
+
+def test_r2_out_of_sample_is_nan_when_the_actuals_do_not_vary():
+    assert np.isnan(metrics.r2_out_of_sample([3.0, 3.0, 3.0], [2.0, 3.0, 4.0]))

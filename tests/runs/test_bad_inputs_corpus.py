@@ -18,11 +18,12 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from conftest import TEST_DATA
 
 from pipeline import cli
 
-HERE = Path(__file__).resolve().parent / "data" / "bad_specs"
-BROKEN = Path(__file__).resolve().parent / "data" / "broken_inputs"
+HERE = TEST_DATA / "bad_specs"
+BROKEN = TEST_DATA / "broken_inputs"
 MANIFEST = yaml.safe_load((HERE / "cases.yaml").read_text(encoding="utf-8"))
 BROKEN_BASE = yaml.safe_load((BROKEN / "cases.yaml").read_text(encoding="utf-8"))["base_spec"]
 CASES = MANIFEST["cases"]

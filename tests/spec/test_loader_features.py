@@ -6,11 +6,12 @@ import textwrap
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_DATA
 
 from pipeline.core.errors import SpecError
 from pipeline.spec import load_spec
 
-DATA = Path(__file__).resolve().parents[1] / "data_samples" / "compost_sales.csv"
+DATA = DEMO_DATA
 
 BASE = """\
 name: features
@@ -223,4 +224,7 @@ def test_missing_allowed_on_a_driver_needs_a_fill(tmp_path):
 
 
 def test_a_spec_with_only_calendar_terms_may_leave_out_the_intercept(tmp_path):
-    load_spec(write_spec(tmp_path, "calendar:\n  month_of_year: dummies\n", "intercept: false\n"))
+    spec = load_spec(write_spec(tmp_path, "calendar:\n  month_of_year: dummies\n", "intercept: false\n"))
+    assert spec.intercept is False
+    assert spec.drivers.calendar.month_of_year == "dummies"
+    assert spec.drivers.numeric == [] and spec.drivers.categorical == []

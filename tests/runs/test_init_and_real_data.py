@@ -21,13 +21,12 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import DEMO_DATA, TEST_DATA
 
 import pipeline
 from pipeline.core.columns import PERIOD
 
-ROOT = Path(__file__).resolve().parents[2]
-DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
-CORPUS = ROOT / "tests" / "data" / "broken_inputs"
+CORPUS = TEST_DATA / "broken_inputs"
 
 
 @dataclass

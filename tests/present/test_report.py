@@ -17,11 +17,11 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
+from conftest import DEMO_SPEC, ROOT
 
 import pipeline
 
-ROOT = Path(__file__).resolve().parents[2]
-DEMO = ROOT / "configs" / "compost_demo.yaml"
+DEMO = DEMO_SPEC
 # The demo has four series, so the page has the Per series section after the backtest.
 SECTIONS = ["answer", "comparison", "backtest", "per-series", "forecast", "drivers", "residuals",
             "data", "run", "cautions"]

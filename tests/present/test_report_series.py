@@ -22,12 +22,12 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import ROOT
 
 import pipeline
 from pipeline.present import plots
 from pipeline.present.report import TABLE_ROWS, drivers_view, per_series_view
 
-ROOT = Path(__file__).resolve().parents[2]
 SHORT = "zz-late"
 HISTORY, FUTURE = 48, 3
 

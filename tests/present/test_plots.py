@@ -14,16 +14,14 @@ import json
 import os
 import subprocess
 import sys
-from pathlib import Path
 
 import matplotlib
 import numpy as np
 import pandas as pd
+from conftest import ROOT
 
 from pipeline.present import plots
 from pipeline.present.history_plot import plot_history
-
-ROOT = Path(__file__).resolve().parents[2]
 
 FRESH = r"""
 import json, sys

@@ -11,7 +11,7 @@ the report's pictures are masked too (their bytes depend on matplotlib's
 version; the tables they draw from are compared).
 
 After an intended change of output, rewrite the stored copies with
-    CASTLINE_WRITE_SAME_OUTPUT=1 .venv/bin/python -m pytest tests/test_same_output.py
+    CASTLINE_WRITE_SAME_OUTPUT=1 .venv/bin/python -m pytest tests/runs/test_same_output.py
 and review the diff before committing it.
 """
 
@@ -28,9 +28,9 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from conftest import ROOT, TEST_DATA
 
-ROOT = Path(__file__).resolve().parents[1]
-STORED = ROOT / "tests" / "data" / "same_output"
+STORED = TEST_DATA / "same_output"
 REWRITE = os.environ.get("CASTLINE_WRITE_SAME_OUTPUT") == "1"
 SPECS = ["demo", "wide"]
 

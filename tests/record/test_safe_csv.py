@@ -1,0 +1,49 @@
+"""CSV writing (pipeline.record.safe_csv): text cells that would run as spreadsheet formulas.
+
+Plumbing tests on small invented tables; no figure here is a reference value. The
+characters that start a spreadsheet formula (=, +, -, @) and the remedy (a single quote
+in front of the cell) are those of the OWASP "CSV Injection" page. Whole runs' files are
+checked in tests/runs/test_hostile_files.py.
+"""
+
+from __future__ import annotations
+
+import csv
+
+import pandas as pd
+import pytest
+
+from pipeline.record.safe_csv import neutralise, neutralised, write_csv
+
+FORMULA = '=HYPERLINK("http://example.invalid";"click")'
+
+
+@pytest.mark.parametrize("text", ["=1+1", "+1+1", "-1+1", "@SUM(A1)", FORMULA, "-", "=cmd|' /C calc'!A0"])
+def test_text_that_starts_a_formula_gets_a_quote(text):
+    assert neutralise(text) == "'" + text
+
+
+@pytest.mark.parametrize("value", ["North", "2020-01", "", " =x", "'=x", "a=b", 3, -3, -2.5, 0.0,
+                                   float("-inf"), None, True])
+def test_anything_else_is_left_as_it_is(value):
+    assert neutralise(value) is value or neutralise(value) == value
+
+
+def test_numbers_in_a_frame_are_untouched_and_text_cells_neutralised(tmp_path):
+    frame = pd.DataFrame({"series": ["=evil", "North", "-South"], "value": [-1.5, 2.0, -3.0],
+                          "count": [-1, 2, 3], "mixed": ["@x", -4.0, None]})
+    path = tmp_path / "out.csv"
+    write_csv(frame, path)
+    rows = list(csv.reader(path.open(encoding="utf-8")))
+    assert rows[0] == ["series", "value", "count", "mixed"]
+    assert [r[0] for r in rows[1:]] == ["'=evil", "North", "'-South"]
+    assert [float(r[1]) for r in rows[1:]] == [-1.5, 2.0, -3.0]
+    assert [int(r[2]) for r in rows[1:]] == [-1, 2, 3]
+    assert [r[3] for r in rows[1:]] == ["'@x", "-4.0", ""]
+    assert frame["series"].tolist() == ["=evil", "North", "-South"]     # the original is not changed
+    assert neutralised(pd.DataFrame({"=a": [1]})).columns.tolist() == ["'=a"]
+
+
+def test_a_categorical_column_is_neutralised_too():
+    frame = pd.DataFrame({"level": pd.Categorical(["+a", "b"])})
+    assert neutralised(frame)["level"].tolist() == ["'+a", "b"]
