@@ -6,7 +6,10 @@ Tests sit at different depths of tests/; they import these paths
 
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
+import yaml
 
 ROOT = Path(__file__).resolve().parents[1]
 TEST_DATA = ROOT / "tests" / "data"
@@ -27,3 +30,68 @@ def dask_cluster():
                                        protocol="tcp://", host="127.0.0.1", dashboard_address=":0")
     yield cluster
     cluster.close()
+
+
+# A tiny invented forecast for plumbing tests of the run folder and the ledger: one series (or
+# two, with `regions`), monthly from 2020-01, y = 10 + 2·x + noise (seeded). Invented data:
+# never a reference value.
+TINY_MONTHS = 30
+
+
+def tiny_data(regions: tuple[str, ...] = ()) -> pd.DataFrame:
+    rng = np.random.default_rng(20240101)
+    frames = []
+    for region in regions or (None,):
+        x = rng.uniform(0, 10, TINY_MONTHS).round(2)
+        frame = pd.DataFrame({"month": pd.period_range("2020-01", periods=TINY_MONTHS, freq="M")
+                              .to_timestamp().strftime("%Y-%m-%d"),
+                              "x": x, "y": (10 + 2 * x + rng.normal(0, 1, TINY_MONTHS)).round(2)})
+        if region is not None:
+            frame.insert(1, "region", region)
+        frames.append(frame)
+    return pd.concat(frames, ignore_index=True)
+
+
+def write_tiny_spec(folder: Path, data, *, actuals_to: str, **keys) -> Path:
+    """Write data.csv (the target emptied after `actuals_to`, three months kept to forecast)
+    and spec.yaml into folder; return the spec's path. `keys` override top-level spec keys."""
+    folder.mkdir(parents=True, exist_ok=True)
+    months = pd.PeriodIndex(pd.to_datetime(data["month"]), freq="M")
+    cut = pd.Period(actuals_to, "M")
+    frame = data[months <= cut + 3].copy()
+    frame.loc[months[months <= cut + 3] > cut, "y"] = float("nan")
+    frame.to_csv(folder / "data.csv", index=False)
+    spec = {"name": "tiny", "input": {"file": "data.csv", "date_column": "month", "period": "month",
+                                      "as_of": "2027-01-31"},
+            "target": "y", "drivers": {"numeric": ["x"]},
+            "validation": {"method": "holdout", "last_periods": 6}, "models": ["ols"],
+            "output": {"folder": "runs"}}
+    if "region" in data.columns:
+        spec["input"]["series"] = ["region"]
+    spec.update(keys)
+    path = folder / "spec.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="session")
+def tiny_runs(tmp_path_factory):
+    """Three runs of the tiny spec into one ledger (do not change their files):
+
+    1. actuals to 2021-12, forecasting 2022-01..03;
+    2. actuals to 2022-03 (scores run 1's three forecasts), forecasting 2022-04..06;
+    3. the same data with 2022-02's actual revised up by 5, and a new description.
+
+    Returns (spec path, ledger path, [(RunResult, the data.csv it read as a table)] oldest first).
+    """
+    import pipeline
+    base = tmp_path_factory.mktemp("tiny_runs")
+    data = tiny_data()
+    revised = data.copy()
+    revised.loc[revised["month"] == "2022-02-01", "y"] += 5
+    runs = []
+    for frame, cut, keys in [(data, "2021-12", {}), (data, "2022-03", {}),
+                             (revised, "2022-03", {"description": "Revised February."})]:
+        spec = write_tiny_spec(base, frame, actuals_to=cut, **keys)
+        runs.append((pipeline.run(spec), pd.read_csv(base / "data.csv")))
+    return spec, base / "runs" / "ledger.sqlite", runs

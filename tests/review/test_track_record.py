@@ -1,0 +1,198 @@
+"""pipeline/review/track_record.py: earlier forecasts scored against the actuals that came later.
+
+The reference values are hand computations on the tiny tables below, the arithmetic in a
+comment beside each; the runs at the end are plumbing on invented data, checked against the
+files the runs wrote (forecast.csv, the data each run read), never against figures of their own.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import tiny_data, write_tiny_spec
+
+from pipeline.record.ledger.store import INTERVAL_COLUMNS
+from pipeline.review.track_record import score_forecasts, summarise_realised, track_record
+from pipeline.runner import check
+from pipeline.spec import load_spec
+
+NAN = float("nan")
+RUN = "run-A"
+
+
+def forecast_row(model, period, series, horizon, forecast, analytic=(NAN,) * 4,
+                 empirical=(NAN,) * 4, method=None):
+    """One ledger forecast row; intervals given as (low 80, high 80, low 95, high 95)."""
+    bounds = {}
+    for kind, (low80, high80, low95, high95) in (("analytic", analytic), ("empirical", empirical)):
+        bounds.update({f"{kind}_low_80": low80, f"{kind}_high_80": high80,
+                       f"{kind}_low_95": low95, f"{kind}_high_95": high95})
+    assert set(bounds) == set(INTERVAL_COLUMNS)
+    return {"forecast_run_id": RUN, "forecast_created": "2024-01-05T00:00:00", "model": model,
+            "period": period, "series": series, "horizon": horizon, "forecast": forecast,
+            **bounds, "interval_method": method}
+
+
+FORECASTS = pd.DataFrame([
+    # error 110 − 100 = +10; 100 in [100, 120] and [95, 125] (the ends count);
+    # backtest range from the stated 95%: [110 − 125, 110 − 95] = [−15, +15], +10 inside
+    forecast_row("ols", "2024-01", "North", 1, 110.0, analytic=(100, 120, 95, 125), method="analytic"),
+    # error 50 − 63 = −13; 63 outside [52, 60] and [48, 62]; range [50 − 62, 50 − 48] = [−12, +2]
+    forecast_row("ols", "2024-01", "South", 1, 50.0, analytic=(52, 60, 48, 62), method="analytic"),
+    # stated empirical: error 90 − 80 = +10; 80 outside [86, 94] and [82, 98] (though inside the
+    # analytic 95% [80, 100]); range from the empirical 95%: [90 − 98, 90 − 82] = [−8, +8]
+    forecast_row("ols", "2024-02", "North", 2, 90.0, analytic=(85, 95, 80, 100),
+                 empirical=(86, 94, 82, 98), method="empirical"),
+    # no actual for 2024-03: not scored
+    forecast_row("ols", "2024-03", "North", 3, 95.0, analytic=(85, 105, 80, 110), method="analytic"),
+    # no stated method, empirical bounds present: empirical. error 120 − 100 = +20;
+    # 100 outside [105, 135], inside [95, 145]; range [120 − 145, 120 − 95] = [−25, +25]
+    forecast_row("mean_baseline", "2024-01", "North", 1, 120.0, empirical=(105, 135, 95, 145)),
+    # no bounds at all: error 60 − 63 = −3, nothing to judge it by
+    forecast_row("mean_baseline", "2024-01", "South", 1, 60.0),
+])
+ACTUALS = pd.DataFrame({"period": ["2024-01", "2024-01", "2024-02"],
+                        "series": ["North", "South", "North"], "actual": [100.0, 63.0, 80.0]})
+# The backtest's MAE: at one month ahead, and overall (horizon NaN), used where a horizon has none.
+EXPECTED = pd.DataFrame({"run_id": [RUN] * 4, "model": ["ols", "mean_baseline", "ols", "mean_baseline"],
+                         "horizon": [1.0, 1.0, NAN, NAN], "expected_mae": [7.5, 25.0, 8.0, 30.0]})
+
+
+@pytest.fixture(scope="module")
+def scored() -> pd.DataFrame:
+    return score_forecasts(FORECASTS, ACTUALS, EXPECTED)
+
+
+def by_key(scored: pd.DataFrame) -> dict:
+    return {(r.model, r.period, r.series): r for r in scored.itertuples()}
+
+
+def test_errors_are_forecast_minus_actual_and_only_months_with_actuals_are_scored(scored):
+    rows = by_key(scored)
+    # the hand computations in FORECASTS' comments; 2024-03 has no actual
+    assert {k: r.error for k, r in rows.items()} == {
+        ("ols", "2024-01", "North"): 10.0, ("ols", "2024-01", "South"): -13.0,
+        ("ols", "2024-02", "North"): 10.0, ("mean_baseline", "2024-01", "North"): 20.0,
+        ("mean_baseline", "2024-01", "South"): -3.0}
+
+
+def test_rows_are_ordered_by_run_time_model_month_and_series(scored):
+    # sorted by hand: mean_baseline before ols, then month, then series
+    assert list(zip(scored["model"], scored["period"], scored["series"])) == [
+        ("mean_baseline", "2024-01", "North"), ("mean_baseline", "2024-01", "South"),
+        ("ols", "2024-01", "North"), ("ols", "2024-01", "South"), ("ols", "2024-02", "North")]
+
+
+def test_inside_the_stated_80_and_95_intervals(scored):
+    rows = by_key(scored)
+    # FORECASTS' comments: (inside 80%, inside 95%); None where no interval was stated
+    assert {k: (r.inside_80, r.inside_95) for k, r in rows.items()} == {
+        ("ols", "2024-01", "North"): (True, True), ("ols", "2024-01", "South"): (False, False),
+        ("ols", "2024-02", "North"): (False, False), ("mean_baseline", "2024-01", "North"): (False, True),
+        ("mean_baseline", "2024-01", "South"): (None, None)}
+
+
+def test_the_stated_interval_is_the_one_judged(scored):
+    rows = by_key(scored)
+    assert rows[("ols", "2024-02", "North")].interval_method == "empirical"
+    assert (rows[("ols", "2024-02", "North")].low_95, rows[("ols", "2024-02", "North")].high_95) == (82, 98)
+    # no method stated: empirical when its bounds exist, else analytic
+    assert rows[("mean_baseline", "2024-01", "North")].interval_method == "empirical"
+    assert rows[("mean_baseline", "2024-01", "South")].interval_method == "analytic"
+
+
+def test_the_backtest_95_range_of_errors(scored):
+    rows = by_key(scored)
+    # FORECASTS' comments: (low, high, error inside)
+    assert {k: (r.backtest_low_95, r.backtest_high_95, r.within_backtest_95) for k, r in rows.items()
+            if k != ("mean_baseline", "2024-01", "South")} == {
+        ("ols", "2024-01", "North"): (-15.0, 15.0, True), ("ols", "2024-01", "South"): (-12.0, 2.0, False),
+        ("ols", "2024-02", "North"): (-8.0, 8.0, False),
+        ("mean_baseline", "2024-01", "North"): (-25.0, 25.0, True)}
+    unjudged = rows[("mean_baseline", "2024-01", "South")]
+    assert math.isnan(unjudged.backtest_low_95) and unjudged.within_backtest_95 is None
+
+
+def test_expected_mae_at_the_horizon_else_the_models_overall(scored):
+    rows = by_key(scored)
+    # EXPECTED: ols at 1 month ahead 7.5; at 2 months ahead none, so its overall 8.0
+    assert {k: r.expected_mae for k, r in rows.items()} == {
+        ("ols", "2024-01", "North"): 7.5, ("ols", "2024-01", "South"): 7.5,
+        ("ols", "2024-02", "North"): 8.0, ("mean_baseline", "2024-01", "North"): 25.0,
+        ("mean_baseline", "2024-01", "South"): 25.0}
+
+
+def test_nothing_to_score_gives_an_empty_table_with_the_columns():
+    no_actuals = ACTUALS.assign(period="2030-01")
+    empty = score_forecasts(FORECASTS, no_actuals, EXPECTED)
+    assert len(empty) == 0 and {"error", "inside_80", "within_backtest_95"} <= set(empty.columns)
+    assert "recorded" not in empty.columns
+
+
+def test_summary_per_run_model_and_horizon(scored):
+    table = summarise_realised(scored).set_index(["model", "horizon"])
+    # mean_baseline, 1 month ahead: errors +20, −3 → MAE (20 + 3) / 2 = 11.5, bias (20 − 3) / 2 = 8.5;
+    # inside 80%: only North judged, outside → 0; inside 95%: 1 of 1; within range: 1 of 1
+    # ols, 1 month ahead: errors +10, −13 → MAE 11.5, bias −1.5; inside 1 of 2 each
+    # ols, 2 months ahead: error +10 → MAE 10, bias 10; outside everything
+    expected = pd.DataFrame({
+        "model": ["mean_baseline", "ols", "ols"], "horizon": [1, 1, 2], "n": [2, 2, 1],
+        "realised_mae": [11.5, 11.5, 10.0], "expected_mae": [25.0, 7.5, 8.0],
+        "realised_bias": [8.5, -1.5, 10.0], "inside_80": [0.0, 0.5, 0.0], "inside_95": [1.0, 0.5, 0.0],
+        "within_backtest_95": [1.0, 0.5, 0.0]}).set_index(["model", "horizon"])
+    pd.testing.assert_frame_equal(table[expected.columns], expected, check_dtype=False)
+
+
+def test_summary_lists_runs_oldest_first_and_a_share_is_nan_when_nothing_was_judged():
+    realised = pd.DataFrame({
+        "forecast_run_id": ["run-late", "run-early"], "forecast_created": ["2024-03-01", "2024-02-01"],
+        "model": ["ols", "ols"], "horizon": [1, 1], "error": [-2.0, 4.0], "expected_mae": [3.0, NAN],
+        "inside_80": [None, True], "inside_95": [None, True], "within_backtest_95": [None, False]})
+    table = summarise_realised(realised)
+    assert list(table["forecast_run_id"]) == ["run-early", "run-late"]   # by creation time
+    late = table.iloc[1]
+    assert (late["realised_mae"], late["realised_bias"], late["expected_mae"]) == (2.0, -2.0, 3.0)
+    assert np.isnan(late["inside_80"]) and np.isnan(table.iloc[0]["expected_mae"])
+    assert summarise_realised(realised.iloc[:0]).empty
+
+
+def test_the_second_run_scores_the_first_runs_forecasts_from_its_files(tiny_runs):
+    _, _, runs = tiny_runs
+    (first, _), (second, data) = runs[0], runs[1]
+    forecast = pd.read_csv(first.folder.path / "forecast.csv")
+    actual = data.assign(period=data["month"].str[:7]).dropna(subset=["y"])
+    merged = forecast.merge(actual[["period", "y"]], on="period")   # pandas, from the files
+    realised = pd.read_csv(second.folder.path / "realised.csv")
+    assert len(realised) == len(merged) == 6        # 2 models × 3 months now with actuals
+    joined = realised.merge(merged, on=["model", "period"])
+    np.testing.assert_allclose(joined["error"], joined["forecast_y"] - joined["y"])
+    assert set(realised["forecast_run_id"]) == {first.folder.run_id}
+    assert second.track.earlier_runs == 1 and runs[2][0].track.earlier_runs == 2
+
+
+def test_a_revised_actual_is_scored_again_and_only_it(tiny_runs):
+    _, _, runs = tiny_runs
+    third = runs[2][0].realised
+    recorded = third[third["recorded"].astype(bool)]
+    # the third run revised 2022-02 only: its two models' scores are recorded again
+    assert sorted(recorded["period"]) == ["2022-02", "2022-02"]
+
+
+def test_a_run_without_skill_is_warned_about_after_the_set_number_of_runs(tmp_path):
+    spec_path = write_tiny_spec(tmp_path, tiny_data(), actuals_to="2021-12",
+                                output={"folder": "runs", "warn_after_runs_without_skill": 1})
+    spec = load_spec(spec_path)
+    data = check(spec)
+
+    class Evaluation:            # track_record reads only whether the model beat the baseline
+        beats_baseline = False
+
+    record = track_record(spec, data, Evaluation())
+    assert record.earlier_runs == 0 and record.runs_without_skill == 1
+    assert len(record.warnings) == 1 and "not beaten the mean baseline in the last 1 run" in record.warnings[0]
+    Evaluation.beats_baseline = True
+    assert track_record(spec, data, Evaluation()).warnings == []
+    assert not (tmp_path / "runs" / "ledger.sqlite").exists()   # reading writes nothing
