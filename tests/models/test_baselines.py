@@ -1,0 +1,115 @@
+"""The baselines (pipeline/models/baselines.py), each against an independent computation.
+
+References: pandas groupby for the mean and the last value per series; pandas
+shift(12) within each series for the seasonal naive forecast; and, for drift, the
+formula in Hyndman & Athanasopoulos, "Forecasting: Principles and Practice",
+§5.2 (recalled from memory): ŷ(T+h) = y(T) + h · (y(T) − y(1)) / (T − 1).
+
+The data are simulated (numpy.random.default_rng(11)): three series of 40
+months each, a level per series, a trend and noise, with the rows shuffled so
+that no baseline can rely on the rows being in time order.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline.core.design import Design
+from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
+
+START = pd.Period("2018-01", freq="M").ordinal   # months since 1970-01, as Design.period holds them
+MONTHS, TRAIN = 40, 30
+
+
+@pytest.fixture(scope="module")
+def panel() -> pd.DataFrame:
+    rng = np.random.default_rng(11)
+    rows = [(s, START + t, level + 0.8 * t + rng.normal(0, 3))
+            for s, level in (("A", 50.0), ("B", 120.0), ("C", 10.0)) for t in range(MONTHS)]
+    frame = pd.DataFrame(rows, columns=["series", "period", "y"])
+    return frame.sample(frac=1.0, random_state=5).reset_index(drop=True)
+
+
+def design_of(frame: pd.DataFrame) -> Design:
+    return Design(np.empty((len(frame), 0)), [], frame["series"].to_numpy(object),
+                  frame["period"].to_numpy(np.int64))
+
+
+def split(panel):
+    train = panel[panel["period"] < START + TRAIN]
+    test = panel[panel["period"] >= START + TRAIN]
+    return train, test
+
+
+def test_mean_per_series_equals_pandas_groupby_mean(panel):
+    train, test = split(panel)
+    model = MeanBaseline().fit(design_of(train), train["y"])
+    expected = test["series"].map(train.groupby("series")["y"].mean())
+    np.testing.assert_allclose(model.predict(design_of(test)), expected, rtol=1e-13)
+
+
+def test_mean_of_a_series_not_in_training_is_the_overall_mean(panel):
+    train, _ = split(panel)
+    model = MeanBaseline().fit(design_of(train), train["y"])
+    unseen = pd.DataFrame({"series": ["Z"], "period": [START + TRAIN]})
+    np.testing.assert_allclose(model.predict(design_of(unseen)), [train["y"].mean()], rtol=1e-13)
+
+
+def test_last_value_is_the_latest_month_of_each_series(panel):
+    train, test = split(panel)
+    model = LastValue().fit(design_of(train), train["y"])
+    latest = train.sort_values("period").groupby("series")["y"].last()
+    np.testing.assert_array_equal(model.predict(design_of(test)), test["series"].map(latest))
+    # and that value is the one at the training window's last month
+    assert latest["B"] == train.loc[(train["series"] == "B") & (train["period"] == START + TRAIN - 1), "y"].item()
+
+
+def test_seasonal_naive_is_the_value_twelve_months_earlier(panel):
+    train, test = split(panel)
+    model = SeasonalNaive().fit(design_of(train), train["y"])
+    # the test months are 1..10 months past the training window, so 12 months earlier is in it
+    ordered = panel.sort_values(["series", "period"])
+    earlier = ordered.groupby("series")["y"].shift(12)
+    expected = earlier.loc[test.index]
+    assert expected.notna().all()
+    np.testing.assert_array_equal(model.predict(design_of(test)), expected.to_numpy())
+
+
+def test_seasonal_naive_falls_back_to_the_series_mean_for_a_month_it_has_not_seen(panel):
+    train = panel[(panel["period"] >= START) & (panel["period"] < START + 6)]   # January to June only
+    model = SeasonalNaive().fit(design_of(train), train["y"])
+    september = pd.DataFrame({"series": ["A"], "period": [START + 8]})
+    mean_a = train.loc[train["series"] == "A", "y"].mean()
+    np.testing.assert_allclose(model.predict(design_of(september)), [mean_a], rtol=1e-13)
+
+
+def test_drift_is_last_plus_slope_times_months_ahead(panel):
+    train, test = split(panel)
+    model = Drift().fit(design_of(train), train["y"])
+    predicted = model.predict(design_of(test))
+    for series in ("A", "B", "C"):
+        y = train[train["series"] == series].sort_values("period")["y"].to_numpy()
+        n = len(y)
+        slope = (y[-1] - y[0]) / (n - 1)          # Hyndman & Athanasopoulos §5.2 (from memory)
+        rows = (test["series"] == series).to_numpy()
+        h = test.loc[rows, "period"].to_numpy() - (START + TRAIN - 1)
+        np.testing.assert_allclose(predicted[rows], y[-1] + slope * h, rtol=1e-12)
+
+
+def test_drift_of_a_single_month_series_is_flat():
+    design = Design(np.empty((1, 0)), [], np.array(["A"], dtype=object), np.array([START]))
+    model = Drift().fit(design, [7.0])
+    ahead = Design(np.empty((2, 0)), [], np.array(["A", "A"], dtype=object), np.array([START + 1, START + 5]))
+    np.testing.assert_array_equal(model.predict(ahead), [7.0, 7.0])
+
+
+@pytest.mark.parametrize("cls", [MeanBaseline, LastValue, SeasonalNaive, Drift])
+def test_a_stored_baseline_predicts_the_same(cls, panel):
+    train, test = split(panel)
+    model = cls().fit(design_of(train), train["y"])
+    again = cls.from_dict(json.loads(json.dumps(model.to_dict(), allow_nan=False)))
+    np.testing.assert_array_equal(again.predict(design_of(test)), model.predict(design_of(test)))
