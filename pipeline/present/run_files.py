@@ -22,14 +22,16 @@ NAMED_TABLES = ("predictions.csv", "forecast.csv", "history.csv", "scenarios.csv
                 "series.csv")
 
 
-def _read_csv(folder: Path, name: str) -> pd.DataFrame | None:
+def _read_csv(folder: Path, name: str, text_columns: tuple[str, ...] = ()) -> pd.DataFrame | None:
     path = folder / name
     if not path.exists() or path.stat().st_size == 0:
         return None
     try:
         # Whole-column type inference: a column empty for most rows (a per-series model's
         # series column in coefficients.csv) is read the same however long the file is.
-        frame = pd.read_csv(path, keep_default_na=True, low_memory=False)
+        # Names are read as text from the start: series '007' stays '007', not 7.
+        frame = pd.read_csv(path, keep_default_na=True, low_memory=False,
+                            dtype=dict.fromkeys(text_columns, str))
     except pd.errors.EmptyDataError:
         return None
     return frame if len(frame.columns) else None
@@ -49,8 +51,9 @@ class RunFiles:
     def table(self, name: str) -> pd.DataFrame | None:
         """Return a CSV file of the run as a table (None when absent or empty)."""
         if name not in self._tables:
-            frame = _read_csv(self.folder, name)
-            if frame is not None and name in NAMED_TABLES:
+            named = name in NAMED_TABLES
+            frame = _read_csv(self.folder, name, NAME_COLUMNS if named else ())
+            if frame is not None and named:
                 for column in NAME_COLUMNS:
                     if column in frame.columns:
                         frame[column] = frame[column].astype(str)

@@ -104,8 +104,12 @@ def write_page(folder: Path, name: str, text: str) -> Path:
     """Write a page (report.html, summary.md) into a run folder atomically; return its path."""
     target = Path(folder) / name
     partial = Path(folder) / f".{name}.partial"
-    partial.write_text(text, encoding="utf-8")
-    partial.replace(target)
+    try:
+        partial.write_text(text, encoding="utf-8")
+        partial.replace(target)
+    except BaseException:
+        partial.unlink(missing_ok=True)   # the page as it was stays; no stray file beside it
+        raise
     return target
 
 

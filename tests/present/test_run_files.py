@@ -77,9 +77,6 @@ def coded_series_run(tmp_path_factory):
     return pipeline.run(spec)
 
 
-@pytest.mark.xfail(strict=True, reason="RunFiles.table reads the CSV with pandas' type inference and only "
-                   "then turns name columns to text, so series '007' and '010' come back as '7' and '10' "
-                   "(and the report and summary show those)")
 def test_series_names_are_read_back_as_written(coded_series_run):
     files = load_run_files(coded_series_run.folder.path)
     assert sorted(files.table("forecast.csv")["series"].unique()) == ["007", "010"]

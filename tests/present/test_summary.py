@@ -11,7 +11,6 @@ import json
 import shutil
 
 import pandas as pd
-import pytest
 from conftest import tiny_data, write_tiny_spec
 
 import pipeline
@@ -79,8 +78,6 @@ def test_without_track_record_json_the_summary_has_no_track_record(tiny_runs, tm
     assert "## Track record" not in summary and "## Data" in summary
 
 
-@pytest.mark.xfail(strict=True, reason="the pages read the run's CSV files with type inference, so a "
-                   "series named '007' is shown as '7' in summary.md's forecast table")
 def test_series_names_with_leading_zeros_are_shown_as_written(tmp_path):
     spec = write_tiny_spec(tmp_path, tiny_data(regions=("007", "010")), actuals_to="2021-12")
     result = pipeline.run(spec)
