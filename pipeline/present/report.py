@@ -215,6 +215,22 @@ def _best(rows: list[dict]) -> dict[str, str]:
     return best
 
 
+def stated_forecast(forecast: pd.DataFrame | None, coverage: pd.DataFrame | None,
+                    recommended: str) -> tuple[pd.DataFrame | None, str | None]:
+    """Return the recommended model's forecast with the 80% and 95% intervals the pages state,
+    and which intervals those are (the kind that held closest in the backtest); (None, None)
+    when there is nothing to forecast."""
+    if forecast is None or not len(forecast):
+        return None, None
+    own = forecast[forecast["model"] == recommended]
+    method = trusted_method(coverage, recommended, own)
+    shown = own[["period", "series", "forecast"]].copy()
+    for level in ("80", "95"):
+        shown[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
+        shown[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
+    return shown, method
+
+
 def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
@@ -256,17 +272,11 @@ def render_report(files: RunFiles | str | Path) -> str:
                                  per_series["featured"], row.skill_vs_mean, every_model)
             for row in per_series["worst"].itertuples()]
 
-    forecast_picture = forecast_table = None
-    forecast_rows = 0
-    if forecast is not None and len(forecast):
-        own = forecast[forecast["model"] == recommended]
-        method = trusted_method(coverage, recommended, forecast[forecast["model"] == recommended])
+    forecast_picture = None
+    forecast_table, method = stated_forecast(forecast, coverage, recommended)
+    forecast_rows = len(forecast_table) if forecast_table is not None else 0
+    if forecast_table is not None:
         forecast_picture = plots.forecast_picture(history, forecast, recommended, method, scenarios)
-        forecast_table = own[["period", "series", "forecast"]].copy()
-        for level in ("80", "95"):
-            forecast_table[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
-            forecast_table[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
-        forecast_rows = len(forecast_table)
         forecast_table = forecast_table.head(TABLE_ROWS)
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None

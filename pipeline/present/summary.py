@@ -9,7 +9,6 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import SCORES
-from pipeline.core.intervals import trusted_method
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -18,6 +17,7 @@ from pipeline.present.report import (
     named,
     per_series_view,
     render_markdown,
+    stated_forecast,
 )
 from pipeline.present.run_files import RunFiles
 from pipeline.present.track_record import with_track_record
@@ -25,23 +25,6 @@ from pipeline.present.track_record import with_track_record
 
 def _some(frame: pd.DataFrame | None) -> pd.DataFrame | None:
     return frame if frame is not None and len(frame) else None
-
-
-def _forecast_shown(files: RunFiles, recommended: str, coverage) -> tuple[pd.DataFrame | None, str | None]:
-    """Return the recommended model's forecast with the intervals the summary states, and
-    which intervals they are (analytic or empirical)."""
-    forecast = files.table("forecast.csv")
-    if forecast is None:
-        return None, None
-    own = forecast[forecast["model"] == recommended]
-    if not len(own):
-        return None, None
-    method = trusted_method(coverage, recommended, own)
-    shown = own[["period", "series", "forecast"]].copy()
-    for level in ("80", "95"):
-        shown[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
-        shown[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
-    return shown, method
 
 
 def _diagnostics(files: RunFiles) -> pd.DataFrame | None:
@@ -59,7 +42,9 @@ def render_summary(files: RunFiles) -> str:
     metrics, data_print = files.metrics, files.fingerprint
     recommended, rows = metrics["recommended"], metrics["models"]
     coverage = files.table("interval_coverage.csv")
-    shown, method = _forecast_shown(files, recommended, coverage)
+    shown, method = stated_forecast(files.table("forecast.csv"), coverage, recommended)
+    if shown is not None and not len(shown):
+        shown = method = None
     scenarios = _some(files.table("scenarios.csv"))
     if scenarios is not None:
         scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"])
