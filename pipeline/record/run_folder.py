@@ -107,8 +107,10 @@ def write_page(folder: Path, name: str, text: str) -> Path:
     try:
         partial.write_text(text, encoding="utf-8")
         partial.replace(target)
-    except BaseException:
+    except BaseException as exc:
         partial.unlink(missing_ok=True)   # the page as it was stays; no stray file beside it
+        if isinstance(exc, OSError):      # a folder in the way, no permission, a full disk
+            raise UserError(f"{target}: cannot write the page: {exc.strerror or exc}") from None
         raise
     return target
 

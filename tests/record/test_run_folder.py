@@ -11,6 +11,7 @@ from datetime import UTC, datetime, timedelta
 
 import pytest
 
+from pipeline.core.errors import UserError
 from pipeline.record.run_folder import new_run_id, write_page
 
 ID = re.compile(r"run-(\d{8}T\d{12})Z-([0-9a-f]{6})")
@@ -60,4 +61,15 @@ def test_a_failed_write_leaves_no_partial_file(tmp_path):
     (tmp_path / "report.html").write_text("<p>old</p>", encoding="utf-8")
     with pytest.raises(UnicodeEncodeError):
         write_page(tmp_path, "report.html", UNWRITABLE)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html"]
+
+
+def test_a_page_that_cannot_be_written_is_one_line_naming_it(tmp_path):
+    # A folder standing where the page goes (or no permission, or a full disk) is the user's
+    # to mend: one line naming the page, the folder otherwise left as it was.
+    (tmp_path / "report.html").mkdir()
+    with pytest.raises(UserError) as refused:
+        write_page(tmp_path, "report.html", "<p>new</p>")
+    assert str(refused.value).startswith(f"{tmp_path / 'report.html'}: cannot write the page")
+    assert len(str(refused.value).splitlines()) == 1
     assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html"]
