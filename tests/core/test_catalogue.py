@@ -138,7 +138,7 @@ def test_bias_is_prediction_minus_actual(pair):
     # the project's sign: error = prediction − actual (numpy as the reference)
     assert METRIC_BY_NAME["bias"].compute(actual, predicted) == pytest.approx(
         float(np.mean(predicted - actual)), rel=1e-12)
-    assert METRIC_BY_NAME["bias"].compute([10.0, 10.0], [12.0, 13.0]) == pytest.approx(2.5)
+    assert METRIC_BY_NAME["bias"].compute([10.0, 10.0], [12.0, 13.0]) == pytest.approx(2.5)   # by hand: ((12 − 10) + (13 − 10)) / 2
 
 
 def test_metrics_rank_a_better_forecast_the_way_they_say():
