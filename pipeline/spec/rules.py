@@ -96,6 +96,7 @@ _TYPES_FOR_ROLE = {
     "the target": ("number", "whole_number"),
     "the date column": ("date",),
     "a numeric driver": ("number", "whole_number"),
+    "a lagged column": ("number", "whole_number"),
     "a categorical driver": ("category", "text", "whole_number"),
     "a series column": ("category", "text", "whole_number"),
     "a grouping column": ("category", "text", "whole_number", "date"),
@@ -118,6 +119,8 @@ def column_roles(spec: Spec) -> dict[str, str]:
     roles.update({column: "a series column" for column in spec.input.series})
     roles.update({d.column: "a numeric driver" for d in spec.drivers.numeric})
     roles.update({d.column: "a categorical driver" for d in spec.drivers.categorical})
+    roles.update({column: "a lagged column" for column in spec.lagged_only_columns
+                  if column not in roles})
     if spec.validation.method == "grouped_kfold":
         roles.update({c: "a grouping column" for c in spec.validation.group_by if c not in roles})
     return roles
@@ -234,9 +237,21 @@ def _interaction_problem(spec: Spec, pair: list[str], key: KeyPath, pairs: set[f
 
 def _lags_problem(spec: Spec, lagged, key: KeyPath, numeric: list[str], seen: set[str],
                   fail: Fail) -> SpecError | None:
-    if lagged.column != spec.target and lagged.column not in numeric:
-        return fail(key + ("column",), f"'{lagged.column}' is neither the target nor a numeric "
-                                       "driver; lags are taken of those")
+    roles = column_roles(spec)
+    role = roles.get(lagged.column)
+    if role in ("a categorical driver", "a series column", "a grouping column", "the date column"):
+        return fail(key + ("column",), f"'{lagged.column}' is {role}; lags are taken of numbers: "
+                                       "the target, a numeric driver or another numeric column")
+    rule = spec.columns.get(lagged.column)
+    if rule is not None and rule.type not in ("number", "whole_number"):
+        return fail(key + ("column",), f"'{lagged.column}' is of type '{rule.type}' in columns; "
+                                       "lags are taken of numbers")
+    if lagged.future is not None and lagged.column == spec.target:
+        return fail(key + ("future",), "the target's months ahead are what is forecast; "
+                                       "multi_step decides how its lags read them")
+    if lagged.future is not None and lagged.column in numeric:
+        return fail(key + ("future",), f"'{lagged.column}' is a numeric driver: set future on "
+                                       "its entry in drivers.numeric")
     if lagged.column in seen:
         return fail(key + ("column",), f"'{lagged.column}' already has an entry in drivers.lags")
     if not (lagged.lags or lagged.rolling_means or lagged.differences):

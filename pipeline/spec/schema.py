@@ -126,6 +126,18 @@ def _as_text(value: Any) -> Any:
     return value
 
 
+# How the values of a driver in the months after an origin are found: given in the data
+# (a plan, a price list), or estimated by castline from the training window alone.
+FUTURE_RULES = ("given", "month_mean", "last_year", "last_value", "mean")
+ESTIMATE_RULES = FUTURE_RULES[1:]
+FutureRule = Literal[FUTURE_RULES]
+FUTURE_DESCRIPTION = (
+    "given: the months to forecast carry the values (a plan, a price list); or estimated "
+    "from the training window, in every backtest window and for the forecast alike: "
+    "month_mean (the series' average for that calendar month), last_year (the same month "
+    "a year earlier), last_value (the series' last value), mean (the series' average)")
+
+
 class NumericDriver(StrictModel):
     """A numeric driver, prepared in this order: fill, clip, transform, standardise, powers.
 
@@ -145,6 +157,9 @@ class NumericDriver(StrictModel):
                               "window's mean or median and add a was-missing column")
     standardise: bool = Field(False, description="centre on the training window's mean and "
                                                  "divide by its standard deviation")
+    future: FutureRule | None = Field(
+        None, description=FUTURE_DESCRIPTION + "; without it, given when the months to "
+                                               "forecast have values")
 
     @field_validator("clip_quantiles")
     @classmethod
@@ -212,7 +227,7 @@ class CalendarFeatures(StrictModel):
 
 
 class LaggedColumn(StrictModel):
-    """Earlier values of the target or of a numeric driver, per series."""
+    """Earlier values of the target, a numeric driver or any other numeric column, per series."""
 
     column: str
     lags: list[Annotated[int, Field(ge=1)]] = Field(
@@ -225,6 +240,10 @@ class LaggedColumn(StrictModel):
                                           "this many months before that")
     start_lag: int = Field(1, ge=1, description="how many months back the rolling means and "
                                                 "differences end")
+    future: FutureRule | None = Field(
+        None, description="for a column that is neither the target nor a driver: "
+                          + FUTURE_DESCRIPTION + "; without it, a lag may not reach past the "
+                                                 "origin")
 
 
 class SeriesEffects(StrictModel):
@@ -496,6 +515,24 @@ class Spec(StrictModel):
     def filled_driver_columns(self) -> set[str]:
         """Return the numeric drivers whose missing values are filled rather than refused."""
         return {d.column for d in self.drivers.numeric if d.missing != "refuse"}
+
+    @property
+    def estimated_columns(self) -> dict[str, str]:
+        """Return the columns castline estimates in the months after an origin, with their rule:
+        numeric drivers, and lagged columns that are neither the target nor a driver."""
+        rules = {d.column: d.future for d in self.drivers.numeric if d.future in ESTIMATE_RULES}
+        drivers = set(self.driver_columns)
+        rules.update({lagged.column: lagged.future for lagged in self.drivers.lags
+                      if lagged.future in ESTIMATE_RULES and lagged.column != self.target
+                      and lagged.column not in drivers})
+        return rules
+
+    @property
+    def lagged_only_columns(self) -> list[str]:
+        """Return the lagged columns that are neither the target nor a driver."""
+        drivers = set(self.driver_columns)
+        return [lagged.column for lagged in self.drivers.lags
+                if lagged.column != self.target and lagged.column not in drivers]
 
     @property
     def has_features(self) -> bool:

@@ -124,6 +124,8 @@ def effective_rules(spec: Spec) -> dict[str, ColumnRule]:
         "a categorical driver": ColumnRule(type="category"),
         "a series column": ColumnRule(type="category"),
         "a grouping column": ColumnRule(type="category"),
+        # Only earlier months are read: a missing month leaves its lags unavailable.
+        "a lagged column": ColumnRule(type="number", missing_allowed=True),
     }
     rules = {column: from_role[role] for column, role in column_roles(spec).items()}
     for column, rule in spec.columns.items():
@@ -386,18 +388,27 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
                                     f"{row[target]:g} in {row[PERIOD]} (series '{row[SERIES]}')",
                                     count=int(low.sum())))
     filled = spec.filled_driver_columns
+    estimated = spec.estimated_columns
     for driver in spec.driver_columns:
         if driver in filled:
             continue  # filled in every row by a statistic learned in each training window
         for mask, word in ((~future, "driver missing"),
                            (future, "driver missing in a month to forecast")):
+            if word != "driver missing" and driver in estimated:
+                continue  # castline estimates it in the months to forecast
             empty = mask & frame[driver].isna()
             if empty.any():
                 row = _first(frame, empty)
                 problems.append(Problem(word, driver, _row(row),
-                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}')",
+                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}')"
+                                        + (_ESTIMATE_HINT if word != "driver missing" else ""),
                                         count=int(empty.sum())))
     return problems
+
+
+# Said when a driver has no value in a month to forecast.
+_ESTIMATE_HINT = ("; fill in its planned values, or set future: month_mean on the driver to have "
+                  "castline estimate it (in the backtest too)")
 
 
 def _row(row: pd.Series) -> int | None:

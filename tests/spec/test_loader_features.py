@@ -194,9 +194,22 @@ def test_a_bad_value_or_unknown_key_is_placed_at_its_line(tmp_path, drivers, top
      """, "quarter", "drivers.calendar.quarter", "use one or the other"),
     ("""
      lags:
-       - column: rainfall_mm
+       - column: region
          lags: [1]
-     """, "column: rainfall_mm", "drivers.lags[0].column", "neither the target nor a numeric driver"),
+     """, "column: region", "drivers.lags[0].column", "'region' is a series column; lags are taken of numbers"),
+    ("""
+     lags:
+       - column: bags_sold
+         lags: [12]
+         future: month_mean
+     """, "future: month_mean", "drivers.lags[0].future", "multi_step decides"),
+    ("""
+     numeric: [shelf_price]
+     lags:
+       - column: shelf_price
+         lags: [1]
+         future: mean
+     """, "future: mean", "drivers.lags[0].future", "set future on its entry in drivers.numeric"),
     ("""
      lags:
        - column: bags_sold

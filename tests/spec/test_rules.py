@@ -91,7 +91,7 @@ def test_interactions_lags_and_slopes_are_judged_each_on_their_own(problems):
                     "drivers.series_effects.slopes[1]"]
     assert "'wind' is not a driver" in found[0][2]
     assert "two different drivers" in found[1][2]
-    assert "neither the target nor a numeric driver" in found[2][2]
+    assert "'shop' is a categorical driver; lags are taken of numbers" in found[2][2]
     assert "'shop' is not a numeric driver" in found[3][2]
     assert found[0][1] == line_of(text, "[price, wind]")
     assert found[2][1] == line_of(text, "- column: shop")
