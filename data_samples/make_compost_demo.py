@@ -23,7 +23,8 @@ OUT = Path(__file__).with_name("compost_sales.csv")
 
 
 def make_demo(seed: int = SEED) -> pd.DataFrame:
-    """Return the demo table: one row per region and month, future months without sales."""
+    """Return the demo table: one row per region and month, future months without sales or
+    weather."""
     rng = np.random.default_rng(seed)
     months = pd.period_range(FIRST_MONTH, pd.Period(LAST_ACTUAL, "M") + MONTHS_PLANNED, freq="M")
     rows = []
@@ -48,6 +49,10 @@ def make_demo(seed: int = SEED) -> pd.DataFrame:
     table = pd.DataFrame(rows)
     planned = pd.PeriodIndex(table["month"], freq="M") > pd.Period(LAST_ACTUAL, "M")
     table["bags_sold"] = table["bags_sold"].astype("Int64").mask(planned)
+    # Nobody knows next year's weather: the months to forecast carry the planned price and
+    # promotion days only, and castline estimates rainfall and temperature (future: month_mean).
+    for column in ("rainfall_mm", "mean_temp_c"):
+        table[column] = table[column].mask(planned)
     return table.sort_values(["month", "region"], kind="stable").reset_index(drop=True)
 
 

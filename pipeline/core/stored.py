@@ -27,8 +27,8 @@ import pandas as pd
 
 from pipeline.core.errors import ModelFileError
 
-FORMAT_VERSION = 1          # the version of the fields every to_dict writes
-READABLE_VERSIONS = (1,)    # the versions from_dict can read
+FORMAT_VERSION = 2          # the version of the fields every to_dict writes
+READABLE_VERSIONS = (1, 2)  # the versions from_dict can read (2 added FeaturePlan.future_)
 
 ARRAY_TYPES = ("float64", "int64", "bool", "object", "int32", "float32")
 

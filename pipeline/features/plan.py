@@ -33,6 +33,7 @@ from pipeline.core.errors import DataError, ModelFileError, SpecError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode, encode_settings
 from pipeline.features.calendar import FourierTerms, MonthDummies, QuarterDummies, TrendTerm, WorkingDays
 from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
+from pipeline.features.future import FutureEstimates
 from pipeline.features.interactions import InteractionTerms
 from pipeline.features.lags import LagFeatures
 from pipeline.features.numeric import NumericTerms
@@ -87,6 +88,18 @@ class FeaturePlan:
         self.error = error
         self.source = source
         self.series_effects = series_effects   # a SeriesEffects spec section, or None for none
+        drivers = {d.column for d in self.numeric} | {d.column for d in self.categorical}
+        # Columns castline estimates after the origin (numeric drivers, and lagged columns
+        # that are not drivers), by rule; and lagged columns nobody gives ahead, whose lags
+        # may read only months up to the origin, as the target's do.
+        self.estimated = {d.column: d.future for d in self.numeric
+                          if d.future not in (None, "given")}
+        self.estimated.update({lagged.column: lagged.future for lagged in self.lags
+                               if lagged.column != target and lagged.column not in drivers
+                               and lagged.future not in (None, "given")})
+        self.unknown_ahead = {lagged.column for lagged in self.lags
+                              if lagged.column != target and lagged.column not in drivers
+                              and lagged.future is None}
 
     # -- fitting
 
@@ -136,7 +149,15 @@ class FeaturePlan:
             self.numeric_parts_ = numeric
             self.window_end_ = (pd.Period(ordinal=int(month_ordinals(frame).max()), freq="M")
                                 if PERIOD in frame.columns and len(frame) else None)
+            self.future_ = (FutureEstimates(self.estimated, self.series_column).fit(frame)
+                            if self.estimated and self.window_end_ is not None else None)
         return self
+
+    def estimate_future(self, frame: pd.DataFrame) -> pd.DataFrame:
+        """Return the rows with every driver castline estimates replaced, in the months after
+        the window, by its estimate from the window (see ``FutureEstimates``); the rows as
+        they are without such drivers. ``transform`` reads values as it is handed them."""
+        return frame if self.future_ is None else self.future_.apply(frame)
 
     # Series columns are dense: beyond this many cells in a window's design, the fit would
     # need gigabytes, and a model per series (or no series intercepts) is the way.
@@ -211,21 +232,31 @@ class FeaturePlan:
         return max(months) if months else None
 
     def _check_reach(self, frame: pd.DataFrame, known: pd.DataFrame | None) -> None:
-        """Stop with a SpecError if a lag of the target reads a month after the origin."""
-        targets = [part for part in self.lag_parts_ if part.of_target]
-        origin = self._origin(known)
-        if not targets or origin is None or not len(frame):
+        """Stop with a SpecError if a lag of the target, or of a column nobody gives ahead,
+        reads a month after the origin."""
+        if not len(frame):
             return
-        ahead = int((month_ordinals(frame) - origin).max())
-        for part in targets:
+        for part in self.lag_parts_:
+            if part.of_target:
+                origin, remedy = self._origin(known), (
+                    "the target must be at least {ahead} months (or multi_step: recursive feeds "
+                    "predictions back month by month)")
+            elif part.column in self.unknown_ahead:
+                origin, remedy = self._origin(None), (
+                    f"'{part.column}' must be at least {{ahead}} months, or set future on this "
+                    "entry: given (its values in the months predicted are in the data) or a rule "
+                    "to estimate them, such as month_mean")
+            else:
+                continue
+            if origin is None:
+                continue
+            ahead = int((month_ordinals(frame) - origin).max())
             for back, key, name in part.reaches():
                 if back < ahead:
                     at = pd.Period(ordinal=origin, freq="M")
                     raise self.error(key, f"'{name}' reaches past the forecast origin ({at}): the "
                                           f"months predicted run up to {ahead} months after it, so "
-                                          f"each lag of the target must be at least {ahead} months "
-                                          "(or multi_step: recursive feeds predictions back "
-                                          "month by month)")
+                                          f"each lag of {remedy.format(ahead=ahead)}")
 
     def feature_table(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> pd.DataFrame:
         """Return the features of the rows as a table (columns named, the frame's index),
@@ -249,13 +280,29 @@ class FeaturePlan:
     def _extra_values(self, part: LagFeatures, frame: pd.DataFrame,
                       known: pd.DataFrame | None) -> pd.Series | None:
         """Return the values a lag may read beyond the window: for the target, those in
-        known only; for a driver, those of the rows themselves and of known."""
+        known only; for a column nobody gives ahead, none; for a driver, those of the rows
+        themselves and of known."""
+        if part.column in self.unknown_ahead:
+            return None
         sources = [] if part.of_target else [frame]
         if known is not None:
             sources.append(known)
         if not sources:
             return None
         return pd.concat([self._lag_values(part.column, source) for source in sources])
+
+    def estimated_lag_notes(self, furthest: int) -> list[str]:
+        """Return a note for each lag of an estimated driver shorter than the months predicted
+        ahead (``furthest``): beyond its reach it reads castline's estimates."""
+        notes = []
+        for part in self.lag_parts_:
+            rule = self.estimated.get(part.column)
+            for back, _, name in part.reaches() if rule else ():
+                if back < furthest:
+                    notes.append(f"'{name}' reads castline's estimate of {part.column} ({rule}), "
+                                 f"not its actual value, for months more than {back} ahead of "
+                                 "the origin")
+        return notes
 
     def _notes(self, frame: pd.DataFrame) -> list[str]:
         return [note for part in self.row_parts_ if hasattr(part, "notes") for note in part.notes(frame)]
@@ -345,7 +392,8 @@ class FeaturePlan:
                                if self.series_effects is not None else None),
             "row_parts_": encode(self.row_parts_, parts), "lag_parts_": encode(self.lag_parts_, parts),
             "numeric_parts_": encode(self.numeric_parts_, parts),
-            "window_end_": encode(self.window_end_)}
+            "window_end_": encode(self.window_end_),
+            "future_": self.future_.to_dict() if self.future_ is not None else None}
         return {"class": type(self).__name__, "state": state,
                 "parts": [{"class": type(part).__name__, "state": part.to_dict(parts)} for part in parts]}
 
@@ -396,6 +444,10 @@ class FeaturePlan:
                 raise fields.bad("numeric_parts_", "the numeric drivers' features by column")
             plan.numeric_parts_ = numeric
             plan.window_end_ = fields.period("window_end_", optional=True)
+            stored = fields.raw("future_") if version >= 2 else None
+            plan.future_ = FutureEstimates.from_dict(stored, version) if stored is not None else None
+            if plan.estimated != (plan.future_.rules if plan.future_ else {}):
+                raise ModelFileError("the plan's estimated drivers do not match its settings")
         plan.parts_ = parts
         if [id(part) for part in [*plan.row_parts_, *plan.lag_parts_]] != [id(part) for part in parts]:
             raise ModelFileError("the plan's features are not its parts, each once, in order")

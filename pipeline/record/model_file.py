@@ -223,7 +223,8 @@ class StoredModel:
         """Return each stored model's prediction for every row of the frame."""
         prepared = self.prepare(frame, file)
         try:
-            design = self.plan.transform(prepared)
+            # Drivers nobody knows ahead are estimated as in the run that wrote the model.
+            design = self.plan.transform(self.plan.estimate_future(prepared))
         except KeyError as exc:
             raise DataError(f"the file lacks a driver column the model needs: {exc}", file=file) from None
         except (AttributeError, TypeError, ValueError, IndexError) as exc:

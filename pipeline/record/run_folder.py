@@ -22,6 +22,7 @@ import yaml
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.errors import UserError
 from pipeline.core.version import __version__
+from pipeline.features.future import drivers_ahead
 from pipeline.record import ledger
 from pipeline.record.ledger import write as ledger_write
 from pipeline.record.model_file import model_document
@@ -148,6 +149,9 @@ def _metrics_document(spec: Spec, data: CheckedData, evaluation: Evaluation, for
         "beats_baseline": evaluation.beats_baseline,
         "select_by": evaluation.select_by,
         "interval_coverage": _records(evaluation.coverage),
+        "drivers_ahead": drivers_ahead(spec),
+        # Had the estimated drivers been known ahead (ex-post); "models" above is ex-ante.
+        "hindsight_models": _records(evaluation.hindsight),
         "diagnostics": _records(forecast.diagnostics),
     }
 

@@ -20,7 +20,7 @@ from pydantic import BaseModel, ValidationError
 from pipeline.core.errors import SpecError
 from pipeline.spec.keys import DuplicateKey, KeyPath, SpecOrigin, format_key_path, line_for, line_map
 from pipeline.spec.rules import check_rules
-from pipeline.spec.schema import Spec
+from pipeline.spec.schema import CategoricalDriver, Spec
 
 
 def _union_member(current: Any, tag: Any) -> type[BaseModel] | None:
@@ -91,6 +91,9 @@ def _describe(error: dict[str, Any]) -> str:
     if kind == "extra_forbidden":
         section = _section_class(loc[:-1])
         valid = sorted(k for k, f in section.model_fields.items() if not f.exclude) if section else []
+        if loc[-1] == "future" and section is CategoricalDriver:
+            return ("future applies to numeric drivers: a categorical driver's levels in the "
+                    "months to forecast must be given in the data")
         close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
         hint = f"; did you mean '{close[0]}'?" if close else (
             f"; valid keys here: {', '.join(valid)}" if valid else "")

@@ -12,7 +12,7 @@ once and the QR factor is grown block by block (``GrowingLeastSquares``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -22,6 +22,7 @@ from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
+from pipeline.features.future import ahead_words, require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
@@ -77,6 +78,10 @@ class BacktestResult:
     step: int = 1
     # Series a model per series fitted by their mean instead, per window (see ``series_fallbacks``).
     fallbacks: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=FALLBACK_COLUMNS))
+    # With drivers castline estimates: the models' predictions had those drivers been known
+    # (ex-post), beside ``predictions``, which estimate them as the forecast must (ex-ante).
+    hindsight: pd.DataFrame | None = None
+    estimated: dict[str, str] = field(default_factory=dict)   # the estimated columns, by rule
 
 
 DENSE_GRID_CELLS = 50_000_000   # beyond this, MASE scales look months up by key, not by grid
@@ -232,6 +237,9 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     Raises SpecError when the validation scheme does not fit the data.
     """
     splits, horizon = validation_splits(spec, data)
+    if spec.estimated_columns and splits and splits[0].origin is not None:
+        months, label = min((split.train[PERIOD].nunique(), split.label) for split in splits)
+        require_a_year(spec, int(months), f"the training window ending {label}")
     plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
@@ -242,8 +250,12 @@ class _WindowDesigns:
     """The designs of one window's training and predicted rows, each built once, when a
     model first asks for it (baselines need only the rows' series and months)."""
 
-    def __init__(self, spec: Spec, split: Split, plan, shared, plain: bool) -> None:
+    def __init__(self, spec: Spec, split: Split, plan, shared, plain: bool,
+                 hindsight: pd.DataFrame | None = None) -> None:
         self.spec, self.split, self.plan, self.shared, self.plain = spec, split, plan, shared, plain
+        # With estimated drivers, the predicted rows carry the estimates (so the shared design,
+        # built from the actual values, serves only ``hindsight``: the rows as they happened).
+        self.hindsight = hindsight
         self.cache: dict[str, tuple | Design] = {}
         if shared is not None:
             self.cache["train"] = _design_rows(shared, split.train)
@@ -257,14 +269,17 @@ class _WindowDesigns:
             self.cache["train"] = self.plan.training_design(self.split.train)
         return self.cache["train"]
 
-    def test(self, kind: str) -> Design:
-        frame = self.split.test
+    def test(self, kind: str, *, hindsight: bool = False) -> Design:
+        frame = self.hindsight if hindsight else self.split.test
         if kind in BASELINE_KINDS and self.shared is None:
             return series_design(frame, SERIES)
-        if "test" not in self.cache:
-            self.cache["test"] = (_design_rows(self.shared, frame)[0] if self.shared is not None
-                                  else self.plan.transform(frame))
-        return self.cache["test"]
+        name = "hindsight" if hindsight else "test"
+        if name not in self.cache:
+            as_happened = hindsight or self.hindsight is None
+            self.cache[name] = (_design_rows(self.shared, frame)[0]
+                                if self.shared is not None and as_happened
+                                else self.plan.transform(frame))
+        return self.cache[name]
 
     def left_out_notes(self) -> list[str]:
         """Return the training design's notes on rows left out of the fit, labelled."""
@@ -289,24 +304,31 @@ def _strategy_note(spec: Spec, split: Split) -> str | None:
 def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, choice, *,
                     stepwise: bool, fast_ols: dict, executor: Executor, progress: Progress):
     """Return one model's predictions of a window's rows (with standard errors and residual
-    df, or None) and the series it fell back to the mean for."""
+    df, or None), the series it fell back to the mean for, and, with estimated drivers, its
+    predictions had they been known (else None)."""
     tested_series = np.asarray(split.test[SERIES].to_numpy())
+    known = designs.hindsight is not None and choice.kind not in BASELINE_KINDS
     if choice.name == "ols" and split.label in fast_ols:
-        return (*fast_ols[split.label], [])
+        ahead, as_known = fast_ols[split.label]
+        return (*ahead, [], as_known[0] if known else None)
     if stepwise and choice.kind not in BASELINE_KINDS:
         # A target lag is shorter than the months ahead: the spec's multi_step strategy.
         predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
                                                       split.origin.ordinal,
                                                       executor=executor, progress=progress)
+        as_known = predict_ahead(spec, choice, split.train, designs.hindsight, split.origin.ordinal,
+                                 executor=executor)[0] if known else None
         return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)
-                                         for _, _, model in used]
+                                         for _, _, model in used], as_known
     model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
                        executor=executor, progress=progress)
     design, y_train = designs.train(choice.kind)
     model.fit(design, y_train)
     predicted = model.predict(designs.test(choice.kind))
     se, df_resid = prediction_spread(model, designs.test(choice.kind))
-    return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)]
+    as_known = model.predict(designs.test(choice.kind, hindsight=True)) if known else None
+    return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)], \
+        as_known
 
 
 def _fallback_frame(found: list[pd.DataFrame | None]) -> pd.DataFrame:
@@ -333,6 +355,14 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     time_ordered = spec.validation.method in ("holdout", "rolling_origin")
     splits, horizon, plans = plan_splits(spec, data)
     notes: list[str] = []
+    # Drivers nobody knows ahead are estimated after each origin from that window alone,
+    # as the forecast will estimate them; ``as_happened`` keeps the rows as they happened.
+    estimating = bool(spec.estimated_columns) and time_ordered
+    as_happened = splits
+    if estimating:
+        splits = [replace(split, test=plan.estimate_future(split.test))
+                  for split, plan in zip(splits, plans)]
+        notes += plans[-1].estimated_lag_notes(horizon)
     fast_ols: dict[str, tuple] = {}
     expanding = spec.validation.method == "rolling_origin" and spec.validation.window == "expanding"
     # Without lags or a target transform, every row of a window is fitted on as it is.
@@ -344,12 +374,17 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
                  and len({_plan_state(plan) for plan in plans}) == 1)
     shared = _shared_design(spec, plans[0], data) if same_plan else None
     if "ols" in spec.model_names and expanding and same_plan:
-        fast_ols = _growing_ols(spec, splits, plans[0], sorted_by_month(data.history))
-    frames = []
+        history = sorted_by_month(data.history)
+        ahead = _growing_ols(spec, splits, plans[0], history)
+        as_known = _growing_ols(spec, as_happened, plans[0], history) if estimating else ahead
+        if ahead and as_known:
+            fast_ols = {label: (ahead[label], as_known[label]) for label in ahead}
+    frames, known_frames = [], []
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
-    for split, plan in zip(splits, plans):
-        designs = _WindowDesigns(spec, split, plan, shared, plain)
+    for split, happened, plan in zip(splits, as_happened, plans):
+        designs = _WindowDesigns(spec, split, plan, shared, plain,
+                                 hindsight=happened.test if estimating else None)
         window_codes = series_index(designs.cache["train"][0]) if shared is not None else None
         scales = mase_scales(split.train, spec.target, series_codes=window_codes) if time_ordered else {}
         columns = _split_columns(split, spec.target, scales)
@@ -357,22 +392,31 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
         if note and note not in notes:
             notes.append(note)
         for choice in spec.models:
-            predicted, se, df_resid, fell_back = _predict_window(
+            predicted, se, df_resid, fell_back, as_known = _predict_window(
                 spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=fast_ols,
                 executor=executor, progress=progress)
             fallen_back += fell_back
             frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid))
+            if as_known is not None:
+                known_frames.append(_frame_predictions(columns, choice.name, as_known))
         notes += designs.left_out_notes()
         progress.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")
+        if spec.estimated_columns:
+            notes.append("k-fold folds have no origin, so the drivers castline estimates for the "
+                         "forecast are scored here at their actual values")
     predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
     fallbacks = _fallback_frame(fallen_back)
     if len(fallbacks):
         notes.insert(0, _fallback_note(fallbacks))
+    notes = notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"] if len(notes) > 5 else [])
+    ahead = ahead_words(spec)   # which drivers were known ahead leads the notes
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
-                          horizon=horizon, notes=notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"]
-                                                              if len(notes) > 5 else []),
-                          step=getattr(spec.validation, "step", 1), fallbacks=fallbacks)
+                          horizon=horizon, notes=([ahead + "."] if ahead else []) + notes,
+                          step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,
+                          hindsight=(pd.concat(known_frames, ignore_index=True)[PREDICTION_COLUMNS]
+                                     if known_frames else None),
+                          estimated=dict(spec.estimated_columns) if estimating else {})
 

@@ -43,6 +43,9 @@ class Evaluation:
     # Per model other than the mean baseline: how many series it beats the mean baseline on,
     # how many significantly, and the quartiles of its per-series skill (see ``series_summary``).
     series_summary: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # With drivers castline estimates: each model's metrics had those drivers been known
+    # (ex-post), the mean baseline first; empty otherwise. ``table`` is ex-ante.
+    hindsight: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def score(actual, predicted, scale=None) -> dict[str, float]:
@@ -283,6 +286,61 @@ def _with_series_tests(by_series: pd.DataFrame, tests: pd.DataFrame, level: floa
     return table
 
 
+def _hindsight_table(predictions: pd.DataFrame, hindsight: pd.DataFrame | None) -> pd.DataFrame:
+    """Return every metric of the models had the estimated drivers been known (ex-post),
+    with the mean baseline (which reads no driver) first; empty without such drivers."""
+    if hindsight is None or not len(hindsight):
+        return pd.DataFrame()
+    baseline = predictions[predictions["model"] == BASELINE]
+    return _with_skill(_scores_by(pd.concat([baseline, hindsight], ignore_index=True),
+                                  ["model"]), [])
+
+
+def _first_notes(spec: Spec, backtest: BacktestResult,
+                 table: pd.DataFrame) -> tuple[list[str], pd.DataFrame]:
+    """Return the notes that lead (which drivers were known ahead, the backtest's notes, and
+    what not knowing the estimated drivers costs each model) and the ex-post metrics."""
+    hindsight = _hindsight_table(backtest.predictions, backtest.hindsight)
+    return list(backtest.notes) + _hindsight_notes(spec, backtest, table, hindsight), hindsight
+
+
+def _hindsight_notes(spec: Spec, backtest: BacktestResult, table: pd.DataFrame,
+                     hindsight: pd.DataFrame) -> list[str]:
+    """Return, per model, what not knowing the estimated drivers ahead costs."""
+    if not len(hindsight):
+        return []
+    metric = spec.select_by
+    columns = list(backtest.estimated)
+    named = " and ".join([", ".join(columns[:-1]), columns[-1]] if len(columns) > 1 else columns)
+    after = hindsight.set_index("model")[metric]
+    notes = []
+    for row in table.itertuples():
+        if row.model == BASELINE or row.model not in after.index:
+            continue
+        ante, post = float(getattr(row, metric)), float(after[row.model])
+        change = (f" ({(ante - post) / post:+.0%} for not knowing them)"
+                  if post and metric in LOWER_IS_BETTER else "")
+        notes.append(f"{model_label(row.model)}: had {named} been known ahead, its {metric.upper()} "
+                     f"would have been {post:.4g} rather than {ante:.4g}{change}; the comparison "
+                     "and the intervals use the estimates, as the forecast must")
+    return notes
+
+
+def _against_mean(predictions: pd.DataFrame, model: str, backtest: BacktestResult,
+                  select_by: str) -> tuple[float, float, str | None]:
+    """Return the Diebold–Mariano statistic and p-value of a model against the mean baseline,
+    and what the test ran on; NaN, NaN and None when the model's predictions are the
+    baseline's up to rounding (a test of rounding noise would read as a finding)."""
+    own = predictions.loc[predictions["model"] == model, "prediction"].to_numpy(float)
+    base = predictions.loc[predictions["model"] == BASELINE, "prediction"].to_numpy(float)
+    if len(own) == len(base) and np.allclose(own, base, rtol=1e-9, atol=0):
+        return np.nan, np.nan, None
+    differences, lags, how = loss_differences(predictions, model, backtest, select_by)
+    test = diebold_mariano(differences, np.zeros_like(differences), horizon=lags) \
+        if len(differences) else None
+    return (test.statistic, test.p_value, how) if test else (np.nan, np.nan, how)
+
+
 def _p_text(p: float) -> str:
     if not np.isfinite(p):
         return "p not available"
@@ -295,7 +353,8 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     select_by = spec.select_by
     level = spec.significance_level
     table = _with_skill(_scores_by(predictions, ["model"]), [])
-    statistics, p_values, readings, notes = [], [], [], list(backtest.notes)
+    statistics, p_values, readings = [], [], []
+    notes, hindsight = _first_notes(spec, backtest, table)
     how = ""
     for model in table["model"]:
         if model == BASELINE:
@@ -303,15 +362,13 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
             p_values.append(np.nan)
             readings.append("the reference")
             continue
-        differences, lags, how = loss_differences(predictions, model, backtest, select_by)
-        test = diebold_mariano(differences, np.zeros_like(differences), horizon=lags) \
-            if len(differences) else None
-        statistic = test.statistic if test else np.nan
-        p = test.p_value if test else np.nan
+        statistic, p, ran_on = _against_mean(predictions, model, backtest, select_by)
         statistics.append(statistic)
         p_values.append(p)
-        readings.append(f"beats the mean baseline ({_p_text(p)})" if np.isfinite(p) and p < level
+        readings.append("the same forecasts as the mean baseline" if ran_on is None else
+                        f"beats the mean baseline ({_p_text(p)})" if np.isfinite(p) and p < level
                         else f"no better than the mean baseline ({_p_text(p)})")
+        how = ran_on or how
     table["test_statistic"] = statistics
     table["p_value"] = p_values
     table["against_mean"] = readings
@@ -360,4 +417,5 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
                       coverage=coverage(predictions),
                       recommended=recommended, beats_baseline=beats, verdict=verdict,
-                      select_by=select_by, notes=notes, series_summary=series_summary(by_series))
+                      select_by=select_by, notes=notes, series_summary=series_summary(by_series),
+                      hindsight=hindsight)

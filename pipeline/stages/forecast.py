@@ -23,6 +23,7 @@ from pipeline.core.errors import DataError
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
 from pipeline.core.progress import QUIET, Progress
+from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
@@ -237,14 +238,22 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     A model per series fits its chunks of series on ``executor`` and counts them on
     ``progress``.
     """
+    if spec.estimated_columns:
+        require_a_year(spec, int(data.history[PERIOD].nunique()), "the history")
     plan = plan_features(spec, SERIES).fit(data.history)
-    future = data.future.sort_values([PERIOD, SERIES], kind="stable")
+    given = data.future.sort_values([PERIOD, SERIES], kind="stable")
+    # Drivers nobody knows ahead: estimated from all history by the rule the backtest used
+    # (a scenario may then replace an estimate).
+    future = plan.estimate_future(given)
     history_design, y = plan.training_design(data.history)
     horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
     stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
     predict = _Predictor(spec, data, plan, stepwise, executor=executor, progress=progress)
     forecasts, coefficients, summaries = [], [], []
     warnings = [*history_design.notes]
+    if plan.future_ is not None and len(future):
+        warnings += plan.future_.notes(given, given_ignored=True)
+        warnings += plan.estimated_lag_notes(int(horizons.max()))
     if stepwise:
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")

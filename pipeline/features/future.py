@@ -1,0 +1,265 @@
+"""Drivers nobody knows ahead: their values after an origin, estimated from the window.
+
+A driver the user plans (a price list, promotion days) is ``given``: its values
+in the months predicted are read from the data, in the backtest as at forecast
+time. A driver nobody knows ahead (rainfall, an economic indicator) must be
+guessed at forecast time, so the backtest guesses it the same way: in every
+window, its values after the origin are replaced by an estimate learned from
+that window alone, by one of four rules:
+
+- ``month_mean``: the series' average for that calendar month over the window;
+- ``last_year``: the series' latest value for that calendar month (the same
+  month a year earlier, for months up to a year ahead);
+- ``last_value``: the series' last value;
+- ``mean``: the series' average.
+
+Where a series has no value to estimate from (a calendar month its window
+lacks, or a series new after the origin), the estimate falls back, in order, to
+the series' own value under the next coarser rule (its last value or its
+average), to the average over all series for that calendar month, and to the
+average of every value in the window; ``notes`` counts these.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from pipeline.core.columns import month_ordinals
+from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
+from pipeline.spec import Spec
+from pipeline.spec.schema import ESTIMATE_RULES
+
+# Rules that read a calendar month of the window, and so need a year of it.
+SEASONAL_RULES = ("month_mean", "last_year")
+RULE_WORDS = {
+    "month_mean": "each series' average for that calendar month",
+    "last_year": "the same month a year earlier",
+    "last_value": "each series' last value",
+    "mean": "each series' average",
+}
+
+
+def calendar_month(ordinals: np.ndarray) -> np.ndarray:
+    """Return the calendar month (1 to 12) of month ordinals (0 = January 1970)."""
+    return np.asarray(ordinals, dtype=np.int64) % 12 + 1
+
+
+class _ColumnEstimate:
+    """What one column's rule learned from a window, as lookup tables."""
+
+    def __init__(self, by_month: pd.Series | None, by_series: pd.Series,
+                 pooled_month: pd.Series, overall: float) -> None:
+        self.by_month = by_month          # keyed by (series, calendar month), or None
+        self.by_series = by_series        # keyed by series
+        self.pooled_month = pooled_month  # keyed by calendar month
+        self.overall = overall
+
+    @classmethod
+    def learn(cls, rule: str, series: np.ndarray, months: np.ndarray,
+              values: np.ndarray) -> _ColumnEstimate:
+        present = ~np.isnan(values)
+        table = pd.DataFrame({"series": series[present], "month": months[present],
+                              "moy": calendar_month(months[present]), "value": values[present]})
+        table = table.sort_values("month", kind="stable")
+        by_series_of = table.groupby("series", sort=True)["value"]
+        latest = rule in ("last_year", "last_value")
+        by_series = by_series_of.last() if latest else by_series_of.mean()
+        by_month = None
+        if rule in SEASONAL_RULES:
+            grouped = table.groupby(["series", "moy"], sort=True)["value"]
+            by_month = grouped.last() if rule == "last_year" else grouped.mean()
+        pooled_month = table.groupby("moy", sort=True)["value"].mean()
+        overall = float(table["value"].mean()) if len(table) else float("nan")
+        return cls(by_month, by_series.astype(float), pooled_month.astype(float), overall)
+
+    def estimate(self, series: np.ndarray, months: np.ndarray) -> tuple[np.ndarray, int]:
+        """Return the estimates of rows given by series and month, and how many fell back
+        from the rule's own table."""
+        moy = calendar_month(months)
+        values = np.full(len(series), np.nan)
+        if self.by_month is not None:
+            wanted = pd.MultiIndex.from_arrays([series, moy])
+            values = self.by_month.reindex(wanted).to_numpy(float)
+        else:
+            values = self.by_series.reindex(series).to_numpy(float)
+        fell_back = int(np.isnan(values).sum())
+        for fallback in (lambda: self.by_series.reindex(series).to_numpy(float),
+                         lambda: self.pooled_month.reindex(moy).to_numpy(float)):
+            missing = np.isnan(values)
+            if not missing.any():
+                break
+            values = np.where(missing, fallback(), values)
+        return np.where(np.isnan(values), self.overall, values), fell_back
+
+    def to_dict(self) -> dict:
+        return {"by_month": self.by_month, "by_series": self.by_series,
+                "pooled_month": self.pooled_month, "overall": self.overall}
+
+
+class FutureEstimates:
+    """Estimates of the columns castline must guess after an origin, learned from one window.
+
+    ``fit`` learns each column's tables from the training window (its values up to
+    the origin, ``window_end_``); ``apply`` returns rows with those columns replaced
+    by their estimates in every month after the origin, and leaves the other rows
+    and columns as they are.
+    """
+
+    def __init__(self, rules: dict[str, str], series_column: str) -> None:
+        unknown = sorted(set(rules.values()) - set(ESTIMATE_RULES))
+        if unknown:
+            raise ValueError(f"no such estimate rule: {unknown[0]}")
+        self.rules = dict(rules)
+        self.series_column = series_column
+
+    def fit(self, frame: pd.DataFrame) -> FutureEstimates:
+        months = month_ordinals(frame)
+        self.window_end_ = int(months.max())
+        series = frame[self.series_column].to_numpy()
+        self.tables_ = {column: _ColumnEstimate.learn(rule, series, months,
+                                                      frame[column].to_numpy(float))
+                        for column, rule in self.rules.items()}
+        return self
+
+    def after_origin(self, frame: pd.DataFrame) -> np.ndarray:
+        """Return which rows fall after the window's last month."""
+        return month_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
+
+    def apply(self, frame: pd.DataFrame) -> pd.DataFrame:
+        """Return the rows with every estimated column replaced after the origin."""
+        later = self.after_origin(frame)
+        if not later.any():
+            return frame
+        changed = frame.copy()
+        series = frame[self.series_column].to_numpy()[later]
+        months = month_ordinals(frame)[later]
+        for column, table in self.tables_.items():
+            # A file of months to forecast may leave an estimated driver out altogether.
+            values = (changed[column].to_numpy(float, copy=True) if column in changed.columns
+                      else np.full(len(changed), np.nan))
+            values[later] = table.estimate(series, months)[0]
+            changed[column] = values
+        return changed
+
+    def notes(self, frame: pd.DataFrame, *, given_ignored: bool = False) -> list[str]:
+        """Return what estimating the rows after the origin did: estimates that fell back
+        to a coarser rule, and (``given_ignored``) values the rows held that were ignored."""
+        later = self.after_origin(frame)
+        if not later.any():
+            return []
+        found = []
+        series = frame[self.series_column].to_numpy()[later]
+        months = month_ordinals(frame)[later]
+        for column, table in self.tables_.items():
+            fell_back = table.estimate(series, months)[1]
+            rule = self.rules[column]
+            if fell_back:
+                found.append(f"{column}: {fell_back} of {int(later.sum())} estimated values "
+                             f"({rule}) had no value of their own series "
+                             f"{'and calendar month ' if rule in SEASONAL_RULES else ''}in the "
+                             "training window and used a coarser average")
+            held = (int(frame[column].notna().to_numpy()[later].sum())
+                    if column in frame.columns else 0)
+            if given_ignored and held:
+                found.append(f"{column}: the {held} values given in the months to forecast "
+                             f"were ignored; it is estimated ({rule}: {RULE_WORDS[rule]}), as "
+                             "in the backtest")
+        return found
+
+    def to_dict(self) -> dict:
+        """Return the rules and the learned tables, as stored in a model file."""
+        return encode_fields({"rules": self.rules, "series_column": self.series_column,
+                              "window_end_": self.window_end_,
+                              "tables_": {c: t.to_dict() for c, t in self.tables_.items()}})
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> FutureEstimates:
+        """Return the fitted estimates ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, version=version) as fields:
+            rules = fields.value("rules")
+            if not isinstance(rules, dict) or not all(
+                    isinstance(c, str) and r in ESTIMATE_RULES for c, r in rules.items()):
+                raise fields.bad("rules", "estimate rules by column")
+            estimates = cls(rules, fields.text("series_column"))
+            estimates.window_end_ = fields.whole("window_end_")
+            tables = fields.value("tables_")
+            if not isinstance(tables, dict) or sorted(tables) != sorted(rules):
+                raise fields.bad("tables_", "one table per estimated column")
+            estimates.tables_ = {column: _read_table(fields, column, entry)
+                                 for column, entry in tables.items()}
+        return estimates
+
+
+def _read_table(fields: StoredFields, column: str, entry) -> _ColumnEstimate:
+    if not isinstance(entry, dict) or sorted(entry) != ["by_month", "by_series", "overall",
+                                                       "pooled_month"]:
+        raise fields.bad("tables_", f"the tables of '{column}'")
+    for key in ("by_series", "pooled_month"):
+        if not isinstance(entry[key], pd.Series) or not pd.api.types.is_numeric_dtype(entry[key]):
+            raise fields.bad("tables_", f"numbers keyed for '{column}' ({key})")
+    by_month = entry["by_month"]
+    if by_month is not None and not (isinstance(by_month, pd.Series) and by_month.index.nlevels == 2):
+        raise fields.bad("tables_", f"numbers keyed by series and month for '{column}'")
+    if not isinstance(entry["overall"], (int, float)):
+        raise fields.bad("tables_", f"a number for '{column}' (overall)")
+    return _ColumnEstimate(by_month, entry["by_series"], entry["pooled_month"],
+                           float(entry["overall"]))
+
+
+def estimate_keys(spec: Spec) -> dict[str, tuple]:
+    """Return the spec key of each estimated column's rule."""
+    keys = {}
+    for index, driver in enumerate(spec.drivers.numeric):
+        if driver.future in ESTIMATE_RULES:
+            keys[driver.column] = ("drivers", "numeric", index, "future")
+    for index, lagged in enumerate(spec.drivers.lags):
+        if lagged.column in spec.estimated_columns and lagged.column not in keys:
+            keys[lagged.column] = ("drivers", "lags", index, "future")
+    return keys
+
+
+def require_a_year(spec: Spec, window_months: int, window: str) -> None:
+    """Stop with a SpecError when a calendar-month rule has less than a year to read."""
+    if window_months >= 12:
+        return
+    keys = estimate_keys(spec)
+    for column, rule in spec.estimated_columns.items():
+        if rule in SEASONAL_RULES:
+            raise spec.error(keys[column], f"{rule} estimates '{column}' from each calendar month "
+                                           f"of the training window, but {window} has only "
+                                           f"{window_months} months; it needs at least 12 "
+                                           "(or use future: last_value or mean)")
+
+
+def drivers_ahead(spec: Spec) -> dict:
+    """Return which drivers the backtest scores at their actual values (``given``: numeric
+    and categorical drivers, and whether calendar terms are used) and which castline
+    estimates after each origin, with their rules (``estimated``)."""
+    estimated = spec.estimated_columns
+    given = [d.column for d in spec.drivers.numeric if d.column not in estimated]
+    given += [d.column for d in spec.drivers.categorical]
+    calendar = spec.drivers.calendar
+    return {"given": given, "estimated": dict(estimated),
+            "calendar": bool(calendar is not None and (
+                calendar.trend or calendar.month_of_year != "none" or calendar.quarter
+                or calendar.working_days))}
+
+
+def ahead_words(spec: Spec) -> str | None:
+    """Return, in words, which drivers are treated as known ahead and which are estimated;
+    None when the spec has no driver a month ahead could depend on."""
+    ahead = drivers_ahead(spec)
+    given = ahead["given"] + (["the calendar terms"] if ahead["calendar"] else [])
+    estimated = ahead["estimated"]
+    if not given and not estimated:
+        return None
+    parts = []
+    if given:
+        parts.append(f"known ahead (scored at their actual values, as a plan would give them): "
+                     f"{', '.join(given)}")
+    if estimated:
+        parts.append("estimated by castline from each training window, in the backtest and the "
+                     "forecast alike: " + ", ".join(f"{column} ({rule})"
+                                                   for column, rule in estimated.items()))
+    return "Drivers " + "; ".join(parts)
