@@ -17,6 +17,20 @@ DEMO_SPEC = ROOT / "configs" / "compost_demo.yaml"
 DEMO_DATA = ROOT / "data_samples" / "compost_sales.csv"
 
 
+def demo_with_planned_weather() -> pd.DataFrame:
+    """Return the demo data with the months to forecast given rainfall and temperature (the
+    same month a year earlier, as if someone had planned them), for tests of drivers whose
+    future values are in the data; the demo itself leaves them empty for castline to estimate."""
+    frame = pd.read_csv(DEMO_DATA)
+    months = pd.PeriodIndex(frame["month"], freq="M")
+    earlier = frame.set_index([frame["region"], months])
+    ahead = frame["bags_sold"].isna()
+    for column in ("rainfall_mm", "mean_temp_c"):
+        wanted = pd.MultiIndex.from_arrays([frame.loc[ahead, "region"], months[ahead.to_numpy()] - 12])
+        frame.loc[ahead, column] = earlier[column].reindex(wanted).to_numpy()
+    return frame
+
+
 @pytest.fixture
 def demo_spec_path() -> Path:
     return DEMO_SPEC

@@ -190,7 +190,7 @@ def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):
     data.to_csv(tmp_path / "big.csv", index=False)
     spec = DEMO_SPEC.read_text(encoding="utf-8")
     spec = spec.replace("../data_samples/compost_sales.csv", "big.csv").replace(
-        "    - rainfall_mm\n", "    - column: rainfall_mm\n      degree: 6\n")
+        "    - column: rainfall_mm\n", "    - column: rainfall_mm\n      degree: 6\n")
     (tmp_path / "spec.yaml").write_text(spec, encoding="utf-8")
     with pytest.raises(DataError) as stopped:
         pipeline.run(tmp_path / "spec.yaml", output_folder=tmp_path / "out")

@@ -51,6 +51,20 @@ def test_a_version_1_model_file_forecasts_what_its_run_wrote(name, tmp_path, cap
     _assert_same_forecasts(output, folder)
 
 
+V2 = TEST_DATA / "model_files_v2"
+
+
+@pytest.mark.parametrize("name", ["estimated"])
+def test_a_version_2_model_file_forecasts_what_its_run_wrote(name, tmp_path, capsys):
+    # Its months to forecast leave the estimated drivers empty: the stored estimates fill them.
+    folder = V2 / name
+    output = tmp_path / "forecast.csv"
+    code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
+                     "--output", str(output)])
+    assert code == 0, capsys.readouterr().err
+    _assert_same_forecasts(output, folder)
+
+
 def test_a_version_1_model_file_forecasts_through_the_command_in_a_subprocess(tmp_path):
     folder = V1 / "wide"
     output = tmp_path / "forecast.csv"

@@ -7,8 +7,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import pandas as pd
-from conftest import DEMO_DATA
+from conftest import demo_with_planned_weather
 
 import pipeline
 
@@ -44,7 +43,10 @@ output:
 """
 
 
-def write(tmp_path: Path, transform: str = "log", lag: int = 12, data: Path = DEMO_DATA) -> Path:
+def write(tmp_path: Path, transform: str = "log", lag: int = 12, data: Path | None = None) -> Path:
+    if data is None:   # the demo, with its weather given in the months to forecast
+        data = tmp_path / "planned.csv"
+        demo_with_planned_weather().to_csv(data, index=False)
     path = tmp_path / "spec.yaml"
     path.write_text(SPEC.format(data=data, transform=transform, lag=lag, out=tmp_path / "runs"),
                     encoding="utf-8")
@@ -59,7 +61,7 @@ def test_the_demo_spec_runs(demo_spec_path, tmp_path):
 
 
 def test_a_log_target_run_says_it_applied_the_smearing_correction(tmp_path):
-    frame = pd.read_csv(DEMO_DATA)
+    frame = demo_with_planned_weather()
     frame.loc[len(frame) - 2, "rainfall_mm"] = None                 # a month to forecast lacks rain
     frame.to_csv(tmp_path / "data.csv", index=False)
     result = pipeline.run(write(tmp_path, data=tmp_path / "data.csv"))

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-from conftest import DEMO_DATA
+from conftest import demo_with_planned_weather
 
 from pipeline.runner import check
 from pipeline.stages.check import CheckFailed
@@ -41,7 +41,7 @@ def write(tmp_path: Path, frame: pd.DataFrame, fill: str = "", top: str = "") ->
 
 @pytest.fixture
 def demo() -> pd.DataFrame:
-    return pd.read_csv(DEMO_DATA)
+    return demo_with_planned_weather()      # rainfall is given in the months to forecast
 
 
 def test_a_driver_without_a_fill_may_not_be_missing(tmp_path, demo):
