@@ -371,7 +371,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     # When every window's plan learned the same thing, the design of the whole history is
     # built once and each window reads its rows: a row's terms depend on that row alone.
     same_plan = (plain and time_ordered and len(splits) > 1 and bool(linear)
-                 and len({_plan_state(plan) for plan in plans}) == 1)
+                 and len({_plan_state(plan) for plan in plans}) == 1
+                 and not any(split.refilled for split in splits))
     shared = _shared_design(spec, plans[0], data) if same_plan else None
     if "ols" in spec.model_names and expanding and same_plan:
         history = sorted_by_month(data.history)
@@ -399,7 +400,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
             frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid))
             if as_known is not None:
                 known_frames.append(_frame_predictions(columns, choice.name, as_known))
-        notes += designs.left_out_notes()
+        notes += designs.left_out_notes() + list(split.notes)
         progress.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "

@@ -79,6 +79,11 @@ class CheckedData:
     future: pd.DataFrame
     raw: RawInput
     problems_allowed: list[Problem] = field(default_factory=list)
+    # Which numeric cells of history ``input.gaps: fill`` gave a value (True), one row per
+    # history row in its order, one column per column filled; None when nothing was filled.
+    # The fill above reads the whole history, right for a fit on all of it; the backtest
+    # fills each training window again from its own months (stages/splits.py).
+    filled: pd.DataFrame | None = None
 
     @property
     def first_period(self) -> pd.Period:
@@ -291,7 +296,7 @@ def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str) -> Problem:
 
 def _fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec) -> pd.DataFrame:
     """Return the frame with each missing month inserted, numbers interpolated in time."""
-    numeric = [c for c, r in effective_rules(spec).items() if r.type in ("number", "whole_number")]
+    numeric = _numeric_columns(spec)
     filled = []
     for series, rows in frame.groupby(SERIES, sort=False):
         rows = rows.set_index(PERIOD).sort_index()
@@ -312,6 +317,23 @@ def _fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec) -> pd.DataFr
         grown[SERIES] = series
         filled.append(grown.reset_index())
     return pd.concat(filled, ignore_index=True)
+
+
+def _numeric_columns(spec: Spec) -> list[str]:
+    return [c for c, r in effective_rules(spec).items() if r.type in ("number", "whole_number")]
+
+
+def filled_cells(before: pd.DataFrame, after: pd.DataFrame, spec: Spec) -> pd.DataFrame:
+    """Return, for each row of ``after``, which numeric cells hold a value that ``before``
+    lacked: every value of an inserted month (no file row), and the empty cells filled.
+
+    Rows are matched by their line in the file (``ROW``); ``after`` keeps its index.
+    """
+    numeric = _numeric_columns(spec)
+    at = pd.Index(before[ROW].to_numpy(float)).get_indexer(after[ROW].to_numpy(float))
+    given = before[numeric].notna().to_numpy()[at] & (at >= 0)[:, None]
+    now = after[numeric].notna().to_numpy()
+    return pd.DataFrame(now & ~given, index=after.index, columns=numeric)
 
 
 def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[Problem], list[Problem]]:
@@ -423,6 +445,14 @@ def _as_of(spec: Spec, today: date | None) -> pd.Period:
 def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
                   ) -> tuple[pd.DataFrame | None, list[Problem], list[Problem]]:
     """Return the validated frame (or None), the problems that stop a run, and those allowed."""
+    frame, _, problems, allowed = _checked(spec, raw, today)
+    return frame, problems, allowed
+
+
+def _checked(spec: Spec, raw: RawInput, today: date | None
+             ) -> tuple[pd.DataFrame | None, pd.DataFrame | None, list[Problem], list[Problem]]:
+    """Return the validated frame (or None), which of its numeric cells the gaps policy
+    filled (None when it filled none), the problems that stop a run, and those allowed."""
     schema = build_schema(spec)
     # The spec's columns in a frame of their own, coerced to their types there: the raw
     # input stays as it was read, and the file's other columns are never copied.
@@ -432,7 +462,7 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     except pa.errors.SchemaErrors as exc:
         problems = _problems_from_pandera(exc.failure_cases, raw, typed)
         problems += _calendar_despite(problems, spec, raw, typed, today)
-        return None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
+        return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     # Plain Python strings: the series labels are read as arrays many times downstream.
@@ -440,6 +470,7 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
     problems = _duplicates(frame, spec)
     allowed: list[Problem] = []
+    as_read = frame
     gaps = missing_months(frame)
     if len(gaps) and spec.input.gaps == "refuse":
         problems.append(_gap_problem(gaps, spec, "month missing"))
@@ -452,7 +483,9 @@ def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
     problems += refused
     allowed += accepted
     problems += _history_and_future(frame, spec, _as_of(spec, today))
-    return frame, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
+    filled = (filled_cells(as_read, frame, spec)
+              if spec.input.gaps == "fill" and frame is not as_read else None)
+    return frame, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
 
 
 def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd.DataFrame,
@@ -502,11 +535,14 @@ def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> Check
 
     Raises CheckFailed carrying every problem found.
     """
-    frame, problems, allowed = find_problems(spec, raw, today=today)
+    frame, filled, problems, allowed = _checked(spec, raw, today)
     if problems:
         raise CheckFailed(problems, str(raw.path))
     # Rows keep the file's order; the stages that write tables order what they write.
     has_target = frame[spec.target].notna()
+    if filled is not None:
+        filled = filled[has_target].reset_index(drop=True)
+        filled = filled.loc[:, filled.any()] if filled.to_numpy().any() else None
     return CheckedData(history=frame[has_target].reset_index(drop=True),
                        future=frame[~has_target].reset_index(drop=True), raw=raw,
-                       problems_allowed=allowed)
+                       problems_allowed=allowed, filled=filled)

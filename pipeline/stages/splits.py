@@ -2,6 +2,11 @@
 
 Time-ordered schemes (holdout, rolling origin) cut the sorted months at each
 origin; k-fold and grouped k-fold cut rows without a time order.
+
+With ``input.gaps: fill`` the check interpolated the filled cells over the whole
+history, reading actuals after a window's origin. Each time-ordered training
+window fills them again from its own months (``refill_window``), and months
+whose target was filled are never predicted as if they were actuals.
 """
 
 from __future__ import annotations
@@ -35,6 +40,10 @@ class Split:
     train: pd.DataFrame
     test: pd.DataFrame
     origin: pd.Period | None = None
+    # The training rows held cells filled by input.gaps: fill, filled again from the
+    # window's own months: they differ from the same rows of the checked history.
+    refilled: bool = False
+    notes: tuple[str, ...] = ()
 
 
 def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap: int = 0,
@@ -86,6 +95,7 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
         horizon = validation.gap + validation.horizon
     splits = []
     history = sorted_by_month(data.history)
+    filled = _filled_in_month_order(data)
     ordinals = history[PERIOD].array.asi8
 
     def rows(first: int, last: int) -> slice:
@@ -93,13 +103,78 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
                      int(np.searchsorted(ordinals, months[last].ordinal, side="right")))
 
     for window in windows:
-        # Windows are slices of the month-sorted history: no copy of the training rows.
+        # Windows are slices of the month-sorted history: no copy of the training rows, unless
+        # input.gaps: fill filled some of them (filled again from the window's own months).
         origin = months[window.origin]
-        splits.append(Split(label=str(origin), train=history.iloc[rows(window.train_start, window.origin)],
-                            test=history.iloc[rows(window.test_start, window.test_end)]
-                            .sort_values([PERIOD, SERIES], kind="stable"),
-                            origin=origin))
+        train_rows, test_rows = rows(window.train_start, window.origin), rows(window.test_start, window.test_end)
+        train, test = history.iloc[train_rows], history.iloc[test_rows]
+        refilled, notes = False, ()
+        if filled is not None:
+            test = test[~_filled_target(filled, spec.target)[test_rows]]
+            if not len(test):
+                continue  # every month it would predict was filled, not observed
+            marks = filled.iloc[train_rows]
+            if marks.to_numpy().any():
+                train, left_out = refill_window(train, marks)
+                refilled = True
+                notes = (f"window ending {origin}: {left_out} row(s) filled by input.gaps were "
+                         "left out of its fit: the window's own months cannot fill them (the gap "
+                         "runs past the origin or starts before the window)",) if left_out else ()
+        splits.append(Split(label=str(origin), train=train,
+                            test=test.sort_values([PERIOD, SERIES], kind="stable"),
+                            origin=origin, refilled=refilled, notes=notes))
+    if not splits:
+        raise spec.error(("input", "gaps"), "every month the validation predicts was filled by "
+                                            "interpolation (input.gaps: fill): no actual to score")
     return splits, horizon
+
+
+def _filled_in_month_order(data: CheckedData) -> pd.DataFrame | None:
+    """Return which history cells input.gaps: fill gave a value, in the rows' month order
+    (row for row with ``sorted_by_month(data.history)``), or None when none was filled."""
+    if data.filled is None:
+        return None
+    order = np.argsort(data.history[PERIOD].array.asi8, kind="stable")
+    return data.filled.iloc[order].reset_index(drop=True)
+
+
+def _filled_target(filled: pd.DataFrame, target: str) -> np.ndarray:
+    """Return, per row, whether its target was filled rather than given."""
+    if target not in filled.columns:
+        return np.zeros(len(filled), bool)
+    return filled[target].to_numpy(bool)
+
+
+def refill_window(train: pd.DataFrame, marks: pd.DataFrame) -> tuple[pd.DataFrame, int]:
+    """Return a training window with its filled cells interpolated again from the window's own
+    given values, and how many rows were left out.
+
+    ``marks``: which cells were filled (one row per training row, in order; one column per
+    filled column). Each is interpolated linearly in time between the nearest given months of
+    its series inside the window; a row with a filled cell that has no given month after it
+    inside the window (its gap runs past the origin) or before it is left out.
+    """
+    frame = train.copy()
+    months = frame[PERIOD].array.asi8.astype(float)
+    series = frame[SERIES].to_numpy()
+    positions = pd.Series(np.arange(len(frame))).groupby(series, sort=False).indices
+    left_out = np.zeros(len(frame), bool)
+    for column in marks.columns:
+        marked = marks[column].to_numpy(bool)
+        if not marked.any():
+            continue
+        values = frame[column].to_numpy(float).copy()
+        values[marked] = np.nan
+        for name in pd.unique(series[marked]):
+            rows = positions[name]   # in month order: the window is sorted by month
+            given = rows[~np.isnan(values[rows])]
+            wanted = rows[marked[rows]]
+            if len(given):
+                wanted = wanted[(months[wanted] > months[given[0]]) & (months[wanted] < months[given[-1]])]
+                values[wanted] = np.interp(months[wanted], months[given], values[given])
+        frame[column] = values
+        left_out |= marked & np.isnan(values)
+    return (frame[~left_out] if left_out.any() else frame), int(left_out.sum())
 
 
 def sorted_by_month(history: pd.DataFrame) -> pd.DataFrame:
@@ -126,8 +201,12 @@ def fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
                              f"{validation.folds} folds need as many groups; the columns "
                              f"{', '.join(validation.group_by)} hold {groups.nunique()}")
         folds = GroupKFold(n_splits=validation.folds).split(history, groups=groups)
-    return [Split(label=f"fold {k + 1}", train=history.iloc[train], test=history.iloc[test])
-            for k, (train, test) in enumerate(folds)]
+    # A month filled by input.gaps: fill is not an actual: it is never scored (the folds,
+    # without a time order, still fit on it).
+    observed = (np.ones(len(history), bool) if data.filled is None
+                else ~_filled_target(data.filled, spec.target))
+    return [Split(label=f"fold {k + 1}", train=history.iloc[train], test=history.iloc[test[observed[test]]])
+            for k, (train, test) in enumerate(folds) if observed[test].any()]
 
 
 def validation_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
