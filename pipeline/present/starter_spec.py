@@ -8,8 +8,9 @@ from pathlib import Path
 
 import yaml
 
+from pipeline.core.formatting import format_number
 from pipeline.spec import CsvOptions
-from pipeline.stages.survey import MAX_LEVELS, Inference
+from pipeline.stages.survey import CALENDAR_MONTHS, MAX_LEVELS, Inference
 
 
 def _yaml_value(value) -> str:
@@ -23,15 +24,88 @@ def _gaps_line(found: Inference) -> str:
     return "  gaps: refuse            # months missing inside a series: refuse | allow | fill"
 
 
+def _lookalike_lines(found: Inference) -> list[str]:
+    if not found.target_lookalikes:
+        return []
+    listed = ", ".join(f"{column} (r = {format_number(r)})" for column, r in found.target_lookalikes.items())
+    return ["# Other columns that move with the target month by month (candidates for the target, "
+            "not drivers: they would leak it):",
+            f"# {listed}"]
+
+
+def _future_comment(found: Inference, column: str) -> str:
+    if found.driver_future[column] == "given":
+        return "the months to forecast carry its values"
+    if not found.future_rows:
+        return "estimated: see above"
+    empty = found.future_missing[column]
+    return (f"empty in {empty} of the {found.future_rows} rows to forecast: estimated, "
+            "in the backtest too")
+
+
+def _numeric_lines(found: Inference) -> list[str]:
+    if not found.numeric_drivers:
+        return ["  numeric: []"]
+    lines = ["  # future: how a driver's values in the months to forecast are found. given: the "
+             "file carries them",
+             "  # (a plan, a price list); month_mean: castline estimates them (the series' "
+             "average for that",
+             "  # calendar month, learned in each training window)."]
+    if not found.future_rows:
+        lines += ["  # The file has no months to forecast (rows after the last actual, target "
+                  "empty), so castline",
+                  "  # cannot tell which drivers you know in advance: each is estimated, so the "
+                  "backtest never uses",
+                  "  # a value you would not have had. Write 'future: given' for one you plan "
+                  "(a price list) and",
+                  "  # add the months to forecast with its values."]
+    lines.append("  numeric:")
+    for column in found.numeric_drivers:
+        rule = found.driver_future[column]
+        lines += [f"    - column: {_yaml_value(column)}",
+                  f"      future: {rule:<11}# {_future_comment(found, column)}"]
+    return lines
+
+
+def _calendar_lines(found: Inference) -> list[str]:
+    months = found.history_periods
+    if months >= CALENDAR_MONTHS:
+        return [f"  calendar:                 # {months} months of history: a straight-line trend "
+                "and the season of the year",
+                "    trend: true",
+                "    month_of_year: fourier"]
+    return [f"  # calendar (trend, month_of_year) left out: {months} months of history are too few "
+            "to tell a trend",
+            f"  # from the season; add them once there are {CALENDAR_MONTHS} (each calendar month "
+            "seen twice)."]
+
+
+def _column_lines(found: Inference) -> list[str]:
+    used = {found.date_column, found.target, *found.series, *found.numeric_drivers,
+            *found.categorical_drivers}
+    lines = []
+    for column, kind in found.types.items():
+        if column not in used:
+            continue
+        rule = {"type": kind}
+        if column == found.target and found.missing[column]:
+            rule["missing_allowed"] = True
+        if kind == "category" and len(found.levels.get(column, [])) <= MAX_LEVELS:
+            rule["allowed"] = found.levels[column]
+        lines.append(f"  {_yaml_value(column)}: {_yaml_value(rule)}")
+    return lines
+
+
 def render_spec(found: Inference, spec_path: Path) -> str:
     """Return a commented starter spec for the inferred data."""
     data_file = os.path.relpath(found.path.resolve(), spec_path.resolve().parent)
     name = re.sub(r"[^A-Za-z0-9_.-]+", "-", found.path.stem).strip("-.") or "forecast"
     periods = found.periods
-    holdout = min(12, max(1, periods // 5))
+    holdout = min(12, max(1, found.history_periods // 5))
     lines = [
         f"# Starter spec written by 'castline init' from {found.path.name}",
-        f"# ({found.rows} rows, {periods} months). Everything below is a guess to check and edit.",
+        f"# ({found.rows} rows, {periods} months, {found.history_periods} of them with the target). "
+        "Everything below is a guess to check and edit.",
         "",
         f"name: {_yaml_value(name)}",
         "",
@@ -51,27 +125,18 @@ def render_spec(found: Inference, spec_path: Path) -> str:
         _gaps_line(found),
         "",
         f"# Other candidates for the target: {', '.join(found.target_candidates[1:]) or 'none'}",
+        *_lookalike_lines(found),
         f"target: {_yaml_value(found.target)}",
         "",
         "drivers:",
-        "  numeric:" + ("" if found.numeric_drivers else " []"),
-        *[f"    - {_yaml_value(c)}" for c in found.numeric_drivers],
+        *_numeric_lines(found),
         "  categorical:" + ("" if found.categorical_drivers or found.series else " []"),
         *[f"    - column: {_yaml_value(c)}\n      encoding: one_hot" for c in found.categorical_drivers + found.series],
+        *_calendar_lines(found),
         "",
-        "# What each column must hold; a run stops when the data breaks a rule.",
+        "# What each column the spec uses must hold; a run stops when the data breaks a rule.",
         "columns:",
-    ]
-    for column, kind in found.types.items():
-        rule = {"type": kind}
-        if found.missing[column] and column not in (found.date_column,):
-            rule["missing_allowed"] = True
-        if kind == "category" and len(found.levels.get(column, [])) <= MAX_LEVELS:
-            rule["allowed"] = found.levels[column]
-        if column in found.numeric_drivers or column in found.categorical_drivers + found.series:
-            rule.pop("missing_allowed", None)
-        lines.append(f"  {_yaml_value(column)}: {_yaml_value(rule)}")
-    lines += [
+        *_column_lines(found),
         "",
         f"# Test out of sample on the last {holdout} months of history.",
         "validation:",

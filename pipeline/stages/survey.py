@@ -1,5 +1,6 @@
 """Survey a data file for a starter spec: column types, the date column and its
-frequency, the likely series key and target candidates.
+frequency, the likely series key and target candidates, which numeric drivers the months
+to forecast carry, and which columns track the target too closely to be drivers.
 
 Used by ``castline init DATA_FILE``. The survey is a first draft for a person to
 edit, not a checked spec."""
@@ -23,6 +24,15 @@ _DATE_NAMES = ("month", "date", "period", "time", "day", "week")
 
 MAX_LEVELS = 30
 
+# A column that moves with the target month by month this closely (|Pearson r| over the
+# history, all series pooled) and has no values in the months to forecast is most likely
+# another measure of the outcome: offered as a driver, it would leak the target.
+LOOKALIKE_R = 0.9
+
+# From two full years on, each calendar month is seen twice and a trend can be told
+# from the season: the starter then offers both.
+CALENDAR_MONTHS = 24
+
 
 @dataclass
 class Inference:
@@ -45,6 +55,14 @@ class Inference:
     periods: int
     history_gaps: int = 0
     notes: list[str] = field(default_factory=list)
+    history_periods: int = 0
+    future_rows: int = 0
+    # Each numeric driver's future rule: given when every month to forecast has its value,
+    # month_mean otherwise (some empty, or no months to forecast in the file at all).
+    driver_future: dict[str, str] = field(default_factory=dict)
+    future_missing: dict[str, int] = field(default_factory=dict)
+    # Columns left out of the drivers because they track the target: column -> Pearson r.
+    target_lookalikes: dict[str, float] = field(default_factory=dict)
 
 
 def guess_format(path: Path) -> str:
@@ -140,6 +158,15 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     candidates = [c for c in candidates if not re.search(r"(^|_)(id|code|key)$", c.lower())] or candidates
     target = candidates[0]
     history_gaps = _count_history_gaps(frame, months, series, target)
+    history, future = _history_and_future_rows(frame, months, target)
+    others = [c for c in numeric if c != target]
+    future_missing = {c: int(frame.loc[future, c].isna().sum()) for c in others}
+    driver_future = {c: "given" if future.any() and not future_missing[c] else "month_mean"
+                     for c in others}
+    # Only a column the file cannot supply ahead is suspect: a planned one is known in time.
+    correlations = {c: _same_month_r(frame, history, target, c) for c in others
+                    if driver_future[c] != "given"}
+    lookalikes = {c: r for c, r in correlations.items() if r is not None and abs(r) > LOOKALIKE_R}
     levels = {c: sorted(frame[c].dropna().astype(str).unique().tolist()) for c in categories}
     notes = []
     if frequency != "month":
@@ -150,9 +177,32 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
         missing={c: int(frame[c].isna().sum()) for c in frame.columns}, levels=levels,
         date_column=date_column, frequency=frequency, series=series, target=target,
         target_candidates=candidates[:5],
-        numeric_drivers=[c for c in numeric if c != target],
+        numeric_drivers=[c for c in others if c not in lookalikes],
         categorical_drivers=[c for c in categories if c not in series],
-        periods=int(months.nunique()), history_gaps=history_gaps, notes=notes)
+        periods=int(months.nunique()), history_gaps=history_gaps, notes=notes,
+        history_periods=int(months[history].nunique()), future_rows=int(future.sum()),
+        driver_future={c: rule for c, rule in driver_future.items() if c not in lookalikes},
+        future_missing={c: n for c, n in future_missing.items() if c not in lookalikes},
+        target_lookalikes=lookalikes)
+
+
+def _history_and_future_rows(frame: pd.DataFrame, months: pd.Series, target: str
+                             ) -> tuple[pd.Series, pd.Series]:
+    """Return masks of the history rows (the target given) and of the months to forecast
+    (the target empty, after the last actual), placed as ``castline check`` places them."""
+    history = frame[target].notna()
+    if not history.any():
+        return history, history
+    return history, ~history & (months > months[history].max())
+
+
+def _same_month_r(frame: pd.DataFrame, history: pd.Series, target: str, column: str) -> float | None:
+    """Return Pearson's r between a column and the target in the same month, over the history
+    rows of every series pooled; None when fewer than three rows have both or either is constant."""
+    pairs = frame.loc[history, [target, column]].apply(pd.to_numeric, errors="coerce").dropna()
+    if len(pairs) < 3 or (pairs.std(ddof=0) == 0).any():
+        return None
+    return float(np.corrcoef(pairs[target].to_numpy(float), pairs[column].to_numpy(float))[0, 1])
 
 
 def _count_history_gaps(frame: pd.DataFrame, months: pd.Series, series: list[str], target: str) -> int:

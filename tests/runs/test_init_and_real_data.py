@@ -24,6 +24,7 @@ import yaml
 from conftest import DEMO_DATA, TEST_DATA
 
 import pipeline
+import pipeline.runner
 from pipeline.core.columns import PERIOD
 
 CORPUS = TEST_DATA / "broken_inputs"
@@ -156,7 +157,11 @@ def test_init_on_the_demo_infers_series_target_and_every_type(outcomes):
                      "rainfall_mm": "number", "mean_temp_c": "number"}
     assert spec["columns"]["region"]["allowed"] == sorted(pd.read_csv(DEMO_DATA)["region"].unique())
     assert spec["columns"]["bags_sold"]["missing_allowed"] is True
-    assert spec["drivers"]["numeric"] == ["shelf_price", "promo_days", "rainfall_mm", "mean_temp_c"]
+    demo = pd.read_csv(DEMO_DATA)
+    ahead = demo[demo["bags_sold"].isna()]   # the months to forecast: given where all are filled
+    drivers = ["shelf_price", "promo_days", "rainfall_mm", "mean_temp_c"]
+    assert spec["drivers"]["numeric"] == [
+        {"column": c, "future": "given" if ahead[c].notna().all() else "month_mean"} for c in drivers]
     pipeline.load_spec(outcome.cwd / "demo.yaml")  # the draft is a valid spec
 
 
@@ -197,3 +202,38 @@ def test_check_passes_on_the_spec_init_wrote_for_a_decimal_comma_file(outcomes):
     spec = yaml.safe_load((outcomes["decimal_all"].cwd / "eu.yaml").read_text(encoding="utf-8"))
     assert spec["input"]["csv"] == {"delimiter": ";", "decimal": ",", "thousands": "."}
     assert outcomes["decimal_all_check"].returncode == 0, outcomes["decimal_all_check"].stdout
+
+
+# ------------------------------------------------------------------ a generated file, end to end
+
+def shops(history: int = 30, future: int = 3, seed: int = 5) -> pd.DataFrame:
+    """Invented sales of two shops (plumbing only): price and weather filled in every month,
+    visits = sales plus small noise (another measure of the outcome, empty ahead like sales)."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for k, month in enumerate(pd.date_range("2021-01-01", periods=history + future, freq="MS")):
+        for j, shop in enumerate(("Hill", "Quay")):
+            price = round(5 + 0.05 * k + rng.choice([0.0, -0.4]), 2)
+            weather = round(10 + 8 * np.sin(2 * np.pi * (month.month - 4) / 12) + rng.normal(0, 1), 1)
+            sales = round(200 + 30 * j + 5 * weather - 10 * price + rng.normal(0, 5), 1)
+            ahead = k >= history
+            rows.append({"month": month.strftime("%Y-%m-%d"), "shop": shop,
+                         "sales": None if ahead else sales,
+                         "visits": None if ahead else round(sales + rng.normal(0, 1), 1),
+                         "price": price, "weather": weather})
+    return pd.DataFrame(rows)
+
+
+def test_the_starter_spec_runs_end_to_end_on_a_generated_file(tmp_path):
+    shops().to_csv(tmp_path / "shops.csv", index=False)
+    spec_path, _ = pipeline.runner.init(tmp_path / "shops.csv", tmp_path / "shops.spec.yaml")
+    spec = pipeline.load_spec(spec_path)
+    assert [d.column for d in spec.drivers.numeric] == ["price", "weather"]   # visits left out
+    assert spec.drivers.calendar.trend and spec.drivers.calendar.month_of_year == "fourier"
+    result = pipeline.runner.run(spec_path, output_folder=tmp_path / "runs")
+    assert result.folder.path.is_dir() and result.folder.report.is_file()
+    assert len(result.data.future) == 6   # 3 months to forecast × 2 shops
+    assert "ols" in result.metrics["model"].tolist()
+    forecast = result.forecast_result.forecast
+    assert np.isfinite(forecast.loc[forecast["model"] == "ols", "forecast"]).all()
+    assert (forecast["model"] == "ols").sum() == 6

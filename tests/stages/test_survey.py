@@ -6,8 +6,10 @@ column, its spacing, its column types, its series and target) is stated beside i
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import pytest
+from scipy.stats import pearsonr
 
 from pipeline.core.errors import DataError
 from pipeline.stages.survey import infer
@@ -84,3 +86,63 @@ def test_a_file_without_dates_is_refused(tmp_path):
     path = write(tmp_path / "data.csv", frame)
     with pytest.raises(DataError, match="no column holds dates"):
         infer(path)
+
+
+def shop(history: int, future: int = 3, *, weather_ahead: bool = True, seed: int = 7) -> pd.DataFrame:
+    """Invented sales of two shops (plumbing only): `history` months with sales, then `future`
+    months to forecast whose sales (and visits) are empty. visits is the sales plus small noise:
+    another measure of the outcome. price is planned in every month; weather is given in the
+    months to forecast only when `weather_ahead`."""
+    rng = np.random.default_rng(seed)
+    months = pd.date_range("2021-01-01", periods=history + future, freq="MS")
+    rows = []
+    for k, month in enumerate(months):
+        for j, shop_name in enumerate(("Hill", "Quay")):
+            price = round(5 + 0.05 * k + rng.choice([0.0, -0.4]), 2)
+            weather = round(10 + 8 * np.sin(2 * np.pi * (month.month - 4) / 12) + rng.normal(0, 1), 1)
+            sales = round(200 + 30 * j + 5 * weather - 10 * price + rng.normal(0, 5), 1)
+            ahead = k >= history
+            rows.append({"shop": shop_name, "month": month.strftime("%Y-%m-%d"),
+                         "sales": None if ahead else sales,
+                         "visits": None if ahead else round(sales + rng.normal(0, 1), 1),
+                         "price": price, "weather": None if ahead and not weather_ahead else weather})
+    return pd.DataFrame(rows)
+
+
+def test_an_outcome_measured_with_the_target_is_not_a_driver(tmp_path):
+    frame = shop(30)
+    found = infer(write(tmp_path / "data.csv", frame))
+    history = frame[frame["sales"].notna()]
+    r = pearsonr(history["sales"], history["visits"]).statistic   # reference: scipy.stats.pearsonr
+    assert abs(r) > 0.9     # the generated column is the target plus small noise
+    assert found.target == "sales"
+    assert "visits" not in found.numeric_drivers
+    assert found.target_lookalikes.keys() == {"visits"}
+    assert found.target_lookalikes["visits"] == pytest.approx(r, rel=1e-12)
+
+
+def test_a_driver_planned_in_every_month_to_forecast_is_given(tmp_path):
+    found = infer(write(tmp_path / "data.csv", shop(30)))
+    # 3 months to forecast × 2 shops, price and weather filled in each (see shop()).
+    assert found.future_rows == 6
+    assert found.numeric_drivers == ["price", "weather"]
+    assert found.driver_future == {"price": "given", "weather": "given"}
+
+
+def test_a_driver_empty_in_the_months_to_forecast_is_estimated(tmp_path):
+    found = infer(write(tmp_path / "data.csv", shop(30, weather_ahead=False)))
+    assert found.driver_future == {"price": "given", "weather": "month_mean"}
+    assert found.future_missing == {"price": 0, "weather": 6}   # 3 months × 2 shops (see shop())
+
+
+def test_without_months_to_forecast_every_driver_is_estimated(tmp_path):
+    # No row lacks the target, so nothing says which drivers are known in advance.
+    found = infer(write(tmp_path / "data.csv", shop(30, future=0)))
+    assert found.future_rows == 0
+    assert found.driver_future == {"price": "month_mean", "weather": "month_mean"}
+    assert "visits" in found.target_lookalikes
+
+
+def test_months_of_history_leave_out_the_months_to_forecast(tmp_path):
+    found = infer(write(tmp_path / "data.csv", shop(18, future=4)))
+    assert (found.periods, found.history_periods) == (22, 18)   # 18 + 4 months (see shop())
