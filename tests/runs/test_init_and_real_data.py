@@ -165,6 +165,17 @@ def test_init_on_the_demo_infers_series_target_and_every_type(outcomes):
     pipeline.load_spec(outcome.cwd / "demo.yaml")  # the draft is a valid spec
 
 
+def test_the_starter_spec_of_the_demo_runs_and_estimates_the_weather(outcomes, tmp_path):
+    # The demo's months to forecast carry no weather: the starter marks it month_mean and
+    # the run estimates it in the backtest and the forecast (invented data: plumbing only).
+    outcome = outcomes["demo"]
+    result = pipeline.run(outcome.cwd / "demo.yaml", output_folder=tmp_path)
+    assert result.backtest.estimated == {"rainfall_mm": "month_mean", "mean_temp_c": "month_mean"}
+    assert result.forecast["forecast"].notna().all()
+    assert any("estimated by castline" in note and "rainfall_mm (month_mean)" in note
+               for note in result.warnings)
+
+
 @pytest.mark.parametrize(("name", "spec_file", "before"), [
     ("exists", "mine.yaml", "# my own spec\n"),
     ("exists_default", "compost_sales.spec.yaml", "keep: me\n"),
