@@ -104,16 +104,16 @@ def split(table):
 
 
 @pytest.fixture(scope="module")
-def test_as_happened(table):
+def held_out_as_happened(table):
     """Return the held-out months with the drivers as they happened (ex-post)."""
     history = table[table["bags_sold"].notna()]
     return history[history["period"].isin(sorted(history["period"].unique())[-12:])]
 
 
-def test_the_hindsight_mae_is_statsmodels_with_the_actual_drivers(result, split, test_as_happened):
+def test_the_hindsight_mae_is_statsmodels_with_the_actual_drivers(result, split, held_out_as_happened):
     train, _, _ = split
     fit = smf.ols(FORMULA, data=train).fit()
-    reference_mae = float(np.mean(np.abs(test_as_happened["bags_sold"] - fit.predict(test_as_happened))))
+    reference_mae = float(np.mean(np.abs(held_out_as_happened["bags_sold"] - fit.predict(held_out_as_happened))))
     assert result.evaluation.hindsight.set_index("model").loc["ols", "mae"] == \
         pytest.approx(reference_mae, rel=1e-9)
 
@@ -247,9 +247,9 @@ def test_ols_holdout_predictions_equal_statsmodels_row_by_row(result, split):
 
 
 def test_ols_coefficients_and_forecast_equal_statsmodels_on_all_history(result, split,
-                                                                       test_as_happened):
+                                                                       held_out_as_happened):
     train, _, future = split
-    fit = smf.ols(FORMULA, data=pd.concat([train, test_as_happened])).fit()
+    fit = smf.ols(FORMULA, data=pd.concat([train, held_out_as_happened])).fit()
     ours = result.coefficients[result.coefficients["model"] == "ols"].set_index("term")
     expected = {reference_term(name): value for name, value in fit.params.items()}
     assert set(ours.index) == set(expected)
@@ -277,9 +277,9 @@ def test_mean_baseline_predicts_each_region_s_training_mean(result, split):
 
 
 def test_mean_baseline_forecast_is_each_region_s_mean_over_all_history(result, split,
-                                                                     test_as_happened):
+                                                                     held_out_as_happened):
     train, _, _ = split
-    means = pd.concat([train, test_as_happened]).groupby("region")["bags_sold"].mean()
+    means = pd.concat([train, held_out_as_happened]).groupby("region")["bags_sold"].mean()
     ours = result.forecast[result.forecast["model"] == "mean_baseline"]
     np.testing.assert_allclose(ours["forecast"], ours["series"].map(means), rtol=1e-12)
 
