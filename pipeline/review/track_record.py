@@ -137,9 +137,13 @@ def _earlier_forecasts(conn: sqlite3.Connection, runs: pd.DataFrame, through: st
 
 
 def _actuals(spec: Spec, data: CheckedData) -> pd.DataFrame:
-    return pd.DataFrame({"period": data.history[PERIOD].astype(str).to_numpy(),
-                         "series": data.history[SERIES].astype(str).to_numpy(),
-                         "actual": data.history[spec.target].to_numpy(float)})
+    """Return the months with an actual: a target filled by input.gaps: fill is no actual."""
+    history = data.history
+    if data.filled is not None and spec.target in data.filled.columns:
+        history = history[~data.filled[spec.target].to_numpy(bool)]
+    return pd.DataFrame({"period": history[PERIOD].astype(str).to_numpy(),
+                         "series": history[SERIES].astype(str).to_numpy(),
+                         "actual": history[spec.target].to_numpy(float)})
 
 
 def _signed(value: float) -> str:

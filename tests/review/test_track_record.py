@@ -196,3 +196,18 @@ def test_a_run_without_skill_is_warned_about_after_the_set_number_of_runs(tmp_pa
     Evaluation.beats_baseline = True
     assert track_record(spec, data, Evaluation()).warnings == []
     assert not (tmp_path / "runs" / "ledger.sqlite").exists()   # reading writes nothing
+
+
+def test_a_month_filled_by_gaps_fill_is_not_scored_as_an_actual(tmp_path):
+    # An earlier run forecast 2022-01..03; the new data lacks 2022-02 and fills it by
+    # interpolation: only 2022-01 and 2022-03 are actuals the forecasts may be judged on.
+    import pipeline
+    data = tiny_data()
+    first = pipeline.run(write_tiny_spec(tmp_path, data, actuals_to="2021-12"))
+    gapped = data[data["month"] != "2022-02-01"]
+    spec = write_tiny_spec(tmp_path, gapped, actuals_to="2022-03",
+                           input={"file": "data.csv", "date_column": "month", "period": "month",
+                                  "as_of": "2027-01-31", "gaps": "fill"})
+    second = pipeline.run(spec)
+    assert set(first.forecast["period"]) == {"2022-01", "2022-02", "2022-03"}
+    assert set(second.realised["period"]) == {"2022-01", "2022-03"}
