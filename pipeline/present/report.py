@@ -23,6 +23,7 @@ from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_B
 from pipeline.core.formatting import format_number, markdown_table
 from pipeline.core.intervals import trusted_method
 from pipeline.present import plots
+from pipeline.present.ahead import ahead_view, notes_besides
 from pipeline.present.run_files import RunFiles, load_run_files
 
 CAUTIONS = [
@@ -287,6 +288,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         coefficient_picture = plots.coefficient_picture(drivers["terms"])
     else:
         coefficient_picture = None
+    ahead = ahead_view(metrics)
     return _environment().get_template("report.html.j2").render(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
         validation=metrics.get("validation_text", metrics.get("validation", {}).get("method", "")),
@@ -305,7 +307,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         diagnostics=diagnostics.to_dict(orient="records") if diagnostics is not None else [],
         influential=influential, data=data, series_names=named(data.get("series", [])),
         names_shown=NAMES_SHOWN,
-        notes=metrics.get("notes", []),
+        ahead=ahead, notes=notes_besides(metrics.get("notes", []), ahead),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
         spec_text=files.spec_text, cautions=CAUTIONS)

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import SCORES
+from pipeline.present.ahead import ahead_view, notes_besides
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -57,10 +58,11 @@ def render_summary(files: RunFiles) -> str:
         files.table("series.csv"), metrics.get("series_summary", []), files.table("series_fallbacks.csv"),
         rows=rows, recommended=recommended, select_by=metrics["select_by"],
         level=metrics["significance_level"], series_count=series_count)
+    ahead = ahead_view(metrics)
     summary = render_markdown(
         "summary.md.j2", spec_name=metrics["spec_name"], run_id=metrics["run_id"],
         created=metrics["created"], verdict=metrics["verdict"], recommended=recommended,
-        select_by=metrics["select_by"], beats=metrics["beats_baseline"],
+        select_by=metrics["select_by"], beats=metrics["beats_baseline"], ahead=ahead,
         validation=metrics["validation_text"],
         comparison=pd.DataFrame(rows)[["model", *SCORES, "against_mean"]],
         forecast=shown.head(TABLE_ROWS) if shown is not None else None,
@@ -73,6 +75,6 @@ def render_summary(files: RunFiles) -> str:
         per_series=per_series, series_names=named(data_print.get("series", [])),
         names_shown=NAMES_SHOWN, fit=_some(pd.DataFrame(metrics.get("fit", []))),
         diagnostics=_diagnostics(files), influential=_some(files.table("influential_rows.csv")),
-        notes=metrics.get("notes", []), data=data_print, cautions=CAUTIONS,
+        notes=notes_besides(metrics.get("notes", []), ahead), data=data_print, cautions=CAUTIONS,
         castline_version=metrics.get("castline_version", ""))
     return with_track_record(summary, files.track, files.table("realised.csv"))
