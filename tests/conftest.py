@@ -109,3 +109,29 @@ def tiny_runs(tmp_path_factory):
         spec = write_tiny_spec(base, frame, actuals_to=cut, **keys)
         runs.append((pipeline.run(spec), pd.read_csv(base / "data.csv")))
     return spec, base / "runs" / "ledger.sqlite", runs
+
+
+def invented_shops(history: int, future: int = 3, *, weather_ahead: bool = True, seed: int = 7,
+                   remark: bool = False) -> pd.DataFrame:
+    """Invented sales of two shops (plumbing only): `history` months with sales, then `future`
+    months to forecast with sales and visits empty. visits is the sales plus small noise
+    (another measure of the outcome); price is planned in every month; weather is given in the
+    months to forecast only when `weather_ahead`; with `remark`, a free-text column the spec
+    does not use."""
+    rng = np.random.default_rng(seed)
+    months = pd.date_range("2021-01-01", periods=history + future, freq="MS")
+    rows = []
+    for k, month in enumerate(months):
+        for j, shop_name in enumerate(("Hill", "Quay")):
+            price = round(5 + 0.05 * k + rng.choice([0.0, -0.4]), 2)
+            weather = round(10 + 8 * np.sin(2 * np.pi * (month.month - 4) / 12) + rng.normal(0, 1), 1)
+            sales = round(200 + 30 * j + 5 * weather - 10 * price + rng.normal(0, 5), 1)
+            ahead = k >= history
+            row = {"shop": shop_name, "month": month.strftime("%Y-%m-%d"),
+                   "sales": None if ahead else sales,
+                   "visits": None if ahead else round(sales + rng.normal(0, 1), 1),
+                   "price": price, "weather": None if ahead and not weather_ahead else weather}
+            if remark:
+                row["remark"] = f"counted by hand, sheet {2 * k + j}"
+            rows.append(row)
+    return pd.DataFrame(rows)

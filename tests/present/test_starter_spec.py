@@ -8,10 +8,10 @@ library); the 0.9 and 24-month thresholds are castline's own rules, stated in th
 
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import invented_shops
 from scipy.stats import pearsonr
 
 from pipeline.core.formatting import format_number
@@ -20,26 +20,9 @@ from pipeline.spec import load_spec
 from pipeline.stages.survey import infer
 
 
-def shop(history: int, future: int = 3, *, weather_ahead: bool = True, seed: int = 11) -> pd.DataFrame:
-    """Invented sales of two shops: `history` months with sales, then `future` months to
-    forecast with sales and visits empty. visits is the sales plus small noise (another measure
-    of the outcome); price is planned in every month; weather is given in the months to
-    forecast only when `weather_ahead`; remark is free text the spec does not use."""
-    rng = np.random.default_rng(seed)
-    months = pd.date_range("2021-01-01", periods=history + future, freq="MS")
-    rows = []
-    for k, month in enumerate(months):
-        for j, shop_name in enumerate(("Hill", "Quay")):
-            price = round(5 + 0.05 * k + rng.choice([0.0, -0.4]), 2)
-            weather = round(10 + 8 * np.sin(2 * np.pi * (month.month - 4) / 12) + rng.normal(0, 1), 1)
-            sales = round(200 + 30 * j + 5 * weather - 10 * price + rng.normal(0, 5), 1)
-            ahead = k >= history
-            rows.append({"shop": shop_name, "month": month.strftime("%Y-%m-%d"),
-                         "sales": None if ahead else sales,
-                         "visits": None if ahead else round(sales + rng.normal(0, 1), 1),
-                         "price": price, "weather": None if ahead and not weather_ahead else weather,
-                         "remark": f"counted by hand, sheet {2 * k + j}"})
-    return pd.DataFrame(rows)
+def shop(history: int, future: int = 3, *, weather_ahead: bool = True) -> pd.DataFrame:
+    """The invented shops of conftest, with a free-text remark column (seed 11)."""
+    return invented_shops(history, future, weather_ahead=weather_ahead, seed=11, remark=True)
 
 
 def starter(tmp_path, frame: pd.DataFrame) -> tuple[str, dict]:

@@ -41,23 +41,14 @@ def _assert_same_forecasts(written: Path, folder: Path) -> None:
     np.testing.assert_allclose(mine.to_numpy(), theirs.to_numpy(), rtol=1e-9, atol=0)
 
 
-@pytest.mark.parametrize("name", FIXTURES)
-def test_a_version_1_model_file_forecasts_what_its_run_wrote(name, tmp_path, capsys):
-    folder = V1 / name
-    output = tmp_path / "forecast.csv"
-    code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
-                     "--output", str(output)])
-    assert code == 0, capsys.readouterr().err
-    _assert_same_forecasts(output, folder)
-
-
 V2 = TEST_DATA / "model_files_v2"
 
 
-@pytest.mark.parametrize("name", ["estimated"])
-def test_a_version_2_model_file_forecasts_what_its_run_wrote(name, tmp_path, capsys):
-    # Its months to forecast leave the estimated drivers empty: the stored estimates fill them.
-    folder = V2 / name
+# Version 2's fixture leaves the estimated drivers empty in its months to forecast: the
+# stored estimates fill them.
+@pytest.mark.parametrize("folder", [V1 / name for name in FIXTURES] + [V2 / "estimated"],
+                         ids=[*FIXTURES, "v2-estimated"])
+def test_a_model_file_forecasts_what_its_run_wrote(folder, tmp_path, capsys):
     output = tmp_path / "forecast.csv"
     code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
                      "--output", str(output)])

@@ -6,9 +6,9 @@ column, its spacing, its column types, its series and target) is stated beside i
 
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 import pytest
+from conftest import invented_shops
 from scipy.stats import pearsonr
 
 from pipeline.core.errors import DataError
@@ -88,25 +88,9 @@ def test_a_file_without_dates_is_refused(tmp_path):
         infer(path)
 
 
-def shop(history: int, future: int = 3, *, weather_ahead: bool = True, seed: int = 7) -> pd.DataFrame:
-    """Invented sales of two shops (plumbing only): `history` months with sales, then `future`
-    months to forecast whose sales (and visits) are empty. visits is the sales plus small noise:
-    another measure of the outcome. price is planned in every month; weather is given in the
-    months to forecast only when `weather_ahead`."""
-    rng = np.random.default_rng(seed)
-    months = pd.date_range("2021-01-01", periods=history + future, freq="MS")
-    rows = []
-    for k, month in enumerate(months):
-        for j, shop_name in enumerate(("Hill", "Quay")):
-            price = round(5 + 0.05 * k + rng.choice([0.0, -0.4]), 2)
-            weather = round(10 + 8 * np.sin(2 * np.pi * (month.month - 4) / 12) + rng.normal(0, 1), 1)
-            sales = round(200 + 30 * j + 5 * weather - 10 * price + rng.normal(0, 5), 1)
-            ahead = k >= history
-            rows.append({"shop": shop_name, "month": month.strftime("%Y-%m-%d"),
-                         "sales": None if ahead else sales,
-                         "visits": None if ahead else round(sales + rng.normal(0, 1), 1),
-                         "price": price, "weather": None if ahead and not weather_ahead else weather})
-    return pd.DataFrame(rows)
+def shop(history: int, future: int = 3, *, weather_ahead: bool = True) -> pd.DataFrame:
+    """The invented shops of conftest (seed 7)."""
+    return invented_shops(history, future, weather_ahead=weather_ahead, seed=7)
 
 
 def test_an_outcome_measured_with_the_target_is_not_a_driver(tmp_path):
