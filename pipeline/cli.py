@@ -214,8 +214,8 @@ def _print_history(path: Path, name: str | None, metrics, realised, show: str) -
     lead = ["spec_name"] if several else []
     if show in ("metrics", "all"):
         print()
-        print("Backtest metrics per run (change: from the run before; skill = 1 − MAE / MAE of "
-              "the mean baseline):")
+        print("Backtest metrics per run (change: from the run before; skill = 1 − the run's "
+              "select_by metric / the mean baseline's):")
         _print_table(_shown(metrics, [*lead, "created", "run_id", "last_period", "model", "mae",
                                       "mae_change", "rmse", "rmse_change", "skill_vs_mean",
                                       "skill_vs_mean_change", "recommended"]),
@@ -305,7 +305,7 @@ def _print_comparison(comparison) -> None:
     else:
         print("Coefficients: no coefficient moved")
     print()
-    print("Metrics (backtest; skill = 1 − MAE / MAE of the mean baseline):")
+    print("Metrics (backtest; skill = 1 − the select_by metric / the mean baseline's):")
     metrics = comparison.metrics
     _print_table(metrics.to_dict(orient="records"), list(metrics.columns))
 

@@ -129,7 +129,7 @@ METRICS: tuple[Metric, ...] = (
     Metric("bias", "bias", "nearer_zero", "pipeline.core.metrics:bias_score", False),
 )
 METRIC_BY_NAME = {metric.name: metric for metric in METRICS}
-SKILL = "skill_vs_mean"      # 1 − MAE / MAE of the mean baseline: above zero the model beats it
+SKILL = "skill_vs_mean"      # 1 − metric / metric of the mean baseline, in select_by: above 0 beats it
 METRIC_NAMES = tuple(metric.name for metric in METRICS)
 SELECT_METRICS = tuple(metric.name for metric in METRICS if metric.selectable)
 LOWER_IS_BETTER = tuple(metric.name for metric in METRICS if metric.better == "lower")

@@ -273,7 +273,7 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
         parts.append(f"{model}: {len(own):,} series, median {np.median(own):.3g}, "
                      f"{(own > 0).mean():.0%} above 0")
     axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label="as good as the mean")
-    axis.set_xlabel("skill against the mean baseline (1 − MAE / MAE of the mean), per series")
+    axis.set_xlabel("skill against the mean baseline (1 − loss / the mean's, in select_by), per series")
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="upper left")
     clipped = int(sum((v < -1).sum() for v in values.values()))

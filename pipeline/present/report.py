@@ -308,6 +308,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         influential=influential, data=data, series_names=named(data.get("series", [])),
         names_shown=NAMES_SHOWN,
         ahead=ahead, notes=notes_besides(metrics.get("notes", []), ahead),
+        select_by=metrics.get("select_by", "mae"),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
         spec_text=files.spec_text, cautions=CAUTIONS)

@@ -3,7 +3,9 @@
 Metrics come overall and per origin, horizon and series; skill is measured
 against the mean baseline, and the Diebold–Mariano test (with the small-sample
 correction) says whether a model's advantage is more than luck — for the whole
-table, and for each series on its own. The per-series numbers are computed
+table, and for each series on its own. Skill, the test and the selection all
+judge the one loss of ``select_by``; R² is out of sample against the mean
+baseline's forecast. The per-series numbers are computed
 with array sums over sorted groups, not a loop over series, so that thousands
 of series cost well under a second.
 """
@@ -151,21 +153,51 @@ def grouped_scores(predictions: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
     return table[columns]
 
 
-def _with_skill(table: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
-    """Add skill against the mean baseline: 1 − MAE_model / MAE_baseline, within each key."""
-    base = table[table["model"] == BASELINE].set_index(keys)["mae"] if keys else \
-        table.loc[table["model"] == BASELINE, "mae"]
+def _with_skill(table: pd.DataFrame, keys: list[str], select_by: str = "mae") -> pd.DataFrame:
+    """Add, within each key, skill against the mean baseline in the ``select_by`` metric,
+    1 − metric_model / metric_baseline, and replace R² by R² out of sample against the mean
+    baseline's forecast, 1 − SSE_model / SSE_baseline over the same rows (Campbell &
+    Thompson 2008, whose benchmark is the historical-mean forecast): the mean of the months
+    predicted, which R² against their own mean reads, is not known when forecasting."""
+    baseline = table[table["model"] == BASELINE]
     if keys:
-        reference = table.set_index(keys).index.map(base)
+        index = table.set_index(keys).index
+        metric = index.map(baseline.set_index(keys)[select_by]).to_numpy(float)
+        rmse = index.map(baseline.set_index(keys)["rmse"]).to_numpy(float)
     else:
-        reference = np.repeat(float(base.iloc[0]), len(table))
+        metric = np.repeat(float(baseline[select_by].iloc[0]), len(table))
+        rmse = np.repeat(float(baseline["rmse"].iloc[0]), len(table))
     table = table.copy()
-    table["skill_vs_mean"] = [metrics.skill(m, r) for m, r in zip(table["mae"], reference)]
+    table["skill_vs_mean"] = [metrics.skill(m, r) for m, r in zip(table[select_by], metric)]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        table["r2"] = np.where(rmse > 0, 1.0 - (table["rmse"].to_numpy(float) / rmse) ** 2, np.nan)
     return table
 
 
-def _loss(errors: np.ndarray, select_by: str) -> np.ndarray:
-    return errors ** 2 if select_by == "rmse" else np.abs(errors)
+# The loss per row that each selection metric averages (WAPE divides a sum of absolute
+# errors by one common total, so its loss is the absolute error); NaN where it is undefined.
+LOSS_WORDS = {"mae": "absolute error", "rmse": "squared error",
+              "mape": "absolute percentage error", "smape": "symmetric absolute percentage error",
+              "wape": "absolute error (WAPE's denominator is common to both forecasts)",
+              "mase": "absolute error over each series' in-sample seasonal naive error"}
+
+
+def _loss(actual: np.ndarray, predicted: np.ndarray, scale: np.ndarray,
+          select_by: str) -> np.ndarray:
+    """Return each row's loss under the ``select_by`` metric, so that skill, the test and the
+    selection judge one and the same loss."""
+    error = predicted - actual
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if select_by == "rmse":
+            return error ** 2
+        if select_by == "mape":
+            return np.where(actual != 0, np.abs(error / actual), np.nan)
+        if select_by == "smape":
+            total = np.abs(actual) + np.abs(predicted)
+            return np.where(total != 0, 2 * np.abs(error) / total, np.nan)
+        if select_by == "mase":
+            return np.where(np.isfinite(scale) & (scale > 0), np.abs(error) / scale, np.nan)
+    return np.abs(error)
 
 
 def autocovariance_lags(backtest: BacktestResult, origins: int) -> int:
@@ -186,11 +218,14 @@ def loss_differences(predictions: pd.DataFrame, model: str, backtest: BacktestRe
     """Return the series of (baseline loss − model loss), the lag horizon and how it was formed."""
     pair = predictions[predictions["model"].isin([BASELINE, model])]
     wide = pair.pivot_table(index=["origin", "period", "series"], columns="model",
-                            values=["prediction", "actual"], aggfunc="first")
-    actual = wide[("actual", BASELINE)].to_numpy()
-    difference = (_loss(wide[("prediction", BASELINE)].to_numpy() - actual, select_by)
-                  - _loss(wide[("prediction", model)].to_numpy() - actual, select_by))
+                            values=["prediction", "actual", "mase_scale"], aggfunc="first",
+                            dropna=False)
+    actual = wide[("actual", BASELINE)].to_numpy(float)
+    scale = wide[("mase_scale", BASELINE)].to_numpy(float)
+    difference = (_loss(actual, wide[("prediction", BASELINE)].to_numpy(float), scale, select_by)
+                  - _loss(actual, wide[("prediction", model)].to_numpy(float), scale, select_by))
     frame = pd.DataFrame({"d": difference}, index=wide.index).reset_index()
+    frame = frame[np.isfinite(frame["d"].to_numpy(float))]   # rows the loss leaves out
     origins = frame["origin"].nunique()
     if backtest.scheme == "rolling_origin" and origins >= 3:
         series = frame.groupby("origin", sort=True)["d"].mean()
@@ -225,6 +260,7 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
     model = predictions["model"].to_numpy()
     actual = predictions["actual"].to_numpy(float)
     predicted = predictions["prediction"].to_numpy(float)
+    scale = predictions["mase_scale"].to_numpy(float)
     base = np.flatnonzero(model == BASELINE)
     base = base[~pd.Index(key[base]).duplicated()]   # the first row of a duplicated cell, as pivot_table
     base_index = pd.Index(key[base])
@@ -238,8 +274,10 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
         match = base_index.get_indexer(key[own])
         own, paired = own[match >= 0], base[match[match >= 0]]
         truth = actual[paired]
-        differences = (_loss(predicted[paired] - truth, select_by)
-                       - _loss(predicted[own] - truth, select_by))
+        differences = (_loss(truth, predicted[paired], scale[paired], select_by)
+                       - _loss(truth, predicted[own], scale[paired], select_by))
+        defined = np.isfinite(differences)   # rows the loss leaves out (MAPE where actual is 0)
+        own, differences = own[defined], differences[defined]
         order = np.argsort(key[own], kind="stable")
         codes = series[own][order]
         starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(codes) else \
@@ -269,7 +307,7 @@ def series_summary(by_series: pd.DataFrame) -> pd.DataFrame:
         "beats_share": grouped["beats"].mean(),
         "beats_significantly": grouped["beats_significantly"].sum(),
         "significant_share": grouped["beats_significantly"].mean(),
-        # Quartiles of the series whose skill is defined (the baseline's MAE is not 0).
+        # Quartiles of the series whose skill is defined (the baseline's loss is not 0).
         "skill_q25": skill.quantile(0.25), "skill_median": skill.median(),
         "skill_q75": skill.quantile(0.75),
     }).reset_index()
@@ -286,21 +324,22 @@ def _with_series_tests(by_series: pd.DataFrame, tests: pd.DataFrame, level: floa
     return table
 
 
-def _hindsight_table(predictions: pd.DataFrame, hindsight: pd.DataFrame | None) -> pd.DataFrame:
+def _hindsight_table(predictions: pd.DataFrame, hindsight: pd.DataFrame | None,
+                     select_by: str) -> pd.DataFrame:
     """Return every metric of the models had the estimated drivers been known (ex-post),
     with the mean baseline (which reads no driver) first; empty without such drivers."""
     if hindsight is None or not len(hindsight):
         return pd.DataFrame()
     baseline = predictions[predictions["model"] == BASELINE]
     return _with_skill(_scores_by(pd.concat([baseline, hindsight], ignore_index=True),
-                                  ["model"]), [])
+                                  ["model"]), [], select_by)
 
 
 def _first_notes(spec: Spec, backtest: BacktestResult,
                  table: pd.DataFrame) -> tuple[list[str], pd.DataFrame]:
     """Return the notes that lead (which drivers were known ahead, the backtest's notes, and
     what not knowing the estimated drivers costs each model) and the ex-post metrics."""
-    hindsight = _hindsight_table(backtest.predictions, backtest.hindsight)
+    hindsight = _hindsight_table(backtest.predictions, backtest.hindsight, spec.select_by)
     return list(backtest.notes) + _hindsight_notes(spec, backtest, table, hindsight), hindsight
 
 
@@ -352,7 +391,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     predictions = backtest.predictions
     select_by = spec.select_by
     level = spec.significance_level
-    table = _with_skill(_scores_by(predictions, ["model"]), [])
+    table = _with_skill(_scores_by(predictions, ["model"]), [], select_by)
     statistics, p_values, readings = [], [], []
     notes, hindsight = _first_notes(spec, backtest, table)
     how = ""
@@ -374,8 +413,8 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     table["against_mean"] = readings
     if how:
         notes.append(f"Significance: Diebold–Mariano test with the Harvey–Leybourne–Newbold "
-                     f"correction, one-sided, on {how}; loss = "
-                     f"{'squared' if select_by == 'rmse' else 'absolute'} error.")
+                     f"correction, one-sided, on {how}; loss = {LOSS_WORDS[select_by]}, the "
+                     f"loss of {select_by.upper()}, which skill and the selection use too.")
     for row in table.itertuples():
         if row.mape_rows_left_out:
             notes.append(f"{row.model}: MAPE leaves out {row.mape_rows_left_out} rows whose actual "
@@ -408,11 +447,11 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                        f"mean baseline by the significance test ({_p_text(p)}): the difference "
                        "may be luck.")
     time_ordered = backtest.scheme in ("holdout", "rolling_origin")
-    by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"])
-    by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"]) \
+    by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
+    by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \
         if time_ordered else pd.DataFrame()
     by_series = _with_series_tests(_with_skill(grouped_scores(predictions, ["model", "series"]),
-                                               ["series"]),
+                                               ["series"], select_by),
                                    series_tests(predictions, backtest, select_by), level)
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
                       coverage=coverage(predictions),

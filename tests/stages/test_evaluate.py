@@ -142,7 +142,16 @@ def test_metrics_in_the_table_equal_sklearn_and_hand_formulas(tmp_path):
         assert got["mae"] == pytest.approx(mean_absolute_error(y, f), rel=1e-12)
         assert got["rmse"] == pytest.approx(root_mean_squared_error(y, f), rel=1e-12)
         assert got["mape"] == pytest.approx(mean_absolute_percentage_error(y, f), rel=1e-12)
-        assert got["r2"] == pytest.approx(r2_score(y, f), rel=1e-12)
+        # R² out of sample against the mean baseline's forecast on the same rows (Campbell &
+        # Thompson 2008, R²_OS = 1 − Σ(y − ŷ)² / Σ(y − ȳ_hist)², ȳ_hist the historical mean).
+        rows_base = p[p["model"] == "mean_baseline"].set_index(["origin", "period", "series"])
+        benchmark = rows_base["prediction"].reindex(
+            pd.MultiIndex.from_frame(rows[["origin", "period", "series"]])).to_numpy()
+        assert got["r2"] == pytest.approx(1 - np.sum((y - f) ** 2) / np.sum((y - benchmark) ** 2),
+                                          rel=1e-12, abs=1e-12)
+        # Not R² against the test months' own mean (sklearn's r2_score), unknown when forecasting.
+        if model == "mean_baseline":
+            assert got["r2"] == 0 and r2_score(y, f) != 0
         assert got["bias"] == pytest.approx(np.mean(f - y), rel=1e-12, abs=1e-12)
         assert got["smape"] == pytest.approx(np.mean(2 * error / (np.abs(y) + np.abs(f))), rel=1e-12)
         assert got["wape"] == pytest.approx(error.sum() / np.abs(y).sum(), rel=1e-12)
@@ -180,3 +189,37 @@ def test_kfold_evaluation_has_no_horizon_breakdown_and_says_so(tmp_path):
     assert evaluation.table["mase"].isna().all()
     assert any("k-fold" in note for note in evaluation.notes)
     assert evaluation.recommended == "ols"
+
+
+# The loss each selection metric averages per row, written out here from its definition.
+HAND_LOSS = {
+    "mae": lambda y, f, s: np.abs(f - y),
+    "rmse": lambda y, f, s: (f - y) ** 2,
+    "mape": lambda y, f, s: np.abs((f - y) / y),
+    "smape": lambda y, f, s: 2 * np.abs(f - y) / (np.abs(y) + np.abs(f)),
+    "mase": lambda y, f, s: np.abs(f - y) / s,
+}
+
+
+@pytest.mark.parametrize("select_by", list(HAND_LOSS))
+def test_skill_the_test_and_the_selection_judge_the_one_loss_of_select_by(select_by, tmp_path):
+    _, _, result, evaluation = run(tmp_path, simulated(seed=6, signal=True), ["ols", "last_value"],
+                                   select_by=select_by)
+    table = evaluation.table.set_index("model")
+    p = result.predictions
+    base = p[p["model"] == "mean_baseline"].reset_index(drop=True)
+    for model in ("ols", "last_value"):
+        own = p[p["model"] == model].reset_index(drop=True)   # the same rows, in the same order
+        # Skill in the select_by metric.
+        expected = 1 - table.loc[model, select_by] / table.loc["mean_baseline", select_by]
+        assert table.loc[model, "skill_vs_mean"] == pytest.approx(expected, rel=1e-12, abs=1e-12)
+        # The test runs on the per-origin mean of (baseline loss − model loss) in that loss,
+        # with ceil(horizon / step) = 3 lags (the formula written out in reference_dm).
+        y, s = own["actual"].to_numpy(), own["mase_scale"].to_numpy()
+        d = (HAND_LOSS[select_by](y, base["prediction"].to_numpy(), s)
+             - HAND_LOSS[select_by](y, own["prediction"].to_numpy(), s))
+        by_origin = pd.Series(d).groupby(own["origin"]).mean().sort_index().to_numpy()
+        statistic, p_value = reference_dm(list(by_origin), 3)
+        assert table.loc[model, "test_statistic"] == pytest.approx(statistic, rel=1e-9)
+        assert table.loc[model, "p_value"] == pytest.approx(p_value, rel=1e-9)
+    assert any(f"the loss of {select_by.upper()}" in note for note in evaluation.notes)
