@@ -4,6 +4,8 @@ Read before a run is published; nothing here writes."""
 
 from __future__ import annotations
 
+import hashlib
+import json
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -190,6 +192,43 @@ def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str
             f"drivers (output.warn_after_runs_without_skill: {wanted})"), streak
 
 
+# Beyond this many different specs tried on one input, a win may be the luck of the search.
+SPECS_TRIED_WARNING = 5
+# Keys that do not change what the backtest compares: names, paths, where fits run, what-ifs.
+_NOT_MODELLING = ("name", "description", "output", "compute", "scenarios")
+
+
+def modelling_hash(resolved: dict) -> str:
+    """Return a sha256 of what a spec asks the backtest to compare (its resolved form without
+    its name, description, output, compute and scenarios, and without the input's path)."""
+    kept = {key: value for key, value in resolved.items() if key not in _NOT_MODELLING}
+    kept["input"] = {key: value for key, value in kept.get("input", {}).items() if key != "file"}
+    return hashlib.sha256(json.dumps(kept, sort_keys=True).encode("utf-8")).hexdigest()
+
+
+def specs_tried(conn: sqlite3.Connection | None, spec: Spec, data: CheckedData) -> int:
+    """Return how many different specs (by ``modelling_hash``) the ledger's runs on this very
+    input tried, this run's included."""
+    hashes = {modelling_hash(spec.model_dump(mode="json"))}
+    if conn is not None:
+        rows = conn.execute("SELECT spec_json FROM runs WHERE input_sha256 = ?",
+                            (data.raw.sha256,)).fetchall()
+        for (text,) in rows:
+            try:
+                hashes.add(modelling_hash(json.loads(text)))
+            except (TypeError, ValueError, AttributeError):
+                continue   # a row the ledger's checks let through but no spec: not counted
+    return len(hashes)
+
+
+def _search_warning(tried: int) -> str | None:
+    if tried <= SPECS_TRIED_WARNING:
+        return None
+    return (f"{tried} different specs have been run on this same input: the more specs you try, "
+            "the likelier one beats the average by luck; judge the one you keep on months none "
+            "of them has seen")
+
+
 def track_record(spec: Spec, data: CheckedData, evaluation, *,
                  output_folder: str | Path | None = None) -> TrackRecord:
     """Return how earlier runs' forecasts turned out against this run's actuals, and the
@@ -201,12 +240,14 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
     if not path.exists() or (path.is_file() and path.stat().st_size == 0):
         runs = pd.DataFrame(columns=["run_id", "created", "recommended", "beats_baseline"])
         realised, latest = _empty_realised(), pd.DataFrame()
+        tried = specs_tried(None, spec, data)
     else:
         with reading(path) as conn:
             runs = visible_runs(conn, spec.name)
             forecasts = _earlier_forecasts(conn, runs, str(data.last_period))
             expected = _expected_errors(conn, runs["run_id"])
             latest = latest_realised(conn, runs)
+            tried = specs_tried(conn, spec, data)
         realised = score_forecasts(forecasts, _actuals(spec, data), expected)
     if len(realised) and len(latest):
         # Record a score when it is new, or when the actual was revised since it was recorded.
@@ -222,6 +263,9 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
     skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
     if skill:
         warnings.append(skill)
+    search = _search_warning(tried)
+    if search:
+        warnings.append(search)
     return TrackRecord(ledger=path, realised=realised, by_horizon=summarise_realised(realised),
                        earlier_runs=len(runs), recommended=dict(zip(runs["run_id"], runs["recommended"])),
                        warnings=warnings, runs_without_skill=streak)

@@ -211,3 +211,17 @@ def test_a_month_filled_by_gaps_fill_is_not_scored_as_an_actual(tmp_path):
     second = pipeline.run(spec)
     assert set(first.forecast["period"]) == {"2022-01", "2022-02", "2022-03"}
     assert set(second.realised["period"]) == {"2022-01", "2022-03"}
+
+
+def test_more_than_five_specs_tried_on_one_input_is_warned_once_the_sixth_runs(tmp_path):
+    # Six specs that differ in what they compare (the holdout's length), run on the same file
+    # into one ledger; a spec differing only in its description is not another spec.
+    import pipeline
+    data = tiny_data()
+    said = []
+    for held_out, description in [(3, "a"), (3, "b"), (4, ""), (5, ""), (6, ""), (7, ""), (8, "")]:
+        spec = write_tiny_spec(tmp_path, data, actuals_to="2021-12", description=description,
+                               validation={"method": "holdout", "last_periods": held_out})
+        said.append(any("different specs have been run on this same input" in w
+                        for w in pipeline.run(spec).warnings))
+    assert said == [False] * 6 + [True]
