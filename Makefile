@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 DEMO   := configs/compost_demo.yaml
 
-.PHONY: demo test lint benchmarks clean
+.PHONY: demo test simulate lint benchmarks clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -29,6 +29,10 @@ lint: $(VENV)/.installed-test
 
 test: lint
 	$(BIN)/python -m pytest
+
+# Simulations of the tests' size, too slow for make test (minutes); CI runs them too.
+simulate: $(VENV)/.installed-test
+	$(BIN)/python -m pytest -m simulation
 
 benchmarks: $(VENV)/.installed-test
 	@for b in benchmarks/bench_*.py; do [ -e "$$b" ] && $(BIN)/python "$$b"; done; true

@@ -81,3 +81,22 @@ def diebold_mariano_by_group(differences: np.ndarray, starts: np.ndarray, sizes:
     p_value = np.where(flat, np.where(all_zero | (mean < 0), 1.0, 0.0), p_value)
     short = (sizes < 3) | (horizon < 1)
     return np.where(short, np.nan, corrected), np.where(short, np.nan, p_value)
+
+
+def holm(p_values) -> np.ndarray:
+    """Return Holm's (1979) step-down adjusted p-values, NaN left as NaN and not counted.
+
+    With m tests ordered p_(1) ≤ … ≤ p_(m), the adjusted p_(i) is the largest of
+    min(1, (m − j + 1)·p_(j)) over j ≤ i: rejecting where it is below α keeps the chance
+    of any false claim among the m at most α, whatever their dependence.
+    """
+    p = np.asarray(p_values, dtype=float)
+    adjusted = np.full(p.shape, np.nan)
+    present = np.flatnonzero(np.isfinite(p))
+    if not len(present):
+        return adjusted
+    order = present[np.argsort(p[present], kind="stable")]
+    m = len(order)
+    scaled = np.minimum(1.0, (m - np.arange(m)) * p[order])
+    adjusted[order] = np.maximum.accumulate(scaled)
+    return adjusted

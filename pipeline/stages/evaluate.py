@@ -21,7 +21,7 @@ import pandas as pd
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
 from pipeline.core.intervals import coverage
-from pipeline.core.significance import diebold_mariano, diebold_mariano_by_group
+from pipeline.core.significance import diebold_mariano, diebold_mariano_by_group, holm
 from pipeline.spec import Spec
 from pipeline.stages.backtest import BacktestResult
 
@@ -320,7 +320,12 @@ def _with_series_tests(by_series: pd.DataFrame, tests: pd.DataFrame, level: floa
     table = by_series.merge(tests, on=["model", "series"], how="left", validate="one_to_one")
     table["test_n"] = table["test_n"].fillna(0).astype(np.int64)
     table["beats"] = (table["model"] != BASELINE) & (table["skill_vs_mean"] > 0)
-    table["beats_significantly"] = table["beats"] & (table["p_value"] < level)
+    # With many series some pass by luck: each model's series tests are adjusted together
+    # (Holm 1979), so "significantly in X of N" claims at most the test's level in all.
+    table["p_holm"] = np.nan
+    for _, rows in table.groupby("model", sort=False):
+        table.loc[rows.index, "p_holm"] = holm(rows["p_value"].to_numpy(float))
+    table["beats_significantly"] = table["beats"] & (table["p_holm"] < level)
     return table
 
 
@@ -380,6 +385,29 @@ def _against_mean(predictions: pd.DataFrame, model: str, backtest: BacktestResul
     return (test.statistic, test.p_value, how) if test else (np.nan, np.nan, how)
 
 
+def _readings(table: pd.DataFrame, same: list[bool], level: float) -> list[str]:
+    """Return each model's reading against the mean baseline, by its Holm-adjusted p-value
+    (the raw one beside it when several models were compared)."""
+    compared = int(np.isfinite(table["p_holm"].to_numpy(float)).sum())
+    readings = []
+    for row, identical in zip(table.itertuples(), same):
+        adjusted = row.p_holm
+        shown = (f"{_p_text(adjusted)}, Holm-adjusted for {compared} models; raw "
+                 f"{_p_text(row.p_value)}" if compared > 1 else _p_text(adjusted))
+        readings.append("the reference" if row.model == BASELINE else
+                        "the same forecasts as the mean baseline" if identical else
+                        f"beats the mean baseline ({shown})"
+                        if np.isfinite(adjusted) and adjusted < level else
+                        f"no better than the mean baseline ({shown})")
+    return readings
+
+
+def _adjusted_for(table: pd.DataFrame) -> str:
+    """Return ", Holm-adjusted for the K models compared" when more than one was."""
+    compared = int(np.isfinite(table["p_holm"].to_numpy(float)).sum())
+    return f", Holm-adjusted for the {compared} models compared" if compared > 1 else ""
+
+
 def _p_text(p: float) -> str:
     if not np.isfinite(p):
         return "p not available"
@@ -392,25 +420,22 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     select_by = spec.select_by
     level = spec.significance_level
     table = _with_skill(_scores_by(predictions, ["model"]), [], select_by)
-    statistics, p_values, readings = [], [], []
+    statistics, p_values, same = [], [], []
     notes, hindsight = _first_notes(spec, backtest, table)
     how = ""
     for model in table["model"]:
-        if model == BASELINE:
-            statistics.append(np.nan)
-            p_values.append(np.nan)
-            readings.append("the reference")
-            continue
-        statistic, p, ran_on = _against_mean(predictions, model, backtest, select_by)
+        statistic, p, ran_on = (np.nan, np.nan, "") if model == BASELINE else \
+            _against_mean(predictions, model, backtest, select_by)
         statistics.append(statistic)
         p_values.append(p)
-        readings.append("the same forecasts as the mean baseline" if ran_on is None else
-                        f"beats the mean baseline ({_p_text(p)})" if np.isfinite(p) and p < level
-                        else f"no better than the mean baseline ({_p_text(p)})")
+        same.append(ran_on is None)
         how = ran_on or how
     table["test_statistic"] = statistics
     table["p_value"] = p_values
-    table["against_mean"] = readings
+    # Picking the best of several models is itself a search: the p-values are adjusted for
+    # the number of models compared (Holm 1979), and the answer reads the adjusted one.
+    table["p_holm"] = holm(p_values)
+    table["against_mean"] = _readings(table, same, level)
     if how:
         notes.append(f"Significance: Diebold–Mariano test with the Harvey–Leybourne–Newbold "
                      f"correction, one-sided, on {how}; loss = {LOSS_WORDS[select_by]}, the "
@@ -434,17 +459,18 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
         verdict = (f"No model beats the mean baseline out of sample on {metric}: the plain average "
                    "of each series' history is as good a forecast here.")
     else:
-        p = float(best["p_value"])
+        p = float(best["p_holm"])
         beats = bool(np.isfinite(p) and p < level)
+        said = _p_text(p) + _adjusted_for(table)
         lower = 1 - best[select_by] / baseline_value if baseline_value else np.nan
         name = model_label(recommended)
         if beats:
-            verdict = (f"{name} beats the mean baseline out of sample ({_p_text(p)}): its {metric} is "
+            verdict = (f"{name} beats the mean baseline out of sample ({said}): its {metric} is "
                        f"{lower:.1%} lower ({best[select_by]:.4g} against {baseline_value:.4g}).")
         else:
             verdict = (f"{name} has the lowest {metric} ({best[select_by]:.4g} against "
                        f"{baseline_value:.4g} for the mean baseline), but it is no better than the "
-                       f"mean baseline by the significance test ({_p_text(p)}): the difference "
+                       f"mean baseline by the significance test ({said}): the difference "
                        "may be luck.")
     time_ordered = backtest.scheme in ("holdout", "rolling_origin")
     by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
