@@ -33,7 +33,7 @@ from pipeline.spec.schema import ESTIMATE_RULES
 # Rules that read a calendar month of the window, and so need a year of it.
 SEASONAL_RULES = ("month_mean", "last_year")
 RULE_WORDS = {
-    "month_mean": "each series' average for that calendar month",
+    "month_mean": "each series' average for that calendar month over the training months",
     "last_year": "the same month a year earlier",
     "last_value": "each series' last value",
     "mean": "each series' average",
@@ -77,19 +77,19 @@ class _ColumnEstimate:
         """Return the estimates of rows given by series and month, and how many fell back
         from the rule's own table."""
         moy = calendar_month(months)
+        # The rule's own table first, then the coarser ones in order.
+        tables = [(self.by_month, pd.MultiIndex.from_arrays([series, moy]))] \
+            if self.by_month is not None else []
+        tables += [(self.by_series, series), (self.pooled_month, moy)]
         values = np.full(len(series), np.nan)
-        if self.by_month is not None:
-            wanted = pd.MultiIndex.from_arrays([series, moy])
-            values = self.by_month.reindex(wanted).to_numpy(float)
-        else:
-            values = self.by_series.reindex(series).to_numpy(float)
-        fell_back = int(np.isnan(values).sum())
-        for fallback in (lambda: self.by_series.reindex(series).to_numpy(float),
-                         lambda: self.pooled_month.reindex(moy).to_numpy(float)):
+        fell_back = 0
+        for position, (table, keys) in enumerate(tables):
             missing = np.isnan(values)
             if not missing.any():
                 break
-            values = np.where(missing, fallback(), values)
+            values = np.where(missing, table.reindex(keys).to_numpy(float), values)
+            if position == 0:
+                fell_back = int(np.isnan(values).sum())
         return np.where(np.isnan(values), self.overall, values), fell_back
 
     def to_dict(self) -> dict:

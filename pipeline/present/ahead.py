@@ -15,16 +15,9 @@ import re
 import pandas as pd
 
 from pipeline.core.catalogue import BASELINE, METRIC_BY_NAME
+from pipeline.features.future import RULE_WORDS
+from pipeline.spec import TIME_ORDERED  # only schemes with an origin estimate as the forecast does
 
-# The rules of ``future:`` in words (pipeline/features/future.py estimates them).
-RULE_WORDS = {
-    "month_mean": "each series' average for that calendar month over the training months",
-    "last_year": "the same month a year earlier",
-    "last_value": "each series' last value",
-    "mean": "each series' average",
-}
-# Validation schemes with an origin: only they estimate the drivers as the forecast does.
-TIME_ORDERED = ("holdout", "rolling_origin")
 # The run's notes that the block says again (pipeline/features/future.ahead_words and
 # pipeline/stages/evaluate._hindsight_notes write them).
 _AHEAD_NOTE = ("Drivers known ahead (", "Drivers estimated by castline ")
