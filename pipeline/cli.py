@@ -115,7 +115,7 @@ def _command_run(args) -> int:
                   f"({row.significant_share:.0%}); see series.csv")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
-    for note in result.evaluation.notes:
+    for note in result.evaluation.ahead_notes + result.evaluation.notes:
         print(f"note: {note}")
     track = result.track
     for warning in track.warnings if track else []:

@@ -56,7 +56,8 @@ class RunResult:
     @property
     def warnings(self) -> list[str]:
         track = self.track.warnings if self.track else []
-        return self.forecast_result.warnings + self.evaluation.notes + track
+        return (self.forecast_result.warnings + self.evaluation.ahead_notes
+                + self.evaluation.notes + track)
 
     @property
     def realised(self) -> pd.DataFrame:

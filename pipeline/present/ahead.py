@@ -10,18 +10,12 @@ have no such block.
 from __future__ import annotations
 
 import math
-import re
 
 import pandas as pd
 
 from pipeline.core.catalogue import BASELINE, METRIC_BY_NAME
 from pipeline.features.future import RULE_WORDS
 from pipeline.spec import TIME_ORDERED  # only schemes with an origin estimate as the forecast does
-
-# The run's notes that the block says again (pipeline/features/future.ahead_words and
-# pipeline/stages/evaluate._hindsight_notes write them).
-_AHEAD_NOTE = ("Drivers known ahead (", "Drivers estimated by castline ")
-_HINDSIGHT_NOTE = re.compile(r"^.+: had .+ been known ahead, its \S+ would have been ")
 
 
 def _and(names: list[str]) -> str:
@@ -75,12 +69,3 @@ def ahead_view(metrics: dict) -> dict | None:
         "backtest_estimates": bool(estimated) and method in TIME_ORDERED,
         "label": label, "rows": rows, "table": table,
     }
-
-
-def notes_besides(notes: list[str], view: dict | None) -> list[str]:
-    """Return the run's notes without those the block already says (all of them when the
-    block is not shown)."""
-    if view is None:
-        return list(notes)
-    return [note for note in notes if not note.startswith(_AHEAD_NOTE)
-            and not (view["rows"] and _HINDSIGHT_NOTE.match(note))]

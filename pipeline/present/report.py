@@ -23,7 +23,7 @@ from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_B
 from pipeline.core.formatting import format_number, markdown_table
 from pipeline.core.intervals import trusted_method
 from pipeline.present import plots
-from pipeline.present.ahead import ahead_view, notes_besides
+from pipeline.present.ahead import ahead_view
 from pipeline.present.run_files import RunFiles, load_run_files
 
 CAUTIONS = [
@@ -307,7 +307,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         diagnostics=diagnostics.to_dict(orient="records") if diagnostics is not None else [],
         influential=influential, data=data, series_names=named(data.get("series", [])),
         names_shown=NAMES_SHOWN,
-        ahead=ahead, notes=notes_besides(metrics.get("notes", []), ahead),
+        ahead=ahead, notes=metrics.get("notes", []),
         select_by=metrics.get("select_by", "mae"),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import SCORES
-from pipeline.present.ahead import ahead_view, notes_besides
+from pipeline.present.ahead import ahead_view
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -75,6 +75,6 @@ def render_summary(files: RunFiles) -> str:
         per_series=per_series, series_names=named(data_print.get("series", [])),
         names_shown=NAMES_SHOWN, fit=_some(pd.DataFrame(metrics.get("fit", []))),
         diagnostics=_diagnostics(files), influential=_some(files.table("influential_rows.csv")),
-        notes=notes_besides(metrics.get("notes", []), ahead), data=data_print, cautions=CAUTIONS,
+        notes=metrics.get("notes", []), data=data_print, cautions=CAUTIONS,
         castline_version=metrics.get("castline_version", ""))
     return with_track_record(summary, files.track, files.table("realised.csv"))

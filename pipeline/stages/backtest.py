@@ -82,6 +82,7 @@ class BacktestResult:
     # (ex-post), beside ``predictions``, which estimate them as the forecast must (ex-ante).
     hindsight: pd.DataFrame | None = None
     estimated: dict[str, str] = field(default_factory=dict)   # the estimated columns, by rule
+    ahead: str | None = None   # which drivers were known ahead and which estimated, in words
 
 
 DENSE_GRID_CELLS = 50_000_000   # beyond this, MASE scales look months up by key, not by grid
@@ -413,9 +414,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     if len(fallbacks):
         notes.insert(0, _fallback_note(fallbacks))
     notes = notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"] if len(notes) > 5 else [])
-    ahead = ahead_words(spec)   # which drivers were known ahead leads the notes
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
-                          horizon=horizon, notes=([ahead + "."] if ahead else []) + notes,
+                          horizon=horizon, notes=notes, ahead=ahead_words(spec),
                           step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,
                           hindsight=(pd.concat(known_frames, ignore_index=True)[PREDICTION_COLUMNS]
                                      if known_frames else None),

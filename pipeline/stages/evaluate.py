@@ -48,6 +48,10 @@ class Evaluation:
     # With drivers castline estimates: each model's metrics had those drivers been known
     # (ex-post), the mean baseline first; empty otherwise. ``table`` is ex-ante.
     hindsight: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # Which drivers were known ahead, and what not knowing the estimated ones cost each
+    # model, in words for the console; the pages say it from metrics.json's drivers_ahead
+    # and hindsight_models, so these are not among ``notes``.
+    ahead_notes: list[str] = field(default_factory=list)
 
 
 def score(actual, predicted, scale=None) -> dict[str, float]:
@@ -340,12 +344,13 @@ def _hindsight_table(predictions: pd.DataFrame, hindsight: pd.DataFrame | None,
                                   ["model"]), [], select_by)
 
 
-def _first_notes(spec: Spec, backtest: BacktestResult,
+def _ahead_notes(spec: Spec, backtest: BacktestResult,
                  table: pd.DataFrame) -> tuple[list[str], pd.DataFrame]:
-    """Return the notes that lead (which drivers were known ahead, the backtest's notes, and
-    what not knowing the estimated drivers costs each model) and the ex-post metrics."""
+    """Return the notes on drivers ahead (which were known, and what not knowing the
+    estimated ones costs each model) and the ex-post metrics."""
     hindsight = _hindsight_table(backtest.predictions, backtest.hindsight, spec.select_by)
-    return list(backtest.notes) + _hindsight_notes(spec, backtest, table, hindsight), hindsight
+    said = [backtest.ahead + "."] if backtest.ahead else []
+    return said + _hindsight_notes(spec, backtest, table, hindsight), hindsight
 
 
 def _hindsight_notes(spec: Spec, backtest: BacktestResult, table: pd.DataFrame,
@@ -421,7 +426,8 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     level = spec.significance_level
     table = _with_skill(_scores_by(predictions, ["model"]), [], select_by)
     statistics, p_values, same = [], [], []
-    notes, hindsight = _first_notes(spec, backtest, table)
+    notes = list(backtest.notes)
+    ahead_notes, hindsight = _ahead_notes(spec, backtest, table)
     how = ""
     for model in table["model"]:
         statistic, p, ran_on = (np.nan, np.nan, "") if model == BASELINE else \
@@ -483,4 +489,4 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                       coverage=coverage(predictions),
                       recommended=recommended, beats_baseline=beats, verdict=verdict,
                       select_by=select_by, notes=notes, series_summary=series_summary(by_series),
-                      hindsight=hindsight)
+                      hindsight=hindsight, ahead_notes=ahead_notes)

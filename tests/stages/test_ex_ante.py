@@ -88,7 +88,8 @@ def test_a_pure_noise_driver_wins_only_with_hindsight(tmp_path, seed):
     # The ex-post figure shows what knowing w would have been worth.
     post = evaluation.hindsight.set_index("model").loc["ols", "skill_vs_mean"]
     assert post > 0.4
-    assert any("had w been known ahead" in note for note in evaluation.notes)
+    assert any("had w been known ahead" in note for note in evaluation.ahead_notes)
+    assert not any("had w been known ahead" in note for note in evaluation.notes)
     # Estimated by the window's mean: OLS then predicts exactly the mean of y (normal
     # equations), so it is the mean baseline to rounding, and no test is run on rounding.
     skill, evaluation, _ = _skill(tmp_path, frame, "mean")
