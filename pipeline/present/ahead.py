@@ -58,8 +58,8 @@ def ahead_view(metrics: dict) -> dict | None:
     table = pd.DataFrame({
         "model": [r["model"] for r in rows],
         f"{label} as scored": [r["ante"] for r in rows],
-        f"{label} had they been known": [r["post"] for r in rows],
-        "cost of not knowing them": [r["cost_text"] for r in rows]}) if rows else None
+        f"{label} if known": [r["post"] for r in rows],
+        "cost": [r["cost_text"] for r in rows]}) if rows else None
     return {
         "given": _and(given), "calendar": bool(ahead.get("calendar")),
         "estimated": [{"column": column, "rule": rule, "words": RULE_WORDS.get(rule, rule)}

@@ -4,7 +4,6 @@ Read before a run is published; nothing here writes."""
 
 from __future__ import annotations
 
-import hashlib
 import json
 import sqlite3
 from dataclasses import dataclass, field
@@ -14,8 +13,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, SERIES
-from pipeline.record.ledger.read import latest_realised, rows_of, visible_runs
-from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading
+from pipeline.record.ledger.read import latest_realised, rows_of, specs_on_input, visible_runs
+from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading, spec_hash
 from pipeline.spec import Spec
 from pipeline.stages.check import CheckedData
 
@@ -203,7 +202,7 @@ def modelling_hash(resolved: dict) -> str:
     its name, description, output, compute and scenarios, and without the input's path)."""
     kept = {key: value for key, value in resolved.items() if key not in _NOT_MODELLING}
     kept["input"] = {key: value for key, value in kept.get("input", {}).items() if key != "file"}
-    return hashlib.sha256(json.dumps(kept, sort_keys=True).encode("utf-8")).hexdigest()
+    return spec_hash(kept)
 
 
 def specs_tried(conn: sqlite3.Connection | None, spec: Spec, data: CheckedData) -> int:
@@ -211,9 +210,7 @@ def specs_tried(conn: sqlite3.Connection | None, spec: Spec, data: CheckedData) 
     input tried, this run's included."""
     hashes = {modelling_hash(spec.model_dump(mode="json"))}
     if conn is not None:
-        rows = conn.execute("SELECT spec_json FROM runs WHERE input_sha256 = ?",
-                            (data.raw.sha256,)).fetchall()
-        for (text,) in rows:
+        for text in specs_on_input(conn, data.raw.sha256):
             try:
                 hashes.add(modelling_hash(json.loads(text)))
             except (TypeError, ValueError, AttributeError):

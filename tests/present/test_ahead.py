@@ -146,7 +146,7 @@ def test_the_ex_post_table_holds_metrics_json_in_both_pages(demo_run, demo_folde
     answer = _answer_part(_page(demo_folder, "summary.md"))
     assert "Had rainfall_mm and mean_temp_c been known ahead:" in answer
     lines = answer.split("Had rainfall_mm and mean_temp_c been known ahead:\n\n", 1)[1].splitlines()
-    assert lines[0] == "| model | MAE as scored | MAE had they been known | cost of not knowing them |"
+    assert lines[0] == "| model | MAE as scored | MAE if known | cost |"
     assert [[cell.strip() for cell in line.strip("|").split(" | ")] for line in lines[2:3]] == expected
     assert expected == [["ols", "149.5", "127.9", "+17%"]]
     rows = _block(_page(demo_folder, "report.html")).rows

@@ -11,6 +11,12 @@ import pandas as pd
 from pipeline.record.ledger.store import query
 
 
+def specs_on_input(conn: sqlite3.Connection, input_sha256: str) -> list[str]:
+    """Return the resolved spec (JSON text) of every recorded run on the input of this sha256."""
+    return query(conn, "SELECT spec_json FROM runs WHERE input_sha256 = ?",
+                 (input_sha256,))["spec_json"].tolist()
+
+
 def visible_runs(conn: sqlite3.Connection, name: str | None = None) -> pd.DataFrame:
     """Return the runs that count, oldest first: placed, or recorded with their folder in place."""
     sql = ("SELECT run_id, created, spec_name, spec_hash, input_sha256, castline_version, "
