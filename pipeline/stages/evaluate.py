@@ -1,27 +1,28 @@
-"""Evaluate: score the out-of-sample predictions and compare each model with the mean baseline.
+"""Evaluate: score the out-of-sample predictions and compare each model with the mean
+baseline and the best simple rule.
 
-Metrics come overall and per origin, horizon and series; skill is measured
-against the mean baseline, and the Diebold–Mariano test (with the small-sample
-correction) says whether a model's advantage is more than luck — for the whole
-table, and for each series on its own. Skill, the test and the selection all
-judge the one loss of ``select_by``; R² is out of sample against the mean
-baseline's forecast. The per-series numbers are computed
-with array sums over sorted groups, not a loop over series, so that thousands
-of series cost well under a second.
+Metrics come overall and per origin, horizon and series; skill is measured against the
+mean baseline. Whether a model's advantage is more than luck is tested on the mean loss
+difference per forecast origin with a variance that holds its size under the dependence
+of overlapping forecasts (``core.significance``), for the whole table and for each series;
+the p-values are Holm-adjusted for the models compared (and, per series, for the series).
+A single holdout or k-fold folds give no p-value, and the answer says so. Skill, the test
+and the selection all judge the one loss of ``select_by``; R² is out of sample against the
+mean baseline's forecast. The per-series numbers are computed with array sums over sorted
+groups, not a loop over series, so that thousands of series cost well under a second.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from pipeline.core import metrics
-from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
+from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_kind, model_label
 from pipeline.core.intervals import coverage
-from pipeline.core.significance import diebold_mariano, diebold_mariano_by_group, holm
+from pipeline.core.significance import METHOD, MIN_ORIGINS, holm, origin_test, origin_tests
 from pipeline.spec import Spec
 from pipeline.stages.backtest import BacktestResult
 
@@ -52,6 +53,11 @@ class Evaluation:
     # model, in words for the console; the pages say it from metrics.json's drivers_ahead
     # and hindsight_models, so these are not among ``notes``.
     ahead_notes: list[str] = field(default_factory=list)
+    # The best simple rule (the mean baseline when no other rule beats it), whether the
+    # recommended model beats it significantly too, and whether the validation gave a test.
+    best_rule: str = BASELINE
+    beats_best_rule: bool = False
+    tested: bool = True
 
 
 def score(actual, predicted, scale=None) -> dict[str, float]:
@@ -204,63 +210,64 @@ def _loss(actual: np.ndarray, predicted: np.ndarray, scale: np.ndarray,
     return np.abs(error)
 
 
-def autocovariance_lags(backtest: BacktestResult, origins: int) -> int:
-    """Return how many autocovariance lags the test allows for (its horizon h).
+def test_refusal(backtest: BacktestResult, origins: int) -> str | None:
+    """Return why no p-value can be given for this validation, or None when the test runs.
 
-    Over rolling origins, forecasts from origins less than a horizon apart
-    overlap, so their loss differences are correlated up to ceil(horizon / step)
-    origins apart; otherwise the differences are treated as independent.
-    """
-    if backtest.scheme == "rolling_origin" and origins >= 3:
-        step = getattr(backtest, "step", 1) or 1
-        return max(1, math.ceil(backtest.horizon / step))
-    return 1
+    The test needs many forecast origins in time order: one holdout is one origin, whose
+    months share a single fit and whose errors are dependent, and k-fold folds have no
+    order in time."""
+    if backtest.scheme == "holdout":
+        return ("a single holdout gives a point estimate and no p-value: whether the difference is "
+                "more than luck needs many forecast origins (validation: method: rolling_origin)")
+    if backtest.scheme != "rolling_origin":
+        return ("k-fold folds have no order in time, so no p-value is given: validation: method: "
+                "rolling_origin tests the difference over many forecast origins")
+    if origins < MIN_ORIGINS:
+        return (f"{origins} forecast origins are too few for a test that holds its size (at least "
+                f"{MIN_ORIGINS}): no p-value is given; lower min_train_periods or step, or add months")
+    return None
 
 
-def loss_differences(predictions: pd.DataFrame, model: str, backtest: BacktestResult,
-                     select_by: str) -> tuple[np.ndarray, int, str]:
-    """Return the series of (baseline loss − model loss), the lag horizon and how it was formed."""
-    pair = predictions[predictions["model"].isin([BASELINE, model])]
+def _differences(predictions: pd.DataFrame, model: str, reference: str,
+                 select_by: str) -> pd.DataFrame:
+    """Return, per (origin, period, series) both predicted, the reference's loss less the
+    model's (the loss of ``select_by``); rows the loss leaves out are dropped."""
+    pair = predictions[predictions["model"].isin([reference, model])]
     wide = pair.pivot_table(index=["origin", "period", "series"], columns="model",
                             values=["prediction", "actual", "mase_scale"], aggfunc="first",
                             dropna=False)
-    actual = wide[("actual", BASELINE)].to_numpy(float)
-    scale = wide[("mase_scale", BASELINE)].to_numpy(float)
-    difference = (_loss(actual, wide[("prediction", BASELINE)].to_numpy(float), scale, select_by)
+    actual = wide[("actual", reference)].to_numpy(float)
+    scale = wide[("mase_scale", reference)].to_numpy(float)
+    difference = (_loss(actual, wide[("prediction", reference)].to_numpy(float), scale, select_by)
                   - _loss(actual, wide[("prediction", model)].to_numpy(float), scale, select_by))
     frame = pd.DataFrame({"d": difference}, index=wide.index).reset_index()
-    frame = frame[np.isfinite(frame["d"].to_numpy(float))]   # rows the loss leaves out
-    origins = frame["origin"].nunique()
-    if backtest.scheme == "rolling_origin" and origins >= 3:
-        series = frame.groupby("origin", sort=True)["d"].mean()
-        return series.to_numpy(), autocovariance_lags(backtest, origins), \
-            f"the mean loss at each of {origins} origins"
-    if backtest.scheme in ("holdout", "rolling_origin"):
-        series = frame.groupby("period", sort=True)["d"].mean()
-        return series.to_numpy(), 1, (f"the mean loss in each of the {len(series)} months scored "
-                                      "(treated as independent; rolling origins give a sounder test)")
-    return frame["d"].to_numpy(), 1, f"the loss of each of the {len(frame)} rows scored"
+    return frame[np.isfinite(frame["d"].to_numpy(float))]
+
+
+def origin_differences(predictions: pd.DataFrame, model: str, select_by: str,
+                       reference: str = BASELINE) -> np.ndarray:
+    """Return the mean loss difference (reference − model) at each origin, origins in time
+    order: the series the test runs on, so forecasts made at one origin count once."""
+    frame = _differences(predictions, model, reference, select_by)
+    return frame.groupby("origin", sort=True)["d"].mean().to_numpy(float)
 
 
 def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
                  select_by: str) -> pd.DataFrame:
-    """Return, per model other than the mean baseline and per series, the one-sided
-    Diebold–Mariano test of "the model's loss is lower than the mean baseline's".
-
-    For one series the loss differences (baseline − model, the loss of
-    ``select_by``) are taken row by row over the rows both predicted, ordered by
-    origin then period, with as many lags as the overall test allows for
-    (``autocovariance_lags``). Columns: model, series, test_statistic, p_value, test_n.
-    """
+    """Return, per model other than the mean baseline and per series, the one-sided test of
+    "the model's loss is lower than the mean baseline's" on that series' mean loss
+    difference per origin (``significance.origin_tests``), origins in time order; a series
+    scored at fewer than MIN_ORIGINS origins, or a validation that gives no test, gets NaN.
+    Columns: model, series, test_statistic, p_value, test_n (the origins tested on)."""
     columns = ["model", "series", "test_statistic", "p_value", "test_n"]
     if not len(predictions):
         return pd.DataFrame(columns=columns)
-    # One integer per (origin, period, series), origins and periods numbered in sorted order,
-    # so sorting the integers sorts by series, then origin, then period.
-    origin, _ = pd.factorize(predictions["origin"].astype(str), sort=True)
+    testable = test_refusal(backtest, int(predictions["origin"].nunique())) is None
+    origin, origins = pd.factorize(predictions["origin"].astype(str), sort=True)
     period, periods = pd.factorize(predictions["period"].astype(str), sort=True)
     series, names = pd.factorize(predictions["series"], sort=False)
-    key = (series.astype(np.int64) * (origin.max() + 1) + origin) * (len(periods) + 1) + period
+    # One integer per (series, origin, period): the rows both models predicted are matched on it.
+    key = (series.astype(np.int64) * (len(origins) + 1) + origin) * (len(periods) + 1) + period
     model = predictions["model"].to_numpy()
     actual = predictions["actual"].to_numpy(float)
     predicted = predictions["prediction"].to_numpy(float)
@@ -268,7 +275,6 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
     base = np.flatnonzero(model == BASELINE)
     base = base[~pd.Index(key[base]).duplicated()]   # the first row of a duplicated cell, as pivot_table
     base_index = pd.Index(key[base])
-    lags = autocovariance_lags(backtest, int(predictions["origin"].nunique()))
     frames = []
     for name in dict.fromkeys(model):
         if name == BASELINE:
@@ -282,16 +288,40 @@ def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
                        - _loss(truth, predicted[own], scale[paired], select_by))
         defined = np.isfinite(differences)   # rows the loss leaves out (MAPE where actual is 0)
         own, differences = own[defined], differences[defined]
-        order = np.argsort(key[own], kind="stable")
-        codes = series[own][order]
-        starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(codes) else \
-            np.zeros(0, np.int64)
-        sizes = np.diff(np.r_[starts, len(codes)])
-        statistic, p_value = diebold_mariano_by_group(differences[order], starts, sizes, lags)
-        frames.append(pd.DataFrame({"model": name, "series": names[codes[starts]],
-                                    "test_statistic": statistic, "p_value": p_value,
-                                    "test_n": sizes.astype(np.int64)}))
+        # The mean difference per (series, origin): a series × origin matrix, NaN where unscored.
+        cell = series[own].astype(np.int64) * len(origins) + origin[own]
+        total = np.bincount(cell, weights=differences, minlength=len(names) * len(origins))
+        count = np.bincount(cell, minlength=len(names) * len(origins))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            means = (total / count).reshape(len(names), len(origins))
+        scored = count.reshape(len(names), len(origins)) > 0
+        present = scored.any(axis=1)
+        test_n = scored.sum(axis=1)
+        statistic = np.full(len(names), np.nan)
+        p_value = np.full(len(names), np.nan)
+        if testable:
+            statistic, p_value = _tests_by_series(means, scored, test_n)
+        frames.append(pd.DataFrame({"model": name, "series": names[present],
+                                    "test_statistic": statistic[present], "p_value": p_value[present],
+                                    "test_n": test_n[present].astype(np.int64)}))
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
+
+
+def _tests_by_series(means: np.ndarray, scored: np.ndarray,
+                     test_n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return each series' test on its per-origin means, the origins it was scored at taken
+    in order; series scored at the same origins are tested together, at fewer than
+    MIN_ORIGINS origins not at all."""
+    statistic = np.full(len(means), np.nan)
+    p_value = np.full(len(means), np.nan)
+    enough = np.flatnonzero(test_n >= MIN_ORIGINS)
+    if not len(enough):
+        return statistic, p_value
+    patterns, which = np.unique(scored[enough], axis=0, return_inverse=True)
+    for number, pattern in enumerate(patterns):
+        rows = enough[np.asarray(which).ravel() == number]
+        statistic[rows], p_value[rows] = origin_tests(means[np.ix_(rows, pattern)])
+    return statistic, p_value
 
 
 def series_summary(by_series: pd.DataFrame) -> pd.DataFrame:
@@ -375,22 +405,35 @@ def _hindsight_notes(spec: Spec, backtest: BacktestResult, table: pd.DataFrame,
     return notes
 
 
-def _against_mean(predictions: pd.DataFrame, model: str, backtest: BacktestResult,
-                  select_by: str) -> tuple[float, float, str | None]:
-    """Return the Diebold–Mariano statistic and p-value of a model against the mean baseline,
-    and what the test ran on; NaN, NaN and None when the model's predictions are the
-    baseline's up to rounding (a test of rounding noise would read as a finding)."""
+def _same_forecasts(predictions: pd.DataFrame, model: str, reference: str) -> bool:
+    """Return whether a model's predictions are the reference's up to rounding (a test of
+    rounding noise would read as a finding)."""
     own = predictions.loc[predictions["model"] == model, "prediction"].to_numpy(float)
-    base = predictions.loc[predictions["model"] == BASELINE, "prediction"].to_numpy(float)
-    if len(own) == len(base) and np.allclose(own, base, rtol=1e-9, atol=0):
-        return np.nan, np.nan, None
-    differences, lags, how = loss_differences(predictions, model, backtest, select_by)
-    test = diebold_mariano(differences, np.zeros_like(differences), horizon=lags) \
-        if len(differences) else None
-    return (test.statistic, test.p_value, how) if test else (np.nan, np.nan, how)
+    base = predictions.loc[predictions["model"] == reference, "prediction"].to_numpy(float)
+    return len(own) == len(base) and bool(np.allclose(own, base, rtol=1e-9, atol=0))
 
 
-def _readings(table: pd.DataFrame, same: list[bool], level: float) -> list[str]:
+def _tested(predictions: pd.DataFrame, model: str, reference: str, select_by: str,
+            testable: bool) -> tuple[float, float]:
+    """Return the statistic and one-sided p-value of "the model's loss is lower than the
+    reference's", on the mean loss difference per origin; NaN, NaN when not tested."""
+    if not testable or _same_forecasts(predictions, model, reference):
+        return np.nan, np.nan
+    differences = origin_differences(predictions, model, select_by, reference)
+    test = origin_test(differences) if len(differences) else None
+    return (test.statistic, test.p_value) if test else (np.nan, np.nan)
+
+
+def is_simple_rule(name: str) -> bool:
+    """Return whether a model is a simple reference rule (the mean baseline among them)."""
+    try:
+        return model_kind(name).baseline
+    except KeyError:
+        return False
+
+
+def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
+              tested: bool) -> list[str]:
     """Return each model's reading against the mean baseline, by its Holm-adjusted p-value
     (the raw one beside it when several models were compared)."""
     compared = int(np.isfinite(table["p_holm"].to_numpy(float)).sum())
@@ -399,18 +442,25 @@ def _readings(table: pd.DataFrame, same: list[bool], level: float) -> list[str]:
         adjusted = row.p_holm
         shown = (f"{_p_text(adjusted)}, Holm-adjusted for {compared} models; raw "
                  f"{_p_text(row.p_value)}" if compared > 1 else _p_text(adjusted))
-        readings.append("the reference" if row.model == BASELINE else
-                        "the same forecasts as the mean baseline" if identical else
-                        f"beats the mean baseline ({shown})"
-                        if np.isfinite(adjusted) and adjusted < level else
-                        f"no better than the mean baseline ({shown})")
+        if row.model == BASELINE:
+            readings.append("the reference")
+        elif identical:
+            readings.append("the same forecasts as the mean baseline")
+        elif not tested:
+            lower = np.isfinite(row.skill_vs_mean) and row.skill_vs_mean > 0
+            readings.append(f"{'lower' if lower else 'no lower'} {metric} than the mean baseline "
+                            "(not tested)")
+        elif np.isfinite(adjusted) and adjusted < level:
+            readings.append(f"beats the mean baseline ({shown})")
+        else:
+            readings.append(f"no better than the mean baseline ({shown})")
     return readings
 
 
-def _adjusted_for(table: pd.DataFrame) -> str:
+def _adjusted_for(table: pd.DataFrame, column: str = "p_holm", what: str = "models") -> str:
     """Return ", Holm-adjusted for the K models compared" when more than one was."""
-    compared = int(np.isfinite(table["p_holm"].to_numpy(float)).sum())
-    return f", Holm-adjusted for the {compared} models compared" if compared > 1 else ""
+    compared = int(np.isfinite(table[column].to_numpy(float)).sum())
+    return f", Holm-adjusted for the {compared} {what} compared" if compared > 1 else ""
 
 
 def _p_text(p: float) -> str:
@@ -419,65 +469,136 @@ def _p_text(p: float) -> str:
     return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
 
 
+def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: str,
+                   testable: bool) -> tuple[str, pd.DataFrame]:
+    """Return the best simple rule (the mean baseline when no other rule beats it) and the
+    table with each linear model's skill against it and its test, Holm-adjusted over the
+    linear models compared with it."""
+    rules = table[[is_simple_rule(name) for name in table["model"]]]
+    rules = rules[rules[select_by].notna()]
+    best_rule = str(rules.sort_values(select_by, kind="stable")["model"].iloc[0]) if len(rules)         else BASELINE
+    table = table.copy()
+    rule_value = float(table.loc[table["model"] == best_rule, select_by].iloc[0])
+    linear = [not is_simple_rule(name) for name in table["model"]]
+    table["skill_vs_best_rule"] = [metrics.skill(v, rule_value) if own else np.nan
+                                   for v, own in zip(table[select_by], linear)]
+    p_values = [_tested(predictions, name, best_rule, select_by, testable)[1]
+                if own and best_rule != BASELINE else np.nan
+                for name, own in zip(table["model"], linear)]
+    table["p_best_rule"] = p_values
+    table["p_best_rule_holm"] = holm(p_values)
+    return best_rule, table
+
+
+@dataclass(frozen=True)
+class _Answer:
+    verdict: str
+    beats: bool          # significantly better than the mean baseline
+    beats_rule: bool     # ... and than the best simple rule
+
+
+def _answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str, level: float,
+            refusal: str | None) -> _Answer:
+    """Return the answer in words: against the mean baseline (the user's question) and the
+    best simple rule, with the Holm-adjusted p-values, or why there are none."""
+    metric = select_by.upper()
+    value = table.set_index("model")[select_by].astype(float)
+    base, own = value[BASELINE], value[recommended]
+    name = model_label(recommended)
+    rule_name = model_label(best_rule)
+    lower = metrics.skill(own, base)
+    said = f"({own:.4g} against {base:.4g})"
+    if recommended == BASELINE:
+        return _Answer(f"No model or simple rule beats the mean baseline out of sample on {metric}: "
+                       "the plain average of each series' history is as good a forecast here.",
+                       False, False)
+    row = table.set_index("model").loc[recommended]
+    p = float(row["p_holm"])
+    beats = refusal is None and np.isfinite(p) and p < level
+    against = f"{_p_text(p)}{_adjusted_for(table)}"
+    untested = f" {refusal[0].upper()}{refusal[1:]}." if refusal else ""
+    if is_simple_rule(recommended):
+        if refusal:
+            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}"
+        elif beats:
+            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}; {against}"
+        else:
+            lead = (f"its {metric} is {lower:.0%} lower than the mean baseline's {said}, though by "
+                    f"the significance test that may be luck ({against})")
+        return _Answer(f"The best forecast here is a simple rule, the {name}: {lead}. No linear "
+                       f"model does better.{untested}", beats, False)
+    rule = value[best_rule]
+    over_rule = metrics.skill(own, rule)
+    p_rule = float(row["p_best_rule_holm"])
+    beats_rule = beats and (best_rule == BASELINE or (np.isfinite(p_rule) and p_rule < level))
+    rule_said = f"{_p_text(p_rule)}{_adjusted_for(table, 'p_best_rule_holm', 'linear models')}"
+    no_rule = "; no simple rule beats the mean baseline" if best_rule == BASELINE else ""
+    if refusal:
+        versus = (f" and {over_rule:.0%} lower than the best simple rule's (the {rule_name}, "
+                  f"{rule:.4g})" if best_rule != BASELINE else "")
+        return _Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than the mean baseline's "
+                       f"{said}{versus}{no_rule}.{untested}", False, False)
+    if not beats:
+        versus = (f", nor than the best simple rule, the {rule_name} ({rule:.4g})"
+                  if best_rule != BASELINE else no_rule)
+        return _Answer(f"{name} has the lowest {metric} ({own:.4g} against {base:.4g} for the mean "
+                       f"baseline), but it is no better than the mean baseline by the significance "
+                       f"test ({against}): the difference may be luck{versus}.", False, False)
+    if best_rule == BASELINE:
+        return _Answer(f"{name} beats the mean baseline out of sample ({against}): its {metric} is "
+                       f"{lower:.1%} lower {said}{no_rule}.", True, True)
+    if beats_rule:
+        return _Answer(f"{name} beats the mean baseline by {lower:.0%} and the best simple rule, the "
+                       f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({own:.4g} against "
+                       f"{base:.4g} and {rule:.4g}; {against}; against the rule {rule_said}).",
+                       True, True)
+    return _Answer(f"{name} beats the mean baseline by {lower:.0%} on {metric} out of sample "
+                   f"({against}), but not clearly the best simple rule, the {rule_name}: its "
+                   f"{metric} is {over_rule:.0%} lower than that rule's ({own:.4g} against "
+                   f"{rule:.4g}), which may be luck ({rule_said}). The simple rule forecasts "
+                   "nearly as well.", True, False)
+
+
 def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
-    """Return the metrics of each model, its skill against the mean baseline, and the answer."""
+    """Return the metrics of each model, its skill against the mean baseline and the best
+    simple rule, and the answer."""
     predictions = backtest.predictions
     select_by = spec.select_by
     level = spec.significance_level
     table = _with_skill(_scores_by(predictions, ["model"]), [], select_by)
-    statistics, p_values, same = [], [], []
     notes = list(backtest.notes)
     ahead_notes, hindsight = _ahead_notes(spec, backtest, table)
-    how = ""
-    for model in table["model"]:
-        statistic, p, ran_on = (np.nan, np.nan, "") if model == BASELINE else \
-            _against_mean(predictions, model, backtest, select_by)
-        statistics.append(statistic)
-        p_values.append(p)
-        same.append(ran_on is None)
-        how = ran_on or how
-    table["test_statistic"] = statistics
-    table["p_value"] = p_values
+    refusal = test_refusal(backtest, int(predictions["origin"].nunique()))
+    testable = refusal is None
+    tests = [(np.nan, np.nan) if model == BASELINE else
+             _tested(predictions, model, BASELINE, select_by, testable) for model in table["model"]]
+    same = [model != BASELINE and _same_forecasts(predictions, model, BASELINE)
+            for model in table["model"]]
+    table["test_statistic"] = [statistic for statistic, _ in tests]
+    table["p_value"] = [p for _, p in tests]
     # Picking the best of several models is itself a search: the p-values are adjusted for
     # the number of models compared (Holm 1979), and the answer reads the adjusted one.
-    table["p_holm"] = holm(p_values)
-    table["against_mean"] = _readings(table, same, level)
-    if how:
-        notes.append(f"Significance: Diebold–Mariano test with the Harvey–Leybourne–Newbold "
-                     f"correction, one-sided, on {how}; loss = {LOSS_WORDS[select_by]}, the "
-                     f"loss of {select_by.upper()}, which skill and the selection use too.")
+    table["p_holm"] = holm(table["p_value"].to_numpy(float))
+    table["against_mean"] = _readings(table, same, level, select_by.upper(), testable)
+    best_rule, table = _against_rules(table, predictions, select_by, testable)
+    if testable:
+        notes.append(f"Significance: {METHOD}; on the mean loss at each of "
+                     f"{predictions['origin'].nunique()} origins; loss = {LOSS_WORDS[select_by]}, "
+                     f"the loss of {select_by.upper()}, which skill and the selection use too.")
+    else:
+        notes.append(f"Significance: {refusal}.")
     for row in table.itertuples():
         if row.mape_rows_left_out:
             notes.append(f"{row.model}: MAPE leaves out {row.mape_rows_left_out} rows whose actual "
                          "is 0 (a percentage error is undefined there)")
 
     baseline_value = float(table.loc[table["model"] == BASELINE, select_by].iloc[0])
-    sign = 1 if select_by in LOWER_IS_BETTER else -1
     # A model must beat the baseline by more than rounding to be preferred to it.
     contenders = table[(table["model"] == BASELINE)
-                       | (sign * table[select_by] < sign * baseline_value - 1e-9 * abs(baseline_value))]
+                       | (table[select_by] < baseline_value - 1e-9 * abs(baseline_value))]
     contenders = contenders[contenders[select_by].notna()]
-    best = contenders.sort_values(select_by, ascending=sign > 0, kind="stable").iloc[0]
-    recommended = str(best["model"])
-    metric = select_by.upper()
-    if recommended == BASELINE:
-        beats = False
-        verdict = (f"No model beats the mean baseline out of sample on {metric}: the plain average "
-                   "of each series' history is as good a forecast here.")
-    else:
-        p = float(best["p_holm"])
-        beats = bool(np.isfinite(p) and p < level)
-        said = _p_text(p) + _adjusted_for(table)
-        lower = 1 - best[select_by] / baseline_value if baseline_value else np.nan
-        name = model_label(recommended)
-        if beats:
-            verdict = (f"{name} beats the mean baseline out of sample ({said}): its {metric} is "
-                       f"{lower:.1%} lower ({best[select_by]:.4g} against {baseline_value:.4g}).")
-        else:
-            verdict = (f"{name} has the lowest {metric} ({best[select_by]:.4g} against "
-                       f"{baseline_value:.4g} for the mean baseline), but it is no better than the "
-                       f"mean baseline by the significance test ({said}): the difference "
-                       "may be luck.")
+    recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
+    answer = _answer(table, recommended, best_rule, select_by, level, refusal)
     time_ordered = backtest.scheme in ("holdout", "rolling_origin")
     by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
     by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \
@@ -487,6 +608,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                                    series_tests(predictions, backtest, select_by), level)
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
                       coverage=coverage(predictions),
-                      recommended=recommended, beats_baseline=beats, verdict=verdict,
+                      recommended=recommended, beats_baseline=answer.beats, verdict=answer.verdict,
                       select_by=select_by, notes=notes, series_summary=series_summary(by_series),
-                      hindsight=hindsight, ahead_notes=ahead_notes)
+                      hindsight=hindsight, ahead_notes=ahead_notes, best_rule=best_rule,
+                      beats_best_rule=answer.beats_rule, tested=testable)
