@@ -35,6 +35,7 @@ class ModelKind:
     make: str                 # "module:Class" of the model; the class follows models.contract.Model
     capabilities: frozenset[str] = field(default_factory=frozenset)
     per_series: str | None = None   # "module:Class" of the same kind fitted to each series alone
+    always: bool = False      # a simple reference fitted beside the mean baseline under time-ordered validation
 
     @property
     def baseline(self) -> bool:
@@ -63,10 +64,14 @@ CAPABILITIES = {
 
 MODEL_KINDS: tuple[ModelKind, ...] = (
     ModelKind("mean_baseline", "the mean baseline", "reference", "pipeline.models.baselines:MeanBaseline"),
+    ModelKind("calendar_month_mean", "calendar-month average", "reference",
+              "pipeline.models.baselines:CalendarMonthMean", frozenset({"needs_time_order"}), always=True),
+    ModelKind("trailing_mean", "trailing 12-month mean", "reference",
+              "pipeline.models.baselines:TrailingMean", frozenset({"needs_time_order"}), always=True),
     ModelKind("last_value", "last value", "reference", "pipeline.models.baselines:LastValue",
-              frozenset({"needs_time_order"})),
+              frozenset({"needs_time_order"}), always=True),
     ModelKind("seasonal_naive", "same month last year", "reference",
-              "pipeline.models.baselines:SeasonalNaive", frozenset({"needs_time_order"})),
+              "pipeline.models.baselines:SeasonalNaive", frozenset({"needs_time_order"}), always=True),
     ModelKind("drift", "drift", "reference", "pipeline.models.baselines:Drift",
               frozenset({"needs_time_order"})),
     ModelKind("ols", "OLS", "linear", "pipeline.models.ols:OLSModel",
@@ -84,6 +89,8 @@ BASELINE = "mean_baseline"    # the reference every model is measured against, a
 BASELINE_KINDS = tuple(kind.name for kind in MODEL_KINDS if kind.baseline)
 LINEAR_KINDS = tuple(kind.name for kind in MODEL_KINDS if kind.family == "linear")
 PER_SERIES_KINDS = tuple(kind.name for kind in MODEL_KINDS if kind.can("per_series"))
+# The simple references fitted beside the mean baseline whenever validation is time-ordered.
+SIMPLE_REFERENCES = tuple(kind.name for kind in MODEL_KINDS if kind.always)
 
 
 def model_kind(name: str) -> ModelKind:

@@ -10,7 +10,14 @@ from __future__ import annotations
 from pipeline.core.catalogue import BASELINE_KINDS, MODELS
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
-from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
+from pipeline.models.baselines import (
+    CalendarMonthMean,
+    Drift,
+    LastValue,
+    MeanBaseline,
+    SeasonalNaive,
+    TrailingMean,
+)
 from pipeline.models.contract import Model
 from pipeline.models.ols import OLSModel, least_squares
 from pipeline.models.penalised import HuberModel, PenalisedModel
@@ -50,6 +57,6 @@ def prediction_spread(model: Model, design) -> tuple:
     return se, model.residual_df(design)
 
 
-__all__ = ["BASELINE_KINDS", "Drift", "HuberModel", "LastValue", "MeanBaseline", "Model", "OLSModel",
-           "PenalisedModel", "PerSeriesOLS", "SeasonalNaive", "TransformedTargetModel", "least_squares",
-           "make_model", "prediction_spread"]
+__all__ = ["BASELINE_KINDS", "CalendarMonthMean", "Drift", "HuberModel", "LastValue", "MeanBaseline", "Model",
+           "OLSModel", "PenalisedModel", "PerSeriesOLS", "SeasonalNaive", "TrailingMean",
+           "TransformedTargetModel", "least_squares", "make_model", "prediction_spread"]

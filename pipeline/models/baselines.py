@@ -73,7 +73,6 @@ class MeanBaseline(_PerSeriesBaseline):
         return self
 
 
-
 class LastValue(_PerSeriesBaseline):
     """Predicts, for each series, its last value in the training window."""
 
@@ -86,12 +85,49 @@ class LastValue(_PerSeriesBaseline):
         return self
 
 
-class SeasonalNaive(Model):
+class _ByMonthBaseline(Model):
+    """Shared prediction and storage for baselines that store one number per (series, month of
+    the year), falling back to the series' mean, then to the overall mean."""
+
+    term = "month {month} of {series}"
+
+    def predict(self, design) -> np.ndarray:
+        months = (np.asarray(design.period) % SEASON).tolist()
+        return np.array([self.values_.get((s, m), self.means_.get(s, self.fallback_))
+                         for s, m in zip(np.asarray(design.series).tolist(), months)], float)
+
+    def coefficient_table(self) -> pd.DataFrame:
+        return pd.DataFrame({"term": [self.term.format(month=m + 1, series=s) for s, m in self.values_],
+                             "estimate": list(self.values_.values())})
+
+    def to_dict(self) -> dict:
+        """Return what was learned, as a model file stores it: the value of each (series,
+        month of the year from 0), each series' mean, and the overall mean."""
+        return encode_fields({"values_": self.values_, "means_": self.means_,
+                              "fallback_": self.fallback_})
+
+    @classmethod
+    def from_dict(cls, data: dict, version: int = FORMAT_VERSION):
+        """Return the fitted baseline ``to_dict`` stored."""
+        with StoredFields(data, cls.__name__, version=version) as fields:
+            model = cls()
+            values = fields.value("values_")
+            if not isinstance(values, dict) or not all(
+                    isinstance(key, tuple) and len(key) == 2 and isinstance(key[0], str)
+                    and isinstance(key[1], int) and not isinstance(key[1], bool)
+                    and 0 <= key[1] < SEASON and is_number(value) for key, value in values.items()):
+                raise fields.bad("values_", "a table of numbers by series and month of the year")
+            model.values_ = {key: float(value) for key, value in values.items()}
+            model.means_ = fields.number_map("means_")
+            model.fallback_ = fields.number("fallback_")
+        return model
+
+
+class SeasonalNaive(_ByMonthBaseline):
     """Predicts, for each series, its value in the same month of the latest year in training.
 
     A month of the year that the training window lacks falls back to the series' mean.
     """
-
 
     def fit(self, design, y) -> SeasonalNaive:
         names, codes, means = _series_means(design, y)
@@ -107,36 +143,47 @@ class SeasonalNaive(Model):
         self.fallback_ = float(values.mean())
         return self
 
-    def predict(self, design) -> np.ndarray:
-        months = (np.asarray(design.period) % SEASON).tolist()
-        return np.array([self.values_.get((s, m), self.means_.get(s, self.fallback_))
-                         for s, m in zip(np.asarray(design.series).tolist(), months)], float)
 
-    def coefficient_table(self) -> pd.DataFrame:
-        return pd.DataFrame({"term": [f"month {m + 1} of {s}" for s, m in self.values_],
-                             "estimate": list(self.values_.values())})
+class CalendarMonthMean(_ByMonthBaseline):
+    """Predicts, for each series, the mean of its training values in the same month of the year.
 
-    def to_dict(self) -> dict:
-        """Return what was learned, as a model file stores it: the value of each (series,
-        month of the year from 0), each series' mean, and the overall mean."""
-        return encode_fields({"values_": self.values_, "means_": self.means_,
-                              "fallback_": self.fallback_})
+    The month of the year is ``design.period % 12``. A (series, month) the training window
+    lacks falls back to the series' mean; a series it lacks, to the overall mean.
+    """
 
-    @classmethod
-    def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> SeasonalNaive:
-        """Return the fitted baseline ``to_dict`` stored."""
-        with StoredFields(data, cls.__name__, version=version) as fields:
-            model = cls()
-            values = fields.value("values_")
-            if not isinstance(values, dict) or not all(
-                    isinstance(key, tuple) and len(key) == 2 and isinstance(key[0], str)
-                    and isinstance(key[1], int) and not isinstance(key[1], bool)
-                    and 0 <= key[1] < SEASON and is_number(value) for key, value in values.items()):
-                raise fields.bad("values_", "a table of numbers by series and month of the year")
-            model.values_ = {key: float(value) for key, value in values.items()}
-            model.means_ = fields.number_map("means_")
-            model.fallback_ = fields.number("fallback_")
-        return model
+    term = "mean of month {month} of {series}"
+
+    def fit(self, design, y) -> CalendarMonthMean:
+        names, codes, means = _series_means(design, y)
+        values = np.asarray(y, float)
+        keys = codes.astype(np.int64) * SEASON + np.asarray(design.period) % SEASON
+        unique, inverse = np.unique(keys, return_inverse=True)
+        month_means = (np.bincount(inverse, weights=values, minlength=len(unique))
+                       / np.bincount(inverse, minlength=len(unique)))
+        self.values_ = dict(zip(zip(names[unique // SEASON].tolist(), (unique % SEASON).tolist()),
+                                month_means.tolist()))
+        self.means_ = dict(zip(names.tolist(), means.tolist()))
+        self.fallback_ = float(values.mean())
+        return self
+
+
+class TrailingMean(_PerSeriesBaseline):
+    """Predicts, for each series, the mean of its last 12 months in the training window.
+
+    A series' last 12 months are its rows whose month (``design.period``) is later than its own
+    last month less 12, so fewer months for a series shorter than a year. A series the window
+    lacks gets the mean of all the series' trailing months taken together.
+    """
+
+    word = "trailing 12-month mean"
+
+    def fit(self, design, y) -> TrailingMean:
+        frame = _by_series(design, y)
+        last = frame.groupby("series")["period"].transform("max")
+        recent = frame[frame["period"] > last - SEASON]
+        self.values_ = recent.groupby("series")["y"].mean().to_dict()
+        self.fallback_ = float(recent["y"].mean())
+        return self
 
 
 class Drift(Model):

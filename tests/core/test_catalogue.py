@@ -32,6 +32,7 @@ from pipeline.core.catalogue import (
     PER_SERIES_KINDS,
     SCORES,
     SELECT_METRICS,
+    SIMPLE_REFERENCES,
     SKILL,
     model_kind,
     model_label,
@@ -58,6 +59,14 @@ def test_model_lists_agree_with_model_kinds():
     assert not set(BASELINE_KINDS) & set(LINEAR_KINDS)
     assert list(PER_SERIES_KINDS) == [k.name for k in MODEL_KINDS if k.per_series]
     assert BASELINE in BASELINE_KINDS
+    assert list(SIMPLE_REFERENCES) == [k.name for k in MODEL_KINDS if k.always]
+
+
+def test_the_simple_references_are_time_ordered_baselines_beside_the_mean_baseline():
+    assert SIMPLE_REFERENCES == ("calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive")
+    assert MODEL_KINDS[0].name == BASELINE and not MODEL_KINDS[0].always
+    for name in SIMPLE_REFERENCES:
+        assert MODELS[name].baseline and MODELS[name].can("needs_time_order"), name
 
 
 def test_metric_lists_agree_with_metrics():
@@ -158,6 +167,8 @@ def test_metrics_rank_a_better_forecast_the_way_they_say():
     ("ols_per_series", "OLS per series"),
     ("mean_baseline", "the mean baseline"),
     ("seasonal_naive", "same month last year"),
+    ("calendar_month_mean", "calendar-month average"),
+    ("trailing_mean", "trailing 12-month mean"),
     ("elastic_net", "elastic net"),
     ("drift_per_series", "drift_per_series"),   # drift is never fitted per series: shown as given
     ("not_a_model", "not_a_model"),

@@ -1,7 +1,9 @@
 """The baselines (pipeline/models/baselines.py), each against an independent computation.
 
-References: pandas groupby for the mean and the last value per series; pandas
-shift(12) within each series for the seasonal naive forecast; and, for drift, the
+References: pandas groupby for the mean and the last value per series, for the
+calendar-month average (groupby series and month of the year) and for the trailing
+12-month mean (groupby series, tail(12) of months in order); pandas shift(12)
+within each series for the seasonal naive forecast; and, for drift, the
 formula in Hyndman & Athanasopoulos, "Forecasting: Principles and Practice",
 §5.2 (recalled from memory): ŷ(T+h) = y(T) + h · (y(T) − y(1)) / (T − 1).
 
@@ -19,7 +21,14 @@ import pandas as pd
 import pytest
 
 from pipeline.core.design import Design
-from pipeline.models.baselines import Drift, LastValue, MeanBaseline, SeasonalNaive
+from pipeline.models.baselines import (
+    CalendarMonthMean,
+    Drift,
+    LastValue,
+    MeanBaseline,
+    SeasonalNaive,
+    TrailingMean,
+)
 
 START = pd.Period("2018-01", freq="M").ordinal   # months since 1970-01, as Design.period holds them
 MONTHS, TRAIN = 40, 30
@@ -87,6 +96,60 @@ def test_seasonal_naive_falls_back_to_the_series_mean_for_a_month_it_has_not_see
     np.testing.assert_allclose(model.predict(design_of(september)), [mean_a], rtol=1e-13)
 
 
+def test_calendar_month_mean_equals_pandas_groupby_by_series_and_month(panel):
+    """Reference: pandas groupby over (series, month of the year) of the training rows; the
+    30 training months hold each month of the year two or three times."""
+    train, test = split(panel)
+    model = CalendarMonthMean().fit(design_of(train), train["y"])
+    month = pd.PeriodIndex.from_ordinals(train["period"], freq="M").month
+    means = train.groupby([train["series"], month])["y"].mean()
+    test_month = pd.PeriodIndex.from_ordinals(test["period"], freq="M").month
+    expected = means.reindex(pd.MultiIndex.from_arrays([test["series"], test_month])).to_numpy()
+    assert not np.isnan(expected).any()
+    np.testing.assert_allclose(model.predict(design_of(test)), expected, rtol=1e-13)
+
+
+def test_calendar_month_mean_falls_back_to_the_series_mean_then_the_overall_mean(panel):
+    """Reference: pandas means of the training rows (a series' own, then all of them)."""
+    train = panel[(panel["period"] >= START) & (panel["period"] < START + 6)]   # January to June only
+    model = CalendarMonthMean().fit(design_of(train), train["y"])
+    rows = pd.DataFrame({"series": ["A", "Z"], "period": [START + 8, START + 1]})   # A in September; Z unseen
+    expected = [train.loc[train["series"] == "A", "y"].mean(), train["y"].mean()]
+    np.testing.assert_allclose(model.predict(design_of(rows)), expected, rtol=1e-13)
+
+
+def ragged(panel) -> pd.DataFrame:
+    """The training window with series C ending five months early and a series D of only five
+    months, so the series' last months differ and one series is shorter than a year."""
+    train, _ = split(panel)
+    train = train[(train["series"] != "C") | (train["period"] < START + TRAIN - 5)]
+    short = pd.DataFrame({"series": "D", "period": START + np.arange(TRAIN - 5, TRAIN),
+                          "y": [3.0, 5.0, 4.0, 8.0, 6.0]})
+    return pd.concat([train, short], ignore_index=True).sample(frac=1.0, random_state=2)
+
+
+def test_trailing_mean_is_each_series_mean_over_its_own_last_twelve_months(panel):
+    """Reference: pandas, each series' rows sorted by month and its last 12 rows (tail(12)),
+    then groupby mean; every series' months are consecutive, so 12 rows are 12 months."""
+    train = ragged(panel)
+    model = TrailingMean().fit(design_of(train), train["y"])
+    trailing = train.sort_values("period").groupby("series").tail(12)
+    expected = trailing.groupby("series")["y"].mean()
+    assert expected["D"] == pytest.approx(np.mean([3.0, 5.0, 4.0, 8.0, 6.0]))   # by hand: a short series
+    rows = pd.DataFrame({"series": ["A", "B", "C", "D"], "period": START + TRAIN})
+    np.testing.assert_allclose(model.predict(design_of(rows)), expected[rows["series"]].to_numpy(),
+                               rtol=1e-13)
+
+
+def test_trailing_mean_of_a_series_not_in_training_is_the_mean_of_all_trailing_months(panel):
+    """Reference: pandas, the mean of every series' last 12 rows taken together."""
+    train = ragged(panel)
+    model = TrailingMean().fit(design_of(train), train["y"])
+    trailing = train.sort_values("period").groupby("series").tail(12)
+    unseen = pd.DataFrame({"series": ["Z"], "period": [START + TRAIN]})
+    np.testing.assert_allclose(model.predict(design_of(unseen)), [trailing["y"].mean()], rtol=1e-13)
+
+
 def test_drift_is_last_plus_slope_times_months_ahead(panel):
     train, test = split(panel)
     model = Drift().fit(design_of(train), train["y"])
@@ -107,7 +170,7 @@ def test_drift_of_a_single_month_series_is_flat():
     np.testing.assert_array_equal(model.predict(ahead), [7.0, 7.0])
 
 
-@pytest.mark.parametrize("cls", [MeanBaseline, LastValue, SeasonalNaive, Drift])
+@pytest.mark.parametrize("cls", [MeanBaseline, CalendarMonthMean, TrailingMean, LastValue, SeasonalNaive, Drift])
 def test_a_stored_baseline_predicts_the_same(cls, panel):
     train, test = split(panel)
     model = cls().fit(design_of(train), train["y"])

@@ -44,10 +44,10 @@ def _assert_same_forecasts(written: Path, folder: Path) -> None:
 V2 = TEST_DATA / "model_files_v2"
 
 
-# Version 2's fixture leaves the estimated drivers empty in its months to forecast: the
-# stored estimates fill them.
-@pytest.mark.parametrize("folder", [V1 / name for name in FIXTURES] + [V2 / "estimated"],
-                         ids=[*FIXTURES, "v2-estimated"])
+# Version 2's `estimated` leaves the estimated drivers empty in its months to forecast: the
+# stored estimates fill them. `references` holds the calendar-month and trailing means.
+@pytest.mark.parametrize("folder", [V1 / name for name in FIXTURES] + [V2 / "estimated", V2 / "references"],
+                         ids=[*FIXTURES, "v2-estimated", "v2-references"])
 def test_a_model_file_forecasts_what_its_run_wrote(folder, tmp_path, capsys):
     output = tmp_path / "forecast.csv"
     code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),

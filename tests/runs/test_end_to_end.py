@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
-from conftest import DEMO_DATA, DEMO_SPEC, ROOT
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT, tiny_data, write_tiny_spec
 
 import pipeline
 import pipeline.present.pages as pages
@@ -414,3 +414,51 @@ def test_an_unseen_region_is_reported_at_its_file_and_line(tmp_path):
     with pytest.raises(UserError) as info:
         pipeline.run(spec, output_folder=tmp_path / "out")
     assert f"{data}:{line}" in str(info.value)
+
+
+# ---------------------------------------------------------------- the simple references
+
+def _reference_predictions(window: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:
+    """Return the calendar-month average and the trailing 12-month mean of `rows` from the
+    months of `window`, computed here with pandas groupby (each region's months are
+    consecutive, so its last 12 rows are its last 12 months)."""
+    month = pd.PeriodIndex(window["period"], freq="M").month
+    by_month = window.groupby([window["region"], month])["y"].mean()
+    trailing = window.sort_values("period").groupby("region").tail(12).groupby("region")["y"].mean()
+    wanted = pd.MultiIndex.from_arrays([rows["region"], pd.PeriodIndex(rows["period"], freq="M").month])
+    return pd.concat([
+        pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
+                      "model": "calendar_month_mean", "expected": by_month.reindex(wanted).to_numpy()}),
+        pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
+                      "model": "trailing_mean", "expected": rows["region"].map(trailing).to_numpy()})])
+
+
+def test_the_simple_references_run_end_to_end_under_rolling_origin(tmp_path):
+    """A spec with models [calendar_month_mean, trailing_mean] under rolling_origin: every
+    origin's predictions and the forecast equal pandas groupby over the months before them.
+    Plumbing data (conftest.tiny_data, invented): the references are computed here."""
+    data = tiny_data(("North", "South"))
+    spec = write_tiny_spec(tmp_path, data, actuals_to="2021-12",
+                           validation={"method": "rolling_origin", "horizon": 2, "min_train_periods": 14,
+                                       "step": 2},
+                           models=["calendar_month_mean", "trailing_mean"])
+    result = pipeline.run(spec)
+    assert list(result.metrics["model"]) == ["mean_baseline", "calendar_month_mean", "trailing_mean"]
+    history = data.assign(period=pd.to_datetime(data["month"]).dt.to_period("M").astype(str))
+    history = history[history["period"] <= "2021-12"]
+    predictions = result.predictions[result.predictions["model"] != "mean_baseline"].astype(
+        {"origin": str, "period": str})
+    assert predictions["origin"].nunique() > 1
+    expected = pd.concat([
+        _reference_predictions(history[history["period"] <= origin],
+                               history[history["period"].isin(rows["period"])]).assign(origin=origin)
+        for origin, rows in predictions.groupby("origin")])
+    merged = predictions.merge(expected, on=["origin", "period", "series", "model"], validate="one_to_one")
+    assert len(merged) == len(predictions)
+    np.testing.assert_allclose(merged["prediction"], merged["expected"], rtol=1e-12)
+    forecast = result.forecast[result.forecast["model"] != "mean_baseline"].astype({"period": str})
+    future = forecast[["period", "series"]].drop_duplicates().rename(columns={"series": "region"})
+    merged = forecast.merge(_reference_predictions(history, future), on=["period", "series", "model"],
+                            validate="one_to_one")
+    assert len(merged) == len(forecast) == 2 * 2 * 3
+    np.testing.assert_allclose(merged["forecast"], merged["expected"], rtol=1e-12)
