@@ -109,10 +109,15 @@ def _command_run(args) -> int:
     print(result.evaluation.verdict)
     summary = result.evaluation.series_summary
     if len(summary) and int(summary["series"].max()) > 1:
+        from pipeline.stages.evaluate import is_simple_rule
+        tested = result.evaluation.tested
         for row in summary.itertuples():
+            if is_simple_rule(row.model) and row.model != result.evaluation.recommended:
+                continue   # the simple rules' per-series lines are in series.csv
+            significant = (f"significantly in {row.beats_significantly} ({row.significant_share:.0%}, "
+                           "Holm-adjusted across series)" if tested else "not tested")
             print(f"per series: {row.model} beats the mean baseline in {row.beats} of {row.series} "
-                  f"series ({row.beats_share:.0%}), significantly in {row.beats_significantly} "
-                  f"({row.significant_share:.0%}); see series.csv")
+                  f"series ({row.beats_share:.0%}), {significant}; see series.csv")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
     for note in result.evaluation.ahead_notes + result.evaluation.notes:

@@ -18,7 +18,14 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
-from pipeline.core.catalogue import BASELINE, MODELS, PER_SERIES, PER_SERIES_KINDS, SELECT_METRICS
+from pipeline.core.catalogue import (
+    BASELINE,
+    MODELS,
+    PER_SERIES,
+    PER_SERIES_KINDS,
+    SELECT_METRICS,
+    SIMPLE_REFERENCES,
+)
 from pipeline.core.errors import SpecError
 from pipeline.spec.keys import KeyPath, SpecOrigin, format_key_path
 
@@ -475,6 +482,25 @@ class Spec(StrictModel):
         if isinstance(value, str) and ("/" in value or "\\" in value or ".." in value):
             raise ValueError("a name, not a path: '/', '\\' and '..' are refused")
         return value
+
+    @model_validator(mode="before")
+    @classmethod
+    def _simple_rules_beside(cls, data: Any) -> Any:
+        # A model must beat the best simple rule a planner could use, not only the plain
+        # average: under a time-ordered validation the simple rules are always compared,
+        # whatever ``models`` lists (they cost next to nothing).
+        if not isinstance(data, dict) or not isinstance(data.get("models"), list):
+            return data
+        validation = data.get("validation")
+        method = validation.get("method") if isinstance(validation, dict) else \
+            getattr(validation, "method", None)
+        if method not in TIME_ORDERED:
+            return data
+        listed = {item if isinstance(item, str) else
+                  item.get("kind") if isinstance(item, dict) else getattr(item, "kind", None)
+                  for item in data["models"]}
+        missing = [kind for kind in SIMPLE_REFERENCES if kind not in listed]
+        return {**data, "models": [*data["models"], *missing]} if missing else data
 
     @field_validator("models", mode="before")
     @classmethod
