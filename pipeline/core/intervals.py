@@ -59,6 +59,66 @@ def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, residuals: pd.D
     return forecast + below[use], forecast + above[use]
 
 
+def _quantiles_by_horizon(horizons: np.ndarray, residuals: np.ndarray,
+                          tails: list[float]) -> tuple[np.ndarray, np.ndarray]:
+    """Return the horizons with at least MIN_ERRORS residuals, sorted, and each one's
+    residual quantiles at ``tails`` (one row per horizon), as ``empirical_offsets`` computes
+    them; with no such horizon but MIN_ERRORS residuals in all (no time order: k-fold), the
+    quantiles of all of them together, under horizon 0 (as ``empirical_bounds``)."""
+    order = np.argsort(horizons, kind="stable")
+    keys, starts, counts = np.unique(horizons[order], return_index=True, return_counts=True)
+    ordered = residuals[order]
+    kept = [(key, start, count) for key, start, count in zip(keys, starts, counts) if count >= MIN_ERRORS]
+    if not kept:
+        if len(residuals) < MIN_ERRORS:
+            return np.zeros(0), np.zeros((0, len(tails)))
+        return np.zeros(1), np.quantile(residuals, tails)[None, :]
+    return (np.array([key for key, _, _ in kept], float),
+            np.array([np.quantile(ordered[start:start + count], tails) for _, start, count in kept]))
+
+
+def _earlier_rows(rank: np.ndarray, period_of: np.ndarray, index: int, origin: str,
+                  time_ordered: bool) -> np.ndarray:
+    """Return which rows an interval stated at the origin numbered ``index`` may learn from:
+    those of earlier origins and, when the origins are months, for months already past."""
+    mask = rank < index
+    if time_ordered:
+        mask &= period_of <= origin
+    return mask
+
+
+def _empirical_coverage(own: pd.DataFrame) -> dict[float, tuple[int, int]]:
+    """Return, per level, how many backtest actuals fell inside the empirical interval an
+    origin would have stated from the errors of earlier origins (for months already past
+    at it, when the origins are months), and how many were scored."""
+    origins = sorted(own["origin"].unique())
+    time_ordered = all(str(o)[:4].isdigit() for o in origins)
+    rank = np.searchsorted(np.array(origins, dtype=object), own["origin"].to_numpy(object))
+    period_of = own["period"].astype(str).to_numpy()
+    horizon = own["horizon"].to_numpy(float)
+    prediction = own["prediction"].to_numpy(float)
+    actual = own["actual"].to_numpy(float)
+    residual = actual - prediction
+    tails = [t for level in LEVELS for t in ((1 - level) / 2, 1 - (1 - level) / 2)]
+    counts = {level: [0, 0] for level in LEVELS}
+    for index, origin in enumerate(origins):
+        mask = _earlier_rows(rank, period_of, index, str(origin), time_ordered)
+        if mask.sum() < MIN_ERRORS:
+            continue
+        known, quantiles = _quantiles_by_horizon(horizon[mask], residual[mask], tails)
+        if not len(known):
+            continue
+        now = rank == index
+        # Each row takes the furthest measured horizon not beyond its own (as empirical_bounds).
+        use = np.maximum(np.searchsorted(known, horizon[now], side="right") - 1, 0)
+        for number, level in enumerate(LEVELS):
+            low = prediction[now] + quantiles[use, 2 * number]
+            high = prediction[now] + quantiles[use, 2 * number + 1]
+            counts[level][0] += int(((actual[now] >= low) & (actual[now] <= high)).sum())
+            counts[level][1] += int(now.sum())
+    return {level: (inside, scored) for level, (inside, scored) in counts.items()}
+
+
 def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
     """Return, per model, method and level, the share of backtest actuals inside the interval.
 
@@ -68,6 +128,7 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
     """
     rows = []
     for model, own in predictions.groupby("model", sort=False):
+        empirical = _empirical_coverage(own)
         for level in LEVELS:
             with_se = own[np.isfinite(own["prediction_se"])]
             if len(with_se):
@@ -76,27 +137,7 @@ def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
                 inside = (with_se["actual"] >= low) & (with_se["actual"] <= high)
                 rows.append({"model": model, "method": "analytic", "level": level,
                              "coverage": float(inside.mean()), "n": len(with_se)})
-            inside_count, scored = 0, 0
-            origins = sorted(own["origin"].unique())
-            time_ordered = all(str(o)[:4].isdigit() for o in origins)
-            origin_of = own["origin"].to_numpy()
-            period_of = own["period"].astype(str).to_numpy()
-            for index, origin in enumerate(origins):
-                mask = np.isin(origin_of, origins[:index])
-                if time_ordered:  # only errors of months already past at this origin
-                    mask &= period_of <= str(origin)
-                earlier = own[mask]
-                if len(earlier) < MIN_ERRORS:
-                    continue
-                residuals = pd.DataFrame({"horizon": earlier["horizon"],
-                                          "residual": earlier["actual"] - earlier["prediction"]})
-                now = own[origin_of == origin]
-                low, high = empirical_bounds(now["prediction"].to_numpy(), now["horizon"].to_numpy(),
-                                             residuals, level)
-                known = np.isfinite(low)
-                actual = now["actual"].to_numpy()[known]
-                inside_count += int(((actual >= low[known]) & (actual <= high[known])).sum())
-                scored += int(known.sum())
+            inside_count, scored = empirical[level]
             rows.append({"model": model, "method": "empirical", "level": level,
                          "coverage": inside_count / scored if scored else float("nan"), "n": scored})
     return pd.DataFrame(rows, columns=["model", "method", "level", "coverage", "n"])

@@ -193,23 +193,25 @@ def _rolling_predictions(seed: int = 11, origins: int = 24, horizon: int = 3) ->
 
 
 class _Recorder:
-    """Wraps intervals.empirical_bounds and records the rows whose errors each call used."""
+    """Wraps intervals._earlier_rows and records the rows each origin's interval learned from
+    (the predictions hold one model, so the mask is over all of them)."""
 
     def __init__(self, predictions: pd.DataFrame) -> None:
         self.predictions = predictions
         self.calls: list[pd.DataFrame] = []
-        self.original = intervals.empirical_bounds
+        self.original = intervals._earlier_rows
 
-    def __call__(self, forecast, horizons, errors, level):
-        # coverage() builds the errors frame from the earlier rows, keeping their index.
-        self.calls.append(self.predictions.loc[errors.index])
-        return self.original(forecast, horizons, errors, level)
+    def __call__(self, *args):
+        mask = self.original(*args)
+        if mask.sum() >= MIN_ERRORS:   # an origin with fewer is not scored
+            self.calls.append(self.predictions[mask])
+        return mask
 
 
 def _recorded(monkeypatch, predictions: pd.DataFrame) -> tuple[list[pd.DataFrame], list[str]]:
-    """Return the rows used at each call and the origin each call scored (two levels each)."""
+    """Return the rows used at each scored origin and the origins scored."""
     recorder = _Recorder(predictions)
-    monkeypatch.setattr(intervals, "empirical_bounds", recorder)
+    monkeypatch.setattr(intervals, "_earlier_rows", recorder)
     coverage(predictions)
     origins = sorted(predictions["origin"].unique())
     # An origin is scored once the earlier origins' errors for months already past number
@@ -217,8 +219,8 @@ def _recorded(monkeypatch, predictions: pd.DataFrame) -> tuple[list[pd.DataFrame
     scored = [o for i, o in enumerate(origins)
               if ((predictions["origin"].isin(origins[:i])) & (predictions["period"] <= o)).sum()
               >= MIN_ERRORS]
-    assert len(recorder.calls) == 2 * len(scored)                        # one per origin and level
-    return recorder.calls, [o for _ in intervals.LEVELS for o in scored]   # level by level
+    assert len(recorder.calls) == len(scored)                        # one per origin scored
+    return recorder.calls, scored
 
 
 def test_an_empirical_interval_at_an_origin_only_uses_errors_of_earlier_origins(monkeypatch):
