@@ -9,6 +9,7 @@ from pathlib import Path
 import yaml
 
 from pipeline.core.formatting import format_number
+from pipeline.core.significance import MIN_ORIGINS
 from pipeline.spec import CsvOptions
 from pipeline.stages.survey import CALENDAR_MONTHS, MAX_LEVELS, Inference
 
@@ -96,6 +97,22 @@ def _column_lines(found: Inference) -> list[str]:
     return lines
 
 
+def _validation_lines(history: int, horizon: int) -> list[str]:
+    """Return the validation section: rolling origins when the history allows a test (a
+    first window of two years or more, then MIN_ORIGINS origins or more), else a holdout."""
+    first = max(24, history - horizon - 35)    # about 36 origins once the history is long
+    if first + horizon + MIN_ORIGINS - 1 <= history:
+        return [f"# Test out of sample at every month from the {first}th on: fit on the months up to it,",
+                f"# predict the next {horizon}, and compare with what happened; many origins let the",
+                "# answer say whether a model's advantage is more than luck.",
+                "validation:", "  method: rolling_origin", f"  horizon: {horizon}",
+                f"  min_train_periods: {first}"]
+    return [f"# Test out of sample on the last {horizon} months of history. With so few months a",
+            "# single holdout gives a point estimate and no test of luck; with more history,",
+            "# method: rolling_origin does.",
+            "validation:", "  method: holdout", f"  last_periods: {horizon}"]
+
+
 def render_spec(found: Inference, spec_path: Path) -> str:
     """Return a commented starter spec for the inferred data."""
     data_file = os.path.relpath(found.path.resolve(), spec_path.resolve().parent)
@@ -138,10 +155,7 @@ def render_spec(found: Inference, spec_path: Path) -> str:
         "columns:",
         *_column_lines(found),
         "",
-        f"# Test out of sample on the last {holdout} months of history.",
-        "validation:",
-        "  method: holdout",
-        f"  last_periods: {holdout}",
+        *_validation_lines(found.history_periods, holdout),
         "",
         "models: [ols]               # the mean baseline is always fitted beside them",
         "",
