@@ -63,6 +63,7 @@ def render_summary(files: RunFiles) -> str:
         "summary.md.j2", spec_name=metrics["spec_name"], run_id=metrics["run_id"],
         created=metrics["created"], verdict=metrics["verdict"], recommended=recommended,
         select_by=metrics["select_by"], beats=metrics["beats_baseline"], ahead=ahead,
+        tested=metrics.get("tested", True),
         validation=metrics["validation_text"],
         comparison=pd.DataFrame(rows)[["model", *SCORES, "against_mean"]],
         forecast=shown.head(TABLE_ROWS) if shown is not None else None,

@@ -147,6 +147,10 @@ def _metrics_document(spec: Spec, data: CheckedData, evaluation: Evaluation, for
         "significance_level": spec.significance_level,
         "series_summary": _records(evaluation.series_summary),
         "beats_baseline": evaluation.beats_baseline,
+        # The best simple rule, whether the recommended model beats it too, and whether the
+        # validation allowed a test at all (a single holdout does not).
+        "best_rule": evaluation.best_rule, "beats_best_rule": evaluation.beats_best_rule,
+        "tested": evaluation.tested,
         "select_by": evaluation.select_by,
         "interval_coverage": _records(evaluation.coverage),
         "drivers_ahead": drivers_ahead(spec),
