@@ -37,7 +37,7 @@ CAUTIONS = [
     "The comparison rests on the validation windows of this run; other windows can rank the "
     "models differently, and a significance test is only as good as its assumptions.",
 ]
-COMPARISON = ["model", *SCORES, "p_value", "against_mean"]
+COMPARISON = ["model", *SCORES, "skill_vs_best_rule", "p_holm", "against_mean"]
 # With more series than this, pictures show a few series and the drivers are summarised
 # across series; the run folder's CSV files keep every row.
 MANY_SERIES = plots.MAX_PANELS
@@ -294,7 +294,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         validation=metrics.get("validation_text", metrics.get("validation", {}).get("method", "")),
         verdict=metrics["verdict"], beats=metrics.get("beats_baseline", False), recommended=recommended,
         recommended_skill=chosen.get("skill_vs_mean") if recommended != "mean_baseline" else None,
-        recommended_p=chosen.get("p_value") if recommended != "mean_baseline" else None,
+        recommended_p=chosen.get("p_holm", chosen.get("p_value")) if recommended != "mean_baseline" else None,
         comparison=rows, comparison_columns=[c for c in COMPARISON if any(c in r for r in rows)],
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,

@@ -435,25 +435,21 @@ def is_simple_rule(name: str) -> bool:
 def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
               tested: bool) -> list[str]:
     """Return each model's reading against the mean baseline, by its Holm-adjusted p-value
-    (the raw one beside it when several models were compared)."""
-    compared = int(np.isfinite(table["p_holm"].to_numpy(float)).sum())
+    (adjusted for the models compared; the raw one is in the table's p_value)."""
     readings = []
     for row, identical in zip(table.itertuples(), same):
         adjusted = row.p_holm
-        shown = (f"{_p_text(adjusted)}, Holm-adjusted for {compared} models; raw "
-                 f"{_p_text(row.p_value)}" if compared > 1 else _p_text(adjusted))
         if row.model == BASELINE:
             readings.append("the reference")
         elif identical:
             readings.append("the same forecasts as the mean baseline")
         elif not tested:
             lower = np.isfinite(row.skill_vs_mean) and row.skill_vs_mean > 0
-            readings.append(f"{'lower' if lower else 'no lower'} {metric} than the mean baseline "
-                            "(not tested)")
+            readings.append(f"{'lower' if lower else 'no lower'} {metric}, not tested")
         elif np.isfinite(adjusted) and adjusted < level:
-            readings.append(f"beats the mean baseline ({shown})")
+            readings.append(f"beats the mean baseline (Holm {_p_text(adjusted)})")
         else:
-            readings.append(f"no better than the mean baseline ({shown})")
+            readings.append(f"no better than the mean baseline (Holm {_p_text(adjusted)})")
     return readings
 
 
