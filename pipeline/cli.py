@@ -109,7 +109,7 @@ def _command_run(args) -> int:
     print(result.evaluation.verdict)
     summary = result.evaluation.series_summary
     if len(summary) and int(summary["series"].max()) > 1:
-        from pipeline.stages.evaluate import is_simple_rule
+        from pipeline.stages.answer import is_simple_rule
         tested = result.evaluation.tested
         for row in summary.itertuples():
             if is_simple_rule(row.model) and row.model != result.evaluation.recommended:

@@ -20,10 +20,12 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core import metrics
-from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_kind, model_label
+from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
 from pipeline.core.intervals import coverage
 from pipeline.core.significance import METHOD, MIN_ORIGINS, holm, origin_test, origin_tests
 from pipeline.spec import Spec
+from pipeline.stages.answer import answer as compose_answer
+from pipeline.stages.answer import is_simple_rule, p_text
 from pipeline.stages.backtest import BacktestResult
 
 METRIC_COLUMNS = ["n", *METRIC_NAMES]
@@ -424,14 +426,6 @@ def _tested(predictions: pd.DataFrame, model: str, reference: str, select_by: st
     return (test.statistic, test.p_value) if test else (np.nan, np.nan)
 
 
-def is_simple_rule(name: str) -> bool:
-    """Return whether a model is a simple reference rule (the mean baseline among them)."""
-    try:
-        return model_kind(name).baseline
-    except KeyError:
-        return False
-
-
 def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
               tested: bool) -> list[str]:
     """Return each model's reading against the mean baseline, by its Holm-adjusted p-value
@@ -447,22 +441,10 @@ def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
             lower = np.isfinite(row.skill_vs_mean) and row.skill_vs_mean > 0
             readings.append(f"{'lower' if lower else 'no lower'} {metric}, not tested")
         elif np.isfinite(adjusted) and adjusted < level:
-            readings.append(f"beats the mean baseline (Holm {_p_text(adjusted)})")
+            readings.append(f"beats the mean baseline (Holm {p_text(adjusted)})")
         else:
-            readings.append(f"no better than the mean baseline (Holm {_p_text(adjusted)})")
+            readings.append(f"no better than the mean baseline (Holm {p_text(adjusted)})")
     return readings
-
-
-def _adjusted_for(table: pd.DataFrame, column: str = "p_holm", what: str = "models") -> str:
-    """Return ", Holm-adjusted for the K models compared" when more than one was."""
-    compared = int(np.isfinite(table[column].to_numpy(float)).sum())
-    return f", Holm-adjusted for the {compared} {what} compared" if compared > 1 else ""
-
-
-def _p_text(p: float) -> str:
-    if not np.isfinite(p):
-        return "p not available"
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
 
 
 def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: str,
@@ -484,75 +466,6 @@ def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: st
     table["p_best_rule"] = p_values
     table["p_best_rule_holm"] = holm(p_values)
     return best_rule, table
-
-
-@dataclass(frozen=True)
-class _Answer:
-    verdict: str
-    beats: bool          # significantly better than the mean baseline
-    beats_rule: bool     # ... and than the best simple rule
-
-
-def _answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str, level: float,
-            refusal: str | None) -> _Answer:
-    """Return the answer in words: against the mean baseline (the user's question) and the
-    best simple rule, with the Holm-adjusted p-values, or why there are none."""
-    metric = select_by.upper()
-    value = table.set_index("model")[select_by].astype(float)
-    base, own = value[BASELINE], value[recommended]
-    name = model_label(recommended)
-    rule_name = model_label(best_rule)
-    lower = metrics.skill(own, base)
-    said = f"({own:.4g} against {base:.4g})"
-    if recommended == BASELINE:
-        return _Answer(f"No model or simple rule beats the mean baseline out of sample on {metric}: "
-                       "the plain average of each series' history is as good a forecast here.",
-                       False, False)
-    row = table.set_index("model").loc[recommended]
-    p = float(row["p_holm"])
-    beats = refusal is None and np.isfinite(p) and p < level
-    against = f"{_p_text(p)}{_adjusted_for(table)}"
-    untested = f" {refusal[0].upper()}{refusal[1:]}." if refusal else ""
-    if is_simple_rule(recommended):
-        if refusal:
-            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}"
-        elif beats:
-            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}; {against}"
-        else:
-            lead = (f"its {metric} is {lower:.0%} lower than the mean baseline's {said}, though by "
-                    f"the significance test that may be luck ({against})")
-        return _Answer(f"The best forecast here is a simple rule, the {name}: {lead}. No linear "
-                       f"model does better.{untested}", beats, False)
-    rule = value[best_rule]
-    over_rule = metrics.skill(own, rule)
-    p_rule = float(row["p_best_rule_holm"])
-    beats_rule = beats and (best_rule == BASELINE or (np.isfinite(p_rule) and p_rule < level))
-    rule_said = f"{_p_text(p_rule)}{_adjusted_for(table, 'p_best_rule_holm', 'linear models')}"
-    no_rule = "; no simple rule beats the mean baseline" if best_rule == BASELINE else ""
-    if refusal:
-        versus = (f" and {over_rule:.0%} lower than the best simple rule's (the {rule_name}, "
-                  f"{rule:.4g})" if best_rule != BASELINE else "")
-        return _Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than the mean baseline's "
-                       f"{said}{versus}{no_rule}.{untested}", False, False)
-    if not beats:
-        versus = (f", nor than the best simple rule, the {rule_name} ({rule:.4g})"
-                  if best_rule != BASELINE else no_rule)
-        return _Answer(f"{name} has the lowest {metric} ({own:.4g} against {base:.4g} for the mean "
-                       f"baseline), but it is no better than the mean baseline by the significance "
-                       f"test ({against}): the difference may be luck{versus}.", False, False)
-    if best_rule == BASELINE:
-        return _Answer(f"{name} beats the mean baseline out of sample ({against}): its {metric} is "
-                       f"{lower:.1%} lower {said}{no_rule}.", True, True)
-    if beats_rule:
-        return _Answer(f"{name} beats the mean baseline by {lower:.0%} and the best simple rule, the "
-                       f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({own:.4g} against "
-                       f"{base:.4g} and {rule:.4g}; {against}; against the rule {rule_said}).",
-                       True, True)
-    return _Answer(f"{name} beats the mean baseline by {lower:.0%} on {metric} out of sample "
-                   f"({against}), but not clearly the best simple rule, the {rule_name}: its "
-                   f"{metric} is {over_rule:.0%} lower than that rule's ({own:.4g} against "
-                   f"{rule:.4g}), which may be luck ({rule_said}). The simple rule forecasts "
-                   "nearly as well.", True, False)
 
 
 def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
@@ -594,7 +507,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                        | (table[select_by] < baseline_value - 1e-9 * abs(baseline_value))]
     contenders = contenders[contenders[select_by].notna()]
     recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
-    answer = _answer(table, recommended, best_rule, select_by, level, refusal)
+    answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)
     time_ordered = backtest.scheme in ("holdout", "rolling_origin")
     by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
     by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \

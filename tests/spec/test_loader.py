@@ -10,7 +10,7 @@ import shutil
 from pathlib import Path
 
 import pytest
-from conftest import DEMO_DATA, DEMO_SPEC, ROOT
+from conftest import DEMO_DATA, DEMO_SPEC, ROOT, SHIPPED_DEMO_DATA, SHIPPED_DEMO_SPEC
 
 from pipeline import Spec, SpecError, load_spec
 
@@ -96,16 +96,19 @@ def assert_placed(error: SpecError, path: Path, line: int, key: str | None = Non
 # ---------------------------------------------------------------- specs that load
 
 def test_demo_spec_loads_with_paths_resolved_against_its_folder():
-    spec = load_spec(DEMO_SPEC)
+    spec = load_spec(SHIPPED_DEMO_SPEC)
     assert isinstance(spec, Spec)
     assert spec.input.file.is_absolute() and spec.output.folder.is_absolute()
     # configs/compost_demo.yaml says ../data_samples/compost_sales.csv and ../reports
-    assert spec.input.file == DEMO_DATA
+    assert spec.input.file == SHIPPED_DEMO_DATA
     assert spec.output.folder == ROOT / "reports"
-    assert spec.source == DEMO_SPEC
+    assert spec.source == SHIPPED_DEMO_SPEC
     assert spec.target == "bags_sold"
     assert model_kinds(spec)[0] == "mean_baseline" and "ols" in model_kinds(spec)
-    assert spec.validation.method == "holdout"
+    assert spec.validation.method == "rolling_origin"
+    # The simple rules are compared whatever models lists (after it, in the catalogue's order).
+    assert model_kinds(spec)[-4:] == ["calendar_month_mean", "trailing_mean", "last_value",
+                                      "seasonal_naive"]
 
 
 def test_relative_paths_resolve_against_the_spec_folder_not_the_working_folder(tmp_path, monkeypatch):

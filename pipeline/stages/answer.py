@@ -1,0 +1,102 @@
+"""The answer in words: the recommended model against the mean baseline (the user's
+question) and against the best simple rule, with the Holm-adjusted p-values, or why the
+validation gave none."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from pipeline.core import metrics
+from pipeline.core.catalogue import BASELINE, model_kind, model_label
+
+
+def is_simple_rule(name: str) -> bool:
+    """Return whether a model is a simple reference rule (the mean baseline among them)."""
+    try:
+        return model_kind(name).baseline
+    except KeyError:
+        return False
+
+
+def adjusted_for(table: pd.DataFrame, column: str = "p_holm", what: str = "models") -> str:
+    """Return ", Holm-adjusted for the K models compared" when more than one was."""
+    compared = int(np.isfinite(table[column].to_numpy(float)).sum())
+    return f", Holm-adjusted for the {compared} {what} compared" if compared > 1 else ""
+
+
+def p_text(p: float) -> str:
+    if not np.isfinite(p):
+        return "p not available"
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+@dataclass(frozen=True)
+class Answer:
+    verdict: str
+    beats: bool          # significantly better than the mean baseline
+    beats_rule: bool     # ... and than the best simple rule
+
+
+def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str, level: float,
+            refusal: str | None) -> Answer:
+    """Return the answer in words: against the mean baseline (the user's question) and the
+    best simple rule, with the Holm-adjusted p-values, or why there are none."""
+    metric = select_by.upper()
+    value = table.set_index("model")[select_by].astype(float)
+    base, own = value[BASELINE], value[recommended]
+    name = model_label(recommended)
+    rule_name = model_label(best_rule)
+    lower = metrics.skill(own, base)
+    said = f"({own:.4g} against {base:.4g})"
+    if recommended == BASELINE:
+        return Answer(f"No model or simple rule beats the mean baseline out of sample on {metric}: "
+                       "the plain average of each series' history is as good a forecast here.",
+                       False, False)
+    row = table.set_index("model").loc[recommended]
+    p = float(row["p_holm"])
+    beats = refusal is None and np.isfinite(p) and p < level
+    against = f"{p_text(p)}{adjusted_for(table)}"
+    untested = f" {refusal[0].upper()}{refusal[1:]}." if refusal else ""
+    if is_simple_rule(recommended):
+        if refusal:
+            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}"
+        elif beats:
+            lead = f"its {metric} is {lower:.0%} lower than the mean baseline's {said}; {against}"
+        else:
+            lead = (f"its {metric} is {lower:.0%} lower than the mean baseline's {said}, though by "
+                    f"the significance test that may be luck ({against})")
+        return Answer(f"The best forecast here is a simple rule, the {name}: {lead}. No linear "
+                       f"model does better.{untested}", beats, False)
+    rule = value[best_rule]
+    over_rule = metrics.skill(own, rule)
+    p_rule = float(row["p_best_rule_holm"])
+    beats_rule = beats and (best_rule == BASELINE or (np.isfinite(p_rule) and p_rule < level))
+    rule_said = f"{p_text(p_rule)}{adjusted_for(table, 'p_best_rule_holm', 'linear models')}"
+    no_rule = "; no simple rule beats the mean baseline" if best_rule == BASELINE else ""
+    if refusal:
+        versus = (f" and {over_rule:.0%} lower than the best simple rule's (the {rule_name}, "
+                  f"{rule:.4g})" if best_rule != BASELINE else "")
+        return Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than the mean baseline's "
+                       f"{said}{versus}{no_rule}.{untested}", False, False)
+    if not beats:
+        versus = (f", nor than the best simple rule, the {rule_name} ({rule:.4g})"
+                  if best_rule != BASELINE else no_rule)
+        return Answer(f"{name} has the lowest {metric} ({own:.4g} against {base:.4g} for the mean "
+                       f"baseline), but it is no better than the mean baseline by the significance "
+                       f"test ({against}): the difference may be luck{versus}.", False, False)
+    if best_rule == BASELINE:
+        return Answer(f"{name} beats the mean baseline out of sample ({against}): its {metric} is "
+                       f"{lower:.1%} lower {said}{no_rule}.", True, True)
+    if beats_rule:
+        return Answer(f"{name} beats the mean baseline by {lower:.0%} and the best simple rule, the "
+                       f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({own:.4g} against "
+                       f"{base:.4g} and {rule:.4g}; {against}; against the rule {rule_said}).",
+                       True, True)
+    return Answer(f"{name} beats the mean baseline by {lower:.0%} on {metric} out of sample "
+                   f"({against}), but not clearly the best simple rule, the {rule_name}: its "
+                   f"{metric} is {over_rule:.0%} lower than that rule's ({own:.4g} against "
+                   f"{rule:.4g}), which may be luck ({rule_said}). The simple rule forecasts "
+                   "nearly as well.", True, False)
