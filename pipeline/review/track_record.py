@@ -264,7 +264,7 @@ def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str
 REALISED_SKILL_MONTHS = 12
 
 
-def _realised_skill_warning(overall: dict) -> str | None:
+def realised_skill_warning(overall: dict) -> str | None:
     """Return a warning when, over at least REALISED_SKILL_MONTHS realised months, the
     recommended forecasts were no more accurate than the mean baseline's own forecasts."""
     value = overall.get("skill", float("nan"))
@@ -345,7 +345,7 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
     by_run, overall = realised_skill(realised, recommended)
     warnings = [w for w in [_realised_warning(realised, runs)] if w]
     backtest_skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
-    warnings += [w for w in [backtest_skill, _realised_skill_warning(overall)] if w]
+    warnings += [w for w in [backtest_skill, realised_skill_warning(overall)] if w]
     search = _search_warning(tried)
     if search:
         warnings.append(search)
