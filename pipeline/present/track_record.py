@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from pipeline.core.formatting import format_number, markdown_table
+from pipeline.core.formatting import format_number, format_percent, markdown_table
 from pipeline.review.track_record import summarise_realised
 
 
@@ -59,7 +59,7 @@ def _skill_sentences(skill: dict | None) -> list[str]:
                     f"holds no forecast of the mean baseline beside the {left_out} scored forecast(s) "
                     "of the recommended models."]
     value = skill.get("skill")
-    said = f"{value:.0%}" if value is not None else "not defined (the mean baseline's MAE is 0)"
+    said = format_percent(value) if value is not None else "not defined (the mean baseline's MAE is 0)"
     lines = ["", f"Realised skill against the mean baseline's own forecasts: {said} over "
                  f"{skill['months']} month(s), {skill['forecasts']} forecasts from {skill['runs']} "
                  f"earlier run(s) (1 − realised MAE of each run's recommended model, "

@@ -14,6 +14,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.formatting import format_percent
 from pipeline.core.metrics import skill
 from pipeline.record.ledger.read import latest_realised, rows_of, specs_on_input, visible_runs
 from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading, spec_hash
@@ -271,7 +272,7 @@ def realised_skill_warning(overall: dict) -> str | None:
     if overall.get("months", 0) < REALISED_SKILL_MONTHS or not np.isfinite(value) or value > 0:
         return None
     return (f"Over the last {overall['months']} realised months, the recommended forecasts were no "
-            f"more accurate than the mean baseline's own forecasts (realised skill {value:.0%}; "
+            f"more accurate than the mean baseline's own forecasts (realised skill {format_percent(value)}; "
             f"{overall['forecasts']} forecasts from {overall['runs']} earlier run(s), "
             "1 − MAE of the recommended model / MAE of the mean baseline)")
 
