@@ -66,37 +66,41 @@ def test_a_second_run_records_the_realised_skill_against_the_baselines_own_forec
     assert rows["mean_baseline"] == rows[recommended] == set(zip(forecast["period"], forecast["series"]))
 
 
-def noise_spec(folder: Path, frame: pd.DataFrame, actuals_to: str, ahead: int) -> Path:
-    """Write noise.csv (sales emptied after `actuals_to`, `ahead` months kept to forecast) and
+def broken_spec(folder: Path, frame: pd.DataFrame, actuals_to: str, ahead: int) -> Path:
+    """Write sales.csv (sales emptied after `actuals_to`, `ahead` months kept to forecast) and
     its spec; return the spec's path."""
     months = pd.PeriodIndex(pd.to_datetime(frame["month"]), freq="M")
     cut = pd.Period(actuals_to, "M")
     kept = frame[months <= cut + ahead].copy()
     kept.loc[months[months <= cut + ahead] > cut, "sales"] = np.nan
-    kept.to_csv(folder / "noise.csv", index=False)
-    spec = {"name": "noise", "input": {"file": "noise.csv", "date_column": "month", "as_of": "2026-01-31"},
-            "target": "sales", "drivers": {"numeric": ["noise"]},
+    kept.to_csv(folder / "sales.csv", index=False)
+    spec = {"name": "broken", "input": {"file": "sales.csv", "date_column": "month", "as_of": "2026-01-31"},
+            "target": "sales", "drivers": {"numeric": ["price"]},
             "validation": {"method": "holdout", "last_periods": 12}, "models": ["ols"],
             "output": {"folder": "runs"}}
-    path = folder / "noise.yaml"
+    path = folder / "broken.yaml"
     path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
     return path
 
 
 def test_twelve_realised_months_without_skill_are_warned_about_and_eleven_are_not(tmp_path, capsys):
-    # Sales are noise around 1000 and the driver is unrelated noise: the recommended forecasts
-    # should do no better than the plain average once their months come in (checked below).
+    # Invented: through 2023 sales follow the price closely (500 + 20 · price), so the backtest
+    # favours a model of the price; from 2024 they sit at their old average, 600, whatever the
+    # price, so forecasts that follow the price miss by 20 · |price − 5| on average while the
+    # mean's own forecasts (about 600) hardly miss: no realised skill (checked below).
     rng = np.random.default_rng(11)
     months = pd.period_range("2020-01", "2025-01", freq="M")
+    price = np.round(rng.uniform(0, 10, len(months)), 2)
+    broken = months >= pd.Period("2024-01", "M")
+    sales = np.where(broken, 600.0, 500 + 20 * price) + rng.normal(0, 2, len(months))
     frame = pd.DataFrame({"month": months.to_timestamp().strftime("%Y-%m-%d"),
-                          "sales": np.round(1000 + rng.normal(0, 50, len(months)), 1),
-                          "noise": np.round(rng.normal(0, 1, len(months)), 3)})
+                          "sales": np.round(sales, 1), "price": price})
     printed = []
     # 1: actuals to 2023-12, 12 months forecast; 2: actuals to 2024-11 (11 of them realised);
     # 3: actuals to 2024-12 (all 12, and the second run's forecast of 2024-12).
     for cut, ahead in [("2023-12", 12), ("2024-11", 1), ("2024-12", 1)]:
         capsys.readouterr()
-        assert cli.main(["run", str(noise_spec(tmp_path, frame, cut, ahead))]) == 0
+        assert cli.main(["run", str(broken_spec(tmp_path, frame, cut, ahead))]) == 0
         printed.append(capsys.readouterr().out)
     folders = run_folders(tmp_path / "runs")
     actuals = pd.DataFrame({"period": months.astype(str), "series": "all", "actual": frame["sales"]})
@@ -111,8 +115,10 @@ def test_twelve_realised_months_without_skill_are_warned_about_and_eleven_are_no
         pairs.append(pd.DataFrame({"recommended": (own["forecast"] - own["actual"]).abs(),
                                    "baseline": (own["forecast_baseline"] - own["actual"]).abs()}))
     pooled = pd.concat(pairs, ignore_index=True)
+    first = json.loads((folders[0] / "metrics.json").read_text(encoding="utf-8"))["recommended"]
+    assert first != "mean_baseline", "the first run must recommend a model of the price (the premise)"
     realised = 1 - pooled["recommended"].mean() / pooled["baseline"].mean()
-    assert realised <= 0, "the noise driver must not beat the mean's own forecasts (the premise)"
+    assert realised <= 0, "forecasts following the price must not beat the mean's own (the premise)"
 
     skills = [json.loads((f / "track_record.json").read_text(encoding="utf-8"))["realised_skill"]
               for f in folders]
