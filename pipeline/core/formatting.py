@@ -26,6 +26,16 @@ def format_number(value) -> str:
     return str(value)
 
 
+def format_percent(share: float) -> str:
+    """Return a share as a whole percent (0.12 → "12%"), with one decimal where the whole percent
+    would read as 0 though it is not (−0.0016 → "-0.2%"), and "0%" for what rounds to 0 even so."""
+    for digits in (0, 1):
+        text = f"{share:.{digits}%}"
+        if text.lstrip("-").strip("0.%"):
+            return text
+    return "0%"
+
+
 def markdown_table(frame) -> str:
     """Return a table in Markdown, numbers as the report shows them, pipes escaped."""
     def cell(value) -> str:

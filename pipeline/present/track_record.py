@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from pipeline.core.formatting import markdown_table
+from pipeline.core.formatting import format_number, format_percent, markdown_table
 from pipeline.review.track_record import summarise_realised
 
 
@@ -30,6 +30,7 @@ def track_record_section(track: dict, realised: pd.DataFrame | None, runs_shown:
     if not len(table):
         lines += ["None of their forecasts has an actual in this run's data yet.", ""]
         return "\n".join(lines)
+    lines += _skill_sentences(track.get("realised_skill"))
     runs = list(dict.fromkeys(table["forecast_run_id"]))[-runs_shown:]
     shown = table[table["forecast_run_id"].isin(runs)]
     shown = pd.DataFrame({
@@ -43,6 +44,31 @@ def track_record_section(track: dict, realised: pd.DataFrame | None, runs_shown:
               "interval the run stated). Every scored forecast is in realised.csv.", "",
               markdown_table(shown), ""]
     return "\n".join(lines)
+
+
+def _skill_sentences(skill: dict | None) -> list[str]:
+    """Return the realised skill against the mean baseline's own forecasts in words (nothing for a
+    track_record.json written before castline recorded it)."""
+    if not skill:
+        return []
+    left_out = skill.get("without_baseline", 0)
+    if not skill.get("forecasts"):
+        if not left_out:
+            return []
+        return ["", f"Realised skill against the mean baseline's own forecasts: not known; the ledger "
+                    f"holds no forecast of the mean baseline beside the {left_out} scored forecast(s) "
+                    "of the recommended models."]
+    value = skill.get("skill")
+    said = format_percent(value) if value is not None else "not defined (the mean baseline's MAE is 0)"
+    lines = ["", f"Realised skill against the mean baseline's own forecasts: {said} over "
+                 f"{skill['months']} month(s), {skill['forecasts']} forecasts from {skill['runs']} "
+                 f"earlier run(s) (1 − realised MAE of each run's recommended model, "
+                 f"{format_number(skill['model_mae'])}, / realised MAE of the mean baseline's "
+                 f"forecasts of the same months and series, {format_number(skill['baseline_mae'])})."]
+    if left_out:
+        lines[-1] += (f" {left_out} scored forecast(s) of the recommended models have no forecast of "
+                      "the mean baseline beside them in the ledger and are left out.")
+    return lines
 
 
 def with_track_record(summary: str, track: dict | None, realised: pd.DataFrame | None) -> str:

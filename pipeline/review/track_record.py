@@ -12,7 +12,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import BASELINE
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.formatting import format_percent
+from pipeline.core.metrics import skill
 from pipeline.record.ledger.read import latest_realised, rows_of, specs_on_input, visible_runs
 from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading, spec_hash
 from pipeline.spec import Spec
@@ -31,13 +34,30 @@ class TrackRecord:
     recommended: dict[str, str] = field(default_factory=dict)   # earlier run → its recommended model
     warnings: list[str] = field(default_factory=list)
     runs_without_skill: int = 0     # runs in a row, this one included, not beating the baseline
+    # The recommended forecasts against the mean baseline's own forecasts of the same rows
+    # (``realised_skill``): over all earlier runs, and per run.
+    skill: dict = field(default_factory=dict)
+    skill_by_run: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     def facts(self) -> dict:
         """Return what the run folder keeps of it (track_record.json) beside realised.csv, so
         the summary can be rendered again from the folder alone."""
+        by_run = [{key: _plain(value) for key, value in row.items()}
+                  for row in self.skill_by_run.to_dict("records")]
         return {"ledger": str(self.ledger), "earlier_runs": self.earlier_runs,
                 "recommended": dict(self.recommended), "warnings": list(self.warnings),
-                "runs_without_skill": self.runs_without_skill}
+                "runs_without_skill": self.runs_without_skill,
+                "realised_skill": {**{key: _plain(value) for key, value in self.skill.items()},
+                                   "by_run": by_run}}
+
+
+def _plain(value):
+    """Return a value as JSON holds it: NaN as null, numpy numbers as Python's."""
+    if isinstance(value, (float, np.floating)):
+        return None if np.isnan(value) else float(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
 
 
 def _empty_realised() -> pd.DataFrame:
@@ -121,6 +141,54 @@ def summarise_realised(realised: pd.DataFrame) -> pd.DataFrame:
         ["forecast_created", "forecast_run_id", "model", "horizon"], kind="stable").reset_index(drop=True)
 
 
+SKILL_COLUMNS = ["forecast_run_id", "forecast_created", "model", "forecasts", "months",
+                 "model_mae", "baseline_mae", "skill", "without_baseline"]
+
+
+def realised_skill(realised: pd.DataFrame, recommended: dict[str, str]) -> tuple[pd.DataFrame, dict]:
+    """Return the realised skill of each earlier run's recommended model against the mean
+    baseline's own forecasts of the same (series, month) rows, per run and over all runs.
+
+    For each earlier run, its recommended model's scored forecasts are paired with the mean
+    baseline's forecasts that run made of the same series and month; skill is
+    1 − MAE(recommended) / MAE(baseline) over the pairs. A forecast without the baseline's
+    (a ledger that recorded none) is left out and counted in ``without_baseline``. A run that
+    recommended the mean baseline itself counts, at a skill of 0: its recommendation was the
+    baseline's forecast. The overall figure pools every pair of every run (a month forecast
+    by two runs counts twice, once per run); ``months`` counts the distinct months paired.
+    """
+    wanted = realised["forecast_run_id"].map(recommended)
+    own = realised[realised["model"].astype(object).eq(wanted) & realised["error"].notna()]
+    base = realised[(realised["model"] == BASELINE) & realised["error"].notna()]
+    key = ["forecast_run_id", "period", "series"]
+    pairs = own.merge(base[key + ["error"]].rename(columns={"error": "_baseline"}), on=key, how="left")
+    pairs["_paired"] = pairs["_baseline"].notna()
+    rows = []
+    for (run_id, created, model), group in pairs.groupby(["forecast_run_id", "forecast_created", "model"],
+                                                         sort=False):
+        paired = group[group["_paired"]]
+        rows.append({"forecast_run_id": run_id, "forecast_created": created, "model": model,
+                     **_skill_of(paired), "without_baseline": int((~group["_paired"]).sum())})
+    by_run = pd.DataFrame(rows, columns=SKILL_COLUMNS).sort_values(
+        ["forecast_created", "forecast_run_id"], kind="stable").reset_index(drop=True)
+    paired = pairs[pairs["_paired"]]
+    overall = {**_skill_of(paired), "runs": int(paired["forecast_run_id"].nunique()),
+               "without_baseline": int((~pairs["_paired"]).sum()),
+               "runs_without_baseline": sorted(set(by_run.loc[by_run["forecasts"] == 0, "forecast_run_id"]))}
+    return by_run, overall
+
+
+def _skill_of(paired: pd.DataFrame) -> dict:
+    """Return how many pairs, over how many months, both MAEs and the skill of a set of pairs."""
+    if not len(paired):
+        return {"forecasts": 0, "months": 0, "model_mae": float("nan"),
+                "baseline_mae": float("nan"), "skill": float("nan")}
+    model_mae = float(paired["error"].astype(float).abs().mean())
+    baseline_mae = float(paired["_baseline"].astype(float).abs().mean())
+    return {"forecasts": len(paired), "months": int(paired["period"].nunique()),
+            "model_mae": model_mae, "baseline_mae": baseline_mae, "skill": skill(model_mae, baseline_mae)}
+
+
 def _expected_errors(conn: sqlite3.Connection, run_ids) -> pd.DataFrame:
     """Return the backtest MAE per run, model and horizon, and overall (horizon NaN)."""
     horizons = rows_of(conn, "horizon_metrics", run_ids)[["run_id", "model", "horizon", "mae"]]
@@ -191,6 +259,24 @@ def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str
             f"drivers (output.warn_after_runs_without_skill: {wanted})"), streak
 
 
+# Realised months (distinct months with an actual, paired across earlier runs) before realised
+# skill may raise a warning: a year, so every calendar month is in it once (common practice:
+# judge monthly forecasts over at least a full seasonal cycle; fewer months say little).
+REALISED_SKILL_MONTHS = 12
+
+
+def realised_skill_warning(overall: dict) -> str | None:
+    """Return a warning when, over at least REALISED_SKILL_MONTHS realised months, the
+    recommended forecasts were no more accurate than the mean baseline's own forecasts."""
+    value = overall.get("skill", float("nan"))
+    if overall.get("months", 0) < REALISED_SKILL_MONTHS or not np.isfinite(value) or value > 0:
+        return None
+    return (f"Over the last {overall['months']} realised months, the recommended forecasts were no "
+            f"more accurate than the mean baseline's own forecasts (realised skill {format_percent(value)}; "
+            f"{overall['forecasts']} forecasts from {overall['runs']} earlier run(s), "
+            "1 − MAE of the recommended model / MAE of the mean baseline)")
+
+
 # Beyond this many different specs tried on one input, a win may be the luck of the search.
 SPECS_TRIED_WARNING = 5
 # Keys that do not change what the backtest compares: names, paths, where fits run, what-ifs.
@@ -256,13 +342,14 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
         realised["recorded"] = True
     else:
         realised = _empty_realised()
+    recommended = dict(zip(runs["run_id"], runs["recommended"]))
+    by_run, overall = realised_skill(realised, recommended)
     warnings = [w for w in [_realised_warning(realised, runs)] if w]
-    skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
-    if skill:
-        warnings.append(skill)
+    backtest_skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
+    warnings += [w for w in [backtest_skill, realised_skill_warning(overall)] if w]
     search = _search_warning(tried)
     if search:
         warnings.append(search)
     return TrackRecord(ledger=path, realised=realised, by_horizon=summarise_realised(realised),
-                       earlier_runs=len(runs), recommended=dict(zip(runs["run_id"], runs["recommended"])),
-                       warnings=warnings, runs_without_skill=streak)
+                       earlier_runs=len(runs), recommended=recommended, warnings=warnings,
+                       runs_without_skill=streak, skill=overall, skill_by_run=by_run)

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.core.formatting import format_number, markdown_table
+from pipeline.core.formatting import format_number, format_percent, markdown_table
 
 
 @pytest.mark.parametrize("missing", [None, "", float("nan"), np.nan, math.inf, -math.inf])
@@ -105,3 +105,17 @@ def test_markdown_table_escapes_pipes_and_folds_newlines():
     for line in (lines[0], lines[2], lines[3]):
         unescaped = line.replace("\\|", "")
         assert unescaped.count("|") == 2
+
+
+@pytest.mark.parametrize(("share", "shown"), [
+    (0.12, "12%"),                # 0.12 × 100 = 12
+    (0.4375, "44%"),              # 43.75 rounds to 44
+    (-0.2, "-20%"),
+    (1.0, "100%"),
+    (-0.0016, "-0.2%"),           # −0.16 would read "-0%" whole: one decimal, −0.16 → −0.2
+    (0.004, "0.4%"),
+    (-0.0004, "0%"),              # −0.04 is 0 even to one decimal
+    (0.0, "0%"),
+])
+def test_a_share_is_a_whole_percent_unless_that_reads_as_zero(share, shown):
+    assert format_percent(share) == shown

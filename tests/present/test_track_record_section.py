@@ -80,3 +80,32 @@ def test_a_runs_summary_shows_how_the_earlier_runs_forecasts_turned_out(tiny_run
     assert [r[0] for r in rows] == [f"| {first.folder.run_id}"] * 3
     # realised MAE per months ahead: |forecast − actual| of the one forecast at that horizon (pandas)
     assert [r[4] for r in rows] == [format_number(float(abs(e))) for e in own["forecast"] - own["y"]]
+
+
+# Realised skill as track_record.json holds it; hand-written: MAE 4.25 against 5, 1 − 4.25/5 = 15%.
+SKILL = {"forecasts": 4, "months": 2, "model_mae": 4.25, "baseline_mae": 5.0, "skill": 0.15, "runs": 2,
+         "without_baseline": 1, "runs_without_baseline": [], "by_run": []}
+
+
+def test_the_realised_skill_against_the_baselines_own_forecasts_in_one_sentence():
+    section = track_record_section({**TRACK, "realised_skill": SKILL}, REALISED)
+    assert ("Realised skill against the mean baseline's own forecasts: 15% over 2 month(s), 4 forecasts "
+            "from 2 earlier run(s) (1 − realised MAE of each run's recommended model, 4.25, / realised "
+            "MAE of the mean baseline's forecasts of the same months and series, 5).") in section
+    assert "1 scored forecast(s) of the recommended models have no forecast of the mean baseline" in section
+    # it comes before the table
+    assert section.index("Realised skill") < section.index("| run |")
+
+
+def test_without_baseline_forecasts_the_realised_skill_is_said_to_be_unknown():
+    unknown = {**SKILL, "forecasts": 0, "months": 0, "model_mae": None, "baseline_mae": None, "skill": None,
+               "runs": 0, "without_baseline": 3, "runs_without_baseline": ["run-1", "run-2"]}
+    section = track_record_section({**TRACK, "realised_skill": unknown}, REALISED)
+    assert ("Realised skill against the mean baseline's own forecasts: not known; the ledger holds no "
+            "forecast of the mean baseline beside the 3 scored forecast(s) of the recommended models.") in section
+
+
+def test_a_track_record_written_before_realised_skill_reads_without_it():
+    # TRACK has no realised_skill key, as track_record.json files written before it do
+    section = track_record_section(TRACK, REALISED)
+    assert "Realised skill" not in section and len(body(section)) == 2

@@ -15,7 +15,14 @@ import pytest
 from conftest import tiny_data, write_tiny_spec
 
 from pipeline.record.ledger.store import INTERVAL_COLUMNS
-from pipeline.review.track_record import score_forecasts, summarise_realised, track_record
+from pipeline.review.track_record import (
+    REALISED_SKILL_MONTHS,
+    realised_skill,
+    realised_skill_warning,
+    score_forecasts,
+    summarise_realised,
+    track_record,
+)
 from pipeline.runner import check
 from pipeline.spec import load_spec
 
@@ -225,3 +232,109 @@ def test_more_than_five_specs_tried_on_one_input_is_warned_once_the_sixth_runs(t
         said.append(any("different specs have been run on this same input" in w
                         for w in pipeline.run(spec).warnings))
     assert said == [False] * 6 + [True]
+
+
+# ---------------------------------------------------------------- realised skill against the baseline
+
+def scored_error(run_id, model, period, series, error):
+    """One scored forecast, with only what the realised skill reads."""
+    return {"forecast_run_id": run_id, "forecast_created": run_id.replace("run-", "2024-0"),
+            "model": model, "period": period, "series": series, "error": error}
+
+
+SCORED = pd.DataFrame([
+    # run-1 recommended ols: its three forecasts, each with the baseline's of the same row
+    scored_error("run-1", "ols", "2024-01", "A", 2.0), scored_error("run-1", "mean_baseline", "2024-01", "A", 5.0),
+    scored_error("run-1", "ols", "2024-01", "B", -4.0),
+    scored_error("run-1", "mean_baseline", "2024-01", "B", -5.0),
+    scored_error("run-1", "ols", "2024-02", "A", 3.0), scored_error("run-1", "mean_baseline", "2024-02", "A", -6.0),
+    # run-2 recommended ridge: 2024-02 B has no baseline forecast; its ols is not the recommended
+    scored_error("run-2", "ridge", "2024-02", "A", -8.0),
+    scored_error("run-2", "mean_baseline", "2024-02", "A", 4.0),
+    scored_error("run-2", "ridge", "2024-02", "B", 2.0), scored_error("run-2", "ols", "2024-02", "A", 100.0)])
+RECOMMENDED = {"run-1": "ols", "run-2": "ridge"}
+
+
+def test_realised_skill_per_run_and_overall_hand_worked():
+    by_run, overall = realised_skill(SCORED, RECOMMENDED)
+    by_run = by_run.set_index("forecast_run_id")
+    # Hand-worked. run-1: MAE of ols (2 + 4 + 3) / 3 = 3, of the baseline (5 + 5 + 6) / 3 = 16/3;
+    # skill 1 − 3 / (16/3) = 1 − 9/16 = 0.4375, over 2 months, every forecast paired.
+    assert by_run.loc["run-1", ["model", "forecasts", "months", "without_baseline"]].tolist() == ["ols", 3, 2, 0]
+    assert by_run.loc["run-1", "model_mae"] == pytest.approx(3.0)
+    assert by_run.loc["run-1", "baseline_mae"] == pytest.approx(16 / 3)
+    assert by_run.loc["run-1", "skill"] == pytest.approx(0.4375)
+    # run-2: only 2024-02 A is paired (B has no baseline forecast; ols is not its recommended):
+    # MAE 8 against 4, skill 1 − 8/4 = −1.
+    assert by_run.loc["run-2", ["model", "forecasts", "months", "without_baseline"]].tolist() == ["ridge", 1, 1, 1]
+    assert by_run.loc["run-2", "skill"] == pytest.approx(-1.0)
+    # Overall, every pair pooled: (2 + 4 + 3 + 8) / 4 = 4.25 against (5 + 5 + 6 + 4) / 4 = 5;
+    # skill 1 − 4.25/5 = 0.15, over the 2 distinct months 2024-01 and 2024-02.
+    assert overall == {"forecasts": 4, "months": 2, "model_mae": pytest.approx(4.25),
+                       "baseline_mae": pytest.approx(5.0), "skill": pytest.approx(0.15), "runs": 2,
+                       "without_baseline": 1, "runs_without_baseline": []}
+
+
+def test_realised_skill_matches_a_pandas_pivot_of_the_same_rows():
+    # An independent computation: pivot the recommended and the baseline's errors side by side.
+    rng = np.random.default_rng(5)
+    rows = [scored_error(run, model, f"2024-{m:02d}", s, float(rng.normal(0, 3 if model == "ols" else 5)))
+            for run in ("run-1", "run-2") for model in ("ols", "mean_baseline")
+            for m in range(1, 8) for s in ("A", "B", "C")]
+    frame = pd.DataFrame(rows)
+    wide = frame.pivot_table(index=["forecast_run_id", "period", "series"], columns="model", values="error")
+    expected = 1 - wide["ols"].abs().mean() / wide["mean_baseline"].abs().mean()
+    per_run = wide.abs().groupby(level="forecast_run_id").mean()
+    _, overall = realised_skill(frame, {"run-1": "ols", "run-2": "ols"})
+    by_run, _ = realised_skill(frame, {"run-1": "ols", "run-2": "ols"})
+    assert overall["skill"] == pytest.approx(expected) and overall["months"] == 7 and overall["forecasts"] == 42
+    np.testing.assert_allclose(by_run.set_index("forecast_run_id")["skill"],
+                               1 - per_run["ols"] / per_run["mean_baseline"])
+
+
+def test_a_run_that_recommended_the_baseline_has_realised_skill_zero():
+    by_run, _ = realised_skill(SCORED, {"run-1": "mean_baseline"})
+    assert by_run["forecast_run_id"].tolist() == ["run-1"] and by_run["skill"].tolist() == [0.0]
+
+
+def test_without_baseline_forecasts_the_realised_skill_is_absent_and_said_so():
+    # A ledger that recorded only the recommended model's forecasts.
+    only_models = SCORED[SCORED["model"] != "mean_baseline"]
+    by_run, overall = realised_skill(only_models, RECOMMENDED)
+    assert overall["forecasts"] == 0 and math.isnan(overall["skill"])
+    assert overall["without_baseline"] == 5 and overall["runs_without_baseline"] == ["run-1", "run-2"]
+    assert by_run["skill"].isna().all()
+    assert realised_skill_warning(overall) is None
+    assert realised_skill(SCORED.iloc[:0], {})[1]["forecasts"] == 0   # nothing scored at all
+
+
+def months_of_equal_errors(months: int, model_error: float) -> pd.DataFrame:
+    """`months` realised months of one run, one series: the baseline missing by 10 each month."""
+    periods = pd.period_range("2023-01", periods=months, freq="M").astype(str)
+    return pd.DataFrame([row for p in periods for row in (
+        scored_error("run-1", "ols", p, "A", model_error), scored_error("run-1", "mean_baseline", p, "A", -10.0))])
+
+
+def test_the_realised_skill_warning_needs_twelve_realised_months():
+    assert REALISED_SKILL_MONTHS == 12
+    # model errors of 10 against the baseline's 10: skill 1 − 10/10 = 0, no more accurate
+    eleven = realised_skill(months_of_equal_errors(11, 10.0), {"run-1": "ols"})[1]
+    twelve = realised_skill(months_of_equal_errors(12, 10.0), {"run-1": "ols"})[1]
+    assert realised_skill_warning(eleven) is None
+    assert realised_skill_warning(twelve).startswith(
+        "Over the last 12 realised months, the recommended forecasts were no more accurate than the "
+        "mean baseline's own forecasts (realised skill 0%")
+    # errors of 12 against 10: skill 1 − 12/10 = −20%; errors of 9: 1 − 9/10 = +10%, no warning
+    worse = realised_skill(months_of_equal_errors(12, 12.0), {"run-1": "ols"})[1]
+    assert "(realised skill -20%" in realised_skill_warning(worse)
+    assert realised_skill_warning(realised_skill(months_of_equal_errors(12, 9.0), {"run-1": "ols"})[1]) is None
+
+
+def test_the_track_record_keeps_the_realised_skill_in_its_facts(tiny_runs):
+    _, _, runs = tiny_runs
+    second = runs[1][0].track
+    facts = second.facts()["realised_skill"]
+    by_run, overall = realised_skill(second.realised, second.recommended)
+    assert facts["skill"] == pytest.approx(overall["skill"]) and facts["months"] == 3
+    assert [row["forecast_run_id"] for row in facts["by_run"]] == by_run["forecast_run_id"].tolist()
+    assert second.skill == overall

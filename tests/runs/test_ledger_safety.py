@@ -333,6 +333,24 @@ def test_an_older_ledger_is_migrated_by_the_next_run_and_its_runs_kept(tmp_path,
     assert "months: not compared" in capsys.readouterr().out
 
 
+def test_an_older_ledger_without_baseline_forecasts_gives_no_realised_skill_and_says_so(tmp_path):
+    # The version-1 ledger's run recorded only its ols forecasts of 2026-10, none of the mean
+    # baseline: their realised skill cannot be worked out, and the run says so instead of failing.
+    spec = write_spec(tmp_path)
+    book = tmp_path / "runs" / "ledger.sqlite"
+    book.parent.mkdir()
+    make_v1_ledger(book)
+    result = pipeline.run(spec)
+    assert len(result.realised) == 4
+    skill = json.loads((result.folder.path / "track_record.json").read_text(encoding="utf-8"))["realised_skill"]
+    assert (skill["forecasts"], skill["skill"], skill["without_baseline"]) == (0, None, 4)
+    assert skill["runs_without_baseline"] == [OLD_RUN]
+    assert [(r["forecast_run_id"], r["forecasts"], r["skill"]) for r in skill["by_run"]] == [(OLD_RUN, 0, None)]
+    assert "Realised skill against the mean baseline's own forecasts: not known" in \
+        result.folder.summary.read_text(encoding="utf-8")
+    assert not any("realised months" in w for w in result.warnings)
+
+
 def test_the_migrations_build_the_same_schema_as_a_new_ledger(tmp_path):
     old, new = tmp_path / "old.sqlite", tmp_path / "new.sqlite"
     with closing(sqlite3.connect(old, isolation_level=None)) as conn:
