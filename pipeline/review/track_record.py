@@ -241,22 +241,27 @@ def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
             f"{shown}{more}. The model may be getting worse, or the months just past were unusual.")
 
 
-def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool) -> tuple[str | None, int]:
+def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool | None) -> tuple[str | None, int]:
     """Return a warning when the recommended model has not beaten the mean baseline in the last
-    N runs (this one included), and how many runs in a row it has not."""
-    record = [bool(b) for b in runs["beats_baseline"]] + [bool(beats_now)]
+    N tested runs (this one included), and how many tested runs in a row it has not. A run
+    whose validation gave no test (a single holdout: beats_baseline left empty) neither
+    breaks nor extends the streak: it says nothing either way."""
+    record = [(str(created), bool(beat)) for created, beat in zip(runs["created"], runs["beats_baseline"])
+              if beat is not None and not (isinstance(beat, float) and np.isnan(beat))]
+    if beats_now is not None:
+        record.append(("this run", bool(beats_now)))
     streak = 0
-    for beat in reversed(record):
+    for _, beat in reversed(record):
         if beat:
             break
         streak += 1
     wanted = spec.output.warn_after_runs_without_skill
     if streak < wanted:
         return None, streak
-    since = runs["created"].iloc[len(runs) - wanted + 1][:10] if wanted > 1 else "this run"
-    return (f"the recommended model has not beaten the mean baseline in the last {wanted} run(s) "
-            f"(since {since}; {streak} in a row): the plain average forecasts as well; review the "
-            f"drivers (output.warn_after_runs_without_skill: {wanted})"), streak
+    since = record[len(record) - wanted][0][:10]
+    return (f"the recommended model has not beaten the mean baseline in the last {wanted} tested "
+            f"run(s) (since {since}; {streak} in a row): the plain average forecasts as well; "
+            f"review the drivers (output.warn_after_runs_without_skill: {wanted})"), streak
 
 
 # Realised months (distinct months with an actual, paired across earlier runs) before realised
@@ -345,7 +350,8 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
     recommended = dict(zip(runs["run_id"], runs["recommended"]))
     by_run, overall = realised_skill(realised, recommended)
     warnings = [w for w in [_realised_warning(realised, runs)] if w]
-    backtest_skill, streak = _skill_warning(spec, runs, evaluation.beats_baseline)
+    backtest_skill, streak = _skill_warning(
+        spec, runs, evaluation.beats_baseline if evaluation.tested else None)
     warnings += [w for w in [backtest_skill, realised_skill_warning(overall)] if w]
     search = _search_warning(tried)
     if search:

@@ -68,7 +68,9 @@ def _run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, dat
             "first_period": str(data.first_period), "last_period": str(data.last_period),
             "history_rows": len(data.history), "future_rows": len(data.future),
             "recommended": evaluation.recommended, "select_by": evaluation.select_by,
-            "beats_baseline": bool(evaluation.beats_baseline), "folder": str(final),
+            # Empty when the validation gave no test: the run says nothing either way.
+            "beats_baseline": bool(evaluation.beats_baseline) if evaluation.tested else None,
+            "folder": str(final),
             "staging": str(staging), "state": "placing"}],
         "model_metrics": frame_rows(evaluation.table, ["model", *SCORES, "p_value"], run_id=run_id),
         "origin_metrics": frame_rows(by_origin, ["model", "origin", *SCORES], run_id=run_id),
