@@ -69,8 +69,9 @@ def edit_spec(folder: Path, old: str, new: str) -> None:
 
 
 def spec_line(folder: Path, needle: str) -> int:
+    """Return the number of the first line, not a comment, that holds needle."""
     for number, line in enumerate((folder / SPEC).read_text(encoding="utf-8").splitlines(), 1):
-        if needle in line:
+        if needle in line and not line.lstrip().startswith("#"):
             return number
     raise AssertionError(needle)
 
@@ -121,7 +122,7 @@ def _prepare(name: str, base: Path) -> tuple[list[str], Path]:
     elif name in ("run_bad_data", "check_bad_data"):
         write_bad_data(folder)
     elif name == "run_long_holdout":
-        edit_spec(folder, "last_periods: 12", f"last_periods: {months_of_history()}")
+        edit_spec(folder, "  last_periods: 12", f"  last_periods: {months_of_history()}")
     command = "check" if name.startswith("check") else "run"
     return [command, str(SPEC)], folder
 
@@ -362,7 +363,7 @@ def test_run_without_a_spec(capsys):
 
 def test_check_refuses_a_holdout_longer_than_the_history(tmp_path, monkeypatch, capsys):
     demo_copy(tmp_path)
-    edit_spec(tmp_path, "last_periods: 12", f"last_periods: {months_of_history()}")
+    edit_spec(tmp_path, "  last_periods: 12", f"  last_periods: {months_of_history()}")
     monkeypatch.chdir(tmp_path)
     code, out, err = call_main(["check", str(SPEC)], capsys)
     assert code == 2, (out, err)

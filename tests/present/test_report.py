@@ -2,7 +2,8 @@
 
 The browser is Debian's headless Chromium driven by Selenium (.ci/run installs
 chromium and chromium-driver when absent). The data are the invented demo (a
-plumbing test), plus a copy whose region names are markup.
+plumbing test), plus a copy whose region names are markup, and conftest's tiny data over
+rolling origins for an answer with a p-value.
 """
 
 from __future__ import annotations
@@ -17,7 +18,8 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from conftest import DEMO_SPEC, ROOT
+from conftest import DEMO_SPEC, ROOT, tiny_data, write_tiny_spec
+from statsmodels.stats.multitest import multipletests
 
 import pipeline
 
@@ -94,14 +96,38 @@ def test_the_comparison_table_holds_the_numbers_of_metrics_json(run_folder):
                 assert float(value) == expected, (model["model"], column)
 
 
-def test_the_answer_states_the_verdict_skill_and_p_value(run_folder):
-    html = (run_folder / "report.html").read_text(encoding="utf-8")
-    metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
+def answer_of(folder: Path) -> tuple[str, dict, dict]:
+    """Return the report's answer section, metrics.json, and its row of the recommended model."""
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
     answer = html[html.index('<section id="answer">'):html.index('<section id="comparison">')]
-    assert metrics["verdict"].replace("'", "&#39;") in answer
     chosen = next(m for m in metrics["models"] if m["model"] == metrics["recommended"])
+    return answer, metrics, chosen
+
+
+def test_the_answer_states_the_verdict_and_skill_and_no_p_value_after_a_holdout(run_folder):
+    # A single holdout gives no significance test: the answer gives the skill, no p-value.
+    answer, metrics, chosen = answer_of(run_folder)
+    assert metrics["verdict"].replace("'", "&#39;") in answer
     assert f'data-value="{chosen["skill_vs_mean"]}"' in answer
-    assert f'data-value="{chosen["p_value"]}"' in answer
+    assert metrics["tested"] is False
+    assert chosen["p_value"] is None and chosen["p_holm"] is None
+    assert "one-sided test" not in answer and "p = " not in answer
+
+
+def test_the_answer_states_the_verdict_skill_and_holm_adjusted_p_value(tmp_path):
+    # Invented data (conftest.tiny_data: y = 10 + 2·x + noise) over 13 rolling origins, enough
+    # for a test; the reference is statsmodels' Holm adjustment of the models' own p-values.
+    spec = write_tiny_spec(tmp_path, tiny_data(), actuals_to="2022-03",
+                           validation={"method": "rolling_origin", "horizon": 3, "min_train_periods": 12})
+    answer, metrics, chosen = answer_of(pipeline.run(spec).folder.path)
+    assert metrics["tested"] is True and metrics["recommended"] == "ols"
+    assert metrics["verdict"].replace("'", "&#39;") in answer
+    assert f'data-value="{chosen["skill_vs_mean"]}"' in answer
+    others = [m for m in metrics["models"] if m["model"] != "mean_baseline"]
+    holm = multipletests([m["p_value"] for m in others], method="holm")[1]
+    assert chosen["p_holm"] == pytest.approx(holm[others.index(chosen)], rel=1e-12)
+    assert "Holm-adjusted" in answer and f'data-value="{chosen["p_holm"]}"' in answer
 
 
 def test_the_report_is_rebuilt_from_the_folder_alone(run_folder, tmp_path):

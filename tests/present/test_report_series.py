@@ -60,7 +60,7 @@ def run(folder: Path, frame: pd.DataFrame):
             "input": {"file": "data.csv", "date_column": "month", "series": ["shop"]},
             "target": "sales", "drivers": {"numeric": ["x1"]},
             "validation": {"method": "rolling_origin", "horizon": 3, "min_train_periods": 24,
-                           "origins": 6},
+                           "origins": 12},   # MIN_ORIGINS: the fewest that give a p-value
             "models": ["ols", {"kind": "ols", "per_series": True}, "seasonal_naive"],
             "output": {"folder": "runs"}}
     (folder / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
@@ -87,7 +87,9 @@ def test_series_csv_rows_equal_the_evaluation_by_series(many):
     expected = many.evaluation.by_series.reset_index(drop=True)
     assert list(written.columns) == list(expected.columns)
     assert {"skill_vs_mean", "p_value", "beats", "beats_significantly"} <= set(written.columns)
-    assert len(written) == 4 * 33   # four models (the mean baseline too) and 33 series
+    # seven models (the mean baseline, the three listed, and the simple rules a rolling origin
+    # always adds: calendar_month_mean, trailing_mean, last_value) and 33 series
+    assert len(written) == 7 * 33
     pd.testing.assert_frame_equal(written, expected, check_dtype=False, check_exact=True)
 
 
@@ -96,8 +98,8 @@ def test_metrics_json_holds_the_per_series_summary(many):
     assert metrics["series_count"] == 33
     assert metrics["significance_level"] == 0.05
     expected = many.evaluation.series_summary
-    assert [row["model"] for row in metrics["series_summary"]] == ["ols", "ols_per_series",
-                                                                   "seasonal_naive"]
+    assert [row["model"] for row in metrics["series_summary"]] == [
+        "ols", "ols_per_series", "seasonal_naive", "calendar_month_mean", "trailing_mean", "last_value"]
     for row, (_, want) in zip(metrics["series_summary"], expected.iterrows()):
         for column in expected.columns:
             assert row[column] == (want[column].item() if hasattr(want[column], "item")
@@ -110,6 +112,7 @@ def test_metrics_json_holds_the_per_series_summary(many):
     # Significantly: skill above 0 and the p-value Holm-adjusted across the model's series
     # below 0.05 (statsmodels' multipletests, NaN p-values left out).
     tested = own["p_value"].notna().to_numpy()
+    assert tested.sum() == 32   # every series but the late one has the 12 origins a test needs
     adjusted = np.full(len(own), np.nan)
     adjusted[tested] = multipletests(own["p_value"].to_numpy()[tested], method="holm")[1]
     assert row["significant_share"] == pytest.approx(
@@ -238,9 +241,9 @@ def test_a_one_series_run_has_no_per_series_section(one):
     assert 'id="per-series"' not in html and "<h2>Per series</h2>" not in html
     summary = (one.folder.path / "summary.md").read_text(encoding="utf-8")
     assert "## Per series" not in summary
-    # The file is still written: one row per model for the one series.
+    # The file is still written: one row per model (seven, the simple rules too) for the one series.
     written = pd.read_csv(one.folder.path / "series.csv")
-    assert len(written) == 4 and written["series"].nunique() == 1
+    assert len(written) == 7 and written["series"].nunique() == 1
 
 
 def small_series_table() -> pd.DataFrame:

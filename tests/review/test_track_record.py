@@ -173,7 +173,9 @@ def test_the_second_run_scores_the_first_runs_forecasts_from_its_files(tiny_runs
     actual = data.assign(period=data["month"].str[:7]).dropna(subset=["y"])
     merged = forecast.merge(actual[["period", "y"]], on="period")   # pandas, from the files
     realised = pd.read_csv(second.folder.path / "realised.csv")
-    assert len(realised) == len(merged) == 6        # 2 models × 3 months now with actuals
+    # 6 models (the mean baseline, ols and the four simple rules a holdout adds) × 3 months
+    # now with actuals
+    assert len(realised) == len(merged) == 6 * 3
     joined = realised.merge(merged, on=["model", "period"])
     np.testing.assert_allclose(joined["error"], joined["forecast_y"] - joined["y"])
     assert set(realised["forecast_run_id"]) == {first.folder.run_id}
@@ -184,8 +186,9 @@ def test_a_revised_actual_is_scored_again_and_only_it(tiny_runs):
     _, _, runs = tiny_runs
     third = runs[2][0].realised
     recorded = third[third["recorded"].astype(bool)]
-    # the third run revised 2022-02 only: its two models' scores are recorded again
-    assert sorted(recorded["period"]) == ["2022-02", "2022-02"]
+    # the third run revised 2022-02 only: its six models' scores are recorded again
+    assert list(recorded["period"]) == ["2022-02"] * 6
+    assert recorded["model"].nunique() == 6
 
 
 def test_a_run_without_skill_is_warned_about_after_the_set_number_of_runs(tmp_path):
@@ -195,13 +198,19 @@ def test_a_run_without_skill_is_warned_about_after_the_set_number_of_runs(tmp_pa
     data = check(spec)
 
     class Evaluation:            # track_record reads only whether the model beat the baseline
-        beats_baseline = False
+        beats_baseline = False   # ... and whether the validation gave a test at all
+        tested = True
 
     record = track_record(spec, data, Evaluation())
     assert record.earlier_runs == 0 and record.runs_without_skill == 1
-    assert len(record.warnings) == 1 and "not beaten the mean baseline in the last 1 run" in record.warnings[0]
+    assert len(record.warnings) == 1
+    assert "not beaten the mean baseline in the last 1 tested run" in record.warnings[0]
     Evaluation.beats_baseline = True
     assert track_record(spec, data, Evaluation()).warnings == []
+    # A run whose validation gave no test says nothing either way: no streak, no warning.
+    Evaluation.beats_baseline, Evaluation.tested = False, False
+    untested = track_record(spec, data, Evaluation())
+    assert untested.runs_without_skill == 0 and untested.warnings == []
     assert not (tmp_path / "runs" / "ledger.sqlite").exists()   # reading writes nothing
 
 

@@ -44,6 +44,12 @@ CALENDAR_TERMS = {"trend": "months since 2019-01", "sin1": "sin(2π·month/12)",
                   "cos2": "cos(2π·2·month/12)"}
 
 
+# The models of the (holdout) demo: the mean baseline, the listed ols, and the simple rules a
+# time-ordered validation always compares, in the catalogue's order.
+DEMO_MODELS = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value",
+               "seasonal_naive"]
+
+
 def model_kinds(spec) -> list[str]:
     """Return the spec's model names (a model entry is a name or an object with a kind)."""
     return [getattr(model, "kind", model) for model in spec.models]
@@ -138,7 +144,7 @@ def test_the_demo_spec_is_the_model_the_reference_formula_writes(result):
     assert spec.target_transform == "none"
     assert spec.input.series == ["region"]
     assert (spec.validation.method, spec.validation.last_periods) == ("holdout", 12)
-    assert model_kinds(spec) == ["mean_baseline", "ols"]
+    assert model_kinds(spec) == DEMO_MODELS
 
 
 # ---------------------------------------------------------------- the run folder
@@ -175,7 +181,7 @@ def test_predictions_csv(result, split):
     predictions = pd.read_csv(result.folder.path / "predictions.csv")
     for column in ("period", "actual", "model", "prediction"):
         assert column in predictions.columns
-    assert set(predictions["model"]) == {"mean_baseline", "ols"}
+    assert set(predictions["model"]) == set(DEMO_MODELS)
     for _model, rows in predictions.groupby("model"):
         assert sorted(rows["period"].astype(str).unique()) == sorted(test["period"].unique())
         assert len(rows) == len(test)
@@ -188,7 +194,7 @@ def test_predictions_csv(result, split):
 def test_coefficients_csv(result):
     coefficients = pd.read_csv(result.folder.path / "coefficients.csv")
     assert {"model", "term", "estimate"} <= set(coefficients.columns)
-    assert set(coefficients["model"]) == {"mean_baseline", "ols"}
+    assert set(coefficients["model"]) == set(DEMO_MODELS)
 
 
 def test_forecast_csv_has_every_future_month_and_region_for_each_model(result, split):
@@ -198,7 +204,8 @@ def test_forecast_csv_has_every_future_month_and_region_for_each_model(result, s
     regions = sorted(future["region"].unique())
     assert len(future_months) == 3 and len(regions) == 4
     expected = sorted((month, region) for month in future_months for region in regions)
-    for model in ("mean_baseline", "ols"):
+    assert list(forecast["model"].unique()) == DEMO_MODELS
+    for model in DEMO_MODELS:
         rows = forecast[forecast["model"] == model]
         assert sorted(zip(rows["period"].astype(str), rows["series"])) == expected
         assert np.isfinite(rows["forecast"]).all()
@@ -419,14 +426,23 @@ def test_an_unseen_region_is_reported_at_its_file_and_line(tmp_path):
 # ---------------------------------------------------------------- the simple references
 
 def _reference_predictions(window: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:
-    """Return the calendar-month average and the trailing 12-month mean of `rows` from the
-    months of `window`, computed here with pandas groupby (each region's months are
-    consecutive, so its last 12 rows are its last 12 months)."""
+    """Return the calendar-month average, the trailing 12-month mean, the last value and the
+    same month's latest value (seasonal naive) of `rows` from the months of `window`, computed
+    here with pandas groupby (each region's months are consecutive, so its last 12 rows are
+    its last 12 months)."""
+    window = window.sort_values("period", kind="stable")
     month = pd.PeriodIndex(window["period"], freq="M").month
     by_month = window.groupby([window["region"], month])["y"].mean()
-    trailing = window.sort_values("period").groupby("region").tail(12).groupby("region")["y"].mean()
+    latest_in_month = window.groupby([window["region"], month])["y"].last()
+    trailing = window.groupby("region").tail(12).groupby("region")["y"].mean()
+    last = window.groupby("region")["y"].last()
     wanted = pd.MultiIndex.from_arrays([rows["region"], pd.PeriodIndex(rows["period"], freq="M").month])
     return pd.concat([
+        pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
+                      "model": "last_value", "expected": rows["region"].map(last).to_numpy()}),
+        pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
+                      "model": "seasonal_naive",
+                      "expected": latest_in_month.reindex(wanted).to_numpy()}),
         pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
                       "model": "calendar_month_mean", "expected": by_month.reindex(wanted).to_numpy()}),
         pd.DataFrame({"period": rows["period"].to_numpy(), "series": rows["region"].to_numpy(),
@@ -434,7 +450,8 @@ def _reference_predictions(window: pd.DataFrame, rows: pd.DataFrame) -> pd.DataF
 
 
 def test_the_simple_references_run_end_to_end_under_rolling_origin(tmp_path):
-    """A spec with models [calendar_month_mean, trailing_mean] under rolling_origin: every
+    """A spec with models [calendar_month_mean, trailing_mean] under rolling_origin (which adds
+    the other simple rules, last_value and seasonal_naive, after them): every
     origin's predictions and the forecast equal pandas groupby over the months before them.
     Plumbing data (conftest.tiny_data, invented): the references are computed here."""
     data = tiny_data(("North", "South"))
@@ -443,7 +460,8 @@ def test_the_simple_references_run_end_to_end_under_rolling_origin(tmp_path):
                                        "step": 2},
                            models=["calendar_month_mean", "trailing_mean"])
     result = pipeline.run(spec)
-    assert list(result.metrics["model"]) == ["mean_baseline", "calendar_month_mean", "trailing_mean"]
+    assert list(result.metrics["model"]) == ["mean_baseline", "calendar_month_mean", "trailing_mean",
+                                             "last_value", "seasonal_naive"]
     history = data.assign(period=pd.to_datetime(data["month"]).dt.to_period("M").astype(str))
     history = history[history["period"] <= "2021-12"]
     predictions = result.predictions[result.predictions["model"] != "mean_baseline"].astype(
@@ -460,5 +478,5 @@ def test_the_simple_references_run_end_to_end_under_rolling_origin(tmp_path):
     future = forecast[["period", "series"]].drop_duplicates().rename(columns={"series": "region"})
     merged = forecast.merge(_reference_predictions(history, future), on=["period", "series", "model"],
                             validate="one_to_one")
-    assert len(merged) == len(forecast) == 2 * 2 * 3
+    assert len(merged) == len(forecast) == 4 * 2 * 3    # four rules, two regions, three months
     np.testing.assert_allclose(merged["forecast"], merged["expected"], rtol=1e-12)

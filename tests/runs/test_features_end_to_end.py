@@ -57,7 +57,11 @@ def test_the_demo_spec_runs(demo_spec_path, tmp_path):
     result = pipeline.run(demo_spec_path, output_folder=tmp_path)
     assert result.evaluation.recommended == "ols"
     assert "months since 2019-01" in set(result.coefficients["term"])
-    assert len(result.forecast) == 2 * 12
+    # six models (the mean baseline, ols and the four simple rules a rolling origin always
+    # compares) × 12 rows to forecast (four regions × three months)
+    assert list(result.forecast["model"].unique()) == [
+        "mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive"]
+    assert len(result.forecast) == 6 * 12
 
 
 def test_a_log_target_run_says_it_applied_the_smearing_correction(tmp_path):

@@ -162,6 +162,12 @@ def test_init_on_the_demo_infers_series_target_and_every_type(outcomes):
     drivers = ["shelf_price", "promo_days", "rainfall_mm", "mean_temp_c"]
     assert spec["drivers"]["numeric"] == [
         {"column": c, "future": "given" if ahead[c].notna().all() else "month_mean"} for c in drivers]
+    # The history (94 months) allows a test: rolling origins, at least 12 of them (MIN_ORIGINS),
+    # each of them forecasting a full horizon inside the history.
+    validation = spec["validation"]
+    assert validation["method"] == "rolling_origin"
+    months = demo.loc[demo["bags_sold"].notna(), "month"].nunique()
+    assert months - validation["min_train_periods"] - validation["horizon"] + 1 >= 12
     pipeline.load_spec(outcome.cwd / "demo.yaml")  # the draft is a valid spec
 
 

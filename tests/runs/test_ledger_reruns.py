@@ -10,7 +10,8 @@ holds actuals to 2026-05, each later rerun one month more (to 2026-10), each wit
 next three months' drivers as the months to forecast. From rerun 3 on, North's 2026-06
 actual is revised up by 250 (a month rerun 0 forecast); in rerun 5, West's 2026-10 actual
 comes in at 1.6 times the demo's, and the spec's description and significance level
-change. Holdout validation and OLS only, to keep the file fast.
+change. Holdout validation and OLS (beside the simple rules a holdout always compares), to
+keep the file fast.
 """
 
 from __future__ import annotations
@@ -41,6 +42,8 @@ RERUNS = 6
 REVISED_MONTH, REVISED_SERIES, REVISION, REVISED_FROM = pd.Period("2026-06", "M"), "North", 250, 3
 SHOCK_MONTH, SHOCK_SERIES, SHOCK = pd.Period("2026-10", "M"), "West", 1.6
 CHANGED_SPEC_KEYS = {"description": "Rerun with a looser test.", "significance_level": 0.1}
+# The models of each rerun: the mean baseline, ols, and the simple rules a holdout always adds.
+MODELS = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive"]
 
 
 def make_demo() -> pd.DataFrame:
@@ -205,11 +208,12 @@ def test_each_rerun_is_recorded_whole(replay):
                                          "series", conn, params=(run.run_id,))
             written = rerun.table("forecast.csv").astype({"period": str}).sort_values(
                 ["model", "period", "series"]).reset_index(drop=True)
-            assert len(recorded) == len(written) == 2 * 4 * 3
+            assert len(recorded) == len(written) == len(MODELS) * 4 * 3
             for column in ["forecast", *ledger.INTERVAL_COLUMNS]:
                 np.testing.assert_allclose(recorded[column].astype(float), written[column], rtol=1e-12)
-            assert set(recorded["interval_method"]) == {stated_method(rerun, "ols"),
-                                                         stated_method(rerun, "mean_baseline")}
+            assert set(recorded["model"]) == set(MODELS)
+            for model, own in recorded.groupby("model"):
+                assert set(own["interval_method"]) == {stated_method(rerun, model)}, model
             periods = pd.read_sql_query("SELECT * FROM periods WHERE run_id = ?", conn, params=(run.run_id,))
             assert len(periods) == months_of(rerun.data).nunique()
     assert len(runs) == RERUNS
@@ -225,7 +229,7 @@ def test_history_gives_each_runs_metrics_and_the_change_from_the_run_before(repl
     for rerun in replay.reruns:
         expected = backtest_scores(rerun, []).set_index("model")
         shown = rows[rows["run_id"] == rerun.run_id].set_index("model")
-        assert list(shown.index) == ["mean_baseline", "ols"]
+        assert list(shown.index) == [MODELS[0], *sorted(MODELS[1:])]   # the baseline first, then by name
         for metric in ("mae", "rmse", "skill_vs_mean"):
             np.testing.assert_allclose(shown[metric], expected.loc[shown.index, metric], rtol=1e-9, atol=1e-12)
             if previous is None:
@@ -234,7 +238,10 @@ def test_history_gives_each_runs_metrics_and_the_change_from_the_run_before(repl
                 np.testing.assert_allclose(shown[f"{metric}_change"],
                                            expected.loc[shown.index, metric] - previous.loc[shown.index, metric],
                                            rtol=1e-7, atol=1e-9)
-        assert shown["recommended"].to_dict() == {"mean_baseline": False, "ols": True}
+        # the lowest MAE in predictions.csv (every model here has a lower one than the mean's)
+        lowest = expected["mae"].idxmin()
+        assert expected.loc[lowest, "mae"] < expected.loc["mean_baseline", "mae"]
+        assert shown["recommended"].to_dict() == {model: model == lowest for model in MODELS}
         previous = expected
 
 

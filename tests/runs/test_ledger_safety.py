@@ -267,7 +267,8 @@ def test_a_run_killed_after_its_commit_is_finished_by_the_next_run(killed, capsy
         assert_recorded_as_written(book, runs / name)
     assert tree_bytes(earlier) == before
     shown = history(capsys, str(spec))["metrics"]
-    assert [row["run_id"] for row in shown][::2] == [earlier.name, interrupted, later.name]
+    # one row per model of each run, the runs in order
+    assert list(dict.fromkeys(row["run_id"] for row in shown)) == [earlier.name, interrupted, later.name]
 
 
 # ---------------------------------------------------------------- an older schema
@@ -316,7 +317,8 @@ def test_an_older_ledger_is_migrated_by_the_next_run_and_its_runs_kept(tmp_path,
         assert [r[0] for r in conn.execute("SELECT run_id FROM runs ORDER BY created")] == [
             OLD_RUN, result.folder.run_id]
         methods = dict(conn.execute("SELECT run_id, COUNT(interval_method) FROM forecasts GROUP BY run_id"))
-        assert methods == {OLD_RUN: 0, result.folder.run_id: 24}
+        # 6 models (the mean baseline, ols, the four simple rules) × 4 regions × 3 months
+        assert methods == {OLD_RUN: 0, result.folder.run_id: 6 * 12}
         assert {r[0] for r in conn.execute("SELECT DISTINCT run_id FROM periods")} == {result.folder.run_id}
     # The old run's forecasts of 2026-10 are scored against the demo's actuals, with the
     # intervals it recorded (analytic: it has no empirical ones).
@@ -449,8 +451,8 @@ def test_a_model_that_never_beats_the_mean_is_warned_about_after_n_runs(tmp_path
                   "noise": np.round(rng.normal(0, 1, len(months)), 3)}).to_csv(tmp_path / "noise.csv", index=False)
     spec = tmp_path / "noise.yaml"
     spec.write_text("name: noise\ninput:\n  file: noise.csv\n  date_column: month\n  as_of: 2025-01-31\n"
-                    "target: sales\ndrivers:\n  numeric: [noise]\nvalidation:\n  method: holdout\n"
-                    "  last_periods: 12\nmodels: [ols]\noutput:\n  folder: runs\n"
+                    "target: sales\ndrivers:\n  numeric: [noise]\nvalidation:\n  method: rolling_origin\n"
+                    "  horizon: 12\n  min_train_periods: 36\nmodels: [ols]\noutput:\n  folder: runs\n"
                     "  warn_after_runs_without_skill: 2\n", encoding="utf-8")
     printed = []
     for _ in range(2):
@@ -458,12 +460,16 @@ def test_a_model_that_never_beats_the_mean_is_warned_about_after_n_runs(tmp_path
         assert cli.main(["run", str(spec)]) == 0
         printed.append(capsys.readouterr().out)
     runs = [tmp_path / "runs" / p for p in visible(tmp_path / "runs")]
-    verdicts = [json.loads((r / "metrics.json").read_text(encoding="utf-8"))["beats_baseline"] for r in runs]
+    metrics = [json.loads((r / "metrics.json").read_text(encoding="utf-8")) for r in runs]
+    # 60 months, 36 to train and 12 ahead: 13 origins, enough for a test (a single holdout
+    # gives none, and an untested run neither starts nor breaks a streak)
+    assert [m["tested"] for m in metrics] == [True, True], "the validation must give a test (the premise)"
+    verdicts = [m["beats_baseline"] for m in metrics]
     assert verdicts == [False, False], "the noise driver must not beat the mean (the premise)"
     assert "has not beaten the mean baseline" not in printed[0]
     warning = next(line for line in printed[1].splitlines() if "has not beaten the mean baseline" in line)
     assert warning.startswith("warning: the recommended model has not beaten the mean baseline in the "
-                              "last 2 run(s)")
+                              "last 2 tested run(s)")
     assert warning[len("warning: "):] in (runs[1] / "summary.md").read_text(encoding="utf-8")
 
 

@@ -130,7 +130,9 @@ def test_bare_driver_names_and_defaults(write):
     assert [(d.column, d.degree) for d in spec.drivers.numeric] == [("shelf_price", 1), ("mean_temp_c", 2)]
     assert spec.drivers.categorical[0].reference == "North"
     assert spec.intercept is True
-    assert model_kinds(spec) == ["mean_baseline", "ols"]
+    # holdout is time-ordered: the simple rules are compared beside the listed model
+    assert model_kinds(spec) == ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean",
+                                 "last_value", "seasonal_naive"]
     assert spec.input.file.name == "data.csv" and spec.input.file.is_absolute()
 
 

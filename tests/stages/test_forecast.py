@@ -133,7 +133,9 @@ def one_series_runs(tmp_path_factory):
 def test_forecast_csv_has_both_kinds_of_interval_at_80_and_95(two_series_run):
     _, result = two_series_run
     forecast = read(result, "forecast.csv")
-    assert len(forecast) == 2 * FUTURE_MONTHS * 3                 # two regions, three models
+    # two regions, seven models: the mean baseline, ols, ridge and the four simple rules a
+    # rolling origin always compares
+    assert len(forecast) == 2 * FUTURE_MONTHS * 7
     for method in ("analytic", "empirical"):
         for level in ("80", "95"):
             assert {f"{method}_low_{level}", f"{method}_high_{level}"} <= set(forecast.columns)
@@ -310,7 +312,8 @@ def test_scenarios_change_only_the_selected_rows_by_coefficient_times_change(two
     frame, result = two_series_run
     table = read(result, "scenarios.csv")
     assert set(table["scenario"]) == {"south price up 5 pct", "no promotions"}
-    assert set(table["model"]) == {"mean_baseline", "ols", "ridge"}
+    rules = {"calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive"}
+    assert set(table["model"]) == {"mean_baseline", "ols", "ridge"} | rules
     coefficients = _ols_terms(result).set_index("term")["estimate"]
     future = frame[frame["sales"].isna()].assign(month=lambda f: f["month"].str[:7])
     future = future.set_index(["month", "region"])
@@ -337,8 +340,8 @@ def test_scenarios_change_only_the_selected_rows_by_coefficient_times_change(two
     assert (promo["difference"] == 0).sum() == FUTURE_PROMO.count(0)
     np.testing.assert_allclose(promo["base_forecast"].to_numpy(), forecast["forecast"].to_numpy(),
                                rtol=1e-12)
-    # The mean baseline has no drivers: no scenario changes it.
-    assert (table.loc[table["model"] == "mean_baseline", "difference"] == 0).all()
+    # The mean baseline and the simple rules have no drivers: no scenario changes them.
+    assert (table.loc[table["model"].isin(rules | {"mean_baseline"}), "difference"] == 0).all()
     summary = result.folder.summary.read_text(encoding="utf-8")
     assert "## Scenarios" in summary and "no promotions" in summary
 
