@@ -19,7 +19,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES
+from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES, model_kind
 from pipeline.core.formatting import format_number, markdown_table
 from pipeline.core.intervals import trusted_method
 from pipeline.present import plots
@@ -232,6 +232,22 @@ def stated_forecast(forecast: pd.DataFrame | None, coverage: pd.DataFrame | None
     return shown, method
 
 
+def pictured_models(models: list[str], kept: tuple) -> list[str]:
+    """Return the models the pictures draw: every one but the simple rules other than the
+    mean baseline and those ``kept`` (the best rule, the recommended model)."""
+    def drawn(name: str) -> bool:
+        try:
+            rule = model_kind(name).baseline
+        except KeyError:
+            return True
+        return not rule or name == "mean_baseline" or name in kept
+    return [name for name in models if drawn(name)]
+
+
+def _only(table: pd.DataFrame, models: list[str]) -> pd.DataFrame:
+    return table[table["model"].isin(models)] if len(table) else table
+
+
 def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
@@ -251,9 +267,15 @@ def render_report(files: RunFiles | str | Path) -> str:
     rows = metrics["models"]
     recommended = metrics["recommended"]
     chosen = next((row for row in rows if row["model"] == recommended), {})
+    # The pictures draw the mean baseline, the fitted models and the best simple rule; the
+    # other rules are in the tables (six lines or more would hide the ones that matter).
+    every_model = pictured_models(list(dict.fromkeys(predictions["model"])),
+                                  (metrics.get("best_rule"), recommended))
+    all_predictions = predictions
+    predictions = predictions[predictions["model"].isin(every_model)]
     backtest_pictures = [plots.backtest_picture(history, predictions)]
-    by_origin = pd.DataFrame(metrics.get("by_origin", []))
-    by_horizon = pd.DataFrame(metrics.get("by_horizon", []))
+    by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
+    by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
     if len(by_origin) and by_origin["origin"].nunique() > 1:
         backtest_pictures.append(plots.error_picture(by_origin, "origin", "origin"))
     if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
@@ -265,12 +287,13 @@ def render_report(files: RunFiles | str | Path) -> str:
         recommended=recommended, select_by=metrics.get("select_by", "mae"),
         level=metrics.get("significance_level", 0.05), series_count=series_count)
     if per_series is not None:
-        every_model = list(dict.fromkeys(predictions["model"]))
-        per_series["histogram"] = plots.skill_histogram(series_table, per_series["models"], every_model)
-        worst = predictions[predictions["series"].isin(set(per_series["worst"]["series"]))]
+        drawn = list(dict.fromkeys([*every_model, *per_series["models"], per_series["featured"]]))
+        per_series["histogram"] = plots.skill_histogram(series_table, per_series["models"], drawn)
+        worst = all_predictions[all_predictions["series"].isin(set(per_series["worst"]["series"]))
+                                & all_predictions["model"].isin(drawn)]
         per_series["pictures"] = [
             plots.series_picture(history, worst[worst["series"] == row.series], row.series,
-                                 per_series["featured"], row.skill_vs_mean, every_model)
+                                 per_series["featured"], row.skill_vs_mean, drawn)
             for row in per_series["worst"].itertuples()]
 
     forecast_picture = None

@@ -307,3 +307,15 @@ def test_a_dollar_sign_in_a_series_name_is_drawn_as_text_in_the_forecast_picture
                              "analytic_low_95": [4.0, 5.0], "analytic_high_95": [8.0, 9.0]})
     picture = plots.forecast_picture(history, forecast, "ols", "analytic", None)
     assert picture.uri.startswith("data:image/png;base64,") and "a$_$b" in picture.alt
+
+
+def test_the_pictures_draw_the_fitted_models_the_mean_and_the_rules_that_matter():
+    # The catalogue's families decide: simple rules other than the mean baseline are drawn only
+    # when kept (the best rule, the recommended model); fitted models and unknown names always.
+    from pipeline.present.report import pictured_models
+    every = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value",
+             "seasonal_naive", "ridge", "someone_elses"]
+    assert pictured_models(every, ("calendar_month_mean", "ols")) == [
+        "mean_baseline", "ols", "calendar_month_mean", "ridge", "someone_elses"]
+    assert pictured_models(every, ("mean_baseline", "last_value")) == [
+        "mean_baseline", "ols", "last_value", "ridge", "someone_elses"]
