@@ -100,7 +100,7 @@ def _column_lines(found: Inference) -> list[str]:
 def _validation_lines(history: int, horizon: int) -> list[str]:
     """Return the validation section: rolling origins when the history allows a test (a
     first window of two years or more, then MIN_ORIGINS origins or more), else a holdout."""
-    first = max(24, history - horizon - 35)    # about 36 origins once the history is long
+    first = max(24, history - horizon - 23)    # about 24 origins once the history is long
     if first + horizon + MIN_ORIGINS - 1 <= history:
         return [f"# Test out of sample at every month from the {first}th on: fit on the months up to it,",
                 f"# predict the next {horizon}, and compare with what happened; many origins let the",
