@@ -15,10 +15,29 @@ def percent(level: float) -> str:
     return f"{level * 100:g}"
 
 
-def analytic_bounds(prediction, se, df, level: float) -> tuple[np.ndarray, np.ndarray]:
-    """Return the two-sided prediction interval prediction ± t(df)·se."""
+def back_from(values, transform: str = "none") -> np.ndarray:
+    """Return values on the target's own scale from the scale a model fits (``transform``:
+    none, log or log1p; the inverse of ``TargetTransform.forward``)."""
+    values = np.asarray(values, dtype=float)
+    if transform == "log":
+        return np.exp(values)
+    if transform == "log1p":
+        return np.expm1(values)
+    return values
+
+
+def analytic_bounds(centre, se, df, level: float, transform: str = "none") -> tuple[np.ndarray, np.ndarray]:
+    """Return the two-sided prediction interval centre ± t(df)·se, on the target's scale.
+
+    ``centre`` and ``se`` are on the scale the model fits; with a log or log1p target the
+    interval found there is turned back by the inverse transform (quantiles survive a
+    monotone transform), so it is centred on the median, exp(centre), not on the smeared
+    mean the point forecast states.
+    """
     multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
-    return prediction - multiplier * se, prediction + multiplier * se
+    centre = np.asarray(centre, dtype=float)
+    return (back_from(centre - multiplier * se, transform),
+            back_from(centre + multiplier * se, transform))
 
 
 def empirical_offsets(residuals: pd.DataFrame, level: float) -> dict[int, tuple[float, float]]:
