@@ -1,13 +1,34 @@
-"""Prediction intervals, two ways: analytic (OLS) and empirical (from out-of-sample errors)."""
+"""Prediction intervals, two ways: analytic (OLS) and empirical (from out-of-sample errors).
+
+The empirical interval is split conformal (Vovk, Gammerman & Shafer 2005; Lei, G'Sell,
+Rinaldo, Tibshirani & Wasserman 2018), read on each series' own scale:
+
+- every backtest error becomes a score: its absolute residual divided by the series' scale
+  learned in that training window (the MASE scale, the in-sample MAE of the seasonal naive
+  forecast), or, for a log or log1p target, the absolute residual on that scale;
+- at each horizon the bound is the ⌈(n + 1)·level⌉-th smallest of the n scores, which covers
+  at least ``level`` of new errors exchangeable with them;
+- a row's interval is its point ± that bound × its series' scale (on the log scale, turned
+  back), so it always holds the point, and a target never below zero gets no bound below zero.
+
+A level needs the n with ⌈(n + 1)·level⌉ ≤ n: 4 errors for 80%, 19 for 95%. castline reads
+each horizon's bound from at least FEWEST_ERRORS (39) errors, so that the 95% bound is not
+simply the largest error seen; a horizon with fewer borrows the errors of its neighbours
+(h + 1, h − 1, h + 2, ...) until it has them, and the run says which horizons did.
+"""
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 import pandas as pd
 import scipy.stats
 
 LEVELS = (0.80, 0.95)
-MIN_ERRORS = 8   # fewer out-of-sample errors than this at a horizon give no empirical interval
+FEWEST_ERRORS = 39   # errors a horizon's empirical bound is read from, borrowing neighbours' if need be
+SHORTFALL = 0.05     # backtest coverage this far below nominal is warned about
+SIZE_GROUPS = ("small", "middle", "large")   # thirds of the series by their mean actual
 
 
 def percent(level: float) -> str:
@@ -40,60 +61,169 @@ def analytic_bounds(centre, se, df, level: float, transform: str = "none") -> tu
             back_from(centre + multiplier * se, transform))
 
 
-def empirical_offsets(residuals: pd.DataFrame, level: float) -> dict[int, tuple[float, float]]:
-    """Return, per horizon, the residual quantiles bounding the central share ``level``.
-
-    ``residuals`` holds columns horizon and residual: actual − prediction, what must be
-    added to a prediction to reach the actual (the opposite sign of an error, which is
-    prediction − actual everywhere in castline). Horizons with fewer than MIN_ERRORS
-    residuals are left out.
-    """
-    tail = (1 - level) / 2
-    offsets = {}
-    for horizon, group in residuals.groupby("horizon"):
-        values = group["residual"].to_numpy(float)
-        if len(values) >= MIN_ERRORS:
-            offsets[int(horizon)] = (float(np.quantile(values, tail)),
-                                     float(np.quantile(values, 1 - tail)))
-    return offsets
+def needed_errors(level: float) -> int:
+    """Return the fewest errors whose conformal bound at ``level`` exists: the smallest n with
+    ⌈(n + 1)·level⌉ ≤ n (4 at 80%, 19 at 95%)."""
+    n = 1
+    while _rank(n, level) > n:
+        n += 1
+    return n
 
 
-def empirical_bounds(forecast: np.ndarray, horizons: np.ndarray, residuals: pd.DataFrame,
-                     level: float) -> tuple[np.ndarray, np.ndarray]:
-    """Return forecast + the residual quantiles of its horizon (NaN where too few residuals)."""
-    offsets = empirical_offsets(residuals, level)
-    if not offsets and len(residuals) >= MIN_ERRORS:  # no time order (k-fold): all together
-        offsets = empirical_offsets(residuals.assign(horizon=0), level)
-    low = np.full(len(forecast), np.nan)
-    high = np.full(len(forecast), np.nan)
-    if not offsets:
-        return low, high
-    known = np.array(sorted(offsets))
-    # Each row takes the furthest measured horizon not beyond its own (beyond the backtest's
-    # horizons, the furthest measured; before the first, the first).
-    use = np.maximum(np.searchsorted(known, np.asarray(horizons), side="right") - 1, 0)
-    below = np.array([offsets[k][0] for k in known])
-    above = np.array([offsets[k][1] for k in known])
-    forecast = np.asarray(forecast, float)
-    return forecast + below[use], forecast + above[use]
+def _rank(n: int, level: float) -> int:
+    """Return ⌈(n + 1)·level⌉, guarded against the float error of (n + 1)·level."""
+    return math.ceil((n + 1) * level - 1e-9)
 
 
-def _quantiles_by_horizon(horizons: np.ndarray, residuals: np.ndarray,
-                          tails: list[float]) -> tuple[np.ndarray, np.ndarray]:
-    """Return the horizons with at least MIN_ERRORS residuals, sorted, and each one's
-    residual quantiles at ``tails`` (one row per horizon), as ``empirical_offsets`` computes
-    them; with no such horizon but MIN_ERRORS residuals in all (no time order: k-fold), the
-    quantiles of all of them together, under horizon 0 (as ``empirical_bounds``)."""
+def conformal_bound(scores, level: float) -> float:
+    """Return the ⌈(n + 1)·level⌉-th smallest of the n scores (split conformal: Lei et al.
+    2018, section 2.2), or NaN when that rank exceeds n (too few scores for the level)."""
+    scores = np.asarray(scores, dtype=float)
+    rank = _rank(len(scores), level)
+    if rank > len(scores):
+        return float("nan")
+    return float(np.partition(scores, rank - 1)[rank - 1])
+
+
+def usable_scales(scale) -> np.ndarray:
+    """Return the series' scales with those unknown or zero (a series constant in its window,
+    or no time order) replaced by the median of the usable ones, or by 1 when none is."""
+    scale = np.asarray(scale, dtype=float)
+    good = np.isfinite(scale) & (scale > 0)
+    if good.all():
+        return scale
+    return np.where(good, scale, float(np.median(scale[good])) if good.any() else 1.0)
+
+
+def error_scores(actual, prediction, scale, transform: str = "none") -> np.ndarray:
+    """Return each error's score: |actual − prediction| / scale, or, for a log or log1p
+    target, |f(actual) − f(prediction)| on that scale. A score that cannot be formed (a
+    prediction at or below zero for a log target) is infinite: it counts as a miss."""
+    actual = np.asarray(actual, dtype=float)
+    prediction = np.asarray(prediction, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if transform in ("log", "log1p"):
+            forward = np.log if transform == "log" else np.log1p
+            scores = np.abs(forward(actual) - forward(prediction))
+        else:
+            scores = np.abs(actual - prediction) / np.asarray(scale, dtype=float)
+    return np.where(np.isnan(scores), np.inf, scores)
+
+
+def scaled_bounds(point, bound, scale, transform: str = "none",
+                  floor: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Return point ± bound × scale (for a log or log1p target, the bound taken on that scale
+    and turned back), the low bound kept at or above ``floor`` unless the point is below it."""
+    point = np.asarray(point, dtype=float)
+    bound = np.asarray(bound, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if transform in ("log", "log1p"):
+            forward = np.log if transform == "log" else np.log1p
+            centre = forward(point)
+            low, high = back_from(centre - bound, transform), back_from(centre + bound, transform)
+        else:
+            low, high = point - bound * scale, point + bound * scale
+    return floored(low, point, floor), high
+
+
+def floored(low, point, floor: float | None) -> np.ndarray:
+    """Return the low bounds raised to ``floor`` (0 for a target never below zero), but never
+    above the point forecast itself."""
+    low = np.asarray(low, dtype=float)
+    if floor is None:
+        return low
+    with np.errstate(invalid="ignore"):
+        return np.where(np.isnan(low), low, np.maximum(low, np.minimum(floor, np.asarray(point, float))))
+
+
+def _pooled_bounds(horizons: np.ndarray, scores: np.ndarray, levels=LEVELS
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return the horizons that have errors (sorted), and for each the conformal bound at every
+    level (one row per horizon), how many errors it was read from and the first and last
+    horizon those came from: its own, and its neighbours' while it has fewer than
+    FEWEST_ERRORS (the further-ahead neighbour first at equal distance)."""
+    if not len(scores):
+        empty = np.zeros(0)
+        return empty, np.zeros((0, len(levels))), empty, empty, empty
     order = np.argsort(horizons, kind="stable")
     keys, starts, counts = np.unique(horizons[order], return_index=True, return_counts=True)
-    ordered = residuals[order]
-    kept = [(key, start, count) for key, start, count in zip(keys, starts, counts) if count >= MIN_ERRORS]
-    if not kept:
-        if len(residuals) < MIN_ERRORS:
-            return np.zeros(0), np.zeros((0, len(tails)))
-        return np.zeros(1), np.quantile(residuals, tails)[None, :]
-    return (np.array([key for key, _, _ in kept], float),
-            np.array([np.quantile(ordered[start:start + count], tails) for _, start, count in kept]))
+    ordered = scores[order]
+    bounds = np.full((len(keys), len(levels)), np.nan)
+    used, first, last = np.zeros(len(keys), int), keys.copy(), keys.copy()
+    for index in range(len(keys)):
+        low = high = index
+        total = counts[index]
+        while total < FEWEST_ERRORS and (low > 0 or high < len(keys) - 1):
+            ahead = keys[high + 1] - keys[index] if high < len(keys) - 1 else np.inf
+            behind = keys[index] - keys[low - 1] if low > 0 else np.inf
+            if ahead <= behind:
+                high += 1
+                total += counts[high]
+            else:
+                low -= 1
+                total += counts[low]
+        pool = ordered[starts[low]:starts[high] + counts[high]]
+        bounds[index] = [conformal_bound(pool, level) for level in levels]
+        used[index], first[index], last[index] = len(pool), keys[low], keys[high]
+    return keys, bounds, used, first, last
+
+
+def horizon_bounds(horizons, scores, levels=LEVELS) -> pd.DataFrame:
+    """Return, per horizon with errors, the conformal bound of the scores at each level, how
+    many errors it was read from, and the horizons they came from (``_pooled_bounds``)."""
+    keys, bounds, used, first, last = _pooled_bounds(np.asarray(horizons, float),
+                                                     np.asarray(scores, float), levels)
+    rows = [{"horizon": int(key), "level": level, "bound": float(bounds[i, j]), "errors": int(used[i]),
+             "from_horizon": int(first[i]), "to_horizon": int(last[i])}
+            for i, key in enumerate(keys) for j, level in enumerate(levels)]
+    return pd.DataFrame(rows, columns=["horizon", "level", "bound", "errors", "from_horizon", "to_horizon"])
+
+
+def _nearest_measured(known: np.ndarray, horizons) -> np.ndarray:
+    """Return, per row, the position of the furthest measured horizon not beyond its own
+    (beyond the backtest's horizons, the furthest measured; before the first, the first)."""
+    return np.maximum(np.searchsorted(known, np.asarray(horizons, float), side="right") - 1, 0)
+
+
+def empirical_bounds(point, horizons, scale, table: pd.DataFrame, level: float, transform: str = "none",
+                     floor: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Return each row's empirical interval at ``level`` from a ``horizon_bounds`` table: its
+    point ± the bound of its horizon × its series' scale (NaN where too few errors)."""
+    point = np.asarray(point, dtype=float)
+    own = table[np.isclose(table["level"], level)].sort_values("horizon") if len(table) else table
+    if not len(own):
+        return np.full(len(point), np.nan), np.full(len(point), np.nan)
+    use = _nearest_measured(own["horizon"].to_numpy(float), horizons)
+    return scaled_bounds(point, own["bound"].to_numpy(float)[use], scale, transform, floor)
+
+
+def borrowing_note(table: pd.DataFrame, furthest: int | None = None) -> str | None:
+    """Return what the run says about horizons whose empirical bound borrowed its neighbours'
+    errors, and months beyond the backtest's furthest horizon (None when nothing to say)."""
+    if not len(table):
+        return None
+    one = table.drop_duplicates("horizon")
+    borrowed = one[(one["from_horizon"] != one["horizon"]) | (one["to_horizon"] != one["horizon"])]
+    parts = []
+    if len(borrowed):
+        listed = ", ".join(f"{h} ({a}–{b})" for h, a, b in borrowed[["horizon", "from_horizon", "to_horizon"]]
+                           .itertuples(index=False))
+        parts.append(f"the empirical intervals at months ahead {listed} had fewer than {FEWEST_ERRORS} "
+                     "backtest errors of their own and borrowed those of the months ahead in brackets")
+    last = int(one["horizon"].max())
+    if furthest is not None and furthest > last > 0:
+        parts.append(f"months more than {last} ahead use the errors of {last} months ahead, the "
+                     "furthest the backtest measured")
+    return "; ".join(parts) if parts else None
+
+
+def interval_score(actual, low, high, level: float) -> np.ndarray:
+    """Return each row's interval score: the width, plus 2/α times how far the actual fell
+    outside (α = 1 − level; Winkler 1972; Gneiting & Raftery 2007, section 6.2). Lower is
+    better: it rewards narrow intervals and charges for every miss."""
+    actual, low, high = (np.asarray(v, dtype=float) for v in (actual, low, high))
+    alpha = 1 - level
+    return (high - low) + (2 / alpha) * np.maximum(low - actual, 0) + (2 / alpha) * np.maximum(actual - high, 0)
 
 
 def _earlier_rows(rank: np.ndarray, period_of: np.ndarray, index: int, origin: str,
@@ -106,60 +236,148 @@ def _earlier_rows(rank: np.ndarray, period_of: np.ndarray, index: int, origin: s
     return mask
 
 
-def _empirical_coverage(own: pd.DataFrame) -> dict[float, tuple[int, int]]:
-    """Return, per level, how many backtest actuals fell inside the empirical interval an
-    origin would have stated from the errors of earlier origins (for months already past
-    at it, when the origins are months), and how many were scored."""
+def _row_scales(own: pd.DataFrame) -> np.ndarray:
+    """Return each backtest row's series scale in its window (``usable_scales`` per origin)."""
+    scale = own["mase_scale"].to_numpy(float)
+    out = np.empty(len(scale))
+    for _, where in own.groupby("origin", sort=False).indices.items():
+        out[where] = usable_scales(scale[where])
+    return out
+
+
+def _empirical_rows(own: pd.DataFrame, transform: str, floor: float | None) -> dict[float, tuple]:
+    """Return, per level, each backtest row's empirical interval as the origin would have
+    stated it from the errors of earlier origins (for months already past at it, when the
+    origins are months); NaN where too few such errors."""
     origins = sorted(own["origin"].unique())
     time_ordered = all(str(o)[:4].isdigit() for o in origins)
     rank = np.searchsorted(np.array(origins, dtype=object), own["origin"].to_numpy(object))
     period_of = own["period"].astype(str).to_numpy()
     horizon = own["horizon"].to_numpy(float)
     prediction = own["prediction"].to_numpy(float)
-    actual = own["actual"].to_numpy(float)
-    residual = actual - prediction
-    tails = [t for level in LEVELS for t in ((1 - level) / 2, 1 - (1 - level) / 2)]
-    counts = {level: [0, 0] for level in LEVELS}
+    scale = _row_scales(own)
+    scores = error_scores(own["actual"].to_numpy(float), prediction, scale, transform)
+    found = {level: (np.full(len(own), np.nan), np.full(len(own), np.nan)) for level in LEVELS}
     for index, origin in enumerate(origins):
         mask = _earlier_rows(rank, period_of, index, str(origin), time_ordered)
-        if mask.sum() < MIN_ERRORS:
+        if not mask.any():
             continue
-        known, quantiles = _quantiles_by_horizon(horizon[mask], residual[mask], tails)
-        if not len(known):
-            continue
-        now = rank == index
-        # Each row takes the furthest measured horizon not beyond its own (as empirical_bounds).
-        use = np.maximum(np.searchsorted(known, horizon[now], side="right") - 1, 0)
+        known, bounds, _, _, _ = _pooled_bounds(horizon[mask], scores[mask])
+        now = np.flatnonzero(rank == index)
+        use = _nearest_measured(known, horizon[now])
         for number, level in enumerate(LEVELS):
-            low = prediction[now] + quantiles[use, 2 * number]
-            high = prediction[now] + quantiles[use, 2 * number + 1]
-            counts[level][0] += int(((actual[now] >= low) & (actual[now] <= high)).sum())
-            counts[level][1] += int(now.sum())
-    return {level: (inside, scored) for level, (inside, scored) in counts.items()}
+            low, high = scaled_bounds(prediction[now], bounds[use, number], scale[now], transform, floor)
+            found[level][0][now], found[level][1][now] = low, high
+    return found
 
 
-def coverage(predictions: pd.DataFrame) -> pd.DataFrame:
-    """Return, per model, method and level, the share of backtest actuals inside the interval.
-
-    Analytic intervals use each origin's own fit. Empirical intervals at an
-    origin use only the errors of earlier origins for months already past at
-    that origin, as a live run would.
-    """
-    rows = []
-    for model, own in predictions.groupby("model", sort=False):
-        empirical = _empirical_coverage(own)
+def _analytic_rows(own: pd.DataFrame, transform: str, floor: float | None) -> dict[float, tuple]:
+    """Return, per level, each backtest row's analytic interval from its origin's own fit (NaN
+    for a row without a standard error)."""
+    se = own["prediction_se"].to_numpy(float)
+    prediction = own["prediction"].to_numpy(float)
+    centre = own["centre"].to_numpy(float) if "centre" in own.columns else prediction
+    centre = np.where(np.isfinite(centre), centre, prediction)
+    found = {}
+    with np.errstate(invalid="ignore"):
         for level in LEVELS:
-            with_se = own[np.isfinite(own["prediction_se"])]
-            if len(with_se):
-                low, high = analytic_bounds(with_se["prediction"].to_numpy(), with_se["prediction_se"].to_numpy(),
-                                            with_se["df_resid"].to_numpy(), level)
-                inside = (with_se["actual"] >= low) & (with_se["actual"] <= high)
-                rows.append({"model": model, "method": "analytic", "level": level,
-                             "coverage": float(inside.mean()), "n": len(with_se)})
-            inside_count, scored = empirical[level]
-            rows.append({"model": model, "method": "empirical", "level": level,
-                         "coverage": inside_count / scored if scored else float("nan"), "n": scored})
-    return pd.DataFrame(rows, columns=["model", "method", "level", "coverage", "n"])
+            low, high = analytic_bounds(centre, se, own["df_resid"].to_numpy(float), level, transform)
+            found[level] = (floored(low, prediction, floor), high)
+    return found
+
+
+def _size_groups(predictions: pd.DataFrame) -> pd.Series | None:
+    """Return each series' third by its mean actual in the backtest (small, middle, large), or
+    None with fewer than three series."""
+    means = predictions.groupby("series", sort=False)["actual"].mean().abs().sort_values(kind="stable")
+    if len(means) < 3:
+        return None
+    groups = np.empty(len(means), dtype=object)
+    for name, part in zip(SIZE_GROUPS, np.array_split(np.arange(len(means)), 3)):
+        groups[part] = name
+    return pd.Series(groups, index=means.index)
+
+
+def _summaries(model: str, method: str, level: float, frame: pd.DataFrame) -> tuple[dict, list[dict]]:
+    """Return one model's overall coverage row for a method and level, and its rows by horizon
+    and by size of series (``frame``: inside, score, horizon, size, for the scored rows)."""
+    overall = {"model": model, "method": method, "level": level,
+               "coverage": float(frame["inside"].mean()) if len(frame) else float("nan"),
+               "n": len(frame), "interval_score": float(frame["score"].mean()) if len(frame) else float("nan")}
+    detail = []
+    for by, column in (("months ahead", "horizon"), ("size of series", "size")):
+        if column not in frame.columns:
+            continue
+        for group, part in frame.groupby(column, sort=True):
+            detail.append({"model": model, "method": method, "level": level, "by": by,
+                           "group": str(int(group)) if column == "horizon" else str(group),
+                           "coverage": float(part["inside"].mean()), "n": len(part)})
+    return overall, detail
+
+
+COVERAGE_COLUMNS = ["model", "method", "level", "coverage", "n", "interval_score"]
+DETAIL_COLUMNS = ["model", "method", "level", "by", "group", "coverage", "n"]
+
+
+def backtest_intervals(predictions: pd.DataFrame, transform: str = "none",
+                       floor: float | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Return, per model, method and level, the share of backtest actuals inside the interval
+    and the mean interval score; and the same shares by months ahead and by size of series.
+
+    Analytic intervals use each origin's own fit. Empirical intervals at an origin use only
+    the errors of earlier origins for months already past at that origin, as a live run would.
+    """
+    sizes = _size_groups(predictions)
+    overall, detail = [], []
+    for model, own in predictions.groupby("model", sort=False):
+        methods = {"analytic": _analytic_rows(own, transform, floor),
+                   "empirical": _empirical_rows(own, transform, floor)}
+        actual = own["actual"].to_numpy(float)
+        for method, found in methods.items():
+            if method == "analytic" and not np.isfinite(own["prediction_se"].to_numpy(float)).any():
+                continue
+            for level in LEVELS:
+                low, high = found[level]
+                scored = np.isfinite(low) & np.isfinite(high)
+                frame = pd.DataFrame({"inside": (actual >= low) & (actual <= high),
+                                      "score": interval_score(actual, low, high, level),
+                                      "horizon": own["horizon"].to_numpy(float)})
+                if (own["horizon"] == 0).all():   # k-fold: no months ahead
+                    frame = frame.drop(columns="horizon")
+                if sizes is not None:
+                    frame["size"] = own["series"].map(sizes).to_numpy()
+                row, rows = _summaries(model, method, level, frame[scored])
+                overall.append(row)
+                detail += rows
+    return (pd.DataFrame(overall, columns=COVERAGE_COLUMNS), pd.DataFrame(detail, columns=DETAIL_COLUMNS))
+
+
+def coverage(predictions: pd.DataFrame, transform: str = "none", floor: float | None = None) -> pd.DataFrame:
+    """Return, per model, method and level, the share of backtest actuals inside the interval
+    and the mean interval score (``backtest_intervals``'s first table)."""
+    return backtest_intervals(predictions, transform, floor)[0]
+
+
+def shortfalls(coverage: pd.DataFrame | None, model: str, method: str | None) -> list[tuple[float, float]]:
+    """Return the levels, with their backtest coverage, at which the interval stated for a
+    model held more than SHORTFALL below nominal."""
+    if coverage is None or not len(coverage) or method is None:
+        return []
+    own = coverage[(coverage["model"] == model) & (coverage["method"] == method) & coverage["coverage"].notna()]
+    return [(float(level), float(value)) for level, value in zip(own["level"], own["coverage"])
+            if value < level - SHORTFALL - 1e-12]
+
+
+def shortfall_warning(coverage: pd.DataFrame | None, model: str, method: str | None) -> str | None:
+    """Return the warning the run, the summary and the report give when the stated interval
+    held more than 5 points below nominal in the backtest (None when it did not)."""
+    found = shortfalls(coverage, model, method)
+    if not found:
+        return None
+    held = " and ".join(f"the {percent(level)}% interval held {value:.0%} of the actuals"
+                        for level, value in found)
+    return (f"{model}'s {method} intervals were too narrow in the backtest: {held}. Read them as "
+            "narrower than they are, and allow more room for error than they show")
 
 
 def trusted_method(coverage: pd.DataFrame | None, model: str, forecast: pd.DataFrame) -> str:

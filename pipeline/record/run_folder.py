@@ -170,6 +170,7 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     write_csv(forecast.vif, staging / "vif.csv")
     write_csv(forecast.influential, staging / "influential_rows.csv")
     write_csv(evaluation.coverage, staging / "interval_coverage.csv")
+    write_csv(evaluation.coverage_detail, staging / "interval_coverage_by.csv")
     if len(forecast.scenarios):
         write_csv(forecast.scenarios, staging / "scenarios.csv")
     document = model_document(spec, forecast.plan, forecast.fitted, package_versions())

@@ -83,6 +83,17 @@ class BacktestResult:
     hindsight: pd.DataFrame | None = None
     estimated: dict[str, str] = field(default_factory=dict)   # the estimated columns, by rule
     ahead: str | None = None   # which drivers were known ahead and which estimated, in words
+    # The target's transform (none, log, log1p), and 0 when the target is never below zero
+    # in the history (no interval bound goes below it), else None.
+    transform: str = "none"
+    floor: float | None = None
+
+
+def target_floor(values: pd.Series) -> float | None:
+    """Return 0 when the target is never below zero (counts, sales, hours): no interval
+    bound then goes below zero; else None."""
+    values = pd.to_numeric(values, errors="coerce")
+    return 0.0 if len(values) and bool((values.dropna() >= 0).all()) else None
 
 
 DENSE_GRID_CELLS = 50_000_000   # beyond this, MASE scales look months up by key, not by grid
@@ -419,5 +430,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
                           step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,
                           hindsight=(pd.concat(known_frames, ignore_index=True)[PREDICTION_COLUMNS]
                                      if known_frames else None),
-                          estimated=dict(spec.estimated_columns) if estimating else {})
+                          estimated=dict(spec.estimated_columns) if estimating else {},
+                          transform=spec.target_transform,
+                          floor=target_floor(data.history[spec.target]))
 

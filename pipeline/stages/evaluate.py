@@ -21,7 +21,7 @@ import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
-from pipeline.core.intervals import coverage
+from pipeline.core.intervals import backtest_intervals
 from pipeline.core.significance import METHOD, MIN_ORIGINS, holm, origin_test, origin_tests
 from pipeline.spec import Spec
 from pipeline.stages.answer import answer as compose_answer
@@ -60,6 +60,8 @@ class Evaluation:
     best_rule: str = BASELINE
     beats_best_rule: bool = False
     tested: bool = True
+    # The intervals' backtest coverage by months ahead and by size of series (thirds).
+    coverage_detail: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def score(actual, predicted, scale=None) -> dict[str, float]:
@@ -515,8 +517,9 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     by_series = _with_series_tests(_with_skill(grouped_scores(predictions, ["model", "series"]),
                                                ["series"], select_by),
                                    series_tests(predictions, backtest, select_by), level)
+    held, held_by = backtest_intervals(predictions, backtest.transform, backtest.floor)
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
-                      coverage=coverage(predictions),
+                      coverage=held, coverage_detail=held_by,
                       recommended=recommended, beats_baseline=answer.beats, verdict=answer.verdict,
                       select_by=select_by, notes=notes, series_summary=series_summary(by_series),
                       hindsight=hindsight, ahead_notes=ahead_notes, best_rule=best_rule,

@@ -21,14 +21,24 @@ from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design, series_design
 from pipeline.core.errors import DataError
 from pipeline.core.execution import IN_PROCESS, Executor
-from pipeline.core.intervals import LEVELS, analytic_bounds, empirical_bounds, percent
+from pipeline.core.intervals import (
+    LEVELS,
+    analytic_bounds,
+    borrowing_note,
+    empirical_bounds,
+    error_scores,
+    floored,
+    horizon_bounds,
+    percent,
+    usable_scales,
+)
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
 from pipeline.spec import Scenario, Spec
-from pipeline.stages.backtest import BacktestResult, series_fallbacks
+from pipeline.stages.backtest import BacktestResult, mase_scales, series_fallbacks, target_floor
 from pipeline.stages.check import CheckedData
 from pipeline.stages.multistep import needs_strategy, predict_ahead
 
@@ -113,23 +123,44 @@ class _Predictor:
         return self.designs[id(frame)].notes if id(frame) in self.designs else ()
 
 
-def _forecast_table(kind: str, future: pd.DataFrame, horizons: np.ndarray, point, se, df,
-                    predictions: pd.DataFrame) -> pd.DataFrame:
-    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds."""
-    table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
-             "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
+def error_table(predictions: pd.DataFrame, kind: str, transform: str) -> pd.DataFrame:
+    """Return a model's empirical interval bounds per months ahead, read from its backtest
+    errors scaled by each series' scale in their window (``core.intervals.horizon_bounds``)."""
     own = predictions[predictions["model"] == kind]
-    backtest_residuals = pd.DataFrame({"horizon": own["horizon"],
-                                       "residual": own["actual"] - own["prediction"]})
+    scale = np.empty(len(own))
+    for _, where in own.groupby("origin", sort=False).indices.items():
+        scale[where] = usable_scales(own["mase_scale"].to_numpy(float)[where])
+    scores = error_scores(own["actual"].to_numpy(float), own["prediction"].to_numpy(float), scale, transform)
+    return horizon_bounds(own["horizon"].to_numpy(float), scores)
+
+
+@dataclass(frozen=True)
+class _Bounds:
+    """What every model's intervals share: the target's transform, its floor, each forecast
+    row's series scale (from all history) and months ahead."""
+
+    transform: str
+    floor: float | None
+    scale: np.ndarray
+    horizons: np.ndarray
+
+
+def _forecast_table(kind: str, future: pd.DataFrame, bounds: _Bounds, point, se, df,
+                    errors: pd.DataFrame, centre=None) -> pd.DataFrame:
+    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds."""
+    table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": bounds.horizons,
+             "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
     for level in LEVELS:
         if se is not None:
-            low, high = analytic_bounds(point, se, df, level)
+            low, high = analytic_bounds(point if centre is None else centre, se, df, level, bounds.transform)
+            low = floored(low, point, bounds.floor)
         else:
             low = high = np.full(len(point), np.nan)
         table[f"analytic_low_{percent(level)}"] = low
         table[f"analytic_high_{percent(level)}"] = high
     for level in LEVELS:
-        low, high = empirical_bounds(point, horizons, backtest_residuals, level)
+        low, high = empirical_bounds(point, bounds.horizons, bounds.scale, errors, level,
+                                     bounds.transform, bounds.floor)
         table[f"empirical_low_{percent(level)}"] = low
         table[f"empirical_high_{percent(level)}"] = high
     return pd.DataFrame(table)
@@ -260,6 +291,9 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     report = None
     fitted = {}
     fallbacks = []
+    scales = mase_scales(data.history, spec.target)
+    bounds = _Bounds(spec.target_transform, target_floor(data.history[spec.target]),
+                     usable_scales(future[SERIES].map(scales).to_numpy(float)), horizons)
     for choice in spec.models:
         kind = choice.name
         model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
@@ -271,8 +305,10 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         if fell_back is not None:
             fallbacks.append(fell_back)
         if len(future):
-            point, se, df = predict(choice, model, future)
-            forecasts.append(_forecast_table(kind, future, horizons, point, se, df, backtest.predictions))
+            errors = error_table(backtest.predictions, kind, spec.target_transform)
+            forecasts.append(_forecast_table(kind, future, bounds, *predict(choice, model, future), errors))
+            warnings += [note for note in [borrowing_note(errors, int(horizons.max()))]
+                         if note and note not in warnings]
         if model.least_squares_fit is not None:
             report = _least_squares_report(spec, data, model, kind, history_design, y)
             terms = report.terms

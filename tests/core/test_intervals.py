@@ -2,8 +2,9 @@
 simulated data, the empirical interval from out-of-sample errors, and backtest coverage.
 
 Sources of reference values: statsmodels ``OLSResults.get_prediction(...).summary_frame``
-(obs_ci_lower / obs_ci_upper), ``numpy.quantile`` (default linear interpolation), and
-counts worked out by hand in the comments.
+(obs_ci_lower / obs_ci_upper), the split conformal quantile of Lei, G'Sell, Rinaldo,
+Tibshirani & Wasserman (2018) and the interval score of Winkler (1972) and Gneiting &
+Raftery (2007), worked out by hand in the comments.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ import statsmodels.api as sm
 
 from pipeline.core import intervals
 from pipeline.core.design import Design
-from pipeline.core.intervals import MIN_ERRORS, analytic_bounds, coverage, empirical_bounds, empirical_offsets
+from pipeline.core.intervals import analytic_bounds, coverage
 from pipeline.models.ols import OLSModel
 
 
@@ -91,50 +92,102 @@ def test_the_95_interval_covers_about_95_percent_of_simulated_future_values():
     assert 0.93 <= share <= 0.97, share
 
 
-# ------------------------------------------------------------------ empirical offsets and bounds
+# ------------------------------------------------------------------ the conformal bound, by hand
 
-def _errors(rng: np.random.Generator, counts: dict[int, int]) -> pd.DataFrame:
-    rows = [(h, e) for h, count in counts.items() for e in rng.standard_t(4, count) * h]
-    return pd.DataFrame(rows, columns=["horizon", "residual"])
-
-
-@pytest.mark.parametrize("level", [0.80, 0.95])
-def test_empirical_offsets_equal_numpy_quantiles_per_horizon(level):
-    rng = np.random.default_rng(3)
-    errors = _errors(rng, {1: 30, 2: 25, 3: MIN_ERRORS, 4: MIN_ERRORS - 1})
-    offsets = empirical_offsets(errors, level)
-    tail = (1 - level) / 2
-    assert sorted(offsets) == [1, 2, 3]                            # horizon 4 has too few errors
-    for horizon, (low, high) in offsets.items():
-        values = errors.loc[errors["horizon"] == horizon, "residual"].to_numpy()
-        assert low == np.quantile(values, tail)                    # numpy.quantile, linear
-        assert high == np.quantile(values, 1 - tail)
+def test_the_conformal_bound_is_the_rank_ceil_n_plus_1_times_level_smallest_score():
+    # Split conformal (Lei et al. 2018, section 2.2): the ⌈(n + 1)(1 − α)⌉-th smallest of n
+    # scores. Worked by hand: n = 10 scores, 80%: ⌈11 · 0.8⌉ = ⌈8.8⌉ = 9, the 9th smallest.
+    scores = [0.5, 3, 1, 2, 4, 9, 7, 6, 8, 5]
+    assert intervals.conformal_bound(scores, 0.80) == 8
+    # 95%: ⌈11 · 0.95⌉ = ⌈10.45⌉ = 11 > 10: too few scores for the level.
+    assert np.isnan(intervals.conformal_bound(scores, 0.95))
+    # n = 19 at 95%: ⌈20 · 0.95⌉ = 19, the largest; n = 39: ⌈40 · 0.95⌉ = 38, the second largest.
+    assert intervals.conformal_bound(np.arange(1.0, 20.0), 0.95) == 19
+    assert intervals.conformal_bound(np.arange(1.0, 40.0), 0.95) == 38
 
 
-def test_empirical_bounds_add_the_offsets_of_the_horizon_and_reuse_the_furthest_beyond():
-    rng = np.random.default_rng(4)
-    errors = _errors(rng, {1: 20, 2: 20, 3: 20})
-    offsets = empirical_offsets(errors, 0.8)
-    forecast = np.array([100.0, 200.0, 300.0, 400.0, 500.0])
-    horizons = np.array([1, 2, 3, 5, 12])
-    low, high = empirical_bounds(forecast, horizons, errors, 0.8)
-    expected = [offsets[1], offsets[2], offsets[3], offsets[3], offsets[3]]
-    np.testing.assert_array_equal(low, forecast + [o[0] for o in expected])
-    np.testing.assert_array_equal(high, forecast + [o[1] for o in expected])
+def test_the_errors_a_level_needs_follow_from_alpha_at_least_one_over_n_plus_1():
+    # The bound exists when α ≥ 1/(n + 1), i.e. n ≥ 1/α − 1 (Lei et al. 2018): 4 at 80%, 19 at
+    # 95%, 9 at 90%, 99 at 99%.
+    for level in (0.80, 0.90, 0.95, 0.99):
+        assert intervals.needed_errors(level) == round(1 / (1 - level) - 1)
+    assert intervals.FEWEST_ERRORS == 39 > intervals.needed_errors(0.95)
 
 
-def test_empirical_bounds_are_nan_with_too_few_errors():
-    errors = pd.DataFrame({"horizon": [1] * (MIN_ERRORS - 1), "residual": np.arange(MIN_ERRORS - 1.0)})
-    low, high = empirical_bounds(np.array([1.0, 2.0]), np.array([1, 2]), errors, 0.95)
+def test_scores_are_errors_on_each_series_own_scale_or_on_the_log_scale():
+    actual = np.array([110.0, 9.0, 0.0])
+    prediction = np.array([100.0, 10.0, 2.0])
+    scale = np.array([20.0, 0.5, 4.0])
+    # |110 − 100| / 20 = 0.5; |9 − 10| / 0.5 = 2; |0 − 2| / 4 = 0.5 (by hand)
+    np.testing.assert_allclose(intervals.error_scores(actual, prediction, scale), [0.5, 2.0, 0.5])
+    # log: |ln 110 − ln 100| = ln 1.1; log1p: |ln 10 − ln 11| = ln 1.1
+    assert intervals.error_scores([110.0], [100.0], [1.0], "log")[0] == pytest.approx(np.log(1.1), rel=1e-14)
+    assert intervals.error_scores([9.0], [10.0], [1.0], "log1p")[0] == pytest.approx(np.log(1.1), rel=1e-14)
+    # A prediction a log cannot take counts as a miss: an infinite score.
+    assert intervals.error_scores([5.0], [-1.0], [1.0], "log")[0] == np.inf
+
+
+def test_unknown_or_zero_scales_take_the_median_of_the_others():
+    np.testing.assert_array_equal(intervals.usable_scales([2.0, np.nan, 0.0, 4.0, 6.0]), [2, 4, 4, 4, 6])
+    np.testing.assert_array_equal(intervals.usable_scales([np.nan, np.nan]), [1.0, 1.0])   # k-fold
+
+
+def test_scaled_bounds_hold_the_point_and_stay_at_or_above_the_floor():
+    low, high = intervals.scaled_bounds([100.0, 3.0, -2.0], 1.5, np.array([10.0, 4.0, 1.0]), floor=0.0)
+    # 100 ± 15; 3 ± 6 → [0, 9] (floored at 0); −2 ± 1.5 → [−3.5, −0.5] floored at the point −2
+    np.testing.assert_allclose(low, [85.0, 0.0, -2.0])
+    np.testing.assert_allclose(high, [115.0, 9.0, -0.5])
+    # log scale: 100 · e^{±0.2}
+    low, high = intervals.scaled_bounds([100.0], 0.2, np.array([1.0]), "log")
+    np.testing.assert_allclose([low[0], high[0]], [100 * np.exp(-0.2), 100 * np.exp(0.2)], rtol=1e-14)
+
+
+def test_a_horizon_with_too_few_errors_borrows_its_neighbours():
+    # Counts by horizon 1: 50, 2: 10, 3: 10, 4: 50. Horizon 2 takes 3 (equal distance to 1 and
+    # 3, the further ahead first: 20 < 39), then 1 (distance 1 beats 4's distance 2): 70.
+    # Horizon 3 takes 4 (distance 1, ahead): 60. Horizons 1 and 4 have their own 50.
+    horizons = np.repeat([1, 2, 3, 4], [50, 10, 10, 50])
+    scores = np.arange(len(horizons), dtype=float)   # scores 0..119 in horizon order
+    table = intervals.horizon_bounds(horizons, scores).drop_duplicates("horizon").set_index("horizon")
+    assert table.loc[1, ["errors", "from_horizon", "to_horizon"]].tolist() == [50, 1, 1]
+    assert table.loc[2, ["errors", "from_horizon", "to_horizon"]].tolist() == [70, 1, 3]
+    assert table.loc[3, ["errors", "from_horizon", "to_horizon"]].tolist() == [60, 3, 4]
+    bounds = intervals.horizon_bounds(horizons, scores).set_index(["horizon", "level"])["bound"]
+    # Horizon 1, scores 0..49, 80%: ⌈51 · 0.8⌉ = 41st smallest = 40; 95%: ⌈48.45⌉ = 49th = 48.
+    assert bounds[(1, 0.8)] == 40 and bounds[(1, 0.95)] == 48
+    # Horizon 3, scores 60..119, 95%: ⌈61 · 0.95⌉ = 58th smallest = 60 + 57 = 117.
+    assert bounds[(3, 0.95)] == 117
+    note = intervals.borrowing_note(intervals.horizon_bounds(horizons, scores), furthest=6)
+    assert "2 (1–3), 3 (3–4)" in note and "more than 4 ahead" in note
+
+
+def test_empirical_bounds_use_the_bound_of_the_horizon_and_the_furthest_beyond():
+    horizons = np.repeat([1, 2], [40, 40])
+    scores = np.concatenate([np.linspace(0, 1, 40), np.linspace(0, 2, 40)])
+    table = intervals.horizon_bounds(horizons, scores)
+    low, high = intervals.empirical_bounds(np.array([100.0, 100.0, 100.0]), np.array([1, 2, 7]),
+                                           np.array([10.0, 10.0, 5.0]), table, 0.8)
+    # 80% of 40: ⌈41 · 0.8⌉ = 33rd smallest, 32 steps of numpy.linspace's 1/39 (2/39 at horizon 2)
+    first, second = 32 / 39, 2 * 32 / 39
+    np.testing.assert_allclose(high - 100, [10 * first, 10 * second, 5 * second])
+    np.testing.assert_allclose(100 - low, high - 100)
+
+
+def test_no_empirical_interval_without_enough_errors_for_the_level():
+    table = intervals.horizon_bounds(np.ones(10), np.arange(10.0))      # 10 errors: 80% yes, 95% no
+    low, high = intervals.empirical_bounds(np.array([5.0]), np.array([1]), np.array([1.0]), table, 0.95)
     assert np.isnan(low).all() and np.isnan(high).all()
+    low, high = intervals.empirical_bounds(np.array([5.0]), np.array([1]), np.array([1.0]), table, 0.8)
+    assert (low[0], high[0]) == (5 - 8, 5 + 8)                           # ⌈11 · 0.8⌉ = 9th: 8
 
 
-def test_empirical_bounds_without_time_order_pool_every_error():
-    # k-fold predictions all have horizon 0; with none per horizon above the minimum, all pool.
-    errors = pd.DataFrame({"horizon": 0, "residual": np.linspace(-5, 5, 11)})
-    low, high = empirical_bounds(np.array([10.0]), np.array([0]), errors, 0.8)
-    assert low[0] == 10 + np.quantile(np.linspace(-5, 5, 11), 0.1)   # numpy.quantile: −4
-    assert high[0] == 10 + np.quantile(np.linspace(-5, 5, 11), 0.9)  # numpy.quantile: +4
+def test_the_interval_score_by_hand():
+    # Winkler (1972); Gneiting & Raftery (2007), section 6.2: (u − l) + (2/α)(l − y)⁺ + (2/α)(y − u)⁺.
+    # 80%: α = 0.2, 2/α = 10. [10, 20] with y = 15 → 10; y = 5 → 10 + 10·5 = 60; y = 26 → 70.
+    scores = intervals.interval_score([15.0, 5.0, 26.0], [10.0] * 3, [20.0] * 3, 0.8)
+    np.testing.assert_allclose(scores, [10.0, 60.0, 70.0])
+    # 95%: 2/α = 40. [0, 4] with y = 5 → 4 + 40 = 44.
+    assert intervals.interval_score([5.0], [0.0], [4.0], 0.95)[0] == pytest.approx(44.0)
 
 
 # ------------------------------------------------------------------ coverage by hand
@@ -158,15 +211,20 @@ def test_coverage_counts_by_hand():
     assert table.loc[("ols", "analytic", 0.8), "coverage"] == pytest.approx(0.4)
     assert table.loc[("ols", "analytic", 0.95), "coverage"] == pytest.approx(0.8)
     assert table.loc[("ols", "analytic", 0.8), "n"] == 10
-    # Empirical: only origins 9 and 10 have 8 earlier errors.
-    # Origin 9, errors −4..4 (8): 80% bounds (−3.3, 3.3), 95% (−3.825, 3.825); actual 3.5 → 95 only.
-    # Origin 10, those and 3.5 (9): 80% bounds (−3.2, 3.6), 95% (−3.8, 3.9); actual −3.7 → 95 only.
-    assert table.loc[("ols", "empirical", 0.8), "coverage"] == 0.0
-    assert table.loc[("ols", "empirical", 0.95), "coverage"] == 1.0
-    assert table.loc[("ols", "empirical", 0.95), "n"] == 2
+    # Empirical, scale 1: origin k (k = 1..10) learns from the k − 1 earlier errors. 80% needs
+    # 4, so origins 5..10 are scored. Their bounds: origin 5, |errors| 4, 3, 2, 1 → ⌈5·0.8⌉ = 4th
+    # = 4; origins 6..9 also 4 (the 5th..8th of up to 8, the largest being 4); origin 10, nine
+    # errors, ⌈10·0.8⌉ = 8th smallest of 1,1,2,2,3,3,3.5,4,4 = 4. Actuals 1, 2, 3, 4, 3.5, −3.7
+    # are all within ±4: 6 of 6. 95% needs 19 errors: no origin is scored.
+    assert table.loc[("ols", "empirical", 0.8), "coverage"] == 1.0
+    assert table.loc[("ols", "empirical", 0.8), "n"] == 6
+    assert table.loc[("ols", "empirical", 0.95), "n"] == 0
+    assert np.isnan(table.loc[("ols", "empirical", 0.95), "coverage"])
+    # Its interval score: width 8 at every scored origin, no miss → 8 (Winkler 1972).
+    assert table.loc[("ols", "empirical", 0.8), "interval_score"] == pytest.approx(8.0)
     # The baseline has no standard errors: no analytic row, the same empirical counts.
     assert ("mean_baseline", "analytic", 0.8) not in table.index
-    assert table.loc[("mean_baseline", "empirical", 0.95), "coverage"] == 1.0
+    assert table.loc[("mean_baseline", "empirical", 0.8), "coverage"] == 1.0
 
 
 def test_coverage_with_no_earlier_errors_is_nan():
@@ -203,7 +261,7 @@ class _Recorder:
 
     def __call__(self, *args):
         mask = self.original(*args)
-        if mask.sum() >= MIN_ERRORS:   # an origin with fewer is not scored
+        if mask.any():   # an origin with no earlier error learns nothing
             self.calls.append(self.predictions[mask])
         return mask
 
@@ -214,11 +272,9 @@ def _recorded(monkeypatch, predictions: pd.DataFrame) -> tuple[list[pd.DataFrame
     monkeypatch.setattr(intervals, "_earlier_rows", recorder)
     coverage(predictions)
     origins = sorted(predictions["origin"].unique())
-    # An origin is scored once the earlier origins' errors for months already past number
-    # at least MIN_ERRORS.
+    # An origin learns once the earlier origins have an error for a month already past.
     scored = [o for i, o in enumerate(origins)
-              if ((predictions["origin"].isin(origins[:i])) & (predictions["period"] <= o)).sum()
-              >= MIN_ERRORS]
+              if ((predictions["origin"].isin(origins[:i])) & (predictions["period"] <= o)).any()]
     assert len(recorder.calls) == len(scored)                        # one per origin scored
     return recorder.calls, scored
 

@@ -168,19 +168,31 @@ def test_the_analytic_forecast_interval_equals_statsmodels_on_all_history(two_se
         np.testing.assert_allclose(ols[f"analytic_high_{percent}"], expected["obs_ci_upper"], rtol=1e-9)
 
 
-def test_the_empirical_forecast_interval_uses_the_backtest_errors_of_its_horizon(two_series_run):
+def test_the_empirical_forecast_interval_uses_the_scaled_backtest_errors_of_its_horizon(two_series_run):
     _, result = two_series_run
     predictions = read(result, "predictions.csv")
     forecast = read(result, "forecast.csv")
+    history = read(result, "history.csv")
     own = predictions[predictions["model"] == "ols"]
-    errors = own["actual"] - own["prediction"]
+    # Each error on its series' scale in its window (predictions.csv's mase_scale).
+    scores = ((own["actual"] - own["prediction"]).abs() / own["mase_scale"]).to_numpy()
+    # Each series' scale from all history: the mean absolute 12-month difference (pandas), the
+    # in-sample MAE of the seasonal naive forecast.
+    scale = {name: group["actual"].diff(12).abs().mean()
+             for name, group in history.sort_values("period").groupby("series")}
     for _, row in forecast[forecast["model"] == "ols"].iterrows():
         horizon = min(int(row["horizon"]), 3)                     # beyond 3: the furthest measured
-        at = errors[own["horizon"] == horizon].to_numpy()
-        assert len(at) >= 8
-        # numpy.quantile of the out-of-sample errors at that horizon
-        assert row["empirical_low_80"] == pytest.approx(row["forecast"] + np.quantile(at, 0.1), rel=1e-9)
-        assert row["empirical_high_95"] == pytest.approx(row["forecast"] + np.quantile(at, 0.975), rel=1e-9)
+        # 32 errors a horizon (2 series, 16 origins), fewer than 39: each borrows its nearest
+        # neighbour, the further-ahead one first: 1 takes 2, 2 takes 3, 3 takes 2.
+        pool = {1: (1, 2), 2: (2, 3), 3: (2, 3)}[horizon]
+        assert (own["horizon"] == horizon).sum() == 32
+        at = np.sort(scores[own["horizon"].isin(pool).to_numpy()])
+        for level, low, high in ((0.8, "empirical_low_80", "empirical_high_80"),
+                                 (0.95, "empirical_low_95", "empirical_high_95")):
+            # split conformal (Lei et al. 2018): the ⌈(n + 1)·level⌉-th smallest score
+            bound = at[int(np.ceil((len(at) + 1) * level - 1e-9)) - 1] * scale[row["series"]]
+            assert row[high] == pytest.approx(row["forecast"] + bound, rel=1e-9)
+            assert row[low] == pytest.approx(max(row["forecast"] - bound, 0.0), rel=1e-9)
 
 
 def test_the_backtest_reports_the_coverage_of_each_method(two_series_run):
