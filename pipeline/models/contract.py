@@ -47,6 +47,12 @@ class Model:
         None for a model that gives none (its forecasts then have no analytic interval)."""
         return None
 
+    def residual_sd(self, design: Design) -> np.ndarray | None:
+        """Return, per row, the residual standard deviation of the fit behind its prediction
+        (the estimate of the noise σ, without the parameters' uncertainty that
+        ``prediction_se`` adds), or None where ``prediction_se`` gives none."""
+        return None
+
     def residual_df(self, design: Design) -> float | np.ndarray | None:
         """Return the residual degrees of freedom behind each row's standard error (one
         number, or one per row), or None where ``prediction_se`` gives none."""

@@ -218,6 +218,10 @@ class OLSModel(Model):
         inverse = self.fit_.xtx_inverse[np.ix_(kept, kept)]
         return self.fit_.resid_sd * np.sqrt(1.0 + np.einsum("ij,jk,ik->i", x, inverse, x))
 
+    def residual_sd(self, design) -> np.ndarray:
+        """Return the fit's residual SD s, once per row."""
+        return np.full(len(design.matrix), self.fit_.resid_sd)
+
     def residual_df(self, design=None) -> int:
         return self.fit_.df_resid
 

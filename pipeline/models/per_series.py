@@ -358,6 +358,15 @@ class PerSeriesOLS(Model):
                                    * np.sqrt(1.0 + 1.0 / self.rows_[codes[fallback]]))
         return out
 
+    def residual_sd(self, design) -> np.ndarray:
+        """Return each row's residual SD from its own series' fit (for a series on its mean:
+        the SD of its target); NaN for a series the fit never saw."""
+        code = self._lookup(design)
+        out = np.full(len(code), np.nan)
+        rows = np.flatnonzero(code >= 0)
+        out[rows] = np.where(self.fell_back_, self.sds_, self.resid_sd_)[code[rows]]
+        return out
+
     def residual_df(self, design) -> np.ndarray:
         """Return each row's residual degrees of freedom (its series' fit), NaN if unseen."""
         code = self._lookup(design)

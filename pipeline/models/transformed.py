@@ -44,6 +44,9 @@ class TransformedTargetModel(Model):
     def prediction_se(self, design: Design) -> None:
         return None
 
+    def residual_sd(self, design: Design) -> None:
+        return None   # the inner model's is on the transformed scale, as its standard error
+
     def residual_df(self, design: Design) -> None:
         return None
 

@@ -329,7 +329,7 @@ def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, cho
                                                       split.origin.ordinal,
                                                       executor=executor, progress=progress)
         as_known = predict_ahead(spec, choice, split.train, designs.hindsight, split.origin.ordinal,
-                                 executor=executor)[0] if known else None
+                                 executor=executor, spread=False)[0] if known else None
         return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)
                                          for _, _, model in used], as_known
     model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,

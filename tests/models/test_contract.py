@@ -63,13 +63,17 @@ def test_every_model_keeps_the_contract(name, per_series, log_target):
     assert predicted.shape == (len(y),) and np.isfinite(predicted).all()
     se = model.prediction_se(design)
     df = model.residual_df(design)
+    sigma = model.residual_sd(design)
     if kind.can("prediction_se") and not wrapped:
         assert se is not None and np.shape(se) == (len(y),) and (np.asarray(se) > 0).all()
         assert df is not None and np.all(np.asarray(df) > 0)
+        # s·sqrt(1 + x'(X'X)⁻¹x) is at least s, the residual SD, which it starts from.
+        assert sigma is not None and np.shape(sigma) == (len(y),)
+        assert (0 < np.asarray(sigma)).all() and (np.asarray(sigma) <= np.asarray(se)).all()
     else:
         # No standard error on the target's scale: said with None, not by a missing method
         # (under a log target the wrapper used to lack it, and analytic intervals vanished).
-        assert se is None and df is None
+        assert se is None and df is None and sigma is None
     table = model.coefficient_table()
     assert {"term", "estimate"} <= set(table.columns) and len(table)
     assert model.inner is not None and isinstance(model.notes(), list)
