@@ -60,6 +60,14 @@ class ForecastResult:
     fitted: dict = field(default_factory=dict)   # model name → model fitted on all history
     # Series a model per series forecasts by their mean: too few rows for its terms.
     fallbacks: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # What the empirical intervals are read from, for the model file: per model, the bound
+    # of its scaled backtest errors per months ahead and level (``error_table``); each
+    # series' scale from all history; the target's transform and floor; the last month.
+    interval_bounds: dict = field(default_factory=dict)
+    series_scales: dict = field(default_factory=dict)
+    transform: str = "none"
+    floor: float | None = None
+    last_period: str | None = None
 
 
 def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
@@ -289,8 +297,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")
     report = None
-    fitted = {}
-    fallbacks = []
+    fitted, fallbacks, error_tables = {}, [], {}
     scales = mase_scales(data.history, spec.target)
     bounds = _Bounds(spec.target_transform, target_floor(data.history[spec.target]),
                      usable_scales(future[SERIES].map(scales).to_numpy(float)), horizons)
@@ -305,7 +312,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         if fell_back is not None:
             fallbacks.append(fell_back)
         if len(future):
-            errors = error_table(backtest.predictions, kind, spec.target_transform)
+            errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)
             forecasts.append(_forecast_table(kind, future, bounds, *predict(choice, model, future), errors))
             warnings += [note for note in [borrowing_note(errors, int(horizons.max()))]
                          if note and note not in warnings]
@@ -334,7 +341,9 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
         warnings=warnings, residuals=report.residuals if report else empty, plan=plan, fitted=fitted,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
-            columns=["model", "series", "rows", "terms"]))
+            columns=["model", "series", "rows", "terms"]),
+        interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,
+        floor=bounds.floor, last_period=str(data.last_period))
 
 
 def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:
