@@ -311,8 +311,8 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         warnings += notes
         if fell_back is not None:
             fallbacks.append(fell_back)
+        errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)
         if len(future):
-            errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)
             forecasts.append(_forecast_table(kind, future, bounds, *predict(choice, model, future), errors))
             warnings += [note for note in [borrowing_note(errors, int(horizons.max()))]
                          if note and note not in warnings]
