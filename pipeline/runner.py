@@ -105,7 +105,8 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
         data = check_data(spec, read_input(spec))
         backtest = run_backtest(spec, data, executor=executor, progress=progress)
         evaluation = evaluate(spec, backtest)
-        forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress)
+        forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,
+                                 coverage=evaluation.coverage)
     track = track_record(spec, data, evaluation, output_folder=output_folder)
     folder = publish(spec, data, backtest, evaluation, forecast,
                      output_folder=Path(output_folder) if output_folder else None,

@@ -30,6 +30,7 @@ from pipeline.core.intervals import (
     floored,
     horizon_bounds,
     percent,
+    trusted_method,
     usable_scales,
 )
 from pipeline.core.progress import QUIET, Progress
@@ -248,8 +249,11 @@ def _fit_notes(choice, model, kind: str) -> tuple[list[str], pd.DataFrame | None
     return notes, inner.fallbacks_.assign(model=kind)
 
 
-def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Predictor) -> list[pd.DataFrame]:
-    """Return, per scenario and model, the base forecast, the scenario's, and their difference."""
+def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Predictor, bounds: _Bounds,
+                   error_tables: dict, coverage: pd.DataFrame | None) -> list[pd.DataFrame]:
+    """Return, per scenario and model, the base forecast, the scenario's with its 80% and 95%
+    interval (of the kind the pages state for the model: the one that held closest in the
+    backtest), and their difference."""
     rows = []
     for scenario in spec.scenarios:
         if not len(future):
@@ -261,21 +265,28 @@ def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Pre
         for choice in spec.models:
             kind, model = choice.name, fitted[choice.name]
             base = predict(choice, model, future)[0]
-            what_if = predict(choice, model, changed)[0]
+            what_if = _forecast_table(kind, changed, bounds, *predict(choice, model, changed),
+                                      error_tables[kind])
+            method = trusted_method(coverage, kind, what_if)
             rows.append(pd.DataFrame({
                 "scenario": scenario.name, "period": future[PERIOD].astype(str).to_numpy(),
                 "series": future[SERIES].to_numpy(), "model": kind, "base_forecast": base,
-                "scenario_forecast": what_if, "difference": what_if - base,
+                "scenario_forecast": what_if["forecast"].to_numpy(),
+                "difference": what_if["forecast"].to_numpy() - base, "interval": method,
+                **{f"{side}_{percent(level)}": what_if[f"{method}_{side}_{percent(level)}"].to_numpy()
+                   for level in LEVELS for side in ("low", "high")},
             }))
     return rows
 
 
 def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
-                  executor: Executor = IN_PROCESS, progress: Progress = QUIET) -> ForecastResult:
+                  executor: Executor = IN_PROCESS, progress: Progress = QUIET,
+                  coverage: pd.DataFrame | None = None) -> ForecastResult:
     """Return each model's forecast of the future rows, fitted on all history.
 
     A model per series fits its chunks of series on ``executor`` and counts them on
-    ``progress``.
+    ``progress``. ``coverage``: the backtest's interval coverage, which picks the interval a
+    scenario states (as the pages pick the forecast's).
     """
     if spec.estimated_columns:
         require_a_year(spec, int(data.history[PERIOD].nunique()), "the history")
@@ -328,7 +339,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         coefficients.append(terms)
     # What the features did to the months to forecast.
     warnings += [note for note in predict.notes_of(future) if note not in warnings]
-    scenario_rows = _scenario_rows(spec, future, fitted, predict)
+    scenario_rows = _scenario_rows(spec, future, fitted, predict, bounds, error_tables, coverage)
     forecast = pd.concat(forecasts, ignore_index=True) if forecasts else pd.DataFrame(
         columns=["period", "horizon", "series", "model", "forecast"])
     # Residual checks: those of the last model fitted by least squares (OLS over all series).

@@ -358,6 +358,27 @@ def test_scenarios_change_only_the_selected_rows_by_coefficient_times_change(two
     assert "## Scenarios" in summary and "no promotions" in summary
 
 
+def test_scenario_forecasts_carry_the_interval_the_pages_state(two_series_run):
+    _, result = two_series_run
+    table = read(result, "scenarios.csv")
+    forecast = read(result, "forecast.csv").set_index(["model", "period", "series"])
+    coverage = read(result, "interval_coverage.csv")
+    for model, rows in table.groupby("model"):
+        method = rows["interval"].iloc[0]
+        # The method is the one whose 95% backtest coverage came closest to 95%.
+        own = coverage[(coverage["model"] == model) & (coverage["level"] == 0.95)].dropna(subset=["coverage"])
+        closest = own.assign(gap=(own["coverage"] - 0.95).abs()).sort_values("gap")["method"].iloc[0]
+        assert method == closest
+        for _, row in rows.iterrows():
+            assert row["low_95"] <= row["low_80"] <= row["scenario_forecast"] <= row["high_80"] <= row["high_95"]
+            if method == "empirical" and row["low_95"] > 0:
+                # The same bound × scale as the base forecast's row (no floor reached): shifted.
+                base = forecast.loc[(model, row["period"], row["series"])]
+                for level in ("80", "95"):
+                    assert row[f"high_{level}"] - row["scenario_forecast"] == pytest.approx(
+                        base[f"empirical_high_{level}"] - base["forecast"], rel=1e-9)
+
+
 def _line_of(path: Path, pattern: str, after: str = "") -> int:
     lines = path.read_text(encoding="utf-8").splitlines()
     start = next(i for i, text in enumerate(lines) if after in text) if after else 0
