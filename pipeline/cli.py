@@ -118,6 +118,8 @@ def _command_run(args) -> int:
                            "Holm-adjusted across series)" if tested else "not tested")
             print(f"per series: {row.model} beats the mean baseline in {row.beats} of {row.series} "
                   f"series ({row.beats_share:.0%}), {significant}; see series.csv")
+    if result.evaluation.interval_warning:
+        print(f"warning: {result.evaluation.interval_warning}")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
     for note in result.evaluation.ahead_notes + result.evaluation.notes:

@@ -358,6 +358,29 @@ def coverage(predictions: pd.DataFrame, transform: str = "none", floor: float | 
     return backtest_intervals(predictions, transform, floor)[0]
 
 
+def closest_method(coverage: pd.DataFrame | None, model: str, methods=("analytic", "empirical")) -> str | None:
+    """Return, of ``methods``, the one whose 95% backtest coverage for the model came closest
+    to 95% (None when none was scored)."""
+    if coverage is None or not len(coverage):
+        return None
+    own = coverage[(coverage["model"] == model) & np.isclose(coverage["level"], 0.95)
+                   & coverage["coverage"].notna() & coverage["method"].isin(list(methods))]
+    if not len(own):
+        return None
+    return str(own.assign(gap=(own["coverage"] - 0.95).abs()).sort_values("gap", kind="stable").iloc[0]["method"])
+
+
+def stated_interval_score(coverage: pd.DataFrame | None, model: str) -> float:
+    """Return the mean 95% interval score in the backtest of the interval the pages state for
+    a model (the kind closest to 95%), NaN when none was scored."""
+    method = closest_method(coverage, model)
+    if method is None:
+        return float("nan")
+    own = coverage[(coverage["model"] == model) & (coverage["method"] == method)
+                   & np.isclose(coverage["level"], 0.95)]
+    return float(own["interval_score"].iloc[0])
+
+
 def shortfalls(coverage: pd.DataFrame | None, model: str, method: str | None) -> list[tuple[float, float]]:
     """Return the levels, with their backtest coverage, at which the interval stated for a
     model held more than SHORTFALL below nominal."""
@@ -385,9 +408,4 @@ def trusted_method(coverage: pd.DataFrame | None, model: str, forecast: pd.DataF
     one whose 95% backtest coverage came closest to 95%."""
     available = [m for m in ("analytic", "empirical")
                  if f"{m}_low_95" in forecast.columns and forecast[f"{m}_low_95"].notna().any()]
-    if coverage is not None and len(coverage):
-        own = coverage[(coverage["model"] == model) & (coverage["level"] == 0.95)
-                       & coverage["coverage"].notna() & coverage["method"].isin(available)]
-        if len(own):
-            return str(own.assign(gap=(own["coverage"] - 0.95).abs()).sort_values("gap").iloc[0]["method"])
-    return available[0] if available else "analytic"
+    return closest_method(coverage, model, available) or (available[0] if available else "analytic")

@@ -20,8 +20,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES, model_kind
-from pipeline.core.formatting import format_number, markdown_table
-from pipeline.core.intervals import trusted_method
+from pipeline.core.formatting import format_number, format_percent, markdown_table
+from pipeline.core.intervals import percent, shortfall_warning, trusted_method
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.run_files import RunFiles, load_run_files
@@ -37,7 +37,7 @@ CAUTIONS = [
     "The comparison rests on the validation windows of this run; other windows can rank the "
     "models differently, and a significance test is only as good as its assumptions.",
 ]
-COMPARISON = ["model", *SCORES, "skill_vs_best_rule", "p_holm", "against_mean"]
+COMPARISON = ["model", *SCORES, "interval_score_95", "skill_vs_best_rule", "p_holm", "against_mean"]
 # With more series than this, pictures show a few series and the drivers are summarised
 # across series; the run folder's CSV files keep every row.
 MANY_SERIES = plots.MAX_PANELS
@@ -201,13 +201,13 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
 
 def _best(rows: list[dict]) -> dict[str, str]:
     best = {}
-    for column in LOWER_IS_BETTER + HIGHER_IS_BETTER + ("bias",):
+    for column in LOWER_IS_BETTER + HIGHER_IS_BETTER + ("bias", "interval_score_95"):
         values = [(row[column], row["model"]) for row in rows
                   if isinstance(row.get(column), (int, float)) and row.get(column) is not None
                   and math.isfinite(row[column])]
         if not values:
             continue
-        if column in LOWER_IS_BETTER:
+        if column in LOWER_IS_BETTER or column == "interval_score_95":
             best[column] = min(values)[1]
         elif column == "bias":
             best[column] = min(values, key=lambda v: abs(v[0]))[1]
@@ -230,6 +230,32 @@ def stated_forecast(forecast: pd.DataFrame | None, coverage: pd.DataFrame | None
         shown[f"{level}% from"] = own[f"{method}_low_{level}"].to_numpy()
         shown[f"{level}% to"] = own[f"{method}_high_{level}"].to_numpy()
     return shown, method
+
+
+def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | None) -> dict | None:
+    """Return the stated interval's backtest coverage for the recommended model by months ahead
+    and by size of series, one small table each (levels as columns, shares as percents), or
+    None when the run folder has no such breakdown."""
+    if detail is None or not len(detail) or method is None:
+        return None
+    own = detail[(detail["model"] == recommended) & (detail["method"] == method)]
+    tables = []
+    for by in ("months ahead", "size of series"):
+        part = own[own["by"] == by]
+        if not len(part):
+            continue
+        order = list(dict.fromkeys(part["group"].astype(str)))
+        if by == "months ahead":
+            order = sorted(order, key=float)
+        wide = part.assign(group=part["group"].astype(str)).pivot_table(
+            index="group", columns="level", values="coverage", aggfunc="first").reindex(order)
+        counts = part.assign(group=part["group"].astype(str)).groupby("group")["n"].max().reindex(order)
+        shown = pd.DataFrame({by: order})
+        for level in wide.columns:
+            shown[f"{percent(level)}% held"] = [format_percent(v) if pd.notna(v) else "" for v in wide[level]]
+        shown["actuals"] = counts.to_numpy()
+        tables.append(shown)
+    return {"method": method, "tables": tables} if tables else None
 
 
 def pictured_models(models: list[str], kept: tuple) -> list[str]:
@@ -299,6 +325,7 @@ def render_report(files: RunFiles | str | Path) -> str:
     forecast_picture = None
     forecast_table, method = stated_forecast(forecast, coverage, recommended)
     forecast_rows = len(forecast_table) if forecast_table is not None else 0
+    held_by = held_by_view(files.table("interval_coverage_by.csv"), recommended, method)
     if forecast_table is not None:
         forecast_picture = plots.forecast_picture(history, forecast, recommended, method, scenarios)
         forecast_table = forecast_table.head(TABLE_ROWS)
@@ -321,6 +348,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         comparison=rows, comparison_columns=[c for c in COMPARISON if any(c in r for r in rows)],
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,
+        held_by=held_by, interval_warning=shortfall_warning(coverage, recommended, method),
         forecast_rows=forecast_rows, per_series=per_series,
         scenarios=shown_scenarios.head(TABLE_ROWS) if shown_scenarios is not None else None,
         scenario_rows=len(shown_scenarios) if shown_scenarios is not None else 0,

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import SCORES
+from pipeline.core.intervals import shortfall_warning
 from pipeline.present.ahead import ahead_view
 from pipeline.present.report import (
     CAUTIONS,
@@ -68,6 +69,7 @@ def render_summary(files: RunFiles) -> str:
         comparison=pd.DataFrame(rows)[["model", *SCORES, "against_mean"]],
         forecast=shown.head(TABLE_ROWS) if shown is not None else None,
         forecast_rows=len(shown) if shown is not None else 0, method=method,
+        interval_warning=shortfall_warning(coverage, recommended, method),
         coverage=_some(coverage),
         scenarios=scenarios.head(TABLE_ROWS) if scenarios is not None else None,
         scenario_rows=len(scenarios) if scenarios is not None else 0,

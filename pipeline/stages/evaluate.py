@@ -21,7 +21,12 @@ import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
-from pipeline.core.intervals import backtest_intervals
+from pipeline.core.intervals import (
+    backtest_intervals,
+    closest_method,
+    shortfall_warning,
+    stated_interval_score,
+)
 from pipeline.core.significance import METHOD, MIN_ORIGINS, holm, origin_test, origin_tests
 from pipeline.spec import Spec
 from pipeline.stages.answer import answer as compose_answer
@@ -62,6 +67,8 @@ class Evaluation:
     tested: bool = True
     # The intervals' backtest coverage by months ahead and by size of series (thirds).
     coverage_detail: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # When the recommended model's stated interval held more than 5 points below nominal.
+    interval_warning: str | None = None
 
 
 def score(actual, predicted, scale=None) -> dict[str, float]:
@@ -518,8 +525,11 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                                                ["series"], select_by),
                                    series_tests(predictions, backtest, select_by), level)
     held, held_by = backtest_intervals(predictions, backtest.transform, backtest.floor)
+    # The interval score (Winkler 1972) of the 95% interval the pages state for each model.
+    table["interval_score_95"] = [stated_interval_score(held, model) for model in table["model"]]
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,
                       coverage=held, coverage_detail=held_by,
+                      interval_warning=shortfall_warning(held, recommended, closest_method(held, recommended)),
                       recommended=recommended, beats_baseline=answer.beats, verdict=answer.verdict,
                       select_by=select_by, notes=notes, series_summary=series_summary(by_series),
                       hindsight=hindsight, ahead_notes=ahead_notes, best_rule=best_rule,
