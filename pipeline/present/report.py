@@ -21,7 +21,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES, model_kind
 from pipeline.core.formatting import format_number, format_percent, markdown_table
-from pipeline.core.intervals import percent, shortfall_warning, trusted_method
+from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, trusted_method
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.run_files import RunFiles, load_run_files
@@ -245,8 +245,7 @@ def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | No
         if not len(part):
             continue
         order = list(dict.fromkeys(part["group"].astype(str)))
-        if by == "months ahead":
-            order = sorted(order, key=float)
+        order = sorted(order, key=float) if by == "months ahead" else [g for g in SIZE_GROUPS if g in order]
         wide = part.assign(group=part["group"].astype(str)).pivot_table(
             index="group", columns="level", values="coverage", aggfunc="first").reindex(order)
         counts = part.assign(group=part["group"].astype(str)).groupby("group")["n"].max().reindex(order)
