@@ -9,7 +9,9 @@ Rinaldo, Tibshirani & Wasserman 2018), read on each series' own scale:
 - at each horizon the bound is the ⌈(n + 1)·level⌉-th smallest of the n scores, which covers
   at least ``level`` of new errors exchangeable with them;
 - a row's interval is its point ± that bound × its series' scale (on the log scale, turned
-  back), so it always holds the point, and a target never below zero gets no bound below zero.
+  back), so it always holds the point, and a target never below zero gets no bound below zero
+  (unless the point forecast itself is below zero, as a drift line can be: the bound then
+  stops at the point).
 
 A level needs the n with ⌈(n + 1)·level⌉ ≤ n: 4 errors for 80%, 19 for 95%. castline reads
 each horizon's bound from at least FEWEST_ERRORS (39) errors, so that the 95% bound is not
