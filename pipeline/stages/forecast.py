@@ -2,7 +2,9 @@
 
 Each forecast carries intervals at 80% and 95% two ways: the analytic OLS
 prediction interval (which assumes independent, normal errors of constant
-variance), and an empirical one built from the backtest's out-of-sample errors
+variance, on the scale the model fits: with a log or log1p target it is found
+there and turned back, so it is centred on the median while the forecast is the
+smeared mean), and an empirical one built from the backtest's out-of-sample errors
 at the same horizon (which assumes only that the future errs as the past did).
 The final OLS fit also gets its coefficient table with the spec's choice of
 standard errors and the residual diagnostics. Scenarios re-forecast with
@@ -94,28 +96,34 @@ class _Predictor:
         self.designs: dict[int, Design] = {}
 
     def __call__(self, choice, model, frame: pd.DataFrame):
-        """Return the point forecasts, their standard errors and residual df for the rows."""
+        """Return the point forecasts, their standard errors, residual df and centres (the
+        predictions on the scale the model fits; None: the point forecasts) for the rows."""
         if self.stepwise and choice.kind in BASELINE_KINDS:
-            return model.predict(series_design(frame, SERIES)), None, None
+            return model.predict(series_design(frame, SERIES)), None, None, None
         if self.stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
-            point, se, df, _ = predict_ahead(self.spec, choice, self.data.history, frame,
-                                             self.data.last_period.ordinal,
-                                             executor=self.executor, progress=self.progress)
-            return point, se, df
+            point, se, df, centre, _ = predict_ahead(self.spec, choice, self.data.history, frame,
+                                                     self.data.last_period.ordinal,
+                                                     executor=self.executor, progress=self.progress)
+            return point, se, df, centre
         if id(frame) not in self.designs:
             self.designs[id(frame)] = self.plan.transform(frame)
         design = self.designs[id(frame)]
-        se, df = prediction_spread(model, design)
-        return model.predict(design), se, df
+        se, df, centre = prediction_spread(model, design)
+        return model.predict(design), se, df, centre
 
     def notes_of(self, frame: pd.DataFrame) -> tuple[str, ...]:
         """Return what the features did to the rows of a frame predicted from its design."""
         return self.designs[id(frame)].notes if id(frame) in self.designs else ()
 
 
-def _forecast_table(kind: str, future: pd.DataFrame, horizons: np.ndarray, point, se, df,
-                    predictions: pd.DataFrame) -> pd.DataFrame:
-    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds."""
+def _forecast_table(kind: str, future: pd.DataFrame, horizons: np.ndarray, point, se, df, centre,
+                    predictions: pd.DataFrame, transform: str = "none") -> pd.DataFrame:
+    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds.
+
+    The analytic bounds are centre ± t(df)·se on the scale the model fits (``centre`` None:
+    the point forecast), turned back by the inverse of ``transform`` (the spec's
+    target_transform); the empirical ones are the point forecast plus backtest residuals.
+    """
     table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": horizons,
              "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
     own = predictions[predictions["model"] == kind]
@@ -123,7 +131,7 @@ def _forecast_table(kind: str, future: pd.DataFrame, horizons: np.ndarray, point
                                        "residual": own["actual"] - own["prediction"]})
     for level in LEVELS:
         if se is not None:
-            low, high = analytic_bounds(point, se, df, level)
+            low, high = analytic_bounds(point if centre is None else centre, se, df, level, transform)
         else:
             low = high = np.full(len(point), np.nan)
         table[f"analytic_low_{percent(level)}"] = low
@@ -257,6 +265,10 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     if stepwise:
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")
+        if spec.multi_step == "recursive" and spec.target_transform != "none":
+            warnings.append(f"with target_transform: {spec.target_transform}, predictions fed back "
+                            "as lags on the transformed scale give no analytic interval; only the "
+                            "empirical one")
     report = None
     fitted = {}
     fallbacks = []
@@ -271,8 +283,9 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         if fell_back is not None:
             fallbacks.append(fell_back)
         if len(future):
-            point, se, df = predict(choice, model, future)
-            forecasts.append(_forecast_table(kind, future, horizons, point, se, df, backtest.predictions))
+            point, se, df, centre = predict(choice, model, future)
+            forecasts.append(_forecast_table(kind, future, horizons, point, se, df, centre,
+                                             backtest.predictions, spec.target_transform))
         if model.least_squares_fit is not None:
             report = _least_squares_report(spec, data, model, kind, history_design, y)
             terms = report.terms
