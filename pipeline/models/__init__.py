@@ -49,12 +49,19 @@ def make_model(choice, *, intercept: bool = True, target=None, executor: Executo
 
 
 def prediction_spread(model: Model, design) -> tuple:
-    """Return the standard error of each row's prediction and its residual df (per row for a
-    model per series), or (None, None) for a model that gives none."""
+    """Return (se, df, centre): the standard error of each row's prediction, its residual df
+    (per row for a model per series) and the prediction they go with, on the scale the
+    model fits; (None, None, None) for a model that gives no standard error.
+
+    ``centre`` is the prediction on the transformed scale for a model fitted on a
+    transformed target (``TransformedTargetModel.centre``), whose se and df are on that
+    scale too; for any other model it is None, and the caller uses the prediction itself.
+    """
     se = model.prediction_se(design)
     if se is None:
-        return None, None
-    return se, model.residual_df(design)
+        return None, None, None
+    centre = model.centre(design) if isinstance(model, TransformedTargetModel) else None
+    return se, model.residual_df(design), centre
 
 
 __all__ = ["BASELINE_KINDS", "CalendarMonthMean", "Drift", "HuberModel", "LastValue", "MeanBaseline", "Model",

@@ -43,8 +43,13 @@ class Model:
         raise NotImplementedError
 
     def prediction_se(self, design: Design) -> np.ndarray | None:
-        """Return the standard error of each row's prediction on the target's own scale, or
-        None for a model that gives none (its forecasts then have no analytic interval)."""
+        """Return the standard error of each row's prediction on the scale the model fits, or
+        None for a model that gives none (its forecasts then have no analytic interval).
+
+        That scale is the target's own, except for the transformed-target wrapper
+        (``models.transformed``), whose standard errors are on the transformed scale and
+        go with its ``centre``, the prediction there, not with ``predict``.
+        """
         return None
 
     def residual_sd(self, design: Design) -> np.ndarray | None:

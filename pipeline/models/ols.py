@@ -88,14 +88,23 @@ def _rank_tolerance(r: np.ndarray, n: int) -> float:
     return max(n, r.shape[1]) * np.finfo(float).eps * max(diagonal.max(initial=0.0), 1.0)
 
 
-def _columns_to_keep(scaled: np.ndarray, zero: np.ndarray) -> np.ndarray:
-    """Return a mask of the columns not spanned by the columns before them."""
+def _columns_to_keep(scaled: np.ndarray, zero: np.ndarray, rank: int) -> np.ndarray:
+    """Return a mask of the columns not spanned by the columns before them, at most ``rank``
+    of them (the rank the pivoted factorisation found)."""
     r = scipy.linalg.qr(scaled, mode="r", check_finite=False)[0]
     r = r[: scaled.shape[1]]
     # With fewer rows than columns, the columns past the number of rows are dependent.
     diagonal = np.zeros(scaled.shape[1])
     diagonal[: min(r.shape)] = np.abs(np.diag(r))
-    return (diagonal > _rank_tolerance(r, len(scaled))) & ~zero
+    keep = (diagonal > _rank_tolerance(r, len(scaled))) & ~zero
+    surplus = int(keep.sum()) - rank
+    if surplus > 0:
+        # Rounding in the unpivoted pass can leave a dependent column's part outside the
+        # earlier columns just above the tolerance (a per-series constant beside the series
+        # dummies, say): the columns with the smallest such parts are the dependent ones.
+        candidates = np.flatnonzero(keep)
+        keep[candidates[np.argsort(diagonal[candidates], kind="stable")[:surplus]]] = False
+    return keep
 
 
 def _solve(q: np.ndarray, r: np.ndarray, scaled: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -130,8 +139,9 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
     # short of full rank, an unpivoted pass decides which columns to leave out,
     # so that the earlier column of a collinear pair (the intercept first) stays.
     q, r, pivot = scipy.linalg.qr(scaled, mode="economic", pivoting=True, check_finite=False)
-    full_rank = np.abs(r[-1, -1]) > _rank_tolerance(r, n) and not zero.any() if n >= p else False
-    keep = np.ones(p, bool) if full_rank else _columns_to_keep(scaled, zero)
+    pivoted_rank = int((np.abs(np.diag(r)) > _rank_tolerance(r, n)).sum())
+    full_rank = pivoted_rank == p and not zero.any()
+    keep = np.ones(p, bool) if full_rank else _columns_to_keep(scaled, zero, pivoted_rank)
     kept = np.flatnonzero(keep)
     if not full_rank:
         q, r, pivot = scipy.linalg.qr(scaled[:, kept], mode="economic", pivoting=True,

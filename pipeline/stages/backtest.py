@@ -31,8 +31,12 @@ from pipeline.stages.check import CheckedData
 from pipeline.stages.multistep import needs_strategy, predict_ahead
 from pipeline.stages.splits import Split, sorted_by_month, validation_splits
 
+# prediction_se, df_resid and centre: the standard error of a prediction, its residual df and
+# the prediction they go with, on the scale the model fits (centre equals prediction without a
+# target transform; with log or log1p it is the fit's log-scale prediction, and prediction the
+# smeared mean); NaN where a model gives no standard error.
 PREDICTION_COLUMNS = ["origin", "period", "horizon", "series", "model", "actual", "prediction",
-                      "mase_scale", "prediction_se", "df_resid"]
+                      "mase_scale", "prediction_se", "df_resid", "centre"]
 
 
 FALLBACK_COLUMNS = ["model", "window", "series", "rows", "terms"]
@@ -180,13 +184,21 @@ def _split_columns(split: Split, target: str, scales: dict[str, float]) -> dict:
 
 
 def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None,
-                       df_resid=None) -> pd.DataFrame:
+                       df_resid=None, centre=None) -> pd.DataFrame:
+    """Return one model's rows of the prediction table; ``centre`` None (with a standard
+    error) means the prediction itself, and is NaN wherever the standard error is."""
+    if se is None:
+        centre = np.nan
+    else:
+        centre = np.asarray(predictions if centre is None else centre, float)
+        centre = np.where(np.isfinite(np.asarray(se, float)), centre, np.nan)
     return pd.DataFrame({
         "origin": shared["origin"], "period": shared["period"], "horizon": shared["horizon"],
         "series": shared["series"], "model": kind, "actual": shared["actual"],
         "prediction": predictions, "mase_scale": shared["mase_scale"],
         "prediction_se": np.nan if se is None else se,
         "df_resid": np.nan if df_resid is None else df_resid,
+        "centre": centre,
     })
 
 
@@ -200,8 +212,9 @@ def _check_rows(spec: Spec, split: Split, terms: int) -> None:
 
 
 def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
-    """Return the OLS predictions (with their standard errors and residual df) of every split,
-    growing one QR factor across origins. ``history`` is sorted by month."""
+    """Return the OLS predictions (with their standard errors, residual df and centre: None,
+    the predictions themselves, as this path runs only without a target transform) of every
+    split, growing one QR factor across origins. ``history`` is sorted by month."""
     def with_intercept(matrix: np.ndarray) -> np.ndarray:
         if not spec.intercept:
             return matrix
@@ -217,7 +230,7 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
                                       [split.origin.ordinal for split in splits], tests)
     if found is None:  # rank-deficient window: the careful fit drops and names columns
         return {}
-    return {split.label: result for split, result in zip(splits, found)}
+    return {split.label: (*result, None) for split, result in zip(splits, found)}
 
 
 def _shared_design(spec: Spec, plan, data: CheckedData):
@@ -315,9 +328,10 @@ def _strategy_note(spec: Spec, split: Split) -> str | None:
 
 def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, choice, *,
                     stepwise: bool, fast_ols: dict, executor: Executor, progress: Progress):
-    """Return one model's predictions of a window's rows (with standard errors and residual
-    df, or None), the series it fell back to the mean for, and, with estimated drivers, its
-    predictions had they been known (else None)."""
+    """Return one model's predictions of a window's rows (with standard errors, residual df
+    and centres, each None where the model gives none; a centre None means the prediction),
+    the series it fell back to the mean for, and, with estimated drivers, its predictions had
+    they been known (else None)."""
     tested_series = np.asarray(split.test[SERIES].to_numpy())
     known = designs.hindsight is not None and choice.kind not in BASELINE_KINDS
     if choice.name == "ols" and split.label in fast_ols:
@@ -325,21 +339,21 @@ def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, cho
         return (*ahead, [], as_known[0] if known else None)
     if stepwise and choice.kind not in BASELINE_KINDS:
         # A target lag is shorter than the months ahead: the spec's multi_step strategy.
-        predicted, se, df_resid, used = predict_ahead(spec, choice, split.train, split.test,
-                                                      split.origin.ordinal,
-                                                      executor=executor, progress=progress)
+        predicted, se, df_resid, centre, used = predict_ahead(spec, choice, split.train, split.test,
+                                                              split.origin.ordinal,
+                                                              executor=executor, progress=progress)
         as_known = predict_ahead(spec, choice, split.train, designs.hindsight, split.origin.ordinal,
                                  executor=executor, spread=False)[0] if known else None
-        return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)
-                                         for _, _, model in used], as_known
+        return predicted, se, df_resid, centre, [_fallbacks(choice.name, split.label, model, tested_series)
+                                                 for _, _, model in used], as_known
     model = make_model(choice, intercept=spec.intercept, target=plan.target_scale,
                        executor=executor, progress=progress)
     design, y_train = designs.train(choice.kind)
     model.fit(design, y_train)
     predicted = model.predict(designs.test(choice.kind))
-    se, df_resid = prediction_spread(model, designs.test(choice.kind))
+    se, df_resid, centre = prediction_spread(model, designs.test(choice.kind))
     as_known = model.predict(designs.test(choice.kind, hindsight=True)) if known else None
-    return predicted, se, df_resid, [_fallbacks(choice.name, split.label, model, tested_series)], \
+    return predicted, se, df_resid, centre, [_fallbacks(choice.name, split.label, model, tested_series)], \
         as_known
 
 
@@ -405,11 +419,11 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
         if note and note not in notes:
             notes.append(note)
         for choice in spec.models:
-            predicted, se, df_resid, fell_back, as_known = _predict_window(
+            predicted, se, df_resid, centre, fell_back, as_known = _predict_window(
                 spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=fast_ols,
                 executor=executor, progress=progress)
             fallen_back += fell_back
-            frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid))
+            frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid, centre))
             if as_known is not None:
                 known_frames.append(_frame_predictions(columns, choice.name, as_known))
         notes += designs.left_out_notes() + list(split.notes)

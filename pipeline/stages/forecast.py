@@ -2,7 +2,9 @@
 
 Each forecast carries intervals at 80% and 95% two ways: the analytic OLS
 prediction interval (which assumes independent, normal errors of constant
-variance), and an empirical one built from the backtest's out-of-sample errors
+variance, on the scale the model fits: with a log or log1p target it is found
+there and turned back, so it is centred on the median while the forecast is the
+smeared mean), and an empirical one built from the backtest's out-of-sample errors
 at the same horizon (which assumes only that the future errs as the past did).
 The final OLS fit also gets its coefficient table with the spec's choice of
 standard errors and the residual diagnostics. Scenarios re-forecast with
@@ -113,19 +115,20 @@ class _Predictor:
         self.designs: dict[int, Design] = {}
 
     def __call__(self, choice, model, frame: pd.DataFrame):
-        """Return the point forecasts, their standard errors and residual df for the rows."""
+        """Return the point forecasts, their standard errors, residual df and centres (the
+        predictions on the scale the model fits; None: the point forecasts) for the rows."""
         if self.stepwise and choice.kind in BASELINE_KINDS:
-            return model.predict(series_design(frame, SERIES)), None, None
+            return model.predict(series_design(frame, SERIES)), None, None, None
         if self.stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
-            point, se, df, _ = predict_ahead(self.spec, choice, self.data.history, frame,
-                                             self.data.last_period.ordinal,
-                                             executor=self.executor, progress=self.progress)
-            return point, se, df
+            point, se, df, centre, _ = predict_ahead(self.spec, choice, self.data.history, frame,
+                                                     self.data.last_period.ordinal,
+                                                     executor=self.executor, progress=self.progress)
+            return point, se, df, centre
         if id(frame) not in self.designs:
             self.designs[id(frame)] = self.plan.transform(frame)
         design = self.designs[id(frame)]
-        se, df = prediction_spread(model, design)
-        return model.predict(design), se, df
+        se, df, centre = prediction_spread(model, design)
+        return model.predict(design), se, df, centre
 
     def notes_of(self, frame: pd.DataFrame) -> tuple[str, ...]:
         """Return what the features did to the rows of a frame predicted from its design."""
@@ -154,9 +157,14 @@ class _Bounds:
     horizons: np.ndarray
 
 
-def _forecast_table(kind: str, future: pd.DataFrame, bounds: _Bounds, point, se, df,
-                    errors: pd.DataFrame, centre=None) -> pd.DataFrame:
-    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds."""
+def _forecast_table(kind: str, future: pd.DataFrame, bounds: _Bounds, point, se, df, centre,
+                    errors: pd.DataFrame) -> pd.DataFrame:
+    """Return one model's forecasts with their analytic and empirical 80% and 95% bounds.
+
+    The analytic bounds are centre ± t(df)·se on the scale the model fits (``centre`` None:
+    the point forecast), turned back by the inverse of the target's transform; the empirical
+    ones are the point ± the conformal bound of its months ahead × its series' scale.
+    """
     table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": bounds.horizons,
              "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
     for level in LEVELS:
@@ -307,6 +315,10 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     if stepwise:
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")
+        if spec.multi_step == "recursive" and spec.target_transform != "none":
+            warnings.append(f"with target_transform: {spec.target_transform}, predictions fed back "
+                            "as lags on the transformed scale give no analytic interval; only the "
+                            "empirical one")
     report = None
     fitted, fallbacks, error_tables = {}, [], {}
     scales = mase_scales(data.history, spec.target)

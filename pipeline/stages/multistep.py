@@ -57,7 +57,7 @@ from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.lags import with_predictions
 from pipeline.features.plan import FeaturePlan, plan_features
-from pipeline.models import make_model, prediction_spread
+from pipeline.models import TransformedTargetModel, make_model, prediction_spread
 from pipeline.spec import LaggedColumn, ModelChoice, Spec
 
 
@@ -102,11 +102,15 @@ def _fit(spec: Spec, choice: ModelChoice, plan: FeaturePlan, train: pd.DataFrame
     return model.fit(design, y)
 
 
-def _with_se(model, design, predicted):
-    se, df = prediction_spread(model, design)
-    if se is not None:
-        return predicted, se, df
-    return predicted, np.full(len(predicted), np.nan), np.nan
+def _with_se(model, design, predicted, *, fed_back: bool = False):
+    """Return the predictions, their standard errors, residual df and centre (the prediction
+    on the scale the model fits); NaN where there is no standard error. Predictions fed back
+    as lags (recursive) of a model on a transformed target get none: the recursion on the
+    transformed scale is not handled."""
+    se, df, centre = prediction_spread(model, design)
+    if se is not None and not (fed_back and isinstance(model, TransformedTargetModel)):
+        return predicted, se, df, predicted if centre is None else centre
+    return predicted, np.full(len(predicted), np.nan), np.nan, np.full(len(predicted), np.nan)
 
 
 def _in_series_order(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -166,7 +170,7 @@ def _recursive(spec: Spec, plan: FeaturePlan, model, rows: pd.DataFrame, predict
         predicted[at] = values
         known = with_predictions(known, step, values, spec.target)
         if given:
-            step_se, step_df = prediction_spread(model, design)
+            step_se, step_df, _ = prediction_spread(model, design)
             own_sd = model.residual_sd(design) if step_se is not None else None
             given = own_sd is not None
             if given:
@@ -183,10 +187,11 @@ def _recursive(spec: Spec, plan: FeaturePlan, model, rows: pd.DataFrame, predict
 
 def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd.DataFrame,
                   origin: int, *, executor: Executor = IN_PROCESS, progress: Progress = QUIET,
-                  spread: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray, list]:
-    """Return predictions, their standard errors and residual df for rows after the origin
-    (a month ordinal), by the spec's multi-step strategy, and the fitted models used
-    (a model per series fitted on ``executor``, reporting to ``progress``).
+                  spread: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list]:
+    """Return predictions, their standard errors, residual df and centres (the predictions
+    on the scale the models fit, which the standard errors go with; NaN where none) for rows
+    after the origin (a month ordinal), by the spec's multi-step strategy, and the fitted
+    models used (a model per series fitted on ``executor``, reporting to ``progress``).
 
     Under the recursive strategy the standard errors are the h-step ones (see the module's
     docstring), NaN for a model that gives none or fits a transformed target. With
@@ -197,6 +202,7 @@ def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd
     predicted = np.full(len(rows), np.nan)
     se = np.full(len(rows), np.nan)
     df = np.full(len(rows), np.nan)
+    centre = np.full(len(rows), np.nan)
     fitted = []
     if spec.multi_step == "direct":
         for horizon in np.unique(ahead):
@@ -205,11 +211,12 @@ def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd
             plan = plan_features(horizon_spec, SERIES).fit(train)
             model = _fit(horizon_spec, choice, plan, train, executor=executor, progress=progress)
             design = plan.transform(rows[at])
-            predicted[at], se[at], df[at] = _with_se(model, design, model.predict(design))
+            predicted[at], se[at], df[at], centre[at] = _with_se(model, design, model.predict(design))
             fitted.append((int(horizon), plan, model))
-        return predicted, se, df, fitted
+        return predicted, se, df, centre, fitted
     plan = plan_features(spec, SERIES).fit(train)
     model = _fit(spec, choice, plan, train, executor=executor, progress=progress)
     _recursive(spec, plan, model, rows, predicted, se, df, spread=spread)
+    centre = np.where(np.isfinite(se), predicted, np.nan)   # no transform where se is given
     fitted.append((0, plan, model))
-    return predicted, se, df, fitted
+    return predicted, se, df, centre, fitted

@@ -8,7 +8,9 @@ rest on definitions, not on castline's own numbers:
   zeros (the definition of a model through the origin); with one, it does not;
 - a linear model's prediction is its intercept plus the row times its slopes;
 - a model either gives a standard error per row or says it gives none (None),
-  never lacks the method.
+  never lacks the method; under a log target the wrapper's standard error is the
+  inner model's, on the log scale, and goes with its prediction there (``centre``),
+  which the smearing factor turns into the mean ``predict`` states.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ import pytest
 from pipeline.core.catalogue import LINEAR_KINDS, MODEL_KINDS, MODELS, PER_SERIES_KINDS, model_label
 from pipeline.core.design import Design
 from pipeline.features.target import TargetTransform
-from pipeline.models import Model, TransformedTargetModel, make_model
+from pipeline.models import Model, TransformedTargetModel, make_model, prediction_spread
 from pipeline.spec import ModelChoice
 
 
@@ -64,22 +66,35 @@ def test_every_model_keeps_the_contract(name, per_series, log_target):
     se = model.prediction_se(design)
     df = model.residual_df(design)
     sigma = model.residual_sd(design)
-    if kind.can("prediction_se") and not wrapped:
+    spread_se, spread_df, centre = prediction_spread(model, design)
+    if kind.can("prediction_se"):
         assert se is not None and np.shape(se) == (len(y),) and (np.asarray(se) > 0).all()
         assert df is not None and np.all(np.asarray(df) > 0)
-        # s·sqrt(1 + x'(X'X)⁻¹x) is at least s, the residual SD, which it starts from.
-        assert sigma is not None and np.shape(sigma) == (len(y),)
-        assert (0 < np.asarray(sigma)).all() and (np.asarray(sigma) <= np.asarray(se)).all()
+        np.testing.assert_array_equal(spread_se, se)
+        np.testing.assert_array_equal(spread_df, df)
+        if wrapped:
+            # On the log scale: the centre is the fit there, and exp(centre)·S the mean predicted.
+            np.testing.assert_array_equal(centre, model.centre(design))
+            np.testing.assert_allclose(np.exp(centre) * model.smearing_, predicted, rtol=1e-12)
+            assert sigma is None   # no recursion fed back on the transformed scale
+        else:
+            assert centre is None   # the prediction itself is the centre
+            # s·sqrt(1 + x'(X'X)⁻¹x) is at least s, the residual SD, which it starts from.
+            assert sigma is not None and np.shape(sigma) == (len(y),)
+            assert (0 < np.asarray(sigma)).all() and (np.asarray(sigma) <= np.asarray(se)).all()
     else:
-        # No standard error on the target's scale: said with None, not by a missing method
-        # (under a log target the wrapper used to lack it, and analytic intervals vanished).
+        # No standard error: said with None, not by a missing method (under a log target the
+        # wrapper once lacked it, and analytic intervals vanished).
         assert se is None and df is None and sigma is None
+        assert spread_se is None and spread_df is None and centre is None
     table = model.coefficient_table()
     assert {"term", "estimate"} <= set(table.columns) and len(table)
     assert model.inner is not None and isinstance(model.notes(), list)
     assert model.describe() is None or isinstance(model.describe(), str)
     if wrapped and kind.can("prediction_se"):
-        assert "no analytic interval" in model.describe()   # the summary says why there is none
+        # The summary says where the interval is centred, and that the forecast is the mean.
+        assert "analytic interval is found on the log(y) scale" in model.describe()
+        assert "centred on the median" in model.describe()
 
 
 @pytest.mark.parametrize("name", LINEAR_KINDS)

@@ -275,6 +275,35 @@ def test_rank_deficient_design_drops_and_names_columns():
                                reference.predict(sm.add_constant(new, has_constant="add")), rtol=1e-9)
 
 
+@pytest.mark.filterwarnings("ignore:The design matrix is rank-deficient")
+def test_a_per_series_constant_beside_the_series_dummies_is_dropped_however_the_rounding_falls():
+    # A per-series constant (a target-mean encoding, say: about 7.5 per series) beside an
+    # intercept and the dummies of two of three series: 'c' = (enc − l_a − (l_b − l_a)·b) /
+    # (l_c − l_a), an exact combination. For this seed the unpivoted pass's rounding leaves
+    # c's part outside the earlier columns just above the rank tolerance (about 5e-14 with
+    # unit columns) while the pivoted pass finds the rank 4: the column must still be dropped,
+    # not kept with coefficients of 1e14 and a standard error of NaN.
+    rng = np.random.default_rng(7)
+    n = 60
+    groups = rng.integers(0, 3, n)
+    dummies = np.eye(3)[groups]
+    level = rng.normal(7.8, 0.3, 3)
+    x = np.column_stack([rng.normal(size=n), level[groups], dummies[:, 1], dummies[:, 2]])
+    y = 1 + 0.5 * x[:, 0] + dummies @ np.array([0.0, 0.3, -0.2]) + rng.normal(0, 0.1, n)
+    names = ["x", "enc", "b", "c"]
+    model = _fit(x, names, y)
+    assert model.fit_.dropped == [Collinearity("c", [INTERCEPT, "enc", "b"])]
+    assert model.fit_.rank == 4 and model.fit_.condition_number < 1e4
+    # Reference library: statsmodels OLS, default method="pinv"; fitted values and the
+    # standard errors of new observations are unique, so they must agree.
+    reference = sm.OLS(y, sm.add_constant(x)).fit()
+    frame = reference.get_prediction(sm.add_constant(x)).summary_frame(alpha=0.05)
+    np.testing.assert_allclose(model.predict(_design(x, names)), frame["mean"], rtol=1e-9)
+    np.testing.assert_allclose(model.prediction_se(_design(x, names)), reference.get_prediction(
+        sm.add_constant(x)).se_obs, rtol=1e-9)
+    assert model.residual_df() == reference.df_resid
+
+
 def test_constant_driver_with_intercept_is_dropped_as_combination_of_intercept():
     rng = np.random.default_rng(43)
     n = 30

@@ -480,3 +480,46 @@ def test_the_simple_references_run_end_to_end_under_rolling_origin(tmp_path):
                             validate="one_to_one")
     assert len(merged) == len(forecast) == 4 * 2 * 3    # four rules, two regions, three months
     np.testing.assert_allclose(merged["forecast"], merged["expected"], rtol=1e-12)
+
+
+@pytest.mark.parametrize("kind", ["log", "log1p"])
+def test_a_log_target_run_states_analytic_intervals_found_on_the_log_scale(tmp_path, kind):
+    """target_transform: log (or log1p) over the tiny data (invented plumbing data, one
+    series, y on x). Reference: statsmodels OLS of log(y) (log(1 + y)) on x over all history,
+    get_prediction(future x).summary_frame(alpha = 1 − level), its observation interval turned
+    back with exp (expm1); the forecast is the smeared mean exp(mean)·S (− 1 for log1p)."""
+    data = tiny_data()
+    spec = write_tiny_spec(tmp_path, data, actuals_to="2021-12", target_transform=kind)
+    result = pipeline.run(spec)
+    forecast = pd.read_csv(result.folder.path / "forecast.csv")
+    ols = forecast[forecast["model"] == "ols"].reset_index(drop=True)
+    assert len(ols) == 3
+    columns = [f"analytic_{side}_{level}" for side in ("low", "high") for level in (80, 95)]
+    assert ols[columns].notna().all().all()
+
+    history = data.iloc[:24]
+    future = data.iloc[24:27]
+    forward, inverse, shift = (np.log, np.exp, 0.0) if kind == "log" else (np.log1p, np.expm1, 1.0)
+    fit = smf.ols("z ~ x", data=history.assign(z=forward(history["y"]))).fit()
+    smearing = float(np.mean(np.exp(fit.resid)))
+    np.testing.assert_allclose(ols["forecast"], np.exp(fit.predict(future)) * smearing - shift, rtol=1e-9)
+    for level in (80, 95):
+        frame = fit.get_prediction(future).summary_frame(alpha=1 - level / 100)
+        np.testing.assert_allclose(ols[f"analytic_low_{level}"], inverse(frame["obs_ci_lower"]), rtol=1e-9)
+        np.testing.assert_allclose(ols[f"analytic_high_{level}"], inverse(frame["obs_ci_upper"]), rtol=1e-9)
+        assert ((ols[f"analytic_low_{level}"] < ols["forecast"])
+                & (ols["forecast"] < ols[f"analytic_high_{level}"])).all()
+
+    # predictions.csv carries each row's centre on the log scale beside its smeared mean: the
+    # holdout's fit (the spec's last 6 months held out) made again with statsmodels.
+    predictions = pd.read_csv(result.folder.path / "predictions.csv")
+    own = predictions[predictions["model"] == "ols"]
+    window = smf.ols("z ~ x", data=history.iloc[:18].assign(z=forward(history["y"].iloc[:18]))).fit()
+    held = window.get_prediction(history.iloc[18:24])
+    np.testing.assert_allclose(own["centre"], held.predicted_mean, rtol=1e-9)
+    np.testing.assert_allclose(own["prediction_se"], held.se_obs, rtol=1e-9)
+    np.testing.assert_allclose(own["prediction"], np.exp(held.predicted_mean)
+                               * np.mean(np.exp(window.resid)) - shift, rtol=1e-9)
+    assert predictions.loc[predictions["model"] != "ols", "centre"].isna().all()
+    summary = (result.folder.path / "summary.md").read_text(encoding="utf-8")
+    assert "centred on the median of y" in summary

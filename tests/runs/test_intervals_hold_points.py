@@ -4,7 +4,8 @@
 Reference: the definition of a prediction interval around a point forecast, and the module
 docstring of pipeline.core.intervals (a row's empirical interval is its point ± a bound,
 turned back from the log scale for a log target, "so it always holds the point"; the analytic
-one is the point ± t·se, and is not given for a log target: pipeline.models.transformed). A
+one is the point ± t·se, or for a log target exp(centre ± t·se) around the smeared mean
+exp(centre)·S, which holds it for any smearing factor S below e^{t·se}). A
 conformal bound at 95% is a higher order statistic of the same scores than at 80% (Lei,
 G'Sell, Rinaldo, Tibshirani & Wasserman 2018, section 2.2), and a t quantile at 97.5% is above
 the one at 90%, so the 80% interval lies inside the 95% whichever way it was made.
@@ -103,13 +104,12 @@ def test_every_model_kind_is_forecast_with_an_empirical_interval(run):
         present = forecast.groupby("model")[f"empirical_low_{level}"].count()
         assert (present == len(SHOPS) * FUTURE).all(), present
     # Analytic bounds are for the kinds with a standard error (the catalogue's prediction_se:
-    # OLS, over all series and per series); on a log target none, as pipeline.models
-    # .transformed says (the standard error is on the log scale), so there the checks below
-    # meet the empirical intervals only.
+    # OLS, over all series and per series); on a log target they are found on the log scale
+    # and turned back (pipeline.models.transformed), so the checks below meet both kinds.
     analytic = set(forecast.dropna(subset=["analytic_low_95"])["model"])
     with_se = {name for name in EXPECTED if model_kind(name).can("prediction_se")}
     assert with_se == {"ols", f"ols{PER_SERIES}"}
-    assert analytic == (with_se if transform == "none" else set())
+    assert analytic == with_se
 
 
 @pytest.mark.parametrize("method", METHODS)

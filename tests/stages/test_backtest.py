@@ -186,11 +186,53 @@ def test_every_origin_ols_prediction_equals_a_fresh_statsmodels_fit(case, tmp_pa
         got = ols[ols["origin"] == label].merge(expected, on=["period", "series"], validate="1:1")
         assert len(got) == len(test) == (test_end - test_start + 1) * frame["region"].nunique()
         np.testing.assert_allclose(got["prediction"], got["expected"], rtol=1e-8, atol=0)
+        # No target transform: the interval's centre is the prediction itself (the growing-QR
+        # path included).
+        assert got["prediction_se"].notna().all()
+        np.testing.assert_array_equal(got["centre"], got["prediction"])
         assert (got["horizon"].to_numpy() >= 1 + validation.get("gap", 0)).all()
         if growing:
             recorded = prediction_of(spy.outputs[0][label])
             np.testing.assert_array_equal(ols.loc[ols["origin"] == label, "prediction"].to_numpy(),
                                           recorded)
+
+
+@pytest.mark.parametrize("kind", ["log", "log1p"])
+@pytest.mark.parametrize("window", ["expanding", "sliding"])
+def test_a_transformed_targets_centre_and_se_are_a_statsmodels_fit_on_that_scale(kind, window, tmp_path):
+    # At every origin: statsmodels OLS of log(y) (or log(1 + y)) on 1, x1, x2 over the training
+    # window. Its prediction is the centre, its se_obs the prediction_se, its df_resid the df;
+    # the prediction is the smeared mean exp(centre)·S (− 1 for log1p), S = mean(exp(resid)).
+    frame = panel(n_series=2, n_months=48, seed=8)
+    validation = {"method": "rolling_origin", "window": window, "horizon": 3,
+                  "min_train_periods": 30, "origins": 4}
+    spec, data = load(tmp_path, frame, validation=validation, models=["ols"], numeric=["x1", "x2"],
+                      target_transform=kind)
+    result = run_backtest(spec, data)
+    history = data.history
+    months = np.sort(history[PERIOD].unique())
+    forward, shift = (np.log, 0.0) if kind == "log" else (np.log1p, 1.0)
+    predictions = result.predictions
+    for train_start, origin, test_start, test_end in expected_windows(len(months), validation):
+        train = history[history[PERIOD].between(months[train_start], months[origin])]
+        test = history[history[PERIOD].between(months[test_start], months[test_end])]
+        reference = sm.OLS(forward(train["y"].to_numpy(float)),
+                           sm.add_constant(train[["x1", "x2"]].to_numpy(float))).fit()
+        new = reference.get_prediction(sm.add_constant(test[["x1", "x2"]].to_numpy(float)))
+        smearing = float(np.mean(np.exp(reference.resid)))
+        expected = pd.DataFrame({"period": test[PERIOD].astype(str).to_numpy(),
+                                 "series": test[SERIES].to_numpy(), "mean": new.predicted_mean,
+                                 "se_obs": new.se_obs})
+        ols = predictions[(predictions["model"] == "ols") & (predictions["origin"] == str(months[origin]))]
+        got = ols.merge(expected, on=["period", "series"], validate="1:1")
+        assert len(got) == len(test)
+        np.testing.assert_allclose(got["centre"], got["mean"], rtol=1e-9)
+        np.testing.assert_allclose(got["prediction_se"], got["se_obs"], rtol=1e-9)
+        assert (got["df_resid"] == reference.df_resid).all()
+        np.testing.assert_allclose(got["prediction"], np.exp(got["mean"]) * smearing - shift, rtol=1e-9)
+    # The baselines give no standard error, so no centre.
+    rules = predictions[predictions["model"] != "ols"]
+    assert len(rules) and rules["centre"].isna().all() and rules["prediction_se"].isna().all()
 
 
 def test_growing_path_is_skipped_when_the_plan_differs_between_windows_and_the_answer_is_still_right(

@@ -57,7 +57,7 @@ def hand_made(seed: int = 0, origins: int = 6, horizon: int = 3, series=("a", "b
                 "horizon": [(p - origin).n for p, _ in cells], "series": [s for _, s in cells],
                 "model": model, "actual": actual, "prediction": prediction,
                 "mase_scale": rng.uniform(1, 3, len(cells)), "prediction_se": np.nan,
-                "df_resid": np.nan}))
+                "df_resid": np.nan, "centre": np.nan}))
     table = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
     # ols predicts what the mean baseline does for series "b": every loss difference is 0.
     base = table[table["model"] == "mean_baseline"].set_index(["origin", "period", "series"])["prediction"]
@@ -183,7 +183,8 @@ def simulated_panel(seed: int = 1995) -> pd.DataFrame:
                 "origin": [str(o) for o, _, _ in cells], "period": [str(p) for _, p, _ in cells],
                 "horizon": [k for _, _, k in cells], "series": name, "model": model,
                 "actual": actual, "prediction": actual + error,
-                "mase_scale": rng.uniform(1, 3, size), "prediction_se": np.nan, "df_resid": np.nan}))
+                "mase_scale": rng.uniform(1, 3, size), "prediction_se": np.nan, "df_resid": np.nan,
+                "centre": np.nan}))
     table = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
     return table.sample(frac=1, random_state=seed).reset_index(drop=True)
 

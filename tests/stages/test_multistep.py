@@ -34,7 +34,7 @@ def _simulated(path, months=72, future=3, seed=5):
     return frame
 
 
-def _spec(tmp_path, strategy, lags="[1, 2]"):
+def _spec(tmp_path, strategy, lags="[1, 2]", transform="none"):
     data = tmp_path / "series.csv"
     if not data.exists():
         _simulated(data)
@@ -42,6 +42,7 @@ def _spec(tmp_path, strategy, lags="[1, 2]"):
         name: ahead
         input: {{file: series.csv, date_column: month}}
         target: y
+        target_transform: {transform}
         drivers:
           numeric: [x]
           lags:
@@ -51,7 +52,7 @@ def _spec(tmp_path, strategy, lags="[1, 2]"):
         validation: {{method: holdout, last_periods: 6}}
         output: {{folder: out}}
         """)
-    path = tmp_path / f"{strategy}.yaml"
+    path = tmp_path / f"{strategy}-{transform}.yaml"
     path.write_text(text, encoding="utf-8")
     return pipeline.load_spec(path)
 
@@ -125,3 +126,70 @@ def test_a_whole_run_with_short_target_lags_forecasts_every_future_month(tmp_pat
     ols = result.forecast[result.forecast["model"] == "ols"]
     assert len(ols) == 3 and ols["forecast"].notna().all()
     assert any("multi_step" in warning for warning in result.warnings)
+
+
+def test_direct_strategy_on_a_log_target_gives_the_log_fits_interval_inputs(tmp_path):
+    # Per horizon, statsmodels OLS of log(y) on x and the lags of log(y) that reach the origin:
+    # its prediction is the centre, its se_obs and df_resid the standard error and df.
+    spec = _spec(tmp_path, "direct", transform="log")
+    data = pipeline.check(spec)
+    split = pipeline.runner.plan_splits(spec, data)[0][0]
+    point, se, df, centre, fitted = multistep.predict_ahead(spec, spec.model("ols"), split.train,
+                                                            split.test, split.origin.ordinal)
+    history = data.history.sort_values(PERIOD).reset_index(drop=True)
+    history["log_y"] = np.log(history["y"])
+    origin = split.origin.ordinal
+    months = history[PERIOD].array.asi8
+    smearing = {horizon: model.smearing_ for horizon, _, model in fitted}
+    for position, month in enumerate(split.test[PERIOD].array.asi8):
+        horizon = int(month - origin)
+        lags = [lag for lag in (1, 2) if lag >= horizon]
+        train = history[months <= origin].copy()
+        columns = ["x"]
+        for lag in lags:
+            train[f"lag{lag}"] = train["log_y"].shift(lag)
+            columns.append(f"lag{lag}")
+        train = train.dropna(subset=columns)
+        fit = sm.OLS(train["log_y"], sm.add_constant(train[columns])).fit()
+        row = history[months == month].iloc[0]
+        features = [1.0, row["x"]] + [float(history.loc[months == month - lag, "log_y"].iloc[0])
+                                      for lag in lags]
+        frame = fit.get_prediction(np.array([features])).summary_frame()
+        assert centre[position] == pytest.approx(float(frame["mean"].iloc[0]), rel=1e-9)
+        assert se[position] == pytest.approx(float(np.sqrt(frame["mean_se"].iloc[0] ** 2 + fit.scale)),
+                                             rel=1e-9)
+        assert df[position] == fit.df_resid
+        assert point[position] == pytest.approx(np.exp(centre[position]) * smearing[horizon], rel=1e-12)
+
+
+def test_recursive_strategy_on_a_log_target_gives_no_analytic_interval(tmp_path):
+    # Predictions fed back as lags on the log scale: no standard error is claimed for them.
+    point, se, df, centre, _ = multistep.predict_ahead(
+        *_recursive_inputs(tmp_path, "log"))
+    assert np.isfinite(point).all()
+    assert np.isnan(se).all() and np.isnan(df).all() and np.isnan(centre).all()
+    # Without a transform the recursive strategy still states one, centred on the prediction.
+    point, se, df, centre, _ = multistep.predict_ahead(*_recursive_inputs(tmp_path, "none"))
+    assert np.isfinite(se).all()
+    np.testing.assert_array_equal(centre, point)
+
+
+def _recursive_inputs(tmp_path, transform):
+    spec = _spec(tmp_path, "recursive", transform=transform)
+    split = pipeline.runner.plan_splits(spec, pipeline.check(spec))[0][0]
+    return spec, spec.model("ols"), split.train, split.test, split.origin.ordinal
+
+
+@pytest.mark.parametrize("strategy", ["direct", "recursive"])
+def test_a_whole_run_on_a_log_target_states_an_analytic_interval_only_without_feeding_back(tmp_path,
+                                                                                          strategy):
+    result = pipeline.run(_spec(tmp_path, strategy, transform="log"), output_folder=tmp_path / "runs")
+    ols = result.forecast[result.forecast["model"] == "ols"]
+    fed_back = [w for w in result.warnings if "fed back" in w and "no analytic interval" in w]
+    if strategy == "direct":
+        assert ols[["analytic_low_80", "analytic_high_95"]].notna().all().all()
+        assert ((ols["analytic_low_95"] < ols["forecast"]) & (ols["forecast"] < ols["analytic_high_95"])).all()
+        assert not fed_back
+    else:
+        assert ols[["analytic_low_80", "analytic_high_95"]].isna().all().all()
+        assert len(fed_back) == 1

@@ -82,7 +82,7 @@ def _ahead(spec, data, name: str = "ols", rows: pd.DataFrame | None = None):
     """Return the months ahead with castline's recursive point, se and df, and the plan and
     model it fitted."""
     rows = data.future if rows is None else rows
-    point, se, df, fitted = multistep.predict_ahead(spec, spec.model(name), data.history, rows,
+    point, se, df, _, fitted = multistep.predict_ahead(spec, spec.model(name), data.history, rows,
                                                     data.last_period.ordinal)
     table = rows.assign(point=point, se=se, df=df,
                         h=(rows[PERIOD].array.asi8 - data.last_period.ordinal).astype(int))

@@ -55,7 +55,7 @@ def _backtest(rng, candidates: int, origins: int = 40, series=("s1",), helps=0.0
                 rows.append({"origin": label, "period": str(pd.Period(label, "M") + 1), "horizon": 1,
                              "series": name, "model": model, "actual": actual,
                              "prediction": predicted, "mase_scale": 10.0,
-                             "prediction_se": np.nan, "df_resid": np.nan})
+                             "prediction_se": np.nan, "df_resid": np.nan, "centre": np.nan})
     return BacktestResult(predictions=pd.DataFrame(rows)[PREDICTION_COLUMNS], splits=[],
                           scheme="rolling_origin", horizon=1, notes=[], step=1)
 
