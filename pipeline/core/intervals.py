@@ -208,8 +208,15 @@ def borrowing_note(table: pd.DataFrame, furthest: int | None = None) -> str | No
     borrowed = one[(one["from_horizon"] != one["horizon"]) | (one["to_horizon"] != one["horizon"])]
     parts = []
     if len(borrowed):
-        listed = ", ".join(f"{h} ({a}–{b})" for h, a, b in borrowed[["horizon", "from_horizon", "to_horizon"]]
-                           .itertuples(index=False))
+        # Consecutive horizons that borrowed from the same months ahead are named once: 1–5 (1–10).
+        runs: list[list] = []
+        for h, a, b in borrowed[["horizon", "from_horizon", "to_horizon"]].itertuples(index=False):
+            if runs and runs[-1][1] == h - 1 and runs[-1][2:] == [a, b]:
+                runs[-1][1] = h
+            else:
+                runs.append([h, h, a, b])
+        listed = ", ".join(f"{first}{'' if first == last else f'–{last}'} ({a}–{b})"
+                           for first, last, a, b in runs)
         parts.append(f"the empirical intervals at months ahead {listed} had fewer than {FEWEST_ERRORS} "
                      "backtest errors of their own and borrowed those of the months ahead in brackets")
     last = int(one["horizon"].max())
