@@ -46,14 +46,21 @@ V2 = TEST_DATA / "model_files_v2"
 
 # Version 2's `estimated` leaves the estimated drivers empty in its months to forecast: the
 # stored estimates fill them. `references` holds the calendar-month and trailing means.
+# Files of versions 1 and 2 predate the intervals (version 3): they forecast without them,
+# and say so in one line.
 @pytest.mark.parametrize("folder", [V1 / name for name in FIXTURES] + [V2 / "estimated", V2 / "references"],
                          ids=[*FIXTURES, "v2-estimated", "v2-references"])
 def test_a_model_file_forecasts_what_its_run_wrote(folder, tmp_path, capsys):
     output = tmp_path / "forecast.csv"
     code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
                      "--output", str(output)])
-    assert code == 0, capsys.readouterr().err
+    printed = capsys.readouterr()
+    assert code == 0, printed.err
     _assert_same_forecasts(output, folder)
+    assert printed.out.splitlines() == [f"forecasts written to {output}",
+                                        "note: this model file predates intervals: no intervals given"]
+    assert list(pd.read_csv(output).columns) == ["period", "series", "model", "forecast"]
+    assert load_model(folder / "model.json").intervals is None
 
 
 def test_a_version_1_model_file_forecasts_through_the_command_in_a_subprocess(tmp_path):
