@@ -41,7 +41,8 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--problems", metavar="FILE", help="also write the problems to this CSV file")
     report = commands.add_parser("report", help="rebuild a run folder's report.html from its files")
     report.add_argument("run_folder", help="a run folder written by castline run")
-    forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json")
+    forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json, "
+                                                          "with the run's empirical 80%% and 95%% intervals")
     forecast.add_argument("model_file", help="model.json from a run folder")
     forecast.add_argument("data_file", help="CSV, Parquet or Excel rows with the drivers filled in")
     forecast.add_argument("--model", help="only this model (default: every model in the file)")
@@ -378,6 +379,8 @@ def _command_forecast(args) -> int:
         print(f"forecasts written to {args.output}")
     else:
         _print_table(table.to_dict(orient="records"), list(table.columns))
+    for note in stored.notes(table):   # the intervals: none in an older file; series or months they lack
+        print(f"note: {note}")
     return EXIT_OK
 
 

@@ -27,8 +27,9 @@ import pandas as pd
 
 from pipeline.core.errors import ModelFileError
 
-FORMAT_VERSION = 2          # the version of the fields every to_dict writes
-READABLE_VERSIONS = (1, 2)  # the versions from_dict can read (2 added FeaturePlan.future_)
+FORMAT_VERSION = 3             # the version of the fields every to_dict writes
+READABLE_VERSIONS = (1, 2, 3)  # the versions from_dict can read (2 added FeaturePlan.future_,
+                               # 3 the model file's empirical intervals)
 
 ARRAY_TYPES = ("float64", "int64", "bool", "object", "int32", "float32")
 
@@ -292,7 +293,7 @@ class StoredFields:
         value = self.value(key)
         try:
             array = np.asarray(value, dtype=dtype)
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):   # OverflowError: an infinity as a whole number
             raise self.bad(key, f"an array of {dtype}") from None
         if array.ndim != ndim:
             raise self.bad(key, f"an array of {ndim} dimension(s)")

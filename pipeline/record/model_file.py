@@ -1,16 +1,22 @@
 """A fitted run saved as JSON, and loaded back to forecast new rows. Never a pickle.
 
 The file holds the feature plan (each transformer's settings and what it
-learned), every model's fitted numbers, and the versions that made it. Each
-stored part writes and reads its own named fields (``to_dict`` and the
-classmethod ``from_dict``, see ``pipeline.core.stored``); loading builds only
+learned), every model's fitted numbers, what the run's empirical intervals were
+read from (``StoredIntervals``, from format version 3), and the versions that
+made it. Each stored part writes and reads its own named fields (``to_dict`` and
+the classmethod ``from_dict``, see ``pipeline.core.stored``); loading builds only
 the classes in the plan's ``PART_CLASSES`` and in ``BASELINES`` below, so a
 model file cannot run code, and a damaged one stops with a ``ModelFileError``.
+
+A file of version 1 or 2 predates the intervals: it still forecasts, without
+them (its table has no horizon or interval columns, and ``StoredModel.notes``
+says so).
 """
 
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +26,8 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from pipeline.core.catalogue import BASELINE_KINDS, MODELS, model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError, ModelFileError, UserError
-from pipeline.core.stored import FORMAT_VERSION, READABLE_VERSIONS, StoredFields, encode
+from pipeline.core.intervals import LEVELS, empirical_bounds, percent, usable_scales
+from pipeline.core.stored import FORMAT_VERSION, READABLE_VERSIONS, StoredFields, encode, encode_fields
 from pipeline.core.version import __version__
 from pipeline.features.plan import FeaturePlan
 from pipeline.features.target import TargetTransform
@@ -34,7 +41,8 @@ FORMAT = "castline-model"
 # The baseline classes a model file may name: every reference kind in the catalogue.
 BASELINES: dict[str, type] = {cls.__name__: cls for cls in (MODELS[kind].model_class() for kind in BASELINE_KINDS)}
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "ModelFileError", "StoredModel", "load_model", "model_document"]
+__all__ = ["FORMAT", "FORMAT_VERSION", "ModelFileError", "StoredIntervals", "StoredModel", "load_model",
+           "model_document"]
 
 
 # ------------------------------------------------------------ target transform
@@ -140,6 +148,119 @@ class StoredPerSeries:
         return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 
+# ------------------------------------------------------------------ intervals
+
+INTERVALS_FROM = 3   # the first format version whose files hold the empirical intervals
+TRANSFORMS = ("none", "log", "log1p")
+# A model's bounds by months ahead and level, as ``core.intervals.horizon_bounds`` gives them.
+BOUND_COLUMNS = {"horizon": "int64", "level": "float64", "bound": "float64", "errors": "int64",
+                 "from_horizon": "int64", "to_horizon": "int64"}
+PREDATES_INTERVALS = "this model file predates intervals: no intervals given"
+
+
+class StoredIntervals:
+    """What a run's empirical intervals were read from, to state them for new rows as the run
+    did (``core.intervals.empirical_bounds``): per model, the bounds of its scaled backtest
+    errors by months ahead and level; each series' scale from all history (the MASE scale,
+    NaN or 0 where unusable); the target's transform and floor (0 for a target never below
+    zero, else None); and the last month of history, from which months ahead are counted."""
+
+    def __init__(self, tables: dict[str, pd.DataFrame], series_scales: dict[str, float], transform: str,
+                 floor: float | None, last_period) -> None:
+        self.tables = {kind: table.reset_index(drop=True) for kind, table in tables.items()}
+        self.series_scales = {str(series): float(scale) for series, scale in series_scales.items()}
+        self.transform = transform
+        self.floor = None if floor is None else float(floor)
+        self.last_period = pd.Period(last_period, freq="M")
+
+    @classmethod
+    def from_forecast(cls, forecast) -> StoredIntervals:
+        """Return what a run's ``ForecastResult`` kept of its empirical intervals."""
+        return cls(forecast.interval_bounds, forecast.series_scales, forecast.transform, forecast.floor,
+                   forecast.last_period)
+
+    def to_dict(self) -> dict:
+        """Return the fields as a model file stores them; the bounds as one object per model."""
+        return {**encode_fields({"transform": self.transform, "floor": self.floor,
+                                 "last_period": self.last_period, "series_scales": self.series_scales}),
+                "bounds": {kind: encode_fields({column: table[column].to_numpy(dtype)
+                                                for column, dtype in BOUND_COLUMNS.items()})
+                           for kind, table in self.tables.items()}}
+
+    @classmethod
+    def from_dict(cls, data, models: list[str], version: int = FORMAT_VERSION) -> StoredIntervals:
+        """Return the intervals ``to_dict`` stored, with one table of bounds for each of the
+        file's models."""
+        with StoredFields(data, "the intervals", version=version) as fields:
+            transform = fields.choice("transform", TRANSFORMS)
+            floor = fields.number("floor", optional=True)
+            if floor is not None and not math.isfinite(floor):
+                raise fields.bad("floor", "a finite number or null")
+            last_period = fields.period("last_period")
+            scales = fields.number_map("series_scales")
+            bounds = fields.raw("bounds")
+        odd = [series for series, scale in scales.items() if not (math.isnan(scale) or 0 <= scale < math.inf)]
+        if odd:
+            raise ModelFileError(f"the intervals: the scale of series {odd[0]!r} is negative or infinite")
+        if not isinstance(bounds, dict) or sorted(bounds) != sorted(models):
+            raise ModelFileError("the intervals: the field 'bounds' does not hold one table for each model")
+        return cls({kind: _bounds_from_dict(table, kind, version) for kind, table in bounds.items()}, scales,
+                   transform, floor, last_period)
+
+    def horizons(self, periods: pd.Series) -> np.ndarray:
+        """Return each row's months after the last month of history (0 or less at or before it)."""
+        return (periods.array.asi8 - self.last_period.ordinal).astype(int)
+
+    def row_scales(self, series: pd.Series) -> np.ndarray:
+        """Return each row's series scale, as the run's forecast takes it: its series' scale,
+        one unknown (a series the run never saw) or unusable replaced by ``usable_scales``'
+        median of the other rows' usable scales. When no row has one, the median of the
+        run's usable scales (the run would use 1)."""
+        scale = series.map(self.series_scales).to_numpy(float)
+        if len(scale) and not (np.isfinite(scale) & (scale > 0)).any():
+            known = np.array(list(self.series_scales.values()), float)
+            known = known[np.isfinite(known) & (known > 0)]
+            return np.full(len(scale), float(np.median(known)) if len(known) else 1.0)
+        return usable_scales(scale)
+
+    def columns(self, kind: str, point, horizons: np.ndarray, scale: np.ndarray) -> dict[str, np.ndarray]:
+        """Return a model's empirical 80% and 95% bounds for rows with these points, months
+        ahead and scales: NaN for a row at or before the last month of history."""
+        ahead = horizons >= 1
+        found = {}
+        for level in LEVELS:
+            low, high = empirical_bounds(point, horizons, scale, self.tables[kind], level, self.transform,
+                                         self.floor)
+            found[f"empirical_low_{percent(level)}"] = np.where(ahead, low, np.nan)
+            found[f"empirical_high_{percent(level)}"] = np.where(ahead, high, np.nan)
+        return found
+
+
+def _bounds_from_dict(data, kind: str, version: int) -> pd.DataFrame:
+    """Return one model's bounds by months ahead and level, checked to be a table
+    ``core.intervals.horizon_bounds`` could have given."""
+    owner = f"the intervals of model '{kind}'"
+    with StoredFields(data, owner, version=version) as fields:
+        columns = {column: fields.array(column, dtype, ndim=1) for column, dtype in BOUND_COLUMNS.items()}
+    if len({len(values) for values in columns.values()}) > 1:
+        raise ModelFileError(f"{owner}: its columns are not of one length")
+    table = pd.DataFrame(columns)
+    level, horizon = table["level"].to_numpy(), table["horizon"].to_numpy()
+    problems = {
+        "a level that is not 80% or 95%": ~np.isclose(level[:, None], LEVELS).any(axis=1),
+        "a negative months ahead": horizon < 0,
+        "a negative bound": table["bound"].to_numpy() < 0,
+        "a bound read from no errors": table["errors"].to_numpy() < 1,
+        "a bound read from months ahead that do not hold its own": (
+            (table["from_horizon"].to_numpy() > horizon) | (table["to_horizon"].to_numpy() < horizon)),
+        "a months ahead and level given twice": table.duplicated(["horizon", "level"]).to_numpy(),
+    }
+    for problem, where in problems.items():
+        if where.any():
+            raise ModelFileError(f"{owner}: {problem}")
+    return table
+
+
 # ------------------------------------------------------------------ save, load
 
 class _Envelope(BaseModel):
@@ -155,12 +276,14 @@ class _Envelope(BaseModel):
     feature_names: list[str]
     plan: dict
     models: dict[str, dict]
+    intervals: dict | None = None      # from format version 3 (StoredIntervals)
     versions: dict[str, str] = Field(default_factory=dict)
     notes: list[str] = Field(default_factory=list)
 
 
-def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
-    """Return the JSON document that stores a run's fitted plan and models."""
+def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals: StoredIntervals) -> dict:
+    """Return the JSON document that stores a run's fitted plan and models, and what its
+    empirical intervals were read from (``StoredIntervals.from_forecast``)."""
     names = plan.get_feature_names_out()
     models = {}
     for kind, model in fitted.items():
@@ -174,7 +297,7 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str]) -> dict:
         "format": FORMAT, "format_version": FORMAT_VERSION, "castline_version": __version__,
         "spec_name": spec.name, "target": spec.target, "date_column": spec.input.date_column,
         "series_columns": list(spec.input.series), "feature_names": names,
-        "plan": plan.to_dict(), "models": models, "versions": versions,
+        "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(), "versions": versions,
     }
 
 
@@ -194,14 +317,29 @@ def _model_from_dict(kind: str, entry: dict, names: list[str], version: int):
     raise ModelFileError(f"model '{kind}' has an unknown kind")
 
 
-class StoredModel:
-    """A run's fitted feature plan and models, loaded from JSON, ready to forecast."""
+def _intervals_from(document: _Envelope, version: int) -> StoredIntervals | None:
+    """Return a file's stored intervals, or None for a file that predates them."""
+    if version < INTERVALS_FROM:
+        if document.intervals is not None:
+            raise ModelFileError(f"a model file of version {version} holds no intervals, but this one "
+                                 "has the field 'intervals'")
+        return None
+    if document.intervals is None:
+        raise ModelFileError("the field 'intervals' is missing")
+    return StoredIntervals.from_dict(document.intervals, list(document.models), version)
 
-    def __init__(self, document: _Envelope, plan, models: dict, path: Path | None = None) -> None:
+
+class StoredModel:
+    """A run's fitted feature plan and models, loaded from JSON, ready to forecast; with the
+    run's empirical intervals, or ``intervals`` None for a file that predates them."""
+
+    def __init__(self, document: _Envelope, plan, models: dict, path: Path | None = None,
+                 intervals: StoredIntervals | None = None) -> None:
         self.document = document
         self.plan = plan
         self.models = models
         self.path = path
+        self.intervals = intervals
 
     def prepare(self, frame: pd.DataFrame, file: str = "") -> pd.DataFrame:
         """Return the rows with the month, series and row columns the plan expects."""
@@ -220,8 +358,15 @@ class StoredModel:
         return prepared
 
     def forecast(self, frame: pd.DataFrame, model: str | None = None, file: str = "") -> pd.DataFrame:
-        """Return each stored model's prediction for every row of the frame."""
+        """Return each stored model's prediction for every row of the frame: period, series,
+        model, forecast and, when the file holds intervals, as in the run's forecast.csv, the
+        months ahead (``horizon``, counted from the run's last month of history) and the
+        empirical 80% and 95% bounds (none for a row at or before that month)."""
         prepared = self.prepare(frame, file)
+        intervals = self.intervals
+        if intervals is not None:
+            horizons = intervals.horizons(prepared[PERIOD])
+            scale = intervals.row_scales(prepared[SERIES])
         try:
             # Drivers nobody knows ahead are estimated as in the run that wrote the model.
             design = self.plan.transform(self.plan.estimate_future(prepared))
@@ -243,10 +388,32 @@ class StoredModel:
             except (AttributeError, TypeError, ValueError, KeyError, IndexError) as exc:
                 raise ModelFileError(f"{self.path}: the model file is damaged: model '{kind}' cannot "
                                      f"predict ({type(exc).__name__}: {exc})") from None
-            out.append(pd.DataFrame({"period": prepared[PERIOD].astype(str).to_numpy(),
-                                     "series": prepared[SERIES].to_numpy(), "model": kind,
-                                     "forecast": values}))
+            table = {"period": prepared[PERIOD].astype(str).to_numpy(), "series": prepared[SERIES].to_numpy(),
+                     "model": kind, "forecast": values}
+            if intervals is not None:
+                table = {"period": table.pop("period"), "horizon": horizons, **table,
+                         **intervals.columns(kind, values, horizons, scale)}
+            out.append(pd.DataFrame(table))
         return pd.concat(out, ignore_index=True)
+
+    def notes(self, table: pd.DataFrame) -> list[str]:
+        """Return what ``castline forecast`` says of a forecast table's intervals: none from a
+        file that predates them; the series the run never saw (their scale is the median of
+        the others'); the rows at or before the run's last month of history (no interval)."""
+        if self.intervals is None:
+            return [PREDATES_INTERVALS]
+        notes = []
+        unseen = {str(series) for series in table["series"]} - set(self.intervals.series_scales)
+        if unseen:
+            one = len(unseen) == 1
+            notes.append(f"{len(unseen)} series {'was' if one else 'were'} not in the run's history: "
+                         f"{'its' if one else 'their'} intervals use the median scale of the others")
+        before = table.loc[table["horizon"] < 1, ["period", "series"]].drop_duplicates()
+        if len(before):
+            rows = "1 row is" if len(before) == 1 else f"{len(before)} rows are"
+            notes.append(f"{rows} at or before the run's last month of history "
+                         f"({self.intervals.last_period}): no interval")
+        return notes
 
 
 def load_model(path: str | Path) -> StoredModel:
@@ -274,8 +441,9 @@ def load_model(path: str | Path) -> StoredModel:
             raise ModelFileError("the feature plan does not give the features the models were fitted on")
         models = {kind: _model_from_dict(kind, entry, document.feature_names, version)
                   for kind, entry in document.models.items()}
+        intervals = _intervals_from(document, version)
     except ModelFileError as exc:
         raise ModelFileError(f"{path}: {exc}") from None
     except (KeyError, TypeError, ValueError, AttributeError) as exc:
         raise ModelFileError(f"{path}: damaged model file ({type(exc).__name__}: {exc})") from None
-    return StoredModel(document, plan, models, path)
+    return StoredModel(document, plan, models, path, intervals)

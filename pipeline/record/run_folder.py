@@ -25,7 +25,7 @@ from pipeline.core.version import __version__
 from pipeline.features.future import drivers_ahead
 from pipeline.record import ledger
 from pipeline.record.ledger import write as ledger_write
-from pipeline.record.model_file import model_document
+from pipeline.record.model_file import StoredIntervals, model_document
 from pipeline.record.safe_csv import write_csv
 from pipeline.spec import Spec
 from pipeline.spec.wording import describe_validation
@@ -173,7 +173,8 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     write_csv(evaluation.coverage_detail, staging / "interval_coverage_by.csv")
     if len(forecast.scenarios):
         write_csv(forecast.scenarios, staging / "scenarios.csv")
-    document = model_document(spec, forecast.plan, forecast.fitted, package_versions())
+    document = model_document(spec, forecast.plan, forecast.fitted, package_versions(),
+                              StoredIntervals.from_forecast(forecast))
     (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
     write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
         columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(

@@ -1,7 +1,8 @@
 """pipeline/record/model_file.py: model files written by earlier versions keep loading.
 
 The reference for each forecast is the forecast.csv the run itself wrote when it wrote
-the model file (tests/data/model_files_v1/, made by castline 0.1.0; its README says how).
+the model file (tests/data/model_files_v1/, made by castline 0.1.0, and model_files_v2/
+and model_files_v3/; their READMEs say how).
 """
 
 from __future__ import annotations
@@ -46,14 +47,49 @@ V2 = TEST_DATA / "model_files_v2"
 
 # Version 2's `estimated` leaves the estimated drivers empty in its months to forecast: the
 # stored estimates fill them. `references` holds the calendar-month and trailing means.
+# Files of versions 1 and 2 predate the intervals (version 3): they forecast without them,
+# and say so in one line.
 @pytest.mark.parametrize("folder", [V1 / name for name in FIXTURES] + [V2 / "estimated", V2 / "references"],
                          ids=[*FIXTURES, "v2-estimated", "v2-references"])
 def test_a_model_file_forecasts_what_its_run_wrote(folder, tmp_path, capsys):
     output = tmp_path / "forecast.csv"
     code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
                      "--output", str(output)])
-    assert code == 0, capsys.readouterr().err
+    printed = capsys.readouterr()
+    assert code == 0, printed.err
     _assert_same_forecasts(output, folder)
+    assert printed.out.splitlines() == [f"forecasts written to {output}",
+                                        "note: this model file predates intervals: no intervals given"]
+    assert list(pd.read_csv(output).columns) == ["period", "series", "model", "forecast"]
+    assert load_model(folder / "model.json").intervals is None
+
+
+V3 = TEST_DATA / "model_files_v3"
+EMPIRICAL = ["empirical_low_80", "empirical_high_80", "empirical_low_95", "empirical_high_95"]
+
+
+def test_a_version_3_model_file_forecasts_what_its_run_wrote_intervals_included(tmp_path, capsys):
+    folder = V3 / "demo-log"
+    output = tmp_path / "forecast.csv"
+    code = cli.main(["forecast", str(folder / "model.json"), str(folder / "rows.csv"),
+                     "--output", str(output)])
+    printed = capsys.readouterr()
+    assert code == 0, printed.err
+    assert printed.out.splitlines() == [f"forecasts written to {output}"]
+    _assert_same_forecasts(output, folder)
+    mine = pd.read_csv(output)
+    assert list(mine.columns) == ["period", "horizon", "series", "model", "forecast", *EMPIRICAL]
+    theirs = pd.read_csv(folder / "forecast.csv")      # what the run wrote at the time
+    merged = mine.merge(theirs, on=["period", "series", "model"], validate="one_to_one", suffixes=("", "_run"))
+    assert len(merged) == len(theirs)
+    for column in ["horizon", *EMPIRICAL]:
+        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
+
+
+def test_a_version_3_files_intervals_read_and_written_again_are_the_same_json():
+    document = json.loads((V3 / "demo-log" / "model.json").read_text(encoding="utf-8"))
+    stored = model_file.StoredIntervals.from_dict(document["intervals"], list(document["models"]), 3)
+    assert json.dumps(stored.to_dict()) == json.dumps(document["intervals"])
 
 
 def test_a_version_1_model_file_forecasts_through_the_command_in_a_subprocess(tmp_path):

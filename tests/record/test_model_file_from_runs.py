@@ -209,10 +209,16 @@ def test_castline_forecast_in_a_subprocess_writes_the_forecasts(runs, tmp_path):
     assert done.returncode == 0, done.stderr
     assert f"forecasts written to {output}" in done.stdout
     table = pd.read_csv(output)
-    assert list(table.columns) == ["period", "series", "model", "forecast"]
+    empirical = ["empirical_low_80", "empirical_high_80", "empirical_low_95", "empirical_high_95"]
+    assert list(table.columns) == ["period", "horizon", "series", "model", "forecast", *empirical]
     written = pd.read_csv(result.folder.path / "forecast.csv")
     assert (_by_row(table, "ols").to_numpy() == _by_row(written, "ols").to_numpy()).all()
     np.testing.assert_allclose(_by_row(table, "huber"), _by_row(written, "huber"), rtol=1e-12)
+    keys = ["period", "series", "model"]
+    merged = table.merge(written, on=keys, validate="one_to_one", suffixes=("", "_run"))
+    assert len(merged) == len(written)
+    for column in ["horizon", *empirical]:      # the run's own empirical intervals
+        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, err_msg=column)
 
     # A tampered file, through the real process too: exit 2, one line, no traceback.
     bad = tmp_path / "bad.json"
@@ -280,6 +286,21 @@ DAMAGED = {
     "the plan's class swapped for a transformer": (
         lambda d: d["plan"].__setitem__("class", "NumericTerms"),
         "any allow-listed transformer is accepted as the plan: AttributeError at forecast time, exit 1"),
+    "an interval bound below zero": (
+        lambda d: d["intervals"]["bounds"]["ols"]["bound"]["__array__"].__setitem__(0, -1.0),
+        "a bound is the size of an error: below zero it would put the low end above the high"),
+    "the interval bounds of a model missing": (
+        lambda d: d["intervals"]["bounds"].pop("huber"),
+        "a model without its bounds would forecast without intervals, or fail at forecast time"),
+    "a series scale that is not a number": (
+        lambda d: d["intervals"]["series_scales"]["__dict__"].__setitem__("North", "wide"),
+        "the scales are multiplied by the bounds at forecast time: a TypeError, exit 1"),
+    "the interval columns of unequal length": (
+        lambda d: d["intervals"]["bounds"]["ols"]["horizon"]["__array__"].pop(),
+        "the table could not be built: a ValueError at load time, exit 1"),
+    "the intervals missing from a file of version 3": (
+        lambda d: d.pop("intervals"),
+        "a file of version 3 always holds them: without, it is damaged, not an older file"),
     "pydantic's BaseModel as a settings class": (
         lambda d: d["plan"]["state"]["numeric"][0].__setitem__("class", "BaseModel"),
         "decode accepts any BaseModel subclass found in pipeline.spec, BaseModel itself included: "
