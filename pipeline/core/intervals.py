@@ -57,7 +57,12 @@ def analytic_bounds(centre, se, df, level: float, transform: str = "none") -> tu
     monotone transform), so it is centred on the median, exp(centre), not on the smeared
     mean the point forecast states.
     """
-    multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
+    df = np.asarray(df, dtype=float)
+    if df.ndim:   # one t quantile per distinct df (a model per series has one per series)
+        values, where = np.unique(df, return_inverse=True)
+        multiplier = scipy.stats.t.ppf(0.5 + level / 2, values)[where.reshape(df.shape)]
+    else:
+        multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
     centre = np.asarray(centre, dtype=float)
     return (back_from(centre - multiplier * se, transform),
             back_from(centre + multiplier * se, transform))
@@ -339,12 +344,12 @@ def backtest_intervals(predictions: pd.DataFrame, transform: str = "none",
     sizes = _size_groups(predictions)
     overall, detail = [], []
     for model, own in predictions.groupby("model", sort=False):
-        methods = {"analytic": _analytic_rows(own, transform, floor),
-                   "empirical": _empirical_rows(own, transform, floor)}
+        methods = {"empirical": _empirical_rows(own, transform, floor)}
+        if np.isfinite(own["prediction_se"].to_numpy(float)).any():
+            methods = {"analytic": _analytic_rows(own, transform, floor), **methods}
         actual = own["actual"].to_numpy(float)
+        size = own["series"].map(sizes).to_numpy() if sizes is not None else None
         for method, found in methods.items():
-            if method == "analytic" and not np.isfinite(own["prediction_se"].to_numpy(float)).any():
-                continue
             for level in LEVELS:
                 low, high = found[level]
                 scored = np.isfinite(low) & np.isfinite(high)
@@ -353,8 +358,8 @@ def backtest_intervals(predictions: pd.DataFrame, transform: str = "none",
                                       "horizon": own["horizon"].to_numpy(float)})
                 if (own["horizon"] == 0).all():   # k-fold: no months ahead
                     frame = frame.drop(columns="horizon")
-                if sizes is not None:
-                    frame["size"] = own["series"].map(sizes).to_numpy()
+                if size is not None:
+                    frame["size"] = size
                 row, rows = _summaries(model, method, level, frame[scored])
                 overall.append(row)
                 detail += rows
