@@ -57,7 +57,9 @@ def build_parser() -> argparse.ArgumentParser:
     init.add_argument("--encoding", default="utf-8", help="CSV: the text encoding (default utf-8)")
     init.add_argument("--sheet", default="0", help="Excel: the sheet name or position (default 0)")
     history = commands.add_parser("history", help="the runs in the run ledger: metrics over time and "
-                                                  "how their forecasts turned out")
+                                                  "how their forecasts turned out (the last 6 runs "
+                                                  "and their recommended models; --all for every "
+                                                  "run and model)")
     history.add_argument("spec_or_name", nargs="?", metavar="SPEC_OR_NAME",
                          help="a spec file (its ledger and name), or a spec's name with --ledger; "
                               "without it, every run in --ledger")
@@ -67,9 +69,17 @@ def build_parser() -> argparse.ArgumentParser:
                               "(default: both; metrics for --format csv)")
     history.add_argument("--format", choices=["table", "csv", "json"], default="table",
                          help="how to print (default table)")
-    history.add_argument("--model", help="only this model")
-    history.add_argument("--plot", metavar="FILE", help="also draw --metric per model across the "
-                                                        "run dates into this image (.png, .svg, .pdf)")
+    history.add_argument("--model", help="only this model (in the table: instead of each run's "
+                                         "recommended one)")
+    history.add_argument("--all", action="store_true",
+                         help="the table of every run and model, and of the forecasts per months "
+                              "ahead (default: the last 6 runs, each run's recommended model, and "
+                              "its forecasts over all months ahead; csv and json always hold "
+                              "everything)")
+    history.add_argument("--plot", metavar="FILE", help="also draw --metric per model by each run's "
+                                                        "last month of actuals into this image "
+                                                        "(.png, .svg, .pdf); reruns on the same month "
+                                                        "sit just right of it, with open markers")
     history.add_argument("--metric", default="mae", choices=[*PLOT_METRICS, "skill"],
                          help="the metric to plot (default mae; skill = skill_vs_mean)")
     compare = commands.add_parser("compare", help="what changed between two runs: spec keys, data, "
@@ -184,12 +194,14 @@ def _command_history(args) -> int:
                             f"{', '.join(sorted(set(runs['spec_name'])))})")
         metrics = history.metrics_history(conn, name)
         realised = history.realised_history(conn, name)
+        per_run = history.realised_per_run(conn, name)
     if args.model:
         if args.model not in set(metrics["model"]):
             raise UserError(f"--model: no runs with model '{args.model}' (models: "
                             f"{', '.join(sorted(set(metrics['model'])))})")
         metrics = metrics[metrics["model"] == args.model]
         realised = realised[realised["model"] == args.model]
+        per_run = per_run[per_run["model"] == args.model]
     show = args.show or ("metrics" if args.format == "csv" else "all")
     if args.format == "csv":
         if show == "all":
@@ -203,23 +215,62 @@ def _command_history(args) -> int:
         if show in ("realised", "all"):
             document["realised"] = ledger.json_records(realised)
         print(json.dumps(document, indent=2, ensure_ascii=False))
-    else:
+    elif args.all:
         _print_history(path, name, metrics, realised, show)
+    else:
+        _print_recent(path, name, metrics, per_run, show, args.model)
     if args.plot:
         metric = "skill_vs_mean" if args.metric == "skill" else args.metric
         title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
         plot_history(metrics, metric, Path(args.plot), title)
         if args.format == "table":
-            print(f"plot written to {args.plot}")
+            print(f"plot written to {args.plot} (x: the last month of actuals each run used)")
     return EXIT_OK
 
 
-def _print_history(path: Path, name: str | None, metrics, realised, show: str) -> None:
+def _print_heading(path: Path, name: str | None, metrics) -> bool:
+    """Print the ledger line; return whether the runs of several specs are shown."""
     runs = metrics.drop_duplicates("run_id")
     print(f"ledger: {path}; {len(runs)} run(s)" + (f" of {name}" if name else "")
           + f", {runs['created'].iloc[0][:10]} to {runs['created'].iloc[-1][:10]}")
-    several = name is None and metrics["spec_name"].nunique() > 1
-    lead = ["spec_name"] if several else []
+    return name is None and metrics["spec_name"].nunique() > 1
+
+
+def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, model: str | None) -> None:
+    from pipeline.review.history import RECENT_RUNS, recent_runs
+    lead = ["spec_name"] if _print_heading(path, name, metrics) else []
+    recent = recent_runs(metrics, RECENT_RUNS, model)
+    whose = f"{model}'s" if model else "its recommended model's"
+    if show in ("metrics", "all"):
+        print()
+        print(f"The last {RECENT_RUNS} runs, each with {whose} backtest metrics (change: from that "
+              "model's run before; skill = 1 − the select_by metric / the mean baseline's):")
+        columns = [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
+                   "skill_vs_mean", "skill_vs_mean_change"]
+        _print_table(_shown(recent, columns), columns, align_right=tuple(columns[len(lead) + 4:]))
+    if show in ("realised", "all"):
+        print()
+        shown = per_run[per_run["forecast_run_id"].isin(set(recent["run_id"]))]
+        shown = shown[shown["model"] == model] if model else shown[shown["recommended"].astype(bool)]
+        if not len(shown):
+            print("How these runs' forecasts turned out: none has an actual in a later run's data yet.")
+        else:
+            print(f"How these runs' forecasts turned out ({model or 'the recommended model'}, over "
+                  "the months ahead with an actual so far; error = forecast − actual; expected = "
+                  "the backtest MAE at the same months ahead):")
+            columns = [*lead, "forecast_run_id", "last_period", "model", "months_ahead", "n",
+                       "realised_mae", "expected_mae", "realised_bias", "inside_80", "inside_95",
+                       "scored_through"]
+            _print_table(_shown(shown, columns), columns, align_right=tuple(columns[len(lead) + 3:-1]))
+    runs = metrics["run_id"].nunique()
+    print()
+    print(f"Shown: {recent['run_id'].nunique()} of {runs} run(s), " + (f"{model} only" if model else
+          "each run's recommended model") + "; add --all for every run and model, and the "
+          "forecasts per months ahead.")
+
+
+def _print_history(path: Path, name: str | None, metrics, realised, show: str) -> None:
+    lead = ["spec_name"] if _print_heading(path, name, metrics) else []
     if show in ("metrics", "all"):
         print()
         print("Backtest metrics per run (change: from the run before; skill = 1 − the run's "

@@ -53,3 +53,63 @@ def realised_history(conn: sqlite3.Connection, name: str | None = None) -> pd.Da
     through = latest.groupby("forecast_run_id")["run_id"].agg(lambda ids: max(ids, key=created.get))
     table["scored_through"] = table["forecast_run_id"].map(through).map(by_run["last_period"])
     return table
+
+
+RECENT_RUNS = 6   # what plain `castline history` shows of each spec; --all shows every run
+
+
+def recent_runs(metrics: pd.DataFrame, runs: int = RECENT_RUNS, model: str | None = None) -> pd.DataFrame:
+    """Return the last `runs` runs of each spec in `metrics` (metrics_history's table), one row
+    a run: its recommended model's metrics, or `model`'s when given."""
+    order = metrics.drop_duplicates("run_id")
+    kept = set(order.groupby("spec_name", sort=False)["run_id"].tail(runs))
+    rows = metrics[metrics["run_id"].isin(kept)]
+    rows = rows[rows["model"] == model] if model else rows[rows["recommended"].astype(bool)]
+    return rows.reset_index(drop=True)
+
+
+REALISED_PER_RUN = ["spec_name", "forecast_run_id", "forecast_created", "last_period", "model", "recommended",
+                    "months_ahead", "n", "realised_mae", "expected_mae", "realised_bias", "inside_80",
+                    "inside_95", "scored_through"]
+
+
+def _share(values: pd.Series) -> float:
+    known = values.dropna()
+    return float(known.astype(bool).mean()) if len(known) else float("nan")
+
+
+def _span(horizons: list[int]) -> str:
+    """Return months ahead as read: '1–3' for a run of months, '1, 3' otherwise."""
+    if len(horizons) > 1 and horizons == list(range(horizons[0], horizons[-1] + 1)):
+        return f"{horizons[0]}–{horizons[-1]}"
+    return ", ".join(str(h) for h in horizons)
+
+
+def realised_per_run(conn: sqlite3.Connection, name: str | None = None) -> pd.DataFrame:
+    """Return how each run's forecasts turned out, per model, over all its months ahead scored so
+    far (from the latest score of each forecast): the realised MAE and bias over those forecasts,
+    the mean of the MAE the backtest expected at each one's months ahead, and the shares inside
+    the stated intervals. realised_history gives the same per months ahead."""
+    runs = visible_runs(conn, name)
+    latest = latest_realised(conn, runs)
+    if not len(latest):
+        return pd.DataFrame(columns=REALISED_PER_RUN)
+    by_run = runs.set_index("run_id")
+    created = by_run["created"].to_dict()
+    rows = []
+    for (run_id, model), group in latest.groupby(["forecast_run_id", "model"], sort=False):
+        errors = group["error"].astype(float)
+        newest = max(group["run_id"], key=created.get)
+        rows.append({"spec_name": by_run.at[run_id, "spec_name"], "forecast_run_id": run_id,
+                     "forecast_created": created[run_id],
+                     "last_period": by_run.at[run_id, "last_period"], "model": model,
+                     "recommended": by_run.at[run_id, "recommended"] == model,
+                     "months_ahead": _span(sorted(set(group["horizon"].astype(int)))),
+                     "n": len(group), "realised_mae": float(errors.abs().mean()),
+                     "expected_mae": float(group["expected_mae"].astype(float).mean()),
+                     "realised_bias": float(errors.mean()),
+                     "inside_80": _share(group["inside_80"]), "inside_95": _share(group["inside_95"]),
+                     "scored_through": by_run.at[newest, "last_period"]})
+    table = pd.DataFrame(rows, columns=REALISED_PER_RUN)
+    return table.sort_values(["forecast_created", "forecast_run_id", "model"],
+                             kind="stable").reset_index(drop=True)

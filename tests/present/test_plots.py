@@ -89,6 +89,7 @@ def test_drawing_in_this_process_leaves_rcparams_unchanged_and_ignores_the_calle
 
 def test_the_history_plot_leaves_rcparams_unchanged(tmp_path):
     table = pd.DataFrame({"spec_name": "s", "model": ["ols", "ols", "mean_baseline", "mean_baseline"],
+                          "run_id": ["a", "b"] * 2, "last_period": ["2023-12", "2024-01"] * 2,
                           "created": ["2024-01-01T00:00:00Z", "2024-02-01T00:00:00Z"] * 2,
                           "mae": [1.0, 0.9, 2.0, 2.1]})
     before = _settings()
