@@ -243,7 +243,8 @@ def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, mod
     whose = f"{model}'s" if model else "its recommended model's"
     if show in ("metrics", "all"):
         print()
-        print(f"The last {RECENT_RUNS} runs, each with {whose} backtest metrics (change: from that "
+        print(f"The last {RECENT_RUNS} runs" + (" of each spec" if lead else "") + f", each with "
+              f"{whose} backtest metrics (change: from that "
               "model's run before; skill = 1 − the select_by metric / the mean baseline's):")
         columns = [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
                    "skill_vs_mean", "skill_vs_mean_change"]
