@@ -157,31 +157,20 @@ def _planned_rows(data: CheckedData, months: list[str], columns: list[str]) -> p
         .set_index(["period", "series"]).reindex(columns=columns)
 
 
-def _same(old, new) -> bool:
-    if pd.isna(old) and pd.isna(new):
-        return True
-    if pd.isna(old) or pd.isna(new):
-        return False
-    return bool(old == new)
-
-
 def planned_differences(earlier: CheckedData, later: CheckedData, months: list[str],
                         columns: list[str]) -> pd.DataFrame:
     """Return, in the given months, each series and column whose planned value differs between
     the two runs' months to forecast (a series planned in one run only differs in every column
     it has a value in), by period, driver and series."""
-    old, new = _planned_rows(earlier, months, columns), _planned_rows(later, months, columns)
-    keys = old.index.union(new.index).sort_values()
-    old, new = old.reindex(keys), new.reindex(keys)
-    rows = []
-    for key in keys:
-        for column in columns:
-            before, after = old.at[key, column], new.at[key, column]
-            if not _same(before, after):
-                rows.append({"period": key[0], "driver": column, "series": key[1],
-                             "earlier": None if pd.isna(before) else before,
-                             "later": None if pd.isna(after) else after})
-    table = pd.DataFrame(rows, columns=PLANNED_COLUMNS)
+    keys = ["period", "series"]
+    long = [_planned_rows(data, months, columns).astype(object).reset_index()
+            .melt(id_vars=keys, var_name="driver", value_name=side)
+            for data, side in ((earlier, "earlier"), (later, "later"))]
+    both = long[0].merge(long[1], on=[*keys, "driver"], how="outer")
+    old, new = both["earlier"], both["later"]
+    same = (old.isna() & new.isna()) | (old.notna() & new.notna() & (old == new))
+    table = both.loc[~same, PLANNED_COLUMNS].astype(object)
+    table = table.where(table.notna(), None)
     return table.sort_values(["period", "driver", "series"], kind="stable").reset_index(drop=True)
 
 

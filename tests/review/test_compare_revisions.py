@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import shutil
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -22,9 +23,10 @@ import pipeline
 from pipeline import cli
 from pipeline.record.ledger import reading
 from pipeline.review.compare import compare_runs
-from pipeline.review.revisions import forecast_revisions, largest_revisions
+from pipeline.review.revisions import forecast_revisions, largest_revisions, planned_differences
 
 CHANGED_MONTH, CHANGED_SERIES, CHANGED_DRIVER, CHANGE = "2022-03", "South", "x", 1.5
+NAN = float("nan")
 
 
 @pytest.fixture(scope="module")
@@ -193,3 +195,20 @@ def test_revisions_by_hand_with_no_width_and_no_stated_interval():
     assert list(largest_revisions(found.table, 1)["series"]) == ["a"]
     older = forecast_revisions(earlier.assign(interval_method=None), later, "ols")
     assert older.table["change_in_widths"].isna().all() and "stated no interval" in older.note
+
+
+def planned(rows):
+    frame = pd.DataFrame(rows, columns=["period", "series", "rain", "promo"])
+    return SimpleNamespace(future=frame.assign(period=pd.PeriodIndex(frame["period"], freq="M")))
+
+
+def test_planned_differences_by_hand():
+    earlier = planned([("2024-05", "a", 1.0, "no"), ("2024-05", "b", NAN, "no"), ("2024-06", "a", 2.0, "no")])
+    later = planned([("2024-05", "a", 1.0, "yes"), ("2024-05", "b", NAN, "no"), ("2024-05", "c", 3.0, NAN),
+                     ("2024-06", "a", 2.5, "no")])
+    found = planned_differences(earlier, later, ["2024-05"], ["rain", "promo"])
+    # by hand, 2024-05 only: a's promo no → yes; b unchanged (an empty rain in both is no change);
+    # c is planned in the later run only: its rain differs, its empty promo does not
+    assert found.to_dict(orient="records") == [
+        {"period": "2024-05", "driver": "promo", "series": "a", "earlier": "no", "later": "yes"},
+        {"period": "2024-05", "driver": "rain", "series": "c", "earlier": None, "later": 3.0}]
