@@ -82,15 +82,20 @@ def build_parser() -> argparse.ArgumentParser:
                                                         "sit just right of it, with open markers")
     history.add_argument("--metric", default="mae", choices=[*PLOT_METRICS, "skill"],
                          help="the metric to plot (default mae; skill = skill_vs_mean)")
-    compare = commands.add_parser("compare", help="what changed between two runs: spec keys, data, "
-                                                  "coefficients and metrics")
+    compare = commands.add_parser("compare", help="what changed between two runs: spec keys, data and "
+                                                  "planned drivers, forecasts, coefficients and metrics")
     compare.add_argument("first", metavar="RUN_A", help="a run id (or its start) or a run folder")
     compare.add_argument("second", metavar="RUN_B", help="a run id (or its start) or a run folder")
     compare.add_argument("--ledger", metavar="PATH", help="the ledger file (default: the one "
                                                           "beside the run folders given)")
     compare.add_argument("--format", choices=["table", "json"], default="table")
     compare.add_argument("--top", type=int, default=10, metavar="N",
-                         help="how many coefficient moves to show (default 10)")
+                         help="how many coefficient moves, forecast revisions and planned-driver "
+                              "changes to show (default 10)")
+    compare.add_argument("--model", help="the model whose forecasts to compare month by month "
+                                         "(default: the later run's recommended model)")
+    compare.add_argument("--revisions", metavar="FILE", help="also write every forecast revision "
+                                                             "to this CSV file")
     return parser
 
 
@@ -317,15 +322,64 @@ def _command_compare(args) -> int:
     if args.top < 1:
         raise UserError("--top: give 1 or more")
     with ledger.reading(path) as conn:
-        comparison = compare_runs(conn, references[0], references[1], path, top=args.top)
+        comparison = compare_runs(conn, references[0], references[1], path, top=args.top,
+                                  model=args.model)
     if args.format == "json":
         print(json.dumps(comparison.as_dict(), indent=2, ensure_ascii=False))
     else:
-        _print_comparison(comparison)
+        _print_comparison(comparison, args.top)
+    if args.revisions:
+        from pipeline.record.safe_csv import write_csv
+        try:
+            write_csv(comparison.revisions.table.assign(model=comparison.revisions.model),
+                      args.revisions)
+        except OSError as exc:
+            raise UserError(f"{args.revisions}: cannot write the forecast revisions: "
+                            f"{exc.strerror}") from None
+        if args.format == "table":
+            print(f"forecast revisions written to {args.revisions}")
     return EXIT_OK
 
 
-def _print_comparison(comparison) -> None:
+def _print_planned(planned, top: int) -> None:
+    """Print which planned drivers changed in which months, or why they cannot be named."""
+    if not planned.months:
+        return
+    if not planned.named:
+        print(f"  planned drivers: {planned.note}")
+        return
+    shown = planned.by_month()
+    if not len(shown):
+        print("  planned drivers: no driver's planned value differs (the months' other columns changed)")
+        return
+    print("  planned drivers whose values changed (series_changed: how many series' plans changed):")
+    _print_table(shown.head(top).to_dict(orient="records"), list(shown.columns),
+                 align_right=("series_changed",))
+    if len(shown) > top:
+        print(f"  … and {len(shown) - top} more driver-months (all of them with --format json)")
+
+
+def _print_revisions(revisions, top: int) -> None:
+    """Print the forecasts that moved most between the runs, capped at `top`."""
+    from pipeline.review.revisions import largest_revisions
+    if revisions.model is None or not len(revisions.table):
+        print(f"Forecast revisions: none to show ({revisions.note})")
+        return
+    table = revisions.table
+    stated = (f"the change in widths of the earlier run's stated 80% interval ({revisions.interval_method})"
+              if revisions.interval_method else "no width: the earlier run stated no interval")
+    print(f"Forecast revisions of {revisions.model}: {len(table)} month-series in both runs "
+          f"(change = later − earlier; change_in_widths: {stated})")
+    shown = largest_revisions(table, top)
+    _print_table(shown.to_dict(orient="records"), list(shown.columns), align_right=tuple(shown.columns[2:]))
+    if len(table) > top:
+        print(f"  … the {top} that moved most of {len(table)}; all of them with --revisions FILE "
+              "or --format json")
+    if revisions.note:
+        print(f"  note: {revisions.note}")
+
+
+def _print_comparison(comparison, top: int) -> None:
     for word, run in (("earlier", comparison.earlier), ("later", comparison.later)):
         print(f"{word + ':':8} {run['run_id']} ({run['created'][:19].replace('T', ' ')}; "
               f"actuals {run['first_period']} to {run['last_period']}, {run['history_rows']} rows; "
@@ -355,6 +409,9 @@ def _print_comparison(comparison) -> None:
                      align_right=("earlier_actual_rows", "later_actual_rows"))
     else:
         print("  no month's rows changed")
+    _print_planned(comparison.planned, top)
+    print()
+    _print_revisions(comparison.revisions, top)
     print()
     moves = comparison.coefficients
     if len(moves):

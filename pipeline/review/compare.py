@@ -1,4 +1,5 @@
-"""What changed between two runs: spec, data, coefficients, metrics."""
+"""What changed between two runs: spec, data (and the planned drivers), forecasts, coefficients,
+metrics."""
 
 from __future__ import annotations
 
@@ -15,6 +16,13 @@ from pipeline.core.errors import UserError
 from pipeline.record.ledger.read import rows_of, visible_runs
 from pipeline.record.ledger.store import json_records, plain
 from pipeline.review.history import CHANGED
+from pipeline.review.revisions import (
+    PlannedChanges,
+    Revisions,
+    chosen_model,
+    forecast_revisions,
+    planned_changes,
+)
 
 
 def find_run(conn: sqlite3.Connection, reference: str, ledger_file: Path) -> pd.Series:
@@ -61,6 +69,9 @@ def spec_differences(earlier: dict, later: dict) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["key", "earlier", "later"])
 
 
+PLANNED = "planned drivers changed"   # a month both runs forecast, its rows changed
+
+
 def month_changes(earlier: pd.DataFrame, later: pd.DataFrame) -> pd.DataFrame:
     """Return the months whose rows differ between two runs' inputs, each with what changed:
     actuals added, actuals revised, actuals removed, a new month to forecast, or the planned
@@ -84,7 +95,7 @@ def month_changes(earlier: pd.DataFrame, later: pd.DataFrame) -> pd.DataFrame:
         elif pd.isna(row.sha256_later):
             change = "month to forecast dropped"
         else:
-            change = "planned drivers changed"
+            change = PLANNED
         rows.append({"period": row.period, "change": change, "earlier_actual_rows": old_actual,
                      "later_actual_rows": new_actual})
     return pd.DataFrame(rows, columns=columns)
@@ -133,13 +144,21 @@ class Comparison:
     months_recorded: bool           # both runs have per-month fingerprints
     coefficients: pd.DataFrame
     metrics: pd.DataFrame
+    revisions: Revisions            # one model's forecasts, month by month, in both runs
+    planned: PlannedChanges         # the planned drivers that changed, month by month
 
     def as_dict(self) -> dict:
         """Return the comparison as plain JSON-ready values."""
         records = json_records
+        revisions, planned = self.revisions, self.planned
         return {"earlier": self.earlier, "later": self.later, "given_newest_first": self.swapped,
                 "spec_changes": records(self.spec), "data": self.data_summary(),
                 "months": records(self.months) if self.months_recorded else None,
+                "planned_driver_changes": {"months": planned.months, "named": planned.named,
+                                           "note": planned.note, "rows": records(planned.table)},
+                "forecast_revisions": {"model": revisions.model,
+                                       "interval_method": revisions.interval_method,
+                                       "note": revisions.note, "rows": records(revisions.table)},
                 "coefficient_moves": records(self.coefficients), "metric_changes": records(self.metrics)}
 
     def data_summary(self) -> dict:
@@ -158,8 +177,9 @@ RUN_FIELDS = ["run_id", "created", "spec_name", "spec_hash", "input_sha256", "ca
 
 
 def compare_runs(conn: sqlite3.Connection, first: str, second: str, ledger_file: Path,
-                 top: int = 10) -> Comparison:
-    """Return what changed between two runs of the ledger: spec keys, data, coefficients, metrics."""
+                 top: int = 10, model: str | None = None) -> Comparison:
+    """Return what changed between two runs of the ledger: spec keys, data and planned drivers,
+    the forecasts of `model` (default: the later run's recommended model), coefficients, metrics."""
     one, two = find_run(conn, first, ledger_file), find_run(conn, second, ledger_file)
     swapped = (one["created"], one["run_id"]) > (two["created"], two["run_id"])
     earlier, later = (two, one) if swapped else (one, two)
@@ -168,6 +188,7 @@ def compare_runs(conn: sqlite3.Connection, first: str, second: str, ledger_file:
     periods = rows_of(conn, "periods", ids)
     coefficients = rows_of(conn, "coefficients", ids)
     metrics = rows_of(conn, "model_metrics", ids)
+    forecasts = rows_of(conn, "forecasts", ids)
 
     def of(frame: pd.DataFrame, run_id: str) -> pd.DataFrame:
         return frame[frame["run_id"] == run_id].drop(columns=["run_id"])
@@ -175,10 +196,15 @@ def compare_runs(conn: sqlite3.Connection, first: str, second: str, ledger_file:
     recorded = all(len(of(periods, r)) for r in ids)
     months = month_changes(of(periods, ids[0]), of(periods, ids[1])) if recorded else \
         pd.DataFrame(columns=["period", "change", "earlier_actual_rows", "later_actual_rows"])
+    runs = [{k: plain(run[k]) for k in RUN_FIELDS} for run in (earlier, later)]
+    old, new = of(forecasts, ids[0]), of(forecasts, ids[1])
+    chosen, why = chosen_model(old, new, runs[1]["recommended"], model)
+    replanned = months.loc[months["change"] == PLANNED, "period"].tolist()
     return Comparison(
-        earlier={k: plain(earlier[k]) for k in RUN_FIELDS},
-        later={k: plain(later[k]) for k in RUN_FIELDS}, swapped=bool(swapped),
+        earlier=runs[0], later=runs[1], swapped=bool(swapped),
         spec=spec_differences(json.loads(specs[ids[0]]), json.loads(specs[ids[1]])),
         months=months, months_recorded=recorded,
         coefficients=coefficient_moves(of(coefficients, ids[0]), of(coefficients, ids[1]), top),
-        metrics=metric_changes(of(metrics, ids[0]), of(metrics, ids[1])))
+        metrics=metric_changes(of(metrics, ids[0]), of(metrics, ids[1])),
+        revisions=forecast_revisions(old, new, chosen, why),
+        planned=planned_changes(runs[0], runs[1], {r: of(periods, r) for r in ids}, replanned))
