@@ -29,6 +29,7 @@ import pipeline
 from pipeline.core.formatting import format_percent
 from pipeline.present import report
 from pipeline.present.pages import render_pages
+from pipeline.present.track_record import track_record_view
 
 SHIFT = 15.0
 
@@ -265,3 +266,41 @@ def test_the_picture_draws_the_realised_errors_and_its_text_states_how_many_fell
 def test_the_report_is_rendered_again_exactly_from_the_folder(runs):
     for folder, _ in runs:
         assert render_pages(folder)["report.html"] == (folder / "report.html").read_text(encoding="utf-8")
+
+
+# Hand-written (the numbers worked out in comments), for the view's branches the runs above do not reach.
+TRACK = {"ledger": "/data/ledger.sqlite", "earlier_runs": 2,
+         "recommended": {"run-1": "ols", "run-2": "ridge"}, "warnings": []}
+
+
+def realised_row(run_id: str, model: str, horizon: int, error: float) -> dict:
+    return {"forecast_run_id": run_id, "forecast_created": run_id.replace("run-", "2024-0"), "model": model,
+            "period": f"2024-0{horizon + 1}", "series": "all", "horizon": horizon, "forecast": 10 + error,
+            "actual": 10.0, "error": error, "expected_mae": 2.0, "low_80": 8.0, "high_80": 12.0,
+            "low_95": 7.0, "high_95": 13.0, "inside_80": abs(error) <= 2, "inside_95": abs(error) <= 3,
+            "backtest_low_95": -3.0, "backtest_high_95": 3.0, "within_backtest_95": abs(error) <= 3}
+
+
+REALISED = pd.DataFrame([realised_row("run-1", "ols", 1, 3.0), realised_row("run-1", "ols", 1, -1.0),
+                         realised_row("run-1", "mean_baseline", 1, 9.0),     # not run-1's recommended model
+                         realised_row("run-2", "ridge", 2, -4.0)])
+
+
+def test_without_track_record_json_there_is_no_section_and_without_actuals_one_line():
+    assert track_record_view(None, REALISED, rows_shown=50) is None
+    none_yet = track_record_view(TRACK, REALISED.iloc[:0], rows_shown=50)
+    assert none_yet["none_yet"] and none_yet["forecasts"] is None and none_yet["pictured"] is None
+
+
+def test_the_view_keeps_the_recommended_models_and_the_latest_runs():
+    view = track_record_view(TRACK, REALISED, rows_shown=50, runs_shown=1)
+    # run-1 ols, 1 month ahead: errors +3, −1 → MAE 2 (run-2 is the latest, the only one kept by
+    # months ahead); the forecasts table keeps both runs' recommended rows, run-2's first.
+    assert list(view["forecasts"]["run"]) == ["run-2", "run-1", "run-1"]
+    assert list(view["forecasts"]["inside 80% · 95%"]) == ["no · no", "no · yes", "yes · yes"]
+    assert list(view["by_horizon"]["run"]) == ["run-2"] and (view["runs"], view["runs_shown"]) == (2, 1)
+    assert list(view["by_horizon"]["realised MAE"]) == [4.0]
+    every = track_record_view(TRACK, REALISED, rows_shown=50)
+    assert list(every["by_horizon"]["realised MAE"]) == [2.0, 4.0]
+    assert list(every["by_horizon"]["inside 80%"]) == [0.5, 0.0]
+    assert set(every["pictured"]["model"]) == {"ols", "ridge"}
