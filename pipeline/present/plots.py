@@ -343,3 +343,62 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     pictures.append(_finish(figure, "Normal quantile plot of the residuals; points off the line "
                             "in the tails mean larger surprises than a normal curve allows."))
     return pictures
+
+
+@_styled
+def track_record_picture(scored: pd.DataFrame) -> Figure:
+    """The realised errors of earlier runs' forecasts by months ahead, each against the backtest's
+    95% range of errors its run expected there (realised.csv's backtest_low_95 and
+    backtest_high_95); a miss outside it is drawn as a cross in the warning colour."""
+    rows = scored.sort_values(["horizon", "forecast_created", "forecast_run_id", "period", "series"],
+                              kind="stable")
+    horizon = rows["horizon"].to_numpy(int)
+    error = rows["error"].to_numpy(float)
+    low, high = rows["backtest_low_95"].to_numpy(float), rows["backtest_high_95"].to_numpy(float)
+    # Each forecast has a place of its own within its months ahead, older runs to the left.
+    place = horizon.astype(float)
+    for value in np.unique(horizon):
+        at = horizon == value
+        place[at] += np.linspace(-0.3, 0.3, at.sum()) if at.sum() > 1 else 0.0
+    banded = np.isfinite(low) & np.isfinite(high)
+    outside = banded & ((error < low) | (error > high))
+    inside = banded & ~outside
+    figure, axis = _subplots(figsize=(8, 3))
+    width = float(np.clip(120 / max(len(rows), 1), 0.8, 6))
+    axis.vlines(place[banded], low[banded], high[banded], color="#BBBBBB", linewidth=width,
+                label="the backtest's 95% range of errors")
+    axis.axhline(0, color="#000000", linewidth=0.8)
+    axis.scatter(place[inside], error[inside], s=14, color=PALETTE[0], zorder=3, label="error, inside it")
+    axis.scatter(place[outside], error[outside], s=26, marker="X", color=PALETTE[1], zorder=3,
+                 label="error, outside it")
+    unknown = ~banded
+    if unknown.any():
+        axis.scatter(place[unknown], error[unknown], s=10, color="#000000", zorder=3,
+                     label="error, no range recorded")
+    horizons = sorted(set(horizon.tolist()))
+    axis.set_xticks(horizons)
+    axis.set_xlim(min(horizons) - 0.6, max(horizons) + 0.6)
+    axis.set_xlabel("months ahead (each earlier run's forecasts, older runs to the left)")
+    axis.set_ylabel("error (forecast − actual)")
+    # Room above the highest bar or point for the legend, on one line.
+    top = float(np.nanmax(np.concatenate([high[banded], error, [0.0]])))
+    bottom = float(np.nanmin(np.concatenate([low[banded], error, [0.0]])))
+    axis.set_ylim(bottom - 0.08 * (top - bottom or 1), top + 0.4 * (top - bottom or 1))
+    axis.legend(fontsize=7, frameon=False, loc="upper left", ncol=4)
+    runs = rows["forecast_run_id"].nunique()
+    alt = (f"Dot chart of the realised errors (forecast − actual) of {len(rows):,} forecast(s) from "
+           f"{runs:,} earlier run(s) by months ahead, each against the backtest's 95% range of "
+           "errors its run expected there (grey bars): ")
+    if banded.any():
+        alt += f"{int(outside.sum()):,} of {int(banded.sum()):,} fell outside it"
+        if outside.any():
+            by_horizon = pd.Series(horizon[outside]).value_counts().sort_index()
+            alt += " (" + ", ".join(f"{n} at {h} month(s) ahead" for h, n in by_horizon.items()) + ")"
+        alt += ", where about 1 in 20 would by chance"
+    else:
+        alt += "none of them has a range recorded"
+    worst = int(np.nanargmax(np.abs(error))) if np.isfinite(error).any() else None
+    if worst is not None:
+        alt += (f". The largest error was {error[worst]:+.4g} ({rows['period'].iloc[worst]}, "
+                f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
+    return _finish(figure, alt)

@@ -25,6 +25,7 @@ from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, tru
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.run_files import RunFiles, load_run_files
+from pipeline.present.track_record import track_record_view
 
 CAUTIONS = [
     "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
@@ -273,6 +274,14 @@ def _only(table: pd.DataFrame, models: list[str]) -> pd.DataFrame:
     return table[table["model"].isin(models)] if len(table) else table
 
 
+def _track_record(files: RunFiles) -> dict | None:
+    """Return the Track record section's view (track_record.json and realised.csv) with its picture."""
+    track = track_record_view(files.track, files.table("realised.csv"), rows_shown=TABLE_ROWS)
+    if track is not None and track["pictured"] is not None:
+        track["picture"] = plots.track_record_picture(track["pictured"])
+    return track
+
+
 def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
@@ -348,7 +357,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,
         held_by=held_by, interval_warning=shortfall_warning(coverage, recommended, method),
-        forecast_rows=forecast_rows, per_series=per_series,
+        forecast_rows=forecast_rows, per_series=per_series, track=_track_record(files),
         scenarios=shown_scenarios.head(TABLE_ROWS) if shown_scenarios is not None else None,
         scenario_rows=len(shown_scenarios) if shown_scenarios is not None else 0,
         coefficient_picture=coefficient_picture, drivers=drivers,

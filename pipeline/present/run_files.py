@@ -19,7 +19,7 @@ REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", 
 # Columns that hold names (of series, months, origins, models, scenarios), read as text.
 NAME_COLUMNS = ("series", "period", "origin", "model", "scenario")
 NAMED_TABLES = ("predictions.csv", "forecast.csv", "history.csv", "scenarios.csv", "residuals.csv",
-                "series.csv")
+                "series.csv", "realised.csv")
 
 
 def _read_csv(folder: Path, name: str, text_columns: tuple[str, ...] = ()) -> pd.DataFrame | None:

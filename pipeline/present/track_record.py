@@ -1,8 +1,9 @@
-"""The summary's Track record section, in Markdown, from the run folder's files
-(track_record.json and realised.csv)."""
+"""The Track record section of the pages, from the run folder's files (track_record.json and
+realised.csv): in Markdown for summary.md, and as the tables and words report.html shows."""
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 
 from pipeline.core.formatting import format_number, format_percent, markdown_table
@@ -20,8 +21,7 @@ def track_record_section(track: dict, realised: pd.DataFrame | None, runs_shown:
     if track["warnings"]:
         lines.append("")
     if not track["earlier_runs"]:
-        lines += [f"This is the first run of this spec in the ledger `{track['ledger']}`; later runs "
-                  "score its forecasts as their months' actuals arrive.", ""]
+        lines += [first_run_words(track), ""]
         return "\n".join(lines)
     lines += [f"{track['earlier_runs']} earlier run(s) of this spec are in the ledger `{track['ledger']}`."]
     table = summarise_realised(realised if realised is not None else pd.DataFrame(columns=["forecast_run_id"]))
@@ -47,28 +47,33 @@ def track_record_section(track: dict, realised: pd.DataFrame | None, runs_shown:
 
 
 def _skill_sentences(skill: dict | None) -> list[str]:
-    """Return the realised skill against the mean baseline's own forecasts in words (nothing for a
+    words = skill_words(skill)
+    return ["", words] if words else []
+
+
+def skill_words(skill: dict | None) -> str | None:
+    """Return the realised skill against the mean baseline's own forecasts in words (None for a
     track_record.json written before castline recorded it)."""
     if not skill:
-        return []
+        return None
     left_out = skill.get("without_baseline", 0)
     if not skill.get("forecasts"):
         if not left_out:
-            return []
-        return ["", f"Realised skill against the mean baseline's own forecasts: not known; the ledger "
-                    f"holds no forecast of the mean baseline beside the {left_out} scored forecast(s) "
-                    "of the recommended models."]
+            return None
+        return (f"Realised skill against the mean baseline's own forecasts: not known; the ledger "
+                f"holds no forecast of the mean baseline beside the {left_out} scored forecast(s) "
+                "of the recommended models.")
     value = skill.get("skill")
     said = format_percent(value) if value is not None else "not defined (the mean baseline's MAE is 0)"
-    lines = ["", f"Realised skill against the mean baseline's own forecasts: {said} over "
-                 f"{skill['months']} month(s), {skill['forecasts']} forecasts from {skill['runs']} "
-                 f"earlier run(s) (1 − realised MAE of each run's recommended model, "
-                 f"{format_number(skill['model_mae'])}, / realised MAE of the mean baseline's "
-                 f"forecasts of the same months and series, {format_number(skill['baseline_mae'])})."]
+    words = (f"Realised skill against the mean baseline's own forecasts: {said} over "
+             f"{skill['months']} month(s), {skill['forecasts']} forecasts from {skill['runs']} "
+             f"earlier run(s) (1 − realised MAE of each run's recommended model, "
+             f"{format_number(skill['model_mae'])}, / realised MAE of the mean baseline's "
+             f"forecasts of the same months and series, {format_number(skill['baseline_mae'])}).")
     if left_out:
-        lines[-1] += (f" {left_out} scored forecast(s) of the recommended models have no forecast of "
-                      "the mean baseline beside them in the ledger and are left out.")
-    return lines
+        words += (f" {left_out} scored forecast(s) of the recommended models have no forecast of "
+                  "the mean baseline beside them in the ledger and are left out.")
+    return words
 
 
 def with_track_record(summary: str, track: dict | None, realised: pd.DataFrame | None) -> str:
@@ -81,3 +86,87 @@ def with_track_record(summary: str, track: dict | None, realised: pd.DataFrame |
             at = summary.index(heading) + 1
             return summary[:at] + section + summary[at:]
     return summary.rstrip("\n") + "\n\n" + section
+
+
+RUNS_SHOWN = 12      # earlier runs shown by months ahead and pictured; realised.csv holds them all
+
+
+def first_run_words(track: dict) -> str:
+    """Return the one line the pages give when the ledger holds no earlier run of the spec."""
+    return (f"This is the first run of this spec in the ledger `{track['ledger']}`; later runs "
+            "score its forecasts as their months' actuals arrive.")
+
+
+def _recommended_rows(realised: pd.DataFrame | None, recommended: dict) -> pd.DataFrame:
+    """Return realised.csv's rows of each earlier run's recommended model."""
+    if realised is None or not len(realised):
+        return pd.DataFrame(columns=["forecast_run_id", "forecast_created", "model", "horizon"])
+    return realised[[recommended.get(r) == m for r, m in zip(realised["forecast_run_id"], realised["model"])]]
+
+
+def _yes_no(values: pd.Series) -> list[str]:
+    """Return a column of flags read back from a CSV file (True, False, empty) as yes, no or ''."""
+    text = values.astype(str).str.lower()
+    return ["yes" if t in ("true", "1", "1.0") else "no" if t in ("false", "0", "0.0") else "" for t in text]
+
+
+def _range(low: float, high: float) -> str:
+    """Return a range of errors as the track record's warnings write it ("-1.9 to +1.9")."""
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return ""
+    return f"{low:+,.4g} to {high:+,.4g}"
+
+
+def track_record_view(track: dict | None, realised: pd.DataFrame | None, *, rows_shown: int,
+                      runs_shown: int = RUNS_SHOWN) -> dict | None:
+    """Return what report.html's Track record section shows (None when the run folder has no
+    track_record.json): the warnings; for the recommended model of each earlier run, its forecasts
+    against the actuals (the latest run's first, at most ``rows_shown``), its realised MAE beside
+    the expected MAE and its interval hits by months ahead (the latest ``runs_shown`` runs), its
+    realised skill against the mean baseline's own forecasts; and the rows the picture draws."""
+    if track is None:
+        return None
+    view = {"warnings": list(track["warnings"]), "earlier_runs": track["earlier_runs"],
+            "ledger": track["ledger"], "first": False, "none_yet": False, "skill": skill_words(track.get("realised_skill")),
+            "forecasts": None, "forecast_rows": 0, "by_horizon": None, "runs": 0, "runs_shown": 0,
+            "by_run": None, "pictured": None}
+    if not track["earlier_runs"]:
+        view["first"] = True
+        return view
+    own = _recommended_rows(realised, track["recommended"])
+    if not len(own):
+        view["none_yet"] = True
+        return view
+    latest_first = own.sort_values(["forecast_created", "forecast_run_id"], ascending=False, kind="stable")
+    shown = latest_first.head(rows_shown)
+    view["forecasts"] = pd.DataFrame({
+        "run": shown["forecast_run_id"].astype(str), "period": shown["period"].astype(str), "series": shown["series"].astype(str),
+        "months ahead": shown["horizon"].astype(int), "forecast": shown["forecast"].astype(float),
+        "actual": shown["actual"].astype(float), "error": shown["error"].astype(float),
+        "errors expected (95%)": [_range(low, high) for low, high in
+                                  zip(shown["backtest_low_95"].astype(float), shown["backtest_high_95"].astype(float))],
+        "inside 80% · 95%": [f"{a} · {b}" if a or b else "" for a, b in
+                             zip(_yes_no(shown["inside_80"]), _yes_no(shown["inside_95"]))]})
+    view["forecast_rows"] = len(own)
+    table = summarise_realised(own)
+    runs = list(dict.fromkeys(table["forecast_run_id"]))
+    kept = runs[-runs_shown:]
+    table = table[table["forecast_run_id"].isin(kept)]
+    view.update(runs=len(runs), runs_shown=len(kept))
+    view["by_horizon"] = pd.DataFrame({
+        "run": table["forecast_run_id"].astype(str), "model": table["model"].astype(str),
+        "months ahead": table["horizon"].astype(int), "forecasts": table["n"].astype(int),
+        "realised MAE": table["realised_mae"], "expected MAE": table["expected_mae"],
+        "realised bias": table["realised_bias"], "inside 80%": table["inside_80"],
+        "inside 95%": table["inside_95"]})
+    by_run = pd.DataFrame((track.get("realised_skill") or {}).get("by_run", []))
+    if len(by_run):
+        by_run = by_run[by_run["forecast_run_id"].isin(kept)]
+        view["by_run"] = pd.DataFrame({
+            "run": by_run["forecast_run_id"].astype(str), "model": by_run["model"].astype(str),
+            "forecasts": by_run["forecasts"].astype(int), "months": by_run["months"].astype(int),
+            "realised MAE": by_run["model_mae"].astype(float),
+            "mean baseline's realised MAE": by_run["baseline_mae"].astype(float),
+            "realised skill": by_run["skill"].astype(float)})
+    view["pictured"] = own[own["forecast_run_id"].isin(kept)]
+    return view
