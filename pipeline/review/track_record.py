@@ -89,7 +89,8 @@ def score_forecasts(forecasts: pd.DataFrame, actuals: pd.DataFrame,
             scored[f"{side}_{level}"] = np.where(empirical, scored[f"empirical_{side}_{level}"],
                                                  scored[f"analytic_{side}_{level}"]).astype(float)
         low, high = scored[f"low_{level}"], scored[f"high_{level}"]
-        inside = (scored["actual"] >= low) & (scored["actual"] <= high)
+        with np.errstate(invalid="ignore"):   # a missing bound compares False; marked None below
+            inside = (scored["actual"] >= low) & (scored["actual"] <= high)
         scored[f"inside_{level}"] = inside.astype(object).where(low.notna() & high.notna(), None)
     # The backtest's 95% range of errors at the horizon: the empirical interval's offsets
     # (built from the backtest's own errors), else the stated 95% interval's.
@@ -98,7 +99,8 @@ def score_forecasts(forecasts: pd.DataFrame, actuals: pd.DataFrame,
     low_bound = scored["empirical_low_95"].where(use_empirical, scored["low_95"])
     scored["backtest_low_95"] = scored["forecast"] - high_bound
     scored["backtest_high_95"] = scored["forecast"] - low_bound
-    within = (scored["error"] >= scored["backtest_low_95"]) & (scored["error"] <= scored["backtest_high_95"])
+    with np.errstate(invalid="ignore"):   # no range: compares False, marked None below
+        within = (scored["error"] >= scored["backtest_low_95"]) & (scored["error"] <= scored["backtest_high_95"])
     scored["within_backtest_95"] = within.astype(object).where(scored["backtest_low_95"].notna(), None)
     at_horizon = expected[expected["horizon"].notna()].astype({"horizon": int})
     overall = expected[expected["horizon"].isna()].drop(columns=["horizon"])
