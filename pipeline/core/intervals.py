@@ -250,7 +250,7 @@ def _earlier_rows(rank: np.ndarray, period_of: np.ndarray, index: int, origin: s
     return mask
 
 
-def _row_scales(own: pd.DataFrame) -> np.ndarray:
+def row_scales(own: pd.DataFrame) -> np.ndarray:
     """Return each backtest row's series scale in its window (``usable_scales`` per origin)."""
     scale = own["mase_scale"].to_numpy(float)
     out = np.empty(len(scale))
@@ -269,7 +269,7 @@ def _empirical_rows(own: pd.DataFrame, transform: str, floor: float | None) -> d
     period_of = own["period"].astype(str).to_numpy()
     horizon = own["horizon"].to_numpy(float)
     prediction = own["prediction"].to_numpy(float)
-    scale = _row_scales(own)
+    scale = row_scales(own)
     scores = error_scores(own["actual"].to_numpy(float), prediction, scale, transform)
     found = {level: (np.full(len(own), np.nan), np.full(len(own), np.nan)) for level in LEVELS}
     for index, origin in enumerate(origins):

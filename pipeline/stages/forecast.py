@@ -32,6 +32,7 @@ from pipeline.core.intervals import (
     floored,
     horizon_bounds,
     percent,
+    row_scales,
     trusted_method,
     usable_scales,
 )
@@ -139,10 +140,8 @@ def error_table(predictions: pd.DataFrame, kind: str, transform: str) -> pd.Data
     """Return a model's empirical interval bounds per months ahead, read from its backtest
     errors scaled by each series' scale in their window (``core.intervals.horizon_bounds``)."""
     own = predictions[predictions["model"] == kind]
-    scale = np.empty(len(own))
-    for _, where in own.groupby("origin", sort=False).indices.items():
-        scale[where] = usable_scales(own["mase_scale"].to_numpy(float)[where])
-    scores = error_scores(own["actual"].to_numpy(float), own["prediction"].to_numpy(float), scale, transform)
+    scores = error_scores(own["actual"].to_numpy(float), own["prediction"].to_numpy(float),
+                          row_scales(own), transform)
     return horizon_bounds(own["horizon"].to_numpy(float), scores)
 
 
