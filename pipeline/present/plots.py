@@ -72,9 +72,11 @@ def _colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def _finish(figure, alt: str) -> Figure:
+def inline_picture(figure, alt: str) -> Figure:
+    """Return a drawn figure as an inline PNG picture (a data URI) with its text alternative."""
     buffer = io.BytesIO()
-    figure.tight_layout()
+    if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
+        figure.tight_layout()
     # No timestamp or software tag in the file, so the same run draws the same bytes.
     figure.savefig(buffer, format="png", metadata={"Software": None})
     return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
@@ -129,7 +131,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     alt = (f"Line chart of the actual target {summed} from {actual.index.min()} to "
            f"{actual.index.max()}, with the out-of-sample predictions of {', '.join(models)} over "
            f"the scored months; {len(origins)} forecast origins are marked by dotted vertical lines.")
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -153,7 +155,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
            + (f"The largest error is {worst['mae']:.4g} ({worst['model']}, {label} {worst[key]})."
               if worst is not None else ""))
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -203,7 +205,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
            f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else "."))
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -226,7 +228,7 @@ def coefficient_picture(terms: pd.DataFrame) -> Figure:
     crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
     alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
            + (f"; {crossing} of the intervals include zero." if has_interval else "."))
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -248,7 +250,7 @@ def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
     alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series: the median "
            f"estimate with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -283,7 +285,7 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
     alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
            "the model beats it; " + "; ".join(parts)
            + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -312,7 +314,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
            f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
            f"baseline for the {len(scored)} months scored (nearest origin first); the skill of "
            f"{model} on this series is {skill:.3g}.")
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
 
 
 @_styled
@@ -325,14 +327,14 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
     _date_axis(axis)
-    pictures.append(_finish(figure, "Line chart of the final fit's residuals over time, averaged "
+    pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
-    pictures.append(_finish(figure, "Scatter of residuals against fitted values; a funnel shape "
+    pictures.append(inline_picture(figure, "Scatter of residuals against fitted values; a funnel shape "
                             "means the spread changes with the level."))
     figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
@@ -340,7 +342,7 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)
     axis.set_xlabel("normal quantile")
     axis.set_ylabel("ordered residual")
-    pictures.append(_finish(figure, "Normal quantile plot of the residuals; points off the line "
+    pictures.append(inline_picture(figure, "Normal quantile plot of the residuals; points off the line "
                             "in the tails mean larger surprises than a normal curve allows."))
     return pictures
 
@@ -401,4 +403,4 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
     if worst is not None:
         alt += (f". The largest error was {error[worst]:+.4g} ({rows['period'].iloc[worst]}, "
                 f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
-    return _finish(figure, alt)
+    return inline_picture(figure, alt)
