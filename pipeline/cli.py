@@ -80,6 +80,10 @@ def build_parser() -> argparse.ArgumentParser:
                                                         "last month of actuals into this image "
                                                         "(.png, .svg, .pdf); reruns on the same month "
                                                         "sit just right of it, with open markers")
+    history.add_argument("--html", metavar="FILE",
+                         help="also write one self-contained page of the spec's runs (metrics across "
+                              "runs, realised accuracy, forecast revisions, changes between runs, "
+                              "warnings) to this .html file; it replaces only a page it wrote before")
     history.add_argument("--metric", default="mae", choices=[*PLOT_METRICS, "skill"],
                          help="the metric to plot (default mae; skill = skill_vs_mean)")
     compare = commands.add_parser("compare", help="what changed between two runs: spec keys, data and "
@@ -188,8 +192,12 @@ def _shown(table, columns: list[str]) -> list[dict]:
 def _command_history(args) -> int:
     from pipeline.present.history_plot import plot_history
     from pipeline.record import ledger
+    from pipeline.record.new_file import page_target, replace_page
     from pipeline.review import history
     path, name = _ledger_to_read(args)
+    if args.html:   # the page's modules (and matplotlib) load only when a page is asked for
+        from pipeline.present.history_page import MARKER
+        page_target(Path(args.html), MARKER, what="history page", option="--html")
     with ledger.reading(path) as conn:
         runs = ledger.visible_runs(conn)
         if not len(runs):
@@ -197,6 +205,7 @@ def _command_history(args) -> int:
         if name is not None and name not in set(runs["spec_name"]):
             raise UserError(f"{path}: no runs of '{name}' (recorded: "
                             f"{', '.join(sorted(set(runs['spec_name'])))})")
+        page = _history_page(conn, path, name, runs, args.html) if args.html else None
         metrics = history.metrics_history(conn, name)
         realised = history.realised_history(conn, name)
         per_run = history.realised_per_run(conn, name)
@@ -207,6 +216,22 @@ def _command_history(args) -> int:
         metrics = metrics[metrics["model"] == args.model]
         realised = realised[realised["model"] == args.model]
         per_run = per_run[per_run["model"] == args.model]
+    _print_history_tables(args, path, name, metrics, realised, per_run)
+    if args.plot:
+        metric = "skill_vs_mean" if args.metric == "skill" else args.metric
+        title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
+        plot_history(metrics, metric, Path(args.plot), title)
+        if args.format == "table":
+            print(f"plot written to {args.plot} (x: the last month of actuals each run used)")
+    if page is not None:
+        replace_page(Path(args.html), page, MARKER, what="history page", option="--html")
+        if args.format == "table":
+            print(f"history page written to {args.html}")
+    return EXIT_OK
+
+
+def _print_history_tables(args, path: Path, name: str | None, metrics, realised, per_run) -> None:
+    from pipeline.record import ledger
     show = args.show or ("metrics" if args.format == "csv" else "all")
     if args.format == "csv":
         if show == "all":
@@ -224,13 +249,19 @@ def _command_history(args) -> int:
         _print_history(path, name, metrics, realised, show)
     else:
         _print_recent(path, name, metrics, per_run, show, args.model)
-    if args.plot:
-        metric = "skill_vs_mean" if args.metric == "skill" else args.metric
-        title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
-        plot_history(metrics, metric, Path(args.plot), title)
-        if args.format == "table":
-            print(f"plot written to {args.plot} (x: the last month of actuals each run used)")
-    return EXIT_OK
+
+
+def _history_page(conn, path: Path, name: str | None, runs, html: str) -> str:
+    """Return the history page of the one spec the command names (or the ledger holds)."""
+    from pipeline.present.history_page import render_history_page
+    from pipeline.review.history_book import history_book
+    if name is None:
+        names = sorted(set(runs["spec_name"]))
+        if len(names) > 1:
+            raise UserError(f"--html {html}: the page shows one spec's runs and {path} holds "
+                            f"{len(names)} ({', '.join(names)}); give the spec file or its name")
+        name = names[0]
+    return render_history_page(history_book(conn, name, path))
 
 
 def _print_heading(path: Path, name: str | None, metrics) -> bool:

@@ -48,8 +48,12 @@ def history_figure(table: pd.DataFrame, metric: str, title: str):
     figure = Figure(figsize=(8, 4.5), layout="constrained")
     FigureCanvasAgg(figure)
     axes = figure.subplots()
+    from pipeline.present.plots import model_colours
+
     positions = run_positions(table).set_index(["spec_name", "run_id"])
     several = table["spec_name"].nunique() > 1
+    # Each model keeps its colour from picture to picture (and spec to spec).
+    colours = model_colours(list(dict.fromkeys(table["model"])))
     drawn = []
     for (name, model), rows in table.groupby(["spec_name", "model"], sort=False):
         if metric == "skill_vs_mean" and model == BASELINE:
@@ -57,7 +61,8 @@ def history_figure(table: pd.DataFrame, metric: str, title: str):
         at = positions.loc[list(zip(rows["spec_name"], rows["run_id"]))]
         order = np.argsort(at["x"].to_numpy(), kind="stable")
         x, y = at["x"].to_numpy()[order], rows[metric].astype(float).to_numpy()[order]
-        line, = axes.plot(x, y, marker="o", label=f"{name}: {model}" if several else model)
+        line, = axes.plot(x, y, marker="o", color=colours[model],
+                          label=f"{name}: {model}" if several else model)
         reruns = at["rerun"].to_numpy()[order] > 0
         if reruns.any():   # open markers for the reruns, in the line's colour
             axes.plot(x[reruns], y[reruns], linestyle="none", marker="o", color=line.get_color(),
@@ -101,3 +106,92 @@ def plot_history(table: pd.DataFrame, metric: str, path: Path, title: str) -> st
     except OSError as exc:
         raise UserError(f"{path}: cannot write the plot: {exc.strerror or exc}") from None
     return alt
+
+
+# The revision fan draws this many target months (the latest); more lines would hide each other.
+FAN_MONTHS = 8
+
+
+def _run_x(runs: pd.DataFrame) -> dict[str, float]:
+    """Return where each run is drawn: its last month of actuals, reruns a step to the right."""
+    table = runs.assign(spec_name="", model="")
+    return dict(zip(*[run_positions(table)[c] for c in ("run_id", "x")]))
+
+
+def fan_figure(fan: pd.DataFrame, runs: pd.DataFrame, series_count: int):
+    """Return the picture of how the forecast of each target month was revised from run to run
+    (the latest FAN_MONTHS months): one line per month through each run's forecast of it, placed
+    by the run's last month of actuals, ending at the month's actual; and its text alternative."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    from pipeline.present.plots import PALETTE
+
+    figure = Figure(figsize=(8, 4.2), layout="constrained")
+    FigureCanvasAgg(figure)
+    axes = figure.subplots()
+    at = _run_x(runs)
+    months = sorted(fan["period"].astype(str).unique())[-FAN_MONTHS:]
+    closing = []
+    for index, month in enumerate(months):
+        rows = fan[fan["period"].astype(str) == month]
+        colour = PALETTE[index % len(PALETTE)]
+        x = rows["forecast_run_id"].map(at).to_numpy(float)
+        axes.plot(x, rows["forecast"].to_numpy(float), marker="o", markersize=4, color=colour, label=month)
+        actual = rows["actual"].dropna()
+        if len(actual):
+            target = float(pd.Period(month, "M").ordinal)
+            axes.plot([x[-1], target], [rows["forecast"].iloc[-1], actual.iloc[-1]], linestyle=":",
+                      color=colour)
+            axes.plot([target], [actual.iloc[-1]], marker="*", markersize=11, color=colour,
+                      markeredgecolor="black", markeredgewidth=0.5, linestyle="none")
+            first = float(rows["forecast"].iloc[0])
+            closing.append((month, first - actual.iloc[-1], float(rows["forecast"].iloc[-1]) - actual.iloc[-1]))
+    whose = "" if series_count == 1 else f", summed over the {series_count} series"
+    axes.set_title(f"Each target month's forecast, run by run{whose}")
+    axes.set_xlabel("last month of actuals in the run's data (★ the month's actual, at the month itself)")
+    axes.set_ylabel("forecast of the recommended model")
+    axes.xaxis.set_major_locator(MaxNLocator(nbins=8, integer=True))
+    axes.xaxis.set_major_formatter(FuncFormatter(_month_label))
+    axes.legend(title="target month", fontsize=7, title_fontsize=7, loc="center left",
+                bbox_to_anchor=(1.01, 0.5), frameon=False)
+    alt = (f"Line chart of the forecasts of the last {len(months)} target month(s) ({months[0]} to "
+           f"{months[-1]}){whose}, one line per month through each run's forecast of it, placed by the "
+           "run's last month of actuals, and a star at the month's actual where it has arrived.")
+    if closing:
+        alt += " First and last errors (forecast − actual): " + "; ".join(
+            f"{m} {first:+.4g} then {last:+.4g}" for m, first, last in closing) + "."
+    return figure, alt
+
+
+def realised_figure(realised: pd.DataFrame, runs: pd.DataFrame):
+    """Return the picture of each run's realised MAE (its recommended model, over the months
+    scored so far) beside the MAE its backtest expected there, by the run's last month of
+    actuals; and its text alternative."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    from pipeline.present.plots import PALETTE
+
+    figure = Figure(figsize=(8, 3.6), layout="constrained")
+    FigureCanvasAgg(figure)
+    axes = figure.subplots()
+    rows = realised.assign(x=realised["forecast_run_id"].map(_run_x(runs))).sort_values("x")
+    axes.plot(rows["x"], rows["realised_mae"].astype(float), marker="o", color=PALETTE[0],
+              label="realised MAE (the months scored so far)")
+    axes.plot(rows["x"], rows["expected_mae"].astype(float), marker="s", linestyle="--",
+              color=PALETTE[1], label="MAE the backtest expected at the same months ahead")
+    axes.set_ylim(bottom=0)
+    axes.set_title("Realised accuracy against expectation, run by run")
+    axes.set_xlabel("last month of actuals in the run's data")
+    axes.set_ylabel("MAE")
+    axes.xaxis.set_major_locator(MaxNLocator(nbins=8, integer=True))
+    axes.xaxis.set_major_formatter(FuncFormatter(_month_label))
+    axes.legend(fontsize=7, frameon=False)
+    worse = int((rows["realised_mae"] > rows["expected_mae"]).sum())
+    alt = (f"Line chart of the realised MAE of {len(rows)} run(s)' recommended forecasts beside the MAE "
+           f"each run's backtest expected, by the run's last month of actuals ({rows['last_period'].iloc[0]}"
+           f" to {rows['last_period'].iloc[-1]}): realised above expected in {worse} of {len(rows)}.")
+    return figure, alt

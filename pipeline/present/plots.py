@@ -65,7 +65,8 @@ def as_text(value) -> str:
     """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
     return str(value).replace("$", r"\$")
 
-def _colours(models: list[str]) -> dict[str, str]:
+def model_colours(models: list[str]) -> dict[str, str]:
+    """Return each model's colour in the pictures: the mean baseline grey, the others in turn."""
     others = [m for m in models if m != "mean_baseline"]
     colours = {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(others)}
     colours["mean_baseline"] = BASELINE_COLOUR
@@ -113,7 +114,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     figure, axis = _subplots(figsize=(8, 3.4))
     axis.plot(_months(actual.index), actual.to_numpy(), color="#000000", linewidth=1.2, label="actual")
     models = list(dict.fromkeys(predictions["model"]))
-    colours = _colours(models)
+    colours = model_colours(models)
     for model in models:
         own = predictions[predictions["model"] == model]
         # With overlapping origins, show each month's prediction from its nearest origin.
@@ -139,7 +140,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     """MAE per model at each origin or horizon."""
     figure, axis = _subplots(figsize=(8, 2.8))
     models = list(dict.fromkeys(table["model"]))
-    colours = _colours(models)
+    colours = model_colours(models)
     for model in models:
         own = table[table["model"] == model]
         positions = np.arange(len(own))
@@ -257,7 +258,7 @@ def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
 def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str]) -> Figure:
     """Per-series skill against the mean baseline, one outline per model, skill below −1 in
     the leftmost bar (skill is at most 1, so the other end needs no clipping)."""
-    colours = _colours(all_models)
+    colours = model_colours(all_models)
     values = {m: series_table.loc[series_table["model"] == m, "skill_vs_mean"].dropna().to_numpy(float)
               for m in models}
     found = np.concatenate([v for v in values.values() if len(v)] or [np.zeros(1)])
@@ -301,7 +302,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     past = past[past["period"] >= start] if start else past.tail(36)
     figure, axis = _subplots(figsize=(4, 2.3))
     axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1.1, label="actual")
-    colours = _colours(all_models)
+    colours = model_colours(all_models)
     for kind, style in ((model, "-"), ("mean_baseline", "--")):
         rows = _nearest(own[own["model"] == kind]).sort_values("period")
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,

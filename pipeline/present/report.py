@@ -48,7 +48,9 @@ WORST_SHOWN = 5        # worst series pictured in the Per series section
 SIGNIFICANT = 0.05     # a coefficient's p-value counted as small in the summary across series
 
 
-def _environment() -> jinja2.Environment:
+def page_environment() -> jinja2.Environment:
+    """Return the template engine of the HTML pages (the report, the history page): every value
+    escaped, an undefined name an error, numbers formatted as the report shows them."""
     environment = jinja2.Environment(
         loader=jinja2.PackageLoader("pipeline.present", "templates"),
         autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
@@ -347,7 +349,7 @@ def render_report(files: RunFiles | str | Path) -> str:
     else:
         coefficient_picture = None
     ahead = ahead_view(metrics)
-    return _environment().get_template("report.html.j2").render(
+    return page_environment().get_template("report.html.j2").render(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
         validation=metrics.get("validation_text", metrics.get("validation", {}).get("method", "")),
         verdict=metrics["verdict"], beats=metrics.get("beats_baseline", False), recommended=recommended,
