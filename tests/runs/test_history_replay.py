@@ -262,7 +262,8 @@ def test_each_rerun_holds_one_more_month_and_lands_in_the_one_ledger(replay):
 
 # ---------------------------------------------------------------- compare's forecast revisions
 
-@pytest.mark.parametrize("later", [2, 5, 9, RERUNS - 1])
+# Consecutive pairs: two ordinary ones, and the two across a rerun that revised an actual.
+@pytest.mark.parametrize("later", [2, *sorted(REVISIONS), RERUNS - 1])
 def test_forecast_revisions_equal_a_merge_of_the_two_runs_forecast_csv(replay, later, tmp_path, capsys):
     earlier = later - 1
     target = tmp_path / "revisions.csv"
@@ -298,9 +299,8 @@ def test_the_ledger_scores_a_revised_actual_again(replay, reviser):
     for scorer in (first, reviser):
         actual = actuals(replay.data[scorer])[(month, branch)]
         rows = scored[scored["run_id"] == replay.run_id(scorer)]
-        expected = forecasts
-        both = expected.merge(rows, on=["forecast_run_id", *KEY], suffixes=("", "_ledger"), validate="1:1")
-        assert len(both) == len(expected) == len(rows) == 3 * 6       # three runs' forecasts of six models
+        both = forecasts.merge(rows, on=["forecast_run_id", *KEY], suffixes=("", "_ledger"), validate="1:1")
+        assert len(both) == len(forecasts) == len(rows) == 3 * 6      # three runs' forecasts of six models
         assert (both["actual"] == actual).all()
         np.testing.assert_allclose(both["error"], both["forecast"] - actual, rtol=1e-12)
         np.testing.assert_allclose(both["forecast_ledger"], both["forecast"], rtol=1e-12)
