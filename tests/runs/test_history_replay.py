@@ -3,9 +3,12 @@ published actuals revised on the way: compare's forecast revisions, the ledger's
 revised actual, the months compare says changed, and the report in a browser.
 
 A plumbing test on invented data. compost_panel() makes the panel (seeded numpy): four garden
-centre branches selling bags of potting compost, monthly from 2022-01 to 2027-02, each with its
-own level, a trend, a yearly season peaking in spring, a planned shelf price (a yearly rise and
-an occasional offer, known in the months to forecast too) that lowers sales, and noise. No
+centre branches selling bags of potting compost, monthly from 2022-01 to 2027-02, each at its
+own level, all with the same trend, the same yearly season peaking in spring and the same effect
+of a planned shelf price (a yearly rise and an occasional offer, known in the months to forecast
+too), and noise. The shared shape lets the pooled OLS (a level per branch) be the recommended
+model in every rerun, so compare's revisions are of forecasts that move; with a trend per branch,
+the same month last year won and its forecasts never moved between reruns. No
 figure here is a reference value: every expected value is computed in this file from the run
 folders' files (forecast.csv, metrics.json) and the data each rerun read, with pandas (and a
 plain sqlite3 read of the ledger where the ledger is the subject) as the reference, never read
@@ -249,6 +252,7 @@ def test_each_rerun_holds_one_more_month_and_lands_in_the_one_ledger(replay):
         assert data.loc[data["bags_sold"].isna(), "price"].notna().all()    # the price is planned
         assert run["last_period"] == str(FIRST_CUT + k) and run["folder"] == str(replay.folder(k))
         assert run["history_rows"] == len(known) and run["future_rows"] == len(ahead) == AHEAD * 4
+        assert replay.metrics(k)["recommended"] == "ols", "the panel's design: OLS fits it"
         forecast = replay.table(k, "forecast.csv")
         assert sorted(forecast["period"].unique()) == [str(FIRST_CUT + k + h) for h in range(1, AHEAD + 1)]
     # each revised actual: absent before it was published, then as published, then revised
