@@ -18,6 +18,7 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
+from browser import CHROMEDRIVER, CHROMIUM, NEEDS_A_BROWSER, open_page
 from conftest import DEMO_SPEC, ROOT, tiny_data, write_tiny_spec
 from statsmodels.stats.multitest import multipletests
 
@@ -29,7 +30,6 @@ DEMO = DEMO_SPEC
 SECTIONS = ["answer", "comparison", "backtest", "per-series", "forecast", "track-record", "drivers",
             "residuals", "data", "run", "cautions"]
 HOSTILE = "<script>alert(1)</script>"
-CHROMIUM, CHROMEDRIVER = shutil.which("chromium"), shutil.which("chromedriver")
 
 
 @pytest.fixture(scope="module")
@@ -169,38 +169,13 @@ def test_markup_in_the_data_appears_as_text(tmp_path):
     assert cells.scripts == 0
 
 
-@pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), reason="needs Debian's chromium and chromium-driver")
+@pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), reason=NEEDS_A_BROWSER)
 def test_the_report_opens_in_a_browser_with_every_section_and_image_and_no_request(run_folder, tmp_path):
-    from selenium import webdriver
-    from selenium.webdriver.chrome.service import Service
-
-    options = webdriver.ChromeOptions()
-    options.binary_location = CHROMIUM
-    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                 "--disable-dev-shm-usage", f"--user-data-dir={tmp_path / 'profile'}"):
-        options.add_argument(flag)
-    options.set_capability("goog:loggingPrefs", {"performance": "ALL"})
-    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
-    try:
-        driver.get_log("performance")   # drop what the browser's start page asked for
-        driver.get((run_folder / "report.html").as_uri())
-        present = driver.execute_script(
-            "return Array.from(document.querySelectorAll('section')).map(s => s.id);")
-        assert present == SECTIONS
-        images = driver.execute_script(
-            "return Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.alt.length]);")
-        assert images and all(done and width > 0 and alt > 20 for done, width, alt in images)
-        requests = [json.loads(entry["message"])["message"] for entry in driver.get_log("performance")]
-        urls = [m["params"]["request"]["url"] for m in requests if m["method"] == "Network.requestWillBeSent"]
-        # chrome:// URLs are the browser's own pages (its start page), not the network.
-        assert any(url.startswith("file://") for url in urls), urls
-        network = [url for url in urls
-                   if not url.startswith(("file://", "data:", "chrome://", "chrome-untrusted://"))]
-        assert network == []
-        # The page's own record of every resource it fetched (data: URIs are not fetched).
-        fetched = driver.execute_script(
-            "return performance.getEntriesByType('resource').map(e => e.name);")
-        assert [name for name in fetched if not name.startswith(("file:", "data:"))] == []
-    finally:
-        driver.quit()
+    page = open_page(run_folder / "report.html", tmp_path / "profile")
+    assert page.sections == SECTIONS
+    assert page.images and all(done and width > 0 and alt > 20 for done, width, alt in page.images)
+    # The browser's log saw the page itself; chrome:// URLs are its own pages, not the network.
+    assert any(url.startswith("file://") for url in page.requested), page.requested
+    assert page.network == []
+    # The page's own record of every resource it fetched (data: URIs are not fetched).
+    assert page.fetched == []
