@@ -1,5 +1,5 @@
 """Open a page of castline's in Debian's headless Chromium, driven by Selenium, and record what
-it showed and what it asked for.
+it showed and what it asked for; and read a page's tables without a browser (read_page).
 
 Tests import it as conftest is imported (``from browser import CHROMIUM, CHROMEDRIVER, open_page``)
 and mark their browser tests ``@pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), ...)``:
@@ -11,7 +11,10 @@ from __future__ import annotations
 import json
 import shutil
 from dataclasses import dataclass
+from html.parser import HTMLParser
 from pathlib import Path
+
+import pandas as pd
 
 CHROMIUM, CHROMEDRIVER = shutil.which("chromium"), shutil.which("chromedriver")
 NEEDS_A_BROWSER = "needs Debian's chromium and chromium-driver"
@@ -71,3 +74,69 @@ def open_page(path: Path, profile: Path) -> PageLoad:
                     images=[(bool(done), int(width), int(alt)) for done, width, alt in images],
                     requested=list(requested),
                     fetched=[name for name in fetched if not name.startswith(("file:", "data:"))])
+
+
+class PageTables(HTMLParser):
+    """Collect, per table id, its header and rows of (data-value or None, text) cells; and the
+    ids of the sections and the headings, in order."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: dict[str, dict] = {}
+        self.sections: list[str] = []
+        self.headings: list[tuple[str, str]] = []
+        self._table = self._row = self._cell = self._heading = None
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        if tag == "section":
+            self.sections.append(attrs.get("id"))
+        elif tag in ("h1", "h2", "h3"):
+            self._heading = [tag, ""]
+        elif tag == "table":
+            self._table = attrs.get("id")
+            self.tables[self._table] = {"header": [], "rows": []}
+        elif tag == "tr" and self._table:
+            self._row = []
+        elif tag in ("td", "th") and self._row is not None:
+            self._cell = [attrs.get("data-value"), "", tag]
+
+    def handle_data(self, data):
+        if self._cell is not None:
+            self._cell[1] += data
+        if self._heading is not None:
+            self._heading[1] += data
+
+    def handle_endtag(self, tag):
+        if tag in ("h1", "h2", "h3") and self._heading is not None:
+            self.headings.append(tuple(self._heading))
+            self._heading = None
+        elif tag in ("td", "th") and self._cell is not None:
+            self._row.append(tuple(self._cell))
+            self._cell = None
+        elif tag == "tr" and self._row is not None:
+            table = self.tables[self._table]
+            if self._row and self._row[0][2] == "th":
+                table["header"] = [text for _, text, _ in self._row]
+            elif self._row:
+                table["rows"].append([(value, text) for value, text, _ in self._row])
+            self._row = None
+        elif tag == "table":
+            self._table = None
+
+    def frame(self, table_id: str) -> pd.DataFrame:
+        """Return a table as a frame: numbers from data-value (NaN when empty), else the text."""
+        table = self.tables[table_id]
+
+        def cell(value, text):
+            if value is None:
+                return text
+            return float(value) if value not in ("", "nan") else float("nan")
+
+        return pd.DataFrame([[cell(*c) for c in row] for row in table["rows"]], columns=table["header"])
+
+
+def read_page(path: Path) -> PageTables:
+    page = PageTables()
+    page.feed(path.read_text(encoding="utf-8"))
+    return page

@@ -29,6 +29,9 @@ FAN_COLUMNS = ["period", "forecast_run_id", "run_period", "rerun", "horizon", "s
                "actual", "actual_series"]
 CHANGE_COLUMNS = ["earlier_run", "later_run", "earlier_period", "later_period", "spec", "data",
                   "planned", "recommended"]
+# The order the kinds of change in the input are told in: what came, then what was corrected.
+CHANGE_ORDER = {"actuals added": 0, "actuals revised": 1, "actuals added and revised": 2,
+                "actuals removed": 3, "new month to forecast": 4, "month to forecast dropped": 5}
 KEYS_SHOWN = 4            # spec keys named per pair of runs before "and N more"
 MONTHS_SHOWN = 6          # months named per kind of change before "and N more"
 # Realised forecasts before the share inside the stated intervals may raise a warning: fewer
@@ -77,13 +80,12 @@ def _data_words(comparison) -> str:
         added = comparison.data_summary()["rows_with_actuals_added"]
         return f"the input changed ({added:+,} rows with actuals); months not recorded"
     parts = []
-    for change, group in comparison.months.groupby("change", sort=False):
+    for change, group in sorted(comparison.months.groupby("change", sort=False),
+                                key=lambda item: CHANGE_ORDER.get(item[0], len(CHANGE_ORDER))):
         periods = sorted(group["period"].astype(str))
         if change == "actuals added":
             parts.append(f"actuals added for {_span(periods)}")
-        elif change == PLANNED:
-            continue   # named in their own column
-        else:
+        elif change != PLANNED:   # planned drivers are named in their own column
             parts.append(f"{change}: {_months(periods)}")
     return "; ".join(parts) or "the same rows (the file differs in layout only)"
 

@@ -39,7 +39,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
-from browser import CHROMEDRIVER, CHROMIUM, NEEDS_A_BROWSER, open_page
+from browser import CHROMEDRIVER, CHROMIUM, NEEDS_A_BROWSER, open_page, read_page
 
 import pipeline
 from pipeline import cli
@@ -366,5 +366,161 @@ def test_a_reruns_report_loads_in_a_browser_with_no_network_request(replay, reru
     track = [text for _, text in page.headings[start + 1:end]]
     assert "Forecasts and actuals" in track, page.headings      # earlier forecasts were scored
     assert page.images and all(done and width > 0 and alt > 20 for done, width, alt in page.images)
+    assert any(url.startswith("file://") for url in page.requested), page.requested
+    assert page.network == [] and page.fetched == []
+
+
+# ---------------------------------------------------------------- the history page against the ledger
+
+HISTORY_SECTIONS = ["warnings", "runs", "metrics", "realised", "revisions", "changes", "cautions"]
+
+
+@pytest.fixture(scope="module")
+def history_page(replay, tmp_path_factory) -> Path:
+    """castline history SPEC --html FILE, as a user runs it after the twelfth rerun."""
+    target = tmp_path_factory.mktemp("history_page") / "history.html"
+    assert cli.main(["history", str(replay.spec), "--html", str(target)]) == 0
+    return target
+
+
+def latest_scores(replay: Replay) -> pd.DataFrame:
+    """Each forecast's latest score: a plain sqlite3 read of the ledger's realised rows, each kept
+    from the newest rerun that scored it (pandas), with the scoring rerun's last month."""
+    scored = ledger_table(replay, "SELECT r.*, s.created AS scored_created, s.last_period AS scored_period "
+                                  "FROM realised r JOIN runs s ON s.run_id = r.run_id")
+    scored = scored.sort_values("scored_created", kind="stable")
+    return scored.drop_duplicates(["forecast_run_id", *KEY], keep="last")
+
+
+def recommended_by_run(replay: Replay) -> dict[str, str]:
+    runs = ledger_table(replay, "SELECT run_id, recommended FROM runs")
+    return dict(zip(runs["run_id"], runs["recommended"]))
+
+
+def test_the_history_pages_runs_and_metrics_are_the_ledgers(replay, history_page):
+    page = read_page(history_page)
+    runs = ledger_table(replay, "SELECT run_id, last_period, history_rows, recommended FROM runs "
+                                "ORDER BY created, run_id")
+    metrics = ledger_table(replay, "SELECT run_id, model, mae, skill_vs_mean FROM model_metrics")
+    shown = page.frame("runs-table")
+    # the reference: a plain sqlite3 read of the ledger's runs and model_metrics
+    assert list(shown["run id"]) == list(runs["run_id"])
+    assert list(shown["run"]) == list(runs["last_period"])       # no rerun shares a month here
+    assert list(shown["rows with actuals"]) == list(runs["history_rows"].astype(float))
+    assert list(shown["recommended"]) == list(runs["recommended"])
+    chosen = runs.merge(metrics, left_on=["run_id", "recommended"], right_on=["run_id", "model"])
+    np.testing.assert_allclose(shown["MAE"], chosen["mae"], rtol=1e-12)
+    np.testing.assert_allclose(shown["skill against the mean"], chosen["skill_vs_mean"], rtol=1e-12)
+    period = dict(zip(runs["run_id"], runs["last_period"]))
+    for table_id, column in (("metrics-mae", "mae"), ("metrics-skill", "skill_vs_mean")):
+        wide = page.frame(table_id).set_index("run")
+        expected = metrics.assign(run=metrics["run_id"].map(period)).pivot(index="run", columns="model",
+                                                                          values=column)
+        if column == "skill_vs_mean":
+            expected = expected.drop(columns=["mean_baseline"])
+        assert sorted(wide.columns) == sorted(expected.columns) and len(wide) == RERUNS
+        np.testing.assert_allclose(wide[expected.columns].to_numpy(float),
+                                   expected.loc[wide.index].to_numpy(float), rtol=1e-12)
+
+
+def test_the_history_pages_realised_accuracy_is_the_ledgers(replay, history_page):
+    realised = read_page(history_page).frame("realised-table")
+    latest = latest_scores(replay)
+    chosen = recommended_by_run(replay)
+    own = latest[latest["model"] == latest["forecast_run_id"].map(chosen)]
+    period = dict(zip(*ledger_table(replay, "SELECT run_id, last_period FROM runs").T.values))
+    # the reference: each run's recommended forecasts' latest scores in the ledger, pooled (pandas)
+    expected = own.groupby("forecast_run_id").agg(
+        n=("error", "size"), mae=("error", lambda e: e.abs().mean()), bias=("error", "mean"),
+        expected=("expected_mae", "mean"), inside_80=("inside_80", "mean"), inside_95=("inside_95", "mean"),
+    )
+    expected.index = expected.index.map(period)
+    expected = expected.sort_index()
+    assert list(realised["run"]) == list(expected.index) == [str(FIRST_CUT + k) for k in range(RERUNS - 1)]
+    np.testing.assert_array_equal(realised["forecasts"], expected["n"])
+    np.testing.assert_allclose(realised["realised MAE"], expected["mae"], rtol=1e-12)
+    np.testing.assert_allclose(realised["realised bias"], expected["bias"], rtol=1e-12)
+    np.testing.assert_allclose(realised["expected MAE"], expected["expected"], rtol=1e-12)
+    np.testing.assert_allclose(realised["inside 80%"], expected["inside_80"], rtol=1e-12)
+    np.testing.assert_allclose(realised["inside 95%"], expected["inside_95"], rtol=1e-12)
+    # a run's forecasts are scored through the last month of actuals of the newest rerun that scored
+    # any of them: a later rerun that revised an actual rescored it (runs 0 to 2 by rerun 5)
+    newest = own.sort_values("scored_created").groupby("forecast_run_id")["scored_period"].last()
+    newest.index = newest.index.map(period)
+    assert list(realised["scored through"]) == list(newest.sort_index())
+    assert list(realised["scored through"].iloc[:3]) == [str(FIRST_CUT + 5)] * 3
+
+
+def test_the_history_pages_revisions_are_the_ledgers_forecasts_summed_over_branches(replay, history_page):
+    shown = read_page(history_page).frame("revisions-table")
+    forecasts = ledger_table(replay, "SELECT f.run_id, f.model, f.period, f.series, f.forecast, f.horizon, "
+                                     "r.last_period, r.created FROM forecasts f JOIN runs r ON r.run_id = f.run_id "
+                                     "WHERE f.model = r.recommended")
+    # the reference: the ledger's forecasts of each run's recommended model summed over the four
+    # branches per target month (pandas), oldest run first; the actual summed from the latest scores
+    total = forecasts.groupby(["period", "created", "last_period"], as_index=False).agg(
+        forecast=("forecast", "sum"), branches=("series", "size"), horizon=("horizon", "min"))
+    assert (total["branches"] == len(BRANCHES)).all()
+    total = total.sort_values(["period", "created"], kind="stable")
+    kept = sorted(total["period"].unique())[-12:]
+    total = total[total["period"].isin(kept)].reset_index(drop=True)
+    latest = latest_scores(replay).sort_values("scored_created", kind="stable") \
+        .drop_duplicates(["period", "series"], keep="last")
+    actual = latest.groupby("period").agg(actual=("actual", "sum"), branches=("series", "size"))
+    actual = actual[actual["branches"] == len(BRANCHES)]["actual"]
+    assert list(shown["target month"]) == list(total["period"])
+    assert list(shown["run"]) == list(total["last_period"])
+    np.testing.assert_array_equal(shown["months ahead"], total["horizon"])
+    np.testing.assert_allclose(shown["forecast"], total["forecast"], rtol=1e-12)
+    change = total.groupby("period", sort=False)["forecast"].diff()
+    np.testing.assert_allclose(shown["change"], change, rtol=1e-12, equal_nan=True)
+    expected_actual = total["period"].map(actual)
+    np.testing.assert_allclose(shown["actual"], expected_actual, rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(shown["error"], total["forecast"] - expected_actual, rtol=1e-12, equal_nan=True)
+    # the revised month's total carries the revision (the data the last rerun read, pandas)
+    month = REVISIONS[9][1]
+    if month in kept:
+        last = replay.data[-1]
+        assert actual[month] == last.loc[months_of(last) == pd.Period(month, "M"), "bags_sold"].sum()
+
+
+def test_the_history_pages_changes_name_each_month_the_ledger_fingerprints_changed(replay, history_page):
+    changes = read_page(history_page).frame("changes-table")
+    periods = ledger_table(replay, "SELECT p.run_id, p.period, p.actual_rows, p.sha256, r.created FROM periods p "
+                                   "JOIN runs r ON r.run_id = p.run_id ORDER BY r.created")
+    ids = [replay.run_id(k) for k in range(RERUNS)]
+    assert list(changes["from"]) == [str(FIRST_CUT + k) for k in range(RERUNS - 1)]
+    assert list(changes["to"]) == [str(FIRST_CUT + k) for k in range(1, RERUNS)]
+    assert set(changes.columns) == {"from", "to", "data"}     # no spec key, planned driver or model changed
+    for k in range(1, RERUNS):
+        # the reference: the ledger's per-month fingerprints of the two runs (sqlite3 and pandas):
+        # a month with actuals in both whose fingerprint differs was revised
+        old = periods[periods["run_id"] == ids[k - 1]].set_index("period")
+        new = periods[periods["run_id"] == ids[k]].set_index("period")
+        both = old.merge(new, left_index=True, right_index=True, suffixes=("_old", "_new"))
+        revised = sorted(both.index[(both["sha256_old"] != both["sha256_new"]) & (both["actual_rows_old"] > 0)
+                                    & (both["actual_rows_new"] > 0)])
+        text = changes["data"].iloc[k - 1]
+        assert text.startswith(f"actuals added for {FIRST_CUT + k}"), text
+        assert f"new month to forecast: {FIRST_CUT + k + AHEAD}" in text
+        assert revised == ([REVISIONS[k][1]] if k in REVISIONS else [])
+        assert (f"actuals revised: {revised[0]}" in text) if revised else ("revised" not in text), text
+
+
+@pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), reason=NEEDS_A_BROWSER)
+def test_the_history_page_loads_in_a_browser_with_no_network_request(history_page, tmp_path):
+    page = open_page(history_page, tmp_path / "profile")
+    # the reference: the browser's own record of the page load, and the page's design (a section
+    # per h2, in order, each heading level under the one above)
+    assert page.sections == HISTORY_SECTIONS
+    assert page.headings[0] == (1, f"{SPEC['name']}: how its forecasts have done, run by run")
+    assert [text for level, text in page.headings if level == 2] == [
+        "Warnings", "The runs", "Backtest metrics across runs", "Realised accuracy against expectation",
+        "How the forecasts were revised", "What changed between runs", "Cautions"]
+    levels = [level for level, _ in page.headings]
+    assert all(b <= a + 1 for a, b in zip(levels, levels[1:]))       # no level skipped
+    # MAE, skill, realised against expected, errors against their band, the revision fan
+    assert len(page.images) == 5
+    assert all(done and width > 0 and alt > 20 for done, width, alt in page.images)
     assert any(url.startswith("file://") for url in page.requested), page.requested
     assert page.network == [] and page.fetched == []
