@@ -223,3 +223,46 @@ def test_a_ledger_of_several_specs_asks_which_one(tiny_runs, tmp_path, capsys):
     assert not (tmp_path / "h.html").exists()
     assert cli.main(["history", "tiny", "--ledger", str(copy), "--html", str(tmp_path / "h.html")]) == 0
     assert list(read_page(tmp_path / "h.html").frame("runs-table")["run"]) == ["2022-03", "2022-03 (rerun 1)"]
+
+
+def ledger_copy(ledger_file: Path, folder: Path, *statements: str) -> Path:
+    """Return a copy of the tiny ledger with the given SQL applied (the runs' folders untouched)."""
+    import sqlite3
+    from contextlib import closing
+    copy = folder / "ledger.sqlite"
+    shutil.copy(ledger_file, copy)
+    with closing(sqlite3.connect(copy)) as conn, conn:
+        for statement in statements:
+            conn.execute(statement)
+    return copy
+
+
+def test_a_first_run_alone_has_nothing_to_compare_yet(tiny_runs, tmp_path):
+    _, ledger_file, runs = tiny_runs
+    first = runs[0][0].folder.run_id
+    copy = ledger_copy(ledger_file, tmp_path, f"DELETE FROM runs WHERE run_id != '{first}'")
+    target = tmp_path / "first.html"
+    assert cli.main(["history", "tiny", "--ledger", str(copy), "--html", str(target)]) == 0
+    parsed = read_page(target)
+    text = target.read_text(encoding="utf-8")
+    assert parsed.sections == SECTIONS
+    assert list(parsed.frame("runs-table")["run id"]) == [first]
+    assert "One run only: nothing to compare yet." in text
+    assert "has an actual in a later run's data yet" in text
+    assert "changes-table" not in parsed.tables and "realised-table" not in parsed.tables
+    # its own forecasts are still shown, without actuals
+    assert parsed.frame("revisions-table")["actual"].isna().all()
+
+
+def test_a_run_whose_folder_is_gone_is_named_and_its_own_warnings_left_out(tiny_runs, tmp_path):
+    _, ledger_file, runs = tiny_runs
+    second = runs[1][0].folder.run_id
+    copy = ledger_copy(ledger_file, tmp_path,
+                       f"UPDATE runs SET folder = '{tmp_path / 'moved-away'}' WHERE run_id = '{second}'")
+    target = tmp_path / "gone.html"
+    assert cli.main(["history", "tiny", "--ledger", str(copy), "--html", str(target)]) == 0
+    text = target.read_text(encoding="utf-8")
+    assert "The folders of 1 run(s) could not be read, so their own warnings are not shown: 2022-03." in text
+    given = read_page(target).frame("recorded-warnings")
+    assert not any("2022-03" in runs_of.split(", ") for runs_of in given["runs"])
+    assert read_page(target).frame("runs-table")["run id"].tolist()[1] == second   # the run still counts
