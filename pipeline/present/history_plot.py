@@ -148,7 +148,7 @@ def fan_figure(fan: pd.DataFrame, runs: pd.DataFrame, series_count: int):
                       markeredgecolor="black", markeredgewidth=0.5, linestyle="none")
             first = float(rows["forecast"].iloc[0])
             closing.append((month, first - actual.iloc[-1], float(rows["forecast"].iloc[-1]) - actual.iloc[-1]))
-    whose = "" if series_count == 1 else f", summed over the {series_count} series"
+    whose = "" if series_count == 1 else f", summed over the {series_count:,} series"
     axes.set_title(f"Each target month's forecast, run by run{whose}")
     axes.set_xlabel("last month of actuals in the run's data (★ the month's actual, at the month itself)")
     axes.set_ylabel("forecast of the recommended model")
@@ -183,13 +183,14 @@ def realised_figure(realised: pd.DataFrame, runs: pd.DataFrame):
               label="realised MAE (the months scored so far)")
     axes.plot(rows["x"], rows["expected_mae"].astype(float), marker="s", linestyle="--",
               color=PALETTE[1], label="MAE the backtest expected at the same months ahead")
-    axes.set_ylim(bottom=0)
+    highest = float(np.nanmax(rows[["realised_mae", "expected_mae"]].to_numpy(float), initial=0.0))
+    axes.set_ylim(0, highest * 1.15 or 1.0)   # from 0, so a ratio of heights is a ratio of errors
     axes.set_title("Realised accuracy against expectation, run by run")
     axes.set_xlabel("last month of actuals in the run's data")
     axes.set_ylabel("MAE")
     axes.xaxis.set_major_locator(MaxNLocator(nbins=8, integer=True))
     axes.xaxis.set_major_formatter(FuncFormatter(_month_label))
-    axes.legend(fontsize=7, frameon=False)
+    axes.legend(fontsize=7, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2)
     worse = int((rows["realised_mae"] > rows["expected_mae"]).sum())
     alt = (f"Line chart of the realised MAE of {len(rows)} run(s)' recommended forecasts beside the MAE "
            f"each run's backtest expected, by the run's last month of actuals ({rows['last_period'].iloc[0]}"
