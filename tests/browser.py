@@ -76,6 +76,69 @@ def open_page(path: Path, profile: Path) -> PageLoad:
                     fetched=[name for name in fetched if not name.startswith(("file:", "data:"))])
 
 
+# Elements wider than the window, or reaching past its edges, outside a table's own scrolling box
+# (.scroll), and where the first screen's parts end.
+_LAYOUT = """
+const width = document.documentElement.clientWidth;
+const inScrollBox = e => e.parentElement && e.parentElement.closest('.scroll');
+const outside = Array.from(document.querySelectorAll('body *')).filter(e => {
+  if (inScrollBox(e)) return false;
+  const box = e.getBoundingClientRect();
+  return box.width > 0 && (box.right > width + 1 || box.left < -1);
+}).map(e => e.tagName.toLowerCase() + (e.id ? '#' + e.id : '') + (e.className ? '.' + e.className : ''));
+const bottom = selector => {
+  const e = document.querySelector(selector);
+  return e ? e.getBoundingClientRect().bottom : null;
+};
+const scrolling = Array.from(document.querySelectorAll('.scroll')).filter(e => e.scrollWidth > e.clientWidth + 1)
+  .map(e => { const t = e.querySelector('table'); return t && t.id ? t.id : (e.closest('section') || {}).id; });
+return {width: width, height: document.documentElement.clientHeight, scrolling: scrolling,
+        scroll_width: document.documentElement.scrollWidth, outside: outside,
+        answer: bottom('.answer'), picture: bottom('#forecast-glance img'),
+        numbers: bottom('#next-months'), caution: bottom('#caution-line')};
+"""
+
+
+@dataclass(frozen=True)
+class Layout:
+    """How a page lays out in a window of a given size, as the browser measured it (pixels)."""
+
+    width: int                  # the window's inner width
+    height: int
+    scroll_width: int           # the page's full width: more than `width` means a sideways scroll
+    outside: list[str]          # elements past the window's edges, outside a table's scrolling box
+    scrolling: list[str]        # tables wider than their box, which scroll inside it (by table id,
+    #                             else the id of their section)
+    bottoms: dict               # where the answer, the forecast picture, the numbers and the
+    #                             caution line end (None when the page has none)
+
+
+def measure_layout(path: Path, profile: Path, width: int, height: int) -> Layout:
+    """Open a local HTML file in headless Chromium in a window of width × height and return how
+    it lays out."""
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in (*FLAGS, f"--user-data-dir={profile}", "--hide-scrollbars"):
+        options.add_argument(flag)
+    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
+    try:
+        driver.set_window_rect(width=width, height=height)
+        driver.get(Path(path).resolve().as_uri())
+        # The window's outer size includes no frame in headless mode; set the inner one exactly.
+        inner = driver.execute_script("return [window.innerWidth, window.innerHeight];")
+        driver.set_window_rect(width=2 * width - inner[0], height=2 * height - inner[1])
+        found = driver.execute_script(_LAYOUT)
+    finally:
+        driver.quit()
+    return Layout(width=int(found["width"]), height=int(found["height"]),
+                  scroll_width=int(found["scroll_width"]), outside=list(found["outside"]),
+                  scrolling=list(found["scrolling"]),
+                  bottoms={key: found[key] for key in ("answer", "picture", "numbers", "caution")})
+
+
 class PageTables(HTMLParser):
     """Collect, per table id, its header and rows of (data-value or None, text) cells; and the
     ids of the sections and the headings, in order."""

@@ -143,3 +143,20 @@ LOWER_IS_BETTER = tuple(metric.name for metric in METRICS if metric.better == "l
 HIGHER_IS_BETTER = (*(metric.name for metric in METRICS if metric.better == "higher"), SKILL)
 # Every model's scores as the tables and the ledger hold them: rows scored, metrics, skill.
 SCORES = ("n", *METRIC_NAMES, SKILL)
+
+
+# The words the pages' tables head their columns with (a metric's own label otherwise); the
+# column names stay in the CSV files, the ledger and the tables' data attributes.
+COLUMN_LABELS = {
+    "model": "model", "n": "forecasts scored", SKILL: "skill against the mean",
+    "skill_vs_best_rule": "skill against the best rule", "p_value": "p", "p_holm": "p (Holm)",
+    "against_mean": "against the mean", "interval_score_95": "interval score, 95%",
+}
+
+
+def column_label(name: str) -> str:
+    """Return the words a table heads a column with: a metric's label (MAE, R²), else the
+    column's words (``skill_vs_mean`` → "skill against the mean"), else the name as given."""
+    if name in METRIC_BY_NAME:
+        return METRIC_BY_NAME[name].label
+    return COLUMN_LABELS.get(name, name)

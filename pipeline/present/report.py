@@ -19,11 +19,21 @@ import jinja2
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import BASELINE_KINDS, HIGHER_IS_BETTER, LOWER_IS_BETTER, SCORES, model_kind
+from pipeline.core.catalogue import (
+    BASELINE_KINDS,
+    HIGHER_IS_BETTER,
+    LOWER_IS_BETTER,
+    SCORES,
+    SKILL,
+    column_label,
+    model_kind,
+    model_label,
+)
 from pipeline.core.formatting import format_number, format_percent, markdown_table
 from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, trusted_method
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
+from pipeline.present.first_screen import first_screen_view
 from pipeline.present.run_files import RunFiles, load_run_files
 from pipeline.present.track_record import track_record_view
 
@@ -39,6 +49,19 @@ CAUTIONS = [
     "models differently, and a significance test is only as good as its assumptions.",
 ]
 COMPARISON = ["model", *SCORES, "interval_score_95", "skill_vs_best_rule", "p_holm", "against_mean"]
+# The comparison's first table: how far off, the skill and the test, led by the select_by metric;
+# the other measures follow in a second table, so neither needs a sideways scroll.
+HEADLINE = ["mae", "rmse", "mase", "bias", SKILL, "skill_vs_best_rule", "p_holm", "against_mean"]
+
+
+def comparison_parts(rows: list[dict], select_by: str) -> tuple[list[str], list[str]]:
+    """Return the columns of the comparison's two tables (each led by the model and the rows
+    scored): the headline measures, led by the select_by metric; and the others."""
+    present = [c for c in COMPARISON if any(c in r for r in rows)]
+    headline = [select_by, *[c for c in HEADLINE if c != select_by]]
+    first = ["model", "n", *[c for c in headline if c in present]]
+    rest = ["model", *[c for c in present if c not in first]]
+    return first, rest if len(rest) > 1 else []
 # With more series than this, pictures show a few series and the drivers are summarised
 # across series; the run folder's CSV files keep every row.
 MANY_SERIES = plots.MAX_PANELS
@@ -57,6 +80,8 @@ def page_environment() -> jinja2.Environment:
         undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     environment.filters["num"] = format_number
     environment.globals["zip"] = zip
+    environment.filters["column_label"] = column_label
+    environment.filters["model_label"] = model_label
     return environment
 
 
@@ -284,6 +309,16 @@ def _track_record(files: RunFiles) -> dict | None:
     return track
 
 
+def _drivers_picture(drivers: dict) -> plots.Figure | None:
+    """Return the Drivers section's picture: the spread of a model per series' coefficients
+    across series, else the recommended model's coefficients (None when it has none)."""
+    if drivers["per_series"]:
+        return plots.spread_picture(drivers["spread"], drivers["model"])
+    if drivers["terms"] is not None and len(drivers["terms"]):
+        return plots.coefficient_picture(drivers["terms"])
+    return None
+
+
 def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
@@ -334,6 +369,7 @@ def render_report(files: RunFiles | str | Path) -> str:
 
     forecast_picture = None
     forecast_table, method = stated_forecast(forecast, coverage, recommended)
+    first_screen = first_screen_view(history, forecast_table, method, recommended)
     forecast_rows = len(forecast_table) if forecast_table is not None else 0
     held_by = held_by_view(files.table("interval_coverage_by.csv"), recommended, method)
     if forecast_table is not None:
@@ -342,12 +378,7 @@ def render_report(files: RunFiles | str | Path) -> str:
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None
     drivers = drivers_view(coefficients, recommended, series_count)
-    if drivers["per_series"]:
-        coefficient_picture = plots.spread_picture(drivers["spread"], drivers["model"])
-    elif drivers["terms"] is not None and len(drivers["terms"]):
-        coefficient_picture = plots.coefficient_picture(drivers["terms"])
-    else:
-        coefficient_picture = None
+    coefficient_picture = _drivers_picture(drivers)
     ahead = ahead_view(metrics)
     return page_environment().get_template("report.html.j2").render(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
@@ -355,10 +386,10 @@ def render_report(files: RunFiles | str | Path) -> str:
         verdict=metrics["verdict"], beats=metrics.get("beats_baseline", False), recommended=recommended,
         recommended_skill=chosen.get("skill_vs_mean") if recommended != "mean_baseline" else None,
         recommended_p=chosen.get("p_holm", chosen.get("p_value")) if recommended != "mean_baseline" else None,
-        comparison=rows, comparison_columns=[c for c in COMPARISON if any(c in r for r in rows)],
+        comparison=rows, comparison_parts=comparison_parts(rows, metrics.get("select_by", "mae")),
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,
-        held_by=held_by, interval_warning=shortfall_warning(coverage, recommended, method),
+        held_by=held_by, first_screen=first_screen, interval_warning=shortfall_warning(coverage, recommended, method),
         forecast_rows=forecast_rows, per_series=per_series, track=_track_record(files),
         scenarios=shown_scenarios.head(TABLE_ROWS) if shown_scenarios is not None else None,
         scenario_rows=len(shown_scenarios) if shown_scenarios is not None else 0,

@@ -76,25 +76,32 @@ class _Cells(HTMLParser):
             self._table = None
 
 
-def test_the_comparison_table_holds_the_numbers_of_metrics_json(run_folder):
+def test_the_comparison_tables_hold_the_numbers_of_metrics_json(run_folder):
     html = (run_folder / "report.html").read_text(encoding="utf-8")
     metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
     cells = _Cells()
     cells.feed(html)
-    rows = cells.tables["comparison-table"]
-    header = re.search(r'<table id="comparison-table">\s*<thead><tr>(.*?)</tr>', html, re.S).group(1)
-    columns = re.findall(r"<th[^>]*>(.*?)</th>", header)
-    assert [row[0][1] for row in rows] == [m["model"] for m in metrics["models"]]
-    assert rows[0][0][1] == "mean_baseline"
-    for row, model in zip(rows, metrics["models"]):
-        for column, (value, _) in zip(columns, row):
-            if column in ("model", "against_mean"):
-                continue
-            expected = model[column]
-            if expected is None or (isinstance(expected, float) and math.isnan(expected)):
-                assert value in ("", "None", "nan")
-            else:
-                assert float(value) == expected, (model["model"], column)
+    seen = set()
+    for table_id in ("comparison-table", "comparison-more"):
+        rows = cells.tables[table_id]
+        header = re.search(rf'<table id="{table_id}">\s*<thead><tr>(.*?)</tr>', html, re.S).group(1)
+        columns = re.findall(r'<th[^>]*data-column="([^"]+)"', header)
+        models = re.findall(r'<tr data-model="([^"]+)">', html.split(f'<table id="{table_id}">')[1].split("</table>")[0])
+        assert models == [m["model"] for m in metrics["models"]]
+        assert models[0] == "mean_baseline" and rows[0][0][1] == "the mean baseline"   # the catalogue's words
+        for row, model in zip(rows, metrics["models"]):
+            for column, (value, _) in zip(columns, row):
+                if column in ("model", "against_mean"):
+                    continue
+                seen.add(column)
+                expected = model[column]
+                if expected is None or (isinstance(expected, float) and math.isnan(expected)):
+                    assert value in ("", "None", "nan")
+                else:
+                    assert float(value) == expected, (model["model"], column)
+    # every score the run compared is in one of the two tables
+    assert {"mae", "rmse", "mase", "mape", "smape", "wape", "r2", "bias", "skill_vs_mean",
+            "interval_score_95"} <= seen
 
 
 def answer_of(folder: Path) -> tuple[str, dict, dict]:
