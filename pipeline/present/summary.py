@@ -8,13 +8,15 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import SCORES
+from pipeline.core.catalogue import column_label, model_label
 from pipeline.core.intervals import shortfall_warning
 from pipeline.present.ahead import ahead_view
+from pipeline.present.first_screen import CAUTION, NEXT_MONTHS, all_series_total, next_months
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
     TABLE_ROWS,
+    comparison_parts,
     drivers_view,
     named,
     per_series_view,
@@ -36,6 +38,31 @@ def _diagnostics(files: RunFiles) -> pd.DataFrame | None:
     shown = found[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
     shown["flagged"] = np.where(shown["flagged"].astype(bool), "FLAG", "")
     return shown
+
+
+def comparison_tables(rows: list[dict], select_by: str) -> list[pd.DataFrame]:
+    """Return the comparison as the report shows it: two tables headed in words (the headline
+    measures led by select_by, then the others), models named by the catalogue."""
+    tables = []
+    for columns in comparison_parts(rows, select_by):
+        if columns:
+            frame = pd.DataFrame(rows).reindex(columns=columns)
+            frame["model"] = frame["model"].map(model_label)
+            tables.append(frame.rename(columns=column_label))
+    return tables
+
+
+def next_months_view(shown: pd.DataFrame | None, history: pd.DataFrame | None) -> dict | None:
+    """Return the report's first-screen numbers for the summary: the largest series' next months
+    with their intervals, and every series' total (None when there is nothing to forecast)."""
+    if shown is None or history is None:
+        return None
+    names = list(dict.fromkeys(shown["series"]))
+    totals = history.groupby("series", sort=False)["actual"].sum()
+    series = names[0] if len(names) == 1 else max(names, key=lambda name: totals.get(name, -np.inf))
+    total = all_series_total(shown) if len(names) > 1 else None
+    return {"series": series, "series_count": len(names), "table": next_months(shown, series),
+            "total": total, "months": NEXT_MONTHS, "caution": CAUTION}
 
 
 def render_summary(files: RunFiles) -> str:
@@ -66,7 +93,8 @@ def render_summary(files: RunFiles) -> str:
         select_by=metrics["select_by"], beats=metrics["beats_baseline"], ahead=ahead,
         tested=metrics.get("tested", True),
         validation=metrics["validation_text"],
-        comparison=pd.DataFrame(rows)[["model", *SCORES, "against_mean"]],
+        comparison=comparison_tables(rows, metrics["select_by"]),
+        next_months=next_months_view(shown, files.table("history.csv")),
         forecast=shown.head(TABLE_ROWS) if shown is not None else None,
         forecast_rows=len(shown) if shown is not None else 0, method=method,
         interval_warning=shortfall_warning(coverage, recommended, method),

@@ -32,15 +32,48 @@ def table_rows(text: str, heading: str) -> list[list[str]]:
     return rows
 
 
-def test_the_comparison_table_holds_metrics_json_as_format_number_writes_it(tiny_runs):
+# The comparison's headings in words (README): each column name and the words heading it.
+HEADINGS = {"model": "model", "n": "forecasts scored", "mae": "MAE", "rmse": "RMSE", "mape": "MAPE",
+            "smape": "sMAPE", "wape": "WAPE", "mase": "MASE", "r2": "R²", "bias": "bias",
+            "skill_vs_mean": "skill against the mean"}
+MODEL_WORDS = {"mean_baseline": "the mean baseline", "ols": "OLS", "calendar_month_mean": "calendar-month average",
+               "trailing_mean": "trailing 12-month mean", "last_value": "last value",
+               "seasonal_naive": "same month last year"}
+
+
+def markdown_tables_after(text: str, heading: str) -> list[tuple[list[str], list[list[str]]]]:
+    """Return the (header, body rows) of every Markdown table between a heading and the next."""
+    part = text.split(f"\n{heading}\n", 1)[1].split("\n## ", 1)[0]
+    tables, lines = [], part.splitlines()
+    for index, line in enumerate(lines):
+        if line.startswith("| ") and (index == 0 or not lines[index - 1].startswith("|")):
+            body = []
+            for row in lines[index + 2:]:
+                if not row.startswith("|"):
+                    break
+                body.append([cell.strip() for cell in row.strip("|").split(" | ")])
+            tables.append(([cell.strip() for cell in line.strip("|").split(" | ")], body))
+    return tables
+
+
+def test_the_comparison_tables_hold_metrics_json_as_format_number_writes_it(tiny_runs):
     folder = tiny_runs[2][1][0].folder.path
     summary = render_summary(load_run_files(folder))
     models = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))["models"]
     heading = next(line for line in summary.splitlines() if line.startswith("## Model comparison"))
-    rows = table_rows(summary, heading)
-    assert [row[0] for row in rows] == [m["model"] for m in models]
-    for row, model in zip(rows, models):
-        assert row[1:1 + len(SCORES)] == [format_number(model[score]) for score in SCORES]
+    tables = markdown_tables_after(summary, heading)
+    assert len(tables) == 2
+    words = {v: k for k, v in HEADINGS.items()}
+    seen = set()
+    for header, rows in tables:
+        assert [row[0] for row in rows] == [MODEL_WORDS[m["model"]] for m in models]
+        for position, label in enumerate(header):
+            if label not in words or label == "model":
+                continue
+            column = words[label]
+            seen.add(column)
+            assert [row[position] for row in rows] == [format_number(m[column]) for m in models], column
+    assert seen == set(SCORES)
 
 
 def test_the_answer_names_the_recommended_model_and_the_run(tiny_runs):
