@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number, format_percent
 from pipeline.present import plots
 
@@ -84,7 +85,7 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
                 axis.fill_between(months, low, high, color=plots.PALETTE[0], alpha=shade, linewidth=0,
                                   label=f"{level}% interval")
         axis.plot(months, ahead["forecast"], color=plots.PALETTE[0], marker="o", markersize=3,
-                  linewidth=1.4, label=f"forecast ({model})")
+                  linewidth=1.4, label=f"forecast ({model_label(model)})")
         axis.set_title(plots.as_text(series) if series is not None else "", fontsize=9)
         locator = matplotlib.dates.AutoDateLocator(maxticks=8)
         axis.xaxis.set_major_locator(locator)
@@ -95,7 +96,7 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
     total = float(shown["forecast"].sum())
     before = _a_year_earlier(history, series, list(shown["period"].astype(str)))
     alt = (f"Line chart of the last {len(past)} months of actuals{'' if series is None else f' of {series}'} "
-           f"and the {model} forecast for the next {len(ahead)} months, with its {method} 80% and 95% "
+           f"and the {model_label(model)} forecast for the next {len(ahead)} months, with its {method} 80% and 95% "
            f"intervals shaded. The next {len(shown)} months are forecast at {format_number(total)} in all")
     if before:
         alt += (f", {format_percent(total / before - 1)} against the same months a year earlier "

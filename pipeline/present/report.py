@@ -92,6 +92,7 @@ def render_markdown(template: str, **context) -> str:
                                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
     environment.filters["table"] = markdown_table
     environment.filters["num"] = format_number
+    environment.filters["model_label"] = model_label
     return environment.get_template(template).render(**context)
 
 

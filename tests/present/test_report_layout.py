@@ -22,6 +22,7 @@ import pipeline
 
 pytestmark = pytest.mark.skipif(not (CHROMIUM and CHROMEDRIVER), reason=NEEDS_A_BROWSER)
 SERIES = 50
+MODEL_WORDS = {"ols": "OLS", "ridge": "ridge"}   # the catalogue's words for the models the demo may recommend
 
 
 @pytest.fixture(scope="module")
@@ -103,7 +104,7 @@ def test_the_next_months_are_the_stated_forecast_of_the_largest_series(demo_repo
     forecast = pd.read_csv(folder / "forecast.csv", dtype={"period": str, "series": str})
     text = demo_report.read_text(encoding="utf-8")
     recommended = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))["recommended"]
-    assert f"{recommended}'s forecast with its " in text
+    assert f"{MODEL_WORDS[recommended]}'s forecast with its " in text
     own = forecast[(forecast["model"] == recommended) & (forecast["series"] == largest)].sort_values("period")
     assert f"The next 3 months: {largest}" in text
     assert list(shown["month"]) == list(own["period"].head(3))

@@ -81,7 +81,7 @@ def test_the_answer_names_the_recommended_model_and_the_run(tiny_runs):
     metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
     summary = render_summary(load_run_files(folder))
     assert summary.startswith(f"# tiny: forecast run {metrics['run_id']}\n")
-    assert f"Recommended model: **{metrics['recommended']}**" in summary
+    assert f"Recommended model: **{MODEL_WORDS[metrics['recommended']]}**" in summary   # the catalogue's words
     assert metrics["verdict"] in summary
 
 
