@@ -83,6 +83,7 @@ def render_markdown(template: str, **context) -> str:
                                      autoescape=False, undefined=jinja2.StrictUndefined,
                                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
     environment.filters["table"] = markdown_table
+    environment.filters["num"] = format_number
     return environment.get_template(template).render(**context)
 
 

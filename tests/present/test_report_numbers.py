@@ -6,7 +6,9 @@ holds a dash has the one-line footnote under it that says what the dash means
 from __future__ import annotations
 
 import html as html_text
+import json
 import re
+import shutil
 from pathlib import Path
 
 import pytest
@@ -14,6 +16,9 @@ from conftest import DEMO_SPEC, SHIPPED_DEMO_SPEC
 
 import pipeline
 from pipeline.core.formatting import DASH_NOTE, MISSING
+from pipeline.present.report import render_report
+from pipeline.present.run_files import load_run_files
+from pipeline.present.summary import render_summary
 
 NOT_A_VALUE = re.compile(r"\b(nan|None|NaN|NaT|inf)\b|n/a", re.IGNORECASE)
 TABLE = re.compile(r"<table\b.*?</table></div>(?P<note>\s*<p class=\"key dash-note\">(?P<text>[^<]*)</p>)?",
@@ -105,3 +110,15 @@ def test_report_p_values_have_two_significant_digits(shipped_run):
     assert shown[0] == MISSING                       # the mean baseline is not tested against itself
     assert all(P_CELL.match(cell) for cell in shown[1:]), shown
 
+
+
+def test_counts_in_the_words_of_the_pages_have_thousands_separators(holdout_run, tmp_path):
+    # Rule: a count reads in full with its thousands ("12,345"), in the words as in the tables.
+    folder = tmp_path / "run"
+    shutil.copytree(holdout_run, folder)
+    fingerprint = json.loads((folder / "fingerprint.json").read_text(encoding="utf-8"))
+    fingerprint.update(rows=12345, history_rows=12000, future_rows=345)
+    (folder / "fingerprint.json").write_text(json.dumps(fingerprint), encoding="utf-8")
+    files = load_run_files(folder)
+    assert "<li>rows: 12,345 (12,000 with actuals, 345 to forecast)</li>" in render_report(files)
+    assert "- rows: 12,345 (12,000 with actuals, 345 to forecast)" in render_summary(files)
