@@ -14,7 +14,7 @@ from pathlib import Path
 
 from pipeline.core.catalogue import METRIC_NAMES, SKILL
 from pipeline.core.errors import UserError
-from pipeline.core.formatting import format_number
+from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
 from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
@@ -108,13 +108,15 @@ PLOT_METRICS = [*METRIC_NAMES, SKILL]
 
 
 def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
-    cells = [[format_number(row[c]) for c in columns] for row in rows]
+    cells = [[format_cell(row[c], c) for c in columns] for row in rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
     right = set(align_right) if align_right is not None else set(columns[1:])
     print("  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip())
     for row in cells:
         print("  ".join(v.rjust(w) if c in right else v.ljust(w)
                         for c, v, w in zip(columns, row, widths)).rstrip())
+    if has_missing([[row[c] for c in columns] for row in rows]):
+        print(DASH_NOTE)
 
 
 def _command_run(args) -> int:
@@ -181,7 +183,7 @@ def _shown(table, columns: list[str]) -> list[dict]:
     for row in rows:
         for key, value in row.items():
             if isinstance(value, bool):
-                row[key] = "yes" if value else ""
+                row[key] = "yes" if value else "no"
             elif key in ("created", "forecast_created") and isinstance(value, str):
                 row[key] = value[:19].replace("T", " ")
             elif value is None:

@@ -374,3 +374,25 @@ def test_output_folder_that_is_a_file(tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
     code, out, err = call_main(["run", str(SPEC), "--output-folder", str(DATA)], capsys)
     assert code == 2 and "Traceback" not in err and err.count("\n") == 1, err
+
+
+def test_a_console_table_writes_p_values_metrics_and_dashes_as_the_pages_do(capsys):
+    # The rules of pipeline/core/formatting.py on the console: a p-value column to two
+    # significant digits ("< 0.001" below 0.001), a metric with its thousands, a missing
+    # value as a dash, and the line that says what the dash means under the table.
+    from pipeline.cli import _print_table
+    from pipeline.core.formatting import DASH_NOTE
+    _print_table([{"model": "mean_baseline", "mae": 12345.6, "p_holm": float("nan")},
+                  {"model": "ols", "mae": 1234.5, "p_holm": 0.003709},
+                  {"model": "drift", "mae": 0.5, "p_holm": 0.0002}], ["model", "mae", "p_holm"])
+    lines = capsys.readouterr().out.splitlines()
+    assert [line.split() for line in lines[1:4]] == [["mean_baseline", "12,346", "—"],
+                                                     ["ols", "1,235", "0.0037"],
+                                                     ["drift", "0.5", "<", "0.001"]]
+    assert lines[4] == DASH_NOTE
+
+
+def test_a_console_table_without_a_missing_value_has_no_footnote(capsys):
+    from pipeline.cli import _print_table
+    _print_table([{"model": "ols", "p_value": 0.5}], ["model", "p_value"])
+    assert capsys.readouterr().out.splitlines() == ["model  p_value", "ols       0.50"]

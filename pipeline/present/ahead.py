@@ -14,6 +14,7 @@ import math
 import pandas as pd
 
 from pipeline.core.catalogue import BASELINE, METRIC_BY_NAME
+from pipeline.core.formatting import MISSING
 from pipeline.features.future import RULE_WORDS
 from pipeline.spec import TIME_ORDERED  # only schemes with an origin estimate as the forecast does
 
@@ -37,7 +38,7 @@ def _cost_rows(metrics: dict, metric_name: str) -> list[dict]:
         ante, post = _finite(row.get(metric_name)), _finite(after[row["model"]])
         cost = (ante - post) / post if ante is not None and post else None
         rows.append({"model": row["model"], "ante": ante, "post": post, "cost": cost,
-                     "cost_text": f"{cost:+.0%}" if cost is not None else "n/a"})
+                     "cost_text": f"{cost:+.0%}" if cost is not None else MISSING})
     return rows
 
 

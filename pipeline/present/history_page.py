@@ -109,7 +109,9 @@ def changes_table(book: HistoryBook) -> pd.DataFrame:
         "spec keys": changes["spec"], "data": changes["data"],
         "planned drivers": changes["planned"], "recommended model": changes["recommended"]})
     # A kind of change no pair of runs had is left out of the table and said in words instead.
-    return table[[c for c in table.columns if c in ("from", "to") or table[c].astype(bool).any()]]
+    table = table[[c for c in table.columns if c in ("from", "to") or table[c].astype(bool).any()]]
+    # An empty cell would read as a dash, "no value"; a kind of change a pair did not have is "none".
+    return table.replace("", "none")
 
 
 UNCHANGED = {"spec keys": "no spec key changed", "planned drivers": "no planned driver changed "

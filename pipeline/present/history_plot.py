@@ -10,6 +10,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.errors import UserError
+from pipeline.core.formatting import format_signed
 
 # Reruns on the same last month are drawn to the right of the first run on it, spread over at
 # most this share of a month, so none reaches the next month's position.
@@ -161,7 +162,7 @@ def fan_figure(fan: pd.DataFrame, runs: pd.DataFrame, series_count: int):
            "run's last month of actuals, and a star at the month's actual where it has arrived.")
     if closing:
         alt += " First and last errors (forecast − actual): " + "; ".join(
-            f"{m} {first:+.4g} then {last:+.4g}" for m, first, last in closing) + "."
+            f"{m} {format_signed(first)} then {format_signed(last)}" for m, first, last in closing) + "."
     return figure, alt
 
 

@@ -24,6 +24,8 @@ import pandas as pd
 import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.formatting import format_number, format_signed
+
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
 BASELINE_COLOUR = "#7F7F7F"
@@ -154,7 +156,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     axis.legend(fontsize=7, frameon=False, ncol=3)
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
     alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
-           + (f"The largest error is {worst['mae']:.4g} ({worst['model']}, {label} {worst[key]})."
+           + (f"The largest error is {format_number(worst['mae'])} ({worst['model']}, {label} {worst[key]})."
               if worst is not None else ""))
     return inline_picture(figure, alt)
 
@@ -402,6 +404,6 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
         alt += "none of them has a range recorded"
     worst = int(np.nanargmax(np.abs(error))) if np.isfinite(error).any() else None
     if worst is not None:
-        alt += (f". The largest error was {error[worst]:+.4g} ({rows['period'].iloc[worst]}, "
+        alt += (f". The largest error was {format_signed(error[worst])} ({rows['period'].iloc[worst]}, "
                 f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
     return inline_picture(figure, alt)

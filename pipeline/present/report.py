@@ -29,7 +29,18 @@ from pipeline.core.catalogue import (
     model_kind,
     model_label,
 )
-from pipeline.core.formatting import format_number, format_percent, markdown_table
+from pipeline.core.formatting import (
+    DASH_NOTE,
+    MISSING,
+    format_cell,
+    format_number,
+    format_percent,
+    format_text,
+    has_missing,
+    markdown_table,
+    missing_in,
+    p_phrase,
+)
 from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, trusted_method
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
@@ -79,6 +90,12 @@ def page_environment() -> jinja2.Environment:
         autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
         undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     environment.filters["num"] = format_number
+    environment.filters["cell"] = format_cell
+    environment.filters["text"] = format_text
+    environment.filters["p_phrase"] = p_phrase
+    environment.filters["has_missing"] = has_missing
+    environment.filters["missing_in"] = missing_in
+    environment.globals["dash_meaning"] = DASH_NOTE
     environment.globals["zip"] = zip
     environment.filters["column_label"] = column_label
     environment.filters["model_label"] = model_label
@@ -281,7 +298,7 @@ def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | No
         counts = part.assign(group=part["group"].astype(str)).groupby("group")["n"].max().reindex(order)
         shown = pd.DataFrame({by: order})
         for level in wide.columns:
-            shown[f"{percent(level)}% held"] = [format_percent(v) if pd.notna(v) else "" for v in wide[level]]
+            shown[f"{percent(level)}% held"] = [format_percent(v) if pd.notna(v) else MISSING for v in wide[level]]
         shown["actuals"] = counts.to_numpy()
         tables.append(shown)
     return {"method": method, "tables": tables} if tables else None

@@ -35,8 +35,9 @@ def _diagnostics(files: RunFiles) -> pd.DataFrame | None:
     found = _some(files.table("diagnostics.csv"))
     if found is None:
         return None
-    shown = found[["check", "value", "p_value", "threshold", "flagged", "reading"]].copy()
-    shown["flagged"] = np.where(shown["flagged"].astype(bool), "FLAG", "")
+    shown = found[["check", "value", "p_value", "threshold", "reading"]].copy()
+    # A flagged check's reading starts "FLAG: ", as the report writes it.
+    shown["reading"] = np.where(found["flagged"].astype(bool), "FLAG: ", "") + shown["reading"].astype(str)
     return shown
 
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.formatting import format_number, format_percent, markdown_table
+from pipeline.core.formatting import MISSING, format_number, format_percent, format_signed, markdown_table
 from pipeline.review.track_record import summarise_realised
 
 
@@ -113,8 +113,8 @@ def _yes_no(values: pd.Series) -> list[str]:
 def _range(low: float, high: float) -> str:
     """Return a range of errors as the track record's warnings write it ("-1.9 to +1.9")."""
     if not (np.isfinite(low) and np.isfinite(high)):
-        return ""
-    return f"{low:+,.4g} to {high:+,.4g}"
+        return MISSING
+    return f"{format_signed(low)} to {format_signed(high)}"
 
 
 def track_record_view(track: dict | None, realised: pd.DataFrame | None, *, rows_shown: int,
@@ -145,7 +145,7 @@ def track_record_view(track: dict | None, realised: pd.DataFrame | None, *, rows
         "actual": shown["actual"].astype(float), "error": shown["error"].astype(float),
         "errors expected (95%)": [_range(low, high) for low, high in
                                   zip(shown["backtest_low_95"].astype(float), shown["backtest_high_95"].astype(float))],
-        "inside 80% · 95%": [f"{a} · {b}" if a or b else "" for a, b in
+        "inside 80% · 95%": [f"{a} · {b}" if a or b else MISSING for a, b in
                              zip(_yes_no(shown["inside_80"]), _yes_no(shown["inside_95"]))]})
     view["forecast_rows"] = len(own)
     table = summarise_realised(own)

@@ -14,7 +14,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.columns import PERIOD, SERIES
-from pipeline.core.formatting import format_percent
+from pipeline.core.formatting import format_percent, format_signed
 from pipeline.core.metrics import skill
 from pipeline.record.ledger.read import latest_realised, rows_of, specs_on_input, visible_runs
 from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading, spec_hash
@@ -218,7 +218,7 @@ def _actuals(spec: Spec, data: CheckedData) -> pd.DataFrame:
 
 
 def _signed(value: float) -> str:
-    return f"{value:+,.4g}"
+    return format_signed(value)
 
 
 def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:

@@ -11,6 +11,7 @@ import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, model_kind, model_label
+from pipeline.core.formatting import format_number, p_phrase
 
 
 def is_simple_rule(name: str) -> bool:
@@ -28,9 +29,8 @@ def adjusted_for(table: pd.DataFrame, column: str = "p_holm", what: str = "model
 
 
 def p_text(p: float) -> str:
-    if not np.isfinite(p):
-        return "p not available"
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+    """Return a p-value in words: "p = 0.037" (two significant digits), "p < 0.001"."""
+    return p_phrase(p)
 
 
 @dataclass(frozen=True)
@@ -50,7 +50,7 @@ def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str
     name = model_label(recommended)
     rule_name = model_label(best_rule)
     lower = metrics.skill(own, base)
-    said = f"({own:.4g} against {base:.4g})"
+    said = f"({format_number(own)} against {format_number(base)})"
     if recommended == BASELINE:
         return Answer(f"No model or simple rule beats the mean baseline out of sample on {metric}: "
                        "the plain average of each series' history is as good a forecast here.",
@@ -78,25 +78,26 @@ def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str
     no_rule = "; no simple rule beats the mean baseline" if best_rule == BASELINE else ""
     if refusal:
         versus = (f" and {over_rule:.0%} lower than the best simple rule's (the {rule_name}, "
-                  f"{rule:.4g})" if best_rule != BASELINE else "")
+                  f"{format_number(rule)})" if best_rule != BASELINE else "")
         return Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than the mean baseline's "
                        f"{said}{versus}{no_rule}.{untested}", False, False)
     if not beats:
-        versus = (f", nor than the best simple rule, the {rule_name} ({rule:.4g})"
+        versus = (f", nor than the best simple rule, the {rule_name} ({format_number(rule)})"
                   if best_rule != BASELINE else no_rule)
-        return Answer(f"{name} has the lowest {metric} ({own:.4g} against {base:.4g} for the mean "
-                       f"baseline), but it is no better than the mean baseline by the significance "
+        return Answer(f"{name} has the lowest {metric} ({format_number(own)} against "
+                       f"{format_number(base)} for the mean baseline), but it is no better than the mean baseline by the significance "
                        f"test ({against}): the difference may be luck{versus}.", False, False)
     if best_rule == BASELINE:
         return Answer(f"{name} beats the mean baseline out of sample ({against}): its {metric} is "
                        f"{lower:.1%} lower {said}{no_rule}.", True, True)
     if beats_rule:
         return Answer(f"{name} beats the mean baseline by {lower:.0%} and the best simple rule, the "
-                       f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({own:.4g} against "
-                       f"{base:.4g} and {rule:.4g}; {against}; against the rule {rule_said}).",
+                       f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({format_number(own)} "
+                       f"against {format_number(base)} and {format_number(rule)}; {against}; against the "
+                       f"rule {rule_said}).",
                        True, True)
     return Answer(f"{name} beats the mean baseline by {lower:.0%} on {metric} out of sample "
                    f"({against}), but not clearly the best simple rule, the {rule_name}: its "
-                   f"{metric} is {over_rule:.0%} lower than that rule's ({own:.4g} against "
-                   f"{rule:.4g}), which may be luck ({rule_said}). The simple rule forecasts "
-                   "nearly as well.", True, False)
+                   f"{metric} is {over_rule:.0%} lower than that rule's ({format_number(own)} "
+                   f"against {format_number(rule)}), which may be luck ({rule_said}). The simple rule "
+                   "forecasts nearly as well.", True, False)

@@ -21,6 +21,7 @@ import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
+from pipeline.core.formatting import format_number
 from pipeline.core.intervals import (
     backtest_intervals,
     closest_method,
@@ -411,7 +412,7 @@ def _hindsight_notes(spec: Spec, backtest: BacktestResult, table: pd.DataFrame,
         change = (f" ({(ante - post) / post:+.0%} for not knowing them)"
                   if post and metric in LOWER_IS_BETTER else "")
         notes.append(f"{model_label(row.model)}: had {named} been known ahead, its {metric.upper()} "
-                     f"would have been {post:.4g} rather than {ante:.4g}{change}; the comparison "
+                     f"would have been {format_number(post)} rather than {format_number(ante)}{change}; the comparison "
                      "and the intervals use the estimates, as the forecast must")
     return notes
 

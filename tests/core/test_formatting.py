@@ -1,7 +1,8 @@
 """How numbers and Markdown tables are written for people (pipeline/core/formatting.py).
 
-Expected strings are worked out by hand in the comments beside them (rounding to
-four significant digits, grouping digits in threes); the table's layout is the
+Each rule is stated in its test; expected strings are worked out by hand in the comments
+beside them (rounding half up to four significant digits, or two for a p-value, grouping
+digits in threes); the table's layout is the
 GitHub-flavoured Markdown pipe table, whose escape for a literal pipe in a cell is ``\\|``.
 """
 
@@ -13,12 +14,27 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.core.formatting import format_number, format_percent, markdown_table
+from pipeline.core.formatting import (
+    DASH_NOTE,
+    MISSING,
+    format_cell,
+    format_number,
+    format_p,
+    format_percent,
+    format_text,
+    is_missing,
+    is_p_column,
+    markdown_table,
+    p_phrase,
+)
 
 
-@pytest.mark.parametrize("missing", [None, "", float("nan"), np.nan, math.inf, -math.inf])
-def test_missing_and_non_finite_values_read_n_a(missing):
-    assert format_number(missing) == "n/a"
+@pytest.mark.parametrize("missing", [None, "", float("nan"), np.nan, math.inf, -math.inf, pd.NA, pd.NaT])
+def test_a_value_that_does_not_exist_reads_as_a_dash(missing):
+    # Rule: a missing value is a dash, never "nan", "None" or "n/a" on the page.
+    assert format_number(missing) == MISSING == "—"
+    assert format_p(missing) == "—"
+    assert is_missing(missing)
 
 
 @pytest.mark.parametrize(("value", "shown"), [
@@ -27,21 +43,40 @@ def test_missing_and_non_finite_values_read_n_a(missing):
     (1234567, "1,234,567"),       # 1 | 234 | 567
     (-9876543, "-9,876,543"),
     (0, "0"),
+    (np.int64(2256), "2,256"),    # a count from a pandas column reads as a Python int does
 ])
 def test_whole_numbers_are_written_in_full_with_thousands_separators(value, shown):
+    # Rule: integer counts in full, digits grouped in threes by commas.
     assert format_number(value) == shown
 
 
 @pytest.mark.parametrize(("value", "shown"), [
     (3.14159265, "3.142"),        # 3.14159… to four significant digits: 3.142
-    (1234.5678, "1235"),          # 1234.5678 → 1235 (the fifth digit, 5, rounds up)
     (0.123456, "0.1235"),         # four significant digits after the leading zero
     (-2.5, "-2.5"),               # no trailing zeros added
+    (456.0, "456"),               # nor a trailing ".0"
+    (151.54, "151.5"),            # 151.5|4 → 151.5
     (0.001, "0.001"),             # the smallest value not counted as tiny
     (0.0, "0"),
+    (99.996, "100"),              # 99.99|6 rounds up to 100.0, written without its zeros
 ])
 def test_fractions_keep_four_significant_digits(value, shown):
+    # Rule: metrics to four significant digits, no trailing zeros.
     assert format_number(value) == shown
+
+
+@pytest.mark.parametrize(("value", "shown"), [
+    (1234.5, "1,235"),            # four digits already: the half rounds up, 1235, grouped
+    (1234.5678, "1,235"),         # 1234.5678 → 1235 (the fifth digit, 5, rounds up)
+    (12345.6, "12,346"),          # five whole digits are all kept: 12345.6 → 12346, not 12350
+    (1234567.8, "1,234,568"),     # every whole digit kept, grouped: 1 | 234 | 568
+    (-98765.4, "-98,765"),
+    (999.96, "1,000"),            # 999.9|6 rounds to 1000.0, which reads as a thousand
+])
+def test_large_values_keep_every_whole_digit_with_separators_and_no_exponent(value, shown):
+    # Rule: from 1,000 up, never drop a whole digit, never write an exponent, separate thousands.
+    assert format_number(value) == shown
+    assert "e" not in shown
 
 
 @pytest.mark.parametrize(("value", "shown"), [
@@ -50,20 +85,43 @@ def test_fractions_keep_four_significant_digits(value, shown):
     (1.5e-9, "1.5e-09"),          # far below: scientific, never rounded away to 0
 ])
 def test_tiny_values_are_not_rounded_to_zero(value, shown):
+    # Rule: below 0.001, three significant digits, so a small number never reads as 0.
     assert format_number(value) == shown
     assert float(shown) != 0.0
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "format_number writes a float of 10,000 or more with f'{value:,.4g}', but the 'g' format "
-    "switches to scientific notation once the exponent reaches the precision (4), so the "
-    "thousands separator never appears: 12345.678 is written '1.235e+04', not '12,350'"))
-@pytest.mark.parametrize(("value", "shown"), [
-    (12345.678, "12,350"),        # four significant digits: 1234|5.678 → 12350, grouped
-    (1234567.8, "1,235,000"),     # 1234|567.8 → 1235000, grouped
+@pytest.mark.parametrize(("p", "shown"), [
+    (0.03709, "0.037"),           # two significant digits: 0.037|09 → 0.037
+    (0.003709, "0.0037"),         # 0.0037|09 → 0.0037
+    (0.5, "0.50"),                # the second digit is kept though it is 0
+    (1.0, "1.0"),
+    (0.05165, "0.052"),           # 0.051|65 rounds up to 0.052
+    (0.9996, "1.0"),              # 0.99|96 rounds up to 1.0: two digits, not "1.00"
+    (0.001, "0.0010"),            # 0.001 is not below 0.001
+    (0.000999, "< 0.001"),
+    (5.5e-210, "< 0.001"),        # never an exponent
+    (0.0, "< 0.001"),
 ])
-def test_large_floats_show_thousands_separators(value, shown):
-    assert format_number(value) == shown
+def test_p_values_have_two_significant_digits_and_read_below_0_001_below_it(p, shown):
+    # Rule: p-values to two significant digits, "< 0.001" below 0.001 (common practice in
+    # journals' reporting guidelines).
+    assert format_p(p) == shown
+
+
+def test_a_p_value_in_words():
+    assert p_phrase(0.003709) == "p = 0.0037"
+    assert p_phrase(0.0001) == "p < 0.001"
+    assert p_phrase(float("nan")) == "p not available"
+
+
+@pytest.mark.parametrize(("column", "is_p"), [
+    ("p_value", True), ("p_holm", True), ("p_best_rule_holm", True), ("p-value", True), ("p", True),
+    ("mape", False), ("share p < 0.05", False), ("skill_vs_mean", False),
+])
+def test_a_table_cell_is_a_p_value_by_its_column_name(column, is_p):
+    # Rule: a table column named p, p-value or p_… holds p-values; every other column metrics.
+    assert is_p_column(column) is is_p
+    assert format_cell(0.5, column) == ("0.50" if is_p else "0.5")
 
 
 def test_booleans_read_yes_and_no_not_one_and_zero():
@@ -74,25 +132,36 @@ def test_booleans_read_yes_and_no_not_one_and_zero():
 def test_numpy_floats_are_formatted_like_python_floats():
     # np.float64 is what a pandas column hands back; it must read as the same number.
     assert format_number(np.float64(3.14159265)) == format_number(3.14159265) == "3.142"
-    assert format_number(np.float64("nan")) == "n/a"
+    assert format_number(np.float64(12345.6)) == "12,346"
+    assert format_number(np.float64("nan")) == "—"
 
 
-def test_text_is_passed_through():
-    assert format_number("ols") == "ols"
+def test_text_is_passed_through_and_missing_text_is_a_dash():
+    assert format_number("ols") == format_text("ols") == "ols"
+    assert format_text(float("nan")) == format_text(None) == format_text("") == "—"
 
 
 def test_markdown_table_layout_and_cells():
     frame = pd.DataFrame({"model": ["ols", "mean_baseline"], "mae": [3.14159265, float("nan")],
-                          "n": [1234, 5]})
+                          "n": [1234, 5], "p_holm": [0.003709, float("nan")]})
     lines = markdown_table(frame).splitlines()
+    # Rule: a table with a dash says what it means in one line under it.
     assert lines == [
-        "| model | mae | n |",
-        "| --- | --- | --- |",
-        "| ols | 3.142 | 1,234 |",
-        "| mean_baseline | n/a | 5 |",
+        "| model | mae | n | p_holm |",
+        "| --- | --- | --- | --- |",
+        "| ols | 3.142 | 1,234 | 0.0037 |",
+        "| mean_baseline | — | 5 | — |",
+        "",
+        DASH_NOTE,
     ]
-    # every line has one more pipe than it has cells
-    assert all(line.count("|") == 4 for line in lines)
+    assert DASH_NOTE.startswith("— no value")
+    # every table line has one more pipe than it has cells
+    assert all(line.count("|") == 5 for line in lines[:4])
+
+
+def test_markdown_table_without_a_missing_value_has_no_footnote():
+    frame = pd.DataFrame({"model": ["ols"], "mae": [12345.6]})
+    assert markdown_table(frame).splitlines() == ["| model | mae |", "| --- | --- |", "| ols | 12,346 |"]
 
 
 def test_markdown_table_escapes_pipes_and_folds_newlines():

@@ -112,7 +112,7 @@ def test_the_changes_between_runs_name_the_revised_month_and_the_spec_key(page):
     assert changes["data"].iloc[0].startswith("actuals added for 2022-01 to 2022-03")
     assert changes["data"].iloc[1] == "actuals revised: 2022-02"
     assert "description" in changes["spec keys"].iloc[1] and "Revised February." in changes["spec keys"].iloc[1]
-    assert changes["spec keys"].iloc[0] == ""
+    assert changes["spec keys"].iloc[0] == "none"
 
 
 def test_realised_accuracy_equals_a_pandas_scoring_of_the_first_runs_forecasts(page):

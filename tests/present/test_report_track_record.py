@@ -26,7 +26,7 @@ import pytest
 from conftest import tiny_data, write_tiny_spec
 
 import pipeline
-from pipeline.core.formatting import format_percent
+from pipeline.core.formatting import format_percent, format_signed
 from pipeline.present import report
 from pipeline.present.pages import render_pages
 from pipeline.present.track_record import track_record_view
@@ -259,7 +259,7 @@ def test_the_picture_draws_the_realised_errors_and_its_text_states_how_many_fell
     alt = images[0]["alt"]
     assert alt.startswith("Dot chart of the realised errors (forecast − actual) of 12 forecast(s) from 2 earlier run(s)")
     assert f"{len(outside)} of {len(own)} fell outside it (" in alt
-    assert f"The largest error was {worst['error']:+.4g} ({worst['period']}, {worst['series']}" in alt
+    assert f"The largest error was {format_signed(worst['error'])} ({worst['period']}, {worst['series']}" in alt
     assert f"<figcaption>{alt}</figcaption>" in html.unescape(section(last))
 
 

@@ -19,6 +19,7 @@ from conftest import tiny_data, write_tiny_spec
 
 import pipeline
 from pipeline import cli
+from pipeline.core.formatting import DASH_NOTE, MISSING
 from pipeline.present.history_plot import RERUN_SPREAD, history_figure
 from pipeline.record import ledger
 from pipeline.review import history
@@ -48,13 +49,18 @@ def runs_in_ledger(path) -> pd.DataFrame:
 
 def printed(capsys, *args: str) -> dict[str, list[str]]:
     """Run `castline history ARGS` and return its printed sections (split at blank lines), by
-    their first word, each as its lines after the title and the column header."""
+    their first word, each as its lines after the title and the column header (and before the
+    line that says what a dash means, which a table with one has under it and no other has)."""
     capsys.readouterr()
     assert cli.main(["history", *args]) == 0
     sections = {}
     for block in capsys.readouterr().out.strip().split("\n\n"):
         lines = block.splitlines()
-        sections[lines[0].split()[0]] = lines[2:]
+        rows = lines[2:]
+        noted = bool(rows) and rows[-1] == DASH_NOTE
+        rows = rows[:-1] if noted else rows
+        assert noted == any(MISSING in row.split() for row in rows), block
+        sections[lines[0].split()[0]] = rows
     return sections
 
 

@@ -71,7 +71,8 @@ def test_the_answers_p_value_is_holm_adjusted_over_the_models_compared():
     # Each reading states the adjusted p-value, not the raw one.
     for model in [f"m{k}" for k in range(4)]:
         adjusted = table.loc[model, "p_holm"]
-        said = "p < 0.001" if adjusted < 0.001 else f"p = {adjusted:.3f}"
+        # two significant digits, trailing zeros kept ('#'), "p < 0.001" below 0.001
+        said = "p < 0.001" if adjusted < 0.001 else f"p = {adjusted:#.2g}"
         assert f"(Holm {said})" in table.loc[model, "against_mean"]
 
 
