@@ -101,7 +101,7 @@ def test_report_p_values_have_two_significant_digits(shipped_run):
     # two significant digits, trailing zeros kept (the '#' of the format), "p < 0.001" below 0.001
     assert words == ("p < 0.001" if p < 0.001 else f"p = {p:#.2g}")
     header = re.search(r'<table id="comparison-table">\s*<thead><tr>(.*?)</tr>', page, re.S).group(1)
-    columns = [re.sub(r"<[^>]+>", "", c) for c in re.findall(r"<th[^>]*>.*?</th>", header)]
+    columns = re.findall(r'<th[^>]*data-column="([^"]+)"', header)   # the column names behind the words
     body = re.search(r'<table id="comparison-table">.*?<tbody>(.*?)</tbody>', page, re.S).group(1)
     shown = []
     for row in re.findall(r"<tr[^>]*>(.*?)</tr>", body, re.S):
