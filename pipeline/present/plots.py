@@ -24,10 +24,13 @@ import pandas as pd
 import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.formatting import format_number
+
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
 BASELINE_COLOUR = "#7F7F7F"
 MAX_PANELS = 6
+MAX_LABELS = 12     # date or origin labels on an axis at most
 
 STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
@@ -83,8 +86,8 @@ def inline_picture(figure, alt: str) -> Figure:
     return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
 
 
-def _date_axis(axis) -> None:
-    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
+def _date_axis(axis, most: int = 7) -> None:
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=most)
     axis.xaxis.set_major_locator(locator)
     axis.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
 
@@ -107,32 +110,77 @@ def _nearest(predictions: pd.DataFrame) -> pd.DataFrame:
     return predictions.sort_values("horizon", kind="stable").drop_duplicates(["period", "series"])
 
 
+def _one_step_and_longest(predictions: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
+    """Return the predictions made one month ahead and those made the furthest ahead, each
+    with what they are; from a single origin (a holdout), its predictions as one part."""
+    steps = sorted(set(predictions["horizon"].astype(int)))
+    origins = list(dict.fromkeys(predictions["origin"]))
+    if len(origins) == 1 and len(steps) > 1:
+        return [(f"from {origins[0]}, {steps[0]} to {_ahead_text(steps[-1])}", predictions)]
+    return [(_ahead_text(h), predictions[predictions["horizon"].astype(int) == h])
+            for h in dict.fromkeys(steps[:1] + steps[-1:])]
+
+
+def _ahead_text(months: int) -> str:
+    return f"{months} month{'s' if months != 1 else ''} ahead"
+
+
+def _months_text(scored: list) -> str:
+    count = f"{len(scored):,} month{'s' if len(scored) != 1 else ''}"
+    return count + (f", {scored[0]} to {scored[-1]}" if len(scored) > 1 else f", {scored[0]}" if scored else "")
+
+
+def _least_error(rows: pd.DataFrame, what: str) -> str:
+    """Return the sentence naming the model whose predictions in ``rows`` erred least (MAE per
+    series and month), and the others' MAE."""
+    if not len(rows) or "actual" not in rows:
+        return ""
+    errors = (rows["prediction"] - rows["actual"]).abs().groupby(rows["model"], sort=False).mean().dropna()
+    if not len(errors):
+        return ""
+    ranked = errors.sort_values(kind="stable")
+    others = ", ".join(f"{m} {format_number(v)}" for m, v in ranked.iloc[1:].items())
+    return (f" {what[:1].upper() + what[1:]}, {ranked.index[0]} erred least of the models drawn: MAE "
+            f"{format_number(ranked.iloc[0])} per series and month" + (f", against {others}." if others else "."))
+
+
 @_styled
 def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure:
-    """Actuals and each model's out-of-sample predictions, summed over series; origins marked."""
+    """Actuals and each model's out-of-sample predictions, summed over series: those made one
+    month ahead and those made the furthest ahead in two panels side by side (one y axis), or
+    from a single origin one panel; the legend below them; the text names the model whose
+    one-month-ahead errors were smallest."""
     actual = history.groupby("period")["actual"].sum().sort_index()
-    figure, axis = _subplots(figsize=(8, 3.4))
-    axis.plot(_months(actual.index), actual.to_numpy(), color="#000000", linewidth=1.2, label="actual")
+    parts = _one_step_and_longest(predictions)
+    figure = matplotlib.figure.Figure(figsize=(8, 3.6), layout="constrained")
+    FigureCanvasAgg(figure)
+    axes = figure.subplots(1, len(parts), sharey=True, squeeze=False)[0]
     models = list(dict.fromkeys(predictions["model"]))
     colours = model_colours(models)
-    for model in models:
-        own = predictions[predictions["model"] == model]
-        # With overlapping origins, show each month's prediction from its nearest origin.
-        total = _nearest(own).groupby("period")["prediction"].sum().sort_index()
-        axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
-                  marker=".", markersize=3, linewidth=1, color=colours[model], label=model)
-    origins = [o for o in dict.fromkeys(predictions["origin"]) if str(o)[:4].isdigit()]
-    for origin in origins[-24:]:
-        axis.axvline(_months([origin])[0], color="#BBBBBB", linewidth=0.6, linestyle=":")
-    axis.set_ylabel("target, all series")
-    _date_axis(axis)
-    axis.legend(loc="upper left", fontsize=7, ncol=3, frameon=False)
+    spans = []
+    for axis, (what, rows) in zip(axes, parts):
+        scored = sorted(set(rows["period"]))
+        # Actuals from a year before the first month scored, so the level before it shows.
+        start = str(pd.Period(scored[0], freq="M") - 12) if scored else actual.index.min()
+        shown = actual[(actual.index >= start) & (actual.index <= (scored[-1] if scored else actual.index.max()))]
+        axis.plot(_months(shown.index), shown.to_numpy(), color="#000000", linewidth=1.2, label="actual")
+        for model in models:
+            total = rows[rows["model"] == model].groupby("period")["prediction"].sum().sort_index()
+            axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
+                      marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
+                      label=model)
+        axis.set_title(f"predicted {what}", fontsize=8)
+        _date_axis(axis, most=MAX_LABELS // len(parts))
+        spans.append(f"{what} ({_months_text(scored)})")
+    axes[0].set_ylabel("target, all series")
+    handles, labels = axes[0].get_legend_handles_labels()
+    figure.legend(handles, labels, loc="outside lower center", ncol=len(labels), fontsize=7, frameon=False)
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
-    alt = (f"Line chart of the actual target {summed} from {actual.index.min()} to "
-           f"{actual.index.max()}, with the out-of-sample predictions of {', '.join(models)} over "
-           f"the scored months; {len(origins)} forecast origins are marked by dotted vertical lines.")
-    return inline_picture(figure, alt)
+    alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
+           f"target {summed} (black) and the out-of-sample predictions of {', '.join(models)} summed "
+           f"alike, made {' and '.join(spans)}.")
+    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]))
 
 
 @_styled
@@ -146,12 +194,14 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
         positions = np.arange(len(own))
         axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
                   color=colours[model], label=model)
-        axis.set_xticks(positions)
-        axis.set_xticklabels([str(v) for v in own[key]], rotation=45 if len(own) > 8 else 0,
+        # At most MAX_LABELS labels: every k-th origin or horizon, the first one labelled.
+        every = -(-len(own) // MAX_LABELS)
+        axis.set_xticks(positions[::every])
+        axis.set_xticklabels([str(v) for v in own[key]][::every], rotation=45 if len(own) > 8 else 0,
                              fontsize=7, ha="right" if len(own) > 8 else "center")
     axis.set_xlabel(label)
     axis.set_ylabel("MAE")
-    axis.legend(fontsize=7, frameon=False, ncol=3)
+    axis.legend(fontsize=7, frameon=False, ncol=len(models), loc="lower left", bbox_to_anchor=(0, 1.0))
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
     alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
            + (f"The largest error is {worst['mae']:.4g} ({worst['model']}, {label} {worst[key]})."

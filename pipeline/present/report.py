@@ -272,6 +272,26 @@ def pictured_models(models: list[str], kept: tuple) -> list[str]:
     return [name for name in models if drawn(name)]
 
 
+def backtest_models(models: list[str], rows: list[dict], recommended: str, best_rule: str | None,
+                    select_by: str) -> list[str]:
+    """Return the models the backtest picture draws, in the order of ``models``: the recommended
+    one and the two references it is measured against (the mean baseline, the best simple
+    rule); when the recommended model is one of those, the fitted model that scored best too."""
+    chosen = {recommended, "mean_baseline", best_rule}
+    if recommended == "mean_baseline" or recommended == best_rule:
+        fitted = [m for m in models if m not in chosen and not _is_rule(m)]
+        best = featured_model(rows, [], fitted, recommended, select_by)
+        chosen.add(best)
+    return [m for m in models if m in chosen]
+
+
+def _is_rule(name: str) -> bool:
+    try:
+        return bool(model_kind(name).baseline)
+    except KeyError:
+        return False
+
+
 def _only(table: pd.DataFrame, models: list[str]) -> pd.DataFrame:
     return table[table["model"].isin(models)] if len(table) else table
 
@@ -282,6 +302,22 @@ def _track_record(files: RunFiles) -> dict | None:
     if track is not None and track["pictured"] is not None:
         track["picture"] = plots.track_record_picture(track["pictured"])
     return track
+
+
+def _backtest_pictures(metrics: dict, history: pd.DataFrame, predictions: pd.DataFrame,
+                       every_model: list[str]) -> list:
+    """Return the Backtest section's pictures: the predictions of the recommended model and its
+    two references, then the errors of every pictured model by origin and by months ahead."""
+    drawn = backtest_models(every_model, metrics["models"], metrics["recommended"], metrics.get("best_rule"),
+                            metrics.get("select_by", "mae"))
+    pictures = [plots.backtest_picture(history, predictions[predictions["model"].isin(drawn)])]
+    by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
+    by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
+    if len(by_origin) and by_origin["origin"].nunique() > 1:
+        pictures.append(plots.error_picture(by_origin, "origin", "origin"))
+    if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
+        pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
+    return pictures
 
 
 def render_report(files: RunFiles | str | Path) -> str:
@@ -309,13 +345,7 @@ def render_report(files: RunFiles | str | Path) -> str:
                                   (metrics.get("best_rule"), recommended))
     all_predictions = predictions
     predictions = predictions[predictions["model"].isin(every_model)]
-    backtest_pictures = [plots.backtest_picture(history, predictions)]
-    by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
-    by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
-    if len(by_origin) and by_origin["origin"].nunique() > 1:
-        backtest_pictures.append(plots.error_picture(by_origin, "origin", "origin"))
-    if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
-        backtest_pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
+    backtest_pictures = _backtest_pictures(metrics, history, predictions, every_model)
 
     series_count = len(data.get("series", [])) or metrics.get("series_count", 0)
     per_series = per_series_view(

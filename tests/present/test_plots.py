@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 from conftest import ROOT
 
+from pipeline.core.formatting import format_number
 from pipeline.present import plots
 from pipeline.present.history_plot import plot_history
 
@@ -34,6 +35,7 @@ def snapshot():
 before = snapshot()
 import numpy as np
 import pandas as pd
+from pipeline.core.formatting import format_number
 from pipeline.present import plots
 after_import = snapshot()
 history = pd.DataFrame({"period": [str(p) for p in pd.period_range("2020-01", periods=12, freq="M")],
@@ -96,3 +98,87 @@ def test_the_history_plot_leaves_rcparams_unchanged(tmp_path):
     plot_history(table, "mae", tmp_path / "mae.png", "MAE per run")
     assert (tmp_path / "mae.png").stat().st_size > 0
     assert _settings() == before
+
+
+# ---------------------------------------------------------------- the backtest picture
+# Invented data: two series over ten years, 61 rolling origins predicting 1 to 12 months
+# ahead; the references are pandas sums and numpy means of the same table.
+
+def _rolling_backtest(origins: int = 61, horizon: int = 12, seed: int = 3):
+    rng = np.random.default_rng(seed)
+    months = pd.period_range("2015-01", periods=120, freq="M")
+    history = pd.DataFrame([{"period": str(m), "series": s, "actual": 100 + 10 * k + rng.normal(0, 5)}
+                            for m in months for k, s in enumerate(["a", "b"])])
+    actual = history.set_index(["period", "series"])["actual"]
+    rows = []
+    first = len(months) - origins - horizon + 1
+    for origin in months[first - 1:first - 1 + origins]:
+        for h in range(1, horizon + 1):
+            period = str(origin + h)
+            for series in ("a", "b"):
+                truth = actual[(period, series)]
+                for model, noise in (("mean_baseline", 8.0), ("ols", 2.0), ("calendar_month_mean", 4.0)):
+                    rows.append({"origin": str(origin), "period": period, "horizon": h, "series": series,
+                                 "model": model, "actual": truth,
+                                 "prediction": truth + rng.normal(0, noise) + 0.3 * h})
+    return history, pd.DataFrame(rows)
+
+
+def _drawn(monkeypatch) -> list:
+    """Keep each figure a picture function hands to plots.inline_picture (drawn, to read back)."""
+    figures = []
+    real = plots.inline_picture
+
+    def keep(figure, alt):
+        picture = real(figure, alt)
+        figures.append(figure)
+        return picture
+    monkeypatch.setattr(plots, "inline_picture", keep)
+    return figures
+
+
+def _labels(axis) -> list[str]:
+    return [t.get_text() for t in axis.get_xticklabels() if t.get_text() and t.get_visible()]
+
+
+def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with_few_labels(monkeypatch):
+    history, predictions = _rolling_backtest()
+    figures = _drawn(monkeypatch)
+    picture = plots.backtest_picture(history, predictions)
+    (figure,) = figures
+    axes = figure.get_axes()
+    assert [a.get_title() for a in axes] == ["predicted 1 month ahead", "predicted 12 months ahead"]
+    assert axes[0].get_shared_y_axes().joined(axes[0], axes[1])
+    for axis, months in zip(axes, (1, 12)):
+        # Reference: the predictions made this many months ahead, summed over series with pandas.
+        own = predictions[(predictions["horizon"] == months) & (predictions["model"] == "ols")]
+        expected = own.groupby("period")["prediction"].sum().sort_index().to_numpy()
+        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == "ols"]
+        np.testing.assert_allclose(line.get_ydata(), expected, rtol=1e-12)
+    # At most 12 date labels over both panels (61 origins would be 61 labels).
+    assert sum(len(_labels(a)) for a in axes) <= 12
+    # The legend is the figure's, below the panels, clear of both plotting areas.
+    assert all(a.get_legend() is None for a in axes) and len(figure.legends) == 1
+    renderer = figure.canvas.get_renderer()
+    box = figure.legends[0].get_window_extent(renderer)
+    assert all(box.y1 <= a.get_window_extent(renderer).y0 for a in axes)
+    # The finding: the smallest one-month-ahead MAE, numpy's mean of absolute errors.
+    first = predictions[predictions["horizon"] == 1]
+    mae = {m: float(np.mean(np.abs(g["prediction"] - g["actual"]))) for m, g in first.groupby("model")}
+    best = min(mae, key=mae.get)
+    assert best == "ols"
+    assert f"1 month ahead, ols erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
+    assert "61 months" in picture.alt and "origins are marked" not in picture.alt
+
+
+def test_the_error_picture_by_origin_labels_at_most_12_of_61_origins(monkeypatch):
+    _, predictions = _rolling_backtest()
+    table = (predictions.assign(error=(predictions["prediction"] - predictions["actual"]).abs())
+             .groupby(["model", "origin"], sort=False)["error"].mean().rename("mae").reset_index())
+    assert table["origin"].nunique() == 61
+    figures = _drawn(monkeypatch)
+    plots.error_picture(table, "origin", "origin")
+    (axis,) = figures[0].get_axes()
+    labels = _labels(axis)
+    assert 6 <= len(labels) <= 12
+    assert labels[0] == table["origin"].iloc[0]

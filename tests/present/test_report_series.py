@@ -319,3 +319,17 @@ def test_the_pictures_draw_the_fitted_models_the_mean_and_the_rules_that_matter(
         "mean_baseline", "ols", "calendar_month_mean", "ridge", "someone_elses"]
     assert pictured_models(every, ("mean_baseline", "last_value")) == [
         "mean_baseline", "ols", "last_value", "ridge", "someone_elses"]
+
+
+def test_the_backtest_picture_draws_the_recommended_model_and_its_two_references():
+    # metrics.json's recommended model and best rule decide; a fitted model joins only when the
+    # mean baseline is recommended (then the fitted model with the best score, by select_by).
+    from pipeline.present.report import backtest_models
+    every = ["mean_baseline", "ols", "calendar_month_mean", "ridge", "lasso"]
+    rows = [{"model": "mean_baseline", "mae": 5.0}, {"model": "ols", "mae": 3.0},
+            {"model": "calendar_month_mean", "mae": 4.0}, {"model": "ridge", "mae": 2.5},
+            {"model": "lasso", "mae": 2.9}]
+    assert backtest_models(every, rows, "ols", "calendar_month_mean", "mae") == [
+        "mean_baseline", "ols", "calendar_month_mean"]
+    assert backtest_models(every, rows, "mean_baseline", "calendar_month_mean", "mae") == [
+        "mean_baseline", "calendar_month_mean", "ridge"]
