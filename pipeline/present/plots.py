@@ -259,47 +259,68 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     return inline_picture(figure, alt)
 
 
+def _clearest(names, middle, low, high, unit: str) -> str:
+    """Return the sentence naming the term whose interval lies furthest from zero for its width."""
+    width = (np.asarray(high, float) - np.asarray(low, float)) / 2
+    distance = np.where((width > 0) & np.isfinite(width), np.abs(np.asarray(middle, float)) / width, np.nan)
+    if not np.isfinite(distance).any():
+        return ""
+    at = int(np.nanargmax(distance))
+    return (f" Furthest from zero for its interval: {names[at]}, {format_number(float(middle[at]))}{unit} "
+            f"(95% interval {format_number(float(low[at]))} to {format_number(float(high[at]))}).")
+
+
 @_styled
-def coefficient_picture(terms: pd.DataFrame) -> Figure:
-    """Each driver's estimate with its 95% interval (the intercept left out)."""
-    shown = terms[terms["term"] != "intercept"].dropna(subset=["estimate"])
+def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target per unit of the driver",
+                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95")) -> Figure:
+    """Each driver's effect with its 95% interval (the intercept left out): ``columns`` name the
+    estimate and the interval's ends (for a log target, their percent changes), ``label`` what
+    they measure."""
+    middle_name, low_name, high_name = columns
+    shown = terms[terms["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
-    has_interval = {"low_95", "high_95"} <= set(shown.columns) and shown["low_95"].notna().any()
+    middle = shown[middle_name].to_numpy(float)
+    has_interval = {low_name, high_name} <= set(shown.columns) and shown[low_name].notna().any()
     if has_interval:
-        axis.errorbar(shown["estimate"], positions,
-                      xerr=[shown["estimate"] - shown["low_95"], shown["high_95"] - shown["estimate"]],
+        low, high = shown[low_name].to_numpy(float), shown[high_name].to_numpy(float)
+        axis.errorbar(middle, positions, xerr=[middle - low, high - middle],
                       fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
     else:
-        axis.plot(shown["estimate"], positions, "o", color=PALETTE[0], markersize=3)
+        axis.plot(middle, positions, "o", color=PALETTE[0], markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
-    axis.set_xlabel("effect on the target per unit of the driver" + (" (95% interval)" if has_interval else ""))
-    crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
-    alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
-           + (f"; {crossing} of the intervals include zero." if has_interval else "."))
+    axis.set_xlabel(as_text(label) + (" (95% interval)" if has_interval else ""))
+    crossing = int(((low < 0) & (high > 0)).sum()) if has_interval else 0
+    unit = "%" if label.startswith("%") else ""
+    alt = (f"Dot chart of {len(shown)} driver coefficients as the {label}"
+           + (" with 95% interval bars" if has_interval else "")
+           + (f"; {crossing} of the intervals include zero." if has_interval else ".")
+           + (_clearest(list(shown["term"]), middle, low, high, unit) if has_interval else ""))
     return inline_picture(figure, alt)
 
 
 @_styled
-def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
-    """Each term's median estimate across series with the quartiles as bars (intercept left out)."""
-    shown = spread[spread["term"] != "intercept"].dropna(subset=["median estimate"])
+def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the target per unit of the driver",
+                   columns: tuple[str, str, str] = ("median estimate", "25%", "75%")) -> Figure:
+    """Each term's median effect across series with the quartiles as bars (intercept left out):
+    ``columns`` name the median and quartiles (for a log target, of the percent changes)."""
+    middle_name, low_name, high_name = columns
+    shown = spread[spread["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
-    middle = shown["median estimate"].to_numpy(float)
-    axis.errorbar(middle, positions, xerr=[middle - shown["25%"].to_numpy(float),
-                                           shown["75%"].to_numpy(float) - middle],
+    middle = shown[middle_name].to_numpy(float)
+    low, high = shown[low_name].to_numpy(float), shown[high_name].to_numpy(float)
+    axis.errorbar(middle, positions, xerr=[middle - low, high - middle],
                   fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
-    axis.set_xlabel("effect on the target per unit of the driver: median across series, "
-                    "bars from the 25% to the 75% quantile")
-    crossing = int(((shown["25%"] < 0) & (shown["75%"] > 0)).sum())
-    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series: the median "
-           f"estimate with bars over the middle half of the series; for {crossing} of the "
+    axis.set_xlabel(as_text(label) + ": median across series, bars from the 25% to the 75% quantile")
+    crossing = int(((low < 0) & (high > 0)).sum())
+    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series as the {label}: "
+           f"the median with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
     return inline_picture(figure, alt)
 

@@ -94,28 +94,73 @@ def _effect_group(term: str) -> str:
     return term.split(" × series: ", 1)[0] + " × series (each series' own slope)"
 
 
-def spread_across_series(terms: pd.DataFrame, groups: pd.Series) -> pd.DataFrame:
+LOG_KINDS = ("log", "log1p")
+PERCENT = "% change per unit"   # 100·(exp(b) − 1): a coefficient of a log target as a percent change
+
+
+def percent_change(estimate) -> np.ndarray:
+    """Return coefficients of a model of log(target) as percent changes of the target per unit of
+    their term: 100·(exp(b) − 1) (a coefficient of log1p(target): of 1 + target)."""
+    return 100 * np.expm1(np.asarray(estimate, dtype=float))
+
+
+def effect_label(kind: str | None, target: str) -> str:
+    """Return what a coefficient of a model fitted on the target transformed by ``kind`` measures."""
+    target = target or "the target"
+    if kind == "log":
+        return f"% change in {target} per unit of the driver"
+    if kind == "log1p":
+        return f"% change in 1 + {target} per unit of the driver"
+    return "effect on the target per unit of the driver"
+
+
+def spread_across_series(terms: pd.DataFrame, groups: pd.Series, percent: bool = False) -> pd.DataFrame:
     """Return, per group of coefficients (in order of first appearance), how many series have an
-    estimate, the median estimate and its quartiles, and the share of those with p < 0.05."""
+    estimate, the median estimate and its quartiles, and the share of those with p < 0.05; with
+    ``percent`` (a log target) also the median and quartiles of the percent changes."""
     frame = pd.DataFrame({"term": groups.to_numpy(), "estimate": terms["estimate"].to_numpy(float),
                           "p": terms["p_value"].to_numpy(float) if "p_value" in terms
                           else np.full(len(terms), np.nan)})
     frame = frame[np.isfinite(frame["estimate"])]
+    frame["percent"] = percent_change(frame["estimate"])
     grouped = frame.groupby("term", sort=False)
-    table = pd.DataFrame({
-        "series": grouped["estimate"].size(), "median estimate": grouped["estimate"].median(),
+    columns = {"series": grouped["estimate"].size()}
+    if percent:
+        columns.update({"median " + PERCENT: grouped["percent"].median(),
+                        "% 25%": grouped["percent"].quantile(0.25), "% 75%": grouped["percent"].quantile(0.75)})
+    columns.update({
+        "median estimate": grouped["estimate"].median(),
         "25%": grouped["estimate"].quantile(0.25), "75%": grouped["estimate"].quantile(0.75),
         f"share p < {SIGNIFICANT:g}": grouped["p"].apply(
             lambda p: float((p[np.isfinite(p)] < SIGNIFICANT).mean()) if np.isfinite(p).any()
             else float("nan")),
-    }).reset_index()
-    return table
+    })
+    return pd.DataFrame(columns).reset_index()
 
 
-def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int) -> dict:
+def _with_percent(terms: pd.DataFrame) -> pd.DataFrame:
+    """Return the terms of a model of a log target with their percent changes (and those of the
+    95% interval's ends) after the term; the intercept is a level, not a change, and has none."""
+    shown = terms.copy()
+    level = shown["term"].astype(str) == "intercept"
+    at = list(shown.columns).index("term") + 1
+    for offset, (name, source) in enumerate(((PERCENT, "estimate"), ("% from (95%)", "low_95"),
+                                             ("% to (95%)", "high_95"))):
+        if source in shown:
+            values = percent_change(shown[source])
+            values[level.to_numpy()] = np.nan
+            shown.insert(at + offset, name, values)
+    return shown
+
+
+def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int,
+                 scale: tuple[str, dict[str, str]] = ("", {})) -> dict:
     """Return what the Drivers section shows: the linear model described, its terms (at most
-    TABLE_ROWS), and with many series a summary across series instead of a row per series."""
-    view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": ""}
+    TABLE_ROWS), and with many series a summary across series instead of a row per series.
+    ``scale`` is the target's name and each model's target transform (RunFiles.target_transforms):
+    for a model of log(target) the terms carry their percent changes too."""
+    view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": "",
+            "label": effect_label(None, "")}
     if coefficients is None or not len(coefficients):
         return view
     models = set(coefficients["model"])
@@ -126,25 +171,34 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
         return view
     terms = coefficients[coefficients["model"] == linear].drop(columns=["model"]).dropna(axis=1, how="all")
     kind = terms["standard_errors"].iloc[0] if "standard_errors" in terms else None
+    target, transforms = scale
+    logged = transforms.get(linear) in LOG_KINDS
     view["model"] = linear
+    view["label"] = effect_label(transforms.get(linear), target)
     view["note"] = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
-                    + "; the 95% interval is for each coefficient.")
+                    + "; the 95% interval is for each coefficient."
+                    + (f" The model is of {transforms[linear]}({target or 'the target'}): an estimate "
+                       f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
+                       f"{view['label']} (all else equal)." if logged else ""))
     many = series_count > MANY_SERIES
     if many and "series" in terms and terms["series"].notna().any():
         # One fit per series: a row per series and term would bury the drivers.
-        view.update(per_series=True, spread=spread_across_series(terms, terms["term"]), terms=None,
+        view.update(per_series=True, spread=spread_across_series(terms, terms["term"], logged), terms=None,
                     note=f"{linear} fitted on each series' own history: per term, the median "
                          "estimate across series, its quartiles, and the share of series whose "
                          f"p-value is below {SIGNIFICANT:g}; coefficients.csv holds every series' "
-                         "row.")
+                         "row." + (f" The model is of {transforms[linear]}({target or 'the target'}): "
+                                   f"the {PERCENT} columns are 100·(exp(estimate) − 1), the "
+                                   f"{view['label']}." if logged else ""))
         return view
     if many:
         effects = _is_series_effect(terms["term"])
         if effects.any():
-            view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group))
+            view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group),
+                                                  logged)
             terms = terms[~effects]
     view["rows"] = len(terms)
-    view["terms"] = terms.head(TABLE_ROWS)
+    view["terms"] = (_with_percent(terms) if logged else terms).head(TABLE_ROWS)
     return view
 
 
@@ -371,11 +425,15 @@ def render_report(files: RunFiles | str | Path) -> str:
         forecast_table = forecast_table.head(TABLE_ROWS)
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None
-    drivers = drivers_view(coefficients, recommended, series_count)
+    drivers = drivers_view(coefficients, recommended, series_count, files.target_transforms())
     if drivers["per_series"]:
-        coefficient_picture = plots.spread_picture(drivers["spread"], drivers["model"])
+        coefficient_picture = plots.spread_picture(
+            drivers["spread"], drivers["model"], drivers["label"],
+            ("median " + PERCENT, "% 25%", "% 75%") if "% 25%" in drivers["spread"] else ("median estimate", "25%", "75%"))
     elif drivers["terms"] is not None and len(drivers["terms"]):
-        coefficient_picture = plots.coefficient_picture(drivers["terms"])
+        coefficient_picture = plots.coefficient_picture(
+            drivers["terms"], drivers["label"],
+            (PERCENT, "% from (95%)", "% to (95%)") if PERCENT in drivers["terms"] else ("estimate", "low_95", "high_95"))
     else:
         coefficient_picture = None
     ahead = ahead_view(metrics)
