@@ -326,6 +326,23 @@ def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the
 
 
 @_styled
+def levels_picture(levels: dict, model: str) -> Figure:
+    """The series' own levels in a model over all series (report.levels_summary) as a histogram,
+    the median marked: with many series a distribution reads where a list of rows would not."""
+    values = np.asarray(levels["values"], float)
+    figure, axis = _subplots(figsize=(8, 2.4))
+    axis.set_axisbelow(True)
+    axis.hist(values, bins=int(np.clip(len(values) // 3, 5, 30)), color=PALETTE[0], edgecolor="#FFFFFF", linewidth=0.5)
+    axis.axvline(levels["median"], color=PALETTE[1], linewidth=1.2, label="median")
+    axis.axvline(0, color="#000000", linewidth=0.8, label="as the reference series")
+    axis.set_xlabel(as_text(levels["label"]) + ", each series' own level against the reference series")
+    axis.set_ylabel("series")
+    axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
+    alt = f"Histogram of {model}: {levels['text']}"
+    return inline_picture(figure, alt)
+
+
+@_styled
 def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str]) -> Figure:
     """Per-series skill against the mean baseline, one outline per model, skill below −1 in
     the leftmost bar (skill is at most 1, so the other end needs no clipping)."""

@@ -91,7 +91,43 @@ def _is_series_effect(terms: pd.Series) -> pd.Series:
 def _effect_group(term: str) -> str:
     if term.startswith("series: "):
         return "series level (each series against the first)"
+    if " × series: " not in term:   # a 0/1 column of a column that names the series
+        return term.split(": ", 1)[0] + ": series level (each series against the reference level)"
     return term.split(" × series: ", 1)[0] + " × series (each series' own slope)"
+
+
+def series_levels(terms: pd.Series, columns=(), names=()) -> pd.Series:
+    """Return which terms are one series' own level: "series: NAME", or a 0/1 column of a
+    column that names the series ("region: North" when region names the series; with several
+    such columns a series is named "A / B", fingerprint.json's series)."""
+    text = terms.astype(str)
+    found = text.str.startswith("series: ")
+    parts = [str(name).split(" / ") for name in names]
+    for at, column in enumerate(columns):
+        values = {part[at] for part in parts if len(part) == len(columns)}
+        found |= text.isin({f"{column}: {value}" for value in values})
+    return found
+
+
+def levels_summary(terms: pd.DataFrame, logged: bool, label: str) -> dict | None:
+    """Return what the Drivers section says of the series' own levels (terms that
+    ``series_levels`` finds): how many, their median and range with the series at each end, in
+    the section's scale (percent changes for a log target)."""
+    names = terms["term"].astype(str).str.split(": ", n=1).str[1].to_numpy()
+    values = percent_change(terms["estimate"]) if logged else terms["estimate"].to_numpy(float)
+    kept = np.isfinite(values)
+    names, values = names[kept], values[kept]
+    if not len(values):
+        return None
+    low, high = int(np.argmin(values)), int(np.argmax(values))
+    unit = "%" if logged else ""
+    text = (f"{len(values):,} series levels, each against the reference series, as the "
+            f"{label.replace(' per unit of the driver', '')}: median {format_number(float(np.median(values)))}{unit}, "
+            f"from {format_number(float(values[low]))}{unit} ({names[low]}) to "
+            f"{format_number(float(values[high]))}{unit} ({names[high]}); {int((values > 0).sum()):,} above zero.")
+    return {"count": len(values), "values": values, "names": names, "median": float(np.median(values)),
+            "low": float(values[low]), "high": float(values[high]), "text": text,
+            "label": label.replace(" per unit of the driver", "")}
 
 
 LOG_KINDS = ("log", "log1p")
@@ -154,13 +190,15 @@ def _with_percent(terms: pd.DataFrame) -> pd.DataFrame:
 
 
 def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int,
-                 scale: tuple[str, dict[str, str]] = ("", {})) -> dict:
+                 scale: tuple[str, dict[str, str]] = ("", {}), series: tuple = ((), ())) -> dict:
     """Return what the Drivers section shows: the linear model described, its terms (at most
     TABLE_ROWS), and with many series a summary across series instead of a row per series.
     ``scale`` is the target's name and each model's target transform (RunFiles.target_transforms):
-    for a model of log(target) the terms carry their percent changes too."""
+    for a model of log(target) the terms carry their percent changes too. ``series`` is the
+    columns that name a series and the series' names: with many series, each series' own level
+    (``series_levels``) is summarised (``levels_summary``), never listed."""
     view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": "",
-            "label": effect_label(None, "")}
+            "label": effect_label(None, ""), "levels": None}
     if coefficients is None or not len(coefficients):
         return view
     models = set(coefficients["model"])
@@ -192,7 +230,10 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
                                    f"{view['label']}." if logged else ""))
         return view
     if many:
-        effects = _is_series_effect(terms["term"])
+        levels = series_levels(terms["term"], *series)
+        effects = _is_series_effect(terms["term"]) | levels
+        if levels.any():
+            view["levels"] = levels_summary(terms[levels], logged, view["label"])
         if effects.any():
             view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group),
                                                   logged)
@@ -425,7 +466,10 @@ def render_report(files: RunFiles | str | Path) -> str:
         forecast_table = forecast_table.head(TABLE_ROWS)
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None
-    drivers = drivers_view(coefficients, recommended, series_count, files.target_transforms())
+    drivers = drivers_view(coefficients, recommended, series_count, files.target_transforms(),
+                           (files.series_columns(), data.get("series", [])))
+    if drivers["levels"] is not None:
+        drivers["levels"]["picture"] = plots.levels_picture(drivers["levels"], drivers["model"])
     if drivers["per_series"]:
         coefficient_picture = plots.spread_picture(
             drivers["spread"], drivers["model"], drivers["label"],
