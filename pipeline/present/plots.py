@@ -1,7 +1,7 @@
 """The report's pictures: matplotlib, non-interactive, deterministic, colour-blind-safe.
 
-Each function returns a Figure value: PNG bytes as a data URI plus the text
-that stands in for the picture for a reader who cannot see it.
+Each function returns a Figure value: the picture as a data URI (SVG, or PNG where
+that is smaller) plus the text that stands in for it for a reader who cannot see it.
 
 Pictures are drawn on figures of their own with the Agg canvas, never through
 pyplot, and in the report's style (``STYLE``) set only while each is drawn: importing
@@ -14,6 +14,7 @@ from __future__ import annotations
 import base64
 import functools
 import io
+import re
 from dataclasses import dataclass
 
 import matplotlib
@@ -35,7 +36,7 @@ MAX_LABELS = 12     # date or origin labels on an axis at most
 STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
     "axes.grid": True, "grid.color": "#DDDDDD", "grid.linewidth": 0.6,
-    "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline",
+    "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline", "svg.fonttype": "none",
 }
 
 
@@ -76,14 +77,27 @@ def model_colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def inline_picture(figure, alt: str) -> Figure:
-    """Return a drawn figure as an inline PNG picture (a data URI) with its text alternative."""
+def picture_bytes(figure, kind: str) -> bytes:
+    """Return a drawn figure saved as 'png' or 'svg', without a timestamp or software tag, so
+    the same run draws the same bytes (the SVG's ids come from STYLE's svg.hashsalt)."""
     buffer = io.BytesIO()
+    metadata = {"Software": None} if kind == "png" else {"Date": None, "Creator": None}
+    figure.savefig(buffer, format=kind, metadata=metadata)
+    if kind == "png":
+        return buffer.getvalue()
+    # The SVG's indentation only costs bytes: each text is an element of its own line.
+    return re.sub(rb"\n[ \t]+", b"\n", buffer.getvalue())
+
+
+def inline_picture(figure, alt: str) -> Figure:
+    """Return a drawn figure as an inline picture (a data URI) with its text alternative: SVG,
+    sharp at any size, unless the PNG is smaller (a scatter of thousands of points is)."""
     if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
         figure.tight_layout()
-    # No timestamp or software tag in the file, so the same run draws the same bytes.
-    figure.savefig(buffer, format="png", metadata={"Software": None})
-    return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
+    choices = [(len(data), kind, data) for kind, data in
+               (("svg+xml", picture_bytes(figure, "svg")), ("png", picture_bytes(figure, "png")))]
+    _, kind, data = min(choices)
+    return Figure(f"data:image/{kind};base64," + base64.b64encode(data).decode("ascii"), alt)
 
 
 def _date_axis(axis, most: int = 7) -> None:

@@ -10,10 +10,12 @@ backend); the data drawn are a few invented numbers.
 
 from __future__ import annotations
 
+import base64
 import json
 import os
 import subprocess
 import sys
+from xml.etree import ElementTree
 
 import matplotlib
 import numpy as np
@@ -182,3 +184,41 @@ def test_the_error_picture_by_origin_labels_at_most_12_of_61_origins(monkeypatch
     labels = _labels(axis)
     assert 6 <= len(labels) <= 12
     assert labels[0] == table["origin"].iloc[0]
+
+
+# ---------------------------------------------------------------- SVG or PNG
+def _decoded(uri: str) -> tuple[str, bytes]:
+    kind, data = uri.split(";base64,", 1)
+    return kind.removeprefix("data:image/"), base64.b64decode(data)
+
+
+def test_a_line_chart_is_inlined_as_well_formed_svg_of_fewer_bytes_than_its_png(monkeypatch):
+    history, predictions = _rolling_backtest(origins=13)
+    figures = _drawn(monkeypatch)
+    picture = plots.backtest_picture(history, predictions)
+    kind, data = _decoded(picture.uri)
+    assert kind == "svg+xml"
+    root = ElementTree.fromstring(data)   # reference: the standard library's XML parser
+    assert root.tag == "{http://www.w3.org/2000/svg}svg"
+    assert b"<dc:date>" not in data   # no timestamp in the file
+    # The choice: the same figure as PNG is larger.
+    with matplotlib.rc_context(plots.STYLE):
+        assert len(data) < len(plots.picture_bytes(figures[0], "png"))
+    # The same picture drawn again is the same bytes (svg.hashsalt fixes the SVG's ids).
+    assert plots.backtest_picture(history, predictions).uri == picture.uri
+
+
+def test_a_scatter_of_thousands_of_points_stays_png_when_that_is_smaller(monkeypatch):
+    rng = np.random.default_rng(8)
+    residuals = pd.DataFrame({"period": np.repeat([str(p) for p in pd.period_range("2015-01", periods=60,
+                                                                                 freq="M")], 100),
+                              "fitted": rng.normal(100, 20, 6000), "residual": rng.normal(0, 5, 6000)})
+    figures = _drawn(monkeypatch)
+    pictures = plots.residual_pictures(residuals)
+    for picture, figure in zip(pictures, figures):
+        kind, data = _decoded(picture.uri)
+        with matplotlib.rc_context(plots.STYLE):   # saved again as the picture was: in the report's style
+            sizes = {"png": len(plots.picture_bytes(figure, "png")),
+                     "svg+xml": len(plots.picture_bytes(figure, "svg"))}
+        assert len(data) == min(sizes.values()) and kind == min(sizes, key=sizes.get)
+    assert _decoded(pictures[1].uri)[0] == "png"   # 6,000 points: each a path in SVG

@@ -8,6 +8,7 @@ rolling origins for an answer with a p-value.
 
 from __future__ import annotations
 
+import base64
 import json
 import math
 import re
@@ -199,3 +200,22 @@ def test_the_backtest_picture_states_whose_errors_were_smallest_from_the_single_
             f"MAE {format_number(mae[best])} per series and month") in alt
     others = {row["model"] for row in metrics["models"]} - drawn
     assert others and not any(m in alt for m in others)
+
+
+def test_pictures_as_svg_where_smaller_make_the_report_smaller_than_all_png(run_folder, monkeypatch):
+    # Reference: the same report rendered again from the folder with every picture a PNG (as
+    # castline drew them before choosing per picture).
+    from pipeline.present import plots
+    from pipeline.present.report import render_report
+    chosen = render_report(run_folder)
+    assert "data:image/svg+xml;base64," in chosen
+
+    def png_only(figure, alt):
+        if figure.get_layout_engine() is None:
+            figure.tight_layout()
+        data = plots.picture_bytes(figure, "png")
+        return plots.Figure("data:image/png;base64," + base64.b64encode(data).decode("ascii"), alt)
+    monkeypatch.setattr(plots, "inline_picture", png_only)
+    every_png = render_report(run_folder)
+    assert "data:image/svg+xml" not in every_png
+    assert len(chosen.encode()) < 0.9 * len(every_png.encode())
