@@ -223,6 +223,23 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     return inline_picture(figure, alt)
 
 
+def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list) -> str:
+    """Return the sentence comparing each pictured series' forecast, summed over the months
+    ahead, with its actuals in the same months a year earlier (where every one is known)."""
+    parts = []
+    actual = history.set_index(["series", "period"])["actual"]
+    for name in series:
+        ahead = forecast[forecast["series"] == name]
+        earlier = [(name, str(pd.Period(p, freq="M") - 12)) for p in ahead["period"]]
+        if not len(ahead) or not all(key in actual.index for key in earlier):
+            continue
+        before = float(actual.loc[earlier].sum())
+        if before != 0 and np.isfinite(before):
+            parts.append(f"{name} {float(ahead['forecast'].sum()) / before - 1:+.1%}")
+    return (" Against the same months a year earlier, the forecast is: " + ", ".join(parts) + "."
+            if parts else "")
+
+
 @_styled
 def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, method: str,
                      scenarios: pd.DataFrame | None) -> Figure:
@@ -269,7 +286,8 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     alt = (f"{len(series)} small line charts, {which}: the last "
            f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
-           + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else "."))
+           + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
+           + _against_last_year(history, own, series))
     return inline_picture(figure, alt)
 
 
@@ -420,6 +438,19 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     return inline_picture(figure, alt)
 
 
+def _spread_by_level(residuals: pd.DataFrame) -> str:
+    """Return the sentence comparing the residuals' spread above and below the median fitted value."""
+    fitted, residual = residuals["fitted"].to_numpy(float), residuals["residual"].to_numpy(float)
+    kept = np.isfinite(fitted) & np.isfinite(residual)
+    fitted, residual = fitted[kept], residual[kept]
+    middle = np.median(fitted) if len(fitted) else np.nan
+    low, high = residual[fitted <= middle], residual[fitted > middle]
+    if len(low) < 2 or len(high) < 2 or not low.std(ddof=1) > 0:
+        return ""
+    return (f" Above the median fitted value ({format_number(float(middle))}) the residuals' standard "
+            f"deviation is {format_number(float(high.std(ddof=1) / low.std(ddof=1)))} times that below it.")
+
+
 @_styled
 def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     """Residuals over time, against fitted values, and against the normal quantiles."""
@@ -430,23 +461,31 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
     _date_axis(axis)
+    worst = by_month.abs().idxmax() if len(by_month) else None
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
-                            "over series; a pattern or drift means the model misses something."))
+                            "over series; a pattern or drift means the model misses something."
+                            + (f" The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
+                               if worst is not None else "")))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
     pictures.append(inline_picture(figure, "Scatter of residuals against fitted values; a funnel shape "
-                            "means the spread changes with the level."))
+                            "means the spread changes with the level." + _spread_by_level(residuals)))
     figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
     axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)
     axis.set_xlabel("normal quantile")
     axis.set_ylabel("ordered residual")
+    values = residuals["residual"].to_numpy(float)
+    values = values[np.isfinite(values)]
+    far = float(np.mean(np.abs(values - values.mean()) > 1.96 * values.std(ddof=1))) if len(values) > 1 else np.nan
     pictures.append(inline_picture(figure, "Normal quantile plot of the residuals; points off the line "
-                            "in the tails mean larger surprises than a normal curve allows."))
+                            "in the tails mean larger surprises than a normal curve allows."
+                            + (f" {far:.1%} of the {len(values):,} residuals lie more than 1.96 standard "
+                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else "")))
     return pictures
 
 

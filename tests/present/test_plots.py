@@ -222,3 +222,36 @@ def test_a_scatter_of_thousands_of_points_stays_png_when_that_is_smaller(monkeyp
                      "svg+xml": len(plots.picture_bytes(figure, "svg"))}
         assert len(data) == min(sizes.values()) and kind == min(sizes, key=sizes.get)
     assert _decoded(pictures[1].uri)[0] == "png"   # 6,000 points: each a path in SVG
+
+
+# ---------------------------------------------------------------- what each picture's text finds
+def test_the_residual_pictures_texts_state_what_they_show():
+    # Invented residuals whose spread grows with the fitted value; references numpy and pandas.
+    rng = np.random.default_rng(12)
+    fitted = rng.uniform(10, 100, 240)
+    residuals = pd.DataFrame({"period": np.repeat([str(p) for p in pd.period_range("2020-01", periods=24,
+                                                                                 freq="M")], 10),
+                              "fitted": fitted, "residual": rng.normal(0, 1, 240) * fitted / 10})
+    over_time, scatter, normal = (p.alt for p in plots.residual_pictures(residuals))
+    by_month = residuals.groupby("period")["residual"].mean()
+    worst = by_month.abs().idxmax()
+    assert f"The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})." in over_time
+    middle = np.median(fitted)
+    ratio = (residuals.loc[fitted > middle, "residual"].std(ddof=1)
+             / residuals.loc[fitted <= middle, "residual"].std(ddof=1))
+    assert ratio > 1.5   # the premise: a funnel
+    assert f"standard deviation is {format_number(float(ratio))} times that below it" in scatter
+    values = residuals["residual"].to_numpy()
+    share = np.mean(np.abs(values - values.mean()) > 1.96 * np.std(values, ddof=1))
+    assert f"{share:.1%} of the 240 residuals lie more than 1.96 standard deviations" in normal
+
+
+def test_the_forecast_pictures_text_compares_each_series_with_the_same_months_a_year_earlier():
+    months = [str(p) for p in pd.period_range("2023-01", periods=24, freq="M")]
+    history = pd.DataFrame({"period": months * 2, "series": ["a"] * 24 + ["b"] * 24,
+                            "actual": np.r_[np.arange(24.0) + 100, np.full(24, 50.0)]})
+    forecast = pd.DataFrame({"model": "ols", "series": ["a", "a", "b", "b"],
+                             "period": ["2025-01", "2025-02"] * 2, "forecast": [130.0, 132.0, 45.0, 45.0]})
+    alt = plots.forecast_picture(history, forecast, "ols", "analytic", None).alt
+    # Reference: 2024-01 and 2024-02 are a's 13th and 14th months (112 + 113), b's 50 + 50.
+    assert f"a {262 / 225 - 1:+.1%}, b {90 / 100 - 1:+.1%}." in alt
