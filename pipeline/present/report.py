@@ -198,7 +198,7 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
     columns that name a series and the series' names: with many series, each series' own level
     (``series_levels``) is summarised (``levels_summary``), never listed."""
     view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": "",
-            "label": effect_label(None, ""), "levels": None}
+            "label": effect_label(None, ""), "levels": None, "scale_note": ""}
     if coefficients is None or not len(coefficients):
         return view
     models = set(coefficients["model"])
@@ -213,11 +213,11 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
     logged = transforms.get(linear) in LOG_KINDS
     view["model"] = linear
     view["label"] = effect_label(transforms.get(linear), target)
+    view["scale_note"] = (f"The model is of {transforms[linear]}({target or 'the target'}): an estimate "
+                          f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
+                          f"{view['label']} (all else equal)." if logged else "")
     view["note"] = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
-                    + "; the 95% interval is for each coefficient."
-                    + (f" The model is of {transforms[linear]}({target or 'the target'}): an estimate "
-                       f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
-                       f"{view['label']} (all else equal)." if logged else ""))
+                    + "; the 95% interval is for each coefficient." + (" " + view["scale_note"] if logged else ""))
     many = series_count > MANY_SERIES
     if many and "series" in terms and terms["series"].notna().any():
         # One fit per series: a row per series and term would bury the drivers.
