@@ -1,7 +1,7 @@
 """The report's pictures: matplotlib, non-interactive, deterministic, colour-blind-safe.
 
-Each function returns a Figure value: PNG bytes as a data URI plus the text
-that stands in for the picture for a reader who cannot see it.
+Each function returns a Figure value: the picture as a data URI (SVG, or PNG where
+that is smaller) plus the text that stands in for it for a reader who cannot see it.
 
 Pictures are drawn on figures of their own with the Agg canvas, never through
 pyplot, and in the report's style (``STYLE``) set only while each is drawn: importing
@@ -14,6 +14,7 @@ from __future__ import annotations
 import base64
 import functools
 import io
+import re
 from dataclasses import dataclass
 
 import matplotlib
@@ -30,11 +31,12 @@ from pipeline.core.formatting import format_number, format_signed
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
 BASELINE_COLOUR = "#7F7F7F"
 MAX_PANELS = 6
+MAX_LABELS = 12     # date or origin labels on an axis at most
 
 STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
     "axes.grid": True, "grid.color": "#DDDDDD", "grid.linewidth": 0.6,
-    "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline",
+    "figure.dpi": 100, "savefig.dpi": 100, "svg.hashsalt": "castline", "svg.fonttype": "none",
 }
 
 
@@ -75,18 +77,31 @@ def model_colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def inline_picture(figure, alt: str) -> Figure:
-    """Return a drawn figure as an inline PNG picture (a data URI) with its text alternative."""
+def picture_bytes(figure, kind: str) -> bytes:
+    """Return a drawn figure saved as 'png' or 'svg', without a timestamp or software tag, so
+    the same run draws the same bytes (the SVG's ids come from STYLE's svg.hashsalt)."""
     buffer = io.BytesIO()
+    metadata = {"Software": None} if kind == "png" else {"Date": None, "Creator": None}
+    figure.savefig(buffer, format=kind, metadata=metadata)
+    if kind == "png":
+        return buffer.getvalue()
+    # The SVG's indentation only costs bytes: each text is an element of its own line.
+    return re.sub(rb"\n[ \t]+", b"\n", buffer.getvalue())
+
+
+def inline_picture(figure, alt: str) -> Figure:
+    """Return a drawn figure as an inline picture (a data URI) with its text alternative: SVG,
+    sharp at any size, unless the PNG is smaller (a scatter of thousands of points is)."""
     if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
         figure.tight_layout()
-    # No timestamp or software tag in the file, so the same run draws the same bytes.
-    figure.savefig(buffer, format="png", metadata={"Software": None})
-    return Figure("data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii"), alt)
+    choices = [(len(data), kind, data) for kind, data in
+               (("svg+xml", picture_bytes(figure, "svg")), ("png", picture_bytes(figure, "png")))]
+    _, kind, data = min(choices)
+    return Figure(f"data:image/{kind};base64," + base64.b64encode(data).decode("ascii"), alt)
 
 
-def _date_axis(axis) -> None:
-    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
+def _date_axis(axis, most: int = 7) -> None:
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=most)
     axis.xaxis.set_major_locator(locator)
     axis.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
 
@@ -109,32 +124,77 @@ def _nearest(predictions: pd.DataFrame) -> pd.DataFrame:
     return predictions.sort_values("horizon", kind="stable").drop_duplicates(["period", "series"])
 
 
+def _one_step_and_longest(predictions: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
+    """Return the predictions made one month ahead and those made the furthest ahead, each
+    with what they are; from a single origin (a holdout), its predictions as one part."""
+    steps = sorted(set(predictions["horizon"].astype(int)))
+    origins = list(dict.fromkeys(predictions["origin"]))
+    if len(origins) == 1 and len(steps) > 1:
+        return [(f"from {origins[0]}, {steps[0]} to {_ahead_text(steps[-1])}", predictions)]
+    return [(_ahead_text(h), predictions[predictions["horizon"].astype(int) == h])
+            for h in dict.fromkeys(steps[:1] + steps[-1:])]
+
+
+def _ahead_text(months: int) -> str:
+    return f"{months} month{'s' if months != 1 else ''} ahead"
+
+
+def _months_text(scored: list) -> str:
+    count = f"{len(scored):,} month{'s' if len(scored) != 1 else ''}"
+    return count + (f", {scored[0]} to {scored[-1]}" if len(scored) > 1 else f", {scored[0]}" if scored else "")
+
+
+def _least_error(rows: pd.DataFrame, what: str) -> str:
+    """Return the sentence naming the model whose predictions in ``rows`` erred least (MAE per
+    series and month), and the others' MAE."""
+    if not len(rows) or "actual" not in rows:
+        return ""
+    errors = (rows["prediction"] - rows["actual"]).abs().groupby(rows["model"], sort=False).mean().dropna()
+    if not len(errors):
+        return ""
+    ranked = errors.sort_values(kind="stable")
+    others = ", ".join(f"{m} {format_number(v)}" for m, v in ranked.iloc[1:].items())
+    return (f" {what[:1].upper() + what[1:]}, {ranked.index[0]} erred least of the models drawn: MAE "
+            f"{format_number(ranked.iloc[0])} per series and month" + (f", against {others}." if others else "."))
+
+
 @_styled
 def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure:
-    """Actuals and each model's out-of-sample predictions, summed over series; origins marked."""
+    """Actuals and each model's out-of-sample predictions, summed over series: those made one
+    month ahead and those made the furthest ahead in two panels side by side (one y axis), or
+    from a single origin one panel; the legend below them; the text names the model whose
+    one-month-ahead errors were smallest."""
     actual = history.groupby("period")["actual"].sum().sort_index()
-    figure, axis = _subplots(figsize=(8, 3.4))
-    axis.plot(_months(actual.index), actual.to_numpy(), color="#000000", linewidth=1.2, label="actual")
+    parts = _one_step_and_longest(predictions)
+    figure = matplotlib.figure.Figure(figsize=(8, 3.6), layout="constrained")
+    FigureCanvasAgg(figure)
+    axes = figure.subplots(1, len(parts), sharey=True, squeeze=False)[0]
     models = list(dict.fromkeys(predictions["model"]))
     colours = model_colours(models)
-    for model in models:
-        own = predictions[predictions["model"] == model]
-        # With overlapping origins, show each month's prediction from its nearest origin.
-        total = _nearest(own).groupby("period")["prediction"].sum().sort_index()
-        axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
-                  marker=".", markersize=3, linewidth=1, color=colours[model], label=model)
-    origins = [o for o in dict.fromkeys(predictions["origin"]) if str(o)[:4].isdigit()]
-    for origin in origins[-24:]:
-        axis.axvline(_months([origin])[0], color="#BBBBBB", linewidth=0.6, linestyle=":")
-    axis.set_ylabel("target, all series")
-    _date_axis(axis)
-    axis.legend(loc="upper left", fontsize=7, ncol=3, frameon=False)
+    spans = []
+    for axis, (what, rows) in zip(axes, parts):
+        scored = sorted(set(rows["period"]))
+        # Actuals from a year before the first month scored, so the level before it shows.
+        start = str(pd.Period(scored[0], freq="M") - 12) if scored else actual.index.min()
+        shown = actual[(actual.index >= start) & (actual.index <= (scored[-1] if scored else actual.index.max()))]
+        axis.plot(_months(shown.index), shown.to_numpy(), color="#000000", linewidth=1.2, label="actual")
+        for model in models:
+            total = rows[rows["model"] == model].groupby("period")["prediction"].sum().sort_index()
+            axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
+                      marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
+                      label=model)
+        axis.set_title(f"predicted {what}", fontsize=8)
+        _date_axis(axis, most=MAX_LABELS // len(parts))
+        spans.append(f"{what} ({_months_text(scored)})")
+    axes[0].set_ylabel("target, all series")
+    handles, labels = axes[0].get_legend_handles_labels()
+    figure.legend(handles, labels, loc="outside lower center", ncol=len(labels), fontsize=7, frameon=False)
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
-    alt = (f"Line chart of the actual target {summed} from {actual.index.min()} to "
-           f"{actual.index.max()}, with the out-of-sample predictions of {', '.join(models)} over "
-           f"the scored months; {len(origins)} forecast origins are marked by dotted vertical lines.")
-    return inline_picture(figure, alt)
+    alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
+           f"target {summed} (black) and the out-of-sample predictions of {', '.join(models)} summed "
+           f"alike, made {' and '.join(spans)}.")
+    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]))
 
 
 @_styled
@@ -148,17 +208,36 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
         positions = np.arange(len(own))
         axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
                   color=colours[model], label=model)
-        axis.set_xticks(positions)
-        axis.set_xticklabels([str(v) for v in own[key]], rotation=45 if len(own) > 8 else 0,
+        # At most MAX_LABELS labels: every k-th origin or horizon, the first one labelled.
+        every = -(-len(own) // MAX_LABELS)
+        axis.set_xticks(positions[::every])
+        axis.set_xticklabels([str(v) for v in own[key]][::every], rotation=45 if len(own) > 8 else 0,
                              fontsize=7, ha="right" if len(own) > 8 else "center")
     axis.set_xlabel(label)
     axis.set_ylabel("MAE")
-    axis.legend(fontsize=7, frameon=False, ncol=3)
+    axis.legend(fontsize=7, frameon=False, ncol=len(models), loc="lower left", bbox_to_anchor=(0, 1.0))
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
     alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
            + (f"The largest error is {format_number(worst['mae'])} ({worst['model']}, {label} {worst[key]})."
               if worst is not None else ""))
     return inline_picture(figure, alt)
+
+
+def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list) -> str:
+    """Return the sentence comparing each pictured series' forecast, summed over the months
+    ahead, with its actuals in the same months a year earlier (where every one is known)."""
+    parts = []
+    actual = history.set_index(["series", "period"])["actual"]
+    for name in series:
+        ahead = forecast[forecast["series"] == name]
+        earlier = [(name, str(pd.Period(p, freq="M") - 12)) for p in ahead["period"]]
+        if not len(ahead) or not all(key in actual.index for key in earlier):
+            continue
+        before = float(actual.loc[earlier].sum())
+        if before != 0 and np.isfinite(before):
+            parts.append(f"{name} {float(ahead['forecast'].sum()) / before - 1:+.1%}")
+    return (" Against the same months a year earlier, the forecast is: " + ", ".join(parts) + "."
+            if parts else "")
 
 
 @_styled
@@ -207,52 +286,91 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     alt = (f"{len(series)} small line charts, {which}: the last "
            f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
-           + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else "."))
+           + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
+           + _against_last_year(history, own, series))
     return inline_picture(figure, alt)
 
 
+def _clearest(names, middle, low, high, unit: str) -> str:
+    """Return the sentence naming the term whose interval lies furthest from zero for its width."""
+    width = (np.asarray(high, float) - np.asarray(low, float)) / 2
+    distance = np.where((width > 0) & np.isfinite(width), np.abs(np.asarray(middle, float)) / width, np.nan)
+    if not np.isfinite(distance).any():
+        return ""
+    at = int(np.nanargmax(distance))
+    return (f" Furthest from zero for its interval: {names[at]}, {format_number(float(middle[at]))}{unit} "
+            f"(95% interval {format_number(float(low[at]))} to {format_number(float(high[at]))}).")
+
+
 @_styled
-def coefficient_picture(terms: pd.DataFrame) -> Figure:
-    """Each driver's estimate with its 95% interval (the intercept left out)."""
-    shown = terms[terms["term"] != "intercept"].dropna(subset=["estimate"])
+def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target per unit of the driver",
+                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95")) -> Figure:
+    """Each driver's effect with its 95% interval (the intercept left out): ``columns`` name the
+    estimate and the interval's ends (for a log target, their percent changes), ``label`` what
+    they measure."""
+    middle_name, low_name, high_name = columns
+    shown = terms[terms["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
-    has_interval = {"low_95", "high_95"} <= set(shown.columns) and shown["low_95"].notna().any()
+    middle = shown[middle_name].to_numpy(float)
+    has_interval = {low_name, high_name} <= set(shown.columns) and shown[low_name].notna().any()
     if has_interval:
-        axis.errorbar(shown["estimate"], positions,
-                      xerr=[shown["estimate"] - shown["low_95"], shown["high_95"] - shown["estimate"]],
+        low, high = shown[low_name].to_numpy(float), shown[high_name].to_numpy(float)
+        axis.errorbar(middle, positions, xerr=[middle - low, high - middle],
                       fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
     else:
-        axis.plot(shown["estimate"], positions, "o", color=PALETTE[0], markersize=3)
+        axis.plot(middle, positions, "o", color=PALETTE[0], markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
-    axis.set_xlabel("effect on the target per unit of the driver" + (" (95% interval)" if has_interval else ""))
-    crossing = int(((shown.get("low_95", 0) < 0) & (shown.get("high_95", 0) > 0)).sum()) if has_interval else 0
-    alt = (f"Dot chart of {len(shown)} driver coefficients" + (" with 95% interval bars" if has_interval else "")
-           + (f"; {crossing} of the intervals include zero." if has_interval else "."))
+    axis.set_xlabel(as_text(label) + (" (95% interval)" if has_interval else ""))
+    crossing = int(((low < 0) & (high > 0)).sum()) if has_interval else 0
+    unit = "%" if label.startswith("%") else ""
+    alt = (f"Dot chart of {len(shown)} driver coefficients as the {label}"
+           + (" with 95% interval bars" if has_interval else "")
+           + (f"; {crossing} of the intervals include zero." if has_interval else ".")
+           + (_clearest(list(shown["term"]), middle, low, high, unit) if has_interval else ""))
     return inline_picture(figure, alt)
 
 
 @_styled
-def spread_picture(spread: pd.DataFrame, model: str) -> Figure:
-    """Each term's median estimate across series with the quartiles as bars (intercept left out)."""
-    shown = spread[spread["term"] != "intercept"].dropna(subset=["median estimate"])
+def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the target per unit of the driver",
+                   columns: tuple[str, str, str] = ("median estimate", "25%", "75%")) -> Figure:
+    """Each term's median effect across series with the quartiles as bars (intercept left out):
+    ``columns`` name the median and quartiles (for a log target, of the percent changes)."""
+    middle_name, low_name, high_name = columns
+    shown = spread[spread["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
-    middle = shown["median estimate"].to_numpy(float)
-    axis.errorbar(middle, positions, xerr=[middle - shown["25%"].to_numpy(float),
-                                           shown["75%"].to_numpy(float) - middle],
+    middle = shown[middle_name].to_numpy(float)
+    low, high = shown[low_name].to_numpy(float), shown[high_name].to_numpy(float)
+    axis.errorbar(middle, positions, xerr=[middle - low, high - middle],
                   fmt="o", color=PALETTE[0], ecolor=PALETTE[5], capsize=2, markersize=3)
     axis.axvline(0, color="#000000", linewidth=0.8)
     axis.set_yticks(positions)
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
-    axis.set_xlabel("effect on the target per unit of the driver: median across series, "
-                    "bars from the 25% to the 75% quantile")
-    crossing = int(((shown["25%"] < 0) & (shown["75%"] > 0)).sum())
-    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series: the median "
-           f"estimate with bars over the middle half of the series; for {crossing} of the "
+    axis.set_xlabel(as_text(label) + ": median across series, bars from the 25% to the 75% quantile")
+    crossing = int(((low < 0) & (high > 0)).sum())
+    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series as the {label}: "
+           f"the median with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
+    return inline_picture(figure, alt)
+
+
+@_styled
+def levels_picture(levels: dict, model: str) -> Figure:
+    """The series' own levels in a model over all series (report.levels_summary) as a histogram,
+    the median marked: with many series a distribution reads where a list of rows would not."""
+    values = np.asarray(levels["values"], float)
+    figure, axis = _subplots(figsize=(8, 2.4))
+    axis.set_axisbelow(True)
+    axis.hist(values, bins=int(np.clip(len(values) // 3, 5, 30)), color=PALETTE[0], edgecolor="#FFFFFF", linewidth=0.5)
+    axis.axvline(levels["median"], color=PALETTE[1], linewidth=1.2, label="median")
+    axis.axvline(0, color="#000000", linewidth=0.8, label="as the reference series")
+    axis.set_xlabel(as_text(levels["label"]) + ", each series' own level against the reference series")
+    axis.set_ylabel("series")
+    axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
+    alt = f"Histogram of {model}: {levels['text']}"
     return inline_picture(figure, alt)
 
 
@@ -320,6 +438,19 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     return inline_picture(figure, alt)
 
 
+def _spread_by_level(residuals: pd.DataFrame) -> str:
+    """Return the sentence comparing the residuals' spread above and below the median fitted value."""
+    fitted, residual = residuals["fitted"].to_numpy(float), residuals["residual"].to_numpy(float)
+    kept = np.isfinite(fitted) & np.isfinite(residual)
+    fitted, residual = fitted[kept], residual[kept]
+    middle = np.median(fitted) if len(fitted) else np.nan
+    low, high = residual[fitted <= middle], residual[fitted > middle]
+    if len(low) < 2 or len(high) < 2 or not low.std(ddof=1) > 0:
+        return ""
+    return (f" Above the median fitted value ({format_number(float(middle))}) the residuals' standard "
+            f"deviation is {format_number(float(high.std(ddof=1) / low.std(ddof=1)))} times that below it.")
+
+
 @_styled
 def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     """Residuals over time, against fitted values, and against the normal quantiles."""
@@ -330,23 +461,31 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
     _date_axis(axis)
+    worst = by_month.abs().idxmax() if len(by_month) else None
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
-                            "over series; a pattern or drift means the model misses something."))
+                            "over series; a pattern or drift means the model misses something."
+                            + (f" The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
+                               if worst is not None else "")))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
     pictures.append(inline_picture(figure, "Scatter of residuals against fitted values; a funnel shape "
-                            "means the spread changes with the level."))
+                            "means the spread changes with the level." + _spread_by_level(residuals)))
     figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
     axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)
     axis.set_xlabel("normal quantile")
     axis.set_ylabel("ordered residual")
+    values = residuals["residual"].to_numpy(float)
+    values = values[np.isfinite(values)]
+    far = float(np.mean(np.abs(values - values.mean()) > 1.96 * values.std(ddof=1))) if len(values) > 1 else np.nan
     pictures.append(inline_picture(figure, "Normal quantile plot of the residuals; points off the line "
-                            "in the tails mean larger surprises than a normal curve allows."))
+                            "in the tails mean larger surprises than a normal curve allows."
+                            + (f" {far:.1%} of the {len(values):,} residuals lie more than 1.96 standard "
+                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else "")))
     return pictures
 
 

@@ -135,31 +135,114 @@ def _is_series_effect(terms: pd.Series) -> pd.Series:
 def _effect_group(term: str) -> str:
     if term.startswith("series: "):
         return "series level (each series against the first)"
+    if " × series: " not in term:   # a 0/1 column of a column that names the series
+        return term.split(": ", 1)[0] + ": series level (each series against the reference level)"
     return term.split(" × series: ", 1)[0] + " × series (each series' own slope)"
 
 
-def spread_across_series(terms: pd.DataFrame, groups: pd.Series) -> pd.DataFrame:
+def series_levels(terms: pd.Series, columns=(), names=()) -> pd.Series:
+    """Return which terms are one series' own level: "series: NAME", or a 0/1 column of a
+    column that names the series ("region: North" when region names the series; with several
+    such columns a series is named "A / B", fingerprint.json's series)."""
+    text = terms.astype(str)
+    found = text.str.startswith("series: ")
+    parts = [str(name).split(" / ") for name in names]
+    for at, column in enumerate(columns):
+        values = {part[at] for part in parts if len(part) == len(columns)}
+        found |= text.isin({f"{column}: {value}" for value in values})
+    return found
+
+
+def levels_summary(terms: pd.DataFrame, logged: bool, label: str) -> dict | None:
+    """Return what the Drivers section says of the series' own levels (terms that
+    ``series_levels`` finds): how many, their median and range with the series at each end, in
+    the section's scale (percent changes for a log target)."""
+    names = terms["term"].astype(str).str.split(": ", n=1).str[1].to_numpy()
+    values = percent_change(terms["estimate"]) if logged else terms["estimate"].to_numpy(float)
+    kept = np.isfinite(values)
+    names, values = names[kept], values[kept]
+    if not len(values):
+        return None
+    low, high = int(np.argmin(values)), int(np.argmax(values))
+    unit = "%" if logged else ""
+    text = (f"{len(values):,} series levels, each against the reference series, as the "
+            f"{label.replace(' per unit of the driver', '')}: median {format_number(float(np.median(values)))}{unit}, "
+            f"from {format_number(float(values[low]))}{unit} ({names[low]}) to "
+            f"{format_number(float(values[high]))}{unit} ({names[high]}); {int((values > 0).sum()):,} above zero.")
+    return {"count": len(values), "values": values, "names": names, "median": float(np.median(values)),
+            "low": float(values[low]), "high": float(values[high]), "text": text,
+            "label": label.replace(" per unit of the driver", "")}
+
+
+LOG_KINDS = ("log", "log1p")
+PERCENT = "% change per unit"   # 100·(exp(b) − 1): a coefficient of a log target as a percent change
+
+
+def percent_change(estimate) -> np.ndarray:
+    """Return coefficients of a model of log(target) as percent changes of the target per unit of
+    their term: 100·(exp(b) − 1) (a coefficient of log1p(target): of 1 + target)."""
+    return 100 * np.expm1(np.asarray(estimate, dtype=float))
+
+
+def effect_label(kind: str | None, target: str) -> str:
+    """Return what a coefficient of a model fitted on the target transformed by ``kind`` measures."""
+    target = target or "the target"
+    if kind == "log":
+        return f"% change in {target} per unit of the driver"
+    if kind == "log1p":
+        return f"% change in 1 + {target} per unit of the driver"
+    return "effect on the target per unit of the driver"
+
+
+def spread_across_series(terms: pd.DataFrame, groups: pd.Series, percent: bool = False) -> pd.DataFrame:
     """Return, per group of coefficients (in order of first appearance), how many series have an
-    estimate, the median estimate and its quartiles, and the share of those with p < 0.05."""
+    estimate, the median estimate and its quartiles, and the share of those with p < 0.05; with
+    ``percent`` (a log target) also the median and quartiles of the percent changes."""
     frame = pd.DataFrame({"term": groups.to_numpy(), "estimate": terms["estimate"].to_numpy(float),
                           "p": terms["p_value"].to_numpy(float) if "p_value" in terms
                           else np.full(len(terms), np.nan)})
     frame = frame[np.isfinite(frame["estimate"])]
+    frame["percent"] = percent_change(frame["estimate"])
     grouped = frame.groupby("term", sort=False)
-    table = pd.DataFrame({
-        "series": grouped["estimate"].size(), "median estimate": grouped["estimate"].median(),
+    columns = {"series": grouped["estimate"].size()}
+    if percent:
+        columns.update({"median " + PERCENT: grouped["percent"].median(),
+                        "% 25%": grouped["percent"].quantile(0.25), "% 75%": grouped["percent"].quantile(0.75)})
+    columns.update({
+        "median estimate": grouped["estimate"].median(),
         "25%": grouped["estimate"].quantile(0.25), "75%": grouped["estimate"].quantile(0.75),
         f"share p < {SIGNIFICANT:g}": grouped["p"].apply(
             lambda p: float((p[np.isfinite(p)] < SIGNIFICANT).mean()) if np.isfinite(p).any()
             else float("nan")),
-    }).reset_index()
-    return table
+    })
+    return pd.DataFrame(columns).reset_index()
 
 
-def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int) -> dict:
+def _with_percent(terms: pd.DataFrame) -> pd.DataFrame:
+    """Return the terms of a model of a log target with their percent changes (and those of the
+    95% interval's ends) after the term; the intercept is a level, not a change, and has none."""
+    shown = terms.copy()
+    level = shown["term"].astype(str) == "intercept"
+    at = list(shown.columns).index("term") + 1
+    for offset, (name, source) in enumerate(((PERCENT, "estimate"), ("% from (95%)", "low_95"),
+                                             ("% to (95%)", "high_95"))):
+        if source in shown:
+            values = percent_change(shown[source])
+            values[level.to_numpy()] = np.nan
+            shown.insert(at + offset, name, values)
+    return shown
+
+
+def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_count: int,
+                 scale: tuple[str, dict[str, str]] = ("", {}), series: tuple = ((), ())) -> dict:
     """Return what the Drivers section shows: the linear model described, its terms (at most
-    TABLE_ROWS), and with many series a summary across series instead of a row per series."""
-    view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": ""}
+    TABLE_ROWS), and with many series a summary across series instead of a row per series.
+    ``scale`` is the target's name and each model's target transform (RunFiles.target_transforms):
+    for a model of log(target) the terms carry their percent changes too. ``series`` is the
+    columns that name a series and the series' names: with many series, each series' own level
+    (``series_levels``) is summarised (``levels_summary``), never listed."""
+    view = {"model": None, "terms": None, "rows": 0, "spread": None, "per_series": False, "note": "",
+            "label": effect_label(None, ""), "levels": None, "scale_note": ""}
     if coefficients is None or not len(coefficients):
         return view
     models = set(coefficients["model"])
@@ -170,25 +253,37 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
         return view
     terms = coefficients[coefficients["model"] == linear].drop(columns=["model"]).dropna(axis=1, how="all")
     kind = terms["standard_errors"].iloc[0] if "standard_errors" in terms else None
+    target, transforms = scale
+    logged = transforms.get(linear) in LOG_KINDS
     view["model"] = linear
+    view["label"] = effect_label(transforms.get(linear), target)
+    view["scale_note"] = (f"The model is of {transforms[linear]}({target or 'the target'}): an estimate "
+                          f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
+                          f"{view['label']} (all else equal)." if logged else "")
     view["note"] = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
-                    + "; the 95% interval is for each coefficient.")
+                    + "; the 95% interval is for each coefficient." + (" " + view["scale_note"] if logged else ""))
     many = series_count > MANY_SERIES
     if many and "series" in terms and terms["series"].notna().any():
         # One fit per series: a row per series and term would bury the drivers.
-        view.update(per_series=True, spread=spread_across_series(terms, terms["term"]), terms=None,
+        view.update(per_series=True, spread=spread_across_series(terms, terms["term"], logged), terms=None,
                     note=f"{linear} fitted on each series' own history: per term, the median "
                          "estimate across series, its quartiles, and the share of series whose "
                          f"p-value is below {SIGNIFICANT:g}; coefficients.csv holds every series' "
-                         "row.")
+                         "row." + (f" The model is of {transforms[linear]}({target or 'the target'}): "
+                                   f"the {PERCENT} columns are 100·(exp(estimate) − 1), the "
+                                   f"{view['label']}." if logged else ""))
         return view
     if many:
-        effects = _is_series_effect(terms["term"])
+        levels = series_levels(terms["term"], *series)
+        effects = _is_series_effect(terms["term"]) | levels
+        if levels.any():
+            view["levels"] = levels_summary(terms[levels], logged, view["label"])
         if effects.any():
-            view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group))
+            view["spread"] = spread_across_series(terms[effects], terms.loc[effects, "term"].map(_effect_group),
+                                                  logged)
             terms = terms[~effects]
     view["rows"] = len(terms)
-    view["terms"] = terms.head(TABLE_ROWS)
+    view["terms"] = (_with_percent(terms) if logged else terms).head(TABLE_ROWS)
     return view
 
 
@@ -316,6 +411,26 @@ def pictured_models(models: list[str], kept: tuple) -> list[str]:
     return [name for name in models if drawn(name)]
 
 
+def backtest_models(models: list[str], rows: list[dict], recommended: str, best_rule: str | None,
+                    select_by: str) -> list[str]:
+    """Return the models the backtest picture draws, in the order of ``models``: the recommended
+    one and the two references it is measured against (the mean baseline, the best simple
+    rule); when the recommended model is one of those, the fitted model that scored best too."""
+    chosen = {recommended, "mean_baseline", best_rule}
+    if recommended == "mean_baseline" or recommended == best_rule:
+        fitted = [m for m in models if m not in chosen and not _is_rule(m)]
+        best = featured_model(rows, [], fitted, recommended, select_by)
+        chosen.add(best)
+    return [m for m in models if m in chosen]
+
+
+def _is_rule(name: str) -> bool:
+    try:
+        return bool(model_kind(name).baseline)
+    except KeyError:
+        return False
+
+
 def _only(table: pd.DataFrame, models: list[str]) -> pd.DataFrame:
     return table[table["model"].isin(models)] if len(table) else table
 
@@ -330,12 +445,33 @@ def _track_record(files: RunFiles) -> dict | None:
 
 def _drivers_picture(drivers: dict) -> plots.Figure | None:
     """Return the Drivers section's picture: the spread of a model per series' coefficients
-    across series, else the recommended model's coefficients (None when it has none)."""
+    across series, else the recommended model's coefficients (None when it has none); as
+    percent changes for a model of log(target)."""
     if drivers["per_series"]:
-        return plots.spread_picture(drivers["spread"], drivers["model"])
+        return plots.spread_picture(
+            drivers["spread"], drivers["model"], drivers["label"],
+            ("median " + PERCENT, "% 25%", "% 75%") if "% 25%" in drivers["spread"] else ("median estimate", "25%", "75%"))
     if drivers["terms"] is not None and len(drivers["terms"]):
-        return plots.coefficient_picture(drivers["terms"])
+        return plots.coefficient_picture(
+            drivers["terms"], drivers["label"],
+            (PERCENT, "% from (95%)", "% to (95%)") if PERCENT in drivers["terms"] else ("estimate", "low_95", "high_95"))
     return None
+
+
+def _backtest_pictures(metrics: dict, history: pd.DataFrame, predictions: pd.DataFrame,
+                       every_model: list[str]) -> list:
+    """Return the Backtest section's pictures: the predictions of the recommended model and its
+    two references, then the errors of every pictured model by origin and by months ahead."""
+    drawn = backtest_models(every_model, metrics["models"], metrics["recommended"], metrics.get("best_rule"),
+                            metrics.get("select_by", "mae"))
+    pictures = [plots.backtest_picture(history, predictions[predictions["model"].isin(drawn)])]
+    by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
+    by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
+    if len(by_origin) and by_origin["origin"].nunique() > 1:
+        pictures.append(plots.error_picture(by_origin, "origin", "origin"))
+    if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
+        pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
+    return pictures
 
 
 def render_report(files: RunFiles | str | Path) -> str:
@@ -363,13 +499,7 @@ def render_report(files: RunFiles | str | Path) -> str:
                                   (metrics.get("best_rule"), recommended))
     all_predictions = predictions
     predictions = predictions[predictions["model"].isin(every_model)]
-    backtest_pictures = [plots.backtest_picture(history, predictions)]
-    by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
-    by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
-    if len(by_origin) and by_origin["origin"].nunique() > 1:
-        backtest_pictures.append(plots.error_picture(by_origin, "origin", "origin"))
-    if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
-        backtest_pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
+    backtest_pictures = _backtest_pictures(metrics, history, predictions, every_model)
 
     series_count = len(data.get("series", [])) or metrics.get("series_count", 0)
     per_series = per_series_view(
@@ -396,7 +526,10 @@ def render_report(files: RunFiles | str | Path) -> str:
         forecast_table = forecast_table.head(TABLE_ROWS)
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None
-    drivers = drivers_view(coefficients, recommended, series_count)
+    drivers = drivers_view(coefficients, recommended, series_count, files.target_transforms(),
+                           (files.series_columns(), data.get("series", [])))
+    if drivers["levels"] is not None:
+        drivers["levels"]["picture"] = plots.levels_picture(drivers["levels"], drivers["model"])
     coefficient_picture = _drivers_picture(drivers)
     ahead = ahead_view(metrics)
     return page_environment().get_template("report.html.j2").render(

@@ -61,6 +61,33 @@ class RunFiles:
         return self._tables[name]
 
 
+    def _model_document(self) -> dict:
+        """Return model.json as read ({} when absent or unreadable)."""
+        if "model.json" not in self._tables:
+            try:
+                document = json.loads((self.folder / "model.json").read_text(encoding="utf-8"))
+            except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+                document = {}
+            self._tables["model.json"] = document if isinstance(document, dict) else {}
+        return self._tables["model.json"]
+
+    def target_transforms(self) -> tuple[str, dict[str, str]]:
+        """Return the target's name and each fitted model's target transform ('log', 'log1p'),
+        as model.json records them (models fitted on the target as it is are left out); ('',
+        {}) when the run folder has no readable model.json."""
+        document = self._model_document()
+        models = document.get("models") if isinstance(document.get("models"), dict) else {}
+        kinds = {name: model["target_transform"]["kind"] for name, model in models.items()
+                 if isinstance(model, dict) and isinstance(model.get("target_transform"), dict)
+                 and model["target_transform"].get("kind") not in (None, "none")}
+        return str(document.get("target", "")), kinds
+
+    def series_columns(self) -> list[str]:
+        """Return the columns that name a series, as model.json records them ([] without it)."""
+        columns = self._model_document().get("series_columns")
+        return [str(c) for c in columns] if isinstance(columns, list) else []
+
+
 def load_run_files(folder: str | Path) -> RunFiles:
     """Return a run folder's files, read back.
 

@@ -79,7 +79,8 @@ def render_summary(files: RunFiles) -> str:
     if scenarios is not None:
         scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"])
     series_count = len(data_print.get("series", []))
-    drivers = drivers_view(files.table("coefficients.csv"), recommended, series_count)
+    drivers = drivers_view(files.table("coefficients.csv"), recommended, series_count,
+                           files.target_transforms(), (files.series_columns(), data_print.get("series", [])))
     terms = drivers["terms"]
     standard_errors = terms["standard_errors"].iloc[0] \
         if terms is not None and len(terms) and "standard_errors" in terms else None

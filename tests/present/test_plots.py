@@ -10,16 +10,19 @@ backend); the data drawn are a few invented numbers.
 
 from __future__ import annotations
 
+import base64
 import json
 import os
 import subprocess
 import sys
+from xml.etree import ElementTree
 
 import matplotlib
 import numpy as np
 import pandas as pd
 from conftest import ROOT
 
+from pipeline.core.formatting import format_number
 from pipeline.present import plots
 from pipeline.present.history_plot import plot_history
 
@@ -34,6 +37,7 @@ def snapshot():
 before = snapshot()
 import numpy as np
 import pandas as pd
+from pipeline.core.formatting import format_number
 from pipeline.present import plots
 after_import = snapshot()
 history = pd.DataFrame({"period": [str(p) for p in pd.period_range("2020-01", periods=12, freq="M")],
@@ -96,3 +100,158 @@ def test_the_history_plot_leaves_rcparams_unchanged(tmp_path):
     plot_history(table, "mae", tmp_path / "mae.png", "MAE per run")
     assert (tmp_path / "mae.png").stat().st_size > 0
     assert _settings() == before
+
+
+# ---------------------------------------------------------------- the backtest picture
+# Invented data: two series over ten years, 61 rolling origins predicting 1 to 12 months
+# ahead; the references are pandas sums and numpy means of the same table.
+
+def _rolling_backtest(origins: int = 61, horizon: int = 12, seed: int = 3):
+    rng = np.random.default_rng(seed)
+    months = pd.period_range("2015-01", periods=120, freq="M")
+    history = pd.DataFrame([{"period": str(m), "series": s, "actual": 100 + 10 * k + rng.normal(0, 5)}
+                            for m in months for k, s in enumerate(["a", "b"])])
+    actual = history.set_index(["period", "series"])["actual"]
+    rows = []
+    first = len(months) - origins - horizon + 1
+    for origin in months[first - 1:first - 1 + origins]:
+        for h in range(1, horizon + 1):
+            period = str(origin + h)
+            for series in ("a", "b"):
+                truth = actual[(period, series)]
+                for model, noise in (("mean_baseline", 8.0), ("ols", 2.0), ("calendar_month_mean", 4.0)):
+                    rows.append({"origin": str(origin), "period": period, "horizon": h, "series": series,
+                                 "model": model, "actual": truth,
+                                 "prediction": truth + rng.normal(0, noise) + 0.3 * h})
+    return history, pd.DataFrame(rows)
+
+
+def _drawn(monkeypatch) -> list:
+    """Keep each figure a picture function hands to plots.inline_picture (drawn, to read back)."""
+    figures = []
+    real = plots.inline_picture
+
+    def keep(figure, alt):
+        picture = real(figure, alt)
+        figures.append(figure)
+        return picture
+    monkeypatch.setattr(plots, "inline_picture", keep)
+    return figures
+
+
+def _labels(axis) -> list[str]:
+    return [t.get_text() for t in axis.get_xticklabels() if t.get_text() and t.get_visible()]
+
+
+def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with_few_labels(monkeypatch):
+    history, predictions = _rolling_backtest()
+    figures = _drawn(monkeypatch)
+    picture = plots.backtest_picture(history, predictions)
+    (figure,) = figures
+    axes = figure.get_axes()
+    assert [a.get_title() for a in axes] == ["predicted 1 month ahead", "predicted 12 months ahead"]
+    assert axes[0].get_shared_y_axes().joined(axes[0], axes[1])
+    for axis, months in zip(axes, (1, 12)):
+        # Reference: the predictions made this many months ahead, summed over series with pandas.
+        own = predictions[(predictions["horizon"] == months) & (predictions["model"] == "ols")]
+        expected = own.groupby("period")["prediction"].sum().sort_index().to_numpy()
+        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == "ols"]
+        np.testing.assert_allclose(line.get_ydata(), expected, rtol=1e-12)
+    # At most 12 date labels over both panels (61 origins would be 61 labels).
+    assert sum(len(_labels(a)) for a in axes) <= 12
+    # The legend is the figure's, below the panels, clear of both plotting areas.
+    assert all(a.get_legend() is None for a in axes) and len(figure.legends) == 1
+    renderer = figure.canvas.get_renderer()
+    box = figure.legends[0].get_window_extent(renderer)
+    assert all(box.y1 <= a.get_window_extent(renderer).y0 for a in axes)
+    # The finding: the smallest one-month-ahead MAE, numpy's mean of absolute errors.
+    first = predictions[predictions["horizon"] == 1]
+    mae = {m: float(np.mean(np.abs(g["prediction"] - g["actual"]))) for m, g in first.groupby("model")}
+    best = min(mae, key=mae.get)
+    assert best == "ols"
+    assert f"1 month ahead, ols erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
+    assert "61 months" in picture.alt and "origins are marked" not in picture.alt
+
+
+def test_the_error_picture_by_origin_labels_at_most_12_of_61_origins(monkeypatch):
+    _, predictions = _rolling_backtest()
+    table = (predictions.assign(error=(predictions["prediction"] - predictions["actual"]).abs())
+             .groupby(["model", "origin"], sort=False)["error"].mean().rename("mae").reset_index())
+    assert table["origin"].nunique() == 61
+    figures = _drawn(monkeypatch)
+    plots.error_picture(table, "origin", "origin")
+    (axis,) = figures[0].get_axes()
+    labels = _labels(axis)
+    assert 6 <= len(labels) <= 12
+    assert labels[0] == table["origin"].iloc[0]
+
+
+# ---------------------------------------------------------------- SVG or PNG
+def _decoded(uri: str) -> tuple[str, bytes]:
+    kind, data = uri.split(";base64,", 1)
+    return kind.removeprefix("data:image/"), base64.b64decode(data)
+
+
+def test_a_line_chart_is_inlined_as_well_formed_svg_of_fewer_bytes_than_its_png(monkeypatch):
+    history, predictions = _rolling_backtest(origins=13)
+    figures = _drawn(monkeypatch)
+    picture = plots.backtest_picture(history, predictions)
+    kind, data = _decoded(picture.uri)
+    assert kind == "svg+xml"
+    root = ElementTree.fromstring(data)   # reference: the standard library's XML parser
+    assert root.tag == "{http://www.w3.org/2000/svg}svg"
+    assert b"<dc:date>" not in data   # no timestamp in the file
+    # The choice: the same figure as PNG is larger.
+    with matplotlib.rc_context(plots.STYLE):
+        assert len(data) < len(plots.picture_bytes(figures[0], "png"))
+    # The same picture drawn again is the same bytes (svg.hashsalt fixes the SVG's ids).
+    assert plots.backtest_picture(history, predictions).uri == picture.uri
+
+
+def test_a_scatter_of_thousands_of_points_stays_png_when_that_is_smaller(monkeypatch):
+    rng = np.random.default_rng(8)
+    residuals = pd.DataFrame({"period": np.repeat([str(p) for p in pd.period_range("2015-01", periods=60,
+                                                                                 freq="M")], 100),
+                              "fitted": rng.normal(100, 20, 6000), "residual": rng.normal(0, 5, 6000)})
+    figures = _drawn(monkeypatch)
+    pictures = plots.residual_pictures(residuals)
+    for picture, figure in zip(pictures, figures):
+        kind, data = _decoded(picture.uri)
+        with matplotlib.rc_context(plots.STYLE):   # saved again as the picture was: in the report's style
+            sizes = {"png": len(plots.picture_bytes(figure, "png")),
+                     "svg+xml": len(plots.picture_bytes(figure, "svg"))}
+        assert len(data) == min(sizes.values()) and kind == min(sizes, key=sizes.get)
+    assert _decoded(pictures[1].uri)[0] == "png"   # 6,000 points: each a path in SVG
+
+
+# ---------------------------------------------------------------- what each picture's text finds
+def test_the_residual_pictures_texts_state_what_they_show():
+    # Invented residuals whose spread grows with the fitted value; references numpy and pandas.
+    rng = np.random.default_rng(12)
+    fitted = rng.uniform(10, 100, 240)
+    residuals = pd.DataFrame({"period": np.repeat([str(p) for p in pd.period_range("2020-01", periods=24,
+                                                                                 freq="M")], 10),
+                              "fitted": fitted, "residual": rng.normal(0, 1, 240) * fitted / 10})
+    over_time, scatter, normal = (p.alt for p in plots.residual_pictures(residuals))
+    by_month = residuals.groupby("period")["residual"].mean()
+    worst = by_month.abs().idxmax()
+    assert f"The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})." in over_time
+    middle = np.median(fitted)
+    ratio = (residuals.loc[fitted > middle, "residual"].std(ddof=1)
+             / residuals.loc[fitted <= middle, "residual"].std(ddof=1))
+    assert ratio > 1.5   # the premise: a funnel
+    assert f"standard deviation is {format_number(float(ratio))} times that below it" in scatter
+    values = residuals["residual"].to_numpy()
+    share = np.mean(np.abs(values - values.mean()) > 1.96 * np.std(values, ddof=1))
+    assert f"{share:.1%} of the 240 residuals lie more than 1.96 standard deviations" in normal
+
+
+def test_the_forecast_pictures_text_compares_each_series_with_the_same_months_a_year_earlier():
+    months = [str(p) for p in pd.period_range("2023-01", periods=24, freq="M")]
+    history = pd.DataFrame({"period": months * 2, "series": ["a"] * 24 + ["b"] * 24,
+                            "actual": np.r_[np.arange(24.0) + 100, np.full(24, 50.0)]})
+    forecast = pd.DataFrame({"model": "ols", "series": ["a", "a", "b", "b"],
+                             "period": ["2025-01", "2025-02"] * 2, "forecast": [130.0, 132.0, 45.0, 45.0]})
+    alt = plots.forecast_picture(history, forecast, "ols", "analytic", None).alt
+    # Reference: 2024-01 and 2024-02 are a's 13th and 14th months (112 + 113), b's 50 + 50.
+    assert f"a {262 / 225 - 1:+.1%}, b {90 / 100 - 1:+.1%}." in alt

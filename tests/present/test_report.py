@@ -8,6 +8,7 @@ rolling origins for an answer with a p-value.
 
 from __future__ import annotations
 
+import base64
 import json
 import math
 import re
@@ -23,6 +24,7 @@ from conftest import DEMO_SPEC, ROOT, tiny_data, write_tiny_spec
 from statsmodels.stats.multitest import multipletests
 
 import pipeline
+from pipeline.core.formatting import format_number
 
 DEMO = DEMO_SPEC
 # The demo has four series, so the page has the Per series section after the backtest; its run
@@ -186,3 +188,41 @@ def test_the_report_opens_in_a_browser_with_every_section_and_image_and_no_reque
     assert page.network == []
     # The page's own record of every resource it fetched (data: URIs are not fetched).
     assert page.fetched == []
+
+
+def test_the_backtest_picture_states_whose_errors_were_smallest_from_the_single_origin(run_folder):
+    # The demo's holdout has one origin, so the picture draws its predictions 1 to 12 months
+    # ahead in one panel. Reference: metrics.json's MAE of each model (over every prediction of
+    # that origin), among the recommended model, the mean baseline and the best simple rule
+    # (the models the picture draws).
+    metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
+    drawn = {metrics["recommended"], "mean_baseline", metrics["best_rule"]}
+    mae = {row["model"]: row["mae"] for row in metrics["models"] if row["model"] in drawn}
+    best = min(mae, key=mae.get)
+    html = (run_folder / "report.html").read_text(encoding="utf-8")
+    alt = re.search(r'<section id="backtest">.*?<img [^>]*alt="([^"]*)"', html, re.S).group(1)
+    origin = metrics["by_origin"][0]["origin"]
+    assert alt.startswith("Line chart: ")
+    assert (f"From {origin}, 1 to 12 months ahead, {best} erred least of the models drawn: "
+            f"MAE {format_number(mae[best])} per series and month") in alt
+    others = {row["model"] for row in metrics["models"]} - drawn
+    assert others and not any(m in alt for m in others)
+
+
+def test_pictures_as_svg_where_smaller_make_the_report_smaller_than_all_png(run_folder, monkeypatch):
+    # Reference: the same report rendered again from the folder with every picture a PNG (as
+    # castline drew them before choosing per picture).
+    from pipeline.present import plots
+    from pipeline.present.report import render_report
+    chosen = render_report(run_folder)
+    assert "data:image/svg+xml;base64," in chosen
+
+    def png_only(figure, alt):
+        if figure.get_layout_engine() is None:
+            figure.tight_layout()
+        data = plots.picture_bytes(figure, "png")
+        return plots.Figure("data:image/png;base64," + base64.b64encode(data).decode("ascii"), alt)
+    monkeypatch.setattr(plots, "inline_picture", png_only)
+    every_png = render_report(run_folder)
+    assert "data:image/svg+xml" not in every_png
+    assert len(chosen.encode()) < 0.9 * len(every_png.encode())

@@ -20,6 +20,7 @@ import json
 import re
 from html.parser import HTMLParser
 from pathlib import Path
+from xml.etree import ElementTree
 
 import pandas as pd
 import pytest
@@ -254,8 +255,11 @@ def test_the_picture_draws_the_realised_errors_and_its_text_states_how_many_fell
     worst = own.loc[own["error"].abs().idxmax()]
     images = parsed(section(last)).images
     assert len(images) == 1
-    assert images[0]["src"].startswith("data:image/png;base64,")
-    assert base64.b64decode(images[0]["src"].split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+    kind, data = images[0]["src"].split(";base64,", 1)
+    picture = base64.b64decode(data)
+    # An SVG that parses as XML (xml.etree), or a PNG by its signature (the PNG specification).
+    assert (kind == "data:image/svg+xml" and ElementTree.fromstring(picture).tag == "{http://www.w3.org/2000/svg}svg") \
+        or (kind == "data:image/png" and picture[:8] == b"\x89PNG\r\n\x1a\n")
     alt = images[0]["alt"]
     assert alt.startswith("Dot chart of the realised errors (forecast − actual) of 12 forecast(s) from 2 earlier run(s)")
     assert f"{len(outside)} of {len(own)} fell outside it (" in alt
