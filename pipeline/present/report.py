@@ -202,7 +202,8 @@ def spread_across_series(terms: pd.DataFrame, groups: pd.Series, percent: bool =
                           "p": terms["p_value"].to_numpy(float) if "p_value" in terms
                           else np.full(len(terms), np.nan)})
     frame = frame[np.isfinite(frame["estimate"])]
-    frame["percent"] = percent_change(frame["estimate"])
+    if percent:   # only a log target's estimates: a level's estimate can be too large for exp
+        frame["percent"] = percent_change(frame["estimate"])
     grouped = frame.groupby("term", sort=False)
     columns = {"series": grouped["estimate"].size()}
     if percent:
