@@ -104,6 +104,13 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
     return plots.Figure(picture.uri, alt + ".")
 
 
+def pictured_series(history: pd.DataFrame, stated: pd.DataFrame):
+    """Return the series the first screen shows: the only one, else the one with the largest
+    total actuals (plots.largest_series, as the Forecast section's picture picks them)."""
+    names = list(dict.fromkeys(stated["series"]))
+    return names[0] if len(names) == 1 else plots.largest_series(history, names, count=1)[0]
+
+
 def first_screen_view(history: pd.DataFrame | None, stated: pd.DataFrame | None, method: str | None,
                       recommended: str) -> dict | None:
     """Return what the first screen shows after the answer (None when there is nothing to
@@ -111,7 +118,7 @@ def first_screen_view(history: pd.DataFrame | None, stated: pd.DataFrame | None,
     if stated is None or not len(stated) or history is None or method is None:
         return None
     names = list(dict.fromkeys(stated["series"]))
-    series = names[0] if len(names) == 1 else plots.largest_series(history, names, count=1)[0]
+    series = pictured_series(history, stated)
     view = {"picture": forecast_glance(history, stated, series, recommended, method),
             "series": series, "series_count": len(names), "next": next_months(stated, series),
             "method": method, "caution": CAUTION, "total": None}

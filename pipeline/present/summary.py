@@ -11,7 +11,13 @@ import pandas as pd
 from pipeline.core.catalogue import column_label, model_label
 from pipeline.core.intervals import shortfall_warning
 from pipeline.present.ahead import ahead_view
-from pipeline.present.first_screen import CAUTION, NEXT_MONTHS, all_series_total, next_months
+from pipeline.present.first_screen import (
+    CAUTION,
+    NEXT_MONTHS,
+    all_series_total,
+    next_months,
+    pictured_series,
+)
 from pipeline.present.report import (
     CAUTIONS,
     NAMES_SHOWN,
@@ -59,8 +65,7 @@ def next_months_view(shown: pd.DataFrame | None, history: pd.DataFrame | None) -
     if shown is None or history is None:
         return None
     names = list(dict.fromkeys(shown["series"]))
-    totals = history.groupby("series", sort=False)["actual"].sum()
-    series = names[0] if len(names) == 1 else max(names, key=lambda name: totals.get(name, -np.inf))
+    series = pictured_series(history, shown)
     total = all_series_total(shown) if len(names) > 1 else None
     return {"series": series, "series_count": len(names), "table": next_months(shown, series),
             "total": total, "months": NEXT_MONTHS, "caution": CAUTION}

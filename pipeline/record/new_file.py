@@ -56,7 +56,10 @@ def replace_page(target: Path, text: str, marker: str, *, what: str, option: str
     """Write a page to `target` (checked by page_target) in one step: a hidden file beside it,
     then renamed over it, so a failure never leaves half a page or damages the one before."""
     page_target(target, marker, what=what, option=option)
-    handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    try:
+        handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    except OSError as exc:   # a folder we may not write in: nothing was made
+        raise UserError(f"{option} {target}: cannot write the {what}: {exc.strerror or exc}") from None
     try:
         with os.fdopen(handle, "w", encoding="utf-8") as stream:
             stream.write(text)

@@ -266,3 +266,20 @@ def test_a_run_whose_folder_is_gone_is_named_and_its_own_warnings_left_out(tiny_
     given = read_page(target).frame("recorded-warnings")
     assert not any("2022-03" in runs_of.split(", ") for runs_of in given["runs"])
     assert read_page(target).frame("runs-table")["run id"].tolist()[1] == second   # the run still counts
+
+
+def test_a_folder_castline_may_not_write_in_is_one_line_and_nothing_made(tiny_runs, tmp_path, capsys,
+                                                                          monkeypatch):
+    # The OS refuses the hidden file beside the page (as a read-only folder does; the tests run
+    # as root, whom permissions do not stop, so the refusal is made at the call itself).
+    import tempfile
+
+    def refused(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(tempfile, "mkstemp", refused)
+    spec, _, _ = tiny_runs
+    assert cli.main(["history", str(spec), "--html", str(tmp_path / "h.html")]) == 2
+    error = capsys.readouterr().err.strip().splitlines()
+    assert len(error) == 1 and "cannot write the history page: Permission denied" in error[0]
+    assert list(tmp_path.iterdir()) == []
