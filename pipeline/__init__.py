@@ -1,4 +1,4 @@
-"""castline: a monthly forecast rerun from one YAML spec, checked against the mean baseline."""
+"""castline: a monthly forecast rerun from one YAML spec, checked against the mean of the training months."""
 
 from pipeline.core.errors import DataError, SpecError, UserError
 from pipeline.core.version import __version__

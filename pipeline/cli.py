@@ -12,7 +12,7 @@ import sys
 import traceback
 from pathlib import Path
 
-from pipeline.core.catalogue import METRIC_NAMES, SKILL
+from pipeline.core.catalogue import METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
 from pipeline.core.version import __version__
@@ -108,10 +108,14 @@ PLOT_METRICS = [*METRIC_NAMES, SKILL]
 
 
 def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
-    cells = [[format_cell(row[c], c) for c in columns] for row in rows]
-    widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
+    """Print a table headed in words (the catalogue's labels), models named as the answer names
+    them, numbers as the report shows them."""
+    cells = [[model_label(row[c]) if c == "model" and isinstance(row[c], str) else format_cell(row[c], c)
+              for c in columns] for row in rows]
+    heads = [column_label(c) for c in columns]
+    widths = [max(len(h), *(len(r[i]) for r in cells)) for i, h in enumerate(heads)]
     right = set(align_right) if align_right is not None else set(columns[1:])
-    print("  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip())
+    print("  ".join(h.ljust(w) for h, w in zip(heads, widths)).rstrip())
     for row in cells:
         print("  ".join(v.rjust(w) if c in right else v.ljust(w)
                         for c, v, w in zip(columns, row, widths)).rstrip())
@@ -138,8 +142,8 @@ def _command_run(args) -> int:
                 continue   # the simple rules' per-series lines are in series.csv
             significant = (f"significantly in {row.beats_significantly} ({row.significant_share:.0%}, "
                            "Holm-adjusted across series)" if tested else "not tested")
-            print(f"per series: {row.model} beats the mean baseline in {row.beats} of {row.series} "
-                  f"series ({row.beats_share:.0%}), {significant}; see series.csv")
+            print(f"per series: {model_label(row.model)} beats the mean of the training months in "
+                  f"{row.beats} of {row.series} series ({row.beats_share:.0%}), {significant}; see series.csv")
     if result.evaluation.interval_warning:
         print(f"warning: {result.evaluation.interval_warning}")
     for warning in result.forecast_result.warnings:
@@ -278,12 +282,12 @@ def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, mod
     from pipeline.review.history import RECENT_RUNS, recent_runs
     lead = ["spec_name"] if _print_heading(path, name, metrics) else []
     recent = recent_runs(metrics, RECENT_RUNS, model)
-    whose = f"{model}'s" if model else "its recommended model's"
+    whose = f"{model_label(model)}'s" if model else "its recommended model's"
     if show in ("metrics", "all"):
         print()
         print(f"The last {RECENT_RUNS} runs" + (" of each spec" if lead else "") + f", each with "
               f"{whose} backtest metrics (change: from that "
-              "model's run before; skill = 1 − the select_by metric / the mean baseline's):")
+              "model's run before; skill = 1 − the select_by metric / that of the mean of the training months):")
         columns = [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
                    "skill_vs_mean", "skill_vs_mean_change"]
         _print_table(_shown(recent, columns), columns, align_right=tuple(columns[len(lead) + 4:]))
@@ -303,7 +307,7 @@ def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, mod
             _print_table(_shown(shown, columns), columns, align_right=tuple(columns[len(lead) + 3:-1]))
     runs = metrics["run_id"].nunique()
     print()
-    print(f"Shown: {recent['run_id'].nunique()} of {runs} run(s), " + (f"{model} only" if model else
+    print(f"Shown: {recent['run_id'].nunique()} of {runs} run(s), " + (f"{model_label(model)} only" if model else
           "each run's recommended model") + "; add --all for every run and model, and the "
           "forecasts per months ahead.")
 
@@ -313,7 +317,7 @@ def _print_history(path: Path, name: str | None, metrics, realised, show: str) -
     if show in ("metrics", "all"):
         print()
         print("Backtest metrics per run (change: from the run before; skill = 1 − the run's "
-              "select_by metric / the mean baseline's):")
+              "select_by metric / that of the mean of the training months):")
         _print_table(_shown(metrics, [*lead, "created", "run_id", "last_period", "model", "mae",
                                       "mae_change", "rmse", "rmse_change", "skill_vs_mean",
                                       "skill_vs_mean_change", "recommended"]),
@@ -455,7 +459,7 @@ def _print_comparison(comparison, top: int) -> None:
     else:
         print("Coefficients: no coefficient moved")
     print()
-    print("Metrics (backtest; skill = 1 − the select_by metric / the mean baseline's):")
+    print("Metrics (backtest; skill = 1 − the select_by metric / that of the mean of the training months):")
     metrics = comparison.metrics
     _print_table(metrics.to_dict(orient="records"), list(metrics.columns))
 

@@ -298,7 +298,7 @@ def test_run_prints_the_run_folder_and_summary_and_they_exist(outcomes):
     # output.folder is ../reports, read from the spec's folder (configs/), not from cwd
     assert folder_path.parent == (outcome.cwd / "reports").resolve()
     assert sorted(p.name for p in folder_path.parent.iterdir()) == sorted([folder_path.name, "ledger.sqlite"])
-    assert "mean_baseline" in outcome.stdout and "ols" in outcome.stdout
+    assert "mean of the training months" in outcome.stdout and "OLS" in outcome.stdout
 
 
 # ---------------------------------------------------------------- in this process: cli.main
@@ -386,8 +386,10 @@ def test_a_console_table_writes_p_values_metrics_and_dashes_as_the_pages_do(caps
                   {"model": "ols", "mae": 1234.5, "p_holm": 0.003709},
                   {"model": "drift", "mae": 0.5, "p_holm": 0.0002}], ["model", "mae", "p_holm"])
     lines = capsys.readouterr().out.splitlines()
-    assert [line.split() for line in lines[1:4]] == [["mean_baseline", "12,346", "—"],
-                                                     ["ols", "1,235", "0.0037"],
+    # Headed in the catalogue's words, models named as the answer names them.
+    assert lines[0].split() == ["model", "MAE", "p", "(Holm)"]
+    assert [line.split() for line in lines[1:4]] == [["mean", "of", "the", "training", "months", "12,346", "—"],
+                                                     ["OLS", "1,235", "0.0037"],
                                                      ["drift", "0.5", "<", "0.001"]]
     assert lines[4] == DASH_NOTE
 
@@ -395,4 +397,4 @@ def test_a_console_table_writes_p_values_metrics_and_dashes_as_the_pages_do(caps
 def test_a_console_table_without_a_missing_value_has_no_footnote(capsys):
     from pipeline.cli import _print_table
     _print_table([{"model": "ols", "p_value": 0.5}], ["model", "p_value"])
-    assert capsys.readouterr().out.splitlines() == ["model  p_value", "ols       0.50"]
+    assert capsys.readouterr().out.splitlines() == ["model  p", "OLS    0.50"]

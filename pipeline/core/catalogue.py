@@ -63,7 +63,7 @@ CAPABILITIES = {
 }
 
 MODEL_KINDS: tuple[ModelKind, ...] = (
-    ModelKind("mean_baseline", "the mean baseline", "reference", "pipeline.models.baselines:MeanBaseline"),
+    ModelKind("mean_baseline", "mean of the training months", "reference", "pipeline.models.baselines:MeanBaseline"),
     ModelKind("calendar_month_mean", "calendar-month average", "reference",
               "pipeline.models.baselines:CalendarMonthMean", frozenset({"needs_time_order"}), always=True),
     ModelKind("trailing_mean", "trailing 12-month mean", "reference",
@@ -151,6 +151,13 @@ COLUMN_LABELS = {
     "model": "model", "n": "forecasts scored", SKILL: "skill against the mean",
     "skill_vs_best_rule": "skill against the best rule", "p_value": "p", "p_holm": "p (Holm)",
     "against_mean": "against the mean", "interval_score_95": "interval score, 95%",
+    "interval_score": "interval score", "method": "interval", "coverage": "held",
+    "std_error": "standard error", "low_95": "95% from", "high_95": "95% to",
+    "standard_errors": "standard errors", "cooks_distance": "Cook's distance",
+    "above_4_over_n": "above 4/n", "baseline_mae": "MAE of the mean",
+    "run_id": "run id",
+    "last_period": "last actual month", "mae_change": "MAE change", "rmse_change": "RMSE change",
+    f"{SKILL}_change": "skill change", "statistic": "test statistic",
 }
 
 

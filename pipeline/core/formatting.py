@@ -14,11 +14,17 @@ import math
 import numbers
 from decimal import ROUND_HALF_UP, Decimal
 
+from pipeline.core.catalogue import column_label, model_label
+
 MISSING = "—"
-DASH_NOTE = ("— no value: not defined for this row (the mean baseline is not tested against "
+DASH_NOTE = ("— no value: not defined for this row (the mean of the training months is not tested against "
              "itself, a check has no p-value or no usual threshold), or too few data to compute it.")
 TINY = 0.001           # below this a number keeps three significant digits, a p-value reads "< 0.001"
 SIGNIFICANT_DIGITS = 4
+SMALLEST_DECIMAL = Decimal("0.000001")   # below this a number is written as a power of ten
+SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+# Columns holding shares, shown as percents: an interval's level and the share it held.
+SHARE_COLUMNS = ("level", "coverage")
 P_DIGITS = 2
 
 
@@ -69,12 +75,35 @@ def format_number(value) -> str:
     if value == 0:
         return "0"
     if abs(value) < TINY:
-        return f"{value:.3g}"
+        return _small(value)
     rounded = _rounded(value, SIGNIFICANT_DIGITS)
     if abs(rounded) >= 1000:
         return _whole(value)
     text = f"{rounded:f}"
     return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+def _small(value: float) -> str:
+    """Return a number below 0.001 in size to three significant digits: in decimals down to
+    0.000001 (0.0000123), and below that as a power of ten (1.23 × 10⁻⁸), never "1.23e-08"."""
+    rounded = _rounded(value, 3)
+    if abs(rounded) >= SMALLEST_DECIMAL:
+        text = f"{rounded:f}"
+        return text.rstrip("0").rstrip(".")
+    mantissa, exponent = f"{float(rounded):.2e}".split("e")
+    mantissa = mantissa.rstrip("0").rstrip(".")
+    return f"{mantissa} × 10{str(int(exponent)).translate(SUPERSCRIPT)}"
+
+
+def format_share(value) -> str:
+    """Return a share (0 to 1) as a percent to three significant digits, trailing zeros
+    dropped: 0.8 reads "80%", 0.8016 "80.2%", 0.0123 "1.23%"; a dash when there is none."""
+    if is_missing(value) or isinstance(value, (bool, str)) or not isinstance(value, numbers.Real):
+        return format_number(value)
+    if float(value) == 0:
+        return "0%"
+    text = f"{_rounded(float(value) * 100, 3):f}"
+    return (text.rstrip("0").rstrip(".") if "." in text else text) + "%"
 
 
 def format_signed(value) -> str:
@@ -114,8 +143,11 @@ def is_p_column(name) -> bool:
 
 def format_cell(value, column=None) -> str:
     """Return a table cell as the pages show it: a p-value by ``format_p`` when its column
-    holds p-values, anything else by ``format_number``."""
-    return format_p(value) if column is not None and is_p_column(column) else format_number(value)
+    holds p-values, a share by ``format_share`` when its column holds shares (SHARE_COLUMNS),
+    anything else by ``format_number``."""
+    if column is not None and is_p_column(column):
+        return format_p(value)
+    return format_share(value) if column in SHARE_COLUMNS else format_number(value)
 
 
 def format_text(value) -> str:
@@ -147,8 +179,10 @@ def markdown_table(frame) -> str:
     """Return a table in Markdown, numbers as the report shows them, pipes escaped, and when a
     cell has no value, the line that says what its dash means under the table."""
     def cell(value, column=None) -> str:
+        if column == "model" and isinstance(value, str):
+            value = model_label(value)
         return format_cell(value, column).replace("|", "\\|").replace("\n", " ")
-    header = "| " + " | ".join(cell(c) for c in frame.columns) + " |"
+    header = "| " + " | ".join(cell(column_label(c)) for c in frame.columns) + " |"
     rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
     rows = list(frame.itertuples(index=False))
     body = ["| " + " | ".join(cell(v, c) for v, c in zip(row, frame.columns)) + " |" for row in rows]

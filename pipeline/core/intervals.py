@@ -27,6 +27,8 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
+from pipeline.core.catalogue import model_label
+
 LEVELS = (0.80, 0.95)
 FEWEST_ERRORS = 39   # errors a horizon's empirical bound is read from, borrowing neighbours' if need be
 SHORTFALL = 0.05     # backtest coverage this far below nominal is warned about
@@ -413,7 +415,7 @@ def shortfall_warning(coverage: pd.DataFrame | None, model: str, method: str | N
         return None
     held = " and ".join(f"the {percent(level)}% interval held {value:.0%} of the actuals"
                         for level, value in found)
-    return (f"{model}'s {method} intervals were too narrow in the backtest: {held}. Read them as "
+    return (f"{model_label(model)}'s {method} intervals were too narrow in the backtest: {held}. Read them as "
             "narrower than they are, and allow more room for error than they show")
 
 

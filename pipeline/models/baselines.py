@@ -1,6 +1,6 @@
 """Baselines: what a planner falls back on without a model, each fitted per series.
 
-The mean baseline is the reference every run compares against. The others
+The mean of the training months is the reference every run compares against. The others
 need the rows' months (``design.period``) and so apply only to time-ordered
 validation.
 """

@@ -28,7 +28,7 @@ def _finite(value) -> float | None:
 
 
 def _cost_rows(metrics: dict, metric_name: str) -> list[dict]:
-    """Return, per model but the mean baseline, its selection metric as scored (with the
+    """Return, per model but the mean of the training months, its selection metric as scored (with the
     estimates) and had the estimated drivers been known, and the relative cost."""
     after = {row["model"]: row.get(metric_name) for row in metrics.get("hindsight_models") or []}
     rows = []

@@ -70,7 +70,7 @@ def runs_table(book: HistoryBook) -> pd.DataFrame:
         "recommended": runs["recommended"].astype(str),
         "MAE": runs["run_id"].map(chosen["mae"]).astype(float),
         "skill against the mean": runs["run_id"].map(chosen["skill_vs_mean"]).astype(float),
-        "beat the mean baseline": [beat(v) for v in runs["beats_baseline"]]})
+        "beat the mean": [beat(v) for v in runs["beats_baseline"]]})
 
 
 def realised_table(book: HistoryBook) -> pd.DataFrame:

@@ -261,13 +261,13 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
     view["scale_note"] = (f"The model is of {transforms[linear]}({target or 'the target'}): an estimate "
                           f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
                           f"{view['label']} (all else equal)." if logged else "")
-    view["note"] = (f"{linear} fitted on all history" + (f", {kind} standard errors" if kind else "")
+    view["note"] = (f"{model_label(linear)} fitted on all history" + (f", {kind} standard errors" if kind else "")
                     + "; the 95% interval is for each coefficient." + (" " + view["scale_note"] if logged else ""))
     many = series_count > MANY_SERIES
     if many and "series" in terms and terms["series"].notna().any():
         # One fit per series: a row per series and term would bury the drivers.
         view.update(per_series=True, spread=spread_across_series(terms, terms["term"], logged), terms=None,
-                    note=f"{linear} fitted on each series' own history: per term, the median "
+                    note=f"{model_label(linear)} fitted on each series' own history: per term, the median "
                          "estimate across series, its quartiles, and the share of series whose "
                          f"p-value is below {SIGNIFICANT:g}; coefficients.csv holds every series' "
                          "row." + (f" The model is of {transforms[linear]}({target or 'the target'}): "
@@ -317,7 +317,7 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
     by_model = {row["model"]: row for row in summary}
     table = pd.DataFrame([{
         "model": m, "series": by_model[m]["series"],
-        "beats the mean baseline": share_text(by_model[m]["beats"], by_model[m]["series"]),
+        "beats the mean": share_text(by_model[m]["beats"], by_model[m]["series"]),
         "significantly": share_text(by_model[m]["beats_significantly"], by_model[m]["series"]),
         "skill 25%": by_model[m]["skill_q25"], "median skill": by_model[m]["skill_median"],
         "skill 75%": by_model[m]["skill_q75"]} for m in models if m in by_model])
@@ -329,13 +329,13 @@ def per_series_view(series_table: pd.DataFrame | None, summary: list[dict], fall
                           "skill_vs_mean": worst["skill_vs_mean"].to_numpy(float),
                           "p_value": worst["p_value"].to_numpy(float),
                           "mae": worst["mae"].to_numpy(float),
-                          "mean baseline mae": worst["series"].map(base_mae).to_numpy(float)})
+                          "baseline_mae": worst["series"].map(base_mae).to_numpy(float)})
     fell_back = None
     if fallbacks is not None and len(fallbacks):
         names = list(dict.fromkeys(fallbacks["series"].astype(str)))
         counts = fallbacks.groupby(["model", "stage"], sort=False)["series"].nunique()
         fell_back = {"count": len(names), "names": named(names),
-                     "how": "; ".join(f"{model}: {n:,} in the {'backtest' if stage == 'backtest' else 'final fit'}"
+                     "how": "; ".join(f"{model_label(model)}: {n:,} in the {'backtest' if stage == 'backtest' else 'final fit'}"
                                       for (model, stage), n in counts.items())}
     return {"count": series_count, "models": models, "summary": table, "featured": featured,
             "worst": worst, "fallbacks": fell_back, "level": level,
@@ -415,7 +415,7 @@ def pictured_models(models: list[str], kept: tuple) -> list[str]:
 def backtest_models(models: list[str], rows: list[dict], recommended: str, best_rule: str | None,
                     select_by: str) -> list[str]:
     """Return the models the backtest picture draws, in the order of ``models``: the recommended
-    one and the two references it is measured against (the mean baseline, the best simple
+    one and the two references it is measured against (the mean of the training months, the best simple
     rule); when the recommended model is one of those, the fitted model that scored best too."""
     chosen = {recommended, "mean_baseline", best_rule}
     if recommended == "mean_baseline" or recommended == best_rule:
@@ -494,7 +494,7 @@ def render_report(files: RunFiles | str | Path) -> str:
     rows = metrics["models"]
     recommended = metrics["recommended"]
     chosen = next((row for row in rows if row["model"] == recommended), {})
-    # The pictures draw the mean baseline, the fitted models and the best simple rule; the
+    # The pictures draw the mean of the training months, the fitted models and the best simple rule; the
     # other rules are in the tables (six lines or more would hide the ones that matter).
     every_model = pictured_models(list(dict.fromkeys(predictions["model"])),
                                   (metrics.get("best_rule"), recommended))

@@ -157,7 +157,7 @@ def render_spec(found: Inference, spec_path: Path) -> str:
         "",
         *_validation_lines(found.history_periods, holdout),
         "",
-        "models: [ols]               # the mean baseline is always fitted beside them",
+        "models: [ols]               # the mean of the training months is always fitted beside them",
         "",
         "output:",
         "  folder: reports",

@@ -8,7 +8,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import column_label, model_label
 from pipeline.core.intervals import shortfall_warning
 from pipeline.present.ahead import ahead_view
 from pipeline.present.first_screen import (
@@ -53,9 +52,8 @@ def comparison_tables(rows: list[dict], select_by: str) -> list[pd.DataFrame]:
     tables = []
     for columns in comparison_parts(rows, select_by):
         if columns:
-            frame = pd.DataFrame(rows).reindex(columns=columns)
-            frame["model"] = frame["model"].map(model_label)
-            tables.append(frame.rename(columns=column_label))
+            # markdown_table heads the columns in words and names the models by the catalogue.
+            tables.append(pd.DataFrame(rows).reindex(columns=columns))
     return tables
 
 

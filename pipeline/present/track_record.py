@@ -52,7 +52,7 @@ def _skill_sentences(skill: dict | None) -> list[str]:
 
 
 def skill_words(skill: dict | None) -> str | None:
-    """Return the realised skill against the mean baseline's own forecasts in words (None for a
+    """Return the realised skill against the forecasts of the mean of the training months in words (None for a
     track_record.json written before castline recorded it)."""
     if not skill:
         return None
@@ -60,19 +60,20 @@ def skill_words(skill: dict | None) -> str | None:
     if not skill.get("forecasts"):
         if not left_out:
             return None
-        return (f"Realised skill against the mean baseline's own forecasts: not known; the ledger "
-                f"holds no forecast of the mean baseline beside the {left_out} scored forecast(s) "
+        return (f"Realised skill against the forecasts of the mean of the training months: not known; the ledger "
+                f"holds no forecast of the mean of the training months beside the {left_out} scored forecast(s) "
                 "of the recommended models.")
     value = skill.get("skill")
-    said = format_percent(value) if value is not None else "not defined (the mean baseline's MAE is 0)"
-    words = (f"Realised skill against the mean baseline's own forecasts: {said} over "
+    said = format_percent(value) if value is not None else "not defined (the MAE of the mean of the training months is 0)"
+    words = (f"Realised skill against the forecasts of the mean of the training months: {said} over "
              f"{skill['months']} month(s), {skill['forecasts']} forecasts from {skill['runs']} "
              f"earlier run(s) (1 − realised MAE of each run's recommended model, "
-             f"{format_number(skill['model_mae'])}, / realised MAE of the mean baseline's "
-             f"forecasts of the same months and series, {format_number(skill['baseline_mae'])}).")
+             f"{format_number(skill['model_mae'])}, / realised MAE of the "
+             f"forecasts of the mean of the training months over the same months and series, "
+             f"{format_number(skill['baseline_mae'])}).")
     if left_out:
         words += (f" {left_out} scored forecast(s) of the recommended models have no forecast of "
-                  "the mean baseline beside them in the ledger and are left out.")
+                  "the mean of the training months beside them in the ledger and are left out.")
     return words
 
 
@@ -123,7 +124,7 @@ def track_record_view(track: dict | None, realised: pd.DataFrame | None, *, rows
     track_record.json): the warnings; for the recommended model of each earlier run, its forecasts
     against the actuals (the latest run's first, at most ``rows_shown``), its realised MAE beside
     the expected MAE and its interval hits by months ahead (the latest ``runs_shown`` runs), its
-    realised skill against the mean baseline's own forecasts; and the rows the picture draws."""
+    realised skill against the forecasts of the mean of the training months; and the rows the picture draws."""
     if track is None:
         return None
     view = {"warnings": list(track["warnings"]), "earlier_runs": track["earlier_runs"],
@@ -166,7 +167,7 @@ def track_record_view(track: dict | None, realised: pd.DataFrame | None, *, rows
             "run": by_run["forecast_run_id"].astype(str), "model": by_run["model"].astype(str),
             "forecasts": by_run["forecasts"].astype(int), "months": by_run["months"].astype(int),
             "realised MAE": by_run["model_mae"].astype(float),
-            "mean baseline's realised MAE": by_run["baseline_mae"].astype(float),
+            "realised MAE of the mean": by_run["baseline_mae"].astype(float),
             "realised skill": by_run["skill"].astype(float)})
     view["pictured"] = own[own["forecast_run_id"].isin(kept)]
     return view

@@ -182,7 +182,7 @@ def _coverage_warnings(scored: pd.DataFrame) -> list[str]:
 
 
 def _streak_warning(conn: sqlite3.Connection, runs: pd.DataFrame) -> list[str]:
-    """Return a warning when the latest tested runs did not beat the mean baseline as often in a
+    """Return a warning when the latest tested runs did not beat the mean of the training months as often in a
     row as the latest spec's output.warn_after_runs_without_skill allows."""
     latest = runs.iloc[-1]["run_id"]
     text = conn.execute("SELECT spec_json FROM runs WHERE run_id = ?", (latest,)).fetchone()[0]
@@ -198,7 +198,7 @@ def _streak_warning(conn: sqlite3.Connection, runs: pd.DataFrame) -> list[str]:
         streak += 1
     if streak < wanted:
         return []
-    return [f"the recommended model has not beaten the mean baseline in the last {streak} tested "
+    return [f"the recommended model has not beaten the mean of the training months in the last {streak} tested "
             f"run(s) (output.warn_after_runs_without_skill: {wanted})"]
 
 

@@ -34,7 +34,7 @@ class TrackRecord:
     recommended: dict[str, str] = field(default_factory=dict)   # earlier run → its recommended model
     warnings: list[str] = field(default_factory=list)
     runs_without_skill: int = 0     # runs in a row, this one included, not beating the baseline
-    # The recommended forecasts against the mean baseline's own forecasts of the same rows
+    # The recommended forecasts against the forecasts of the mean of the training months of the same rows
     # (``realised_skill``): over all earlier runs, and per run.
     skill: dict = field(default_factory=dict)
     skill_by_run: pd.DataFrame = field(default_factory=pd.DataFrame)
@@ -155,7 +155,7 @@ def realised_skill(realised: pd.DataFrame, recommended: dict[str, str]) -> tuple
     baseline's forecasts that run made of the same series and month; skill is
     1 − MAE(recommended) / MAE(baseline) over the pairs. A forecast without the baseline's
     (a ledger that recorded none) is left out and counted in ``without_baseline``. A run that
-    recommended the mean baseline itself counts, at a skill of 0: its recommendation was the
+    recommended the mean of the training months itself counts, at a skill of 0: its recommendation was the
     baseline's forecast. The overall figure pools every pair of every run (a month forecast
     by two runs counts twice, once per run); ``months`` counts the distinct months paired.
     """
@@ -244,7 +244,7 @@ def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
 
 
 def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool | None) -> tuple[str | None, int]:
-    """Return a warning when the recommended model has not beaten the mean baseline in the last
+    """Return a warning when the recommended model has not beaten the mean of the training months in the last
     N tested runs (this one included), and how many tested runs in a row it has not. A run
     whose validation gave no test (a single holdout: beats_baseline left empty) neither
     breaks nor extends the streak: it says nothing either way."""
@@ -261,7 +261,7 @@ def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool | None) -> tu
     if streak < wanted:
         return None, streak
     since = record[len(record) - wanted][0][:10]
-    return (f"the recommended model has not beaten the mean baseline in the last {wanted} tested "
+    return (f"the recommended model has not beaten the mean of the training months in the last {wanted} tested "
             f"run(s) (since {since}; {streak} in a row): the plain average forecasts as well; "
             f"review the drivers (output.warn_after_runs_without_skill: {wanted})"), streak
 
@@ -274,14 +274,14 @@ REALISED_SKILL_MONTHS = 12
 
 def realised_skill_warning(overall: dict) -> str | None:
     """Return a warning when, over at least REALISED_SKILL_MONTHS realised months, the
-    recommended forecasts were no more accurate than the mean baseline's own forecasts."""
+    recommended forecasts were no more accurate than the forecasts of the mean of the training months."""
     value = overall.get("skill", float("nan"))
     if overall.get("months", 0) < REALISED_SKILL_MONTHS or not np.isfinite(value) or value > 0:
         return None
     return (f"Over the last {overall['months']} realised months, the recommended forecasts were no "
-            f"more accurate than the mean baseline's own forecasts (realised skill {format_percent(value)}; "
+            f"more accurate than the forecasts of the mean of the training months (realised skill {format_percent(value)}; "
             f"{overall['forecasts']} forecasts from {overall['runs']} earlier run(s), "
-            "1 − MAE of the recommended model / MAE of the mean baseline)")
+            "1 − MAE of the recommended model / MAE of the mean of the training months)")
 
 
 # Beyond this many different specs tried on one input, a win may be the luck of the search.

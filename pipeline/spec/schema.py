@@ -520,7 +520,7 @@ class Spec(StrictModel):
 
     @property
     def model_kinds(self) -> list[str]:
-        """Return the kinds of every model fitted, the mean baseline first."""
+        """Return the kinds of every model fitted, the mean of the training months first."""
         return [m.kind for m in self.models]
 
     @property

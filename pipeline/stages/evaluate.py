@@ -51,17 +51,17 @@ class Evaluation:
     verdict: str
     select_by: str
     notes: list[str] = field(default_factory=list)
-    # Per model other than the mean baseline: how many series it beats the mean baseline on,
+    # Per model other than the mean of the training months: how many series it beats the mean of the training months on,
     # how many significantly, and the quartiles of its per-series skill (see ``series_summary``).
     series_summary: pd.DataFrame = field(default_factory=pd.DataFrame)
     # With drivers castline estimates: each model's metrics had those drivers been known
-    # (ex-post), the mean baseline first; empty otherwise. ``table`` is ex-ante.
+    # (ex-post), the mean of the training months first; empty otherwise. ``table`` is ex-ante.
     hindsight: pd.DataFrame = field(default_factory=pd.DataFrame)
     # Which drivers were known ahead, and what not knowing the estimated ones cost each
     # model, in words for the console; the pages say it from metrics.json's drivers_ahead
     # and hindsight_models, so these are not among ``notes``.
     ahead_notes: list[str] = field(default_factory=list)
-    # The best simple rule (the mean baseline when no other rule beats it), whether the
+    # The best simple rule (the mean of the training months when no other rule beats it), whether the
     # recommended model beats it significantly too, and whether the validation gave a test.
     best_rule: str = BASELINE
     beats_best_rule: bool = False
@@ -176,7 +176,7 @@ def grouped_scores(predictions: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
 
 
 def _with_skill(table: pd.DataFrame, keys: list[str], select_by: str = "mae") -> pd.DataFrame:
-    """Add, within each key, skill against the mean baseline in the ``select_by`` metric,
+    """Add, within each key, skill against the mean of the training months in the ``select_by`` metric,
     1 − metric_model / metric_baseline, and replace R² by R² out of sample against the mean
     baseline's forecast, 1 − SSE_model / SSE_baseline over the same rows (Campbell &
     Thompson 2008, whose benchmark is the historical-mean forecast): the mean of the months
@@ -266,8 +266,8 @@ def origin_differences(predictions: pd.DataFrame, model: str, select_by: str,
 
 def series_tests(predictions: pd.DataFrame, backtest: BacktestResult,
                  select_by: str) -> pd.DataFrame:
-    """Return, per model other than the mean baseline and per series, the one-sided test of
-    "the model's loss is lower than the mean baseline's" on that series' mean loss
+    """Return, per model other than the mean of the training months and per series, the one-sided test of
+    "the model's loss is lower than that of the mean of the training months" on that series' mean loss
     difference per origin (``significance.origin_tests``), origins in time order; a series
     scored at fewer than MIN_ORIGINS origins, or a validation that gives no test, gets NaN.
     Columns: model, series, test_statistic, p_value, test_n (the origins tested on)."""
@@ -337,8 +337,8 @@ def _tests_by_series(means: np.ndarray, scored: np.ndarray,
 
 
 def series_summary(by_series: pd.DataFrame) -> pd.DataFrame:
-    """Return, per model other than the mean baseline: the series scored, how many and what
-    share it beats the mean baseline on (skill > 0), how many and what share significantly,
+    """Return, per model other than the mean of the training months: the series scored, how many and what
+    share it beats the mean of the training months on (skill > 0), how many and what share significantly,
     and the quartiles of its per-series skill."""
     columns = ["model", "series", "beats", "beats_share", "beats_significantly",
                "significant_share", "skill_q25", "skill_median", "skill_q75"]
@@ -378,7 +378,7 @@ def _with_series_tests(by_series: pd.DataFrame, tests: pd.DataFrame, level: floa
 def _hindsight_table(predictions: pd.DataFrame, hindsight: pd.DataFrame | None,
                      select_by: str) -> pd.DataFrame:
     """Return every metric of the models had the estimated drivers been known (ex-post),
-    with the mean baseline (which reads no driver) first; empty without such drivers."""
+    with the mean of the training months (which reads no driver) first; empty without such drivers."""
     if hindsight is None or not len(hindsight):
         return pd.DataFrame()
     baseline = predictions[predictions["model"] == BASELINE]
@@ -438,7 +438,7 @@ def _tested(predictions: pd.DataFrame, model: str, reference: str, select_by: st
 
 def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
               tested: bool) -> list[str]:
-    """Return each model's reading against the mean baseline, by its Holm-adjusted p-value
+    """Return each model's reading against the mean of the training months, by its Holm-adjusted p-value
     (adjusted for the models compared; the raw one is in the table's p_value)."""
     readings = []
     for row, identical in zip(table.itertuples(), same):
@@ -446,20 +446,20 @@ def _readings(table: pd.DataFrame, same: list[bool], level: float, metric: str,
         if row.model == BASELINE:
             readings.append("the reference")
         elif identical:
-            readings.append("the same forecasts as the mean baseline")
+            readings.append("the same forecasts as the mean")
         elif not tested:
             lower = np.isfinite(row.skill_vs_mean) and row.skill_vs_mean > 0
             readings.append(f"{'lower' if lower else 'no lower'} {metric}, not tested")
         elif np.isfinite(adjusted) and adjusted < level:
-            readings.append(f"beats the mean baseline (Holm {p_text(adjusted)})")
+            readings.append(f"beats the mean (Holm {p_text(adjusted)})")
         else:
-            readings.append(f"no better than the mean baseline (Holm {p_text(adjusted)})")
+            readings.append(f"no better than the mean (Holm {p_text(adjusted)})")
     return readings
 
 
 def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: str,
                    testable: bool) -> tuple[str, pd.DataFrame]:
-    """Return the best simple rule (the mean baseline when no other rule beats it) and the
+    """Return the best simple rule (the mean of the training months when no other rule beats it) and the
     table with each linear model's skill against it and its test, Holm-adjusted over the
     linear models compared with it."""
     rules = table[[is_simple_rule(name) for name in table["model"]]]
@@ -479,7 +479,7 @@ def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: st
 
 
 def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
-    """Return the metrics of each model, its skill against the mean baseline and the best
+    """Return the metrics of each model, its skill against the mean of the training months and the best
     simple rule, and the answer."""
     predictions = backtest.predictions
     select_by = spec.select_by
@@ -508,7 +508,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
         notes.append(f"Significance: {refusal}.")
     for row in table.itertuples():
         if row.mape_rows_left_out:
-            notes.append(f"{row.model}: MAPE leaves out {row.mape_rows_left_out} rows whose actual "
+            notes.append(f"{model_label(row.model)}: MAPE leaves out {row.mape_rows_left_out} rows whose actual "
                          "is 0 (a percentage error is undefined there)")
 
     baseline_value = float(table.loc[table["model"] == BASELINE, select_by].iloc[0])

@@ -165,7 +165,7 @@ def test_metrics_rank_a_better_forecast_the_way_they_say():
 @pytest.mark.parametrize(("name", "label"), [
     ("ols", "OLS"),
     ("ols_per_series", "OLS per series"),
-    ("mean_baseline", "the mean baseline"),
+    ("mean_baseline", "mean of the training months"),
     ("seasonal_naive", "same month last year"),
     ("calendar_month_mean", "calendar-month average"),
     ("trailing_mean", "trailing 12-month mean"),

@@ -82,12 +82,17 @@ def test_large_values_keep_every_whole_digit_with_separators_and_no_exponent(val
 @pytest.mark.parametrize(("value", "shown"), [
     (0.00012345, "0.000123"),     # below 0.001: three significant digits, 1.2345e-4 → 0.000123
     (-0.0005, "-0.0005"),
-    (1.5e-9, "1.5e-09"),          # far below: scientific, never rounded away to 0
+    (0.0000012345, "0.00000123"),  # down to 0.000001 still in decimals
+    (1.5e-9, "1.5 × 10⁻⁹"),       # far below: a power of ten, never "1.5e-09", never rounded to 0
+    (-2.25e-12, "-2.25 × 10⁻¹²"),
 ])
 def test_tiny_values_are_not_rounded_to_zero(value, shown):
-    # Rule: below 0.001, three significant digits, so a small number never reads as 0.
+    # Rule: below 0.001, three significant digits, so a small number never reads as 0; below
+    # 0.000001 a power of ten with a superscript exponent, never the "e" of a program.
     assert format_number(value) == shown
-    assert float(shown) != 0.0
+    assert "e" not in shown
+    plain = shown.replace(" × 10", "e").translate(str.maketrans("⁻⁰¹²³⁴⁵⁶⁷⁸⁹", "-0123456789"))
+    assert float(plain) != 0.0 and abs(float(plain) - value) <= 0.005 * abs(value)
 
 
 @pytest.mark.parametrize(("p", "shown"), [
@@ -147,10 +152,10 @@ def test_markdown_table_layout_and_cells():
     lines = markdown_table(frame).splitlines()
     # Rule: a table with a dash says what it means in one line under it.
     assert lines == [
-        "| model | mae | n | p_holm |",
+        "| model | MAE | forecasts scored | p (Holm) |",   # headed in the catalogue's words
         "| --- | --- | --- | --- |",
-        "| ols | 3.142 | 1,234 | 0.0037 |",
-        "| mean_baseline | — | 5 | — |",
+        "| OLS | 3.142 | 1,234 | 0.0037 |",                 # models named as the answer names them
+        "| mean of the training months | — | 5 | — |",
         "",
         DASH_NOTE,
     ]
@@ -161,7 +166,7 @@ def test_markdown_table_layout_and_cells():
 
 def test_markdown_table_without_a_missing_value_has_no_footnote():
     frame = pd.DataFrame({"model": ["ols"], "mae": [12345.6]})
-    assert markdown_table(frame).splitlines() == ["| model | mae |", "| --- | --- |", "| ols | 12,346 |"]
+    assert markdown_table(frame).splitlines() == ["| model | MAE |", "| --- | --- |", "| OLS | 12,346 |"]
 
 
 def test_markdown_table_escapes_pipes_and_folds_newlines():

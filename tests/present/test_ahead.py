@@ -20,6 +20,7 @@ from conftest import DEMO_SPEC, tiny_data, write_tiny_spec
 
 import pipeline
 from pipeline.cli import main
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present.pages import render_pages
 
@@ -138,7 +139,7 @@ def test_the_ex_post_table_holds_metrics_json_in_both_pages(demo_run, demo_folde
     post = {row["model"]: row["mae"] for row in metrics["hindsight_models"]}
     others = [m for m in post if m != "mean_baseline"]
     assert others == ["ols"]
-    expected = [[m, format_number(ante[m]), format_number(post[m]),
+    expected = [[model_label(m), format_number(ante[m]), format_number(post[m]),
                  f"{(ante[m] - post[m]) / post[m]:+.0%}"] for m in others]
     # 149.5 as scored against 127.9 had they been known: +17%, as the run's console note says.
     assert any("its MAE would have been 127.9 rather than 149.5 (+17%" in note
@@ -148,7 +149,7 @@ def test_the_ex_post_table_holds_metrics_json_in_both_pages(demo_run, demo_folde
     lines = answer.split("Had rainfall_mm and mean_temp_c been known ahead:\n\n", 1)[1].splitlines()
     assert lines[0] == "| model | MAE as scored | MAE if known | cost |"
     assert [[cell.strip() for cell in line.strip("|").split(" | ")] for line in lines[2:3]] == expected
-    assert expected == [["ols", "149.5", "127.9", "+17%"]]
+    assert expected == [["OLS", "149.5", "127.9", "+17%"]]
     rows = _block(_page(demo_folder, "report.html")).rows
     assert [[text for _, text in row] for row in rows if row] == expected
     (cells,) = [row for row in rows if row]

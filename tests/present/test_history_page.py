@@ -21,6 +21,7 @@ import yaml
 from browser import read_page
 
 from pipeline import cli
+from pipeline.core.catalogue import model_label
 
 SECTIONS = ["warnings", "runs", "metrics", "realised", "revisions", "changes", "cautions"]
 
@@ -151,7 +152,7 @@ def test_the_warnings_each_run_gave_come_from_its_folder(page):
         stated = coverage[coverage["method"] == method]
         if (stated["coverage"] < stated["level"] - 0.05).any():
             too_narrow = [w for w, runs_of in zip(given["warning"], given["runs"]) if w.startswith(
-                f"{document['recommended']}'s {method} intervals were too narrow in the backtest")
+                f"{model_label(document['recommended'])}'s {method} intervals were too narrow in the backtest")
                 and label in runs_of.split(", ")]
             assert len(too_narrow) == 1
             expected.setdefault(too_narrow[0], []).append(label)

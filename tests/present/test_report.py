@@ -90,7 +90,7 @@ def test_the_comparison_tables_hold_the_numbers_of_metrics_json(run_folder):
         columns = re.findall(r'<th[^>]*data-column="([^"]+)"', header)
         models = re.findall(r'<tr data-model="([^"]+)">', html.split(f'<table id="{table_id}">')[1].split("</table>")[0])
         assert models == [m["model"] for m in metrics["models"]]
-        assert models[0] == "mean_baseline" and rows[0][0][1] == "the mean baseline"   # the catalogue's words
+        assert models[0] == "mean_baseline" and rows[0][0][1] == "mean of the training months"   # the catalogue's words
         for row, model in zip(rows, metrics["models"]):
             for column, (value, _) in zip(columns, row):
                 if column in ("model", "against_mean"):
@@ -193,7 +193,7 @@ def test_the_report_opens_in_a_browser_with_every_section_and_image_and_no_reque
 def test_the_backtest_picture_states_whose_errors_were_smallest_from_the_single_origin(run_folder):
     # The demo's holdout has one origin, so the picture draws its predictions 1 to 12 months
     # ahead in one panel. Reference: metrics.json's MAE of each model (over every prediction of
-    # that origin), among the recommended model, the mean baseline and the best simple rule
+    # that origin), among the recommended model, the mean of the training months and the best simple rule
     # (the models the picture draws).
     metrics = json.loads((run_folder / "metrics.json").read_text(encoding="utf-8"))
     drawn = {metrics["recommended"], "mean_baseline", metrics["best_rule"]}

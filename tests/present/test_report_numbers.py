@@ -77,7 +77,7 @@ def test_report_tables_show_no_nan_none_or_n_a_and_explain_every_dash(run_folder
     for cells, note in tables:
         assert not [c for c in cells if NOT_A_VALUE.search(c)], cells
         assert (note == DASH_NOTE) if MISSING in cells else note is None, cells
-    # The demo's comparison (the mean baseline has no test against itself) and its residual
+    # The demo's comparison (the mean of the training months has no test against itself) and its residual
     # checks (a fit measure has no p-value) hold dashes, so the footnote is there to find.
     assert sum(note is not None for _, note in tables) >= 2
     assert page.count(DASH_NOTE) == sum(note is not None for _, note in tables)
@@ -107,7 +107,7 @@ def test_report_p_values_have_two_significant_digits(shipped_run):
     for row in re.findall(r"<tr[^>]*>(.*?)</tr>", body, re.S):
         cells = dict(zip(columns, (html_text.unescape(c) for c in CELL.findall(row))))
         shown.append(cells["p_holm"])
-    assert shown[0] == MISSING                       # the mean baseline is not tested against itself
+    assert shown[0] == MISSING                       # the mean of the training months is not tested against itself
     assert all(P_CELL.match(cell) for cell in shown[1:]), shown
 
 

@@ -87,7 +87,7 @@ def test_series_csv_rows_equal_the_evaluation_by_series(many):
     expected = many.evaluation.by_series.reset_index(drop=True)
     assert list(written.columns) == list(expected.columns)
     assert {"skill_vs_mean", "p_value", "beats", "beats_significantly"} <= set(written.columns)
-    # seven models (the mean baseline, the three listed, and the simple rules a rolling origin
+    # seven models (the mean of the training months, the three listed, and the simple rules a rolling origin
     # always adds: calendar_month_mean, trailing_mean, last_value) and 33 series
     assert len(written) == 7 * 33
     pd.testing.assert_frame_equal(written, expected, check_dtype=False, check_exact=True)
@@ -271,7 +271,7 @@ def test_when_the_mean_baseline_wins_the_worst_series_are_those_of_the_best_othe
                            select_by="mae", level=0.05, series_count=3)
     assert view["models"] == ["ols", "ridge"]          # the linear models; drift is naive
     assert list(view["summary"]["model"]) == ["ols", "ridge"]
-    assert view["featured"] == "ridge"                  # lowest MAE after the mean baseline
+    assert view["featured"] == "ridge"                  # lowest MAE after the mean of the training months
     assert view["worst"]["series"].tolist() == ["c", "a", "b"]   # ridge's skills −0.2, −0.1, 0.3
     # A naive model recommended is the one whose worst series are shown.
     assert per_series_view(table, summary_of(table), None, rows=rows, recommended="drift",
@@ -311,7 +311,7 @@ def test_a_dollar_sign_in_a_series_name_is_drawn_as_text_in_the_forecast_picture
 
 
 def test_the_pictures_draw_the_fitted_models_the_mean_and_the_rules_that_matter():
-    # The catalogue's families decide: simple rules other than the mean baseline are drawn only
+    # The catalogue's families decide: simple rules other than the mean of the training months are drawn only
     # when kept (the best rule, the recommended model); fitted models and unknown names always.
     from pipeline.present.report import pictured_models
     every = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value",

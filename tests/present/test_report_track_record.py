@@ -27,6 +27,7 @@ import pytest
 from conftest import tiny_data, write_tiny_spec
 
 import pipeline
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_percent, format_signed
 from pipeline.present import report
 from pipeline.present.pages import render_pages
@@ -158,7 +159,7 @@ def test_realised_mae_bias_and_expected_mae_by_months_ahead_equal_pandas_on_the_
         expected=("expected", "first")).reset_index()
     shown = frame_of(parsed(section(last)), "track-record-by-horizon")
     assert list(shown["run"]) == list(expected["run"]) == [runs[0][0].name] * 3 + [runs[1][0].name] * 3
-    assert list(shown["model"]) == list(mine.drop_duplicates(["run", "horizon"])["model"])
+    assert list(shown["model"]) == list(mine.drop_duplicates(["run", "horizon"])["model"].map(model_label))
     assert list(shown["months ahead"]) == list(expected["horizon"].astype(float))
     assert list(shown["forecasts"]) == list(expected["forecasts"].astype(float)) == [2.0] * 6
     assert shown["realised MAE"].to_numpy() == pytest.approx(expected["mae"].to_numpy())
@@ -220,13 +221,13 @@ def test_the_realised_skill_against_the_mean_baselines_own_forecasts_is_shown_pe
     shown = frame_of(parsed(section(last)), "track-record-skill-table")
     assert list(shown["run"]) == list(per_run.index)
     assert shown["realised MAE"].to_numpy() == pytest.approx(per_run["model"].to_numpy())
-    assert shown["mean baseline's realised MAE"].to_numpy() == pytest.approx(per_run["baseline"].to_numpy())
+    assert shown["realised MAE of the mean"].to_numpy() == pytest.approx(per_run["baseline"].to_numpy())
     assert shown["realised skill"].to_numpy() == pytest.approx(1 - per_run["model"] / per_run["baseline"])
     track = json.loads((last / "track_record.json").read_text(encoding="utf-8"))["realised_skill"]
     assert track["skill"] == pytest.approx(1 - pooled["model"].mean() / pooled["baseline"].mean())
     words = html.unescape(section(last))
     assert "12 forecasts from 2 earlier run(s)" in words
-    assert f"Realised skill against the mean baseline's own forecasts: {format_percent(track['skill'])} " \
+    assert f"Realised skill against the forecasts of the mean of the training months: {format_percent(track['skill'])} " \
            "over 6 month(s)" in words
 
 

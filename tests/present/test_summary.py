@@ -36,7 +36,8 @@ def table_rows(text: str, heading: str) -> list[list[str]]:
 HEADINGS = {"model": "model", "n": "forecasts scored", "mae": "MAE", "rmse": "RMSE", "mape": "MAPE",
             "smape": "sMAPE", "wape": "WAPE", "mase": "MASE", "r2": "R²", "bias": "bias",
             "skill_vs_mean": "skill against the mean"}
-MODEL_WORDS = {"mean_baseline": "the mean baseline", "ols": "OLS", "calendar_month_mean": "calendar-month average",
+MODEL_WORDS = {"mean_baseline": "mean of the training months", "ols": "OLS",
+               "calendar_month_mean": "calendar-month average",
                "trailing_mean": "trailing 12-month mean", "last_value": "last value",
                "seasonal_naive": "same month last year"}
 

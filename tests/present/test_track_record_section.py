@@ -35,7 +35,7 @@ def test_one_row_per_earlier_run_recommended_model_and_months_ahead():
     rows = body(track_record_section(TRACK, REALISED))
     # run-1 ols, 1 month ahead: errors +3, −1 → MAE 2, bias 1, inside 80% 1 of 2 = 0.5
     # run-2 ridge, 2 months ahead: error −4 → MAE 4, bias −4
-    assert rows == ["| run-1 | ols | 1 | 2 | 2 | 2 | 1 | 0.5 | 1 |",
+    assert rows == ["| run-1 | OLS | 1 | 2 | 2 | 2 | 1 | 0.5 | 1 |",   # models named by the catalogue
                     "| run-2 | ridge | 2 | 1 | 4 | 2 | -4 | 1 | 1 |"]
     assert "2 earlier run(s) of this spec are in the ledger `/data/ledger.sqlite`." in \
         track_record_section(TRACK, REALISED)
@@ -89,10 +89,10 @@ SKILL = {"forecasts": 4, "months": 2, "model_mae": 4.25, "baseline_mae": 5.0, "s
 
 def test_the_realised_skill_against_the_baselines_own_forecasts_in_one_sentence():
     section = track_record_section({**TRACK, "realised_skill": SKILL}, REALISED)
-    assert ("Realised skill against the mean baseline's own forecasts: 15% over 2 month(s), 4 forecasts "
+    assert ("Realised skill against the forecasts of the mean of the training months: 15% over 2 month(s), 4 forecasts "
             "from 2 earlier run(s) (1 − realised MAE of each run's recommended model, 4.25, / realised "
-            "MAE of the mean baseline's forecasts of the same months and series, 5).") in section
-    assert "1 scored forecast(s) of the recommended models have no forecast of the mean baseline" in section
+            "MAE of the forecasts of the mean of the training months over the same months and series, 5).") in section
+    assert "1 scored forecast(s) of the recommended models have no forecast of the mean of the training months" in section
     # it comes before the table
     assert section.index("Realised skill") < section.index("| run |")
 
@@ -101,8 +101,8 @@ def test_without_baseline_forecasts_the_realised_skill_is_said_to_be_unknown():
     unknown = {**SKILL, "forecasts": 0, "months": 0, "model_mae": None, "baseline_mae": None, "skill": None,
                "runs": 0, "without_baseline": 3, "runs_without_baseline": ["run-1", "run-2"]}
     section = track_record_section({**TRACK, "realised_skill": unknown}, REALISED)
-    assert ("Realised skill against the mean baseline's own forecasts: not known; the ledger holds no "
-            "forecast of the mean baseline beside the 3 scored forecast(s) of the recommended models.") in section
+    assert ("Realised skill against the forecasts of the mean of the training months: not known; the ledger holds no "
+            "forecast of the mean of the training months beside the 3 scored forecast(s) of the recommended models.") in section
 
 
 def test_a_track_record_written_before_realised_skill_reads_without_it():

@@ -156,7 +156,7 @@ def test_printed_on_the_console_the_intervals_are_columns_too(runs, tmp_path, ca
     assert cli.main(["forecast", str(result.folder.path / "model.json"), str(path), "--model", "ols"]) == 0
     lines = capsys.readouterr().out.splitlines()
     assert lines[0].split() == ["period", "horizon", "series", "model", "forecast", *EMPIRICAL]
-    assert len(lines) == 1 + len(_future(result)) and lines[1].split()[:4] == ["2026-11", "1", "East", "ols"]
+    assert len(lines) == 1 + len(_future(result)) and lines[1].split()[:4] == ["2026-11", "1", "East", "OLS"]
 
 
 # ------------------------------------------------------------------ damaged intervals

@@ -173,7 +173,7 @@ def test_the_second_run_scores_the_first_runs_forecasts_from_its_files(tiny_runs
     actual = data.assign(period=data["month"].str[:7]).dropna(subset=["y"])
     merged = forecast.merge(actual[["period", "y"]], on="period")   # pandas, from the files
     realised = pd.read_csv(second.folder.path / "realised.csv")
-    # 6 models (the mean baseline, ols and the four simple rules a holdout adds) × 3 months
+    # 6 models (the mean of the training months, ols and the four simple rules a holdout adds) × 3 months
     # now with actuals
     assert len(realised) == len(merged) == 6 * 3
     joined = realised.merge(merged, on=["model", "period"])
@@ -204,7 +204,7 @@ def test_a_run_without_skill_is_warned_about_after_the_set_number_of_runs(tmp_pa
     record = track_record(spec, data, Evaluation())
     assert record.earlier_runs == 0 and record.runs_without_skill == 1
     assert len(record.warnings) == 1
-    assert "not beaten the mean baseline in the last 1 tested run" in record.warnings[0]
+    assert "not beaten the mean of the training months in the last 1 tested run" in record.warnings[0]
     Evaluation.beats_baseline = True
     assert track_record(spec, data, Evaluation()).warnings == []
     # A run whose validation gave no test says nothing either way: no streak, no warning.
@@ -332,7 +332,7 @@ def test_the_realised_skill_warning_needs_twelve_realised_months():
     assert realised_skill_warning(eleven) is None
     assert realised_skill_warning(twelve).startswith(
         "Over the last 12 realised months, the recommended forecasts were no more accurate than the "
-        "mean baseline's own forecasts (realised skill 0%")
+        "forecasts of the mean of the training months (realised skill 0%")
     # errors of 12 against 10: skill 1 − 12/10 = −20%; errors of 9: 1 − 9/10 = +10%, no warning
     worse = realised_skill(months_of_equal_errors(12, 12.0), {"run-1": "ols"})[1]
     assert "(realised skill -20%" in realised_skill_warning(worse)

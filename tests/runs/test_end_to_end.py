@@ -44,7 +44,7 @@ CALENDAR_TERMS = {"trend": "months since 2019-01", "sin1": "sin(2π·month/12)",
                   "cos2": "cos(2π·2·month/12)"}
 
 
-# The models of the (holdout) demo: the mean baseline, the listed ols, and the simple rules a
+# The models of the (holdout) demo: the mean of the training months, the listed ols, and the simple rules a
 # time-ordered validation always compares, in the catalogue's order.
 DEMO_MODELS = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value",
                "seasonal_naive"]

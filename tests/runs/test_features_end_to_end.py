@@ -57,7 +57,7 @@ def test_the_demo_spec_runs(demo_spec_path, tmp_path):
     result = pipeline.run(demo_spec_path, output_folder=tmp_path)
     assert result.evaluation.recommended == "ols"
     assert "months since 2019-01" in set(result.coefficients["term"])
-    # six models (the mean baseline, ols and the four simple rules a rolling origin always
+    # six models (the mean of the training months, ols and the four simple rules a rolling origin always
     # compares) × 12 rows to forecast (four regions × three months)
     assert list(result.forecast["model"].unique()) == [
         "mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive"]

@@ -19,6 +19,7 @@ from conftest import tiny_data, write_tiny_spec
 
 import pipeline
 from pipeline import cli
+from pipeline.core.catalogue import MODEL_KINDS, PER_SERIES, PER_SERIES_KINDS, model_label
 from pipeline.core.formatting import DASH_NOTE, MISSING
 from pipeline.present.history_plot import RERUN_SPREAD, history_figure
 from pipeline.record import ledger
@@ -65,13 +66,17 @@ def printed(capsys, *args: str) -> dict[str, list[str]]:
 
 
 def cells(lines: list[str], run_ids) -> list[tuple[str, str]]:
-    """Return (run id, model) of each table row: the run id it names and the first word after
-    it that is not a month."""
+    """Return (run id, model) of each table row: the run id it names, and the model whose
+    catalogue label (the console names models as the answer does) follows it, after any month."""
+    names = [*(kind.name for kind in MODEL_KINDS), *(name + PER_SERIES for name in PER_SERIES_KINDS)]
+    by_label = sorted(((model_label(name), name) for name in names), key=lambda pair: -len(pair[0]))
     rows = []
     for line in lines:
         words = line.split()
         at = next(i for i, w in enumerate(words) if w in set(run_ids))
-        model = next(w for w in words[at + 1:] if not (len(w) == 7 and w[4] == "-"))
+        rest = [w for w in words[at + 1:] if not (len(w) == 7 and w[4] == "-")]
+        text = " ".join(rest) + " "
+        model = next(name for label, name in by_label if text.startswith(label + " "))
         rows.append((words[at], model))
     return rows
 

@@ -25,7 +25,7 @@ decimals) and e_t ~ N(0, 1) independent. Every y is above zero (it would need e_
 so the target is never below zero. The spec fits OLS to each series alone on x and one pair of
 calendar-month Fourier terms (the model the data follow), validated at rolling origins 12
 months ahead (48 months in the first window, an origin every 3 months: 17 origins); castline
-adds the mean baseline and the simple rules. The true future is
+adds the mean of the training months and the simple rules. The true future is
 FUTURE_DRAWS independent draws of e_t for each series' 12 months ahead (the forecast is fixed,
 the draws are not), so each third of the series holds 35 series × 12 months × 5 draws = 2,100
 future points.

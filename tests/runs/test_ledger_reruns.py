@@ -42,7 +42,7 @@ RERUNS = 6
 REVISED_MONTH, REVISED_SERIES, REVISION, REVISED_FROM = pd.Period("2026-06", "M"), "North", 250, 3
 SHOCK_MONTH, SHOCK_SERIES, SHOCK = pd.Period("2026-10", "M"), "West", 1.6
 CHANGED_SPEC_KEYS = {"description": "Rerun with a looser test.", "significance_level": 0.1}
-# The models of each rerun: the mean baseline, ols, and the simple rules a holdout always adds.
+# The models of each rerun: the mean of the training months, ols, and the simple rules a holdout always adds.
 MODELS = ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean", "last_value", "seasonal_naive"]
 
 
@@ -133,7 +133,7 @@ def actuals(data: pd.DataFrame) -> pd.DataFrame:
 
 def backtest_scores(rerun: Rerun, by: list[str]) -> pd.DataFrame:
     """Return MAE and RMSE from the run folder's predictions.csv, and skill = 1 − MAE/MAE of
-    the mean baseline (the README's definition)."""
+    the mean of the training months (the README's definition)."""
     predictions = rerun.table("predictions.csv")
     errors = predictions["prediction"] - predictions["actual"]
     scored = predictions.assign(abs_error=errors.abs(), sq_error=errors ** 2)
@@ -326,7 +326,7 @@ def test_the_summary_shows_the_track_record_before_the_data(replay):
     assert summary.index("## Track record") < summary.index("## Data")
     assert f"{RERUNS - 1} earlier run(s) of this spec are in the ledger `{replay.ledger}`" in summary
     first_run_row = next(line for line in summary.splitlines()
-                         if line.startswith(f"| {replay.reruns[0].run_id} | ols | 1 |"))
+                         if line.startswith(f"| {replay.reruns[0].run_id} | OLS | 1 |"))
     scored = scored_forecasts(replay.reruns[0], replay.reruns[-1].data)
     one_ahead = scored[(scored["model"] == "ols") & (scored["horizon"] == 1)]
     assert f"| {one_ahead['error'].abs().mean():.4g} |" in first_run_row

@@ -317,7 +317,7 @@ def test_an_older_ledger_is_migrated_by_the_next_run_and_its_runs_kept(tmp_path,
         assert [r[0] for r in conn.execute("SELECT run_id FROM runs ORDER BY created")] == [
             OLD_RUN, result.folder.run_id]
         methods = dict(conn.execute("SELECT run_id, COUNT(interval_method) FROM forecasts GROUP BY run_id"))
-        # 6 models (the mean baseline, ols, the four simple rules) × 4 regions × 3 months
+        # 6 models (the mean of the training months, ols, the four simple rules) × 4 regions × 3 months
         assert methods == {OLD_RUN: 0, result.folder.run_id: 6 * 12}
         assert {r[0] for r in conn.execute("SELECT DISTINCT run_id FROM periods")} == {result.folder.run_id}
     # The old run's forecasts of 2026-10 are scored against the demo's actuals, with the
@@ -348,7 +348,7 @@ def test_an_older_ledger_without_baseline_forecasts_gives_no_realised_skill_and_
     assert (skill["forecasts"], skill["skill"], skill["without_baseline"]) == (0, None, 4)
     assert skill["runs_without_baseline"] == [OLD_RUN]
     assert [(r["forecast_run_id"], r["forecasts"], r["skill"]) for r in skill["by_run"]] == [(OLD_RUN, 0, None)]
-    assert "Realised skill against the mean baseline's own forecasts: not known" in \
+    assert "Realised skill against the forecasts of the mean of the training months: not known" in \
         result.folder.summary.read_text(encoding="utf-8")
     assert not any("realised months" in w for w in result.warnings)
 
@@ -466,9 +466,9 @@ def test_a_model_that_never_beats_the_mean_is_warned_about_after_n_runs(tmp_path
     assert [m["tested"] for m in metrics] == [True, True], "the validation must give a test (the premise)"
     verdicts = [m["beats_baseline"] for m in metrics]
     assert verdicts == [False, False], "the noise driver must not beat the mean (the premise)"
-    assert "has not beaten the mean baseline" not in printed[0]
-    warning = next(line for line in printed[1].splitlines() if "has not beaten the mean baseline" in line)
-    assert warning.startswith("warning: the recommended model has not beaten the mean baseline in the "
+    assert "has not beaten the mean of the training months" not in printed[0]
+    warning = next(line for line in printed[1].splitlines() if "has not beaten the mean of the training months" in line)
+    assert warning.startswith("warning: the recommended model has not beaten the mean of the training months in the "
                               "last 2 tested run(s)")
     assert warning[len("warning: "):] in (runs[1] / "summary.md").read_text(encoding="utf-8")
 

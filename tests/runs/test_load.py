@@ -6,7 +6,7 @@ resident set size (RSS, read from /proc/self/statm after a garbage collection) o
 last 10 runs stays within 10% of the largest over the first 10. The 10% margin is a
 common allowance for allocator noise in leak checks, not a reference value; a leak of a
 run's data (the demo's tables, its models, its report) would show as steady growth past
-it. The spec is a copy of the demo's (holdout validation, OLS and the mean baseline
+it. The spec is a copy of the demo's (holdout validation, OLS and the mean of the training months
 only). Plumbing tests on the invented demo data; no test measures time.
 """
 

@@ -563,7 +563,7 @@ def test_a_plan_whose_features_refer_to_others_is_stored_and_forecasts_again(tmp
     again = pd.read_csv(tmp_path / "again.csv")
     written = pd.read_csv(run / "forecast.csv")[["period", "series", "model", "forecast"]]
     merged = again.merge(written, on=["period", "series", "model"], validate="one_to_one")
-    # 30 forecast rows for each of 7 models: the mean baseline, ols, ols per series and the
+    # 30 forecast rows for each of 7 models: the mean of the training months, ols, ols per series and the
     # four simple rules a rolling origin always compares
     assert set(written["model"]) == {"mean_baseline", "ols", "ols_per_series", "calendar_month_mean",
                                      "trailing_mean", "last_value", "seasonal_naive"}

@@ -1,5 +1,5 @@
 """Realised skill end to end: `castline run` again once new actuals have come in, and the track
-record compares the earlier recommended forecasts with the mean baseline's own forecasts.
+record compares the earlier recommended forecasts with the forecasts of the mean of the training months.
 
 Plumbing on invented data: every expected figure is computed here with pandas from the files
 the runs wrote (forecast.csv, metrics.json) and the data each run read, never from the ledger.
@@ -28,7 +28,7 @@ def run_folders(output: Path) -> list[Path]:
 
 
 def expected_skill(forecast: pd.DataFrame, recommended: str, actuals: pd.DataFrame) -> tuple[float, float, int]:
-    """Return the MAE of the recommended model's forecasts and of the mean baseline's over the
+    """Return the MAE of the recommended model's forecasts and of the mean of the training months' over the
     rows that now have actuals, and how many months; pandas, from the run's own files."""
     scored = forecast.merge(actuals, on=["period", "series"])
     errors = scored.assign(abs_error=(scored["forecast"] - scored["actual"]).abs()).pivot_table(
@@ -55,9 +55,9 @@ def test_a_second_run_records_the_realised_skill_against_the_baselines_own_forec
     assert skill["model_mae"] == pytest.approx(model_mae) and skill["baseline_mae"] == pytest.approx(baseline_mae)
     assert skill["skill"] == pytest.approx(1 - model_mae / baseline_mae)
     assert [(r["forecast_run_id"], r["model"]) for r in skill["by_run"]] == [(first.name, recommended)]
-    assert f"Realised skill against the mean baseline's own forecasts: {format_percent(skill['skill'])} over 3 month(s)" \
+    assert f"Realised skill against the forecasts of the mean of the training months: {format_percent(skill['skill'])} over 3 month(s)" \
         in (second / "summary.md").read_text(encoding="utf-8")
-    # The mean baseline's forecasts of every month and series the first run forecast are in
+    # The mean of the training months' forecasts of every month and series the first run forecast are in
     # the ledger beside the recommended model's.
     with closing(sqlite3.connect(tmp_path / "runs" / "ledger.sqlite")) as conn:
         recorded = pd.read_sql_query("SELECT model, period, series FROM forecasts WHERE run_id = ?", conn,
@@ -108,7 +108,7 @@ def test_twelve_realised_months_without_skill_are_warned_about_and_eleven_are_no
     for folder in folders[:2]:
         forecast = pd.read_csv(folder / "forecast.csv", dtype={"series": str}).assign(run=folder.name)
         recommended = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))["recommended"]
-        # the recommended model may be the mean baseline itself: its rows then sit on both sides
+        # the recommended model may be the mean of the training months itself: its rows then sit on both sides
         own = forecast[forecast["model"] == recommended].merge(
             forecast[forecast["model"] == "mean_baseline"], on=["run", "period", "series"],
             suffixes=("", "_baseline")).merge(actuals, on=["period", "series"])
@@ -124,8 +124,9 @@ def test_twelve_realised_months_without_skill_are_warned_about_and_eleven_are_no
               for f in folders]
     assert [s["months"] for s in skills] == [0, 11, 12]
     assert skills[2]["skill"] == pytest.approx(realised) and skills[2]["forecasts"] == len(pooled) == 13
-    said = "realised months, the recommended forecasts were no more accurate than the mean baseline's own"
+    said = ("realised months, the recommended forecasts were no more accurate than the forecasts of "
+            "the mean of the training months")
     assert [said in out for out in printed] == [False, False, True]
     warning = next(line for line in printed[2].splitlines() if said in line)
-    assert warning.startswith(f"warning: Over the last 12 {said} forecasts (realised skill {format_percent(realised)}")
+    assert warning.startswith(f"warning: Over the last 12 {said} (realised skill {format_percent(realised)}")
     assert warning[len("warning: "):] in (folders[2] / "summary.md").read_text(encoding="utf-8")

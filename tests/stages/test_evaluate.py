@@ -1,4 +1,4 @@
-"""Evaluate stage: the verdict against the mean baseline, and metrics equal to scikit-learn's.
+"""Evaluate stage: the verdict against the mean of the training months, and metrics equal to scikit-learn's.
 
 Simulated data (fixed seeds, written to tmp_path): one panel where the drivers
 truly move the target, one where the target is noise around a constant.
@@ -92,9 +92,9 @@ def test_a_model_that_truly_helps_beats_the_mean_baseline_and_is_recommended(tmp
     _, _, result, evaluation = run(tmp_path, simulated(seed=1, signal=True), ["ols"])
     assert evaluation.recommended == "ols"
     assert evaluation.beats_baseline
-    assert "OLS beats the mean baseline" in evaluation.verdict
+    assert "OLS beats the mean of the training months" in evaluation.verdict
     row = evaluation.table.set_index("model").loc["ols"]
-    assert row["against_mean"].startswith("beats the mean baseline (Holm p")
+    assert row["against_mean"].startswith("beats the mean (Holm p")
     assert row["p_value"] < 0.05 and row["test_statistic"] > 0
     assert row["skill_vs_mean"] > 0.5
 
@@ -115,13 +115,13 @@ def test_pure_noise_around_a_constant_is_no_better_than_the_mean_baseline(seed, 
     _, _, _, evaluation = run(tmp_path, simulated(seed=seed, signal=False), ["ols", "ridge"])
     assert not evaluation.beats_baseline
     verdict = evaluation.verdict
-    assert ("No model or simple rule beats the mean baseline" in verdict
-            or "no better than the mean baseline" in verdict or "may be luck" in verdict), verdict
+    assert ("No model or simple rule beats the mean of the training months" in verdict
+            or "no better than the mean of the training months" in verdict or "may be luck" in verdict), verdict
     if evaluation.recommended != "mean_baseline":
         assert "may be luck" in verdict
     for model, row in evaluation.table.set_index("model").iterrows():
         if model != "mean_baseline":
-            assert row["against_mean"].startswith("no better than the mean baseline"), row["against_mean"]
+            assert row["against_mean"].startswith("no better than the mean (Holm"), row["against_mean"]
 
 
 def reference_scales(history: pd.DataFrame, origin: str) -> dict[str, float]:
@@ -151,7 +151,7 @@ def test_metrics_in_the_table_equal_sklearn_and_hand_formulas(tmp_path):
         assert got["mae"] == pytest.approx(mean_absolute_error(y, f), rel=1e-12)
         assert got["rmse"] == pytest.approx(root_mean_squared_error(y, f), rel=1e-12)
         assert got["mape"] == pytest.approx(mean_absolute_percentage_error(y, f), rel=1e-12)
-        # R² out of sample against the mean baseline's forecast on the same rows (Campbell &
+        # R² out of sample against the forecast of the mean of the training months on the same rows (Campbell &
         # Thompson 2008, R²_OS = 1 − Σ(y − ŷ)² / Σ(y − ȳ_hist)², ȳ_hist the historical mean).
         rows_base = p[p["model"] == "mean_baseline"].set_index(["origin", "period", "series"])
         benchmark = rows_base["prediction"].reindex(

@@ -1,4 +1,4 @@
-"""Evaluate, per series: metrics, skill against the mean baseline and the comparison test.
+"""Evaluate, per series: metrics, skill against the mean of the training months and the comparison test.
 
 Hand-made predictions tables (fixed seeds) stand in for a backtest. References:
 ``score`` (the metric definitions, one call per group) for the grouped metrics; for the
@@ -39,7 +39,7 @@ MODELS = ["mean_baseline", "ols", "ols_per_series"]
 def hand_made(seed: int = 0, origins: int = 6, horizon: int = 3, series=("a", "b", "c", "d")):
     """Return a predictions table laid out as the backtest writes it (origin, model, period,
     series), with awkward rows: an actual of 0, a missing MASE scale, a series where ols
-    predicts exactly what the mean baseline does, and a series scored only once."""
+    predicts exactly what the mean of the training months does, and a series scored only once."""
     rng = np.random.default_rng(seed)
     months = pd.period_range("2020-01", periods=origins + horizon, freq="M")
     frames = []
@@ -59,7 +59,7 @@ def hand_made(seed: int = 0, origins: int = 6, horizon: int = 3, series=("a", "b
                 "mase_scale": rng.uniform(1, 3, len(cells)), "prediction_se": np.nan,
                 "df_resid": np.nan, "centre": np.nan}))
     table = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
-    # ols predicts what the mean baseline does for series "b": every loss difference is 0.
+    # ols predicts what the mean of the training months does for series "b": every loss difference is 0.
     base = table[table["model"] == "mean_baseline"].set_index(["origin", "period", "series"])["prediction"]
     tie = (table["model"] == "ols") & (table["series"] == "b")
     table.loc[tie, "prediction"] = base.loc[
@@ -107,7 +107,7 @@ def reference_test(d: np.ndarray) -> tuple[float, float]:
 
 
 def reference_series_tests(predictions: pd.DataFrame, model: str, select_by: str) -> pd.DataFrame:
-    """Per series, plain pandas: pair the model's rows with the mean baseline's on (origin,
+    """Per series, plain pandas: pair the model's rows with the mean of the training months' on (origin,
     period, series), take d = baseline loss − model loss, average it per origin, order the
     origins as months (not as text) and apply ``reference_test``. Index: series; columns: n
     (origins), statistic, p_value, d (the per-origin means in order)."""
@@ -306,7 +306,7 @@ def test_evaluate_puts_skill_tests_and_the_summary_per_series():
         assert row["skill_median"] == pytest.approx(np.median(own["skill_vs_mean"]))
         assert row["skill_q25"] == pytest.approx(np.quantile(own["skill_vs_mean"], 0.25))
         assert row["skill_q75"] == pytest.approx(np.quantile(own["skill_vs_mean"], 0.75))
-    # The better model (smaller errors by construction) beats the mean baseline on more series.
+    # The better model (smaller errors by construction) beats the mean of the training months on more series.
     assert summary.loc["ols_per_series", "beats"] >= summary.loc["ols", "beats"]
 
 

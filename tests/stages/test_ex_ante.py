@@ -83,7 +83,7 @@ def test_a_pure_noise_driver_wins_only_with_hindsight(tmp_path, seed):
     # of a noise driver only add their own estimation noise), and the answer says so.
     skill, evaluation, backtest = _skill(tmp_path, frame, "month_mean")
     assert skill < 0.05 and not evaluation.beats_baseline
-    assert "No model or simple rule beats the mean baseline" in evaluation.verdict
+    assert "No model or simple rule beats the mean of the training months" in evaluation.verdict
     assert backtest.hindsight is not None
     # The ex-post figure shows what knowing w would have been worth.
     post = evaluation.hindsight.set_index("model").loc["ols", "skill_vs_mean"]
@@ -91,11 +91,11 @@ def test_a_pure_noise_driver_wins_only_with_hindsight(tmp_path, seed):
     assert any("had w been known ahead" in note for note in evaluation.ahead_notes)
     assert not any("had w been known ahead" in note for note in evaluation.notes)
     # Estimated by the window's mean: OLS then predicts exactly the mean of y (normal
-    # equations), so it is the mean baseline to rounding, and no test is run on rounding.
+    # equations), so it is the mean of the training months to rounding, and no test is run on rounding.
     skill, evaluation, _ = _skill(tmp_path, frame, "mean")
     assert abs(skill) < 1e-9
     assert evaluation.table.set_index("model").loc["ols", "against_mean"] == \
-        "the same forecasts as the mean baseline"
+        "the same forecasts as the mean"
 
 
 def _panel(seed: int = 11, months: int = 60, future: int = 6) -> pd.DataFrame:

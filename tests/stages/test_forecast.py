@@ -133,7 +133,7 @@ def one_series_runs(tmp_path_factory):
 def test_forecast_csv_has_both_kinds_of_interval_at_80_and_95(two_series_run):
     _, result = two_series_run
     forecast = read(result, "forecast.csv")
-    # two regions, seven models: the mean baseline, ols, ridge and the four simple rules a
+    # two regions, seven models: the mean of the training months, ols, ridge and the four simple rules a
     # rolling origin always compares
     assert len(forecast) == 2 * FUTURE_MONTHS * 7
     for method in ("analytic", "empirical"):
@@ -352,7 +352,7 @@ def test_scenarios_change_only_the_selected_rows_by_coefficient_times_change(two
     assert (promo["difference"] == 0).sum() == FUTURE_PROMO.count(0)
     np.testing.assert_allclose(promo["base_forecast"].to_numpy(), forecast["forecast"].to_numpy(),
                                rtol=1e-12)
-    # The mean baseline and the simple rules have no drivers: no scenario changes them.
+    # The mean of the training months and the simple rules have no drivers: no scenario changes them.
     assert (table.loc[table["model"].isin(rules | {"mean_baseline"}), "difference"] == 0).all()
     summary = result.folder.summary.read_text(encoding="utf-8")
     assert "## Scenarios" in summary and "no promotions" in summary

@@ -3,7 +3,7 @@
 
 References: statsmodels.stats.multitest.multipletests(method="holm") (an independent
 implementation) for the adjusted p-values; a simulation whose design is stated below for the
-size of the answer when several candidates are no better than the mean baseline.
+size of the answer when several candidates are no better than the mean of the training months.
 """
 
 from __future__ import annotations
@@ -39,9 +39,9 @@ def test_holm_equals_statsmodels_and_leaves_nan_out(seed):
 
 def _backtest(rng, candidates: int, origins: int = 40, series=("s1",), helps=0.0) -> BacktestResult:
     """Stated design: each series' actual is 100 + N(0, 10²) per origin (horizon 1, one row
-    per origin and series); the mean baseline predicts 100 + N(0, 10²), noise of its own.
+    per origin and series); the mean of the training months predicts 100 + N(0, 10²), noise of its own.
     With helps = 0 each candidate does the same, so every candidate is exactly as accurate
-    as the mean baseline (the null); with helps > 0 a candidate predicts the actual plus
+    as the mean of the training months (the null); with helps > 0 a candidate predicts the actual plus
     (1 − helps)·N(0, 10²), closer than the baseline."""
     rows = []
     for origin in range(origins):
