@@ -91,7 +91,7 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
         axis.xaxis.set_major_locator(locator)
         axis.xaxis.set_major_formatter(matplotlib.dates.ConciseDateFormatter(locator))
         axis.legend(fontsize=7, frameon=False, loc="upper left", ncol=2)
-        picture = plots.inline_picture(figure, "")
+        picture = plots.inline_picture(figure, "", "svg")
     shown = ahead.head(NEXT_MONTHS)
     total = float(shown["forecast"].sum())
     before = _a_year_earlier(history, series, list(shown["period"].astype(str)))

@@ -1,7 +1,7 @@
 """The report's pictures: matplotlib, non-interactive, deterministic, colour-blind-safe.
 
-Each function returns a Figure value: the picture as a data URI (SVG, or PNG where
-that is smaller) plus the text that stands in for it for a reader who cannot see it.
+Each function returns a Figure value: the picture as a data URI (inline.py: SVG, or PNG for
+a scatter of many points) plus the text that stands in for it for a reader who cannot see it.
 
 Pictures are drawn on figures of their own with the Agg canvas, never through
 pyplot, and in the report's style (``STYLE``) set only while each is drawn: importing
@@ -11,11 +11,7 @@ as they were.
 
 from __future__ import annotations
 
-import base64
 import functools
-import io
-import re
-from dataclasses import dataclass
 
 import matplotlib
 import matplotlib.dates as mdates
@@ -26,6 +22,17 @@ import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
 from pipeline.core.formatting import format_number, format_signed
+from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
+    SVG_DOTS,
+    SVG_MARKERS,
+    Figure,
+    compact_svg,
+    data_uri,
+    inline_picture,
+    picture_bytes,
+    picture_data,
+    picture_kind,
+)
 
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
@@ -56,15 +63,6 @@ def _subplots(*grid: int, figsize: tuple[float, float], **options):
     return figure, figure.subplots(*grid, **options)
 
 
-@dataclass(frozen=True)
-class Figure:
-    """A picture for the report and its text alternative."""
-
-    uri: str
-    alt: str
-
-
-
 def as_text(value) -> str:
     """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
     return str(value).replace("$", r"\$")
@@ -75,29 +73,6 @@ def model_colours(models: list[str]) -> dict[str, str]:
     colours = {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(others)}
     colours["mean_baseline"] = BASELINE_COLOUR
     return colours
-
-
-def picture_bytes(figure, kind: str) -> bytes:
-    """Return a drawn figure saved as 'png' or 'svg', without a timestamp or software tag, so
-    the same run draws the same bytes (the SVG's ids come from STYLE's svg.hashsalt)."""
-    buffer = io.BytesIO()
-    metadata = {"Software": None} if kind == "png" else {"Date": None, "Creator": None}
-    figure.savefig(buffer, format=kind, metadata=metadata)
-    if kind == "png":
-        return buffer.getvalue()
-    # The SVG's indentation only costs bytes: each text is an element of its own line.
-    return re.sub(rb"\n[ \t]+", b"\n", buffer.getvalue())
-
-
-def inline_picture(figure, alt: str) -> Figure:
-    """Return a drawn figure as an inline picture (a data URI) with its text alternative: SVG,
-    sharp at any size, unless the PNG is smaller (a scatter of thousands of points is)."""
-    if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
-        figure.tight_layout()
-    choices = [(len(data), kind, data) for kind, data in
-               (("svg+xml", picture_bytes(figure, "svg")), ("png", picture_bytes(figure, "png")))]
-    _, kind, data = min(choices)
-    return Figure(f"data:image/{kind};base64," + base64.b64encode(data).decode("ascii"), alt)
 
 
 def _date_axis(axis, most: int = 7) -> None:
@@ -194,7 +169,8 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
            f"target {summed} (black) and the out-of-sample predictions of {', '.join(models)} summed "
            f"alike, made {' and '.join(spans)}.")
-    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]))
+    points = sum(rows.groupby("model")["period"].nunique().sum() for _, rows in parts)
+    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]), picture_kind(points))
 
 
 @_styled
@@ -220,7 +196,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
            + (f"The largest error is {format_number(worst['mae'])} ({worst['model']}, {label} {worst[key]})."
               if worst is not None else ""))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, picture_kind(len(table)))
 
 
 def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list) -> str:
@@ -288,7 +264,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
            + _against_last_year(history, own, series))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 def _clearest(names, middle, low, high, unit: str) -> str:
@@ -330,7 +306,7 @@ def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target 
            + (" with 95% interval bars" if has_interval else "")
            + (f"; {crossing} of the intervals include zero." if has_interval else ".")
            + (_clearest(list(shown["term"]), middle, low, high, unit) if has_interval else ""))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -354,7 +330,7 @@ def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the
     alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series as the {label}: "
            f"the median with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -371,7 +347,7 @@ def levels_picture(levels: dict, model: str) -> Figure:
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
     alt = f"Histogram of {model}: {levels['text']}"
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -406,7 +382,7 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
     alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
            "the model beats it; " + "; ".join(parts)
            + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -435,7 +411,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
            f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
            f"baseline for the {len(scored)} months scored (nearest origin first); the skill of "
            f"{model} on this series is {skill:.3g}.")
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 def _spread_by_level(residuals: pd.DataFrame) -> str:
@@ -465,14 +441,15 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."
                             + (f" The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
-                               if worst is not None else "")))
+                               if worst is not None else ""), "svg"))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
     pictures.append(inline_picture(figure, "Scatter of residuals against fitted values; a funnel shape "
-                            "means the spread changes with the level." + _spread_by_level(residuals)))
+                            "means the spread changes with the level." + _spread_by_level(residuals),
+                                   picture_kind(len(residuals), SVG_DOTS)))
     figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
@@ -485,7 +462,8 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     pictures.append(inline_picture(figure, "Normal quantile plot of the residuals; points off the line "
                             "in the tails mean larger surprises than a normal curve allows."
                             + (f" {far:.1%} of the {len(values):,} residuals lie more than 1.96 standard "
-                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else "")))
+                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else ""),
+                                   picture_kind(len(residuals), SVG_DOTS)))
     return pictures
 
 
@@ -545,4 +523,4 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
     if worst is not None:
         alt += (f". The largest error was {format_signed(error[worst])} ({rows['period'].iloc[worst]}, "
                 f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, picture_kind(len(rows), SVG_DOTS))

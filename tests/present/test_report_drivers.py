@@ -71,7 +71,7 @@ def test_the_coefficient_picture_draws_the_columns_it_is_given(monkeypatch):
     terms["pct_low"], terms["pct_high"] = 100 * np.expm1(terms["low_95"]), 100 * np.expm1(terms["high_95"])
     figures = []
     real = plots.inline_picture
-    monkeypatch.setattr(plots, "inline_picture", lambda f, alt: figures.append(f) or real(f, alt))
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append(f) or real(f, alt, *kind))
     picture = plots.coefficient_picture(terms, "% change in sales per unit of the driver",
                                         ("pct", "pct_low", "pct_high"))
     (axis,) = figures[0].get_axes()
@@ -152,7 +152,7 @@ def test_the_coefficient_picture_leaves_the_series_levels_to_their_histogram(sho
     from pipeline.present.report import render_report
     figures = []
     real = plots.inline_picture
-    monkeypatch.setattr(plots, "inline_picture", lambda f, alt: figures.append((f, alt)) or real(f, alt))
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append((f, alt)) or real(f, alt, *kind))
     render_report(shops)
     (dots,) = [f for f, alt in figures if alt.startswith("Dot chart")]
     labels = [t.get_text() for t in dots.get_axes()[0].get_yticklabels()]
