@@ -75,8 +75,14 @@ def model_colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def _date_axis(axis, most: int = 7) -> None:
-    locator = mdates.AutoDateLocator(minticks=3, maxticks=most)
+def date_axis(axis, most: int = 7, least: int = 3) -> None:
+    """Label a date axis with ``least`` to ``most`` ticks (about), concisely. matplotlib's
+    AutoDateLocator ticks by years only from ``least`` years up, and by months only every 1 to 6
+    of them: a span too short for years and too long for ``most`` ticks every 6 months (30 to 33
+    months with at most 6 ticks, 41 to 55 with 5 to 8) found no interval, warned and fell back
+    to 6. Ticks every 12 months (each January) close that gap."""
+    locator = mdates.AutoDateLocator(minticks=least, maxticks=most)
+    locator.intervald[mdates.MONTHLY] = [1, 2, 3, 4, 6, 12]
     axis.xaxis.set_major_locator(locator)
     axis.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
 
@@ -159,7 +165,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
                       marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
                       label=model)
         axis.set_title(f"predicted {what}", fontsize=8)
-        _date_axis(axis, most=MAX_LABELS // len(parts))
+        date_axis(axis, most=MAX_LABELS // len(parts))
         spans.append(f"{what} ({_months_text(scored)})")
     axes[0].set_ylabel("target, all series")
     handles, labels = axes[0].get_legend_handles_labels()
@@ -251,7 +257,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
                     axis.plot(_months(rows_["period"]), rows_["scenario_forecast"], linestyle="--",
                               linewidth=1, color=PALETTE[(number + 1) % len(PALETTE)], label=scenario)
         axis.set_title(as_text(name), fontsize=8)
-        _date_axis(axis)
+        date_axis(axis)
         if index == 0:
             axis.legend(fontsize=6, frameon=False, loc="upper left")
     for index in range(len(series), rows * columns):
@@ -405,7 +411,7 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
                   marker=".", markersize=3, linewidth=1, label=kind)
     # A "$" in a series name would start matplotlib's maths notation.
     axis.set_title(as_text(f"{name} (skill {skill:.3g})"), fontsize=8)
-    _date_axis(axis)
+    date_axis(axis)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "
            f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
@@ -436,7 +442,7 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.plot(_months(by_month.index), by_month.to_numpy(), color=PALETTE[0], linewidth=1)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
-    _date_axis(axis)
+    date_axis(axis)
     worst = by_month.abs().idxmax() if len(by_month) else None
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."

@@ -16,11 +16,13 @@ import os
 import subprocess
 import sys
 import urllib.parse
+import warnings
 from xml.etree import ElementTree
 
 import matplotlib
 import numpy as np
 import pandas as pd
+import pytest
 from conftest import ROOT
 
 from pipeline.core.formatting import format_number
@@ -38,6 +40,7 @@ def snapshot():
 before = snapshot()
 import numpy as np
 import pandas as pd
+import pytest
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 after_import = snapshot()
@@ -260,3 +263,28 @@ def test_the_forecast_pictures_text_compares_each_series_with_the_same_months_a_
     alt = plots.forecast_picture(history, forecast, "ols", "analytic", None).alt
     # Reference: 2024-01 and 2024-02 are a's 13th and 14th months (112 + 113), b's 50 + 50.
     assert f"a {262 / 225 - 1:+.1%}, b {90 / 100 - 1:+.1%}." in alt
+
+
+# ---------------------------------------------------------------- date axes
+@pytest.mark.parametrize("origins", [18, 19, 20, 21, 22])
+def test_a_two_panel_backtest_of_30_to_33_months_a_panel_draws_without_a_warning(origins):
+    # Each panel spans the scored months and the year before them: 30 to 34 months, where
+    # matplotlib's AutoDateLocator with at most 6 ticks found no interval and warned.
+    history, predictions = _rolling_backtest(origins=origins)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        picture = plots.backtest_picture(history, predictions)
+    assert picture.uri.startswith("data:image/")
+
+
+@pytest.mark.parametrize(("least", "most"), [(3, 6), (3, 7), (3, 12), (5, 8)])
+def test_a_date_axis_of_any_span_is_labelled_without_a_warning(least, most):
+    for span in [1, 2, 12, 24, 29, 30, 31, 33, 34, 40, 41, 48, 55, 56, 60, 120, 240, 600]:
+        figure, axis = plots._subplots(figsize=(4, 2))
+        axis.plot(pd.period_range("2020-01", periods=span, freq="M").to_timestamp(), np.arange(span))
+        plots.date_axis(axis, most=most, least=least)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            figure.canvas.draw()
+        labels = _labels(axis)
+        assert 1 <= len(labels) <= most + 2, (span, labels)
