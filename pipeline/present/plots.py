@@ -39,6 +39,7 @@ PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F
 BASELINE_COLOUR = "#7F7F7F"
 MAX_PANELS = 6
 MAX_LABELS = 12     # date or origin labels on an axis at most
+MAX_LISTED = 12     # series named one by one in the Drivers pictures; more are summarised, never listed
 
 STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
@@ -286,11 +287,21 @@ def _clearest(names, middle, low, high, unit: str) -> str:
 
 @_styled
 def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target per unit of the driver",
-                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95")) -> Figure:
+                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95"),
+                        model: str = "the model") -> Figure:
     """Each driver's effect with its 95% interval (the intercept left out): ``columns`` name the
     estimate and the interval's ends (for a log target, their percent changes), ``label`` what
-    they measure."""
+    they measure. A model fitted on each series (a ``series`` column): up to MAX_LISTED series
+    each named in a colour and marker of its own, more summarised by term (spread_picture)."""
     middle_name, low_name, high_name = columns
+    if "series" in terms and terms["series"].nunique() > 1:
+        if terms["series"].nunique() <= MAX_LISTED:
+            from pipeline.present.series_plots import coefficients_by_series
+            return coefficients_by_series(terms, model, label, columns)
+        grouped = terms.groupby("term", sort=False)[middle_name]
+        spread = pd.DataFrame({"median": grouped.median(), "25%": grouped.quantile(0.25),
+                               "75%": grouped.quantile(0.75)}).reset_index()
+        return spread_picture(spread, model, label, ("median", "25%", "75%"))
     shown = terms[terms["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
@@ -342,7 +353,11 @@ def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the
 @_styled
 def levels_picture(levels: dict, model: str) -> Figure:
     """The series' own levels in a model over all series (report.levels_summary) as a histogram,
-    the median marked: with many series a distribution reads where a list of rows would not."""
+    the median marked: with many series a distribution reads where a list of rows would not; up
+    to MAX_LISTED series, each level named on a row of its own instead."""
+    if len(levels["values"]) <= MAX_LISTED:
+        from pipeline.present.series_plots import named_levels
+        return named_levels(levels, model)
     values = np.asarray(levels["values"], float)
     figure, axis = _subplots(figsize=(8, 2.4))
     axis.set_axisbelow(True)
