@@ -21,6 +21,7 @@ import pandas as pd
 import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number, format_signed
 from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
     SVG_DOTS,
@@ -67,6 +68,18 @@ def _subplots(*grid: int, figsize: tuple[float, float], **options):
 def as_text(value) -> str:
     """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
     return str(value).replace("$", r"\$")
+
+def the_model(name: str) -> str:
+    """Return a model's name as a sentence writes it after a verb: its catalogue label, with
+    'the' before a label that is a description (the mean baseline's) rather than a name."""
+    label = model_label(name)
+    return label if label.startswith("the ") or name != "mean_baseline" else "the " + label
+
+
+def model_names(models) -> str:
+    """Return models' catalogue labels, joined by commas."""
+    return ", ".join(model_label(m) for m in models)
+
 
 def model_colours(models: list[str]) -> dict[str, str]:
     """Return each model's colour in the pictures: the mean baseline grey, the others in turn."""
@@ -135,8 +148,8 @@ def _least_error(rows: pd.DataFrame, what: str) -> str:
     if not len(errors):
         return ""
     ranked = errors.sort_values(kind="stable")
-    others = ", ".join(f"{m} {format_number(v)}" for m, v in ranked.iloc[1:].items())
-    return (f" {what[:1].upper() + what[1:]}, {ranked.index[0]} erred least of the models drawn: MAE "
+    others = ", ".join(f"{model_label(m)} {format_number(v)}" for m, v in ranked.iloc[1:].items())
+    return (f" {what[:1].upper() + what[1:]}, {model_label(ranked.index[0])} erred least of the models drawn: MAE "
             f"{format_number(ranked.iloc[0])} per series and month" + (f", against {others}." if others else "."))
 
 
@@ -164,7 +177,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
             total = rows[rows["model"] == model].groupby("period")["prediction"].sum().sort_index()
             axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
                       marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
-                      label=model)
+                      label=as_text(model_label(model)))
         axis.set_title(f"predicted {what}", fontsize=8)
         date_axis(axis, most=MAX_LABELS // len(parts))
         spans.append(f"{what} ({_months_text(scored)})")
@@ -174,7 +187,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
     alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
-           f"target {summed} (black) and the out-of-sample predictions of {', '.join(models)} summed "
+           f"target {summed} (black) and the out-of-sample predictions of {model_names(models)} summed "
            f"alike, made {' and '.join(spans)}.")
     points = sum(rows.groupby("model")["period"].nunique().sum() for _, rows in parts)
     return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]), picture_kind(points))
@@ -190,7 +203,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
         own = table[table["model"] == model]
         positions = np.arange(len(own))
         axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
-                  color=colours[model], label=model)
+                  color=colours[model], label=as_text(model_label(model)))
         # At most MAX_LABELS labels: every k-th origin or horizon, the first one labelled.
         every = -(-len(own) // MAX_LABELS)
         axis.set_xticks(positions[::every])
@@ -200,8 +213,8 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     axis.set_ylabel("MAE")
     axis.legend(fontsize=7, frameon=False, ncol=len(models), loc="lower left", bbox_to_anchor=(0, 1.0))
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
-    alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
-           + (f"The largest error is {format_number(worst['mae'])} ({worst['model']}, {label} {worst[key]})."
+    alt = (f"Line chart of the mean absolute error of {model_names(models)} by {label}. "
+           + (f"The largest error is {format_number(worst['mae'])} ({model_label(worst['model'])}, {label} {worst[key]})."
               if worst is not None else ""))
     return inline_picture(figure, alt, picture_kind(len(table)))
 
@@ -267,7 +280,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
              f"for the {len(series)} of {total:,} series with the largest total actuals "
              f"({', '.join(map(str, series))}; forecast.csv holds every series)")
     alt = (f"{len(series)} small line charts, {which}: the last "
-           f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
+           f"36 months of actuals and the {model_label(model)} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
            + _against_last_year(history, own, series))
@@ -344,7 +357,7 @@ def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
     axis.set_xlabel(as_text(label) + ": median across series, bars from the 25% to the 75% quantile")
     crossing = int(((low < 0) & (high > 0)).sum())
-    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series as the {label}: "
+    alt = (f"Dot chart of {len(shown)} driver coefficients of {model_label(model)} across series as the {label}: "
            f"the median with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
     return inline_picture(figure, alt, "svg")
@@ -367,7 +380,7 @@ def levels_picture(levels: dict, model: str) -> Figure:
     axis.set_xlabel(as_text(levels["label"]) + ", each series' own level against the reference series")
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
-    alt = f"Histogram of {model}: {levels['text']}"
+    alt = f"Histogram of {model_label(model)}: {levels['text']}"
     return inline_picture(figure, alt, "svg")
 
 
@@ -389,18 +402,19 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
         if not len(own):
             continue
         axis.hist(np.clip(own, low, high), bins=edges, histtype="step", linewidth=1.4,
-                  color=colours[model], label=model)
-        parts.append(f"{model}: {len(own):,} series, median {np.median(own):.3g}, "
+                  color=colours[model], label=as_text(model_label(model)))
+        parts.append(f"{model_label(model)}: {len(own):,} series, median {np.median(own):.3g}, "
                      f"{(own > 0).mean():.0%} above 0")
-    axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label="as good as the mean")
-    axis.set_xlabel("skill against the mean baseline (1 − loss / the mean's, in select_by), per series")
+    baseline = the_model("mean_baseline")
+    axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label=as_text(f"as good as {baseline}"))
+    axis.set_xlabel(as_text(f"skill against the mean (1 − loss / the loss of {baseline}, in select_by), per series"))
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="upper left")
     clipped = int(sum((v < -1).sum() for v in values.values()))
     if clipped:
         axis.annotate(f"{clipped:,} below −1", xy=(low, 0), xytext=(4, 14), textcoords="offset points",
                       fontsize=7, color="#333333")
-    alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
+    alt = (f"Histogram of per-series skill against {baseline}, right of the dashed line at 0 "
            "the model beats it; " + "; ".join(parts)
            + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
     return inline_picture(figure, alt, "svg")
@@ -423,15 +437,15 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     for kind, style in ((model, "-"), ("mean_baseline", "--")):
         rows = _nearest(own[own["model"] == kind]).sort_values("period")
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
-                  marker=".", markersize=3, linewidth=1, label=kind)
+                  marker=".", markersize=3, linewidth=1, label=as_text(model_label(kind)))
     # A "$" in a series name would start matplotlib's maths notation.
     axis.set_title(as_text(f"{name} (skill {skill:.3g})"), fontsize=8)
     date_axis(axis)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "
-           f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
-           f"baseline for the {len(scored)} months scored (nearest origin first); the skill of "
-           f"{model} on this series is {skill:.3g}.")
+           f"{past['period'].max()} and the out-of-sample predictions of {model_label(model)} and of "
+           f"{the_model('mean_baseline')} for the {len(scored)} months scored (nearest origin first); the "
+           f"skill of {model_label(model)} on this series is {skill:.3g}.")
     return inline_picture(figure, alt, "svg")
 
 

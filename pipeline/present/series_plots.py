@@ -8,6 +8,7 @@ import matplotlib
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 
@@ -61,7 +62,7 @@ def coefficients_by_series(terms: pd.DataFrame, model: str, label: str,
         axis.set_xlabel(plots.as_text(label) + (" (95% interval)" if has_interval else ""))
         axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0),
                     ncol=min(len(series), 6), title="series", title_fontsize=7)
-        alt = (f"Dot chart of {len(names)} driver coefficients of {model} fitted on each of its "
+        alt = (f"Dot chart of {len(names)} driver coefficients of {model_label(model)} fitted on each of its "
                f"{len(series)} series ({', '.join(series)}), one colour and marker per series, as the "
                f"{label}" + (" with 95% interval bars." if has_interval else ".")
                + _finding(table, "%" if label.startswith("%") else ""))
@@ -85,6 +86,6 @@ def named_levels(levels: dict, model: str) -> plots.Figure:
         axis.set_xlabel(plots.as_text(levels["label"]) + ", each series' own level against the reference series")
         axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
         listed = ", ".join(f"{names[i]} {format_number(float(values[i]))}{unit}" for i in order[::-1])
-        alt = (f"Dot chart of {model}'s {len(values)} series levels, each named, largest first: {listed}. "
+        alt = (f"Dot chart of the {len(values)} series levels of {model_label(model)}, each named, largest first: {listed}. "
                + levels["text"])
         return plots.inline_picture(figure, alt, "svg")

@@ -25,6 +25,7 @@ import pandas as pd
 import pytest
 from conftest import ROOT
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 from pipeline.present.history_plot import plot_history
@@ -159,7 +160,7 @@ def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with
         # Reference: the predictions made this many months ahead, summed over series with pandas.
         own = predictions[(predictions["horizon"] == months) & (predictions["model"] == "ols")]
         expected = own.groupby("period")["prediction"].sum().sort_index().to_numpy()
-        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == "ols"]
+        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == model_label("ols")]   # the legend's word
         np.testing.assert_allclose(line.get_ydata(), expected, rtol=1e-12)
     # At most 12 date labels over both panels (61 origins would be 61 labels).
     assert sum(len(_labels(a)) for a in axes) <= 12
@@ -173,7 +174,7 @@ def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with
     mae = {m: float(np.mean(np.abs(g["prediction"] - g["actual"]))) for m, g in first.groupby("model")}
     best = min(mae, key=mae.get)
     assert best == "ols"
-    assert f"1 month ahead, ols erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
+    assert f"1 month ahead, {model_label('ols')} erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
     assert "61 months" in picture.alt and "origins are marked" not in picture.alt
 
 

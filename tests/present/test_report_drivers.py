@@ -19,6 +19,7 @@ from browser import read_page
 from conftest import DEMO_SPEC
 
 import pipeline
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 
@@ -144,7 +145,7 @@ def test_at_most_12_series_levels_are_listed_and_the_rest_summarised_as_a_distri
     assert (f"from {format_number(float(low['estimate']))} ({low['term'][6:]}) to "
             f"{format_number(float(high['estimate']))} ({high['term'][6:]})") in line
     alts = re.findall(r'<section id="drivers">.*?</section>', html, re.S)[0]
-    assert "Histogram of ols: 49 series levels" in alts
+    assert f"Histogram of {model_label('ols')}: 49 series levels" in alts
     assert line in (shops / "summary.md").read_text(encoding="utf-8")
 
 
@@ -157,7 +158,7 @@ def test_the_coefficient_picture_leaves_the_series_levels_to_their_histogram(sho
     (dots,) = [f for f, alt in figures if alt.startswith("Dot chart")]
     labels = [t.get_text() for t in dots.get_axes()[0].get_yticklabels()]
     assert labels and not any(label.startswith("shop: ") for label in labels)
-    (histogram,) = [f for f, alt in figures if alt.startswith("Histogram of ols: ")]
+    (histogram,) = [f for f, alt in figures if alt.startswith(f"Histogram of {model_label('ols')}: ")]
     counts = sum(patch.get_height() for patch in histogram.get_axes()[0].patches)
     assert counts == SHOPS - 1
 
@@ -234,6 +235,7 @@ def test_up_to_twelve_series_levels_are_each_named_and_more_are_a_histogram(monk
     labels = [t.get_text() for t in axis.get_yticklabels()]
     assert labels == [f"shop{k:02d}" for k in range(12)]   # smallest at the bottom
     np.testing.assert_allclose(axis.get_lines()[0].get_xdata(), np.linspace(-20, 40, 12), rtol=1e-12)
-    assert named.alt.startswith("Dot chart of ols's 12 series levels, each named, largest first: shop11 40, ")
+    assert named.alt.startswith(f"Dot chart of the 12 series levels of {model_label('ols')}, each named, largest "
+                                "first: shop11 40, shop10 34.55, ")
     many = plots.levels_picture(_levels(13), "ols")
-    assert many.alt.startswith("Histogram of ols: ") and "shop00" not in many.alt
+    assert many.alt.startswith(f"Histogram of {model_label('ols')}: ") and "shop00" not in many.alt
