@@ -9,7 +9,6 @@ forecast for the months ahead; the intervals are per series and follow in the Fo
 from __future__ import annotations
 
 import matplotlib
-import matplotlib.dates
 import matplotlib.figure
 import numpy as np
 import pandas as pd
@@ -87,11 +86,9 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
         axis.plot(months, ahead["forecast"], color=plots.PALETTE[0], marker="o", markersize=3,
                   linewidth=1.4, label=f"forecast ({model_label(model)})")
         axis.set_title(plots.as_text(series) if series is not None else "", fontsize=9)
-        locator = matplotlib.dates.AutoDateLocator(maxticks=8)
-        axis.xaxis.set_major_locator(locator)
-        axis.xaxis.set_major_formatter(matplotlib.dates.ConciseDateFormatter(locator))
+        plots.date_axis(axis, most=8, least=5)
         axis.legend(fontsize=7, frameon=False, loc="upper left", ncol=2)
-        picture = plots.inline_picture(figure, "")
+        picture = plots.inline_picture(figure, "", "svg")
     shown = ahead.head(NEXT_MONTHS)
     total = float(shown["forecast"].sum())
     before = _a_year_earlier(history, series, list(shown["period"].astype(str)))

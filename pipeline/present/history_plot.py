@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import BASELINE
+from pipeline.core.catalogue import BASELINE, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import format_signed
 
@@ -39,6 +39,11 @@ def _month_label(x: float, _position=None) -> str:
     return str(pd.Period(ordinal=int(round(x)), freq="M")) if abs(x - round(x)) < 1e-9 else ""
 
 
+def _metric_words(metric: str) -> str:
+    """Return a metric's column name as the picture writes it: skill as 'skill against the mean'."""
+    return "skill against the mean" if metric == "skill_vs_mean" else metric.replace("_", " ")
+
+
 def history_figure(table: pd.DataFrame, metric: str, title: str):
     """Return the picture of a metric per model (and spec) by each run's last month of actuals,
     on an Agg canvas of its own, and its text alternative."""
@@ -63,26 +68,26 @@ def history_figure(table: pd.DataFrame, metric: str, title: str):
         order = np.argsort(at["x"].to_numpy(), kind="stable")
         x, y = at["x"].to_numpy()[order], rows[metric].astype(float).to_numpy()[order]
         line, = axes.plot(x, y, marker="o", color=colours[model],
-                          label=f"{name}: {model}" if several else model)
+                          label=f"{name}: {model_label(model)}" if several else model_label(model))
         reruns = at["rerun"].to_numpy()[order] > 0
         if reruns.any():   # open markers for the reruns, in the line's colour
             axes.plot(x[reruns], y[reruns], linestyle="none", marker="o", color=line.get_color(),
                       markerfacecolor="white", label="_rerun")
-        drawn.append(model)
+        drawn.append(model_label(model))
     reruns = int((positions["rerun"] > 0).sum())
     axes.set_title(title)
     caption = "last month of actuals in the run's data"
     if reruns:
         caption += "\nreruns on a month already run: drawn just right of it, with open markers"
     axes.set_xlabel(caption)
-    axes.set_ylabel(metric.replace("_", " "))
+    axes.set_ylabel(_metric_words(metric))
     axes.xaxis.set_major_locator(MaxNLocator(nbins=8, integer=True))
     axes.xaxis.set_major_formatter(FuncFormatter(_month_label))
     if metric == "skill_vs_mean":
         axes.axhline(0, color="grey", linewidth=0.8)
     axes.legend()
     months = sorted(positions["last_period"].astype(str).unique())
-    alt = (f"Line chart of {metric.replace('_', ' ')} per run of {', '.join(dict.fromkeys(drawn))} "
+    alt = (f"Line chart of {_metric_words(metric)} per run of {', '.join(dict.fromkeys(drawn))} "
            f"against the last month of actuals each run used, {months[0]} to {months[-1]}, "
            f"{len(positions)} run(s).")
     if reruns:

@@ -1,7 +1,7 @@
 """The report's pictures: matplotlib, non-interactive, deterministic, colour-blind-safe.
 
-Each function returns a Figure value: the picture as a data URI (SVG, or PNG where
-that is smaller) plus the text that stands in for it for a reader who cannot see it.
+Each function returns a Figure value: the picture as a data URI (inline.py: SVG, or PNG for
+a scatter of many points) plus the text that stands in for it for a reader who cannot see it.
 
 Pictures are drawn on figures of their own with the Agg canvas, never through
 pyplot, and in the report's style (``STYLE``) set only while each is drawn: importing
@@ -11,11 +11,7 @@ as they were.
 
 from __future__ import annotations
 
-import base64
 import functools
-import io
-import re
-from dataclasses import dataclass
 
 import matplotlib
 import matplotlib.dates as mdates
@@ -25,13 +21,26 @@ import pandas as pd
 import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number, format_signed
+from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
+    SVG_DOTS,
+    SVG_MARKERS,
+    Figure,
+    compact_svg,
+    data_uri,
+    inline_picture,
+    picture_bytes,
+    picture_data,
+    picture_kind,
+)
 
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
 BASELINE_COLOUR = "#7F7F7F"
 MAX_PANELS = 6
 MAX_LABELS = 12     # date or origin labels on an axis at most
+MAX_LISTED = 12     # series named one by one in the Drivers pictures; more are summarised, never listed
 
 STYLE = {
     "font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
@@ -56,18 +65,21 @@ def _subplots(*grid: int, figsize: tuple[float, float], **options):
     return figure, figure.subplots(*grid, **options)
 
 
-@dataclass(frozen=True)
-class Figure:
-    """A picture for the report and its text alternative."""
-
-    uri: str
-    alt: str
-
-
-
 def as_text(value) -> str:
     """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
     return str(value).replace("$", r"\$")
+
+def the_model(name: str) -> str:
+    """Return a model's name as a sentence writes it after a verb: its catalogue label, with
+    'the' before a label that is a description (the mean baseline's) rather than a name."""
+    label = model_label(name)
+    return label if label.startswith("the ") or name != "mean_baseline" else "the " + label
+
+
+def model_names(models) -> str:
+    """Return models' catalogue labels, joined by commas."""
+    return ", ".join(model_label(m) for m in models)
+
 
 def model_colours(models: list[str]) -> dict[str, str]:
     """Return each model's colour in the pictures: the mean baseline grey, the others in turn."""
@@ -77,31 +89,14 @@ def model_colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def picture_bytes(figure, kind: str) -> bytes:
-    """Return a drawn figure saved as 'png' or 'svg', without a timestamp or software tag, so
-    the same run draws the same bytes (the SVG's ids come from STYLE's svg.hashsalt)."""
-    buffer = io.BytesIO()
-    metadata = {"Software": None} if kind == "png" else {"Date": None, "Creator": None}
-    figure.savefig(buffer, format=kind, metadata=metadata)
-    if kind == "png":
-        return buffer.getvalue()
-    # The SVG's indentation only costs bytes: each text is an element of its own line.
-    return re.sub(rb"\n[ \t]+", b"\n", buffer.getvalue())
-
-
-def inline_picture(figure, alt: str) -> Figure:
-    """Return a drawn figure as an inline picture (a data URI) with its text alternative: SVG,
-    sharp at any size, unless the PNG is smaller (a scatter of thousands of points is)."""
-    if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
-        figure.tight_layout()
-    choices = [(len(data), kind, data) for kind, data in
-               (("svg+xml", picture_bytes(figure, "svg")), ("png", picture_bytes(figure, "png")))]
-    _, kind, data = min(choices)
-    return Figure(f"data:image/{kind};base64," + base64.b64encode(data).decode("ascii"), alt)
-
-
-def _date_axis(axis, most: int = 7) -> None:
-    locator = mdates.AutoDateLocator(minticks=3, maxticks=most)
+def date_axis(axis, most: int = 7, least: int = 3) -> None:
+    """Label a date axis with ``least`` to ``most`` ticks (about), concisely. matplotlib's
+    AutoDateLocator ticks by years only from ``least`` years up, and by months only every 1 to 6
+    of them: a span too short for years and too long for ``most`` ticks every 6 months (30 to 33
+    months with at most 6 ticks, 41 to 55 with 5 to 8) found no interval, warned and fell back
+    to 6. Ticks every 12 months (each January) close that gap."""
+    locator = mdates.AutoDateLocator(minticks=least, maxticks=most)
+    locator.intervald[mdates.MONTHLY] = [1, 2, 3, 4, 6, 12]
     axis.xaxis.set_major_locator(locator)
     axis.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
 
@@ -153,8 +148,8 @@ def _least_error(rows: pd.DataFrame, what: str) -> str:
     if not len(errors):
         return ""
     ranked = errors.sort_values(kind="stable")
-    others = ", ".join(f"{m} {format_number(v)}" for m, v in ranked.iloc[1:].items())
-    return (f" {what[:1].upper() + what[1:]}, {ranked.index[0]} erred least of the models drawn: MAE "
+    others = ", ".join(f"{model_label(m)} {format_number(v)}" for m, v in ranked.iloc[1:].items())
+    return (f" {what[:1].upper() + what[1:]}, {model_label(ranked.index[0])} erred least of the models drawn: MAE "
             f"{format_number(ranked.iloc[0])} per series and month" + (f", against {others}." if others else "."))
 
 
@@ -182,9 +177,9 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
             total = rows[rows["model"] == model].groupby("period")["prediction"].sum().sort_index()
             axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
                       marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
-                      label=model)
+                      label=as_text(model_label(model)))
         axis.set_title(f"predicted {what}", fontsize=8)
-        _date_axis(axis, most=MAX_LABELS // len(parts))
+        date_axis(axis, most=MAX_LABELS // len(parts))
         spans.append(f"{what} ({_months_text(scored)})")
     axes[0].set_ylabel("target, all series")
     handles, labels = axes[0].get_legend_handles_labels()
@@ -192,9 +187,10 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
     alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
-           f"target {summed} (black) and the out-of-sample predictions of {', '.join(models)} summed "
+           f"target {summed} (black) and the out-of-sample predictions of {model_names(models)} summed "
            f"alike, made {' and '.join(spans)}.")
-    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]))
+    points = sum(rows.groupby("model")["period"].nunique().sum() for _, rows in parts)
+    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]), picture_kind(points))
 
 
 @_styled
@@ -207,7 +203,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
         own = table[table["model"] == model]
         positions = np.arange(len(own))
         axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
-                  color=colours[model], label=model)
+                  color=colours[model], label=as_text(model_label(model)))
         # At most MAX_LABELS labels: every k-th origin or horizon, the first one labelled.
         every = -(-len(own) // MAX_LABELS)
         axis.set_xticks(positions[::every])
@@ -217,10 +213,10 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     axis.set_ylabel("MAE")
     axis.legend(fontsize=7, frameon=False, ncol=len(models), loc="lower left", bbox_to_anchor=(0, 1.0))
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
-    alt = (f"Line chart of the mean absolute error of {', '.join(models)} by {label}. "
-           + (f"The largest error is {format_number(worst['mae'])} ({worst['model']}, {label} {worst[key]})."
+    alt = (f"Line chart of the mean absolute error of {model_names(models)} by {label}. "
+           + (f"The largest error is {format_number(worst['mae'])} ({model_label(worst['model'])}, {label} {worst[key]})."
               if worst is not None else ""))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, picture_kind(len(table)))
 
 
 def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list) -> str:
@@ -275,7 +271,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
                     axis.plot(_months(rows_["period"]), rows_["scenario_forecast"], linestyle="--",
                               linewidth=1, color=PALETTE[(number + 1) % len(PALETTE)], label=scenario)
         axis.set_title(as_text(name), fontsize=8)
-        _date_axis(axis)
+        date_axis(axis)
         if index == 0:
             axis.legend(fontsize=6, frameon=False, loc="upper left")
     for index in range(len(series), rows * columns):
@@ -284,11 +280,11 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
              f"for the {len(series)} of {total:,} series with the largest total actuals "
              f"({', '.join(map(str, series))}; forecast.csv holds every series)")
     alt = (f"{len(series)} small line charts, {which}: the last "
-           f"36 months of actuals and the {model} forecast for {len(set(own['period']))} months "
+           f"36 months of actuals and the {model_label(model)} forecast for {len(set(own['period']))} months "
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
            + _against_last_year(history, own, series))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 def _clearest(names, middle, low, high, unit: str) -> str:
@@ -304,11 +300,21 @@ def _clearest(names, middle, low, high, unit: str) -> str:
 
 @_styled
 def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target per unit of the driver",
-                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95")) -> Figure:
+                        columns: tuple[str, str, str] = ("estimate", "low_95", "high_95"),
+                        model: str = "the model") -> Figure:
     """Each driver's effect with its 95% interval (the intercept left out): ``columns`` name the
     estimate and the interval's ends (for a log target, their percent changes), ``label`` what
-    they measure."""
+    they measure. A model fitted on each series (a ``series`` column): up to MAX_LISTED series
+    each named in a colour and marker of its own, more summarised by term (spread_picture)."""
     middle_name, low_name, high_name = columns
+    if "series" in terms and terms["series"].nunique() > 1:
+        if terms["series"].nunique() <= MAX_LISTED:
+            from pipeline.present.series_plots import coefficients_by_series
+            return coefficients_by_series(terms, model, label, columns)
+        grouped = terms.groupby("term", sort=False)[middle_name]
+        spread = pd.DataFrame({"median": grouped.median(), "25%": grouped.quantile(0.25),
+                               "75%": grouped.quantile(0.75)}).reset_index()
+        return spread_picture(spread, model, label, ("median", "25%", "75%"))
     shown = terms[terms["term"] != "intercept"].dropna(subset=[middle_name])
     figure, axis = _subplots(figsize=(8, max(1.8, 0.28 * len(shown) + 0.8)))
     positions = np.arange(len(shown))[::-1]
@@ -330,7 +336,7 @@ def coefficient_picture(terms: pd.DataFrame, label: str = "effect on the target 
            + (" with 95% interval bars" if has_interval else "")
            + (f"; {crossing} of the intervals include zero." if has_interval else ".")
            + (_clearest(list(shown["term"]), middle, low, high, unit) if has_interval else ""))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -351,16 +357,20 @@ def spread_picture(spread: pd.DataFrame, model: str, label: str = "effect on the
     axis.set_yticklabels([as_text(term) for term in shown["term"]], fontsize=7)
     axis.set_xlabel(as_text(label) + ": median across series, bars from the 25% to the 75% quantile")
     crossing = int(((low < 0) & (high > 0)).sum())
-    alt = (f"Dot chart of {len(shown)} driver coefficients of {model} across series as the {label}: "
+    alt = (f"Dot chart of {len(shown)} driver coefficients of {model_label(model)} across series as the {label}: "
            f"the median with bars over the middle half of the series; for {crossing} of the "
            "terms the middle half includes zero.")
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
 def levels_picture(levels: dict, model: str) -> Figure:
     """The series' own levels in a model over all series (report.levels_summary) as a histogram,
-    the median marked: with many series a distribution reads where a list of rows would not."""
+    the median marked: with many series a distribution reads where a list of rows would not; up
+    to MAX_LISTED series, each level named on a row of its own instead."""
+    if len(levels["values"]) <= MAX_LISTED:
+        from pipeline.present.series_plots import named_levels
+        return named_levels(levels, model)
     values = np.asarray(levels["values"], float)
     figure, axis = _subplots(figsize=(8, 2.4))
     axis.set_axisbelow(True)
@@ -370,8 +380,8 @@ def levels_picture(levels: dict, model: str) -> Figure:
     axis.set_xlabel(as_text(levels["label"]) + ", each series' own level against the reference series")
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2)
-    alt = f"Histogram of {model}: {levels['text']}"
-    return inline_picture(figure, alt)
+    alt = f"Histogram of {model_label(model)}: {levels['text']}"
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -392,21 +402,22 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
         if not len(own):
             continue
         axis.hist(np.clip(own, low, high), bins=edges, histtype="step", linewidth=1.4,
-                  color=colours[model], label=model)
-        parts.append(f"{model}: {len(own):,} series, median {np.median(own):.3g}, "
+                  color=colours[model], label=as_text(model_label(model)))
+        parts.append(f"{model_label(model)}: {len(own):,} series, median {np.median(own):.3g}, "
                      f"{(own > 0).mean():.0%} above 0")
-    axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label="as good as the mean")
-    axis.set_xlabel("skill against the mean baseline (1 − loss / the mean's, in select_by), per series")
+    baseline = the_model("mean_baseline")
+    axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label=as_text(f"as good as {baseline}"))
+    axis.set_xlabel(as_text(f"skill against the mean (1 − loss / the loss of {baseline}, in select_by), per series"))
     axis.set_ylabel("series")
     axis.legend(fontsize=7, frameon=False, loc="upper left")
     clipped = int(sum((v < -1).sum() for v in values.values()))
     if clipped:
         axis.annotate(f"{clipped:,} below −1", xy=(low, 0), xytext=(4, 14), textcoords="offset points",
                       fontsize=7, color="#333333")
-    alt = ("Histogram of per-series skill against the mean baseline, right of the dashed line at 0 "
+    alt = (f"Histogram of per-series skill against {baseline}, right of the dashed line at 0 "
            "the model beats it; " + "; ".join(parts)
            + (f". {clipped} values below −1 are counted in the leftmost bar." if clipped else "."))
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, "svg")
 
 
 @_styled
@@ -426,16 +437,16 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     for kind, style in ((model, "-"), ("mean_baseline", "--")):
         rows = _nearest(own[own["model"] == kind]).sort_values("period")
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
-                  marker=".", markersize=3, linewidth=1, label=kind)
+                  marker=".", markersize=3, linewidth=1, label=as_text(model_label(kind)))
     # A "$" in a series name would start matplotlib's maths notation.
     axis.set_title(as_text(f"{name} (skill {skill:.3g})"), fontsize=8)
-    _date_axis(axis)
+    date_axis(axis)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "
-           f"{past['period'].max()} and the out-of-sample predictions of {model} and of the mean "
-           f"baseline for the {len(scored)} months scored (nearest origin first); the skill of "
-           f"{model} on this series is {skill:.3g}.")
-    return inline_picture(figure, alt)
+           f"{past['period'].max()} and the out-of-sample predictions of {model_label(model)} and of "
+           f"{the_model('mean_baseline')} for the {len(scored)} months scored (nearest origin first); the "
+           f"skill of {model_label(model)} on this series is {skill:.3g}.")
+    return inline_picture(figure, alt, "svg")
 
 
 def _spread_by_level(residuals: pd.DataFrame) -> str:
@@ -460,19 +471,20 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     axis.plot(_months(by_month.index), by_month.to_numpy(), color=PALETTE[0], linewidth=1)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
-    _date_axis(axis)
+    date_axis(axis)
     worst = by_month.abs().idxmax() if len(by_month) else None
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."
                             + (f" The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
-                               if worst is not None else "")))
+                               if worst is not None else ""), "svg"))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_xlabel("fitted value")
     axis.set_ylabel("residual")
     pictures.append(inline_picture(figure, "Scatter of residuals against fitted values; a funnel shape "
-                            "means the spread changes with the level." + _spread_by_level(residuals)))
+                            "means the spread changes with the level." + _spread_by_level(residuals),
+                                   picture_kind(len(residuals), SVG_DOTS)))
     figure, axis = _subplots(figsize=(4, 3))
     (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
@@ -485,7 +497,8 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     pictures.append(inline_picture(figure, "Normal quantile plot of the residuals; points off the line "
                             "in the tails mean larger surprises than a normal curve allows."
                             + (f" {far:.1%} of the {len(values):,} residuals lie more than 1.96 standard "
-                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else "")))
+                               "deviations from their mean, where a normal curve puts 5%." if np.isfinite(far) else ""),
+                                   picture_kind(len(residuals), SVG_DOTS)))
     return pictures
 
 
@@ -545,4 +558,4 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
     if worst is not None:
         alt += (f". The largest error was {format_signed(error[worst])} ({rows['period'].iloc[worst]}, "
                 f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
-    return inline_picture(figure, alt)
+    return inline_picture(figure, alt, picture_kind(len(rows), SVG_DOTS))

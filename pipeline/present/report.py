@@ -258,6 +258,8 @@ def drivers_view(coefficients: pd.DataFrame | None, recommended: str, series_cou
     logged = transforms.get(linear) in LOG_KINDS
     view["model"] = linear
     view["label"] = effect_label(transforms.get(linear), target)
+    if "series" in terms and terms["series"].notna().any() and terms["series"].nunique() <= plots.MAX_LISTED:
+        view["series_terms"] = _with_percent(terms) if logged else terms   # the picture names each series
     view["scale_note"] = (f"The model is of {transforms[linear]}({target or 'the target'}): an estimate "
                           f"is on that scale, and {PERCENT} = 100·(exp(estimate) − 1) is the "
                           f"{view['label']} (all else equal)." if logged else "")
@@ -448,6 +450,12 @@ def _drivers_picture(drivers: dict) -> plots.Figure | None:
     """Return the Drivers section's picture: the spread of a model per series' coefficients
     across series, else the recommended model's coefficients (None when it has none); as
     percent changes for a model of log(target)."""
+    listed = drivers.get("series_terms")
+    if listed is not None:   # a model of each of a few series: the picture names each one
+        return plots.coefficient_picture(
+            listed, drivers["label"],
+            (PERCENT, "% from (95%)", "% to (95%)") if PERCENT in listed else ("estimate", "low_95", "high_95"),
+            drivers["model"])
     if drivers["per_series"]:
         return plots.spread_picture(
             drivers["spread"], drivers["model"], drivers["label"],
@@ -455,7 +463,8 @@ def _drivers_picture(drivers: dict) -> plots.Figure | None:
     if drivers["terms"] is not None and len(drivers["terms"]):
         return plots.coefficient_picture(
             drivers["terms"], drivers["label"],
-            (PERCENT, "% from (95%)", "% to (95%)") if PERCENT in drivers["terms"] else ("estimate", "low_95", "high_95"))
+            (PERCENT, "% from (95%)", "% to (95%)") if PERCENT in drivers["terms"] else ("estimate", "low_95", "high_95"),
+            drivers["model"])
     return None
 
 

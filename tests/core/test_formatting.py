@@ -21,6 +21,7 @@ from pipeline.core.formatting import (
     format_number,
     format_p,
     format_percent,
+    format_share,
     format_text,
     is_missing,
     is_p_column,
@@ -193,3 +194,22 @@ def test_markdown_table_escapes_pipes_and_folds_newlines():
 ])
 def test_a_share_is_a_whole_percent_unless_that_reads_as_zero(share, shown):
     assert format_percent(share) == shown
+
+
+@pytest.mark.parametrize(("share", "shown"), [
+    (0.8, "80%"),          # an interval's level: a whole percent, no ".0"
+    (0.8016, "80.2%"),     # three significant digits: 80.1|6 → 80.2
+    (0.9498, "95%"),       # 94.9|8 → 95.0 → "95%"
+    (0.0123, "1.23%"),
+    (0.0, "0%"),
+    (float("nan"), "—"),
+])
+def test_shares_read_as_percents_to_three_significant_digits(share, shown):
+    # Rule: a share (an interval's level, the share of actuals it held) reads as a percent to
+    # three significant digits, trailing zeros dropped; a share that does not exist is a dash.
+    assert format_share(share) == shown
+
+
+def test_level_and_coverage_columns_hold_shares_and_other_columns_do_not():
+    assert format_cell(0.8016, "coverage") == "80.2%" and format_cell(0.95, "level") == "95%"
+    assert format_cell(0.8016, "mae") == "0.8016"

@@ -15,13 +15,17 @@ import json
 import os
 import subprocess
 import sys
+import urllib.parse
+import warnings
 from xml.etree import ElementTree
 
 import matplotlib
 import numpy as np
 import pandas as pd
+import pytest
 from conftest import ROOT
 
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 from pipeline.present.history_plot import plot_history
@@ -37,6 +41,7 @@ def snapshot():
 before = snapshot()
 import numpy as np
 import pandas as pd
+import pytest
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 after_import = snapshot()
@@ -131,8 +136,8 @@ def _drawn(monkeypatch) -> list:
     figures = []
     real = plots.inline_picture
 
-    def keep(figure, alt):
-        picture = real(figure, alt)
+    def keep(figure, alt, kind=None):
+        picture = real(figure, alt, kind)
         figures.append(figure)
         return picture
     monkeypatch.setattr(plots, "inline_picture", keep)
@@ -155,7 +160,7 @@ def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with
         # Reference: the predictions made this many months ahead, summed over series with pandas.
         own = predictions[(predictions["horizon"] == months) & (predictions["model"] == "ols")]
         expected = own.groupby("period")["prediction"].sum().sort_index().to_numpy()
-        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == "ols"]
+        (line,) = [ln for ln in axis.get_lines() if ln.get_label() == model_label("ols")]   # the legend's word
         np.testing.assert_allclose(line.get_ydata(), expected, rtol=1e-12)
     # At most 12 date labels over both panels (61 origins would be 61 labels).
     assert sum(len(_labels(a)) for a in axes) <= 12
@@ -169,7 +174,7 @@ def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with
     mae = {m: float(np.mean(np.abs(g["prediction"] - g["actual"]))) for m, g in first.groupby("model")}
     best = min(mae, key=mae.get)
     assert best == "ols"
-    assert f"1 month ahead, ols erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
+    assert f"1 month ahead, {model_label('ols')} erred least of the models drawn: MAE {format_number(mae['ols'])}" in picture.alt
     assert "61 months" in picture.alt and "origins are marked" not in picture.alt
 
 
@@ -188,8 +193,12 @@ def test_the_error_picture_by_origin_labels_at_most_12_of_61_origins(monkeypatch
 
 # ---------------------------------------------------------------- SVG or PNG
 def _decoded(uri: str) -> tuple[str, bytes]:
-    kind, data = uri.split(";base64,", 1)
-    return kind.removeprefix("data:image/"), base64.b64decode(data)
+    """Return a data URI's kind and bytes, read back with the standard library alone."""
+    head, data = uri.split(",", 1)
+    if head == "data:image/svg+xml":   # percent-encoded UTF-8
+        return "svg", urllib.parse.unquote_to_bytes(data)
+    assert head == "data:image/png;base64", head
+    return "png", base64.b64decode(data, validate=True)
 
 
 def test_a_line_chart_is_inlined_as_well_formed_svg_of_fewer_bytes_than_its_png(monkeypatch):
@@ -197,7 +206,7 @@ def test_a_line_chart_is_inlined_as_well_formed_svg_of_fewer_bytes_than_its_png(
     figures = _drawn(monkeypatch)
     picture = plots.backtest_picture(history, predictions)
     kind, data = _decoded(picture.uri)
-    assert kind == "svg+xml"
+    assert kind == "svg"
     root = ElementTree.fromstring(data)   # reference: the standard library's XML parser
     assert root.tag == "{http://www.w3.org/2000/svg}svg"
     assert b"<dc:date>" not in data   # no timestamp in the file
@@ -219,7 +228,7 @@ def test_a_scatter_of_thousands_of_points_stays_png_when_that_is_smaller(monkeyp
         kind, data = _decoded(picture.uri)
         with matplotlib.rc_context(plots.STYLE):   # saved again as the picture was: in the report's style
             sizes = {"png": len(plots.picture_bytes(figure, "png")),
-                     "svg+xml": len(plots.picture_bytes(figure, "svg"))}
+                     "svg": len(plots.picture_bytes(figure, "svg"))}
         assert len(data) == min(sizes.values()) and kind == min(sizes, key=sizes.get)
     assert _decoded(pictures[1].uri)[0] == "png"   # 6,000 points: each a path in SVG
 
@@ -255,3 +264,28 @@ def test_the_forecast_pictures_text_compares_each_series_with_the_same_months_a_
     alt = plots.forecast_picture(history, forecast, "ols", "analytic", None).alt
     # Reference: 2024-01 and 2024-02 are a's 13th and 14th months (112 + 113), b's 50 + 50.
     assert f"a {262 / 225 - 1:+.1%}, b {90 / 100 - 1:+.1%}." in alt
+
+
+# ---------------------------------------------------------------- date axes
+@pytest.mark.parametrize("origins", [18, 19, 20, 21, 22])
+def test_a_two_panel_backtest_of_30_to_33_months_a_panel_draws_without_a_warning(origins):
+    # Each panel spans the scored months and the year before them: 30 to 34 months, where
+    # matplotlib's AutoDateLocator with at most 6 ticks found no interval and warned.
+    history, predictions = _rolling_backtest(origins=origins)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        picture = plots.backtest_picture(history, predictions)
+    assert picture.uri.startswith("data:image/")
+
+
+@pytest.mark.parametrize(("least", "most"), [(3, 6), (3, 7), (3, 12), (5, 8)])
+def test_a_date_axis_of_any_span_is_labelled_without_a_warning(least, most):
+    for span in [1, 2, 12, 24, 29, 30, 31, 33, 34, 40, 41, 48, 55, 56, 60, 120, 240, 600]:
+        figure, axis = plots._subplots(figsize=(4, 2))
+        axis.plot(pd.period_range("2020-01", periods=span, freq="M").to_timestamp(), np.arange(span))
+        plots.date_axis(axis, most=most, least=least)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            figure.canvas.draw()
+        labels = _labels(axis)
+        assert 1 <= len(labels) <= most + 2, (span, labels)

@@ -24,6 +24,7 @@ from conftest import DEMO_SPEC, ROOT, tiny_data, write_tiny_spec
 from statsmodels.stats.multitest import multipletests
 
 import pipeline
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 
 DEMO = DEMO_SPEC
@@ -203,7 +204,7 @@ def test_the_backtest_picture_states_whose_errors_were_smallest_from_the_single_
     alt = re.search(r'<section id="backtest">.*?<img [^>]*alt="([^"]*)"', html, re.S).group(1)
     origin = metrics["by_origin"][0]["origin"]
     assert alt.startswith("Line chart: ")
-    assert (f"From {origin}, 1 to 12 months ahead, {best} erred least of the models drawn: "
+    assert (f"From {origin}, 1 to 12 months ahead, {model_label(best)} erred least of the models drawn: "
             f"MAE {format_number(mae[best])} per series and month") in alt
     others = {row["model"] for row in metrics["models"]} - drawn
     assert others and not any(m in alt for m in others)
@@ -215,9 +216,9 @@ def test_pictures_as_svg_where_smaller_make_the_report_smaller_than_all_png(run_
     from pipeline.present import plots
     from pipeline.present.report import render_report
     chosen = render_report(run_folder)
-    assert "data:image/svg+xml;base64," in chosen
+    assert "data:image/svg+xml," in chosen
 
-    def png_only(figure, alt):
+    def png_only(figure, alt, kind=None):
         if figure.get_layout_engine() is None:
             figure.tight_layout()
         data = plots.picture_bytes(figure, "png")

@@ -19,6 +19,7 @@ from browser import read_page
 from conftest import DEMO_SPEC
 
 import pipeline
+from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
 from pipeline.present import plots
 
@@ -71,7 +72,7 @@ def test_the_coefficient_picture_draws_the_columns_it_is_given(monkeypatch):
     terms["pct_low"], terms["pct_high"] = 100 * np.expm1(terms["low_95"]), 100 * np.expm1(terms["high_95"])
     figures = []
     real = plots.inline_picture
-    monkeypatch.setattr(plots, "inline_picture", lambda f, alt: figures.append(f) or real(f, alt))
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append(f) or real(f, alt, *kind))
     picture = plots.coefficient_picture(terms, "% change in sales per unit of the driver",
                                         ("pct", "pct_low", "pct_high"))
     (axis,) = figures[0].get_axes()
@@ -144,7 +145,7 @@ def test_at_most_12_series_levels_are_listed_and_the_rest_summarised_as_a_distri
     assert (f"from {format_number(float(low['estimate']))} ({low['term'][6:]}) to "
             f"{format_number(float(high['estimate']))} ({high['term'][6:]})") in line
     alts = re.findall(r'<section id="drivers">.*?</section>', html, re.S)[0]
-    assert "Histogram of ols: 49 series levels" in alts
+    assert f"Histogram of {model_label('ols')}: 49 series levels" in alts
     assert line in (shops / "summary.md").read_text(encoding="utf-8")
 
 
@@ -152,12 +153,12 @@ def test_the_coefficient_picture_leaves_the_series_levels_to_their_histogram(sho
     from pipeline.present.report import render_report
     figures = []
     real = plots.inline_picture
-    monkeypatch.setattr(plots, "inline_picture", lambda f, alt: figures.append((f, alt)) or real(f, alt))
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append((f, alt)) or real(f, alt, *kind))
     render_report(shops)
     (dots,) = [f for f, alt in figures if alt.startswith("Dot chart")]
     labels = [t.get_text() for t in dots.get_axes()[0].get_yticklabels()]
     assert labels and not any(label.startswith("shop: ") for label in labels)
-    (histogram,) = [f for f, alt in figures if alt.startswith("Histogram of ols: ")]
+    (histogram,) = [f for f, alt in figures if alt.startswith(f"Histogram of {model_label('ols')}: ")]
     counts = sum(patch.get_height() for patch in histogram.get_axes()[0].patches)
     assert counts == SHOPS - 1
 
@@ -176,3 +177,65 @@ def test_a_log_targets_series_levels_are_summarised_as_percent_changes(shops_log
     row = spread.loc["series level (each series against the first)"]
     assert row["median % change per unit"] == pytest.approx(np.median(percents), rel=1e-12)
     assert row["% 25%"] == pytest.approx(np.quantile(percents, 0.25), rel=1e-12)
+
+
+# ---------------------------------------------------------------- a few series named, many summarised
+def _by_series(count: int) -> pd.DataFrame:
+    """Invented coefficients of a model fitted on each of ``count`` series: an intercept, price
+    (negative everywhere) and promo (positive but in the last series)."""
+    rows = []
+    for k in range(count):
+        for term, estimate in (("intercept", 10.0 + k), ("price", -1.0 - 0.1 * k),
+                               ("promo", 0.5 + 0.2 * k if k < count - 1 else -0.3)):
+            rows.append({"series": f"s{k:02d}", "term": term, "estimate": estimate,
+                         "low_95": estimate - 0.2, "high_95": estimate + 0.2})
+    return pd.DataFrame(rows)
+
+
+def test_a_few_series_coefficients_are_each_named_in_a_colour_and_marker_of_their_own(monkeypatch):
+    terms = _by_series(4)
+    figures = []
+    real = plots.inline_picture
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append(f) or real(f, alt, *kind))
+    picture = plots.coefficient_picture(terms, model="ols_per_series")
+    (axis,) = figures[0].get_axes()
+    assert [t.get_text() for t in axis.get_legend().get_texts()] == ["s00", "s01", "s02", "s03"]
+    drawn = {}
+    for container in axis.containers:   # one errorbar per series: its dots and their marker
+        line = container.lines[0]
+        drawn[container.get_label()] = (line.get_marker(), line.get_color(), list(line.get_xdata()))
+    assert len({(marker, colour) for marker, colour, _ in drawn.values()}) == 4
+    for name, (_, _, xs) in drawn.items():   # reference: the table's own rows
+        own = terms[(terms["series"] == name) & (terms["term"] != "intercept")]
+        np.testing.assert_allclose(xs, own["estimate"].to_numpy(), rtol=1e-12)
+    assert "each of its 4 series (s00, s01, s02, s03)" in picture.alt
+    # The finding: price shares its sign in every series, promo does not (s03 is negative).
+    assert "share a sign for 1 of the 2 terms" in picture.alt
+    assert "They differ most on promo: from -0.3 (s03) to 0.9 (s02)." in picture.alt
+
+
+def test_more_than_twelve_series_coefficients_are_summarised_by_term(monkeypatch):
+    picture = plots.coefficient_picture(_by_series(13), model="ols_per_series")
+    assert "across series" in picture.alt and "s00" not in picture.alt
+
+
+def _levels(count: int) -> dict:
+    values = np.linspace(-20, 40, count)
+    names = np.array([f"shop{k:02d}" for k in range(count)])
+    return {"count": count, "values": values, "names": names, "median": float(np.median(values)),
+            "label": "effect on the target", "text": f"{count} series levels."}
+
+
+def test_up_to_twelve_series_levels_are_each_named_and_more_are_a_histogram(monkeypatch):
+    figures = []
+    real = plots.inline_picture
+    monkeypatch.setattr(plots, "inline_picture", lambda f, alt, *kind: figures.append(f) or real(f, alt, *kind))
+    named = plots.levels_picture(_levels(12), "ols")
+    (axis,) = figures[0].get_axes()
+    labels = [t.get_text() for t in axis.get_yticklabels()]
+    assert labels == [f"shop{k:02d}" for k in range(12)]   # smallest at the bottom
+    np.testing.assert_allclose(axis.get_lines()[0].get_xdata(), np.linspace(-20, 40, 12), rtol=1e-12)
+    assert named.alt.startswith(f"Dot chart of the 12 series levels of {model_label('ols')}, each named, largest "
+                                "first: shop11 40, shop10 34.55, ")
+    many = plots.levels_picture(_levels(13), "ols")
+    assert many.alt.startswith(f"Histogram of {model_label('ols')}: ") and "shop00" not in many.alt

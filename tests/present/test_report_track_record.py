@@ -14,7 +14,6 @@ section's own code.
 
 from __future__ import annotations
 
-import base64
 import html
 import json
 import re
@@ -29,7 +28,7 @@ from conftest import tiny_data, write_tiny_spec
 import pipeline
 from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_percent, format_signed
-from pipeline.present import report
+from pipeline.present import plots, report
 from pipeline.present.pages import render_pages
 from pipeline.present.track_record import track_record_view
 
@@ -256,11 +255,10 @@ def test_the_picture_draws_the_realised_errors_and_its_text_states_how_many_fell
     worst = own.loc[own["error"].abs().idxmax()]
     images = parsed(section(last)).images
     assert len(images) == 1
-    kind, data = images[0]["src"].split(";base64,", 1)
-    picture = base64.b64decode(data)
+    kind, picture = plots.picture_data(images[0]["src"])
     # An SVG that parses as XML (xml.etree), or a PNG by its signature (the PNG specification).
-    assert (kind == "data:image/svg+xml" and ElementTree.fromstring(picture).tag == "{http://www.w3.org/2000/svg}svg") \
-        or (kind == "data:image/png" and picture[:8] == b"\x89PNG\r\n\x1a\n")
+    assert (kind == "svg" and ElementTree.fromstring(picture).tag == "{http://www.w3.org/2000/svg}svg") \
+        or (kind == "png" and picture[:8] == b"\x89PNG\r\n\x1a\n")
     alt = images[0]["alt"]
     assert alt.startswith("Dot chart of the realised errors (forecast − actual) of 12 forecast(s) from 2 earlier run(s)")
     assert f"{len(outside)} of {len(own)} fell outside it (" in alt

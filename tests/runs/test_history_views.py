@@ -147,7 +147,7 @@ def test_the_plot_puts_each_run_at_the_last_month_of_its_data(eight_runs):
         table = history.metrics_history(conn, "tiny")
     figure, alt = history_figure(table, "mae", "tiny")
     lines = [line for line in figure.axes[0].lines if not line.get_label().startswith("_")]
-    assert {line.get_label() for line in lines} == set(table["model"])
+    assert {line.get_label() for line in lines} == {model_label(m) for m in table["model"]}   # the catalogue's words
     first_on_month = ~runs["last_period"].duplicated().to_numpy()
     for line in lines:
         x = np.asarray(line.get_xdata(), float)

@@ -38,7 +38,7 @@ MASKS = [
     (re.compile(r"run-\d{8}T\d{6,12}Z-[0-9a-f]{6}"), "run-ID"),
     (re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d+)?(\+00:00|Z)?"), "TIME"),
     # SVG or PNG, whichever is smaller: which one can change with matplotlib's version too.
-    (re.compile(r"data:image/(png|svg\+xml);base64,[A-Za-z0-9+/=]+"), "data:image/KIND;base64,PICTURE"),
+    (re.compile(r"data:image/(png;base64,[A-Za-z0-9+/=]+|svg\+xml,[^\"]+)"), "data:image/KIND;base64,PICTURE"),
 ]
 
 
