@@ -110,7 +110,7 @@ PLOT_METRICS = [*METRIC_NAMES, SKILL]
 def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
     """Print a table headed in words (the catalogue's labels), models named as the answer names
     them, numbers as the report shows them."""
-    cells = [[model_label(row[c]) if c == "model" and isinstance(row[c], str) else format_cell(row[c], c)
+    cells = [[model_label(row[c]) if c in ("model", "recommended") and isinstance(row[c], str) else format_cell(row[c], c)
               for c in columns] for row in rows]
     heads = [column_label(c) for c in columns]
     widths = [max(len(h), *(len(r[i]) for r in cells)) for i, h in enumerate(heads)]

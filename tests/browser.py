@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import shutil
+import time
 from dataclasses import dataclass
 from html.parser import HTMLParser
 from pathlib import Path
@@ -113,6 +114,20 @@ class Layout:
     #                             caution line end (None when the page has none)
 
 
+def _inner_size(driver, width: int, height: int, tries: int = 50) -> None:
+    """Set the window's inner size to width × height exactly and wait until the page has it: the
+    outer size may include a frame, and a resize reaches the page's layout a moment later."""
+    for _ in range(tries):
+        inner = driver.execute_script("return [window.innerWidth, window.innerHeight];")
+        if inner == [width, height]:
+            return
+        outer = driver.get_window_rect()
+        driver.set_window_rect(width=outer["width"] + width - inner[0],
+                               height=outer["height"] + height - inner[1])
+        time.sleep(0.1)
+    raise AssertionError(f"the browser window would not take an inner size of {width} × {height}")
+
+
 def measure_layout(path: Path, profile: Path, width: int, height: int) -> Layout:
     """Open a local HTML file in headless Chromium in a window of width × height and return how
     it lays out."""
@@ -127,9 +142,7 @@ def measure_layout(path: Path, profile: Path, width: int, height: int) -> Layout
     try:
         driver.set_window_rect(width=width, height=height)
         driver.get(Path(path).resolve().as_uri())
-        # The window's outer size includes no frame in headless mode; set the inner one exactly.
-        inner = driver.execute_script("return [window.innerWidth, window.innerHeight];")
-        driver.set_window_rect(width=2 * width - inner[0], height=2 * height - inner[1])
+        _inner_size(driver, width, height)
         found = driver.execute_script(_LAYOUT)
     finally:
         driver.quit()

@@ -163,7 +163,9 @@ COLUMN_LABELS = {
 
 def column_label(name: str) -> str:
     """Return the words a table heads a column with: a metric's label (MAE, R²), else the
-    column's words (``skill_vs_mean`` → "skill against the mean"), else the name as given."""
+    column's words (``skill_vs_mean`` → "skill against the mean"), else a model's label for a
+    table with a column per model (``seasonal_naive`` → "same month last year"), else the name
+    as given."""
     if name in METRIC_BY_NAME:
         return METRIC_BY_NAME[name].label
-    return COLUMN_LABELS.get(name, name)
+    return COLUMN_LABELS.get(name) or (model_label(name) if isinstance(name, str) else name)

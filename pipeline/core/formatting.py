@@ -179,7 +179,7 @@ def markdown_table(frame) -> str:
     """Return a table in Markdown, numbers as the report shows them, pipes escaped, and when a
     cell has no value, the line that says what its dash means under the table."""
     def cell(value, column=None) -> str:
-        if column == "model" and isinstance(value, str):
+        if column in ("model", "recommended") and isinstance(value, str):
             value = model_label(value)
         return format_cell(value, column).replace("|", "\\|").replace("\n", " ")
     header = "| " + " | ".join(cell(column_label(c)) for c in frame.columns) + " |"

@@ -41,7 +41,11 @@ def demo(tmp_path_factory) -> dict:
     with contextlib.redirect_stdout(out):
         assert main(["run", str(SHIPPED_DEMO_SPEC), "--output-folder", str(folder)]) == 0
     run = next(folder.glob("run-*"))
-    return {"cli": out.getvalue(), "report": (run / "report.html").read_text(encoding="utf-8"),
+    page = folder / "history.html"
+    with contextlib.redirect_stdout(io.StringIO()):
+        assert main(["history", str(SHIPPED_DEMO_SPEC), "--ledger", str(folder / "ledger.sqlite"),
+                     "--html", str(page)]) == 0
+    return {"history": page.read_text(encoding="utf-8"),"cli": out.getvalue(), "report": (run / "report.html").read_text(encoding="utf-8"),
             "summary": (run / "summary.md").read_text(encoding="utf-8"),
             "models": [row["model"] for row in json.loads((run / "metrics.json").read_text())["models"]]}
 
@@ -65,6 +69,12 @@ def test_the_report_shows_no_code_name(demo):
 def test_the_summary_shows_no_code_name(demo):
     assert sorted(set(CODE_NAME.findall(demo["summary"]))) == []
     assert not OLD_WORDS.search(demo["summary"])
+
+
+def test_the_history_page_shows_no_code_name(demo):
+    """Its tables with a column per model are headed by the models' labels too."""
+    assert sorted(set(CODE_NAME.findall(visible_text(demo["history"])))) == []
+    assert model_label("calendar_month_mean") in demo["history"]
 
 
 def test_the_command_line_shows_no_code_name(demo):

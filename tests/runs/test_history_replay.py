@@ -43,6 +43,7 @@ from browser import CHROMEDRIVER, CHROMIUM, NEEDS_A_BROWSER, open_page, read_pag
 
 import pipeline
 from pipeline import cli
+from pipeline.core.catalogue import model_label
 
 SEED = 20220101
 FIRST_MONTH = pd.Period("2022-01", "M")
@@ -407,7 +408,7 @@ def test_the_history_pages_runs_and_metrics_are_the_ledgers(replay, history_page
     assert list(shown["run id"]) == list(runs["run_id"])
     assert list(shown["run"]) == list(runs["last_period"])       # no rerun shares a month here
     assert list(shown["rows with actuals"]) == list(runs["history_rows"].astype(float))
-    assert list(shown["recommended"]) == list(runs["recommended"])
+    assert list(shown["recommended"]) == list(runs["recommended"].map(model_label))   # named by the catalogue
     chosen = runs.merge(metrics, left_on=["run_id", "recommended"], right_on=["run_id", "model"])
     np.testing.assert_allclose(shown["MAE"], chosen["mae"], rtol=1e-12)
     np.testing.assert_allclose(shown["skill against the mean"], chosen["skill_vs_mean"], rtol=1e-12)
@@ -418,6 +419,8 @@ def test_the_history_pages_runs_and_metrics_are_the_ledgers(replay, history_page
                                                                           values=column)
         if column == "skill_vs_mean":
             expected = expected.drop(columns=["mean_baseline"])
+        # a column per model, headed by the model's label
+        wide = wide.rename(columns={model_label(name): name for name in expected.columns})
         assert sorted(wide.columns) == sorted(expected.columns) and len(wide) == RERUNS
         np.testing.assert_allclose(wide[expected.columns].to_numpy(float),
                                    expected.loc[wide.index].to_numpy(float), rtol=1e-12)
