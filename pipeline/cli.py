@@ -498,6 +498,8 @@ def _command_check(args) -> int:
     print(f"{data.raw.path}: {len(data.raw.frame)} rows pass the checks "
           f"({len(data.history)} with actuals from {data.first_period} to {data.last_period}, "
           f"{len(data.future)} to forecast, {len(data.series_names)} series)")
+    for note in data.notes:
+        print(f"note: {note}")
     if data.problems_allowed:
         print("allowed by the spec:")
         _print_problems(data.problems_allowed)

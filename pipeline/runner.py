@@ -22,6 +22,7 @@ from pipeline.stages.check import CheckedData, check_data
 from pipeline.stages.evaluate import Evaluation, evaluate
 from pipeline.stages.forecast import ForecastResult, make_forecast
 from pipeline.stages.ingest import read_input
+from pipeline.stages.splits import settle_validation
 from pipeline.stages.survey import Inference, infer
 
 
@@ -77,8 +78,9 @@ def check(spec_or_path: Spec | str | Path) -> CheckedData:
     spec = _as_spec(spec_or_path)
     with _data_file_named(spec):
         data = check_data(spec, read_input(spec))
+        spec, notes = settle_validation(spec, data)
         plan_splits(spec, data)
-    return data
+    return data.with_notes(notes)
 
 
 @contextmanager
@@ -103,6 +105,8 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     spec = _as_spec(spec_or_path)
     with _data_file_named(spec), executor_for(spec.compute, spec) as executor:
         data = check_data(spec, read_input(spec))
+        spec, notes = settle_validation(spec, data)
+        data = data.with_notes(notes)
         backtest = run_backtest(spec, data, executor=executor, progress=progress)
         evaluation = evaluate(spec, backtest)
         forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,

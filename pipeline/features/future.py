@@ -122,13 +122,17 @@ class FutureEstimates:
                         for column, rule in self.rules.items()}
         return self
 
-    def after_origin(self, frame: pd.DataFrame) -> np.ndarray:
-        """Return which rows fall after the window's last month."""
+    def after_origin(self, frame: pd.DataFrame, every_row: bool = False) -> np.ndarray:
+        """Return which rows fall after the window's last month (``every_row``: all rows,
+        each after its own series' last actual)."""
+        if every_row:
+            return np.ones(len(frame), bool)
         return month_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
 
-    def apply(self, frame: pd.DataFrame) -> pd.DataFrame:
-        """Return the rows with every estimated column replaced after the origin."""
-        later = self.after_origin(frame)
+    def apply(self, frame: pd.DataFrame, *, every_row: bool = False) -> pd.DataFrame:
+        """Return the rows with every estimated column replaced after the origin (``every_row``:
+        in every row)."""
+        later = self.after_origin(frame, every_row)
         if not later.any():
             return frame
         changed = frame.copy()
@@ -142,10 +146,12 @@ class FutureEstimates:
             changed[column] = values
         return changed
 
-    def notes(self, frame: pd.DataFrame, *, given_ignored: bool = False) -> list[str]:
-        """Return what estimating the rows after the origin did: estimates that fell back
-        to a coarser rule, and (``given_ignored``) values the rows held that were ignored."""
-        later = self.after_origin(frame)
+    def notes(self, frame: pd.DataFrame, *, given_ignored: bool = False,
+              every_row: bool = False) -> list[str]:
+        """Return what estimating the rows after the origin (``every_row``: all rows) did:
+        estimates that fell back to a coarser rule, and (``given_ignored``) values the rows
+        held that were ignored."""
+        later = self.after_origin(frame, every_row)
         if not later.any():
             return []
         found = []

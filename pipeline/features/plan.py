@@ -153,11 +153,12 @@ class FeaturePlan:
                             if self.estimated and self.window_end_ is not None else None)
         return self
 
-    def estimate_future(self, frame: pd.DataFrame) -> pd.DataFrame:
+    def estimate_future(self, frame: pd.DataFrame, *, every_row: bool = False) -> pd.DataFrame:
         """Return the rows with every driver castline estimates replaced, in the months after
-        the window, by its estimate from the window (see ``FutureEstimates``); the rows as
-        they are without such drivers. ``transform`` reads values as it is handed them."""
-        return frame if self.future_ is None else self.future_.apply(frame)
+        the window (``every_row``: in every row, all of them to forecast), by its estimate from
+        the window (see ``FutureEstimates``); the rows as they are without such drivers.
+        ``transform`` reads values as it is handed them."""
+        return frame if self.future_ is None else self.future_.apply(frame, every_row=every_row)
 
     # Series columns are dense: beyond this many cells in a window's design, the fit would
     # need gigabytes, and a model per series (or no series intercepts) is the way.

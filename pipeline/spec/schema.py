@@ -137,6 +137,10 @@ def _as_text(value: Any) -> Any:
 # (a plan, a price list), or estimated by castline from the training window alone.
 FUTURE_RULES = ("given", "month_mean", "last_year", "last_value", "mean")
 ESTIMATE_RULES = FUTURE_RULES[1:]
+# forecast.months is at most this: ten years of months ahead.
+MOST_MONTHS_AHEAD = 120
+# Without validation.horizon (and forecast.months), each origin predicts this many months.
+DEFAULT_HORIZON = 12
 FutureRule = Literal[FUTURE_RULES]
 FUTURE_DESCRIPTION = (
     "given: the months to forecast carry the values (a plan, a price list); or estimated "
@@ -305,11 +309,13 @@ class RollingOriginValidation(StrictModel):
     window: Literal["expanding", "sliding"] = Field(
         "expanding", description="expanding: all months up to the origin; sliding: the last "
                                  "min_train_periods months only")
-    horizon: int = Field(strict=True, ge=1, description="each origin predicts 1..horizon months ahead")
+    horizon: int | None = Field(None, strict=True, ge=1, description="each origin predicts 1..horizon "
+                                "months ahead; default forecast.months, else 12")
     gap: int = Field(0, strict=True, ge=0, description="months skipped between the origin and the first "
                                           "predicted month")
-    min_train_periods: int = Field(strict=True, ge=2, description="months in the first training window "
-                                                     "(the window length when sliding)")
+    min_train_periods: int | None = Field(None, strict=True, ge=2, description=(
+        "months in the first training window (the window length when sliding); default 24, or "
+        "half the history when it has fewer than 48 months"))
     step: int = Field(1, strict=True, ge=1, description="months between consecutive origins")
     origins: int | None = Field(None, strict=True, ge=1, description="use only the last N origins")
 
@@ -408,6 +414,14 @@ class Scenario(StrictModel):
     changes: list[DriverChange] = Field(min_length=1)
 
 
+class ForecastSection(StrictModel):
+    """The months to forecast, added by castline after each series' last actual."""
+
+    months: int = Field(strict=True, ge=1, le=MOST_MONTHS_AHEAD, description=(
+        "forecast this many months after each series' last actual; castline adds the rows the "
+        "file lacks (drivers given ahead must still have their values in the data)"))
+
+
 class OutputSection(StrictModel):
     folder: Path = Field(description="run folders are created inside it")
     ledger: Path | None = Field(
@@ -437,7 +451,10 @@ class Spec(StrictModel):
         "none", description="fit the linear models on log(target) or log(1 + target); their "
                             "predictions are turned back with Duan's smearing correction")
     intercept: bool = Field(True, strict=True)
-    validation: Validation
+    validation: Validation = Field(default_factory=lambda: RollingOriginValidation(method="rolling_origin"))
+    forecast: ForecastSection | None = Field(
+        None, description="months to forecast; without it, the rows after the last actual "
+                          "month with an empty target are the months to forecast")
     # validate_default: without a `models` key the baseline must still be put first.
     models: list[ModelChoice] = Field(default_factory=lambda: [{"kind": "ols"}], validate_default=True)
     select_by: Literal[SELECT_METRICS] = Field(
@@ -483,17 +500,30 @@ class Spec(StrictModel):
             raise ValueError("a name, not a path: '/', '\\' and '..' are refused")
         return value
 
+    @model_validator(mode="after")
+    def _default_horizon(self) -> Spec:
+        # A rolling origin without a horizon predicts as far as the forecast does.
+        validation = self.validation
+        if validation.method == "rolling_origin" and validation.horizon is None:
+            horizon = self.forecast.months if self.forecast else DEFAULT_HORIZON
+            object.__setattr__(self, "validation", validation.model_copy(update={"horizon": horizon}))
+        return self
+
     @model_validator(mode="before")
     @classmethod
     def _simple_rules_beside(cls, data: Any) -> Any:
         # A model must beat the best simple rule a planner could use, not only the plain
         # average: under a time-ordered validation the simple rules are always compared,
         # whatever ``models`` lists (they cost next to nothing).
-        if not isinstance(data, dict) or not isinstance(data.get("models"), list):
+        if not isinstance(data, dict):
+            return data
+        if "models" not in data:   # the default: OLS
+            data = {**data, "models": [{"kind": "ols"}]}
+        if not isinstance(data.get("models"), list):
             return data
         validation = data.get("validation")
         method = validation.get("method") if isinstance(validation, dict) else \
-            getattr(validation, "method", None)
+            getattr(validation, "method", None) if "validation" in data else "rolling_origin"
         if method not in TIME_ORDERED:
             return data
         listed = {item if isinstance(item, str) else

@@ -439,6 +439,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     if len(fallbacks):
         notes.insert(0, _fallback_note(fallbacks))
     notes = notes[:5] + ([f"(and {len(notes) - 5} more notes like these)"] if len(notes) > 5 else [])
+    notes = [*data.notes, *notes]   # what the data as read says comes first
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes, ahead=ahead_words(spec),
                           step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,

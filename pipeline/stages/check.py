@@ -14,7 +14,7 @@ Two passes, both reporting every problem at once rather than the first:
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import date
 
 import numpy as np
@@ -25,33 +25,16 @@ from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.spec import ColumnRule, Spec, column_roles
 from pipeline.stages.ingest import RawInput
+from pipeline.stages.months_ahead import (
+    add_months_ahead,
+    lagging_series,
+    missing_given,
+    own_last_actual,
+    split_gaps,
+)
+from pipeline.stages.problems import PROBLEM_COLUMNS, Problem, problems_table  # noqa: F401 (re-exported)
 
 ALL_SERIES = "all"
-PROBLEM_COLUMNS = ["check", "column", "row", "value", "count"]
-
-
-@dataclass(frozen=True)
-class Problem:
-    """One kind of fault in one column, located at its first row, with how often it occurs."""
-
-    check: str
-    column: str
-    row: int | None
-    value: str
-    count: int = 1
-
-    def describe(self, file: str) -> str:
-        """Return the problem as one line, naming file, row and column."""
-        place = f"{file}:{self.row}" if self.row else file
-        more = f" ({self.count} rows like this)" if self.count > 1 else ""
-        column = f"column '{self.column}': " if self.column else ""
-        return f"{place}: {column}{self.check}: {self.value}{more}"
-
-
-def problems_table(problems: list[Problem]) -> pd.DataFrame:
-    """Return the problems as a table: check, column, row, value, count."""
-    return pd.DataFrame([[p.check, p.column, p.row, p.value, p.count] for p in problems],
-                        columns=PROBLEM_COLUMNS).astype({"row": "Int64"})
 
 
 class CheckFailed(DataError):
@@ -84,6 +67,20 @@ class CheckedData:
     # The fill above reads the whole history, right for a fit on all of it; the backtest
     # fills each training window again from its own months (stages/splits.py).
     filled: pd.DataFrame | None = None
+    # What the run should say about the data as read: series that lag, months added by
+    # forecast.months, defaults chosen from the data.
+    notes: tuple[str, ...] = ()
+
+    def with_notes(self, notes) -> CheckedData:
+        """Return the data with more notes."""
+        return replace(self, notes=(*self.notes, *notes)) if notes else self
+
+    def origins(self, rows: pd.DataFrame) -> np.ndarray:
+        """Return, per row, the month ordinal of its series' last actual: the origin each
+        series is forecast from."""
+        ordinals = pd.Series(self.history[PERIOD].array.asi8, index=self.history.index)
+        last = ordinals.groupby(self.history[SERIES].to_numpy(), sort=False).max()
+        return rows[SERIES].map(last).fillna(self.last_period.ordinal).to_numpy(np.int64)
 
     @property
     def first_period(self) -> pd.Period:
@@ -287,11 +284,16 @@ def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=columns)
 
 
-def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str) -> Problem:
+def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str, hint: str = "") -> Problem:
     first = gaps.iloc[0]
     return Problem(word, spec.input.date_column, int(first["next_row"]),
-                   f"{first[PERIOD]} for series '{first[SERIES]}' (missing before this row)",
+                   f"{first[PERIOD]} for series '{first[SERIES]}' (missing before this row){hint}",
                    count=len(gaps))
+
+
+# Said of a month missing between a series' last actual and its rows to forecast.
+_AHEAD_HINT = ("; it comes after the series' last actual: add the row with its drivers, or set "
+               "forecast.months to have castline add the months to forecast")
 
 
 def _fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec) -> pd.DataFrame:
@@ -343,13 +345,14 @@ def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[P
     has_target = frame[target].notna()
     if not has_target.any():
         return frame, [Problem("no history", target, None, "no row has a value of the target")], []
-    last_actual = frame.loc[has_target, PERIOD].max()
-    hole = ~has_target & (frame[PERIOD] <= last_actual)
+    # Each series' own last actual: the months after it are to forecast, not holes.
+    own_last = own_last_actual(frame, target)
+    hole = ~has_target & (frame[PERIOD].array.asi8 <= own_last)
     if not hole.any():
         return frame, [], []
     row = _first(frame, hole)
-    value = (f"no value for {row[PERIOD]} (series '{row[SERIES]}'), before the last actual "
-             f"month {last_actual}")
+    value = (f"no value for {row[PERIOD]} (series '{row[SERIES]}'), before the series' last "
+             f"actual month {pd.Period(ordinal=int(own_last[hole.to_numpy()][0]), freq='M')}")
     policy = spec.input.gaps
     if policy == "refuse":
         return frame, [Problem("target missing in history", target, _row(row), value,
@@ -386,8 +389,7 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
         said = "the as-of date" if spec.input.as_of else "the current month"
         problems.append(Problem("actual after the as-of date", target, _row(row),
                                 f"{row[PERIOD]} is after {said} {as_of}", count=int(late.sum())))
-    last_actual = frame.loc[has_target, PERIOD].max()
-    future = ~has_target & (frame[PERIOD] > last_actual)
+    future = ~has_target & (frame[PERIOD].array.asi8 > own_last_actual(frame, target))
     for driver in spec.drivers.categorical:
         if getattr(driver, "unseen", "stop") != "stop":
             continue
@@ -418,14 +420,15 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
                            (future, "driver missing in a month to forecast")):
             if word != "driver missing" and driver in estimated:
                 continue  # castline estimates it in the months to forecast
-            empty = mask & frame[driver].isna()
+            # A month castline added has no row of the file: reported by missing_given.
+            empty = mask & frame[driver].isna() & frame[ROW].notna()
             if empty.any():
                 row = _first(frame, empty)
                 problems.append(Problem(word, driver, _row(row),
                                         f"no value for {row[PERIOD]} (series '{row[SERIES]}')"
                                         + (_ESTIMATE_HINT if word != "driver missing" else ""),
                                         count=int(empty.sum())))
-    return problems
+    return problems + missing_given(frame, spec, future.to_numpy())
 
 
 # Said when a driver has no value in a month to forecast.
@@ -445,14 +448,15 @@ def _as_of(spec: Spec, today: date | None) -> pd.Period:
 def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
                   ) -> tuple[pd.DataFrame | None, list[Problem], list[Problem]]:
     """Return the validated frame (or None), the problems that stop a run, and those allowed."""
-    frame, _, problems, allowed = _checked(spec, raw, today)
+    frame, _, problems, allowed, _ = _checked(spec, raw, today)
     return frame, problems, allowed
 
 
-def _checked(spec: Spec, raw: RawInput, today: date | None
-             ) -> tuple[pd.DataFrame | None, pd.DataFrame | None, list[Problem], list[Problem]]:
+def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
+        pd.DataFrame | None, pd.DataFrame | None, list[Problem], list[Problem], list[str]]:
     """Return the validated frame (or None), which of its numeric cells the gaps policy
-    filled (None when it filled none), the problems that stop a run, and those allowed."""
+    filled (None when it filled none), the problems that stop a run, those allowed, and
+    notes on the months to forecast (series that lag, rows added by forecast.months)."""
     schema = build_schema(spec)
     # The spec's columns in a frame of their own, coerced to their types there: the raw
     # input stays as it was read, and the file's other columns are never copied.
@@ -462,7 +466,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
     except pa.errors.SchemaErrors as exc:
         problems = _problems_from_pandera(exc.failure_cases, raw, typed)
         problems += _calendar_despite(problems, spec, raw, typed, today)
-        return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
+        return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     # Plain Python strings: the series labels are read as arrays many times downstream.
@@ -472,6 +476,11 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
     allowed: list[Problem] = []
     as_read = frame
     gaps = missing_months(frame)
+    gaps, ahead = split_gaps(frame, gaps, spec.target)
+    if spec.forecast is None and len(ahead) and spec.input.gaps == "refuse":
+        problems.append(_gap_problem(ahead, spec, "month to forecast missing", _AHEAD_HINT))
+    elif spec.forecast is None:   # allowed, or filled by interpolation, as any missing month
+        gaps = pd.concat([gaps, ahead]) if len(ahead) else gaps
     if len(gaps) and spec.input.gaps == "refuse":
         problems.append(_gap_problem(gaps, spec, "month missing"))
     elif len(gaps) and spec.input.gaps == "allow":
@@ -482,10 +491,13 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
     frame, refused, accepted = _target_holes(frame, spec)
     problems += refused
     allowed += accepted
-    problems += _history_and_future(frame, spec, _as_of(spec, today))
-    filled = (filled_cells(as_read, frame, spec)
+    behind, notes = lagging_series(frame, spec)
+    problems += behind
+    grown, added = add_months_ahead(frame, spec)
+    problems += _history_and_future(grown, spec, _as_of(spec, today))
+    filled = (filled_cells(as_read, grown, spec)
               if spec.input.gaps == "fill" and frame is not as_read else None)
-    return frame, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
+    return grown, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed, notes + added
 
 
 def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd.DataFrame,
@@ -535,7 +547,7 @@ def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> Check
 
     Raises CheckFailed carrying every problem found.
     """
-    frame, filled, problems, allowed = _checked(spec, raw, today)
+    frame, filled, problems, allowed, notes = _checked(spec, raw, today)
     if problems:
         raise CheckFailed(problems, str(raw.path))
     # Rows keep the file's order; the stages that write tables order what they write.
@@ -545,4 +557,4 @@ def check_data(spec: Spec, raw: RawInput, *, today: date | None = None) -> Check
         filled = filled.loc[:, filled.any()] if filled.to_numpy().any() else None
     return CheckedData(history=frame[has_target].reset_index(drop=True),
                        future=frame[~has_target].reset_index(drop=True), raw=raw,
-                       problems_allowed=allowed, filled=filled)
+                       problems_allowed=allowed, filled=filled, notes=tuple(notes))

@@ -122,7 +122,7 @@ class _Predictor:
             return model.predict(series_design(frame, SERIES)), None, None, None
         if self.stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
             point, se, df, centre, _ = predict_ahead(self.spec, choice, self.data.history, frame,
-                                                     self.data.last_period.ordinal,
+                                                     self.data.origins(frame),
                                                      executor=self.executor, progress=self.progress)
             return point, se, df, centre
         if id(frame) not in self.designs:
@@ -301,15 +301,17 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     given = data.future.sort_values([PERIOD, SERIES], kind="stable")
     # Drivers nobody knows ahead: estimated from all history by the rule the backtest used
     # (a scenario may then replace an estimate).
-    future = plan.estimate_future(given)
+    # Every row to forecast is after its own series' last actual, even one in a month other
+    # series have actuals for (a series that lags).
+    future = plan.estimate_future(given, every_row=True)
     history_design, y = plan.training_design(data.history)
-    horizons = (future[PERIOD].array.asi8 - data.last_period.ordinal).astype(int)
+    horizons = (future[PERIOD].array.asi8 - data.origins(future)).astype(int)
     stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
     predict = _Predictor(spec, data, plan, stepwise, executor=executor, progress=progress)
     forecasts, coefficients, summaries = [], [], []
     warnings = [*history_design.notes]
     if plan.future_ is not None and len(future):
-        warnings += plan.future_.notes(given, given_ignored=True)
+        warnings += plan.future_.notes(given, given_ignored=True, every_row=True)
         warnings += plan.estimated_lag_notes(int(horizons.max()))
     if stepwise:
         warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "

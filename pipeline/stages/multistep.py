@@ -198,7 +198,7 @@ def predict_ahead(spec: Spec, choice: ModelChoice, train: pd.DataFrame, rows: pd
     ``spread`` False (a caller that wants only the predictions) the recursive strategy
     skips the extra pass those need and leaves se and df NaN.
     """
-    ahead = rows[PERIOD].array.asi8 - origin
+    ahead = rows[PERIOD].array.asi8 - origin   # origin: a month ordinal, or one per row
     predicted = np.full(len(rows), np.nan)
     se = np.full(len(rows), np.nan)
     df = np.full(len(rows), np.nan)

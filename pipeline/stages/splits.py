@@ -217,3 +217,28 @@ def validation_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
     if spec.validation.method in ("holdout", "rolling_origin"):
         return time_splits(spec, data)
     return fold_splits(spec, data), 0
+
+
+# Without validation.min_train_periods the first training window has this many months,
+# or half the history when that is shorter (common practice: two years of months, enough
+# to see each calendar month twice).
+DEFAULT_MIN_TRAIN = 24
+
+
+def settle_validation(spec: Spec, data: CheckedData) -> tuple[Spec, list[str]]:
+    """Return the spec with the defaults that depend on the data chosen, and a note per choice.
+
+    A rolling origin without ``min_train_periods`` starts from 24 months, or half the
+    history's months when that is fewer.
+    """
+    validation = spec.validation
+    if validation.method != "rolling_origin" or validation.min_train_periods is not None:
+        return spec, []
+    months = int(data.history[PERIOD].nunique())
+    chosen = max(2, min(DEFAULT_MIN_TRAIN, months // 2))
+    reason = (f"the default, {DEFAULT_MIN_TRAIN} months" if chosen == DEFAULT_MIN_TRAIN
+              else f"half the history's {months} months, fewer than the default {DEFAULT_MIN_TRAIN}")
+    settled = spec.model_copy(update={
+        "validation": validation.model_copy(update={"min_train_periods": chosen})})
+    return settled, [f"validation.min_train_periods is not set, so the first training window has "
+                     f"{chosen} months ({reason}); set the key to choose"]
