@@ -45,10 +45,14 @@ def next_months(stated: pd.DataFrame, series, months: int = NEXT_MONTHS) -> pd.D
 
 
 def all_series_total(stated: pd.DataFrame, months: int = NEXT_MONTHS) -> pd.DataFrame:
-    """Return the sum of every series' point forecast in each of the next `months` months, and
-    how many series it adds up."""
-    first = sorted(stated["period"].astype(str).unique())[:months]
-    rows = stated[stated["period"].astype(str).isin(first)]
+    """Return the sum of every series' point forecast in each of the next `months` months that
+    every series is forecast in (a month some series have actuals for is no total), and how
+    many series it adds up."""
+    periods = stated["period"].astype(str)
+    counts = stated.groupby(periods)["series"].nunique()
+    whole = counts[counts == stated["series"].nunique()].index
+    first = sorted(whole)[:months]
+    rows = stated[periods.isin(first)]
     return rows.groupby("period", sort=True).agg(total=("forecast", "sum"), series=("series", "nunique")) \
         .reset_index()
 

@@ -214,3 +214,15 @@ def test_every_missing_key_is_reported_at_once(tmp_path):
     assert code == 2 and "Traceback" not in err
     for key in ("name", "input.date_column", "target", "output", "forecast.months"):
         assert re.search(rf":\d+: {re.escape(key)}: ", err), (key, err)
+
+
+def test_the_total_over_series_adds_only_months_every_series_is_forecast_in():
+    """A series that lags is forecast in a month the others have actuals for: that month's
+    'total' would be one series, so the first screen adds up only months every series has."""
+    from pipeline.present.first_screen import all_series_total
+    stated = pd.DataFrame({"period": ["2024-01", "2024-02", "2024-03", "2023-12", "2024-01", "2024-02"],
+                           "series": ["A", "A", "A", "B", "B", "B"],
+                           "forecast": [1.0, 2.0, 3.0, 10.0, 20.0, 30.0]})
+    total = all_series_total(stated)
+    assert total["period"].tolist() == ["2024-01", "2024-02"]
+    assert total["total"].tolist() == [21.0, 32.0] and total["series"].tolist() == [2, 2]
