@@ -420,8 +420,9 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
                            (future, "driver missing in a month to forecast")):
             if word != "driver missing" and driver in estimated:
                 continue  # castline estimates it in the months to forecast
-            # A month castline added has no row of the file: reported by missing_given.
-            empty = mask & frame[driver].isna() & frame[ROW].notna()
+            empty = mask & frame[driver].isna()
+            if word != "driver missing":   # a month castline added: reported by missing_given
+                empty &= frame[ROW].notna()
             if empty.any():
                 row = _first(frame, empty)
                 problems.append(Problem(word, driver, _row(row),
