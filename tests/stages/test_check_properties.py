@@ -138,7 +138,10 @@ def one_fault(draw, kind: str):
         position = draw(st.integers(1, len(own) - 2))  # neither the first month nor the last
         gone, after = own[position], own[position + 1]
         rows = [r for r in rows if r["_id"] != gone["_id"]]
-        return rows, with_series, "month missing", "month", line_of(rows, after["_id"]), str(gone["_period"])
+        # After the series' last actual the month is one to forecast, and named as such.
+        last_actual = max(r["_period"] for r in own if not r["_future"] and r["_id"] != gone["_id"])
+        word = "month to forecast missing" if gone["_period"] > last_actual else "month missing"
+        return rows, with_series, word, "month", line_of(rows, after["_id"]), str(gone["_period"])
 
     if kind == "out_of_range":
         rule = draw(st.sampled_from(["price_above", "price_below", "sales_below"]))
