@@ -77,6 +77,9 @@ class InputSection(StrictModel):
     csv: CsvOptions = Field(default_factory=CsvOptions)
     sheet: str | int = Field(0, description="Excel: the sheet's name or its position from 0")
     date_column: str
+    date_format: str | None = Field(
+        None, description="how the dates are written, in strftime form (\"%d/%m/%Y\"); "
+                          "without it each date is read on its own, month first where ambiguous")
     period: Literal["month"] = "month"
     series: list[str] = Field(default_factory=list,
                               description="columns that, with the month, identify a row")

@@ -14,6 +14,7 @@ Two passes, both reporting every problem at once rather than the first:
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 from datetime import date
 
@@ -24,6 +25,13 @@ import pandera.pandas as pa
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.spec import ColumnRule, Spec, column_roles
+from pipeline.stages.dates import (
+    first_unparsed_date,
+    has_offsets,
+    numbers_look_like,
+    read_dates,
+    reading_note,
+)
 from pipeline.stages.ingest import RawInput
 
 ALL_SERIES = "all"
@@ -202,22 +210,9 @@ def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput,
         row = raw.location(first["index"]) if len(located) else None
         value, count = _show(first["failure_case"]), len(group)
         if row is None and column in typed.columns and "datetime" in check:
-            row, value, count = _first_unparsed_date(raw, typed, str(column))
+            row, value, count = first_unparsed_date(raw, typed[str(column)])
         problems.append(Problem(_check_words(check), str(column), row, value, count=count))
     return problems
-
-
-def _first_unparsed_date(raw: RawInput, typed: pd.DataFrame, column: str
-                         ) -> tuple[int | None, str, int]:
-    """Return the row, value and count of the dates not written like the column's first one."""
-    values = typed[column]
-    parsed = pd.to_datetime(values, errors="coerce")   # the format of the first date, for all
-    bad = parsed.isna() & values.notna()
-    if not bad.any():
-        return None, "(a value that is not a date)", 1
-    index = int(np.flatnonzero(bad.to_numpy())[0])
-    return raw.location(index), (f"{values.iloc[index]!r} (not written like the first date, "
-                                 f"{values.dropna().iloc[0]!r})"), int(bad.sum())
 
 
 def _show(value) -> str:
@@ -252,14 +247,18 @@ def _first(frame: pd.DataFrame, mask: pd.Series) -> pd.Series:
     return frame.loc[mask[mask].index[0]]
 
 
-def _duplicates(frame: pd.DataFrame, spec: Spec) -> list[Problem]:
+def _duplicates(frame: pd.DataFrame, spec: Spec, raw: RawInput) -> list[Problem]:
+    """Return the month given twice in a series, with how the dates were read (``frame``
+    keeps the raw frame's index)."""
     duplicated = frame.duplicated([SERIES, PERIOD], keep="first")
     if not duplicated.any():
         return []
     row = _first(frame, duplicated)
     earlier = frame[(frame[SERIES] == row[SERIES]) & (frame[PERIOD] == row[PERIOD])][ROW].min()
+    written = raw.frame.at[row.name, spec.input.date_column] if row.name in raw.frame.index else None
     return [Problem("month given twice", spec.input.date_column, int(row[ROW]),
-                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})",
+                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier}); "
+                    + reading_note(written, row[PERIOD], spec.input.date_format),
                     count=int(duplicated.sum()))]
 
 
@@ -457,18 +456,27 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
     # The spec's columns in a frame of their own, coerced to their types there: the raw
     # input stays as it was read, and the file's other columns are never copied.
     typed = raw.frame.loc[:, raw.frame.columns.isin(list(schema.columns))].copy(deep=False)
+    date_problems = _own_dates(spec, raw, typed)
+    if date_problems is not None:   # the dates are read here; the schema sees them as read
+        schema = schema.update_column(spec.input.date_column, nullable=True)
+    date_problems = date_problems or []
     try:
-        valid = schema.validate(typed, lazy=True, inplace=True)
+        with warnings.catch_warnings():   # a day-first date read month first: said by the check
+            warnings.filterwarnings("ignore", "Parsing dates in", UserWarning)
+            valid = schema.validate(typed, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
-        problems = _problems_from_pandera(exc.failure_cases, raw, typed)
+        problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed)
         problems += _calendar_despite(problems, spec, raw, typed, today)
+        return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
+    if date_problems:
+        problems = date_problems + _calendar_despite(date_problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     # Plain Python strings: the series labels are read as arrays many times downstream.
     frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
-    problems = _duplicates(frame, spec)
+    problems = _duplicates(frame, spec, raw)
     allowed: list[Problem] = []
     as_read = frame
     gaps = missing_months(frame)
@@ -486,6 +494,42 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
     filled = (filled_cells(as_read, frame, spec)
               if spec.input.gaps == "fill" and frame is not as_read else None)
     return frame, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed
+
+
+def _own_dates(spec: Spec, raw: RawInput, typed: pd.DataFrame) -> list[Problem] | None:
+    """Read the date column into ``typed`` when the spec gives its format, when it holds
+    times with an offset from UTC (converted to UTC) or numbers; return the problems found
+    (empty or unreadable dates; numbers, which are refused in one line), or None when the
+    column is left to the schema's own reading."""
+    column, date_format = spec.input.date_column, spec.input.date_format
+    if column not in typed.columns or typed[column].isna().all():
+        return None
+    values = typed[column]
+    numbers = pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values)
+    if date_format is None and not numbers and not has_offsets(values):
+        return None
+    empty = values.isna()
+    problems = []
+    if empty.any():
+        first = empty[empty].index[0]
+        problems.append(Problem("missing value", column, raw.location(first), "(empty)",
+                                count=int(empty.sum())))
+    if date_format is None and numbers:
+        first = values.first_valid_index()
+        typed[column] = pd.Series(pd.NaT, index=typed.index, dtype="datetime64[ns]")
+        return problems + [Problem("not a date", column, raw.location(first),
+                                   f"{_show(values[first])}: the column holds "
+                                   f"{numbers_look_like(values)}", count=int((~empty).sum()))]
+    parsed = read_dates(values, date_format)
+    bad = parsed.isna() & ~empty
+    if bad.any():
+        first = bad[bad].index[0]
+        how = (f"does not match input.date_format \"{date_format}\"" if date_format else
+               "cannot be read as a date and time with an offset from UTC")
+        problems.append(Problem("not a date", column, raw.location(first),
+                                f"{_show(str(values[first]))} {how}", count=int(bad.sum())))
+    typed[column] = parsed
+    return problems
 
 
 def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd.DataFrame,
@@ -516,7 +560,7 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = frame.index.to_numpy() + raw.first_row_number
-    problems = _duplicates(frame, spec)
+    problems = _duplicates(frame, spec, raw)
     # A row whose date cannot be read is left out here; its month is not missing.
     dates_readable = not any(p.column == spec.input.date_column for p in found)
     gaps = missing_months(frame) if dates_readable else pd.DataFrame()
