@@ -461,8 +461,8 @@ def _checked(spec: Spec, raw: RawInput, today: date | None
         schema = schema.update_column(spec.input.date_column, nullable=True)
     date_problems = date_problems or []
     try:
-        with warnings.catch_warnings():   # a day-first date read month first: said by the check
-            warnings.filterwarnings("ignore", "Parsing dates in", UserWarning)
+        with warnings.catch_warnings():   # the check says how dates were read
+            warnings.filterwarnings("ignore", "(Parsing dates in|Could not infer format)", UserWarning)
             valid = schema.validate(typed, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
         problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed)

@@ -20,7 +20,7 @@ from pipeline.stages.ingest import RawInput
 # A date written as three numbers with one separator, the year last: 25/03/2019, 3.1.19.
 _THREE_FIELDS = re.compile(r"^\s*(\d{1,2})([/.\-])(\d{1,2})\2(\d{4}|\d{2})\s*$")
 # A time followed by an offset from UTC: 23:00:00+02:00, 23:00Z, 23:00:00.5-0500.
-_OFFSET = re.compile(r"\d{2}:\d{2}(:\d{2}(\.\d+)?)?\s*(Z|[+-]\d{2}(:?\d{2})?)\s*$", re.IGNORECASE)
+_OFFSET = re.compile(r"\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?\s*(?:Z|[+-]\d{2}(?::?\d{2})?)\s*$", re.IGNORECASE)
 
 AUTOMATIC = "read automatically (month first where ambiguous)"
 DAY_FIRST = "%d/%m/%Y"
@@ -85,7 +85,7 @@ def has_offsets(values: pd.Series) -> bool:
     """Return whether the column holds times with an offset from UTC (or is time-zone aware)."""
     if isinstance(values.dtype, pd.DatetimeTZDtype):
         return True
-    if values.dtype != object:
+    if not (values.dtype == object or pd.api.types.is_string_dtype(values)):
         return False
     return bool(_text(values).str.contains(_OFFSET).any())
 
