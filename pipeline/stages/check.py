@@ -257,7 +257,7 @@ def _duplicates(frame: pd.DataFrame, spec: Spec, raw: RawInput) -> list[Problem]
     earlier = frame[(frame[SERIES] == row[SERIES]) & (frame[PERIOD] == row[PERIOD])][ROW].min()
     written = raw.frame.at[row.name, spec.input.date_column] if row.name in raw.frame.index else None
     return [Problem("month given twice", spec.input.date_column, int(row[ROW]),
-                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier}); "
+                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})"
                     + reading_note(written, row[PERIOD], spec.input.date_format),
                     count=int(duplicated.sum()))]
 

@@ -117,7 +117,7 @@ def numbers_look_like(values: pd.Series) -> str | None:
 
 def read_dates(values: pd.Series, date_format: str | None) -> pd.Series:
     """Return the column as dates without a time zone: those with an offset converted to
-    UTC, NaT where a value cannot be read (or is empty).
+    UTC (those without are taken as they are), NaT where a value cannot be read or is empty.
 
     With a format every value must match it; without one each is read on its own.
     """
@@ -125,11 +125,7 @@ def read_dates(values: pd.Series, date_format: str | None) -> pd.Series:
         parsed = values
     else:
         text = _text(values).reindex(values.index)
-        offsets = has_offsets(values)
-        if date_format is not None:
-            parsed = pd.to_datetime(text, format=date_format, errors="coerce", utc=offsets)
-        else:
-            parsed = pd.to_datetime(text, format="mixed", errors="coerce", utc=True)
+        parsed = pd.to_datetime(text, format=date_format or "mixed", errors="coerce", utc=True)
     if isinstance(parsed.dtype, pd.DatetimeTZDtype):
         parsed = parsed.dt.tz_convert("UTC").dt.tz_localize(None)
     return parsed
@@ -137,18 +133,19 @@ def read_dates(values: pd.Series, date_format: str | None) -> pd.Series:
 
 def reading_note(written, period, date_format: str | None) -> str:
     """Return how the dates were read, for a month given twice: the format given, or the
-    automatic reading with the key that would change it."""
+    automatic reading with the key that would change it ('' for dates stored as dates)."""
     if date_format is not None:
-        return f"the dates were read with input.date_format \"{date_format}\""
-    shown = f"{written!r} was read as {period}; " if isinstance(written, str) else ""
-    fields = _THREE_FIELDS.match(written) if isinstance(written, str) else None
+        return f"; the dates were read with input.date_format \"{date_format}\""
+    if not isinstance(written, str):
+        return ""
+    shown = f"; {written!r} was read as {period}; "
+    fields = _THREE_FIELDS.match(written)
     if fields:
         separator = fields.group(2)
         year = "%Y" if len(fields.group(4)) == 4 else "%y"
         return (f"{shown}the dates were {AUTOMATIC}: if they are day first, set "
                 f"input.date_format: \"%d{separator}%m{separator}{year}\"")
-    return (f"{shown}the dates were {AUTOMATIC}: if they are written another way, set "
-            "input.date_format (strftime form, like \"%d/%m/%Y\")")
+    return f"{shown}the dates were read automatically (input.date_format sets how they are written)"
 
 
 def first_unparsed_date(raw: RawInput, values: pd.Series) -> tuple[int | None, str, int]:

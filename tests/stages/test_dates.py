@@ -299,3 +299,17 @@ def test_init_on_spreadsheet_serial_days_is_one_line_saying_what_they_look_like(
     assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
     assert "no column holds dates" in err and "column 'date' holds spreadsheet serial day numbers" in err
     assert not spec.exists()
+
+
+def test_time_zone_aware_dates_in_parquet_are_taken_in_utc(tmp_path):
+    # Half an hour after midnight on the 1st in Berlin (UTC+1 in winter, +2 in summer) is
+    # still the month before in UTC: each row's month is the one before its local month.
+    local = [datetime(2019 + (k + 1) // 12, (k + 1) % 12 + 1, 1, 0, 30) for k in range(MONTHS)]
+    berlin = pd.Series(pd.DatetimeIndex(local).tz_localize("Europe/Berlin"))
+    frame = pd.DataFrame({"date": berlin, "sales": [100.0 + k for k in range(MONTHS)],
+                          "price": [2.0 + 0.1 * (k % 4) for k in range(MONTHS)]})
+    data = tmp_path / "data.parquet"
+    frame.to_parquet(data)
+    in_utc = [d.astimezone(UTC) for d in berlin.dt.to_pydatetime()]   # Python's conversion
+    assert checked_months(write_spec(tmp_path, data)) == expected_months(in_utc)
+    assert expected_months(in_utc)[0] == "2019-01"
