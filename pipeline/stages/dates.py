@@ -64,12 +64,17 @@ def guess_date_format(values: pd.Series) -> DateGuess:
     separator = fields[1].iloc[0]
     if fields[1].nunique() > 1:
         return DateGuess(None)
-    year = "%Y" if fields[3].str.len().eq(4).all() else "%y"
+    widths = set(fields[3].str.len())
+    if len(widths) > 1:
+        return DateGuess(None)   # years of four digits and of two: no one format
+    year = "%Y" if widths == {4} else "%y"
     day_first, month_first = bool((first > 12).any()), bool((second > 12).any())
-    if day_first and not month_first:
-        return DateGuess(f"%d{separator}%m{separator}{year}")
-    if month_first and not day_first:
-        return DateGuess(f"%m{separator}%d{separator}{year}")
+    if day_first != month_first:
+        order, big = ("day", first) if day_first else ("month", second)
+        found = f"%{order[0]}{separator}%{'m' if day_first else 'd'}{separator}{year}"
+        decisive = text[(big > 12).to_numpy()].iloc[0]
+        return DateGuess(found, f"the dates are written {order} first (like {decisive}): the spec "
+                                f"reads them with input.date_format: \"{found}\"")
     example = text.iloc[0]
     day_format = f"%d{separator}%m{separator}{year}"
     if day_first and month_first:

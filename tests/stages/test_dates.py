@@ -259,13 +259,18 @@ def init(tmp_path, capsys, written: list) -> tuple[int, str, str, object]:
 
 @pytest.mark.parametrize(("written", "expected"), [
     ("%d/%m/%Y", "%d/%m/%Y"), ("%d.%m.%y", "%d.%m.%y"), ("%d-%m-%Y", "%d-%m-%Y"), ("%m/%d/%Y", "%m/%d/%Y"),
-], ids=["day_first", "day_first_dots_short_year", "day_first_dashes", "us_month_first"])
+    ("%m-%d-%y", "%m-%d-%y"),
+], ids=["day_first", "day_first_dots_short_year", "day_first_dashes", "us_month_first",
+        "us_month_first_dashes_short_year"])
 def test_init_writes_the_date_format_it_finds_and_check_reads_the_months(tmp_path, capsys, written, expected):
     dates = monthly_days()
     code, out, err, spec = init(tmp_path, capsys, [d.strftime(written) for d in dates])
     assert code == 0, err
     assert "(monthly, 15 months)" in out      # not a daily file
     assert not any("aggregate" in line for line in out.splitlines())
+    order = "day" if expected.startswith("%d") else "month"
+    decisive = dates[4].strftime(written)     # the first date whose day is above 12
+    assert f"note: the dates are written {order} first (like {decisive})" in out
     assert yaml.safe_load(spec.read_text(encoding="utf-8"))["input"]["date_format"] == expected
     assert "gaps: refuse" in spec.read_text(encoding="utf-8")
     code, out, err = call(["check", str(spec)], capsys)
@@ -313,3 +318,11 @@ def test_time_zone_aware_dates_in_parquet_are_taken_in_utc(tmp_path):
     in_utc = [d.astimezone(UTC) for d in berlin.dt.to_pydatetime()]   # Python's conversion
     assert checked_months(write_spec(tmp_path, data)) == expected_months(in_utc)
     assert expected_months(in_utc)[0] == "2019-01"
+
+
+def test_init_leaves_years_of_two_widths_to_the_automatic_reading(tmp_path, capsys):
+    dates = monthly_days()
+    written = [d.strftime("%d/%m/%Y" if k % 2 else "%d/%m/%y") for k, d in enumerate(dates)]
+    code, out, err, spec = init(tmp_path, capsys, written)
+    assert code == 0, err
+    assert "date_format" not in yaml.safe_load(spec.read_text(encoding="utf-8"))["input"]
