@@ -92,7 +92,9 @@ def has_offsets(values: pd.Series) -> bool:
         return True
     if not (values.dtype == object or pd.api.types.is_string_dtype(values)):
         return False
-    return bool(_text(values).str.contains(_OFFSET).any())
+    text = values.dropna().astype(str)
+    timed = text.str.contains(":", regex=False)   # no time, no offset: the regex is spared
+    return bool(timed.any() and text[timed].str.contains(_OFFSET).any())
 
 
 def numbers_look_like(values: pd.Series) -> str | None:
