@@ -25,6 +25,14 @@ def _gaps_line(found: Inference) -> str:
     return "  gaps: refuse            # months missing inside a series: refuse | allow | fill"
 
 
+def _date_format_lines(found: Inference) -> list[str]:
+    if found.date_format is None:
+        return []
+    order = ("day first: some dates have a first field above 12" if found.date_format.startswith("%d")
+             else "month first: some dates have a second field above 12")
+    return [f"  date_format: {_yaml_value(found.date_format)}   # how the dates are written; {order}"]
+
+
 def _lookalike_lines(found: Inference) -> list[str]:
     if not found.target_lookalikes:
         return []
@@ -136,6 +144,7 @@ def render_spec(found: Inference, spec_path: Path) -> str:
                 lines.append(f"    {key}: {_yaml_value(value)}")
     lines += [
         f"  date_column: {_yaml_value(found.date_column)}",
+        *_date_format_lines(found),
         f"  period: month{'' if found.frequency == 'month' else '   # the dates look ' + found.frequency + 'ly: aggregate to months first'}",
         f"  series: {_yaml_value(found.series)}" + ("   # columns that, with the month, identify a row"
                                                   if found.series else "   # one series: no key needed"),

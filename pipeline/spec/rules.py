@@ -8,7 +8,9 @@ problems of one item often follow from its first.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
+from datetime import UTC, datetime
 
 from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
 from pipeline.core.errors import SpecError
@@ -23,7 +25,30 @@ def check_rules(spec: Spec, fail: Fail) -> list[SpecError]:
     problems = check_roles(spec, fail)
     if not problems:   # the column rules are judged against the roles, which must be sound first
         problems += _check_column_rules(spec, fail)
-    return problems + _check_models(spec, fail) + _check_scenarios(spec, fail) + _check_features(spec, fail)
+    return (problems + _check_date_format(spec, fail) + _check_models(spec, fail)
+            + _check_scenarios(spec, fail) + _check_features(spec, fail))
+
+
+def _check_date_format(spec: Spec, fail: Fail) -> list[SpecError]:
+    """Refuse an input.date_format without a year or a month, or that cannot read back a
+    date it writes (Python's strftime and strptime, whose directives pandas reads too)."""
+    written = spec.input.date_format
+    if written is None:
+        return []
+    key = ("input", "date_format")
+    if not re.search(r"%[Yy]", written):
+        return [fail(key, f"{written!r} has no year (%Y or %y)")]
+    if not re.search(r"%[mbB]", written):
+        return [fail(key, f"{written!r} has no month (%m, %b or %B)")]
+    sample = datetime(2019, 3, 25, 13, 45, 30, tzinfo=UTC)
+    try:
+        back = datetime.strptime(sample.strftime(written), written)
+    except ValueError as exc:
+        return [fail(key, f"{written!r} is not a date format castline can read ({exc}); "
+                          "write it in strftime form, like \"%d/%m/%Y\"")]
+    if (back.year, back.month) != (2019, 3):
+        return [fail(key, f"{written!r} reads 2019-03-25, written with it, as another month")]
+    return []
 
 
 def check_roles(spec: Spec, fail: Fail) -> list[SpecError]:

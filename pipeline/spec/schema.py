@@ -77,6 +77,9 @@ class InputSection(StrictModel):
     csv: CsvOptions = Field(default_factory=CsvOptions)
     sheet: str | int = Field(0, description="Excel: the sheet's name or its position from 0")
     date_column: str
+    date_format: str | None = Field(
+        None, description="how the dates are written, in strftime form (\"%d/%m/%Y\"); "
+                          "without it each date is read on its own, month first where ambiguous")
     period: Literal["month"] = "month"
     series: list[str] = Field(default_factory=list,
                               description="columns that, with the month, identify a row")
@@ -137,10 +140,8 @@ def _as_text(value: Any) -> Any:
 # (a plan, a price list), or estimated by castline from the training window alone.
 FUTURE_RULES = ("given", "month_mean", "last_year", "last_value", "mean")
 ESTIMATE_RULES = FUTURE_RULES[1:]
-# forecast.months is at most this: ten years of months ahead.
-MOST_MONTHS_AHEAD = 120
-# Without validation.horizon (and forecast.months), each origin predicts this many months.
-DEFAULT_HORIZON = 12
+MOST_MONTHS_AHEAD = 120   # forecast.months is at most ten years of months
+DEFAULT_HORIZON = 12      # each origin's months ahead without validation.horizon or forecast.months
 FutureRule = Literal[FUTURE_RULES]
 FUTURE_DESCRIPTION = (
     "given: the months to forecast carry the values (a plan, a price list); or estimated "

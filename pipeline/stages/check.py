@@ -14,6 +14,7 @@ Two passes, both reporting every problem at once rather than the first:
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field, replace
 from datetime import date
 
@@ -24,6 +25,14 @@ import pandera.pandas as pa
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.spec import ColumnRule, Spec, column_roles
+from pipeline.stages.dates import (
+    first_unparsed_date,
+    has_offsets,
+    numbers_look_like,
+    read_dates,
+    reading_note,
+)
+from pipeline.stages.gaps import AHEAD_HINT, fill_gaps, filled_cells, gap_problem, missing_months
 from pipeline.stages.ingest import RawInput
 from pipeline.stages.months_ahead import (
     add_months_ahead,
@@ -199,22 +208,9 @@ def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput,
         row = raw.location(first["index"]) if len(located) else None
         value, count = _show(first["failure_case"]), len(group)
         if row is None and column in typed.columns and "datetime" in check:
-            row, value, count = _first_unparsed_date(raw, typed, str(column))
+            row, value, count = first_unparsed_date(raw, typed[str(column)])
         problems.append(Problem(_check_words(check), str(column), row, value, count=count))
     return problems
-
-
-def _first_unparsed_date(raw: RawInput, typed: pd.DataFrame, column: str
-                         ) -> tuple[int | None, str, int]:
-    """Return the row, value and count of the dates not written like the column's first one."""
-    values = typed[column]
-    parsed = pd.to_datetime(values, errors="coerce")   # the format of the first date, for all
-    bad = parsed.isna() & values.notna()
-    if not bad.any():
-        return None, "(a value that is not a date)", 1
-    index = int(np.flatnonzero(bad.to_numpy())[0])
-    return raw.location(index), (f"{values.iloc[index]!r} (not written like the first date, "
-                                 f"{values.dropna().iloc[0]!r})"), int(bad.sum())
 
 
 def _show(value) -> str:
@@ -249,93 +245,23 @@ def _first(frame: pd.DataFrame, mask: pd.Series) -> pd.Series:
     return frame.loc[mask[mask].index[0]]
 
 
-def _duplicates(frame: pd.DataFrame, spec: Spec) -> list[Problem]:
+def _duplicates(frame: pd.DataFrame, spec: Spec, raw: RawInput) -> list[Problem]:
+    """Return the month given twice in a series, with how the dates were read (``frame``
+    keeps the raw frame's index)."""
     duplicated = frame.duplicated([SERIES, PERIOD], keep="first")
     if not duplicated.any():
         return []
     row = _first(frame, duplicated)
     earlier = frame[(frame[SERIES] == row[SERIES]) & (frame[PERIOD] == row[PERIOD])][ROW].min()
+    written = raw.frame.at[row.name, spec.input.date_column] if row.name in raw.frame.index else None
     return [Problem("month given twice", spec.input.date_column, int(row[ROW]),
-                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})",
+                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})"
+                    + reading_note(written, row[PERIOD], spec.input.date_format),
                     count=int(duplicated.sum()))]
-
-
-def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
-    """Return, per series, each month missing between its first and last month,
-    with the row of the next month present."""
-    columns = [SERIES, PERIOD, "next_row"]
-    ordinal = pd.Series(frame[PERIOD].array.asi8, index=frame.index)
-    spans = ordinal.groupby(frame[SERIES], sort=False).agg(["min", "max", "nunique"])
-    gapped = spans.index[(spans["max"] - spans["min"] + 1) > spans["nunique"]]
-    if len(gapped) == 0:
-        return pd.DataFrame(columns=columns)
-    # Only the series with a gap are sorted and walked.
-    subset = frame[frame[SERIES].isin(gapped)].assign(_ordinal=ordinal)
-    ordered = subset.sort_values([SERIES, "_ordinal"], kind="stable").drop_duplicates([SERIES, "_ordinal"])
-    ordinals = ordered["_ordinal"].to_numpy()
-    names = ordered[SERIES].to_numpy()
-    gaps = np.flatnonzero((names[1:] == names[:-1]) & (np.diff(ordinals) > 1))
-    rows = []
-    for position in gaps:
-        after = ordered.iloc[position + 1]
-        for missing in range(int(ordinals[position]) + 1, int(ordinals[position + 1])):
-            rows.append({SERIES: after[SERIES], PERIOD: pd.Period(ordinal=missing, freq="M"),
-                         "next_row": int(after[ROW])})
-    return pd.DataFrame(rows, columns=columns)
-
-
-def _gap_problem(gaps: pd.DataFrame, spec: Spec, word: str, hint: str = "") -> Problem:
-    first = gaps.iloc[0]
-    return Problem(word, spec.input.date_column, int(first["next_row"]),
-                   f"{first[PERIOD]} for series '{first[SERIES]}' (missing before this row){hint}",
-                   count=len(gaps))
-
-
-# Said of a month missing between a series' last actual and its rows to forecast.
-_AHEAD_HINT = ("; it comes after the series' last actual: add the row with its drivers, or set "
-               "forecast.months to have castline add the months to forecast")
-
-
-def _fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec) -> pd.DataFrame:
-    """Return the frame with each missing month inserted, numbers interpolated in time."""
-    numeric = _numeric_columns(spec)
-    filled = []
-    for series, rows in frame.groupby(SERIES, sort=False):
-        rows = rows.set_index(PERIOD).sort_index()
-        full = pd.period_range(rows.index.min(), rows.index.max(), freq="M")
-        if len(full) == len(rows):
-            filled.append(rows.reset_index())
-            continue
-        grown = rows.reindex(full)
-        grown.index.name = PERIOD
-        inserted = grown[ROW].isna()
-        # The target stays as given for months to forecast: interpolate history only.
-        for column in numeric:
-            grown[column] = grown[column].astype(float).interpolate(method="linear", limit_area="inside")
-        for column in [c for c in grown.columns if c not in numeric]:
-            grown[column] = grown[column].ffill()
-        grown.loc[inserted, spec.input.date_column] = grown.index[inserted].to_timestamp()
-        grown.loc[inserted, ROW] = np.nan
-        grown[SERIES] = series
-        filled.append(grown.reset_index())
-    return pd.concat(filled, ignore_index=True)
 
 
 def _numeric_columns(spec: Spec) -> list[str]:
     return [c for c, r in effective_rules(spec).items() if r.type in ("number", "whole_number")]
-
-
-def filled_cells(before: pd.DataFrame, after: pd.DataFrame, spec: Spec) -> pd.DataFrame:
-    """Return, for each row of ``after``, which numeric cells hold a value that ``before``
-    lacked: every value of an inserted month (no file row), and the empty cells filled.
-
-    Rows are matched by their line in the file (``ROW``); ``after`` keeps its index.
-    """
-    numeric = _numeric_columns(spec)
-    at = pd.Index(before[ROW].to_numpy(float)).get_indexer(after[ROW].to_numpy(float))
-    given = before[numeric].notna().to_numpy()[at] & (at >= 0)[:, None]
-    now = after[numeric].notna().to_numpy()
-    return pd.DataFrame(now & ~given, index=after.index, columns=numeric)
 
 
 def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[Problem], list[Problem]]:
@@ -462,33 +388,42 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
     # The spec's columns in a frame of their own, coerced to their types there: the raw
     # input stays as it was read, and the file's other columns are never copied.
     typed = raw.frame.loc[:, raw.frame.columns.isin(list(schema.columns))].copy(deep=False)
+    date_problems = _own_dates(spec, raw, typed)
+    if date_problems is not None:   # the dates are read here; the schema sees them as read
+        schema = schema.update_column(spec.input.date_column, nullable=True)
+    date_problems = date_problems or []
     try:
-        valid = schema.validate(typed, lazy=True, inplace=True)
+        with warnings.catch_warnings():   # the check says how dates were read
+            warnings.filterwarnings("ignore", "(Parsing dates in|Could not infer format)", UserWarning)
+            valid = schema.validate(typed, lazy=True, inplace=True)
     except pa.errors.SchemaErrors as exc:
-        problems = _problems_from_pandera(exc.failure_cases, raw, typed)
+        problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed)
         problems += _calendar_despite(problems, spec, raw, typed, today)
+        return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
+    if date_problems:
+        problems = date_problems + _calendar_despite(date_problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     frame = valid[list(effective_rules(spec))]
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     # Plain Python strings: the series labels are read as arrays many times downstream.
     frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
-    problems = _duplicates(frame, spec)
+    problems = _duplicates(frame, spec, raw)
     allowed: list[Problem] = []
     as_read = frame
     gaps = missing_months(frame)
     gaps, ahead = split_gaps(frame, gaps, spec.target)
     if spec.forecast is None and len(ahead) and spec.input.gaps == "refuse":
-        problems.append(_gap_problem(ahead, spec, "month to forecast missing", _AHEAD_HINT))
+        problems.append(gap_problem(ahead, spec, "month to forecast missing", AHEAD_HINT))
     elif spec.forecast is None:   # allowed, or filled by interpolation, as any missing month
         gaps = pd.concat([gaps, ahead]) if len(ahead) else gaps
     if len(gaps) and spec.input.gaps == "refuse":
-        problems.append(_gap_problem(gaps, spec, "month missing"))
+        problems.append(gap_problem(gaps, spec, "month missing"))
     elif len(gaps) and spec.input.gaps == "allow":
-        allowed.append(_gap_problem(gaps, spec, "month missing (allowed by input.gaps)"))
+        allowed.append(gap_problem(gaps, spec, "month missing (allowed by input.gaps)"))
     elif len(gaps) and not problems:
-        allowed.append(_gap_problem(gaps, spec, "month missing, filled by interpolation"))
-        frame = _fill_gaps(frame, gaps, spec)
+        allowed.append(gap_problem(gaps, spec, "month missing, filled by interpolation"))
+        frame = fill_gaps(frame, gaps, spec, _numeric_columns(spec))
     frame, refused, accepted = _target_holes(frame, spec)
     problems += refused
     allowed += accepted
@@ -496,9 +431,45 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
     problems += behind
     grown, added = add_months_ahead(frame, spec)
     problems += _history_and_future(grown, spec, _as_of(spec, today))
-    filled = (filled_cells(as_read, grown, spec)
+    filled = (filled_cells(as_read, grown, _numeric_columns(spec))
               if spec.input.gaps == "fill" and frame is not as_read else None)
     return grown, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed, notes + added
+
+
+def _own_dates(spec: Spec, raw: RawInput, typed: pd.DataFrame) -> list[Problem] | None:
+    """Read the date column into ``typed`` when the spec gives its format, when it holds
+    times with an offset from UTC (converted to UTC) or numbers; return the problems found
+    (empty or unreadable dates; numbers, which are refused in one line), or None when the
+    column is left to the schema's own reading."""
+    column, date_format = spec.input.date_column, spec.input.date_format
+    if column not in typed.columns or typed[column].isna().all():
+        return None
+    values = typed[column]
+    numbers = pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values)
+    if date_format is None and not numbers and not has_offsets(values):
+        return None
+    empty = values.isna()
+    problems = []
+    if empty.any():
+        first = empty[empty].index[0]
+        problems.append(Problem("missing value", column, raw.location(first), "(empty)",
+                                count=int(empty.sum())))
+    if date_format is None and numbers:
+        first = values.first_valid_index()
+        typed[column] = pd.Series(pd.NaT, index=typed.index, dtype="datetime64[ns]")
+        return problems + [Problem("not a date", column, raw.location(first),
+                                   f"{_show(values[first])}: the column holds "
+                                   f"{numbers_look_like(values)}", count=int((~empty).sum()))]
+    parsed = read_dates(values, date_format)
+    bad = parsed.isna() & ~empty
+    if bad.any():
+        first = bad[bad].index[0]
+        how = (f"does not match input.date_format \"{date_format}\"" if date_format else
+               "cannot be read as a date and time with an offset from UTC")
+        problems.append(Problem("not a date", column, raw.location(first),
+                                f"{_show(str(values[first]))} {how}", count=int(bad.sum())))
+    typed[column] = parsed
+    return problems
 
 
 def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd.DataFrame,
@@ -529,12 +500,12 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = frame.index.to_numpy() + raw.first_row_number
-    problems = _duplicates(frame, spec)
+    problems = _duplicates(frame, spec, raw)
     # A row whose date cannot be read is left out here; its month is not missing.
     dates_readable = not any(p.column == spec.input.date_column for p in found)
     gaps = missing_months(frame) if dates_readable else pd.DataFrame()
     if len(gaps) and spec.input.gaps == "refuse":
-        problems.append(_gap_problem(gaps, spec, "month missing"))
+        problems.append(gap_problem(gaps, spec, "month missing"))
     if spec.input.gaps == "refuse":
         problems += _target_holes(frame, spec)[1]
     problems += _history_and_future(frame, spec, _as_of(spec, today))

@@ -192,7 +192,7 @@ def missing_given(frame: pd.DataFrame, spec: Spec, future: np.ndarray) -> list[P
 
 
 def split_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, target: str) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Return the missing months (``check.missing_months``) inside each series' history, and
+    """Return the missing months (``gaps.missing_months``) inside each series' history, and
     those after its last actual: months to forecast that the file skips."""
     if not len(gaps):
         return gaps, gaps

@@ -17,6 +17,7 @@ import pandas as pd
 
 from pipeline.core.errors import DataError
 from pipeline.spec import CsvOptions
+from pipeline.stages.dates import guess_date_format, numbers_look_like, read_dates
 from pipeline.stages.ingest import read_table
 
 _DATE_NAMES = ("month", "date", "period", "time", "day", "week")
@@ -63,6 +64,8 @@ class Inference:
     future_missing: dict[str, int] = field(default_factory=dict)
     # Columns left out of the drivers because they track the target: column -> Pearson r.
     target_lookalikes: dict[str, float] = field(default_factory=dict)
+    # How the dates are written (strftime), when the automatic reading would misread them.
+    date_format: str | None = None
 
 
 def guess_format(path: Path) -> str:
@@ -89,7 +92,7 @@ def _parses_as_dates(values: pd.Series) -> pd.Series | None:
     text = present.astype(str)
     if not text.str.contains(r"\d", regex=True).all():
         return None
-    parsed = pd.to_datetime(text, errors="coerce", format="mixed")
+    parsed = pd.to_datetime(text, errors="coerce", format="mixed", utc=True)   # offsets: to UTC
     return parsed if parsed.notna().mean() >= 0.95 else None
 
 
@@ -137,11 +140,12 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     types = {column: _column_type(frame[column]) for column in frame.columns}
     dates = [c for c in frame.columns if types[c] == "date"]
     if not dates:
-        raise DataError("no column holds dates; castline needs a date column for monthly data",
-                        file=str(path))
+        raise DataError("no column holds dates; castline needs a date column for monthly data"
+                        + _numbers_for_dates(frame), file=str(path))
     dates.sort(key=lambda c: (not any(word in c.lower() for word in _DATE_NAMES), list(frame.columns).index(c)))
     date_column = dates[0]
-    parsed = pd.to_datetime(frame[date_column].astype(str), errors="coerce", format="mixed")
+    guess = guess_date_format(frame[date_column])
+    parsed = read_dates(frame[date_column], guess.date_format)
     months = parsed.dt.to_period("M")
     categories = [c for c in frame.columns if types[c] == "category" and c != date_column]
     series = _series_key(frame, months, categories)
@@ -168,7 +172,7 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
                     if driver_future[c] != "given"}
     lookalikes = {c: r for c, r in correlations.items() if r is not None and abs(r) > LOOKALIKE_R}
     levels = {c: sorted(frame[c].dropna().astype(str).unique().tolist()) for c in categories}
-    notes = []
+    notes = [guess.note] if guess.note else []
     if frequency != "month":
         notes.append(f"the dates in '{date_column}' look {frequency}ly spaced, not monthly; "
                      "castline forecasts monthly data, so aggregate to months first")
@@ -183,7 +187,17 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
         history_periods=int(months[history].nunique()), future_rows=int(future.sum()),
         driver_future={c: rule for c, rule in driver_future.items() if c not in lookalikes},
         future_missing={c: n for c, n in future_missing.items() if c not in lookalikes},
-        target_lookalikes=lookalikes)
+        target_lookalikes=lookalikes, date_format=guess.date_format)
+
+
+def _numbers_for_dates(frame: pd.DataFrame) -> str:
+    """Return what the first column named like a date holds, when it holds numbers."""
+    for column in frame.columns:
+        if any(word in str(column).lower() for word in _DATE_NAMES):
+            looks = numbers_look_like(frame[column])
+            if looks:
+                return f"; column '{column}' holds {looks}"
+    return ""
 
 
 def _history_and_future_rows(frame: pd.DataFrame, months: pd.Series, target: str
