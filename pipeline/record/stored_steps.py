@@ -21,6 +21,7 @@ the ones the model file kept from the run's history where the file has none.
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Callable
 
 import numpy as np
@@ -172,6 +173,6 @@ class StoredSteps:
 
 def _placed(plan: FeaturePlan, file: str) -> FeaturePlan:
     """Return a shallow copy of a stored plan whose messages name the new data file."""
-    placed = object.__new__(type(plan))
-    placed.__dict__.update(plan.__dict__, source=file or None)
+    placed = copy.copy(plan)
+    placed.source = file or None
     return placed
