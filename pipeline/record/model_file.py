@@ -434,6 +434,8 @@ class StoredModel:
             self._check_filled(rows, file)
             stepwise = self.steps.needed(plan, rows, actuals)
             design = None if stepwise else plan.transform(rows, known=actuals)
+        if stepwise and self.steps.strategy is None:
+            raise UserError(f"{self.path}: {self.steps.predates(plan)}")
         intervals = self.intervals
         if intervals is not None:
             horizons = intervals.horizons(rows[PERIOD])

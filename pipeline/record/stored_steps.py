@@ -122,15 +122,18 @@ class StoredSteps:
             return False
         return int((rows[PERIOD].array.asi8 - origin).max()) > reach
 
+    def predates(self, plan: FeaturePlan) -> str:
+        """Return why a file without the strategy cannot forecast months beyond the lags' reach."""
+        return (f"this model file (format version {self.version}) does not say how its run forecast "
+                f"months more than {months_phrase(target_reach(plan))} after the last actual (its "
+                "target's own lags reach no further): rerun castline run to write a model file that does")
+
     def predict(self, kind: str, plan: FeaturePlan, model, rows: pd.DataFrame,
                 actuals: pd.DataFrame | None, file: str) -> np.ndarray:
         """Return a model's forecasts of the rows by the run's strategy; a row at or before
         the last actual from its lags' actuals (as the model itself predicts)."""
         if self.strategy is None:
-            raise UserError(f"this model file (format version {self.version}) does not say how its run "
-                            f"forecast months more than {months_phrase(target_reach(plan))} after the last "
-                            "actual (its target's own lags reach no further): rerun castline run to write "
-                            "a model file that does")
+            raise UserError(self.predates(plan))
         origin = last_actual(plan, actuals)
         ahead = rows[PERIOD].array.asi8 - origin
         predicted = np.full(len(rows), np.nan)

@@ -344,7 +344,7 @@ def test_a_file_of_version_3_with_a_target_lag_shorter_than_the_months_ahead_is_
     future.to_csv(rows, index=False)
     code = cli.main(["forecast", str(path), str(rows)])
     err = capsys.readouterr().err
-    _assert_refused(code, err, "format version 3")
+    _assert_refused(code, err, f"castline: {path}: this model file (format version 3)")
     assert "more than 1 month after the last actual" in err and "rerun castline run" in err
     first = load_model(path).forecast(future[future["month"] == future["month"].min()], model="ols")
     written = _by_row(pd.read_csv(result.folder.path / "forecast.csv"), "ols")
