@@ -430,7 +430,7 @@ class StoredModel:
         with self._applying(prepared, file):
             # Drivers nobody knows ahead are estimated as in the run that wrote the model.
             known = plan.estimate_future(prepared)
-            actuals, rows = self._actuals(known), self._to_forecast(known, file)
+            actuals, rows = self._actuals(known, file), self._to_forecast(known, file)
             self._check_filled(rows, file)
             stepwise = self.steps.needed(plan, rows, actuals)
             design = None if stepwise else plan.transform(rows, known=actuals)
@@ -479,11 +479,16 @@ class StoredModel:
                             "empty in the months to forecast, as in the run's input", file=file, column=target)
         return rows[rows[target].isna()]
 
-    def _actuals(self, rows: pd.DataFrame) -> pd.DataFrame | None:
-        """Return the rows whose target is filled (None without any)."""
+    def _actuals(self, rows: pd.DataFrame, file: str) -> pd.DataFrame | None:
+        """Return the rows whose target is filled (None without any); stop at the first the
+        model's target transform cannot take."""
         target = self.document.target
         if target not in rows.columns or not rows[target].notna().any():
             return None
+        try:
+            self.plan.target_scale.check(rows)
+        except DataError as problem:
+            raise DataError(problem.message, file=file, column=problem.column, row=problem.row) from None
         return rows[rows[target].notna()]
 
     @contextmanager

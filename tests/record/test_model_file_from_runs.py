@@ -391,6 +391,13 @@ def test_a_mistake_in_the_data_file_names_its_line_and_column(case, which, runs,
     _assert_refused(code, err, f"castline: {path}{'' if line is None else f':{line}'}: {message}")
     assert "data.csv" not in err                  # the run's input file is not to blame
 
+
+def test_an_actual_the_models_log_cannot_take_names_its_line(runs, tmp_path, capsys):
+    rows = _with_cell(pd.read_csv(runs["recursive"].spec.input.file), 4, "sales", 0.0)
+    code, _, err, path = _command(runs["recursive"], rows, tmp_path, capsys)
+    _assert_refused(code, err, f"castline: {path}:6: column 'sales': 0 is not above 0, so target_transform: "
+                               "log cannot be applied")
+
 # ------------------------------------------------------------------ tampered files
 
 def _tamper(document: dict, change) -> dict:
