@@ -14,9 +14,9 @@ says so). From version 4 the file also holds the run's ``multi_step`` strategy a
 the direct strategy's fits (``StoredSteps``), for months further after the last
 actual than the target's own lags reach; an older file forecasts every other row.
 
-The rows to forecast may come with their history, as in the run's own input:
-rows whose target is filled are actuals, read by the target's lags (the file keeps
-the run's history for them too); every row of the data file gets a forecast.
+The rows to forecast may come with their history, as in the run's own input: the
+rows whose target is empty are forecast; those with it filled are actuals, read by
+the target's lags before the run's history the file keeps, and not forecast.
 """
 
 from __future__ import annotations
@@ -43,7 +43,7 @@ from pipeline.features.rows import first_row
 from pipeline.features.target import TargetTransform
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
-from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, _placed
+from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, placed_plan
 from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
@@ -412,9 +412,10 @@ class StoredModel:
 
     def forecast(self, frame: pd.DataFrame, model: str | None = None, file: str = "") -> pd.DataFrame:
         """Return each stored model's prediction for every row of the frame whose target is
-        empty (every row, without a target column): period, series, model, forecast and, when the file holds intervals, as in the run's forecast.csv, the
-        months ahead (``horizon``, counted from the run's last month of history) and the
-        empirical 80% and 95% bounds (none for a row at or before that month).
+        empty (every row, without a target column): period, series, model, forecast and,
+        when the file holds intervals, as in the run's forecast.csv, the months ahead
+        (``horizon``, counted from the run's last month of history) and the empirical 80%
+        and 95% bounds (none for a row at or before that month).
 
         Rows whose target is filled are actuals, as in the run's input: the lags read them,
         before the run's history the model file kept. Months further after the last actual
@@ -426,7 +427,7 @@ class StoredModel:
             if kind not in self.models:
                 raise UserError(f"the model file holds no model '{kind}' (it holds: "
                                 f"{', '.join(self.models)})")
-        plan = _placed(self.plan, file)   # its messages name the new data file
+        plan = placed_plan(self.plan, file)   # its messages name the new data file
         with self._applying(prepared, file):
             # Drivers nobody knows ahead are estimated as in the run that wrote the model.
             known = plan.estimate_future(prepared)
@@ -475,8 +476,9 @@ class StoredModel:
         if target not in rows.columns:
             return rows
         if rows[target].notna().all():
-            raise DataError("every row has the target filled, so there is nothing to forecast: leave it "
-                            "empty in the months to forecast, as in the run's input", file=file, column=target)
+            raise DataError("every row has the target filled, so there is nothing to forecast: leave "
+                            "it empty in the months to forecast, as in the run's input", file=file,
+                            column=target)
         return rows[rows[target].isna()]
 
     def _actuals(self, rows: pd.DataFrame, file: str) -> pd.DataFrame | None:

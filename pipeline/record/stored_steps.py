@@ -82,11 +82,13 @@ class StoredSteps:
         for horizon, (plan, models) in self.horizons.items():
             names = plan.get_feature_names_out()
             stored.append({"horizon": horizon, "plan": plan.to_dict(), "feature_names": names,
-                           "models": {kind: model_entry(kind, model, names) for kind, model in models.items()}})
+                           "models": {kind: model_entry(kind, model, names)
+                                      for kind, model in models.items()}})
         return {"strategy": self.strategy, "horizons": stored}
 
     @classmethod
-    def from_dict(cls, data, models: list[str], model_from_entry: Callable[[str, dict, list[str], int], object],
+    def from_dict(cls, data, models: list[str],
+                  model_from_entry: Callable[[str, dict, list[str], int], object],
                   version: int = FORMAT_VERSION) -> StoredSteps:
         """Return what ``to_dict`` stored; each fit's models among the file's ``models``."""
         with StoredFields(data, "the multi-step strategy", version=version) as fields:
@@ -157,14 +159,14 @@ class StoredSteps:
         actual, or stop with a DataError naming the first such row."""
         if horizon in self.horizons and kind in self.horizons[horizon][1]:
             own_plan, models = self.horizons[horizon]
-            return _placed(own_plan, file), models[kind]
+            return placed_plan(own_plan, file), models[kind]
         reach = target_reach(plan)
         if reach is None or horizon <= reach:
             return plan, model
         fitted = [h for h, (_, models) in self.horizons.items() if kind in models]
         if fitted and horizon > max(fitted) and target_reach(self.horizons[max(fitted)][0]) is None:
             own_plan, models = self.horizons[max(fitted)]
-            return _placed(own_plan, file), models[kind]
+            return placed_plan(own_plan, file), models[kind]
         row = rows[at].iloc[0]
         furthest = max([reach, *fitted])
         raise DataError(f"{row[PERIOD]} (series '{row[SERIES]}') is {months_phrase(horizon)} after the last "
@@ -174,7 +176,7 @@ class StoredSteps:
                         "in its input", file=file, row=first_row(rows, at))
 
 
-def _placed(plan: FeaturePlan, file: str) -> FeaturePlan:
+def placed_plan(plan: FeaturePlan, file: str) -> FeaturePlan:
     """Return a shallow copy of a stored plan whose messages name the new data file."""
     placed = copy.copy(plan)
     placed.source = file or None

@@ -279,7 +279,7 @@ def _step_fields(document: dict):
 
 
 @pytest.mark.filterwarnings("ignore:overflow encountered:RuntimeWarning")
-def test_any_field_of_the_multi_step_strategy_damaged_missing_or_added_stops_with_a_model_file_error(tmp_path):
+def test_any_field_of_the_multi_step_strategy_damaged_missing_or_added_is_refused(tmp_path):
     # Never another exception (an internal error, exit 1): each field set to a value of each
     # kind, removed, and a field added beside it.
     document = json.loads((V4 / "direct" / "model.json").read_text(encoding="utf-8"))
@@ -303,7 +303,8 @@ def test_any_field_of_the_multi_step_strategy_damaged_missing_or_added_stops_wit
     twice = copy.deepcopy(document)
     twice["multi_step"]["horizons"].append(twice["multi_step"]["horizons"][0])
     stranger = copy.deepcopy(document)
-    stranger["multi_step"]["horizons"][0]["models"]["lasso"] = stranger["multi_step"]["horizons"][0]["models"]["ols"]
+    fit = stranger["multi_step"]["horizons"][0]
+    fit["models"]["lasso"] = fit["models"]["ols"]
     missing = copy.deepcopy(document)
     del missing["multi_step"]
     for changed in (twice, stranger, missing):

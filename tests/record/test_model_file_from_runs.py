@@ -281,7 +281,8 @@ def test_castline_forecast_gives_the_runs_forecast_csv(which, given, runs, tmp_p
     assert out.splitlines() == [f"forecasts written to {tmp_path / 'out.csv'}"]     # no note
     mine = pd.read_csv(tmp_path / "out.csv")
     written = pd.read_csv(result.folder.path / "forecast.csv")
-    merged = mine.merge(written, on=["period", "series", "model"], validate="one_to_one", suffixes=("", "_run"))
+    merged = mine.merge(written, on=["period", "series", "model"], validate="one_to_one",
+                        suffixes=("", "_run"))
     assert len(merged) == len(mine) == len(written) == 3 * FUTURE * len(result.spec.models)
     for column in ["forecast", "horizon", *EMPIRICAL]:
         np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
