@@ -44,7 +44,10 @@ def build_parser() -> argparse.ArgumentParser:
     forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json, "
                                                           "with the run's empirical 80%% and 95%% intervals")
     forecast.add_argument("model_file", help="model.json from a run folder")
-    forecast.add_argument("data_file", help="CSV, Parquet or Excel rows with the drivers filled in")
+    forecast.add_argument("data_file", help="CSV, Parquet or Excel rows with the drivers filled in: the "
+                                            "rows with the target empty are forecast; rows with it filled "
+                                            "are actuals the target's lags read (the run's own input will "
+                                            "do: its history and its months to forecast)")
     forecast.add_argument("--model", help="only this model (default: every model in the file)")
     forecast.add_argument("--output", metavar="FILE", help="write the forecasts to this CSV file")
     init = commands.add_parser("init", help="write a starter spec from a data file")

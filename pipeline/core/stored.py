@@ -27,9 +27,10 @@ import pandas as pd
 
 from pipeline.core.errors import ModelFileError
 
-FORMAT_VERSION = 3             # the version of the fields every to_dict writes
-READABLE_VERSIONS = (1, 2, 3)  # the versions from_dict can read (2 added FeaturePlan.future_,
-                               # 3 the model file's empirical intervals)
+FORMAT_VERSION = 4                # the version of the fields every to_dict writes
+READABLE_VERSIONS = (1, 2, 3, 4)  # the versions from_dict can read (2 added FeaturePlan.future_,
+                                  # 3 the model file's empirical intervals, 4 its multi-step
+                                  # strategy and the direct strategy's fits)
 
 ARRAY_TYPES = ("float64", "int64", "bool", "object", "int32", "float32")
 

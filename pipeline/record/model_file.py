@@ -10,13 +10,21 @@ model file cannot run code, and a damaged one stops with a ``ModelFileError``.
 
 A file of version 1 or 2 predates the intervals: it still forecasts, without
 them (its table has no horizon or interval columns, and ``StoredModel.notes``
-says so).
+says so). From version 4 the file also holds the run's ``multi_step`` strategy and
+the direct strategy's fits (``StoredSteps``), for months further after the last
+actual than the target's own lags reach; an older file forecasts every other row.
+
+The rows to forecast may come with their history, as in the run's own input: the
+rows whose target is empty are forecast; those with it filled are actuals, read by
+the target's lags before the run's history the file keeps, and not forecast.
 """
 
 from __future__ import annotations
 
 import json
 import math
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
@@ -25,14 +33,17 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from pipeline.core.catalogue import BASELINE_KINDS, MODELS, model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
-from pipeline.core.errors import DataError, ModelFileError, UserError
+from pipeline.core.design import series_design
+from pipeline.core.errors import DataError, ModelFileError, SpecError, UserError
 from pipeline.core.intervals import LEVELS, empirical_bounds, percent, usable_scales
 from pipeline.core.stored import FORMAT_VERSION, READABLE_VERSIONS, StoredFields, encode, encode_fields
 from pipeline.core.version import __version__
 from pipeline.features.plan import FeaturePlan
+from pipeline.features.rows import first_row
 from pipeline.features.target import TargetTransform
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
+from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, placed_plan
 from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
@@ -277,27 +288,34 @@ class _Envelope(BaseModel):
     plan: dict
     models: dict[str, dict]
     intervals: dict | None = None      # from format version 3 (StoredIntervals)
+    multi_step: dict | None = None     # from format version 4 (StoredSteps)
     versions: dict[str, str] = Field(default_factory=dict)
     notes: list[str] = Field(default_factory=list)
 
 
-def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals: StoredIntervals) -> dict:
-    """Return the JSON document that stores a run's fitted plan and models, and what its
-    empirical intervals were read from (``StoredIntervals.from_forecast``)."""
+def _model_entry(kind: str, model, names: list[str]) -> dict:
+    """Return a fitted model as a model file stores it."""
+    if isinstance(model.inner, PerSeriesOLS):
+        return {"kind": "linear_per_series", **StoredPerSeries.from_model(model).to_dict()}
+    if model_kind(kind).family == "linear":
+        return {"kind": "linear", **StoredLinear.from_model(model, names).to_dict()}
+    return {"kind": "baseline", "class": type(model).__name__, "state": model.to_dict()}
+
+
+def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals: StoredIntervals,
+                   steps: StoredSteps | None = None) -> dict:
+    """Return the JSON document that stores a run's fitted plan and models, what its
+    empirical intervals were read from (``StoredIntervals.from_forecast``) and its
+    multi-step strategy with the direct strategy's fits (``StoredSteps.from_run``)."""
     names = plan.get_feature_names_out()
-    models = {}
-    for kind, model in fitted.items():
-        if isinstance(model.inner, PerSeriesOLS):
-            models[kind] = {"kind": "linear_per_series", **StoredPerSeries.from_model(model).to_dict()}
-        elif model_kind(kind).family == "linear":
-            models[kind] = {"kind": "linear", **StoredLinear.from_model(model, names).to_dict()}
-        else:
-            models[kind] = {"kind": "baseline", "class": type(model).__name__, "state": model.to_dict()}
+    models = {kind: _model_entry(kind, model, names) for kind, model in fitted.items()}
+    steps = steps or StoredSteps(spec.multi_step)
     return {
         "format": FORMAT, "format_version": FORMAT_VERSION, "castline_version": __version__,
         "spec_name": spec.name, "target": spec.target, "date_column": spec.input.date_column,
         "series_columns": list(spec.input.series), "feature_names": names,
-        "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(), "versions": versions,
+        "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(),
+        "multi_step": steps.to_dict(_model_entry), "versions": versions,
     }
 
 
@@ -329,24 +347,54 @@ def _intervals_from(document: _Envelope, version: int) -> StoredIntervals | None
     return StoredIntervals.from_dict(document.intervals, list(document.models), version)
 
 
+def _steps_from(document: _Envelope, version: int) -> StoredSteps:
+    """Return a file's multi-step strategy and fits (strategy None in a file that predates them)."""
+    if version < STEPS_FROM:
+        if document.multi_step is not None:
+            raise ModelFileError(f"a model file of version {version} holds no multi-step strategy, but "
+                                 "this one has the field 'multi_step'")
+        return StoredSteps(None, version=version)
+    if document.multi_step is None:
+        raise ModelFileError("the field 'multi_step' is missing")
+    return StoredSteps.from_dict(document.multi_step, list(document.models), _model_from_dict, version)
+
+
+def _numbers(values: pd.Series, column: str, file: str) -> pd.Series:
+    """Return a column's values as numbers (empty cells NaN); stop at the first cell that
+    holds text that is not a number."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        return values.astype(float)
+    numbers = pd.to_numeric(values, errors="coerce")
+    text = values.notna().to_numpy() & (values.astype(str).str.strip() != "").to_numpy()
+    wrong = text & numbers.isna().to_numpy()
+    if wrong.any():
+        at = int(np.flatnonzero(wrong)[0])
+        raise DataError(f"{values.iloc[at]!r} is not a number", file=file, column=column, row=at + 2)
+    return numbers.astype(float)
+
+
 class StoredModel:
     """A run's fitted feature plan and models, loaded from JSON, ready to forecast; with the
-    run's empirical intervals, or ``intervals`` None for a file that predates them."""
+    run's empirical intervals, or ``intervals`` None for a file that predates them; and its
+    multi-step strategy (``steps``)."""
 
     def __init__(self, document: _Envelope, plan, models: dict, path: Path | None = None,
-                 intervals: StoredIntervals | None = None) -> None:
+                 intervals: StoredIntervals | None = None, steps: StoredSteps | None = None) -> None:
         self.document = document
         self.plan = plan
         self.models = models
         self.path = path
         self.intervals = intervals
+        self.steps = steps or StoredSteps(None, version=document.format_version)
 
     def prepare(self, frame: pd.DataFrame, file: str = "") -> pd.DataFrame:
-        """Return the rows with the month, series and row columns the plan expects."""
+        """Return the rows with the month, series and row columns the plan expects, and the
+        numeric columns it reads (the target's among them) as numbers."""
         doc = self.document
         missing = [c for c in [doc.date_column, *doc.series_columns] if c not in frame.columns]
         if missing:
-            raise DataError("the file lacks the column(s) the model needs", file=file, column=missing[0])
+            raise DataError("the file has no such column, and the model needs it", file=file,
+                            column=missing[0])
         prepared = frame.copy()
         dates = pd.to_datetime(prepared[doc.date_column], errors="coerce")
         if dates.isna().any():
@@ -355,46 +403,117 @@ class StoredModel:
         prepared[PERIOD] = dates.dt.to_period("M")
         prepared[SERIES] = _series_labels(prepared, doc.series_columns)
         prepared[ROW] = np.arange(len(prepared)) + 2
+        plan = self.plan
+        numeric = [d.column for d in plan.numeric] + [lagged.column for lagged in plan.lags] + [doc.target]
+        for column in dict.fromkeys(numeric):
+            if column in prepared.columns:
+                prepared[column] = _numbers(prepared[column], column, file)
         return prepared
 
     def forecast(self, frame: pd.DataFrame, model: str | None = None, file: str = "") -> pd.DataFrame:
-        """Return each stored model's prediction for every row of the frame: period, series,
-        model, forecast and, when the file holds intervals, as in the run's forecast.csv, the
-        months ahead (``horizon``, counted from the run's last month of history) and the
-        empirical 80% and 95% bounds (none for a row at or before that month)."""
+        """Return each stored model's prediction for every row of the frame whose target is
+        empty (every row, without a target column): period, series, model, forecast and,
+        when the file holds intervals, as in the run's forecast.csv, the months ahead
+        (``horizon``, counted from the run's last month of history) and the empirical 80%
+        and 95% bounds (none for a row at or before that month).
+
+        Rows whose target is filled are actuals, as in the run's input: the lags read them,
+        before the run's history the model file kept. Months further after the last actual
+        than the target's lags reach are forecast by the run's multi_step strategy
+        (``StoredSteps``)."""
         prepared = self.prepare(frame, file)
-        intervals = self.intervals
-        if intervals is not None:
-            horizons = intervals.horizons(prepared[PERIOD])
-            scale = intervals.row_scales(prepared[SERIES])
-        try:
-            # Drivers nobody knows ahead are estimated as in the run that wrote the model.
-            design = self.plan.transform(self.plan.estimate_future(prepared))
-        except KeyError as exc:
-            raise DataError(f"the file lacks a driver column the model needs: {exc}", file=file) from None
-        except (AttributeError, TypeError, ValueError, IndexError) as exc:
-            raise ModelFileError(f"{self.path}: the model file is damaged: its feature plan cannot "
-                                 f"be applied ({type(exc).__name__}: {exc})") from None
         kinds = [model] if model else list(self.models)
-        out = []
         for kind in kinds:
             if kind not in self.models:
                 raise UserError(f"the model file holds no model '{kind}' (it holds: "
                                 f"{', '.join(self.models)})")
-            try:
-                values = self.models[kind].predict(design)
-            except ModelFileError as exc:
-                raise ModelFileError(f"{self.path}: the model file is damaged: {exc}") from None
-            except (AttributeError, TypeError, ValueError, KeyError, IndexError) as exc:
-                raise ModelFileError(f"{self.path}: the model file is damaged: model '{kind}' cannot "
-                                     f"predict ({type(exc).__name__}: {exc})") from None
-            table = {"period": prepared[PERIOD].astype(str).to_numpy(), "series": prepared[SERIES].to_numpy(),
+        plan = placed_plan(self.plan, file)   # its messages name the new data file
+        with self._applying(prepared, file):
+            # Drivers nobody knows ahead are estimated as in the run that wrote the model.
+            known = plan.estimate_future(prepared)
+            actuals, rows = self._actuals(known, file), self._to_forecast(known, file)
+            self._check_filled(rows, file)
+            stepwise = self.steps.needed(plan, rows, actuals)
+            design = None if stepwise else plan.transform(rows, known=actuals)
+        if stepwise and self.steps.strategy is None:
+            raise UserError(f"{self.path}: {self.steps.predates(plan)}")
+        intervals = self.intervals
+        if intervals is not None:
+            horizons = intervals.horizons(rows[PERIOD])
+            scale = intervals.row_scales(rows[SERIES])
+        out = []
+        for kind in kinds:
+            stored = self.models[kind]
+            with self._applying(prepared, file, kind):
+                if design is not None:
+                    values = stored.predict(design)
+                elif not isinstance(stored, (StoredLinear, StoredPerSeries)):   # a simple rule
+                    values = stored.predict(series_design(rows, SERIES))
+                else:
+                    values = self.steps.predict(kind, plan, stored, rows, actuals, file)
+            table = {"period": rows[PERIOD].astype(str).to_numpy(), "series": rows[SERIES].to_numpy(),
                      "model": kind, "forecast": values}
             if intervals is not None:
                 table = {"period": table.pop("period"), "horizon": horizons, **table,
                          **intervals.columns(kind, values, horizons, scale)}
             out.append(pd.DataFrame(table))
         return pd.concat(out, ignore_index=True)
+
+    def _check_filled(self, rows: pd.DataFrame, file: str) -> None:
+        """Stop at the first empty cell of a numeric driver the run filled no gap of (after the
+        drivers castline estimates were estimated)."""
+        for driver in self.plan.numeric:
+            if driver.missing == "refuse" and driver.column in rows.columns:
+                empty = rows[driver.column].isna().to_numpy()
+                if empty.any():
+                    raise DataError("the cell is empty, and the model needs this driver in every row "
+                                    "it forecasts", file=file, column=driver.column,
+                                    row=first_row(rows, empty))
+
+    def _to_forecast(self, rows: pd.DataFrame, file: str) -> pd.DataFrame:
+        """Return the rows whose target is empty; stop if there is none."""
+        target = self.document.target
+        if target not in rows.columns:
+            return rows
+        if rows[target].notna().all():
+            raise DataError("every row has the target filled, so there is nothing to forecast: leave "
+                            "it empty in the months to forecast, as in the run's input", file=file,
+                            column=target)
+        return rows[rows[target].isna()]
+
+    def _actuals(self, rows: pd.DataFrame, file: str) -> pd.DataFrame | None:
+        """Return the rows whose target is filled (None without any); stop at the first the
+        model's target transform cannot take."""
+        target = self.document.target
+        if target not in rows.columns or not rows[target].notna().any():
+            return None
+        try:
+            self.plan.target_scale.check(rows)
+        except DataError as problem:
+            raise DataError(problem.message, file=file, column=problem.column, row=problem.row) from None
+        return rows[rows[target].notna()]
+
+    @contextmanager
+    def _applying(self, prepared: pd.DataFrame, file: str, kind: str | None = None) -> Iterator[None]:
+        """Turn what goes wrong applying the plan, or a model, to the rows into a one-line
+        error: the data file's (a column missing) or the model file's (damaged)."""
+        what = f"model '{kind}' cannot predict" if kind else "its feature plan cannot be applied"
+        try:
+            yield
+        except KeyError as exc:
+            column = exc.args[0] if exc.args else None
+            if isinstance(column, str) and column not in prepared.columns:
+                raise DataError("the file has no such column, and the model needs it", file=file,
+                                column=column) from None
+            raise ModelFileError(f"{self.path}: the model file is damaged: {what} "
+                                 f"({type(exc).__name__}: {exc})") from None
+        except SpecError as exc:   # a lag of a column nobody gives ahead reads past the origin
+            raise DataError(exc.message, file=file) from None
+        except ModelFileError as exc:
+            raise ModelFileError(f"{self.path}: the model file is damaged: {exc}") from None
+        except (AttributeError, TypeError, ValueError, IndexError) as exc:
+            raise ModelFileError(f"{self.path}: the model file is damaged: {what} "
+                                 f"({type(exc).__name__}: {exc})") from None
 
     def notes(self, table: pd.DataFrame) -> list[str]:
         """Return what ``castline forecast`` says of a forecast table's intervals: none from a
@@ -442,8 +561,9 @@ def load_model(path: str | Path) -> StoredModel:
         models = {kind: _model_from_dict(kind, entry, document.feature_names, version)
                   for kind, entry in document.models.items()}
         intervals = _intervals_from(document, version)
+        steps = _steps_from(document, version)
     except ModelFileError as exc:
         raise ModelFileError(f"{path}: {exc}") from None
     except (KeyError, TypeError, ValueError, AttributeError) as exc:
         raise ModelFileError(f"{path}: damaged model file ({type(exc).__name__}: {exc})") from None
-    return StoredModel(document, plan, models, path, intervals)
+    return StoredModel(document, plan, models, path, intervals, steps)

@@ -27,6 +27,7 @@ from pipeline.record import ledger
 from pipeline.record.ledger import write as ledger_write
 from pipeline.record.model_file import StoredIntervals, model_document
 from pipeline.record.safe_csv import write_csv
+from pipeline.record.stored_steps import StoredSteps
 from pipeline.spec import Spec
 from pipeline.spec.wording import describe_validation
 from pipeline.stages.backtest import BacktestResult
@@ -174,7 +175,8 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     if len(forecast.scenarios):
         write_csv(forecast.scenarios, staging / "scenarios.csv")
     document = model_document(spec, forecast.plan, forecast.fitted, package_versions(),
-                              StoredIntervals.from_forecast(forecast))
+                              StoredIntervals.from_forecast(forecast),
+                              StoredSteps.from_run(spec.multi_step, forecast.horizon_fits))
     (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
     write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
         columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(

@@ -72,6 +72,10 @@ class ForecastResult:
     transform: str = "none"
     floor: float | None = None
     last_period: str | None = None
+    # The direct strategy's fits on all history, one per months ahead it forecast: model
+    # name → [(months ahead, feature plan, model)]; empty without target lags shorter than
+    # the months ahead, or under the recursive strategy (the model above feeds back).
+    horizon_fits: dict = field(default_factory=dict)
 
 
 def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
@@ -114,6 +118,7 @@ class _Predictor:
         self.spec, self.data, self.plan, self.stepwise = spec, data, plan, stepwise
         self.executor, self.progress = executor, progress
         self.designs: dict[int, Design] = {}
+        self.horizon_fits: dict[str, list] = {}   # the direct strategy's fits, for the model file
 
     def __call__(self, choice, model, frame: pd.DataFrame):
         """Return the point forecasts, their standard errors, residual df and centres (the
@@ -121,9 +126,11 @@ class _Predictor:
         if self.stepwise and choice.kind in BASELINE_KINDS:
             return model.predict(series_design(frame, SERIES)), None, None, None
         if self.stepwise:  # a target lag is shorter than the months ahead: the spec's multi_step
-            point, se, df, centre, _ = predict_ahead(self.spec, choice, self.data.history, frame,
-                                                     self.data.origins(frame),
-                                                     executor=self.executor, progress=self.progress)
+            point, se, df, centre, fitted = predict_ahead(self.spec, choice, self.data.history, frame,
+                                                          self.data.origins(frame),
+                                                          executor=self.executor, progress=self.progress)
+            if self.spec.multi_step == "direct":   # the first call: the months to forecast
+                self.horizon_fits.setdefault(choice.name, fitted)
             return point, se, df, centre
         if id(frame) not in self.designs:
             self.designs[id(frame)] = self.plan.transform(frame)
@@ -367,7 +374,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]),
         interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,
-        floor=bounds.floor, last_period=str(data.last_period))
+        floor=bounds.floor, last_period=str(data.last_period), horizon_fits=predict.horizon_fits)
 
 
 def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:

@@ -49,10 +49,13 @@ here too; the empirical intervals still apply).
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+
 import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.design import Design
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.lags import with_predictions
@@ -153,22 +156,34 @@ def impulse_responses(spec: Spec, plan: FeaturePlan, model, rows: pd.DataFrame,
     return np.where(missing, np.nan, response)
 
 
-def _recursive(spec: Spec, plan: FeaturePlan, model, rows: pd.DataFrame, predicted: np.ndarray,
-               se: np.ndarray, df: np.ndarray, *, spread: bool) -> None:
-    """Predict the rows month by month, each prediction fed back, filling ``predicted`` and,
-    with ``spread`` and a model that gives standard errors, ``se`` (the h-step ones) and
-    ``df``."""
+def month_by_month(plan: FeaturePlan, model, rows: pd.DataFrame, target: str,
+                   known: pd.DataFrame | None = None) -> Iterator[tuple[np.ndarray, Design, np.ndarray]]:
+    """Yield, for each month of the rows in order, which rows are that month's, their design
+    and the model's predictions, each month's predictions fed back as the target's values
+    for the later months' lags (the recursive strategy). ``known``: rows whose target is
+    known beyond the plan's window (actuals), read by the lags before any prediction is.
+
+    The run's forecast and a stored model (``castline forecast``) both predict this way.
+    """
     months = rows[PERIOD].array.asi8
-    sigma = np.full(len(rows), np.nan)
-    given = spread
-    known = None
     for month in np.unique(months):
         at = months == month
         step = rows[at]
         design = plan.transform(step, known=known)
         values = model.predict(design)
+        yield at, design, values
+        known = with_predictions(known, step, values, target)
+
+
+def _recursive(spec: Spec, plan: FeaturePlan, model, rows: pd.DataFrame, predicted: np.ndarray,
+               se: np.ndarray, df: np.ndarray, *, spread: bool) -> None:
+    """Predict the rows month by month, each prediction fed back, filling ``predicted`` and,
+    with ``spread`` and a model that gives standard errors, ``se`` (the h-step ones) and
+    ``df``."""
+    sigma = np.full(len(rows), np.nan)
+    given = spread
+    for at, design, values in month_by_month(plan, model, rows, spec.target):
         predicted[at] = values
-        known = with_predictions(known, step, values, spec.target)
         if given:
             step_se, step_df, _ = prediction_spread(model, design)
             own_sd = model.residual_sd(design) if step_se is not None else None

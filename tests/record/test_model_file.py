@@ -86,6 +86,34 @@ def test_a_version_3_model_file_forecasts_what_its_run_wrote_intervals_included(
         np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
 
 
+V4 = TEST_DATA / "model_files_v4"
+
+
+# Version 4 added the run's multi_step strategy: a target lag of one month, four months
+# forecast. The data file may be the months to forecast alone (the lags read the history
+# the model file kept) or the run's whole input (the lags read its actuals).
+@pytest.mark.parametrize("rows", ["rows.csv", "data.csv"])
+@pytest.mark.parametrize("strategy", ["direct", "recursive"])
+def test_a_version_4_model_file_forecasts_what_its_run_wrote_by_its_strategy(strategy, rows, tmp_path, capsys):
+    folder = V4 / strategy
+    output = tmp_path / "forecast.csv"
+    code = cli.main(["forecast", str(folder / "model.json"), str(folder / rows), "--output", str(output)])
+    printed = capsys.readouterr()
+    assert code == 0, printed.err
+    assert printed.out.splitlines() == [f"forecasts written to {output}"]
+    _assert_same_forecasts(output, folder)
+    mine = pd.read_csv(output)
+    theirs = pd.read_csv(folder / "forecast.csv")      # what the run wrote at the time
+    merged = mine.merge(theirs, on=["period", "series", "model"], validate="one_to_one", suffixes=("", "_run"))
+    assert len(merged) == len(theirs) == 2 * 4 * 7     # two regions, four months, seven models
+    for column in ["horizon", *EMPIRICAL]:
+        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
+    document = json.loads((folder / "model.json").read_text(encoding="utf-8"))
+    assert document["multi_step"]["strategy"] == strategy
+    assert [fit["horizon"] for fit in document["multi_step"]["horizons"]] == (
+        [2, 3, 4] if strategy == "direct" else [])
+
+
 def test_a_version_3_files_intervals_read_and_written_again_are_the_same_json():
     document = json.loads((V3 / "demo-log" / "model.json").read_text(encoding="utf-8"))
     stored = model_file.StoredIntervals.from_dict(document["intervals"], list(document["models"]), 3)
@@ -237,3 +265,47 @@ def test_any_field_damaged_missing_or_added_stops_with_a_model_file_error_or_sti
         holder(added)[key + "_extra"] = holder(added)[key]
         assert _load_and_forecast(added, rows, path) == "refused", where
     assert "refused" in outcomes.values()
+
+
+def _step_fields(document: dict):
+    """Yield (where, the holder of a field in a copy of the document, the key) for every field
+    of the multi-step strategy, of its first fit and of that fit's OLS model."""
+    for key in document["multi_step"]:
+        yield f"multi_step {key}", lambda d: d["multi_step"], key
+    for key in document["multi_step"]["horizons"][0]:
+        yield f"the first fit's {key}", lambda d: d["multi_step"]["horizons"][0], key
+    for key in document["multi_step"]["horizons"][0]["models"]["ols"]:
+        yield f"the first fit's ols {key}", lambda d: d["multi_step"]["horizons"][0]["models"]["ols"], key
+
+
+@pytest.mark.filterwarnings("ignore:overflow encountered:RuntimeWarning")
+def test_any_field_of_the_multi_step_strategy_damaged_missing_or_added_is_refused(tmp_path):
+    # Never another exception (an internal error, exit 1): each field set to a value of each
+    # kind, removed, and a field added beside it.
+    document = json.loads((V4 / "direct" / "model.json").read_text(encoding="utf-8"))
+    rows = pd.read_csv(V4 / "direct" / "rows.csv")
+    path = tmp_path / "model.json"
+    outcomes = {}
+    for where, holder, key in _step_fields(document):
+        for value in HOSTILE:
+            changed = copy.deepcopy(document)
+            holder(changed)[key] = value
+            outcomes[(where, repr(value))] = _load_and_forecast(changed, rows, path)
+        removed = copy.deepcopy(document)
+        del holder(removed)[key]
+        assert _load_and_forecast(removed, rows, path) == "refused", where
+        added = copy.deepcopy(document)
+        holder(added)[key + "_extra"] = holder(added)[key]
+        assert _load_and_forecast(added, rows, path) == "refused", where
+    assert outcomes[("multi_step strategy", "'text'")] == "refused"
+    assert outcomes[("the first fit's horizon", "-1")] == "refused"
+    # A fit given twice, or for a model the file does not hold, or the strategy missing.
+    twice = copy.deepcopy(document)
+    twice["multi_step"]["horizons"].append(twice["multi_step"]["horizons"][0])
+    stranger = copy.deepcopy(document)
+    fit = stranger["multi_step"]["horizons"][0]
+    fit["models"]["lasso"] = fit["models"]["ols"]
+    missing = copy.deepcopy(document)
+    del missing["multi_step"]
+    for changed in (twice, stranger, missing):
+        assert _load_and_forecast(changed, rows, path) == "refused"

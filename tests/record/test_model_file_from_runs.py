@@ -54,10 +54,10 @@ def simulate(seed: int) -> pd.DataFrame:
 def make_run(folder: Path, drivers: dict, models: list, **extra):
     folder.mkdir(parents=True, exist_ok=True)
     simulate(len(models)).to_csv(folder / "data.csv", index=False)
+    validation = extra.pop("validation", {"method": "holdout", "last_periods": 12})
     spec = {"name": "stored-model-test",
             "input": {"file": "data.csv", "date_column": "month", "series": ["region"]},
-            "target": "sales", "drivers": drivers, **extra,
-            "validation": {"method": "holdout", "last_periods": 12},
+            "target": "sales", "drivers": drivers, **extra, "validation": validation,
             "models": models, "output": {"folder": "reports"}}
     (folder / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
     return pipeline.run(folder / "spec.yaml")
@@ -78,13 +78,35 @@ LOG_RUN = {
     "models": ["ols", "lasso"],
     "target_transform": "log",
 }
+# A lag of the target one month back, shorter than the six months forecast: the run forecasts
+# by its multi_step strategy. Between them: every linear kind of the catalogue, OLS fitted per
+# series, a log target and a driver castline estimates (month_mean). Two forecast origins keep
+# the backtest short.
+SHORT_BACKTEST = {"method": "rolling_origin", "horizon": FUTURE, "min_train_periods": 72, "origins": 2}
+DIRECT_RUN = {
+    "drivers": {"numeric": ["shelf_price", "promo_days"],
+                "lags": [{"column": "sales", "lags": [1], "rolling_means": [3]}]},
+    "models": ["ols", {"kind": "ols", "per_series": True}, {"kind": "ridge", "penalties": [1.0]}, "lasso",
+               "elastic_net", "huber", "drift"],
+    "multi_step": "direct", "validation": SHORT_BACKTEST,
+}
+RECURSIVE_RUN = {
+    "drivers": {"numeric": ["shelf_price", {"column": "promo_days", "future": "month_mean"}],
+                "categorical": [{"column": "region", "encoding": "one_hot"}],
+                "lags": [{"column": "sales", "lags": [1, 2]}]},
+    "models": ["ols", {"kind": "ols", "per_series": True}, {"kind": "ridge", "penalties": [1.0]}, "lasso"],
+    "multi_step": "recursive", "target_transform": "log", "validation": SHORT_BACKTEST,
+}
+RUNS = ["calendar", "log", "direct", "recursive"]
 
 
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory):
     root = tmp_path_factory.mktemp("stored")
     return {"calendar": make_run(root / "calendar", **CALENDAR_RUN),
-            "log": make_run(root / "log", **LOG_RUN)}
+            "log": make_run(root / "log", **LOG_RUN),
+            "direct": make_run(root / "direct", **DIRECT_RUN),
+            "recursive": make_run(root / "recursive", **RECURSIVE_RUN)}
 
 
 def _future(result) -> pd.DataFrame:
@@ -100,13 +122,13 @@ def _by_row(table: pd.DataFrame, kind: str) -> pd.Series:
 
 # ------------------------------------------------------------------ forecasts agree
 
-@pytest.mark.parametrize("which", ["calendar", "log"])
+@pytest.mark.parametrize("which", RUNS)
 def test_the_loaded_model_forecasts_exactly_what_the_run_wrote(which, runs):
     result = runs[which]
     stored = load_model(result.folder.path / "model.json")
     loaded = stored.forecast(_future(result))
     written = pd.read_csv(result.folder.path / "forecast.csv")    # what the run wrote
-    kinds = result.spec.model_kinds
+    kinds = [choice.name for choice in result.spec.models]          # ols and ols_per_series
     assert sorted(loaded["model"].unique()) == sorted(kinds)
     for kind in kinds:
         mine, theirs = _by_row(loaded, kind), _by_row(written, kind)
@@ -229,6 +251,153 @@ def test_castline_forecast_in_a_subprocess_writes_the_forecasts(runs, tmp_path):
     assert done.stderr.count("\n") == 1 and done.stderr.startswith("castline: ")
     assert "Traceback" not in done.stderr
 
+
+EMPIRICAL = ["empirical_low_80", "empirical_high_80", "empirical_low_95", "empirical_high_95"]
+
+
+def _command(result, rows: pd.DataFrame, tmp_path: Path, capsys) -> tuple[int, str, str, Path]:
+    """Run `castline forecast` on the rows (written as rows.csv) with the run's model.json;
+    return the exit code, stdout, stderr and the data file."""
+    path = tmp_path / "rows.csv"
+    rows.to_csv(path, index=False)
+    code = cli.main(["forecast", str(result.folder.path / "model.json"), str(path),
+                     "--output", str(tmp_path / "out.csv")])
+    printed = capsys.readouterr()
+    return code, printed.out, printed.err, path
+
+
+@pytest.mark.parametrize("given", ["the run's input", "the months to forecast alone"])
+@pytest.mark.parametrize("which", RUNS)
+def test_castline_forecast_gives_the_runs_forecast_csv(which, given, runs, tmp_path, capsys):
+    # The run's own input (the history, whose actuals the target's lags read, and the months
+    # to forecast, their target empty) or those months alone without the target column (the
+    # lags then read the history the model file kept): the forecasts and empirical bounds of
+    # forecast.csv, every model, whatever the strategy.
+    result = runs[which]
+    data = pd.read_csv(result.spec.input.file)
+    rows = data if given == "the run's input" else _future(result).drop(columns=["sales"])
+    code, out, err, _ = _command(result, rows, tmp_path, capsys)
+    assert code == 0, err
+    assert out.splitlines() == [f"forecasts written to {tmp_path / 'out.csv'}"]     # no note
+    mine = pd.read_csv(tmp_path / "out.csv")
+    written = pd.read_csv(result.folder.path / "forecast.csv")
+    merged = mine.merge(written, on=["period", "series", "model"], validate="one_to_one",
+                        suffixes=("", "_run"))
+    assert len(merged) == len(mine) == len(written) == 3 * FUTURE * len(result.spec.models)
+    for column in ["forecast", "horizon", *EMPIRICAL]:
+        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
+
+
+def _one_month_more(result) -> pd.DataFrame:
+    """The months to forecast and, for North, the month after them."""
+    future = _future(result)
+    last = future[(future["region"] == "North") & (future["month"] == future["month"].max())]
+    later = (pd.Period(last["month"].iloc[0], freq="M") + 1).to_timestamp().strftime("%Y-%m-%d")
+    return pd.concat([future, last.assign(month=later)], ignore_index=True)
+
+
+def test_a_month_beyond_the_direct_fits_is_refused_and_the_recursive_strategy_forecasts_it(
+        runs, tmp_path, capsys):
+    # The direct run fitted a model for each of the six months ahead it forecast, its target's
+    # rolling mean read further back each month: none reads seven months ahead.
+    rows = _one_month_more(runs["direct"])
+    code, _, err, path = _command(runs["direct"], rows, tmp_path, capsys)
+    _assert_refused(code, err, f"{path}:{len(rows) + 1}: ")
+    assert "is 7 months after the last actual of the target (2023-12)" in err
+    # Recursively, a month further is one more month fed back; the others are as the run wrote.
+    code, _, err, _ = _command(runs["recursive"], _one_month_more(runs["recursive"]), tmp_path, capsys)
+    assert code == 0, err
+    mine = pd.read_csv(tmp_path / "out.csv")
+    assert mine["horizon"].max() == FUTURE + 1 and mine["forecast"].notna().all()
+    written = pd.read_csv(runs["recursive"].folder.path / "forecast.csv")
+    merged = mine.merge(written, on=["period", "series", "model"], suffixes=("", "_run"))
+    assert len(merged) == len(written)
+    np.testing.assert_allclose(merged["forecast"], merged["forecast_run"], rtol=1e-9, atol=0)
+
+
+def test_an_actual_in_the_data_file_is_read_by_the_lags_and_not_forecast(runs, tmp_path, capsys):
+    # The first month to forecast given an actual: the recursion starts after it, from it.
+    result = runs["recursive"]
+    data = pd.read_csv(result.spec.input.file)
+    first = data["sales"].isna() & (data["month"] == _future(result)["month"].min())
+    code, _, err, _ = _command(result, data.assign(sales=data["sales"].mask(first, 500.0)), tmp_path, capsys)
+    assert code == 0, err
+    mine = pd.read_csv(tmp_path / "out.csv").set_index(["period", "series", "model"])["forecast"]
+    written = pd.read_csv(result.folder.path / "forecast.csv").set_index(["period", "series", "model"])
+    assert set(written.index) - set(mine.index) == set(written.index[written["horizon"] == 1])
+    raised = mine - written["forecast"].reindex(mine.index)
+    # sales far above its usual level (about 100) a month earlier raise the next month's OLS forecast
+    assert (raised.xs("ols", level="model").xs("2024-02", level="period") > 0).all()
+
+
+def test_a_file_of_version_3_with_a_target_lag_shorter_than_the_months_ahead_is_refused(
+        runs, tmp_path, capsys):
+    # Version 3 did not keep the run's strategy: the first month ahead still forecasts as the
+    # run did, a later one asks for a new run.
+    result = runs["direct"]
+    document = json.loads((result.folder.path / "model.json").read_text(encoding="utf-8"))
+    document["format_version"] = 3
+    del document["multi_step"]
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(document), encoding="utf-8")
+    future = _future(result)
+    rows = tmp_path / "rows.csv"
+    future.to_csv(rows, index=False)
+    code = cli.main(["forecast", str(path), str(rows)])
+    err = capsys.readouterr().err
+    _assert_refused(code, err, f"castline: {path}: this model file (format version 3)")
+    assert "more than 1 month after the last actual" in err and "rerun castline run" in err
+    first = load_model(path).forecast(future[future["month"] == future["month"].min()], model="ols")
+    written = _by_row(pd.read_csv(result.folder.path / "forecast.csv"), "ols")
+    assert (_by_row(first, "ols").to_numpy() == written.iloc[:3].to_numpy()).all()
+
+
+def _with_cell(rows: pd.DataFrame, position: int, column: str, value) -> pd.DataFrame:
+    changed = rows.astype({column: object})
+    changed.loc[position, column] = value
+    return changed
+
+
+def _to_forecast(rows: pd.DataFrame, k: int) -> int:
+    """The position of the k-th row with an empty target."""
+    return int(np.flatnonzero(rows["sales"].isna())[k])
+
+
+# Mistakes in the run's input given to `castline forecast`: each names the data file, the
+# line (the header is line 1; None: no line) and the column, never the run's training file.
+DATA_MISTAKES = {
+    "an empty driver cell": (lambda rows: (_with_cell(rows, _to_forecast(rows, 2), "shelf_price", None),
+                                           _to_forecast(rows, 2) + 2),
+                             "column 'shelf_price': the cell is empty"),
+    "text in a number column": (lambda rows: (_with_cell(rows, _to_forecast(rows, 1), "shelf_price", "abc"),
+                                              _to_forecast(rows, 1) + 2),
+                                "column 'shelf_price': 'abc' is not a number"),
+    "text among the target's actuals": (lambda rows: (_with_cell(rows, 0, "sales", "lots"), 2),
+                                        "column 'sales': 'lots' is not a number"),
+    "a driver column missing": (lambda rows: (rows.drop(columns=["shelf_price"]), None),
+                                "column 'shelf_price': the file has no such column, and the model needs it"),
+    "the series column missing": (lambda rows: (rows.drop(columns=["region"]), None),
+                                  "column 'region': the file has no such column"),
+    "every row with its target": (lambda rows: (rows.dropna(subset=["sales"]), None),
+                                  "column 'sales': every row has the target filled"),
+}
+
+
+@pytest.mark.parametrize("which", ["calendar", "recursive"])
+@pytest.mark.parametrize("case", sorted(DATA_MISTAKES))
+def test_a_mistake_in_the_data_file_names_its_line_and_column(case, which, runs, tmp_path, capsys):
+    change, message = DATA_MISTAKES[case]
+    rows, line = change(pd.read_csv(runs[which].spec.input.file))
+    code, _, err, path = _command(runs[which], rows, tmp_path, capsys)
+    _assert_refused(code, err, f"castline: {path}{'' if line is None else f':{line}'}: {message}")
+    assert "data.csv" not in err                  # the run's input file is not to blame
+
+
+def test_an_actual_the_models_log_cannot_take_names_its_line(runs, tmp_path, capsys):
+    rows = _with_cell(pd.read_csv(runs["recursive"].spec.input.file), 4, "sales", 0.0)
+    code, _, err, path = _command(runs["recursive"], rows, tmp_path, capsys)
+    _assert_refused(code, err, f"castline: {path}:6: column 'sales': 0 is not above 0, so target_transform: "
+                               "log cannot be applied")
 
 # ------------------------------------------------------------------ tampered files
 

@@ -94,7 +94,7 @@ def test_castline_forecast_gives_the_runs_empirical_intervals_for_every_model(wh
 
 def test_the_log_run_stores_its_transform_and_floor(runs):
     document = json.loads((runs["log"].folder.path / "model.json").read_text(encoding="utf-8"))
-    assert document["format_version"] == 3
+    assert document["format_version"] == 4          # 3 added the intervals, 4 the multi-step strategy
     assert document["intervals"]["transform"] == "log"
     assert document["intervals"]["floor"] == 0.0          # bags sold are never below zero
     assert document["intervals"]["last_period"] == {"__period__": "2026-10", "freq": "M"}
@@ -221,6 +221,6 @@ def test_a_file_of_version_2_with_intervals_is_refused(runs, tmp_path):
     path.write_text(json.dumps(document), encoding="utf-8")
     with pytest.raises(ModelFileError, match="model.json: a model file of version 2 holds no intervals"):
         load_model(path)
-    del document["intervals"]
+    del document["intervals"], document["multi_step"]      # version 4 added the strategy
     path.write_text(json.dumps(document), encoding="utf-8")
     assert load_model(path).intervals is None
