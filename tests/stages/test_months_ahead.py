@@ -64,7 +64,7 @@ drivers:
     trend: true
     month_of_year: fourier
     harmonics: 1
-{validation}{forecast}models: [ols]
+{lags}{validation}{forecast}models: [ols]
 output:
   folder: out
 """
@@ -77,12 +77,12 @@ VALIDATION = """validation:
 
 
 def write(folder: Path, frame: pd.DataFrame, *, months: int | None = None, price_future: str = "last_value",
-          validation: str | None = None, horizon: int = 6) -> Path:
+          validation: str | None = None, horizon: int = 6, lags: str = "") -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     frame.to_csv(folder / "data.csv", index=False)
     spec = folder / "spec.yaml"
     spec.write_text(SPEC.format(
-        price_future=price_future,
+        price_future=price_future, lags=lags,
         validation=VALIDATION.format(horizon=horizon) if validation is None else validation,
         forecast=f"forecast:\n  months: {months}\n" if months else ""), encoding="utf-8")
     return spec
@@ -129,16 +129,23 @@ def test_forecast_months_adds_each_series_months_after_its_own_last_actual(tmp_p
     assert "note: 2 series lag behind the newest actual month 2023-12" in out
 
 
-def test_added_months_forecast_as_the_same_months_typed_into_the_file(tmp_path):
+LAGS = {"no lags": "",
+        "a target lag that reaches": "  lags:\n    - column: sales\n      lags: [12]\n",
+        "a target lag of 1, recursive": "  lags:\n    - column: sales\n      lags: [1]\nmulti_step: recursive\n"}
+
+
+@pytest.mark.parametrize("lags", list(LAGS))
+def test_added_months_forecast_as_the_same_months_typed_into_the_file(tmp_path, lags):
     """The rows forecast.months adds give the same forecasts and intervals as the same
-    months typed into the file with the estimated drivers left empty (the older path)."""
+    months typed into the file with the estimated drivers left empty (the older path),
+    with calendar terms, estimated drivers and lags of the target."""
     frame = panel(last_missing={"Birch": 1})
-    added = write(tmp_path / "added", frame, months=4)
+    added = write(tmp_path / "added", frame, months=4, lags=LAGS[lags])
     typed_rows = expected_rows(frame, 4)
     typed = pd.concat([frame, pd.DataFrame({
         "month": typed_rows["period"].dt.to_timestamp().dt.strftime("%Y-%m-%d"),
         "shop": typed_rows["series"]})], ignore_index=True)
-    typed_spec = write(tmp_path / "typed", typed)
+    typed_spec = write(tmp_path / "typed", typed, lags=LAGS[lags])
     results = []
     for spec in (added, typed_spec):
         code, out, err = run_cli(["run", str(spec)])
