@@ -105,6 +105,16 @@ def _column_lines(found: Inference) -> list[str]:
     return lines
 
 
+def _forecast_lines(found: Inference, months: int) -> list[str]:
+    """Return the forecast section when the file has no months to forecast: castline adds
+    them after each series' last actual (every driver is estimated then)."""
+    if found.future_rows:
+        return []
+    return ["# The file has no months to forecast: castline adds this many after each series' last",
+            "# actual (a driver you mark 'future: given' then needs its values in the file).",
+            "forecast:", f"  months: {months}", ""]
+
+
 def _validation_lines(history: int, horizon: int) -> list[str]:
     """Return the validation section: rolling origins when the history allows a test (a
     first window of two years or more, then MIN_ORIGINS origins or more), else a holdout."""
@@ -166,6 +176,7 @@ def render_spec(found: Inference, spec_path: Path) -> str:
         "",
         *_validation_lines(found.history_periods, holdout),
         "",
+        *_forecast_lines(found, holdout),
         "models: [ols]               # the mean of the training months is always fitted beside them",
         "",
         "output:",

@@ -81,6 +81,7 @@ def problem_lines(out: str) -> list[str]:
 def checked_months(spec_path) -> list[str]:
     data = pipeline.check(pipeline.load_spec(spec_path))
     rows = pd.concat([data.history, data.future]).sort_values(ROW)
+    rows = rows[rows[ROW].notna()]   # the file's rows, not the months forecast.months adds
     return [str(p) for p in rows[PERIOD]]
 
 
