@@ -19,13 +19,14 @@ from datetime import date
 
 import numpy as np
 import pandas as pd
-import pandera.pandas as pa
 
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
+from pipeline.core.schema_library import pandera_pandas
 from pipeline.spec import ColumnRule, Spec, column_roles
 from pipeline.stages.ingest import RawInput
 
+pa = pandera_pandas()
 ALL_SERIES = "all"
 PROBLEM_COLUMNS = ["check", "column", "row", "value", "count"]
 
