@@ -19,8 +19,9 @@ def pandera_pandas() -> ModuleType:
         return pandera.pandas
     sys.modules["hypothesis"] = None   # an import of it raises ImportError, as if not installed
     try:
+        # the strategies load at the first validation otherwise: load them here, without it
         import pandera.pandas
-        import pandera.strategies.pandas_strategies   # loaded by the first validation otherwise
+        import pandera.strategies.pandas_strategies
     finally:
         del sys.modules["hypothesis"]   # a later import of hypothesis itself works as usual
     return pandera.pandas
