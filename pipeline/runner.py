@@ -79,7 +79,7 @@ class RunResult:
     @property
     def warnings(self) -> list[str]:
         track = self.track.warnings if self.track else []
-        return (self.forecast_result.warnings + self.evaluation.ahead_notes
+        return (self.forecast_result.warnings + self.forecast_result.notes + self.evaluation.ahead_notes
                 + self.evaluation.notes + track)
 
     @property
