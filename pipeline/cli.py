@@ -15,6 +15,7 @@ from pathlib import Path
 from pipeline.core.catalogue import METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
+from pipeline.core.library_warnings import caught_warnings
 from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
@@ -103,6 +104,9 @@ def build_parser() -> argparse.ArgumentParser:
                                          "(default: the later run's recommended model)")
     compare.add_argument("--revisions", metavar="FILE", help="also write every forecast revision "
                                                              "to this CSV file")
+    for command in commands.choices.values():
+        command.add_argument("--verbose", action="store_true", help="also print the warnings of "
+                             "the libraries castline uses (pandas, matplotlib, ...), after the output")
     return parser
 
 
@@ -151,7 +155,7 @@ def _command_run(args) -> int:
         print(f"warning: {result.evaluation.interval_warning}")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
-    for note in result.evaluation.ahead_notes + result.evaluation.notes:
+    for note in result.forecast_result.notes + result.evaluation.ahead_notes + result.evaluation.notes:
         print(f"note: {note}")
     track = result.track
     for warning in track.warnings if track else []:
@@ -490,8 +494,7 @@ def _command_check(args) -> int:
     try:
         data = check(args.spec)
     except CheckFailed as failure:
-        print(f"{failure.file}: {len(failure.problems)} problem(s); rows count the header as "
-              "line 1")
+        print(f"{failure.file}: {len(failure.problems)} problem(s); rows count the header as line 1")
         _print_problems(failure.problems)
         if args.problems:
             _write_problems(args.problems, failure.problems)
@@ -501,8 +504,7 @@ def _command_check(args) -> int:
     print(f"{data.raw.path}: {len(data.raw.frame)} rows pass the checks "
           f"({len(data.history)} with actuals from {data.first_period} to {data.last_period}, "
           f"{len(data.future)} to forecast, {len(data.series_names)} series)")
-    for note in data.notes:
-        print(f"note: {note}")
+    print("".join(f"note: {note}\n" for note in data.notes), end="")
     if data.problems_allowed:
         print("allowed by the spec:")
         _print_problems(data.problems_allowed)
@@ -574,23 +576,24 @@ def main(argv: list[str] | None = None) -> int:
     handlers = {"run": _command_run, "check": _command_check, "init": _command_init,
                 "report": _command_report, "forecast": _command_forecast,
                 "history": _command_history, "compare": _command_compare}
-    try:
-        return handlers[args.command](args)
-    except UserError as mistake:   # one line per problem (a spec may have several)
-        for line in mistake.lines():
-            print(f"castline: {line}", file=sys.stderr)
-        return EXIT_USER
-    except KeyboardInterrupt:
-        print("castline: interrupted; no run folder was written", file=sys.stderr)
-        return 130
-    except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
-        sys.stdout = None
-        return EXIT_OK
-    except Exception:  # an internal error: keep the traceback for the bug report
-        traceback.print_exc()
-        print("castline: internal error (a bug in castline, not in your spec or data)",
-              file=sys.stderr)
-        return EXIT_INTERNAL
+    with caught_warnings(shown=args.verbose, stream=sys.stderr):   # the libraries': after the output
+        try:
+            return handlers[args.command](args)
+        except UserError as mistake:   # one line per problem (a spec may have several)
+            for line in mistake.lines():
+                print(f"castline: {line}", file=sys.stderr)
+            return EXIT_USER
+        except KeyboardInterrupt:
+            print("castline: interrupted; no run folder was written", file=sys.stderr)
+            return 130
+        except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
+            sys.stdout = None
+            return EXIT_OK
+        except Exception:  # an internal error: keep the traceback for the bug report
+            traceback.print_exc()
+            print("castline: internal error (a bug in castline, not in your spec or data)",
+                  file=sys.stderr)
+            return EXIT_INTERNAL
 
 
 if __name__ == "__main__":

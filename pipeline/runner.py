@@ -5,25 +5,48 @@ from __future__ import annotations
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-
-import pandas as pd
+from typing import TYPE_CHECKING
 
 from pipeline.core.errors import DataError, UserError
-from pipeline.core.execution import executor_for
 from pipeline.core.progress import QUIET, Progress
-from pipeline.present.pages import render_pages
-from pipeline.present.starter_spec import render_spec
-from pipeline.record.new_file import write_new_file
-from pipeline.record.run_folder import RunFolder, publish
-from pipeline.review.track_record import TrackRecord, track_record
 from pipeline.spec import CsvOptions, Spec, load_spec
-from pipeline.stages.backtest import BacktestResult, plan_splits, run_backtest
-from pipeline.stages.check import CheckedData, check_data
-from pipeline.stages.evaluate import Evaluation, evaluate
-from pipeline.stages.forecast import ForecastResult, make_forecast
-from pipeline.stages.ingest import read_input
-from pipeline.stages.splits import settle_validation
-from pipeline.stages.survey import Inference, infer
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from pipeline.record.run_folder import RunFolder
+    from pipeline.review.track_record import TrackRecord
+    from pipeline.stages.backtest import BacktestResult
+    from pipeline.stages.check import CheckedData
+    from pipeline.stages.evaluate import Evaluation
+    from pipeline.stages.forecast import ForecastResult
+    from pipeline.stages.survey import Inference
+
+# The functions each command calls, by the module that holds them. They load on first use,
+# so 'castline check' never imports the models (scikit-learn, scipy's statistics), the
+# pictures (matplotlib) or the pages; each becomes an attribute of this module once
+# loaded, so a name set here beforehand (a test's stand-in) is the one used.
+_STAGES = {"read_input": "pipeline.stages.ingest", "check_data": "pipeline.stages.check",
+           "plan_splits": "pipeline.stages.splits", "settle_validation": "pipeline.stages.splits",
+           "run_backtest": "pipeline.stages.backtest",
+           "evaluate": "pipeline.stages.evaluate", "make_forecast": "pipeline.stages.forecast",
+           "executor_for": "pipeline.core.execution", "track_record": "pipeline.review.track_record",
+           "publish": "pipeline.record.run_folder", "render_pages": "pipeline.present.pages",
+           "infer": "pipeline.stages.survey", "render_spec": "pipeline.present.starter_spec",
+           "write_new_file": "pipeline.record.new_file"}
+
+
+def __getattr__(name: str):
+    if name in _STAGES:
+        from importlib import import_module
+        globals()[name] = getattr(import_module(_STAGES[name]), name)
+        return globals()[name]
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def _stages(*names: str) -> list:
+    """Return the named stage functions, loading their modules on first use."""
+    return [globals()[name] if name in globals() else __getattr__(name) for name in names]
 
 
 @dataclass(frozen=True)
@@ -57,12 +80,13 @@ class RunResult:
     @property
     def warnings(self) -> list[str]:
         track = self.track.warnings if self.track else []
-        return (self.forecast_result.warnings + self.evaluation.ahead_notes
+        return (self.forecast_result.warnings + self.forecast_result.notes + self.evaluation.ahead_notes
                 + self.evaluation.notes + track)
 
     @property
     def realised(self) -> pd.DataFrame:
         """Return the earlier forecasts whose months have actuals in this run's data, scored."""
+        import pandas as pd
         return self.track.realised if self.track else pd.DataFrame()
 
 
@@ -75,6 +99,8 @@ def check(spec_or_path: Spec | str | Path) -> CheckedData:
 
     Writes nothing.
     """
+    read_input, check_data, settle_validation, plan_splits = _stages(
+        "read_input", "check_data", "settle_validation", "plan_splits")
     spec = _as_spec(spec_or_path)
     with _data_file_named(spec):
         data = check_data(spec, read_input(spec))
@@ -95,6 +121,16 @@ def _data_file_named(spec: Spec):
         raise
 
 
+@contextmanager
+def _one_blas_thread():
+    """Run the fits' linear algebra on one BLAS thread: castline's matrices (tens of columns)
+    are too small for threads to pay for waking each other (a 13 × 13 triangular solve took
+    0.02 ms on one and up to 20 ms on two on a busy machine). Worker processes set their own."""
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(limits=1, user_api="blas"):
+        yield
+
+
 def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = None,
         progress: Progress = QUIET) -> RunResult:
     """Run the whole forecast a spec describes and return every table it produced.
@@ -102,8 +138,12 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     The per-series fits run where the spec's ``compute`` section says; the backtest and
     the forecast report how far they have got to ``progress`` (by default, nowhere).
     """
+    (read_input, check_data, settle_validation, run_backtest, evaluate, make_forecast, executor_for,
+     track_record, publish, render_pages) = _stages(
+        "read_input", "check_data", "settle_validation", "run_backtest", "evaluate", "make_forecast",
+        "executor_for", "track_record", "publish", "render_pages")
     spec = _as_spec(spec_or_path)
-    with _data_file_named(spec), executor_for(spec.compute, spec) as executor:
+    with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
         data = check_data(spec, read_input(spec))
         spec, notes = settle_validation(spec, data)
         data = data.with_notes(notes)
@@ -126,6 +166,7 @@ def init(data_file: str | Path, spec_file: str | Path | None = None, *,
     Raises DataError when the data file is missing or unreadable, UserError when the spec
     file exists already or cannot be written.
     """
+    infer, render_spec, write_new_file = _stages("infer", "render_spec", "write_new_file")
     data_path = Path(data_file)
     if not data_path.exists():
         raise DataError("no such data file", file=str(data_path))

@@ -398,3 +398,59 @@ def test_a_console_table_without_a_missing_value_has_no_footnote(capsys):
     from pipeline.cli import _print_table
     _print_table([{"model": "ols", "p_value": 0.5}], ["model", "p_value"])
     assert capsys.readouterr().out.splitlines() == ["model  p", "OLS    0.50"]
+
+
+# ---------------------------------------------------------------- quick commands, notes and warnings
+
+def test_check_loads_no_models_pictures_or_cluster(tmp_path):
+    # castline check needs the spec, pandas and pandera only: scikit-learn, statsmodels,
+    # matplotlib and dask (and hypothesis, which pandera would load) are never imported.
+    demo_copy(tmp_path)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])))
+    heavy = {"sklearn", "statsmodels", "matplotlib", "dask", "hypothesis"}
+    program = ("import sys; from pipeline.cli import main; code = main(['check', sys.argv[1]]); "
+               f"print(sorted({{m.split('.')[0] for m in sys.modules if m.split('.')[0] in {sorted(heavy)}}})); "
+               "sys.exit(code)")
+    done = subprocess.run([sys.executable, "-c", program, str(SPEC)], cwd=tmp_path, env=env,
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "rows pass the checks" in done.stdout
+    assert done.stdout.splitlines()[-1] == "[]", done.stdout
+
+
+def _warning_first(stage):
+    """Return the stage, first raising a RuntimeWarning inside numpy as a library would."""
+    import numpy as np
+
+    def warned(*args, **kwargs):
+        np.log(np.array([-1.0]))   # numpy: RuntimeWarning, invalid value encountered in log
+        return stage(*args, **kwargs)
+    return warned
+
+
+def test_a_log_target_run_notes_the_smearing_and_hides_library_warnings(tmp_path, monkeypatch, capsys):
+    import pipeline.runner as runner
+    demo_copy(tmp_path)
+    edit_spec(tmp_path, "target_transform: none", "target_transform: log")
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setattr(runner, "evaluate", _warning_first(runner.evaluate))
+    code, out, err = call_main(["run", str(SPEC)], capsys)
+    assert code == 0, err
+    smearing = [line for line in out.splitlines() if "smearing" in line]
+    assert smearing and all(line.startswith("note: ols: fitted on log(bags_sold)") for line in smearing)
+    assert not [line for line in out.splitlines() if line.startswith("warning:") and "Duan" in line]
+    assert "invalid value" not in err and "RuntimeWarning" not in err and err == "", err
+
+
+def test_verbose_shows_library_warnings_after_the_one_error_line(tmp_path, monkeypatch, capsys):
+    import pipeline.runner as runner
+    demo_copy(tmp_path)
+    edit_spec(tmp_path, "  last_periods: 12", f"  last_periods: {months_of_history()}")
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setattr(runner, "check_data", _warning_first(runner.check_data))
+    code, _, err = call_main(["run", str(SPEC), "--verbose"], capsys)
+    lines = err.splitlines()
+    assert code == 2 and lines[0].startswith("castline: ") and len(lines) == 2, err
+    assert lines[1].startswith("library warning (") and "RuntimeWarning: invalid value encountered in log" in lines[1]
+    code, _, quiet = call_main(["run", str(SPEC)], capsys)
+    assert code == 2 and quiet.splitlines() == lines[:1]

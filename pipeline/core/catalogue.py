@@ -158,6 +158,8 @@ COLUMN_LABELS = {
     "run_id": "run id",
     "last_period": "last actual month", "mae_change": "MAE change", "rmse_change": "RMSE change",
     f"{SKILL}_change": "skill change", "statistic": "test statistic",
+    "vif": "VIF (generalised for a group of terms)", "vif_adjusted": "GVIF^(1/(2·df))",
+    "df": "degrees of freedom",
 }
 
 

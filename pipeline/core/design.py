@@ -24,6 +24,8 @@ class Design:
     # design); the names may include series that have no row here.
     series_codes: np.ndarray | None = None
     series_names: np.ndarray | None = None
+    # Each column's group of terms (a driver's levels or powers, a calendar block), by its label
+    term_groups: tuple[str, ...] | None = None
 
     def rows(self, positions) -> Design:
         """Return the design of some of its rows (positions or a slice), notes kept."""
@@ -31,13 +33,13 @@ class Design:
                       None if self.period is None else self.period[positions], self.notes,
                       self.series_level,
                       None if self.series_codes is None else self.series_codes[positions],
-                      self.series_names)
+                      self.series_names, self.term_groups)
 
     def with_series_codes(self) -> Design:
         """Return the design with its series factorised once, for windows to share."""
         codes, names = series_index(self)
         return Design(self.matrix, self.names, self.series, self.period, self.notes,
-                      self.series_level, codes, names)
+                      self.series_level, codes, names, self.term_groups)
 
 
 def series_index(design) -> tuple[np.ndarray, np.ndarray]:

@@ -70,9 +70,11 @@ class _LevelEncoder:
 
     def notes(self, frame: pd.DataFrame) -> list[str]:
         """Return a warning for each level met here that the training rows did not hold."""
+        if self.unseen != "use_reference":   # an unseen level stops the run before any note
+            return []
         values = frame[self.column].astype(str)
         unseen = ~values.isin(self.known_levels_) & ~values.isin(self.grouped_)
-        if self.unseen != "use_reference" or not unseen.any():
+        if not unseen.any():
             return []
         levels = ", ".join(f"'{level}'" for level in sorted(values[unseen].unique()))
         return [f"{self.column}: level {levels} was not in the training rows; "

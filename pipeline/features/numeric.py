@@ -119,8 +119,10 @@ class NumericTerms:
 
     def notes(self, frame: pd.DataFrame) -> list[str]:
         """Return what the design should say about rows that were filled."""
+        if self.missing == "refuse":   # nothing was filled: the check refused empty cells
+            return []
         missing = frame[self.column].isna().to_numpy()
-        if self.missing == "refuse" or not missing.any():
+        if not missing.any():
             return []
         marked = (f", marked by '{self.column} was missing'" if self.marks_missing_ else
                   " (the training window had a value in every row, so no was-missing column)")

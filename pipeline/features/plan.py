@@ -330,7 +330,8 @@ class FeaturePlan:
             for part in self.parts_]) if self.parts_ else np.zeros(0, bool)
         return Design(matrix=matrix, names=self.get_feature_names_out(),
                       series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes),
-                      series_level=series_level)
+                      series_level=series_level,
+                      term_groups=tuple(label for part in self.parts_ for label in term_group_labels(part)))
 
     def transform(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> Design:
         """Return the design of rows to predict; stop if one of their lags is unavailable."""
@@ -453,6 +454,27 @@ class FeaturePlan:
         if [id(part) for part in [*plan.row_parts_, *plan.lag_parts_]] != [id(part) for part in parts]:
             raise ModelFileError("the plan's features are not its parts, each once, in order")
         return plan
+
+
+def term_group_labels(part) -> list[str]:
+    """Return the label of the group of terms each of a part's columns belongs to, for the
+    generalised VIF: a driver's columns (its levels, its powers) are one group, named by the
+    driver; a calendar block, the series' levels and each driver's slopes per series one
+    each; a lag, a single term, is its own."""
+    names = part.get_feature_names_out()
+    if isinstance(part, SeriesTerms):
+        levels = len(part.levels_)
+        return ["series"] * (levels if part.intercepts else 0) + [
+            f"{slope.column} × series" for slope in part.slopes for _ in range(levels)]
+    if isinstance(part, LagFeatures | TrendTerm | WorkingDays) or len(names) == 1:
+        return names
+    if isinstance(part, FourierTerms):
+        return ["month of year (sine and cosine)"] * len(names)
+    if isinstance(part, MonthDummies | QuarterDummies):
+        return [f"{part.word} of year"] * len(names)
+    if isinstance(part, InteractionTerms):
+        return [f"{part.first.column} × {part.second.column}"] * len(names)
+    return [part.column] * len(names)
 
 
 def plan_features(spec: Spec, series_column: str) -> FeaturePlan:

@@ -20,9 +20,17 @@ from pipeline.models.baselines import (
 )
 from pipeline.models.contract import Model
 from pipeline.models.ols import OLSModel, least_squares
-from pipeline.models.penalised import HuberModel, PenalisedModel
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
+
+
+def __getattr__(name: str):
+    # The penalised fits load scikit-learn: only when a spec asks for one (the catalogue
+    # names their classes, so make_model imports them on first use too).
+    if name in ("HuberModel", "PenalisedModel"):
+        from pipeline.models import penalised
+        return getattr(penalised, name)
+    raise AttributeError(f"module 'pipeline.models' has no attribute {name!r}")
 
 
 def make_model(choice, *, intercept: bool = True, target=None, executor: Executor = IN_PROCESS,

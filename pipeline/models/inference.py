@@ -143,18 +143,42 @@ def jarque_bera(residuals: np.ndarray) -> tuple[float, float]:
     return statistic, float(scipy.stats.chi2.sf(statistic, 2))
 
 
-def variance_inflation(matrix: np.ndarray, names: list[str]) -> pd.DataFrame:
-    """Return each driver's VIF, 1 / (1 − R²) of it regressed on the other columns."""
-    rows = []
+VIF_LIMIT = 10   # common practice; a group of terms is held to it by GVIF^(1/df)
+
+
+def variance_inflation(matrix: np.ndarray, names: list[str],
+                       groups: dict[str, str] | None = None) -> pd.DataFrame:
+    """Return the VIF of each group of terms: the generalised VIF (Fox & Monette 1992).
+
+    GVIF = det(R11)·det(R22) / det(R), R the correlation matrix of the columns other than
+    the intercept (uncentred, cosines, without one), R11 the group's block and R22 the
+    others'; for a single column it is the ordinary VIF, 1 / (1 − R²) of it regressed on the
+    others. ``groups`` names each column's group (a column not named is a group of its
+    own); ``vif_adjusted`` = GVIF^(1/(2·df)) compares groups of different sizes (√VIF for one
+    column). One correlation matrix and log-determinants, no regression per column.
+    """
     has_intercept = INTERCEPT in names
-    for j, name in enumerate(names):
-        if name == INTERCEPT:
-            continue
-        others = np.delete(matrix, j, axis=1)
-        fit = least_squares(others, matrix[:, j], centered_r2=has_intercept)
-        vif = 1.0 / (1.0 - fit.r2) if fit.r2 < 1 else float("inf")
-        rows.append({"term": name, "vif": vif})
-    return pd.DataFrame(rows, columns=["term", "vif"])
+    columns = [j for j, name in enumerate(names) if name != INTERCEPT]
+    labels = [(groups or {}).get(names[j], names[j]) for j in columns]
+    order = list(dict.fromkeys(labels))
+    x = np.asarray(matrix, float)[:, columns]
+    if has_intercept:
+        x = x - x.mean(axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = x / np.sqrt(np.einsum("ij,ij->j", x, x))
+    correlation = x.T @ x
+    sign, whole = np.linalg.slogdet(correlation)
+    rows = []
+    for label in order:
+        inside = np.array([lab == label for lab in labels])
+        sign_in, log_in = np.linalg.slogdet(correlation[np.ix_(inside, inside)])
+        sign_out, log_out = np.linalg.slogdet(correlation[np.ix_(~inside, ~inside)])
+        gvif = (float(np.exp(log_in + log_out - whole)) if sign > 0 and sign_in > 0 and sign_out > 0
+                else float("inf"))
+        df = int(inside.sum())
+        rows.append({"term": label, "df": df, "vif": gvif, "vif_adjusted": gvif ** (1 / (2 * df)),
+                     "columns": "; ".join(names[j] for j, lab in zip(columns, labels) if lab == label)})
+    return pd.DataFrame(rows, columns=["term", "df", "vif", "vif_adjusted", "columns"])
 
 
 def cooks_distance(fit: LeastSquaresFit) -> np.ndarray:
@@ -182,8 +206,10 @@ def f_test(fit: LeastSquaresFit) -> tuple[float, float]:
 
 
 def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=None,
-             row_labels=None, influential_count: int = 5) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
-    """Return the diagnostics of a fit, the VIF table and the most influential rows."""
+             row_labels=None, influential_count: int = 5,
+             term_groups: dict[str, str] | None = None) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
+    """Return the diagnostics of a fit, the VIF table (per group of terms, ``term_groups``
+    naming each column's group) and the most influential rows."""
     x = np.asarray(matrix, float)
     names = fit.names
     n = len(fit.residuals)
@@ -230,11 +256,14 @@ def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=Non
                             "≤ 30 (Belsley, Kuh & Welsch 1980)", bool(fit.condition_number > 30),
                             "the drivers are close to collinear: coefficients are unstable"
                             if fit.condition_number > 30 else "the drivers are not close to collinear"))
-    vif = variance_inflation(x[:, fit.kept], [names[i] for i in fit.kept])
-    high = vif[vif["vif"] > 10]
-    findings.append(Finding("largest VIF", float(vif["vif"].max()) if len(vif) else np.nan, np.nan,
-                            "≤ 10 (common practice)", bool(len(high)),
-                            f"{', '.join(high['term'])} overlap with the other drivers" if len(high)
+    vif = variance_inflation(x[:, fit.kept], [names[i] for i in fit.kept], term_groups)
+    per_df = vif["vif_adjusted"] ** 2   # GVIF^(1/df): the VIF itself for a single column
+    high = vif[per_df > VIF_LIMIT]
+    findings.append(Finding("largest VIF", float(per_df.max()) if len(vif) else np.nan, np.nan,
+                            f"≤ {VIF_LIMIT} (common practice; a group of terms by GVIF^(1/df), "
+                            "Fox & Monette 1992)", bool(len(high)),
+                            f"{', '.join(_group_words(row) for row in high.itertuples())} overlap with "
+                            "the other drivers" if len(high)
                             else "no driver is largely explained by the others"))
     cooks = cooks_distance(fit)
     threshold = 4 / n
@@ -248,6 +277,10 @@ def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=Non
                             f"{above} row(s) pull the fit strongly; see the most influential rows"
                             if above else "no single row pulls the fit strongly"))
     return findings, vif, influential
+
+
+def _group_words(row) -> str:
+    return row.term if row.df == 1 else f"{row.term} ({row.df} terms)"
 
 
 def findings_table(findings: list[Finding]) -> pd.DataFrame:

@@ -139,7 +139,7 @@ def _metrics_document(spec: Spec, data: CheckedData, evaluation: Evaluation, for
         "package_versions": package_versions(),
         "recommended": evaluation.recommended, "verdict": evaluation.verdict,
         "models": _records(evaluation.table), "fit": _records(forecast.fit_summary),
-        "notes": forecast.warnings + evaluation.notes,
+        "notes": forecast.warnings + forecast.notes + evaluation.notes,
         "by_origin": _records(evaluation.by_origin),
         "by_horizon": _records(evaluation.by_horizon),
         # Per series, the metrics are in series.csv (at thousands of series they would make

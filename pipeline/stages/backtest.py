@@ -17,19 +17,17 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
-from pipeline.features.future import ahead_words, require_a_year
-from pipeline.features.plan import plan_features
+from pipeline.features.future import ahead_words
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
 from pipeline.stages.check import CheckedData
 from pipeline.stages.multistep import needs_strategy, predict_ahead
-from pipeline.stages.splits import Split, sorted_by_month, validation_splits
+from pipeline.stages.splits import Split, plan_splits, sorted_by_month
 
 # prediction_se, df_resid and centre: the standard error of a prediction, its residual df and
 # the prediction they go with, on the scale the model fits (centre equals prediction without a
@@ -202,15 +200,6 @@ def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None
     })
 
 
-def _check_rows(spec: Spec, split: Split, terms: int) -> None:
-    linear = [k for k in spec.model_kinds if k in LINEAR_KINDS]
-    if linear and len(split.train) <= terms:
-        key = ("validation", "last_periods" if spec.validation.method == "holdout" else
-               "min_train_periods" if spec.validation.method == "rolling_origin" else "folds")
-        raise spec.error(key, f"the training window ending {split.label} has {len(split.train)} rows, "
-                              f"too few for the {terms} terms of the linear models")
-
-
 def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
     """Return the OLS predictions (with their standard errors, residual df and centre: None,
     the predictions themselves, as this path runs only without a target transform) of every
@@ -254,21 +243,6 @@ def _design_rows(shared, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
             (np.diff(positions) == 1).all():
         positions = slice(int(positions[0]), int(positions[-1]) + 1)
     return design.rows(positions), y[positions]
-
-
-def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
-    """Return the validation splits, the longest horizon and each split's fitted feature plan.
-
-    Raises SpecError when the validation scheme does not fit the data.
-    """
-    splits, horizon = validation_splits(spec, data)
-    if spec.estimated_columns and splits and splits[0].origin is not None:
-        months, label = min((split.train[PERIOD].nunique(), split.label) for split in splits)
-        require_a_year(spec, int(months), f"the training window ending {label}")
-    plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
-    for split, plan in zip(splits, plans):
-        _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
-    return splits, horizon, plans
 
 
 class _WindowDesigns:

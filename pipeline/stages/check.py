@@ -20,10 +20,10 @@ from datetime import date
 
 import numpy as np
 import pandas as pd
-import pandera.pandas as pa
 
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
+from pipeline.core.schema_library import pandera_pandas
 from pipeline.spec import ColumnRule, Spec, column_roles
 from pipeline.stages.dates import (
     first_unparsed_date,
@@ -43,6 +43,7 @@ from pipeline.stages.months_ahead import (
 )
 from pipeline.stages.problems import PROBLEM_COLUMNS, Problem, problems_table  # noqa: F401 (re-exported)
 
+pa = pandera_pandas()
 ALL_SERIES = "all"
 
 

@@ -59,6 +59,8 @@ class ForecastResult:
     influential: pd.DataFrame = field(default_factory=pd.DataFrame)
     scenarios: pd.DataFrame = field(default_factory=pd.DataFrame)
     warnings: list[str] = field(default_factory=list)
+    # What the run says about a final fit that asks nothing of the user (a retransformation)
+    notes: list[str] = field(default_factory=list)
     residuals: pd.DataFrame = field(default_factory=pd.DataFrame)  # final OLS fit, per history row
     plan: object = None               # the feature plan fitted on all history
     fitted: dict = field(default_factory=dict)   # model name → model fitted on all history
@@ -214,7 +216,8 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
     terms["standard_errors"] = spec.standard_errors
     findings, vif, influential = diagnose(
         fit, matrix, groups=design.series, order=design.period,
-        row_labels=_row_labels(data.history, design))
+        row_labels=_row_labels(data.history, design),
+        term_groups=dict(zip(design.names, design.term_groups)) if design.term_groups else None)
     diagnostics = findings_table(findings)
     residuals = pd.DataFrame({
         "period": pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str),
@@ -246,12 +249,9 @@ def _other_terms(spec: Spec, choice, model, kind: str) -> tuple[pd.DataFrame, li
 
 
 def _fit_notes(choice, model, kind: str) -> tuple[list[str], pd.DataFrame | None]:
-    """Return what the run should say about a model's final fit, and the series a model per
-    series fitted by their own mean (or None)."""
+    """Return what the run should warn of about a model's final fit, and the series a model
+    per series fitted by their own mean (or None); its description is a note, not a warning."""
     notes = []
-    described = model.describe()
-    if described:
-        notes.append(f"{kind}: {described}")
     inner = model.inner
     if not choice.per_series:
         return notes, None
@@ -316,7 +316,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
     stepwise = len(future) > 0 and needs_strategy(spec, int(horizons.max()))
     predict = _Predictor(spec, data, plan, stepwise, executor=executor, progress=progress)
     forecasts, coefficients, summaries = [], [], []
-    warnings = [*history_design.notes]
+    warnings, fit_notes = [*history_design.notes], []
     if plan.future_ is not None and len(future):
         warnings += plan.future_.notes(given, given_ignored=True, every_row=True)
         warnings += plan.estimated_lag_notes(int(horizons.max()))
@@ -340,6 +340,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         fitted[kind] = model
         notes, fell_back = _fit_notes(choice, model, kind)
         warnings += notes
+        fit_notes += [f"{kind}: {described}" for described in [model.describe()] if described]
         if fell_back is not None:
             fallbacks.append(fell_back)
         errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)
@@ -370,7 +371,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         diagnostics=report.diagnostics if report else empty, vif=report.vif if report else empty,
         influential=report.influential if report else empty,
         scenarios=pd.concat(scenario_rows, ignore_index=True) if scenario_rows else pd.DataFrame(),
-        warnings=warnings, residuals=report.residuals if report else empty, plan=plan, fitted=fitted,
+        warnings=warnings, notes=fit_notes, residuals=report.residuals if report else empty, plan=plan, fitted=fitted,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]),
         interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,

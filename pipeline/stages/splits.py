@@ -15,9 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import GroupKFold, KFold
 
+from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.features.future import require_a_year
+from pipeline.features.plan import plan_features
 from pipeline.spec import Spec
 from pipeline.stages.check import CheckedData
 
@@ -186,6 +188,8 @@ def sorted_by_month(history: pd.DataFrame) -> pd.DataFrame:
 
 
 def fold_splits(spec: Spec, data: CheckedData) -> list[Split]:
+    # scikit-learn loads only for the k-fold schemes (never in 'castline check' of the others)
+    from sklearn.model_selection import GroupKFold, KFold
     validation = spec.validation
     history = data.history.reset_index(drop=True)
     if validation.method == "kfold":
@@ -217,6 +221,30 @@ def validation_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
     if spec.validation.method in ("holdout", "rolling_origin"):
         return time_splits(spec, data)
     return fold_splits(spec, data), 0
+
+
+def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
+    """Return the validation splits, the longest horizon and each split's fitted feature plan.
+
+    Raises SpecError when the validation scheme does not fit the data.
+    """
+    splits, horizon = validation_splits(spec, data)
+    if spec.estimated_columns and splits and splits[0].origin is not None:
+        months, label = min((split.train[PERIOD].nunique(), split.label) for split in splits)
+        require_a_year(spec, int(months), f"the training window ending {label}")
+    plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
+    for split, plan in zip(splits, plans):
+        _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
+    return splits, horizon, plans
+
+
+def _check_rows(spec: Spec, split: Split, terms: int) -> None:
+    linear = [k for k in spec.model_kinds if k in LINEAR_KINDS]
+    if linear and len(split.train) <= terms:
+        key = ("validation", "last_periods" if spec.validation.method == "holdout" else
+               "min_train_periods" if spec.validation.method == "rolling_origin" else "folds")
+        raise spec.error(key, f"the training window ending {split.label} has {len(split.train)} rows, "
+                              f"too few for the {terms} terms of the linear models")
 
 
 # Without validation.min_train_periods the first training window has this many months,

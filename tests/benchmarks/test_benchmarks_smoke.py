@@ -34,6 +34,14 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"ratio\s+{NUMBER} x\s+\(target < 3x: (met|NOT met)\)"],
     ),
     # 12 origins at horizon 3 need at least 16 months; 30 leaves a year for the seasonal naive.
+    # The demo's check and run once each; a panel of 3 series x 40 months under cProfile.
+    "bench_small.py": (
+        ["--repeats", "1", "--panel-series", "3", "--panel-months", "40"],
+        [rf"bare python -c 'import pandas, numpy'\s+{NUMBER} s",
+         rf"castline check \(demo\)\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(target <= 1\.5 s: (met|MISSED)\)",
+         rf"castline run \(demo\)\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(target <= 3\.0 s: (met|MISSED)\)",
+         rf"diagnostics {NUMBER} s = {NUMBER}% of it, of which VIF {NUMBER} s \(target <= 10%: (met|MISSED)\)"],
+    ),
     "bench_many_series.py": (
         ["--series", "10", "--months", "30", "--drivers", "2"],
         [rf"ratio \(b\)/\(a\) = {NUMBER}x faster than the statsmodels loop with baselines "

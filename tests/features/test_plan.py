@@ -196,3 +196,24 @@ def test_a_term_too_large_to_fit_stops_with_its_name_and_row(tmp_path):
         pipeline.run(tmp_path / "spec.yaml", output_folder=tmp_path / "out")
     message = str(stopped.value)
     assert "big.csv:7:" in message and "'rainfall_mm^3'" in message and "too large to fit" in message
+
+
+# ------------------------------------------------------------------ groups of terms
+
+def test_the_design_names_each_columns_group_of_terms():
+    # The generalised VIF (models/inference.py) takes a driver's columns as one group.
+    drivers = {**LEAKAGE_DRIVERS, "series_effects": {"intercepts": True, "slopes": ["price"]}}
+    plan = plan_features(make_spec(drivers), SERIES).fit(make_panel(months=30, seed=11))
+    design, _ = plan.training_design(make_panel(months=30, seed=11))
+    groups = dict(zip(design.names, design.term_groups, strict=True))
+    assert len(design.term_groups) == len(design.names)
+    assert groups["standardised price"] == groups["(standardised price)^2"] == "price"
+    assert groups["region: North"] == groups["region: West"] == "region"
+    fourier = [name for name in design.names if name.startswith(("sin(", "cos("))]
+    assert len(fourier) == 4 and {groups[name] for name in fourier} == {"month of year (sine and cosine)"}
+    assert {groups[name] for name in design.names if " × region: " in name} == {"price × region"}
+    assert groups["standardised price × series: West"] == "price × series"
+    assert groups["log(1 + temp)"] == "log(1 + temp)"   # a single column is a group by its name
+    lags = [name for name in design.names if name.startswith("sales, ")]
+    assert lags and all(groups[name] == name for name in lags)    # each lag its own term
+    assert design.rows(slice(0, 5)).term_groups == design.term_groups

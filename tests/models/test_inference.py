@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
-from statsmodels.datasets import macrodata
+from statsmodels.datasets import grunfeld, macrodata
 from statsmodels.stats.diagnostic import acorr_ljungbox, het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflation_factor
 from statsmodels.stats.stattools import durbin_watson as sm_durbin_watson
@@ -165,8 +165,78 @@ def test_jarque_bera_equals_statsmodels():
 def test_variance_inflation_equals_statsmodels():
     table = inference.variance_inflation(X, NAMES)
     assert list(table["term"]) == NAMES[1:]
+    assert list(table["df"]) == [1, 1, 1, 1]
     # statsmodels.stats.outliers_influence.variance_inflation_factor on the design with its constant.
-    _close(table["vif"], [variance_inflation_factor(X, j) for j in range(1, X.shape[1])])
+    reference = [variance_inflation_factor(X, j) for j in range(1, X.shape[1])]
+    _close(table["vif"], reference)
+    _close(table["vif_adjusted"], np.sqrt(reference))    # GVIF^(1/(2·1)) = √VIF
+
+
+def test_variance_inflation_without_an_intercept_equals_statsmodels():
+    # statsmodels' variance_inflation_factor with standardize=False regresses a column on the
+    # others as given: without a constant among them, on the uncentred R² (the design's
+    # cosines, not its correlations), as a fit without an intercept is judged.
+    table = inference.variance_inflation(X[:, 1:], NAMES[1:])
+    _close(table["vif"], [variance_inflation_factor(X[:, 1:], j, standardize=False)
+                          for j in range(X.shape[1] - 1)])
+
+
+def _grunfeld_design() -> tuple[np.ndarray, list[str], dict[str, str]]:
+    """Grunfeld's investment data (statsmodels.datasets.grunfeld, 11 firms × 20 years): an
+    intercept, firm value, capital stock, the year, and the firms one-hot (General Motors the
+    reference)."""
+    data = grunfeld.load_pandas().data
+    firms = sorted(set(data["firm"]) - {"General Motors"})
+    dummies = [(data["firm"] == firm).to_numpy(float) for firm in firms]
+    x = np.column_stack([np.ones(len(data)), data["value"], data["capital"], data["year"], *dummies])
+    names = [INTERCEPT, "value", "capital", "year", *[f"firm: {firm}" for firm in firms]]
+    return x, names, {f"firm: {firm}": "firm" for firm in firms}
+
+
+def _gvif_by_definition(x: np.ndarray, block: list[int]) -> float:
+    """det(R11)·det(R22) / det(R) (Fox & Monette 1992, eq. 10), R from numpy's corrcoef."""
+    r = np.corrcoef(x, rowvar=False)
+    rest = [j for j in range(r.shape[0]) if j not in block]
+    return float(np.linalg.det(r[np.ix_(block, block)]) * np.linalg.det(r[np.ix_(rest, rest)])
+                 / np.linalg.det(r))
+
+
+def test_generalised_vif_of_a_block_equals_its_definition():
+    x, names, groups = _grunfeld_design()
+    table = inference.variance_inflation(x, names, groups).set_index("term")
+    assert list(table.index) == ["value", "capital", "year", "firm"]
+    assert table.loc["firm", "df"] == 10 and table.loc["value", "df"] == 1
+    slopes = x[:, 1:]
+    firm = list(range(3, slopes.shape[1]))
+    _close(table.loc["firm", "vif"], _gvif_by_definition(slopes, firm))
+    _close(table.loc["firm", "vif_adjusted"], _gvif_by_definition(slopes, firm) ** (1 / 20))
+    # Beside a block, a single column's GVIF is still its VIF (statsmodels, with the constant).
+    _close(table.loc["value", "vif"], variance_inflation_factor(x, 1))
+    _close(table.loc["year", "vif"], _gvif_by_definition(slopes, [2]))
+
+
+def test_a_block_of_one_column_per_group_is_the_plain_vif():
+    x, names, _ = _grunfeld_design()
+    plain = inference.variance_inflation(x, names)
+    _close(plain["vif"], [variance_inflation_factor(x, j) for j in range(1, x.shape[1])])
+
+
+def test_the_largest_vif_holds_a_group_to_the_limit_by_gvif_per_df():
+    # The Fourier block of one harmonic: sin and cos are uncorrelated over whole years, and a
+    # column that is nearly their sum is largely explained by them.
+    month = np.arange(120) % 12 + 1
+    rng = np.random.default_rng(3)
+    sin, cos = np.sin(2 * np.pi * month / 12), np.cos(2 * np.pi * month / 12)
+    near = sin + cos + rng.normal(0, 0.05, 120)
+    x = np.column_stack([np.ones(120), sin, cos, near, rng.normal(size=120)])
+    y = x @ [1.0, 2.0, -1.0, 0.5, 0.3] + rng.normal(size=120)
+    names = [INTERCEPT, "sin(2π·month/12)", "cos(2π·month/12)", "near", "noise"]
+    groups = {"sin(2π·month/12)": "month of year", "cos(2π·month/12)": "month of year"}
+    findings, vif, _ = inference.diagnose(least_squares(x, y, names), x, term_groups=groups)
+    largest = {f.check: f for f in findings}["largest VIF"]
+    _close(largest.value, float((vif["vif"] ** (1 / vif["df"])).max()))
+    assert largest.flagged and "month of year (2 terms)" in largest.reading and "near" in largest.reading
+    assert "noise" not in largest.reading
 
 
 def test_cooks_distance_equals_statsmodels():

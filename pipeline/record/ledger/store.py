@@ -252,12 +252,16 @@ def period_fingerprints(data: CheckedData) -> pd.DataFrame:
     rows = pd.concat([data.history.assign(_actual=True), data.future.assign(_actual=False)],
                      ignore_index=True)
     columns = sorted(c for c in data.history.columns if c not in internal)
+    # One stable sort by month, then series, keeps each month's rows in the order a stable
+    # sort of that month by series gives; the cells are made canonical once, not per month.
+    rows = rows.sort_values([PERIOD, SERIES], kind="stable")
+    cells = [[_canonical(v) for v in row] for row in rows[columns].itertuples(index=False)]
+    periods, actuals = rows[PERIOD].to_numpy(), rows["_actual"].to_numpy(bool)
+    starts = np.flatnonzero(np.r_[True, periods[1:] != periods[:-1]]) if len(rows) else np.zeros(0, int)
     out = []
-    for period, group in rows.groupby(PERIOD, sort=True):
-        group = group.sort_values(SERIES, kind="stable")
-        cells = [[_canonical(v) for v in row] for row in group[columns].itertuples(index=False)]
-        digest = hashlib.sha256(json.dumps([columns, cells]).encode("utf-8")).hexdigest()
-        actual = int(group["_actual"].sum())
-        out.append({"period": str(period), "actual_rows": actual,
-                    "planned_rows": len(group) - actual, "sha256": digest})
+    for start, end in zip(starts, [*starts[1:], len(rows)]):
+        digest = hashlib.sha256(json.dumps([columns, cells[start:end]]).encode("utf-8")).hexdigest()
+        actual = int(actuals[start:end].sum())
+        out.append({"period": str(periods[start]), "actual_rows": actual,
+                    "planned_rows": int(end - start) - actual, "sha256": digest})
     return pd.DataFrame(out, columns=["period", "actual_rows", "planned_rows", "sha256"])
