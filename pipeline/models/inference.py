@@ -257,7 +257,7 @@ def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=Non
                             "the drivers are close to collinear: coefficients are unstable"
                             if fit.condition_number > 30 else "the drivers are not close to collinear"))
     vif = variance_inflation(x[:, fit.kept], [names[i] for i in fit.kept], term_groups)
-    per_df = vif["vif_adjusted"] ** 2   # GVIF^(1/df): the VIF itself for a single column
+    per_df = vif["vif"] ** (1 / vif["df"])   # GVIF^(1/df): the VIF itself for a single column
     high = vif[per_df > VIF_LIMIT]
     findings.append(Finding("largest VIF", float(per_df.max()) if len(vif) else np.nan, np.nan,
                             f"≤ {VIF_LIMIT} (common practice; a group of terms by GVIF^(1/df), "
