@@ -122,14 +122,15 @@ class FutureEstimates:
                         for column, rule in self.rules.items()}
         return self
 
-    def after_origin(self, frame: pd.DataFrame, every_row: bool = False) -> np.ndarray:
-        """Return which rows fall after the window's last month (``every_row``: all rows,
-        each after its own series' last actual)."""
-        if every_row:
+    def after_origin(self, frame: pd.DataFrame, every_row: bool | np.ndarray = False) -> np.ndarray:
+        """Return which rows fall after the window's last month, or are marked by ``every_row``
+        (True: all rows; an array: those it marks), each after its own series' last actual."""
+        if every_row is True:
             return np.ones(len(frame), bool)
-        return month_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
+        later = month_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
+        return later | every_row if isinstance(every_row, np.ndarray) else later
 
-    def apply(self, frame: pd.DataFrame, *, every_row: bool = False) -> pd.DataFrame:
+    def apply(self, frame: pd.DataFrame, *, every_row: bool | np.ndarray = False) -> pd.DataFrame:
         """Return the rows with every estimated column replaced after the origin (``every_row``:
         in every row)."""
         later = self.after_origin(frame, every_row)
@@ -147,7 +148,7 @@ class FutureEstimates:
         return changed
 
     def notes(self, frame: pd.DataFrame, *, given_ignored: bool = False,
-              every_row: bool = False) -> list[str]:
+              every_row: bool | np.ndarray = False) -> list[str]:
         """Return what estimating the rows after the origin (``every_row``: all rows) did:
         estimates that fell back to a coarser rule, and (``given_ignored``) values the rows
         held that were ignored."""

@@ -153,7 +153,7 @@ class FeaturePlan:
                             if self.estimated and self.window_end_ is not None else None)
         return self
 
-    def estimate_future(self, frame: pd.DataFrame, *, every_row: bool = False) -> pd.DataFrame:
+    def estimate_future(self, frame: pd.DataFrame, *, every_row: bool | np.ndarray = False) -> pd.DataFrame:
         """Return the rows with every driver castline estimates replaced, in the months after
         the window (``every_row``: in every row, all of them to forecast), by its estimate from
         the window (see ``FutureEstimates``); the rows as they are without such drivers.

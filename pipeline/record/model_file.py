@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -43,7 +44,7 @@ from pipeline.features.rows import first_row
 from pipeline.features.target import TargetTransform
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
-from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, placed_plan
+from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, last_actuals, placed_plan
 from pipeline.stages.check import _series_labels
 
 FORMAT = "castline-model"
@@ -174,26 +175,31 @@ class StoredIntervals:
     did (``core.intervals.empirical_bounds``): per model, the bounds of its scaled backtest
     errors by months ahead and level; each series' scale from all history (the MASE scale,
     NaN or 0 where unusable); the target's transform and floor (0 for a target never below
-    zero, else None); and the last month of history, from which months ahead are counted."""
+    zero, else None); and the last month of history, from which months ahead are counted
+    (for a series that lagged behind the others, from its own last month: ``lagging``)."""
 
     def __init__(self, tables: dict[str, pd.DataFrame], series_scales: dict[str, float], transform: str,
-                 floor: float | None, last_period) -> None:
+                 floor: float | None, last_period, lagging: dict | None = None) -> None:
         self.tables = {kind: table.reset_index(drop=True) for kind, table in tables.items()}
         self.series_scales = {str(series): float(scale) for series, scale in series_scales.items()}
         self.transform = transform
         self.floor = None if floor is None else float(floor)
         self.last_period = pd.Period(last_period, freq="M")
+        self.lagging = {str(series): pd.Period(month, freq="M") for series, month in (lagging or {}).items()}
 
     @classmethod
     def from_forecast(cls, forecast) -> StoredIntervals:
         """Return what a run's ``ForecastResult`` kept of its empirical intervals."""
         return cls(forecast.interval_bounds, forecast.series_scales, forecast.transform, forecast.floor,
-                   forecast.last_period)
+                   forecast.last_period, forecast.lagging_series)
 
     def to_dict(self) -> dict:
-        """Return the fields as a model file stores them; the bounds as one object per model."""
+        """Return the fields as a model file stores them; the bounds as one object per model;
+        the series that lagged by their last month, only when some did."""
+        lagging = {"lagging_series": {s: str(m) for s, m in self.lagging.items()}} if self.lagging else {}
         return {**encode_fields({"transform": self.transform, "floor": self.floor,
                                  "last_period": self.last_period, "series_scales": self.series_scales}),
+                **lagging,
                 "bounds": {kind: encode_fields({column: table[column].to_numpy(dtype)
                                                 for column, dtype in BOUND_COLUMNS.items()})
                            for kind, table in self.tables.items()}}
@@ -210,17 +216,26 @@ class StoredIntervals:
             last_period = fields.period("last_period")
             scales = fields.number_map("series_scales")
             bounds = fields.raw("bounds")
+            lagging = fields.raw("lagging_series") if "lagging_series" in data else {}
+        if not isinstance(lagging, dict) or not all(
+                isinstance(m, str) and re.fullmatch(r"\d{4}-\d{2}", m) and pd.Period(m, "M") < last_period
+                for m in lagging.values()):
+            raise ModelFileError("the intervals: the field 'lagging_series' is not a table of months "
+                                 "before the last month by series")
         odd = [series for series, scale in scales.items() if not (math.isnan(scale) or 0 <= scale < math.inf)]
         if odd:
             raise ModelFileError(f"the intervals: the scale of series {odd[0]!r} is negative or infinite")
         if not isinstance(bounds, dict) or sorted(bounds) != sorted(models):
             raise ModelFileError("the intervals: the field 'bounds' does not hold one table for each model")
         return cls({kind: _bounds_from_dict(table, kind, version) for kind, table in bounds.items()}, scales,
-                   transform, floor, last_period)
+                   transform, floor, last_period, lagging)
 
-    def horizons(self, periods: pd.Series) -> np.ndarray:
-        """Return each row's months after the last month of history (0 or less at or before it)."""
-        return (periods.array.asi8 - self.last_period.ordinal).astype(int)
+    def horizons(self, periods: pd.Series, series: pd.Series) -> np.ndarray:
+        """Return each row's months after its series' last month of history (0 or less at or
+        before it)."""
+        own = {s: m.ordinal for s, m in self.lagging.items()}
+        last = series.astype(str).map(own).fillna(self.last_period.ordinal).to_numpy(np.int64)
+        return (periods.array.asi8 - last).astype(int)
 
     def row_scales(self, series: pd.Series) -> np.ndarray:
         """Return each row's series scale, as the run's forecast takes it: its series' scale,
@@ -429,17 +444,20 @@ class StoredModel:
                                 f"{', '.join(self.models)})")
         plan = placed_plan(self.plan, file)   # its messages name the new data file
         with self._applying(prepared, file):
-            # Drivers nobody knows ahead are estimated as in the run that wrote the model.
-            known = plan.estimate_future(prepared)
+            # Drivers nobody knows ahead are estimated as in the run that wrote the model, in
+            # every row to forecast (a series that lagged has some at or before its last month).
+            known = plan.estimate_future(prepared, every_row=self._empty_target(prepared))
             actuals, rows = self._actuals(known, file), self._to_forecast(known, file)
             self._check_filled(rows, file)
-            stepwise = self.steps.needed(plan, rows, actuals)
+            lagging = self.intervals.lagging if self.intervals is not None else {}
+            origins = last_actuals(plan, rows, actuals, lagging)
+            stepwise = self.steps.needed(plan, rows, origins)
             design = None if stepwise else plan.transform(rows, known=actuals)
         if stepwise and self.steps.strategy is None:
             raise UserError(f"{self.path}: {self.steps.predates(plan)}")
         intervals = self.intervals
         if intervals is not None:
-            horizons = intervals.horizons(rows[PERIOD])
+            horizons = intervals.horizons(rows[PERIOD], rows[SERIES])
             scale = intervals.row_scales(rows[SERIES])
         out = []
         for kind in kinds:
@@ -450,7 +468,7 @@ class StoredModel:
                 elif not isinstance(stored, (StoredLinear, StoredPerSeries)):   # a simple rule
                     values = stored.predict(series_design(rows, SERIES))
                 else:
-                    values = self.steps.predict(kind, plan, stored, rows, actuals, file)
+                    values = self.steps.predict(kind, plan, stored, rows, actuals, origins, file)
             table = {"period": rows[PERIOD].astype(str).to_numpy(), "series": rows[SERIES].to_numpy(),
                      "model": kind, "forecast": values}
             if intervals is not None:
@@ -469,6 +487,11 @@ class StoredModel:
                     raise DataError("the cell is empty, and the model needs this driver in every row "
                                     "it forecasts", file=file, column=driver.column,
                                     row=first_row(rows, empty))
+
+    def _empty_target(self, rows: pd.DataFrame) -> np.ndarray:
+        """Return which rows have no target (all of them without a target column)."""
+        target = self.document.target
+        return rows[target].isna().to_numpy() if target in rows.columns else np.ones(len(rows), bool)
 
     def _to_forecast(self, rows: pd.DataFrame, file: str) -> pd.DataFrame:
         """Return the rows whose target is empty; stop if there is none."""

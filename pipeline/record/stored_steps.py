@@ -14,9 +14,10 @@ has yet. The run then forecast by its spec's ``multi_step`` strategy
   (it is the fit for one month ahead), and the furthest fit serves months
   further still when it reads no lag of the target.
 
-The last actual is the later of the run's last month of history and the last
-month with a target in the new data file: the lags read the file's actuals, and
-the ones the model file kept from the run's history where the file has none.
+The last actual is, per series, the later of the run's last month of history
+(the series' own when it lagged behind the others in the run) and its last month
+with a target in the new data file: the lags read the file's actuals, and the
+ones the model file kept from the run's history where the file has none.
 """
 
 from __future__ import annotations
@@ -44,13 +45,20 @@ def target_reach(plan: FeaturePlan) -> int | None:
     return min(reaches) if reaches else None
 
 
-def last_actual(plan: FeaturePlan, actuals: pd.DataFrame | None) -> int | None:
-    """Return the month ordinal of the last actual: the plan's window's last month, or a
-    later month of the actuals."""
-    months = [plan.window_end_.ordinal] if plan.window_end_ is not None else []
+def last_actuals(plan: FeaturePlan, rows: pd.DataFrame, actuals: pd.DataFrame | None,
+                 lagging: dict[str, pd.Period] | None = None) -> np.ndarray | None:
+    """Return, per row, the month ordinal of its series' last actual: the plan's window's last
+    month (or, for a series that lagged in the run, its own last month: ``lagging``), or a
+    later month of the series' actuals in the data file. None without any."""
+    if plan.window_end_ is None and (actuals is None or not len(actuals)):
+        return None
+    end = plan.window_end_.ordinal if plan.window_end_ is not None else -np.inf
+    own = {series: period.ordinal for series, period in (lagging or {}).items()}
+    origins = rows[SERIES].astype(str).map(own).fillna(end).to_numpy(float)
     if actuals is not None and len(actuals):
-        months.append(int(month_ordinals(actuals).max()))
-    return max(months) if months else None
+        newest = pd.Series(month_ordinals(actuals)).groupby(actuals[SERIES].astype(str).to_numpy()).max()
+        origins = np.fmax(origins, rows[SERIES].astype(str).map(newest).to_numpy(float))
+    return origins.astype(np.int64)
 
 
 class StoredSteps:
@@ -116,13 +124,13 @@ class StoredSteps:
 
     # -- forecasting
 
-    def needed(self, plan: FeaturePlan, rows: pd.DataFrame, actuals: pd.DataFrame | None) -> bool:
-        """Return whether some row lies further after the last actual than the target's lags
-        reach (then the strategy predicts the rows)."""
-        reach, origin = target_reach(plan), last_actual(plan, actuals)
-        if reach is None or origin is None or not len(rows):
+    def needed(self, plan: FeaturePlan, rows: pd.DataFrame, origins: np.ndarray | None) -> bool:
+        """Return whether some row lies further after its series' last actual (``origins``,
+        per row) than the target's lags reach (then the strategy predicts the rows)."""
+        reach = target_reach(plan)
+        if reach is None or origins is None or not len(rows):
             return False
-        return int((rows[PERIOD].array.asi8 - origin).max()) > reach
+        return int((rows[PERIOD].array.asi8 - origins).max()) > reach
 
     def predates(self, plan: FeaturePlan) -> str:
         """Return why a file without the strategy cannot forecast months beyond the lags' reach."""
@@ -131,13 +139,12 @@ class StoredSteps:
                 "target's own lags reach no further): rerun castline run to write a model file that does")
 
     def predict(self, kind: str, plan: FeaturePlan, model, rows: pd.DataFrame,
-                actuals: pd.DataFrame | None, file: str) -> np.ndarray:
+                actuals: pd.DataFrame | None, origins: np.ndarray, file: str) -> np.ndarray:
         """Return a model's forecasts of the rows by the run's strategy; a row at or before
         the last actual from its lags' actuals (as the model itself predicts)."""
         if self.strategy is None:
             raise UserError(self.predates(plan))
-        origin = last_actual(plan, actuals)
-        ahead = rows[PERIOD].array.asi8 - origin
+        ahead = rows[PERIOD].array.asi8 - origins
         predicted = np.full(len(rows), np.nan)
         past = ahead <= 0
         if past.any():
@@ -149,12 +156,12 @@ class StoredSteps:
             return predicted
         for horizon in np.unique(ahead[later]):
             at = ahead == horizon
-            own_plan, own_model = self._fit_for(kind, int(horizon), plan, model, rows, at, origin, file)
+            own_plan, own_model = self._fit_for(kind, int(horizon), plan, model, rows, at, origins, file)
             predicted[at] = own_model.predict(own_plan.transform(rows[at], known=actuals))
         return predicted
 
     def _fit_for(self, kind: str, horizon: int, plan: FeaturePlan, model, rows: pd.DataFrame,
-                 at: np.ndarray, origin: int, file: str):
+                 at: np.ndarray, origins: np.ndarray, file: str):
         """Return the direct strategy's plan and model for rows this many months after the last
         actual, or stop with a DataError naming the first such row."""
         if horizon in self.horizons and kind in self.horizons[horizon][1]:
@@ -167,7 +174,7 @@ class StoredSteps:
         if fitted and horizon > max(fitted) and target_reach(self.horizons[max(fitted)][0]) is None:
             own_plan, models = self.horizons[max(fitted)]
             return placed_plan(own_plan, file), models[kind]
-        row = rows[at].iloc[0]
+        row, origin = rows[at].iloc[0], int(origins[at][0])
         furthest = max([reach, *fitted])
         raise DataError(f"{row[PERIOD]} (series '{row[SERIES]}') is {months_phrase(horizon)} after the last "
                         f"actual of the target ({pd.Period(ordinal=origin, freq='M')}), and model '{kind}' "

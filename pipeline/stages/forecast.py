@@ -74,6 +74,8 @@ class ForecastResult:
     transform: str = "none"
     floor: float | None = None
     last_period: str | None = None
+    # Series whose last actual is before last_period (they report late): series → that month.
+    lagging_series: dict = field(default_factory=dict)
     # The direct strategy's fits on all history, one per months ahead it forecast: model
     # name → [(months ahead, feature plan, model)]; empty without target lags shorter than
     # the months ahead, or under the recursive strategy (the model above feeds back).
@@ -375,7 +377,14 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]),
         interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,
-        floor=bounds.floor, last_period=str(data.last_period), horizon_fits=predict.horizon_fits)
+        floor=bounds.floor, last_period=str(data.last_period), horizon_fits=predict.horizon_fits,
+        lagging_series=_lagging(data))
+
+
+def _lagging(data: CheckedData) -> dict[str, str]:
+    """Return the series whose last actual is before the newest, with that month."""
+    last = data.history.groupby(SERIES, sort=True)[PERIOD].max()
+    return {str(series): str(month) for series, month in last.items() if month < data.last_period}
 
 
 def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:

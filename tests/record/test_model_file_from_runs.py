@@ -585,3 +585,40 @@ def test_a_damaged_file_stops_with_exit_2_not_an_internal_error(case, calendar_d
     code, err = _forecast_exit(tmp_path, json.dumps(_tamper(calendar_document, change)), new_rows, capsys)
     assert no_code_runs == []                                      # nothing runs, even here
     _assert_refused(code, err)
+
+
+# ------------------------------------------------------------------ a series that lags
+
+def _ragged_run(folder: Path, run: dict):
+    """The run with South's last month of history left without its actual: South lags one
+    month behind the others and is forecast from its own last actual, one month more."""
+    result = make_run(folder, **run)
+    data = pd.read_csv(result.spec.input.file)
+    last = data.loc[data["sales"].notna(), "month"].max()
+    data.loc[(data["region"] == "South") & (data["month"] == last), "sales"] = np.nan
+    data.to_csv(result.spec.input.file, index=False)
+    return pipeline.run(folder / "spec.yaml"), last
+
+
+@pytest.mark.parametrize("which", ["direct", "recursive"])
+def test_castline_forecast_of_a_run_with_a_series_that_lags_gives_its_forecast_csv(which, tmp_path, capsys):
+    # Each series is forecast from its own last actual: South's horizons count from a month
+    # earlier, its estimated drivers are estimated in the month the others have actuals for,
+    # and the strategy starts a month earlier for it. The model file keeps South's last month.
+    result, last = _ragged_run(tmp_path / which, {"direct": DIRECT_RUN, "recursive": RECURSIVE_RUN}[which])
+    written = pd.read_csv(result.folder.path / "forecast.csv")
+    south = written[(written["series"] == "South") & (written["model"] == "ols")].sort_values("period")
+    assert south["period"].iloc[0] == last[:7] and list(south["horizon"]) == list(range(1, FUTURE + 2))
+    document = json.loads((result.folder.path / "model.json").read_text(encoding="utf-8"))
+    assert document["intervals"]["lagging_series"] == {"South": str(pd.Period(last[:7], "M") - 1)}
+    data = pd.read_csv(result.spec.input.file)
+    for rows in (data, data[data["sales"].isna()].drop(columns=["sales"])):
+        code, out, err, _ = _command(result, rows, tmp_path, capsys)
+        assert code == 0, err
+        mine = pd.read_csv(tmp_path / "out.csv")
+        merged = mine.merge(written, on=["period", "series", "model"], validate="one_to_one",
+                            suffixes=("", "_run"))
+        assert len(merged) == len(mine) == len(written) == (3 * FUTURE + 1) * len(result.spec.models)
+        for column in ["forecast", "horizon", *EMPIRICAL]:
+            np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0,
+                                       err_msg=column)
