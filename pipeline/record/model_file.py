@@ -46,6 +46,7 @@ from pipeline.models.per_series import PerSeriesOLS
 from pipeline.models.transformed import TransformedTargetModel
 from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, last_actuals, placed_plan
 from pipeline.stages.check import _series_labels
+from pipeline.stages.dates import read_dates
 
 FORMAT = "castline-model"
 
@@ -298,6 +299,7 @@ class _Envelope(BaseModel):
     spec_name: str
     target: str
     date_column: str
+    date_format: str | None = None     # input.date_format, when the run's spec set one
     series_columns: list[str]
     feature_names: list[str]
     plan: dict
@@ -331,6 +333,7 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals
         "series_columns": list(spec.input.series), "feature_names": names,
         "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(),
         "multi_step": steps.to_dict(_model_entry), "versions": versions,
+        **({"date_format": spec.input.date_format} if spec.input.date_format else {}),
     }
 
 
@@ -411,10 +414,14 @@ class StoredModel:
             raise DataError("the file has no such column, and the model needs it", file=file,
                             column=missing[0])
         prepared = frame.copy()
-        dates = pd.to_datetime(prepared[doc.date_column], errors="coerce")
+        # Read as the run read its dates: with its input.date_format, offsets in UTC.
+        dates = read_dates(prepared[doc.date_column], doc.date_format)
         if dates.isna().any():
-            row = int(np.flatnonzero(dates.isna().to_numpy())[0]) + 2
-            raise DataError("not a date", file=file, column=doc.date_column, row=row)
+            at = int(np.flatnonzero(dates.isna().to_numpy())[0])
+            value = prepared[doc.date_column].iloc[at]
+            said = (f"{value!r} does not match the date format {doc.date_format!r} the run read its "
+                    "dates with" if doc.date_format and pd.notna(value) else "not a date")
+            raise DataError(said, file=file, column=doc.date_column, row=at + 2)
         prepared[PERIOD] = dates.dt.to_period("M")
         prepared[SERIES] = _series_labels(prepared, doc.series_columns)
         prepared[ROW] = np.arange(len(prepared)) + 2
