@@ -58,8 +58,16 @@ def _month(ordinal: float) -> pd.Period:
 
 
 def _span(ordinals) -> str:
-    first, last = _month(min(ordinals)), _month(max(ordinals))
-    return str(first) if first == last else f"{first} to {last}"
+    """Return the months as a range when they run on without a gap, else listed (up to six)."""
+    months = sorted(set(int(o) for o in ordinals))
+    first, last = _month(months[0]), _month(months[-1])
+    if first == last:
+        return str(first)
+    if months[-1] - months[0] + 1 == len(months):
+        return f"{first} to {last}"
+    if len(months) <= 6:
+        return ", ".join(str(_month(o)) for o in months)
+    return f"{len(months)} months from {first} to {last}"
 
 
 def lagging_series(frame: pd.DataFrame, spec: Spec) -> tuple[list[Problem], list[str]]:
