@@ -412,7 +412,7 @@ def _print_revisions(revisions, top: int) -> None:
     table = revisions.table
     stated = (f"the change in widths of the earlier run's stated 80% interval ({revisions.interval_method})"
               if revisions.interval_method else "no width: the earlier run stated no interval")
-    print(f"Forecast revisions of {revisions.model}: {len(table)} month-series in both runs "
+    print(f"Forecast revisions of {model_label(revisions.model)}: {len(table)} month-series in both runs "
           f"(change = later − earlier; change_in_widths: {stated})")
     shown = largest_revisions(table, top)
     _print_table(shown.to_dict(orient="records"), list(shown.columns), align_right=tuple(shown.columns[2:]))
@@ -427,7 +427,7 @@ def _print_comparison(comparison, top: int) -> None:
     for word, run in (("earlier", comparison.earlier), ("later", comparison.later)):
         print(f"{word + ':':8} {run['run_id']} ({run['created'][:19].replace('T', ' ')}; "
               f"actuals {run['first_period']} to {run['last_period']}, {run['history_rows']} rows; "
-              f"recommended {run['recommended']}; castline {run['castline_version']})")
+              f"recommended {model_label(run['recommended'])}; castline {run['castline_version']})")
     if comparison.swapped:
         print("(the runs were given newest first; changes are read from the earlier to the later)")
     print()

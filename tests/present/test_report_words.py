@@ -45,7 +45,12 @@ def demo(tmp_path_factory) -> dict:
     with contextlib.redirect_stdout(io.StringIO()):
         assert main(["history", str(SHIPPED_DEMO_SPEC), "--ledger", str(folder / "ledger.sqlite"),
                      "--html", str(page)]) == 0
-    return {"history": page.read_text(encoding="utf-8"),"cli": out.getvalue(), "report": (run / "report.html").read_text(encoding="utf-8"),
+        assert main(["run", str(SHIPPED_DEMO_SPEC), "--output-folder", str(folder)]) == 0
+    compared = io.StringIO()
+    with contextlib.redirect_stdout(compared):
+        assert main(["compare", *map(str, sorted(folder.glob("run-*")))]) == 0
+    return {"history": page.read_text(encoding="utf-8"), "cli": out.getvalue(), "compare": compared.getvalue(),
+            "report": (run / "report.html").read_text(encoding="utf-8"),
             "summary": (run / "summary.md").read_text(encoding="utf-8"),
             "models": [row["model"] for row in json.loads((run / "metrics.json").read_text())["models"]]}
 
@@ -80,6 +85,12 @@ def test_the_history_page_shows_no_code_name(demo):
 def test_the_command_line_shows_no_code_name(demo):
     assert sorted(set(CODE_NAME.findall(demo["cli"]))) == []
     assert not OLD_WORDS.search(demo["cli"])
+
+
+def test_castline_compare_shows_no_code_name(demo):
+    """Its header names each run's recommended model by its label, as its tables do."""
+    assert sorted(set(CODE_NAME.findall(demo["compare"]))) == []
+    assert "recommended OLS;" in demo["compare"]
 
 
 def test_report_summary_and_command_line_name_every_model_alike(demo):
