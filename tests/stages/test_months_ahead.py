@@ -233,3 +233,16 @@ def test_the_total_over_series_adds_only_months_every_series_is_forecast_in():
     total = all_series_total(stated)
     assert total["period"].tolist() == ["2024-01", "2024-02"]
     assert total["total"].tolist() == [21.0, 32.0] and total["series"].tolist() == [2, 2]
+
+
+def test_a_spec_without_validation_or_models_compares_ols_with_every_simple_rule(tmp_path):
+    """The defaults a practitioner expects: a rolling origin, OLS, and beside it the mean and
+    the simple rules (a model must beat the best of them, not only the plain average)."""
+    panel(months=36).to_csv(tmp_path / "data.csv", index=False)
+    (tmp_path / "spec.yaml").write_text("name: bare\ninput:\n  file: data.csv\n  date_column: month\n"
+                                        "  series: [shop]\ntarget: sales\noutput:\n  folder: out\n",
+                                        encoding="utf-8")
+    spec = load_spec(tmp_path / "spec.yaml")
+    assert spec.validation.method == "rolling_origin"
+    assert spec.model_names == ["mean_baseline", "ols", "calendar_month_mean", "trailing_mean",
+                                "last_value", "seasonal_naive"]
