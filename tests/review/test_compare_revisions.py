@@ -21,6 +21,7 @@ from conftest import tiny_data, write_tiny_spec
 
 import pipeline
 from pipeline import cli
+from pipeline.core.catalogue import model_label
 from pipeline.record.ledger import reading
 from pipeline.review.compare import compare_runs
 from pipeline.review.revisions import forecast_revisions, largest_revisions, planned_differences
@@ -158,7 +159,7 @@ def test_compare_prints_revisions_and_drivers_and_writes_the_csv(two_runs, capsy
                      "--revisions", str(target)]) == 0
     printed = capsys.readouterr().out
     model = recommended(later)
-    assert f"Forecast revisions of {model}: 4 month-series in both runs" in printed
+    assert f"Forecast revisions of {model_label(model)}: 4 month-series in both runs" in printed
     assert "the 3 that moved most of 4" in printed
     assert f"{CHANGED_DRIVER}       {CHANGED_MONTH}               1  {CHANGED_SERIES}" in printed
     written = pd.read_csv(target, dtype={"period": str, "series": str})

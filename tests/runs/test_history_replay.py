@@ -285,7 +285,7 @@ def test_forecast_revisions_equal_a_merge_of_the_two_runs_forecast_csv(replay, l
     assert len(written) == 2 * len(BRANCHES)
     assert written["earlier_width_80"].gt(0).all() and written["change"].ne(0).all()
     printed = capsys.readouterr().out
-    assert f"Forecast revisions of {expected['model'].iloc[0]}: {len(expected)} month-series" in printed
+    assert f"Forecast revisions of {model_label(expected['model'].iloc[0])}: {len(expected)} month-series" in printed
 
 
 # ---------------------------------------------------------------- the ledger re-scores revised actuals
