@@ -85,12 +85,21 @@ class CheckedData:
         """Return the data with more notes."""
         return replace(self, notes=(*self.notes, *notes)) if notes else self
 
+    def series_last(self) -> pd.Series:
+        """Return each series' last month with an actual, as a month ordinal, by series."""
+        ordinals = pd.Series(self.history[PERIOD].array.asi8, index=self.history.index)
+        return ordinals.groupby(self.history[SERIES].to_numpy(), sort=True).max()
+
     def origins(self, rows: pd.DataFrame) -> np.ndarray:
         """Return, per row, the month ordinal of its series' last actual: the origin each
         series is forecast from."""
-        ordinals = pd.Series(self.history[PERIOD].array.asi8, index=self.history.index)
-        last = ordinals.groupby(self.history[SERIES].to_numpy(), sort=False).max()
-        return rows[SERIES].map(last).fillna(self.last_period.ordinal).to_numpy(np.int64)
+        return rows[SERIES].map(self.series_last()).fillna(self.last_period.ordinal).to_numpy(np.int64)
+
+    def lagging_series(self) -> dict[str, str]:
+        """Return the series whose last actual is before the newest month, with that month."""
+        newest = self.last_period.ordinal
+        return {str(series): str(pd.Period(ordinal=int(last), freq="M"))
+                for series, last in self.series_last().items() if last < newest}
 
     @property
     def first_period(self) -> pd.Period:

@@ -378,13 +378,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
             columns=["model", "series", "rows", "terms"]),
         interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,
         floor=bounds.floor, last_period=str(data.last_period), horizon_fits=predict.horizon_fits,
-        lagging_series=_lagging(data))
-
-
-def _lagging(data: CheckedData) -> dict[str, str]:
-    """Return the series whose last actual is before the newest, with that month."""
-    last = data.history.groupby(SERIES, sort=True)[PERIOD].max()
-    return {str(series): str(month) for series, month in last.items() if month < data.last_period}
+        lagging_series=data.lagging_series())
 
 
 def fallback_table(backtest: BacktestResult, forecast: ForecastResult) -> pd.DataFrame:
