@@ -5,6 +5,8 @@ Tests sit at different depths of tests/; they import these paths
 """
 
 import atexit
+import contextlib
+import io
 import shutil
 import tempfile
 from pathlib import Path
@@ -64,6 +66,15 @@ def demo_with_planned_weather() -> pd.DataFrame:
         wanted = pd.MultiIndex.from_arrays([frame.loc[ahead, "region"], months[ahead.to_numpy()] - 12])
         frame.loc[ahead, column] = earlier[column].reindex(wanted).to_numpy()
     return frame
+
+
+def run_cli(args: list[str]) -> tuple[int, str, str]:
+    """Run castline's command line in this process; return the exit code, stdout and stderr."""
+    from pipeline import cli
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = cli.main(args)
+    return code, out.getvalue(), err.getvalue()
 
 
 @pytest.fixture

@@ -8,16 +8,13 @@ the run's own forecast.csv.
 
 from __future__ import annotations
 
-import contextlib
-import io
 import json
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import yaml
-
-from pipeline import cli
+from conftest import run_cli
 
 
 def _write_run_input(folder: Path) -> Path:
@@ -42,16 +39,9 @@ def _write_run_input(folder: Path) -> Path:
     return folder / "spec.yaml"
 
 
-def _cli(args: list[str]) -> tuple[int, str, str]:
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main(args)
-    return code, out.getvalue(), err.getvalue()
-
-
 def test_castline_forecast_reads_day_first_dates_with_the_runs_format(tmp_path):
     spec = _write_run_input(tmp_path)
-    code, out, err = _cli(["run", str(spec)])
+    code, out, err = run_cli(["run", str(spec)])
     assert code == 0, err
     folder = Path(next(line for line in out.splitlines() if line.startswith("run folder:")).split(": ", 1)[1])
     assert json.loads((folder / "model.json").read_text(encoding="utf-8"))["date_format"] == "%d/%m/%Y"
@@ -60,7 +50,7 @@ def test_castline_forecast_reads_day_first_dates_with_the_runs_format(tmp_path):
     # The 5th of each month, day first: read month first, '05/01/2024' would be May.
     assert rows["month"].str.startswith("05/").all()
     rows.to_csv(tmp_path / "rows.csv", index=False)
-    code, out, err = _cli(["forecast", str(folder / "model.json"), str(tmp_path / "rows.csv"),
+    code, out, err = run_cli(["forecast", str(folder / "model.json"), str(tmp_path / "rows.csv"),
                            "--output", str(tmp_path / "mine.csv")])
     assert code == 0, err
     mine = pd.read_csv(tmp_path / "mine.csv")
@@ -71,6 +61,6 @@ def test_castline_forecast_reads_day_first_dates_with_the_runs_format(tmp_path):
 
     # ISO dates in a file for a model read day first: one line naming the value and the format.
     rows.assign(month="2024-01-05").to_csv(tmp_path / "iso.csv", index=False)
-    code, out, err = _cli(["forecast", str(folder / "model.json"), str(tmp_path / "iso.csv")])
+    code, out, err = run_cli(["forecast", str(folder / "model.json"), str(tmp_path / "iso.csv")])
     assert code == 2 and len(err.strip().splitlines()) == 1 and "Traceback" not in err
     assert "iso.csv:2" in err and "'2024-01-05' does not match the date format '%d/%m/%Y'" in err

@@ -18,7 +18,6 @@ Every run writes into tmp_path.
 
 from __future__ import annotations
 
-import contextlib
 import io
 import json
 import os
@@ -33,10 +32,9 @@ import pytest
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
 import yaml
-from conftest import ROOT
+from conftest import ROOT, run_cli
 from statsmodels.datasets import grunfeld
 
-from pipeline import cli
 from pipeline.models import per_series
 
 RTOL = 1e-8
@@ -93,14 +91,6 @@ def read_data(folder: Path) -> pd.DataFrame:
     frame["shop"] = (frame["channel"] == "shop").astype(float)
     frame["series"] = frame["region"]
     return frame
-
-
-def run_cli(args: list[str]) -> tuple[int, str, str]:
-    """Run castline in this process; return the exit code, stdout and stderr."""
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main(args)
-    return code, out.getvalue(), err.getvalue()
 
 
 def run_folder(stdout: str) -> Path:

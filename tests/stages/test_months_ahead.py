@@ -8,16 +8,14 @@ against those of the same months typed into the file, the path that existed befo
 
 from __future__ import annotations
 
-import contextlib
-import io
 import re
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import run_cli
 
-from pipeline import cli
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.runner import check
 from pipeline.spec import load_spec
@@ -86,13 +84,6 @@ def write(folder: Path, frame: pd.DataFrame, *, months: int | None = None, price
         validation=VALIDATION.format(horizon=horizon) if validation is None else validation,
         forecast=f"forecast:\n  months: {months}\n" if months else ""), encoding="utf-8")
     return spec
-
-
-def run_cli(args: list[str]) -> tuple[int, str, str]:
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main(args)
-    return code, out.getvalue(), err.getvalue()
 
 
 def forecast_csv(stdout: str) -> pd.DataFrame:
