@@ -25,9 +25,9 @@ import math
 
 import numpy as np
 import pandas as pd
-import scipy.stats
 
 from pipeline.core.catalogue import model_label
+from pipeline.core.distributions import t_quantile
 
 LEVELS = (0.80, 0.95)
 FEWEST_ERRORS = 39   # errors a horizon's empirical bound is read from, borrowing neighbours' if need be
@@ -62,9 +62,9 @@ def analytic_bounds(centre, se, df, level: float, transform: str = "none") -> tu
     df = np.asarray(df, dtype=float)
     if df.ndim:   # one t quantile per distinct df (a model per series has one per series)
         values, where = np.unique(df, return_inverse=True)
-        multiplier = scipy.stats.t.ppf(0.5 + level / 2, values)[where.reshape(df.shape)]
+        multiplier = t_quantile(0.5 + level / 2, values)[where.reshape(df.shape)]
     else:
-        multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
+        multiplier = t_quantile(0.5 + level / 2, df)
     centre = np.asarray(centre, dtype=float)
     return (back_from(centre - multiplier * se, transform),
             back_from(centre + multiplier * se, transform))

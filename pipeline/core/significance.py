@@ -29,7 +29,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.stats
+
+from pipeline.core.distributions import t_upper
 
 COSINE_TERMS = 2        # B: the variance's degrees of freedom
 PHI_BOUND = 0.9         # the prewhitening coefficient is kept within ±0.9
@@ -78,7 +79,7 @@ def origin_tests(differences: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     long_run = (terms ** 2).mean(axis=1) / (1 - phi) ** 2
     with np.errstate(invalid="ignore", divide="ignore"):
         statistic = mean / np.sqrt(long_run / count)
-    p_value = scipy.stats.t.sf(statistic, df=COSINE_TERMS)
+    p_value = t_upper(statistic, COSINE_TERMS)
     # Nothing to go on: every difference 0. A constant non-zero difference is all one sign.
     zero = ~np.any(d != 0, axis=1)
     flat = ~(long_run > 0)

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import scipy.stats
 
+from pipeline.core.distributions import chi2_upper, f_upper, t_quantile, t_upper
 from pipeline.models.ols import INTERCEPT, LeastSquaresFit, least_squares
 
 ALPHA = 0.05
@@ -75,8 +75,8 @@ def coefficient_table(fit: LeastSquaresFit, cov: np.ndarray, level: float = 0.95
     with np.errstate(divide="ignore", invalid="ignore"):
         t_values = fit.coef / stderr
     df = fit.df_resid
-    p_values = 2 * scipy.stats.t.sf(np.abs(t_values), df) if df > 0 else np.full(len(stderr), np.nan)
-    multiplier = scipy.stats.t.ppf(0.5 + level / 2, df) if df > 0 else np.nan
+    p_values = 2 * t_upper(np.abs(t_values), df) if df > 0 else np.full(len(stderr), np.nan)
+    multiplier = t_quantile(0.5 + level / 2, df) if df > 0 else np.nan
     percent = f"{level * 100:g}"
     return pd.DataFrame({
         "term": fit.names, "estimate": fit.coef, "std_error": stderr, "t": t_values,
@@ -120,7 +120,7 @@ def ljung_box(residuals: np.ndarray, lags: int = 12) -> tuple[float, float]:
         rho = float(e[k:] @ e[:-k]) / denominator
         q += rho ** 2 / (n - k)
     q *= n * (n + 2)
-    return q, float(scipy.stats.chi2.sf(q, lags))
+    return q, float(chi2_upper(q, lags))
 
 
 def breusch_pagan(residuals: np.ndarray, matrix: np.ndarray) -> tuple[float, float]:
@@ -129,7 +129,7 @@ def breusch_pagan(residuals: np.ndarray, matrix: np.ndarray) -> tuple[float, flo
     auxiliary = least_squares(matrix, squared, centered_r2=True)
     lm = len(residuals) * auxiliary.r2
     df = auxiliary.rank - 1
-    return float(lm), float(scipy.stats.chi2.sf(lm, df)) if df > 0 else float("nan")
+    return float(lm), float(chi2_upper(lm, df)) if df > 0 else float("nan")
 
 
 def jarque_bera(residuals: np.ndarray) -> tuple[float, float]:
@@ -140,7 +140,7 @@ def jarque_bera(residuals: np.ndarray) -> tuple[float, float]:
     skew = float(np.mean(e ** 3)) / variance ** 1.5
     kurtosis = float(np.mean(e ** 4)) / variance ** 2
     statistic = n / 6 * (skew ** 2 + (kurtosis - 3) ** 2 / 4)
-    return statistic, float(scipy.stats.chi2.sf(statistic, 2))
+    return statistic, float(chi2_upper(statistic, 2))
 
 
 VIF_LIMIT = 10   # common practice; a group of terms is held to it by GVIF^(1/df)
@@ -202,7 +202,7 @@ def f_test(fit: LeastSquaresFit) -> tuple[float, float]:
     if df_model <= 0 or fit.df_resid <= 0 or not np.isfinite(fit.r2):
         return float("nan"), float("nan")
     statistic = (fit.r2 / df_model) / ((1 - fit.r2) / fit.df_resid)
-    return statistic, float(scipy.stats.f.sf(statistic, df_model, fit.df_resid))
+    return statistic, float(f_upper(statistic, df_model, fit.df_resid))
 
 
 def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=None,

@@ -16,8 +16,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 import scipy.linalg
-import scipy.stats
 
+from pipeline.core.distributions import t_quantile, t_upper
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
 from pipeline.models.contract import Model
@@ -68,8 +68,8 @@ class LeastSquaresFit:
         with np.errstate(divide="ignore", invalid="ignore"):
             t_values = self.coef / self.stderr
         if self.df_resid > 0:
-            p_values = 2 * scipy.stats.t.sf(np.abs(t_values), self.df_resid)
-            multiplier = scipy.stats.t.ppf(0.5 + level / 2, self.df_resid)
+            p_values = 2 * t_upper(np.abs(t_values), self.df_resid)
+            multiplier = t_quantile(0.5 + level / 2, self.df_resid)
         else:
             p_values = np.full_like(self.coef, np.nan)
             multiplier = np.nan

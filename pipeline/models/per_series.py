@@ -25,9 +25,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import scipy.stats
 
 from pipeline.core.design import series_index
+from pipeline.core.distributions import t_quantile, t_upper
 from pipeline.core.errors import ModelFileError
 from pipeline.core.execution import IN_PROCESS, Executor, InProcess
 from pipeline.core.progress import QUIET, Progress
@@ -402,8 +402,8 @@ class PerSeriesOLS(Model):
         df[df <= 0] = np.nan
         with np.errstate(divide="ignore", invalid="ignore"):
             t_values = (self.coef_ / stderr).ravel()
-            p_values = 2 * scipy.stats.t.sf(np.abs(t_values), df)
-            multiplier = scipy.stats.t.ppf(0.5 + level / 2, df)
+            p_values = 2 * t_upper(np.abs(t_values), df)
+            multiplier = t_quantile(0.5 + level / 2, df)
         estimate = self.coef_.ravel()
         percent = f"{level * 100:g}"
         return pd.DataFrame({

@@ -18,10 +18,10 @@ import matplotlib.dates as mdates
 import matplotlib.figure
 import numpy as np
 import pandas as pd
-import scipy.stats
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
 from pipeline.core.catalogue import model_label
+from pipeline.core.distributions import normal_order_medians
 from pipeline.core.formatting import format_number, format_signed
 from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
     SVG_DOTS,
@@ -68,6 +68,15 @@ def _subplots(*grid: int, figsize: tuple[float, float], **options):
 def as_text(value) -> str:
     """Return a label matplotlib draws as it reads: a '$' in a name is not maths."""
     return str(value).replace("$", r"\$")
+
+def _straight_line(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Return the slope and intercept of y's least-squares line on x (NaN for fewer than two points)."""
+    if len(x) < 2:
+        return np.nan, np.nan
+    (variance, covariance), _ = np.cov(x, y, bias=True)
+    slope = covariance / variance
+    return slope, float(np.mean(y) - slope * np.mean(x))
+
 
 def the_model(name: str) -> str:
     """Return a model's name as a sentence writes it after a verb: its catalogue label, with
@@ -486,7 +495,9 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
                             "means the spread changes with the level." + _spread_by_level(residuals),
                                    picture_kind(len(residuals), SVG_DOTS)))
     figure, axis = _subplots(figsize=(4, 3))
-    (theoretical, ordered), (slope, intercept, _) = scipy.stats.probplot(residuals["residual"], dist="norm")
+    ordered = np.sort(residuals["residual"].to_numpy(float))
+    theoretical = normal_order_medians(len(ordered))
+    slope, intercept = _straight_line(theoretical, ordered)
     axis.scatter(theoretical, ordered, s=6, color=PALETTE[0], alpha=0.6)
     axis.plot(theoretical, slope * np.asarray(theoretical) + intercept, color=PALETTE[1], linewidth=1)
     axis.set_xlabel("normal quantile")
