@@ -102,7 +102,8 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
     if before:
         alt += (f", {format_percent(total / before - 1)} against the same months a year earlier "
                 f"({format_number(before)})")
-    return plots.Figure(picture.uri, alt + ".")
+    picture.alt = alt + "."
+    return picture
 
 
 def pictured_series(history: pd.DataFrame, stated: pd.DataFrame):

@@ -45,6 +45,7 @@ from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, tru
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.first_screen import first_screen_view
+from pipeline.present.inline import drawn_together
 from pipeline.present.run_files import RunFiles, load_run_files
 from pipeline.present.track_record import track_record_view
 
@@ -485,8 +486,16 @@ def _backtest_pictures(metrics: dict, history: pd.DataFrame, predictions: pd.Dat
 
 
 def render_report(files: RunFiles | str | Path) -> str:
-    """Return the report's HTML, from the run folder's files alone."""
+    """Return the report's HTML, from the run folder's files alone (the pictures drawn together,
+    inline.drawn_together)."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
+    with drawn_together():
+        view = _report_view(files)
+    return page_environment().get_template("report.html.j2").render(**view)
+
+
+def _report_view(files: RunFiles) -> dict:
+    """Return what the report's template shows, its pictures waiting to be drawn."""
     metrics, data = files.metrics, files.fingerprint
     predictions = files.table("predictions.csv")
     forecast = files.table("forecast.csv")
@@ -542,7 +551,7 @@ def render_report(files: RunFiles | str | Path) -> str:
         drivers["levels"]["picture"] = plots.levels_picture(drivers["levels"], drivers["model"])
     coefficient_picture = _drivers_picture(drivers)
     ahead = ahead_view(metrics)
-    return page_environment().get_template("report.html.j2").render(
+    return dict(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
         validation=metrics.get("validation_text", metrics.get("validation", {}).get("method", "")),
         verdict=metrics["verdict"], beats=metrics.get("beats_baseline", False), recommended=recommended,

@@ -1,0 +1,92 @@
+"""Work shared with a forked copy of the process (core.forked.map_shared): the same results
+in the same order as doing it all here, errors and warnings met here as they would be."""
+
+from __future__ import annotations
+
+import os
+import threading
+import warnings
+
+import pytest
+
+from pipeline.core import forked
+
+
+@pytest.fixture(autouse=True)
+def no_threads():
+    """Stop the worker processes' pool an earlier test may have left (joblib's loky keeps two
+    threads for it), so this process may fork; skip where it still cannot (not Linux, one core)."""
+    if threading.active_count() > 1:
+        from joblib.externals.loky import get_reusable_executor
+        get_reusable_executor().shutdown(wait=True)
+    if not forked.can_fork():
+        pytest.skip("this process cannot fork: not Linux, one core, or threads running "
+                    f"({[t.name for t in threading.enumerate()]})")
+
+
+def _square_with_pid(value):
+    return value * value, os.getpid()
+
+
+@pytest.mark.parametrize("count", [0, 1, 2, 3, 10, 11])
+def test_results_in_order_every_other_item_done_by_the_copy(count):
+    done = forked.map_shared(_square_with_pid, range(count))
+    assert [value for value, _ in done] == [i * i for i in range(count)]
+    here = {pid for i, (_, pid) in enumerate(done) if i % 2 == 0}
+    there = {pid for i, (_, pid) in enumerate(done) if i % 2 == 1}
+    assert here <= {os.getpid()}
+    if count >= 2:   # the odd items were computed by another process
+        assert there and os.getpid() not in there
+
+
+def _fails_on_three(value):
+    if value == 3:
+        raise ValueError("three is not allowed")
+    return value
+
+
+def test_an_error_in_the_copys_share_is_raised_here():
+    with pytest.raises(ValueError, match="three is not allowed"):
+        forked.map_shared(_fails_on_three, range(6))
+
+
+def test_an_error_in_this_processs_share_is_raised_and_the_copy_reaped():
+    with pytest.raises(ValueError, match="three is not allowed"):
+        forked.map_shared(_fails_on_three, [0, 1, 2, 5, 3, 4])
+    with pytest.raises(ChildProcessError):   # no copy left behind, running or unreaped
+        os.waitpid(-1, os.WNOHANG)
+
+
+def _warns(value):
+    warnings.warn(f"careful with {value}", RuntimeWarning, stacklevel=1)
+    return value
+
+
+def test_warnings_caught_in_the_copy_are_raised_again_here():
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        assert forked.map_shared(_warns, range(4)) == [0, 1, 2, 3]
+    assert sorted(str(w.message) for w in caught) == [f"careful with {i}" for i in range(4)]
+    assert {w.category for w in caught} == {RuntimeWarning}
+
+
+def test_a_warning_made_an_error_is_an_error_as_without_the_copy():
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        warnings.filterwarnings("error", message="careful with 1")   # item 1: the copy's share
+        with pytest.raises(RuntimeWarning, match="careful with 1"):
+            forked.map_shared(_warns, [0, 1, 2])
+
+
+def test_no_copy_while_threads_run_or_when_told(monkeypatch):
+    stop = threading.Event()
+    thread = threading.Thread(target=stop.wait)
+    thread.start()
+    try:
+        assert not forked.can_fork()
+        assert {pid for _, pid in forked.map_shared(_square_with_pid, range(4))} == {os.getpid()}
+    finally:
+        stop.set()
+        thread.join()
+    monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
+    assert not forked.can_fork()
