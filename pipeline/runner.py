@@ -139,24 +139,38 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     the forecast report how far they have got to ``progress`` (by default, nowhere).
     """
     (read_input, check_data, settle_validation, run_backtest, evaluate, make_forecast, executor_for,
-     track_record, publish, render_pages) = _stages(
+     track_record, publish) = _stages(
         "read_input", "check_data", "settle_validation", "run_backtest", "evaluate", "make_forecast",
-        "executor_for", "track_record", "publish", "render_pages")
+        "executor_for", "track_record", "publish")
     spec = _as_spec(spec_or_path)
-    with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
-        data = check_data(spec, read_input(spec))
-        spec, notes = settle_validation(spec, data)
-        data = data.with_notes(notes)
-        backtest = run_backtest(spec, data, executor=executor, progress=progress)
-        evaluation = evaluate(spec, backtest)
-        forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,
-                                 coverage=evaluation.coverage)
-    track = track_record(spec, data, evaluation, output_folder=output_folder)
-    folder = publish(spec, data, backtest, evaluation, forecast,
-                     output_folder=Path(output_folder) if output_folder else None,
-                     realised=track.realised, track=track.facts(), pages=render_pages)
+    with _pages_helper() as pages:
+        with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
+            data = check_data(spec, read_input(spec))
+            spec, notes = settle_validation(spec, data)
+            data = data.with_notes(notes)
+            backtest = run_backtest(spec, data, executor=executor, progress=progress)
+            evaluation = evaluate(spec, backtest)
+            forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,
+                                     coverage=evaluation.coverage)
+        track = track_record(spec, data, evaluation, output_folder=output_folder)
+        folder = publish(spec, data, backtest, evaluation, forecast,
+                         output_folder=Path(output_folder) if output_folder else None,
+                         realised=track.realised, track=track.facts(), pages=pages)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)
+
+
+def _pages_of(folder: Path) -> dict[str, str]:
+    """Return a run folder's pages, by the runner's render_pages (a test's stand-in if set)."""
+    return _stages("render_pages")[0](folder)
+
+
+def _pages_helper():
+    """Return the pages' renderer for a run: a forked copy of this process that imports the pages'
+    modules (matplotlib, jinja2: some 0.4 s) while this one checks and fits, and renders the
+    pages once the run folder's files are written (core.forked.Helper; here where it cannot)."""
+    from pipeline.core.forked import Helper
+    return Helper(__name__, "_pages_of", preload=(_STAGES["render_pages"],))
 
 
 def init(data_file: str | Path, spec_file: str | Path | None = None, *,

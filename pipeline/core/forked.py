@@ -17,6 +17,8 @@ the copy caught are raised again here, for the command to collect as its own.
 
 from __future__ import annotations
 
+import ctypes
+import importlib
 import os
 import pickle
 import signal
@@ -25,11 +27,31 @@ import threading
 import warnings
 from collections.abc import Callable, Sequence
 
+# True in a copy map_shared made: a copy shares nothing further (two cores, two processes).
+_sharing_copy = False
+
 
 def can_fork() -> bool:
     """Return whether work may be shared with a forked copy of this process now."""
-    return (sys.platform.startswith("linux") and hasattr(os, "fork") and (os.cpu_count() or 1) > 1
+    return (not _sharing_copy and sys.platform.startswith("linux") and hasattr(os, "fork") and (os.cpu_count() or 1) > 1
             and threading.active_count() == 1 and not os.environ.get("CASTLINE_ONE_PROCESS"))
+
+
+def _die_with_parent(parent: int) -> None:
+    """In a copy: be killed when the parent ends (Linux's PR_SET_PDEATHSIG), so a copy never
+    outlives a run that was interrupted or killed."""
+    try:
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)   # 1: PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+    if os.getppid() != parent:   # the parent ended before the request took effect
+        os._exit(0)
+
+
+def _write_all(descriptor: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(descriptor, view):]
 
 
 def _read_all(descriptor: int) -> bytes:
@@ -39,34 +61,65 @@ def _read_all(descriptor: int) -> bytes:
     return b"".join(chunks)
 
 
+def _packed(result, caught: list) -> bytes:
+    raised = [(str(w.message), w.category, w.filename, w.lineno) for w in caught]
+    return pickle.dumps((result, raised), protocol=pickle.HIGHEST_PROTOCOL)
+
+
+def _unpacked(data: bytes):
+    """Return what a copy sent, its warnings raised again here; raise ValueError when it sent
+    nothing whole (it failed)."""
+    try:
+        result, raised = pickle.loads(data)
+    except Exception as error:   # noqa: BLE001
+        raise ValueError("the copy failed") from error
+    for message, category, filename, lineno in raised:
+        warnings.warn_explicit(message, category, filename, lineno)
+    return result
+
+
 def _serve(function: Callable, items: Sequence, descriptor: int) -> None:
     """In the copy: compute the items, write (results, warnings) pickled to the pipe, and leave
     without running any of the parent's exit handlers or flushing its buffers."""
     try:
         with warnings.catch_warnings(record=True) as caught:
             results = [function(item) for item in items]
-        raised = [(str(w.message), w.category, w.filename, w.lineno) for w in caught]
-        data = pickle.dumps((results, raised), protocol=pickle.HIGHEST_PROTOCOL)
-        view = memoryview(data)
-        while view:
-            view = view[os.write(descriptor, view):]
+        _write_all(descriptor, _packed(results, caught))
     except BaseException:   # noqa: BLE001 (the parent does this share again and meets the error itself)
         pass
     finally:
         os._exit(0)
 
 
-def map_shared(function: Callable, items: Sequence) -> list:
-    """Return ``[function(item) for item in items]``, every other item computed in a forked copy
-    of this process when ``can_fork()``; results must pickle."""
+def _halves(weights: Sequence[float]) -> tuple[list[int], list[int]]:
+    """Return the items' positions cut in two of about equal weight: the heaviest first, each to
+    the lighter half so far (this process's half first on a tie)."""
+    halves: tuple[list[int], list[int]] = ([], [])
+    loads = [0.0, 0.0]
+    for position in sorted(range(len(weights)), key=lambda i: -weights[i]):
+        lighter = 0 if loads[0] <= loads[1] else 1
+        halves[lighter].append(position)
+        loads[lighter] += weights[position]
+    return sorted(halves[0]), sorted(halves[1])
+
+
+def map_shared(function: Callable, items: Sequence, weights: Sequence[float] | None = None) -> list:
+    """Return ``[function(item) for item in items]``, about half of them (by ``weights``, a rough
+    cost of each; by count without) computed in a forked copy of this process when
+    ``can_fork()``; results must pickle."""
     items = list(items)
     if len(items) < 2 or not can_fork():
         return [function(item) for item in items]
-    theirs, mine = items[1::2], items[0::2]
+    here, there = _halves(weights if weights is not None else [1.0] * len(items))
+    mine, theirs = [items[i] for i in here], [items[i] for i in there]
     read, write = os.pipe()
+    parent = os.getpid()
     pid = os.fork()
     if pid == 0:
+        global _sharing_copy
+        _sharing_copy = True
         os.close(read)
+        _die_with_parent(parent)
         _serve(function, theirs, write)
     os.close(write)
     try:
@@ -79,12 +132,90 @@ def map_shared(function: Callable, items: Sequence) -> list:
         os.close(read)
         os.waitpid(pid, 0)
     try:
-        shared, raised = pickle.loads(data)
-    except Exception:   # noqa: BLE001 (the copy failed: its share is done here)
+        shared = _unpacked(data)
+    except ValueError:   # the copy failed: its share is done here
         shared = [function(item) for item in theirs]
-    else:
-        for message, category, filename, lineno in raised:
-            warnings.warn_explicit(message, category, filename, lineno)
     results = [None] * len(items)
-    results[0::2], results[1::2] = done, shared
+    for position, result in zip(here + there, done + shared, strict=True):
+        results[position] = result
     return results
+
+
+class Helper:
+    """A forked copy of this process that imports a module at once, while this process goes on
+    with other work, and later runs one function of it for this process: ``helper(*arguments)``
+    returns ``function(*arguments)``. Used once; ``close`` ends it unused.
+
+    The module is the copy's own once forked: what this process imports or changes later is
+    not seen there. The arguments and the result must pickle. Where ``can_fork()`` is false,
+    or the copy fails, the function runs here (imported here), so its errors are raised here.
+    """
+
+    def __init__(self, module: str, function: str, *, preload: tuple[str, ...] = ()) -> None:
+        self.module, self.function, self.preload, self.pid = module, function, preload, None
+        if not can_fork():
+            return
+        request_read, request_write = os.pipe()
+        answer_read, answer_write = os.pipe()
+        parent = os.getpid()
+        pid = os.fork()
+        if pid == 0:
+            os.close(request_write)
+            os.close(answer_read)
+            _die_with_parent(parent)
+            self._serve(request_read, answer_write)
+        os.close(request_read)
+        os.close(answer_write)
+        self.pid, self.requests, self.answers = pid, request_write, answer_read
+
+    def _here(self) -> Callable:
+        return getattr(importlib.import_module(self.module), self.function)
+
+    def _serve(self, requests: int, answers: int) -> None:
+        try:
+            for module in self.preload:
+                importlib.import_module(module)
+            function = self._here()
+            request = _read_all(requests)
+            if request:   # nothing: this process closed the helper unused
+                with warnings.catch_warnings(record=True) as caught:
+                    result = function(*pickle.loads(request))
+                _write_all(answers, _packed(result, caught))
+        except BaseException:   # noqa: BLE001 (this process runs the function itself and meets the error)
+            pass
+        finally:
+            os._exit(0)
+
+    def __call__(self, *arguments):
+        if self.pid is None:
+            return self._here()(*arguments)
+        try:
+            _write_all(self.requests, pickle.dumps(arguments, protocol=pickle.HIGHEST_PROTOCOL))
+            os.close(self.requests)
+            self.requests = -1
+            data = _read_all(self.answers)
+        except OSError:   # the copy is gone (a broken pipe)
+            data = b""
+        self._reap()
+        try:
+            return _unpacked(data)
+        except ValueError:
+            return self._here()(*arguments)
+
+    def _reap(self) -> None:
+        for descriptor in (self.requests, self.answers):
+            if descriptor >= 0:
+                os.close(descriptor)
+        os.waitpid(self.pid, 0)
+        self.pid = None
+
+    def close(self) -> None:
+        """End the copy if it was never asked (it sees the request pipe close and leaves)."""
+        if self.pid is not None:
+            self._reap()
+
+    def __enter__(self) -> Helper:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()

@@ -45,7 +45,7 @@ from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, tru
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.first_screen import first_screen_view
-from pipeline.present.inline import drawn_together
+from pipeline.present.picture_jobs import PictureJobs
 from pipeline.present.run_files import RunFiles, load_run_files
 from pipeline.present.track_record import track_record_view
 
@@ -469,19 +469,19 @@ def _drivers_picture(drivers: dict) -> plots.Figure | None:
     return None
 
 
-def _backtest_pictures(metrics: dict, history: pd.DataFrame, predictions: pd.DataFrame,
+def _backtest_pictures(jobs: PictureJobs, metrics: dict, history: pd.DataFrame, predictions: pd.DataFrame,
                        every_model: list[str]) -> list:
-    """Return the Backtest section's pictures: the predictions of the recommended model and its
-    two references, then the errors of every pictured model by origin and by months ahead."""
+    """Return the Backtest section's pictures (stand-ins, ``jobs``): the predictions of the recommended
+    model and its two references, then the errors of every pictured model by origin and by months ahead."""
     drawn = backtest_models(every_model, metrics["models"], metrics["recommended"], metrics.get("best_rule"),
                             metrics.get("select_by", "mae"))
-    pictures = [plots.backtest_picture(history, predictions[predictions["model"].isin(drawn)])]
+    pictures = [jobs.later(30, plots.backtest_picture, history, predictions[predictions["model"].isin(drawn)])]
     by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
     by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
     if len(by_origin) and by_origin["origin"].nunique() > 1:
-        pictures.append(plots.error_picture(by_origin, "origin", "origin"))
+        pictures.append(jobs.later(10, plots.error_picture, by_origin, "origin", "origin"))
     if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
-        pictures.append(plots.error_picture(by_horizon, "horizon", "months ahead"))
+        pictures.append(jobs.later(10, plots.error_picture, by_horizon, "horizon", "months ahead"))
     return pictures
 
 
@@ -489,13 +489,14 @@ def render_report(files: RunFiles | str | Path) -> str:
     """Return the report's HTML, from the run folder's files alone (the pictures drawn together,
     inline.drawn_together)."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
-    with drawn_together():
-        view = _report_view(files)
+    jobs = PictureJobs()
+    view = jobs.done(_report_view(files, jobs))
     return page_environment().get_template("report.html.j2").render(**view)
 
 
-def _report_view(files: RunFiles) -> dict:
-    """Return what the report's template shows, its pictures waiting to be drawn."""
+def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
+    """Return what the report's template shows, its pictures stand-ins for ``jobs`` (weighed by the
+    time each took to make and draw for the demo, in hundredths of a second)."""
     metrics, data = files.metrics, files.fingerprint
     predictions = files.table("predictions.csv")
     forecast = files.table("forecast.csv")
@@ -518,7 +519,7 @@ def _report_view(files: RunFiles) -> dict:
                                   (metrics.get("best_rule"), recommended))
     all_predictions = predictions
     predictions = predictions[predictions["model"].isin(every_model)]
-    backtest_pictures = _backtest_pictures(metrics, history, predictions, every_model)
+    backtest_pictures = _backtest_pictures(jobs, metrics, history, predictions, every_model)
 
     series_count = len(data.get("series", [])) or metrics.get("series_count", 0)
     per_series = per_series_view(
@@ -527,29 +528,29 @@ def _report_view(files: RunFiles) -> dict:
         level=metrics.get("significance_level", 0.05), series_count=series_count)
     if per_series is not None:
         drawn = list(dict.fromkeys([*every_model, *per_series["models"], per_series["featured"]]))
-        per_series["histogram"] = plots.skill_histogram(series_table, per_series["models"], drawn)
+        per_series["histogram"] = jobs.later(8, plots.skill_histogram, series_table, per_series["models"], drawn)
         worst = all_predictions[all_predictions["series"].isin(set(per_series["worst"]["series"]))
                                 & all_predictions["model"].isin(drawn)]
         per_series["pictures"] = [
-            plots.series_picture(history, worst[worst["series"] == row.series], row.series,
-                                 per_series["featured"], row.skill_vs_mean, drawn)
+            jobs.later(13, plots.series_picture, history, worst[worst["series"] == row.series], row.series,
+                       per_series["featured"], row.skill_vs_mean, drawn)
             for row in per_series["worst"].itertuples()]
 
     forecast_picture = None
     forecast_table, method = stated_forecast(forecast, coverage, recommended)
-    first_screen = first_screen_view(history, forecast_table, method, recommended)
+    first_screen = jobs.later(13, first_screen_view, history, forecast_table, method, recommended)
     forecast_rows = len(forecast_table) if forecast_table is not None else 0
     held_by = held_by_view(files.table("interval_coverage_by.csv"), recommended, method)
     if forecast_table is not None:
-        forecast_picture = plots.forecast_picture(history, forecast, recommended, method, scenarios)
+        forecast_picture = jobs.later(44, plots.forecast_picture, history, forecast, recommended, method, scenarios)
         forecast_table = forecast_table.head(TABLE_ROWS)
     shown_scenarios = scenarios[scenarios["model"] == recommended].drop(columns=["model"]) \
         if scenarios is not None and len(scenarios) else None
     drivers = drivers_view(coefficients, recommended, series_count, files.target_transforms(),
                            (files.series_columns(), data.get("series", [])))
     if drivers["levels"] is not None:
-        drivers["levels"]["picture"] = plots.levels_picture(drivers["levels"], drivers["model"])
-    coefficient_picture = _drivers_picture(drivers)
+        drivers["levels"]["picture"] = jobs.later(10, plots.levels_picture, drivers["levels"], drivers["model"])
+    coefficient_picture = jobs.later(11, _drivers_picture, drivers)
     ahead = ahead_view(metrics)
     return dict(
         spec_name=metrics.get("spec_name", ""), run_id=metrics["run_id"], created=metrics["created"],
@@ -561,12 +562,13 @@ def _report_view(files: RunFiles) -> dict:
         best=_best(rows), backtest_pictures=backtest_pictures,
         coverage=coverage, forecast_picture=forecast_picture, forecast_table=forecast_table,
         held_by=held_by, first_screen=first_screen, interval_warning=shortfall_warning(coverage, recommended, method),
-        forecast_rows=forecast_rows, per_series=per_series, track=_track_record(files),
+        forecast_rows=forecast_rows, per_series=per_series, track=jobs.later(8, _track_record, files),
         scenarios=shown_scenarios.head(TABLE_ROWS) if shown_scenarios is not None else None,
         scenario_rows=len(shown_scenarios) if shown_scenarios is not None else 0,
         coefficient_picture=coefficient_picture, drivers=drivers,
         coefficients=drivers["terms"], coefficients_note=drivers["note"],
-        residual_pictures=plots.residual_pictures(residuals) if residuals is not None and len(residuals) else [],
+        residual_pictures=jobs.later(21, plots.residual_pictures, residuals)
+        if residuals is not None and len(residuals) else [],
         diagnostics=diagnostics.to_dict(orient="records") if diagnostics is not None else [],
         influential=influential, data=data, series_names=named(data.get("series", [])),
         names_shown=NAMES_SHOWN,

@@ -90,3 +90,18 @@ def test_no_copy_while_threads_run_or_when_told(monkeypatch):
         thread.join()
     monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
     assert not forked.can_fork()
+
+
+def test_halves_of_about_equal_weight_heaviest_first():
+    # Greedy longest-first scheduling on two machines (common practice): 8 | 5+3, then 2 to the lighter.
+    assert forked._halves([5, 8, 3, 2]) == ([1, 3], [0, 2])
+    here, there = forked._halves([44, 30, 21, 13, 13, 13, 13, 13, 11, 10, 10, 8, 8])
+    loads = [sum([44, 30, 21, 13, 13, 13, 13, 13, 11, 10, 10, 8, 8][i] for i in half) for half in (here, there)]
+    assert sorted(here + there) == list(range(13)) and abs(loads[0] - loads[1]) <= 8
+
+
+def test_weighted_shares_keep_the_order():
+    done = forked.map_shared(_square_with_pid, range(7), weights=[1, 100, 1, 1, 1, 1, 1])
+    assert [value for value, _ in done] == [i * i for i in range(7)]
+    assert done[1][1] == os.getpid() != done[0][1]   # the heavy one alone, here
+    assert len({pid for _, pid in done[2:]}) == 1

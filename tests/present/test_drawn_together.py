@@ -1,6 +1,7 @@
-"""Pictures drawn together (inline.drawn_together): made at once, drawn when the block ends,
-shared with a forked copy of the process where the machine allows. The bytes must be those
-of each picture drawn on its own, in the style in force when it was made."""
+"""Pictures drawn together: the history page's made at once and drawn when the block ends
+(inline.drawn_together), the report's made and drawn as jobs (picture_jobs), both shared with
+a forked copy of the process where the machine allows. The bytes must be those of each
+picture drawn on its own, in the style in force when it was made."""
 
 from __future__ import annotations
 
@@ -15,6 +16,7 @@ from pipeline.core import forked
 from pipeline.present import plots
 from pipeline.present.inline import drawn_together, inline_picture
 from pipeline.present.pages import render_pages
+from pipeline.present.picture_jobs import PictureJobs
 
 
 def _figure(title: str):
@@ -58,10 +60,17 @@ def test_every_picture_of_the_report_is_drawn_in_one_batch(demo_folder, monkeypa
     calls = []
     original = forked.map_shared
 
-    def counted(function, items):
+    def counted(function, items, weights=None):
         calls.append(len(items))
-        return original(function, items)
+        return original(function, items, weights)
 
-    monkeypatch.setattr("pipeline.present.inline.map_shared", counted)
+    monkeypatch.setattr("pipeline.present.picture_jobs.map_shared", counted)
     render_pages(demo_folder)
-    assert len(calls) == 1 and calls[0] >= 10
+    assert len(calls) == 1 and calls[0] >= 10   # the report's pictures, as jobs
+
+
+def test_picture_jobs_replace_their_stand_ins_as_deep_as_they_go():
+    jobs = PictureJobs()
+    view = {"a": jobs.later(3, sum, [1, 2]), "b": [jobs.later(1, max, 4, 9), ("x", jobs.later(2, str, 5))],
+            "c": {"d": jobs.later(1, lambda: None)}, "e": 7}
+    assert jobs.done(view) == {"a": 3, "b": [9, ("x", "5")], "c": {"d": None}, "e": 7}
