@@ -45,8 +45,17 @@ class TerminalBar(Quiet):
         from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
         self._bar = Progress(TextColumn("{task.description:>16}"), BarColumn(), MofNCompleteColumn(),
                              TextColumn("left"), TimeRemainingColumn(),
-                             console=Console(file=stream), transient=True)
+                             console=Console(file=stream), transient=True, auto_refresh=False)
         self._tasks: dict[str, int] = {}
+        self._drawn = 0.0
+
+    def _refresh(self, now: bool = False) -> None:
+        """Redraw the bars, at most ten times a second. They are redrawn as work reports, never by
+        a thread of their own: a run forks copies of itself (core.forked), which a thread forbids."""
+        import time
+        if now or time.monotonic() - self._drawn >= 0.1:
+            self._bar.refresh()
+            self._drawn = time.monotonic()
 
     def __enter__(self) -> TerminalBar:
         self._bar.start()
@@ -60,15 +69,18 @@ class TerminalBar(Quiet):
             self._bar.reset(self._tasks[label], total=total)
         else:
             self._tasks[label] = self._bar.add_task(label, total=total)
+        self._refresh(now=True)
 
     def advance(self, label: str, steps: int = 1) -> None:
         if label in self._tasks:
             self._bar.advance(self._tasks[label], steps)
+            self._refresh()
 
     def finish(self, label: str) -> None:
         if label in self._tasks:
             task = self._tasks[label]
             self._bar.update(task, completed=self._bar.tasks[task].total)
+            self._refresh(now=True)
 
 
 QUIET = Quiet()   # the default of every stage and fit that takes a progress

@@ -68,6 +68,19 @@ def test_a_terminal_gets_bars_with_counts_for_origins_and_series():
     assert "12/12" in text
 
 
+def test_the_bars_run_no_thread_so_a_run_may_fork_under_them():
+    import threading
+    stream = FakeTerminal()
+    before = threading.active_count()
+    with progress.showing(stream) as bar:
+        bar.start("origins", 3)
+        assert threading.active_count() == before   # rich's refresh thread would forbid core.forked
+        for _ in range(3):
+            bar.advance("origins")
+        bar.finish("origins")
+    assert "3/3" in stream.getvalue()
+
+
 def test_a_run_reports_origins_and_series_to_the_progress_it_is_handed(tmp_path):
     """The demo data (for plumbing: 4 regions) at 3 rolling origins with a model per series:
     every origin is counted, and every per-series fit (one per origin, then the final fit on
