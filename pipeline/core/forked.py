@@ -31,6 +31,12 @@ from collections.abc import Callable, Sequence
 _sharing_copy = False
 
 
+def in_copy() -> bool:
+    """Return whether this process is a copy map_shared made (which should report no progress:
+    the process that made it counts the copy's work when it is done)."""
+    return _sharing_copy
+
+
 def can_fork() -> bool:
     """Return whether work may be shared with a forked copy of this process now."""
     return (not _sharing_copy and sys.platform.startswith("linux") and hasattr(os, "fork") and (os.cpu_count() or 1) > 1

@@ -13,13 +13,15 @@ once and the QR factor is grown block by block (``GrowingLeastSquares``).
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from functools import partial
 
 import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
-from pipeline.core.execution import IN_PROCESS, Executor
+from pipeline.core.execution import IN_PROCESS, Executor, InProcess
+from pipeline.core.forked import in_copy, map_shared
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import ahead_words
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
@@ -331,6 +333,46 @@ def _predict_window(spec: Spec, split: Split, plan, designs: _WindowDesigns, cho
         as_known
 
 
+@dataclass(frozen=True)
+class _Backtest:
+    """What every window of a backtest reads."""
+
+    spec: Spec
+    shared: tuple | None
+    plain: bool
+    estimating: bool
+    time_ordered: bool
+    fast_ols: dict
+    executor: Executor
+    progress: Progress
+
+
+def _window(backtest: _Backtest, window: tuple) -> tuple:
+    """Return one window's prediction frames, hindsight frames, fallbacks, strategy note, other
+    notes, and whether a forked copy (core.forked) made them: a copy reports no progress of its
+    own, the process that made it counts its windows when they come back."""
+    spec, (split, happened, plan) = backtest.spec, window
+    progress = QUIET if in_copy() else backtest.progress
+    designs = _WindowDesigns(spec, split, plan, backtest.shared, backtest.plain,
+                             hindsight=happened.test if backtest.estimating else None)
+    window_codes = series_index(designs.cache["train"][0]) if backtest.shared is not None else None
+    scales = mase_scales(split.train, spec.target, series_codes=window_codes) if backtest.time_ordered else {}
+    columns = _split_columns(split, spec.target, scales)
+    note = _strategy_note(spec, split)
+    frames, known_frames, fallen_back = [], [], []
+    for choice in spec.models:
+        predicted, se, df_resid, centre, fell_back, as_known = _predict_window(
+            spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=backtest.fast_ols,
+            executor=backtest.executor, progress=progress)
+        fallen_back += fell_back
+        frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid, centre))
+        if as_known is not None:
+            known_frames.append(_frame_predictions(columns, choice.name, as_known))
+    if not in_copy():
+        progress.advance("origins")
+    return frames, known_frames, fallen_back, note, designs.left_out_notes() + list(split.notes), in_copy()
+
+
 def _fallback_frame(found: list[pd.DataFrame | None]) -> pd.DataFrame:
     frames = [frame for frame in found if frame is not None]
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=FALLBACK_COLUMNS)
@@ -383,25 +425,22 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     frames, known_frames = [], []
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
-    for split, happened, plan in zip(splits, as_happened, plans):
-        designs = _WindowDesigns(spec, split, plan, shared, plain,
-                                 hindsight=happened.test if estimating else None)
-        window_codes = series_index(designs.cache["train"][0]) if shared is not None else None
-        scales = mase_scales(split.train, spec.target, series_codes=window_codes) if time_ordered else {}
-        columns = _split_columns(split, spec.target, scales)
-        note = _strategy_note(spec, split)
+
+    # The windows are shared with a forked copy of this process where the machine allows and the
+    # fits run here (not on worker processes or a cluster of their own); heavier windows weigh more.
+    window = partial(_window, _Backtest(spec, shared, plain, estimating, time_ordered, fast_ols, executor, progress))
+    windows = list(zip(splits, as_happened, plans))
+    done = (map_shared(window, windows, [len(split.train) + len(split.test) for split in splits])
+            if isinstance(executor, InProcess) else [window(one) for one in windows])
+    for found, known, fell_back, note, more_notes, elsewhere in done:
+        frames += found
+        known_frames += known
+        fallen_back += fell_back
         if note and note not in notes:
             notes.append(note)
-        for choice in spec.models:
-            predicted, se, df_resid, centre, fell_back, as_known = _predict_window(
-                spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=fast_ols,
-                executor=executor, progress=progress)
-            fallen_back += fell_back
-            frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid, centre))
-            if as_known is not None:
-                known_frames.append(_frame_predictions(columns, choice.name, as_known))
-        notes += designs.left_out_notes() + list(split.notes)
-        progress.advance("origins")
+        notes += more_notes
+        if elsewhere:
+            progress.advance("origins")
     if not time_ordered:
         notes.append("k-fold validation ignores time order: MASE is not computed and the "
                      "comparison says nothing about forecasting ahead")

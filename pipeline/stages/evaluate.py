@@ -15,12 +15,14 @@ groups, not a loop over series, so that thousands of series cost well under a se
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 
 import numpy as np
 import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
+from pipeline.core.forked import map_shared
 from pipeline.core.formatting import format_number
 from pipeline.core.intervals import (
     backtest_intervals,
@@ -478,6 +480,23 @@ def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: st
     return best_rule, table
 
 
+def _call(task):
+    return task()
+
+
+def _breakdowns(backtest: BacktestResult, select_by: str, level: float) -> tuple:
+    """Return the scores by origin, by months ahead (empty without a time order) and by series."""
+    predictions = backtest.predictions
+    time_ordered = backtest.scheme in ("holdout", "rolling_origin")
+    by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
+    by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \
+        if time_ordered else pd.DataFrame()
+    by_series = _with_series_tests(_with_skill(grouped_scores(predictions, ["model", "series"]),
+                                               ["series"], select_by),
+                                   series_tests(predictions, backtest, select_by), level)
+    return by_origin, by_horizon, by_series
+
+
 def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     """Return the metrics of each model, its skill against the mean of the training months and the best
     simple rule, and the answer."""
@@ -518,14 +537,11 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     contenders = contenders[contenders[select_by].notna()]
     recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
     answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)
-    time_ordered = backtest.scheme in ("holdout", "rolling_origin")
-    by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
-    by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \
-        if time_ordered else pd.DataFrame()
-    by_series = _with_series_tests(_with_skill(grouped_scores(predictions, ["model", "series"]),
-                                               ["series"], select_by),
-                                   series_tests(predictions, backtest, select_by), level)
-    held, held_by = backtest_intervals(predictions, backtest.transform, backtest.floor)
+    # The tables by origin, months ahead and series, and the intervals' coverage, are computed
+    # side by side with a forked copy of this process where the machine allows (core.forked).
+    (by_origin, by_horizon, by_series), (held, held_by) = map_shared(_call, [
+        partial(_breakdowns, backtest, select_by, level),
+        partial(backtest_intervals, predictions, backtest.transform, backtest.floor)])
     # The interval score (Winkler 1972) of the 95% interval the pages state for each model.
     table["interval_score_95"] = [stated_interval_score(held, model) for model in table["model"]]
     return Evaluation(table=table, by_origin=by_origin, by_horizon=by_horizon, by_series=by_series,

@@ -12,12 +12,14 @@ whose target was filled are never predicted as if they were actuals.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
+from pipeline.core.forked import map_shared
 from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.spec import Spec
@@ -223,6 +225,10 @@ def validation_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
     return fold_splits(spec, data), 0
 
 
+def _fitted_plan(spec: Spec, split: Split):
+    return plan_features(spec, SERIES).fit(split.train)
+
+
 def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     """Return the validation splits, the longest horizon and each split's fitted feature plan.
 
@@ -232,7 +238,9 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
     if spec.estimated_columns and splits and splits[0].origin is not None:
         months, label = min((split.train[PERIOD].nunique(), split.label) for split in splits)
         require_a_year(spec, int(months), f"the training window ending {label}")
-    plans = [plan_features(spec, SERIES).fit(split.train) for split in splits]
+    # Each window's plan is learned from that window alone: the windows are shared with a forked
+    # copy of this process where the machine allows (core.forked), the longer ones weighing more.
+    plans = map_shared(partial(_fitted_plan, spec), splits, [len(split.train) for split in splits])
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
     return splits, horizon, plans
