@@ -63,14 +63,16 @@ def _ledger_dump(ledger: Path, folder: Path) -> dict[str, str]:
     return dump
 
 
-def _run(name: str, tmp_path: Path) -> dict[str, str]:
+def _run(name: str, tmp_path: Path, one_process: bool = False) -> dict[str, str]:
     spec = yaml.safe_load((STORED / f"{name}.yaml").read_text())
     spec["input"]["file"] = str((STORED / spec["input"]["file"]).resolve())
     spec["output"]["folder"] = str(tmp_path / "out")
     spec_file = tmp_path / f"{name}.yaml"
     spec_file.write_text(yaml.safe_dump(spec, sort_keys=False))
+    env = dict(os.environ, CASTLINE_ONE_PROCESS="1") if one_process else \
+        {key: value for key, value in os.environ.items() if key != "CASTLINE_ONE_PROCESS"}
     done = subprocess.run([sys.executable, "-m", "pipeline", "run", str(spec_file)],
-                          capture_output=True, text=True, cwd=tmp_path)
+                          capture_output=True, text=True, cwd=tmp_path, env=env)
     assert done.returncode == 0, done.stderr
     (run_folder,) = (tmp_path / "out").glob("run-*")
     files = {"console.txt": _masked(done.stdout + done.stderr, tmp_path)}
@@ -80,11 +82,13 @@ def _run(name: str, tmp_path: Path) -> dict[str, str]:
     return files
 
 
-@pytest.mark.parametrize("name", SPECS)
-def test_a_run_writes_what_it_wrote_before(name, tmp_path):
-    files = _run(name, tmp_path)
+@pytest.mark.parametrize(("name", "one_process"), [(name, False) for name in SPECS] + [("wide", True)])
+def test_a_run_writes_what_it_wrote_before(name, one_process, tmp_path):
+    """In a fresh process, which shares work with forked copies of itself where the machine
+    allows (core.forked), and once with CASTLINE_ONE_PROCESS=1, which does all of it itself."""
+    files = _run(name, tmp_path, one_process)
     stored = STORED / name
-    if REWRITE:
+    if REWRITE and not one_process:
         stored.mkdir(exist_ok=True)
         for old in stored.iterdir():
             old.unlink()
