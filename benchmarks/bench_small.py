@@ -7,7 +7,8 @@ checkout, with the same interpreter). It times, each as its own process:
 
 - a bare ``python -c "import pandas, numpy"``: what any pandas tool pays to start;
 - ``castline check`` and ``castline run`` on the shipped demo (configs/compost_demo.yaml,
-  run into a temporary folder), as ratios to the bare start;
+  run into a temporary folder), as ratios to the bare start, and the run once more with
+  ``CASTLINE_ONE_PROCESS=1`` (all of it in one process: what the second core saves);
 - ``castline run`` of a generated panel (46 series x 120 months, three numeric drivers,
   the series as a one-hot categorical driver, rolling origins), once under cProfile:
   the share of its time spent in the final fit's diagnostics
@@ -137,6 +138,8 @@ def main(argv: list[str] | None = None) -> int:
         check = median_of(args.repeats, ["-m", "pipeline", "check", str(spec)], env, folder)
         run = median_of(args.repeats, ["-m", "pipeline", "run", str(spec), "--output-folder", str(out)],
                         env, folder)
+        alone = median_of(args.repeats, ["-m", "pipeline", "run", str(spec), "--output-folder", str(out)],
+                          dict(env, CASTLINE_ONE_PROCESS="1"), folder)
         shutil.rmtree(out, ignore_errors=True)
         panel = build_panel(folder, args.panel_series, args.panel_months)
         total, diagnose, vif = profiled_share(panel, env, folder)
@@ -147,6 +150,8 @@ def main(argv: list[str] | None = None) -> int:
           f"(target <= {TARGET_CHECK} s: {verdict(check <= TARGET_CHECK)})")
     print(f"castline run (demo)                    {run:7.2f} s  = {run / bare:5.1f} x bare  "
           f"(target <= {TARGET_RUN} s: {verdict(run <= TARGET_RUN)})")
+    print(f"castline run (demo), one process       {alone:7.2f} s  = {alone / bare:5.1f} x bare  "
+          f"(CASTLINE_ONE_PROCESS=1: no forked copies; {os.cpu_count()} cores here)")
     share = diagnose / total
     print(f"panel run ({args.panel_series} series x {args.panel_months} months, under cProfile) "
           f"{total:7.2f} s; diagnostics {diagnose:.2f} s = {share:.1%} of it, of which VIF "

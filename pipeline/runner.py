@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from pipeline.core.errors import DataError, UserError
+from pipeline.core.forked import Helper, settled
 from pipeline.core.progress import QUIET, Progress
 from pipeline.spec import CsvOptions, Spec, load_spec
 
@@ -143,7 +144,7 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
         "read_input", "check_data", "settle_validation", "run_backtest", "evaluate", "make_forecast",
         "executor_for", "track_record", "publish")
     spec = _as_spec(spec_or_path)
-    with _pages_helper() as pages:
+    with settled(), _pages_helper() as pages:
         with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
             data = check_data(spec, read_input(spec))
             spec, notes = settle_validation(spec, data)
@@ -169,7 +170,6 @@ def _pages_helper():
     """Return the pages' renderer for a run: a forked copy of this process that imports the pages'
     modules (matplotlib, jinja2: some 0.4 s) while this one checks and fits, and renders the
     pages once the run folder's files are written (core.forked.Helper; here where it cannot)."""
-    from pipeline.core.forked import Helper
     return Helper(__name__, "_pages_of", preload=(_STAGES["render_pages"],))
 
 

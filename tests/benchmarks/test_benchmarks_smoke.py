@@ -40,6 +40,7 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
         [rf"bare python -c 'import pandas, numpy'\s+{NUMBER} s",
          rf"castline check \(demo\)\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(target <= 1\.5 s: (met|MISSED)\)",
          rf"castline run \(demo\)\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(target <= 3\.0 s: (met|MISSED)\)",
+         rf"castline run \(demo\), one process\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(CASTLINE_ONE_PROCESS=1",
          rf"diagnostics {NUMBER} s = {NUMBER}% of it, of which VIF {NUMBER} s \(target <= 10%: (met|MISSED)\)"],
     ),
     "bench_many_series.py": (

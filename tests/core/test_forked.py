@@ -105,3 +105,11 @@ def test_weighted_shares_keep_the_order():
     assert [value for value, _ in done] == [i * i for i in range(7)]
     assert done[1][1] == os.getpid() != done[0][1]   # the heavy one alone, here
     assert len({pid for _, pid in done[2:]}) == 1
+
+
+def test_settled_sets_the_living_objects_aside_for_the_block_only():
+    import gc
+    before = gc.get_freeze_count()
+    with forked.settled():
+        assert gc.get_freeze_count() > before
+    assert gc.get_freeze_count() == 0
