@@ -168,9 +168,11 @@ def _pages_of(folder: Path) -> dict[str, str]:
 
 def _pages_helper():
     """Return the pages' renderer for a run: a forked copy of this process that imports the pages'
-    modules (matplotlib, jinja2: some 0.4 s) while this one checks and fits, and renders the
+    modules (matplotlib, jinja2: some 0.4 s) and compiles their templates while this one checks
+    and fits, at a lower priority than the run's own work, and renders the
     pages once the run folder's files are written (core.forked.Helper; here where it cannot)."""
-    return Helper(__name__, "_pages_of", preload=(_STAGES["render_pages"],))
+    return Helper(__name__, "_pages_of", preload=(_STAGES["render_pages"], "pipeline.present.report:compile_templates"),
+                  background=True)
 
 
 def init(data_file: str | Path, spec_file: str | Path | None = None, *,

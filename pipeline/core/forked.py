@@ -1,10 +1,11 @@
 """Work shared with a forked copy of this process, on a machine with a second core.
 
-A run's report draws a dozen pictures, each a pure function of values already in memory.
-``map_shared`` hands every other one to a copy of the process made by ``os.fork`` (which
-starts at once: it shares the memory and the libraries already imported) and does the
-rest itself, so two cores draw them in about half the time. Only the results cross back,
-pickled through a pipe.
+``map_shared`` hands about half of a list of items (by their weights) to a copy of the
+process made by ``os.fork`` (which starts at once: it shares the memory and the libraries
+already imported) and does the rest itself; only the results cross back, pickled through
+a pipe. A run uses it for its windows' feature plans and fits and its report's pictures.
+``Helper`` is a copy made at the start of a run that imports what the run's last step
+needs (the pages' libraries) while the run works, then does that step when asked.
 
 It falls back to doing everything here, with the same results in the same order,
 wherever forking is unsafe or pays nothing: off Linux, on one core, when the process
@@ -173,7 +174,8 @@ class Helper:
     or the copy fails, the function runs here (imported here), so its errors are raised here.
     """
 
-    def __init__(self, module: str, function: str, *, preload: tuple[str, ...] = ()) -> None:
+    def __init__(self, module: str, function: str, *, preload: tuple[str, ...] = (),
+                 background: bool = False) -> None:
         self.module, self.function, self.preload, self.pid = module, function, preload, None
         if not can_fork():
             return
@@ -185,6 +187,8 @@ class Helper:
             os.close(request_write)
             os.close(answer_read)
             _die_with_parent(parent)
+            if background:   # while it only prepares, the process's own work (and its copies) goes first
+                os.nice(10)
             self._serve(request_read, answer_write)
         os.close(request_read)
         os.close(answer_write)
@@ -195,8 +199,11 @@ class Helper:
 
     def _serve(self, requests: int, answers: int) -> None:
         try:
-            for module in self.preload:
-                importlib.import_module(module)
+            for name in self.preload:
+                module, _, prepare = name.partition(":")
+                loaded = importlib.import_module(module)
+                if prepare:
+                    getattr(loaded, prepare)()
             function = self._here()
             request = _read_all(requests)
             if request:   # nothing: this process closed the helper unused

@@ -12,6 +12,7 @@ every value from the data is escaped by the template engine.
 
 from __future__ import annotations
 
+import functools
 import math
 from pathlib import Path
 
@@ -83,9 +84,11 @@ WORST_SHOWN = 5        # worst series pictured in the Per series section
 SIGNIFICANT = 0.05     # a coefficient's p-value counted as small in the summary across series
 
 
+@functools.cache
 def page_environment() -> jinja2.Environment:
     """Return the template engine of the HTML pages (the report, the history page): every value
-    escaped, an undefined name an error, numbers formatted as the report shows them."""
+    escaped, an undefined name an error, numbers formatted as the report shows them. One per
+    process, so each template is compiled once (jinja2 keeps them)."""
     environment = jinja2.Environment(
         loader=jinja2.PackageLoader("pipeline.present", "templates"),
         autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
@@ -105,13 +108,25 @@ def page_environment() -> jinja2.Environment:
 
 def render_markdown(template: str, **context) -> str:
     """Return a Markdown template rendered (Markdown is not HTML: tables escape their pipes)."""
+    return _markdown_environment().get_template(template).render(**context)
+
+
+def compile_templates() -> None:
+    """Compile the run's page templates now (a helper preparing to render them does this while
+    the run fits: some 0.1 s)."""
+    page_environment().get_template("report.html.j2")
+    _markdown_environment().get_template("summary.md.j2")
+
+
+@functools.cache
+def _markdown_environment() -> jinja2.Environment:
     environment = jinja2.Environment(loader=jinja2.PackageLoader("pipeline.present", "templates"),
                                      autoescape=False, undefined=jinja2.StrictUndefined,
                                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
     environment.filters["table"] = markdown_table
     environment.filters["num"] = format_number
     environment.filters["model_label"] = model_label
-    return environment.get_template(template).render(**context)
+    return environment
 
 
 def named(names, shown: int = NAMES_SHOWN) -> str:

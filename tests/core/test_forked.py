@@ -113,3 +113,28 @@ def test_settled_sets_the_living_objects_aside_for_the_block_only():
     with forked.settled():
         assert gc.get_freeze_count() > before
     assert gc.get_freeze_count() == 0
+
+
+def _pid_and(value):
+    return os.getpid(), value
+
+
+def test_a_helper_runs_the_function_in_its_copy_and_returns_the_result():
+    with forked.Helper(__name__, "_pid_and", preload=("json", "gc:collect")) as helper:
+        pid, value = helper({"a": [1, 2]})
+    assert value == {"a": [1, 2]} and pid != os.getpid()
+    with pytest.raises(ChildProcessError):   # reaped
+        os.waitpid(-1, os.WNOHANG)
+
+
+def test_a_helper_closed_unused_leaves_no_process():
+    forked.Helper(__name__, "_pid_and").close()
+    with pytest.raises(ChildProcessError):
+        os.waitpid(-1, os.WNOHANG)
+
+
+def test_a_helper_that_fails_runs_the_function_here_and_its_error_is_raised_here():
+    with forked.Helper(__name__, "_fails_on_three") as helper, pytest.raises(ValueError, match="three"):
+        helper(3)
+    with forked.Helper(__name__, "_pid_and", preload=("no_such_module_anywhere",)) as helper:
+        assert helper(5) == (os.getpid(), 5)   # the copy could not prepare: done here
