@@ -58,10 +58,6 @@ def timed(arguments: list[str], env: dict[str, str], cwd: Path) -> float:
     return elapsed
 
 
-def median_of(repeats: int, arguments: list[str], env: dict[str, str], cwd: Path) -> float:
-    return statistics.median(timed(arguments, env, cwd) for _ in range(repeats))
-
-
 def demo_copy(folder: Path) -> Path:
     """Copy the demo spec beside a copy of its data, the data path made absolute."""
     text = DEMO.read_text(encoding="utf-8").replace("../data_samples/", f"{ROOT / 'data_samples'}/")
@@ -134,12 +130,20 @@ def main(argv: list[str] | None = None) -> int:
         folder = Path(tmp)
         spec = demo_copy(folder)
         out = folder / "out"
-        bare = median_of(args.repeats, ["-c", "import pandas, numpy"], env, folder)
-        check = median_of(args.repeats, ["-m", "pipeline", "check", str(spec)], env, folder)
-        run = median_of(args.repeats, ["-m", "pipeline", "run", str(spec), "--output-folder", str(out)],
-                        env, folder)
-        alone = median_of(args.repeats, ["-m", "pipeline", "run", str(spec), "--output-folder", str(out)],
-                          dict(env, CASTLINE_ONE_PROCESS="1"), folder)
+        # Each repeat times every command once, in turn: a shared machine's speed drifts over
+        # minutes, and interleaving spreads the drift over all of them alike.
+        commands = {
+            "bare": (["-c", "import pandas, numpy"], env),
+            "check": (["-m", "pipeline", "check", str(spec)], env),
+            "run": (["-m", "pipeline", "run", str(spec), "--output-folder", str(out)], env),
+            "alone": (["-m", "pipeline", "run", str(spec), "--output-folder", str(out)],
+                      dict(env, CASTLINE_ONE_PROCESS="1")),
+        }
+        times: dict[str, list[float]] = {name: [] for name in commands}
+        for _ in range(args.repeats):
+            for name, (arguments, environ) in commands.items():
+                times[name].append(timed(arguments, environ, folder))
+        bare, check, run, alone = (statistics.median(times[name]) for name in commands)
         shutil.rmtree(out, ignore_errors=True)
         panel = build_panel(folder, args.panel_series, args.panel_months)
         total, diagnose, vif = profiled_share(panel, env, folder)
