@@ -239,8 +239,10 @@ class Helper:
         self.pid = None
 
     def close(self) -> None:
-        """End the copy if it was never asked (it sees the request pipe close and leaves)."""
+        """End the copy if it was never asked (a run that failed early): at once, without
+        waiting for it to finish preparing."""
         if self.pid is not None:
+            os.kill(self.pid, signal.SIGKILL)
             self._reap()
 
     def __enter__(self) -> Helper:
