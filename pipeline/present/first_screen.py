@@ -102,8 +102,7 @@ def forecast_glance(history: pd.DataFrame, stated: pd.DataFrame, series, model: 
     if before:
         alt += (f", {format_percent(total / before - 1)} against the same months a year earlier "
                 f"({format_number(before)})")
-    picture.alt = alt + "."
-    return picture
+    return plots.Figure(picture.uri, alt + ".")
 
 
 def pictured_series(history: pd.DataFrame, stated: pd.DataFrame):

@@ -20,7 +20,7 @@ from pipeline.core.catalogue import BASELINE
 from pipeline.core.intervals import closest_method, shortfall_warning
 from pipeline.present import plots
 from pipeline.present.history_plot import FAN_MONTHS, fan_figure, history_figure, realised_figure
-from pipeline.present.inline import drawn_together
+from pipeline.present.picture_jobs import PictureJobs
 from pipeline.present.report import page_environment
 from pipeline.present.track_record import skill_words
 from pipeline.review.history_book import HistoryBook, run_labels
@@ -160,21 +160,27 @@ def recorded_warnings(book: HistoryBook) -> tuple[pd.DataFrame, list[str]]:
     return table, unread
 
 
+def _drawn(make, *arguments) -> plots.Figure:
+    return plots.inline_picture(*make(*arguments))
+
+
 def _pictures(book: HistoryBook) -> dict:
-    with drawn_together():   # inline.drawn_together: drawn when the block ends, two at a time
-        title = f"{book.spec_name}: backtest " + "{} per run"
-        pictures = {"mae": plots.inline_picture(*history_figure(book.metrics, "mae", title.format("MAE")))}
-        if book.metrics["model"].nunique() > 1:
-            pictures["skill"] = plots.inline_picture(
-                *history_figure(book.metrics, "skill_vs_mean", title.format("skill against the mean")))
-        own = book.realised[book.realised["recommended"].astype(bool)]
-        if len(own):
-            pictures["realised"] = plots.inline_picture(*realised_figure(own, book.runs))
-            pictures["band"] = plots.track_record_picture(book.scored)
-        if len(book.fan):
-            series = int(book.fan["series"].max())
-            pictures["fan"] = plots.inline_picture(*fan_figure(book.fan, book.runs, series))
-    return pictures
+    """Return the page's pictures, made and drawn as jobs (picture_jobs: shared with a forked copy
+    of the process where the machine allows)."""
+    jobs = PictureJobs()
+    title = f"{book.spec_name}: backtest " + "{} per run"
+    pictures = {"mae": jobs.later(1, _drawn, history_figure, book.metrics, "mae", title.format("MAE"))}
+    if book.metrics["model"].nunique() > 1:
+        pictures["skill"] = jobs.later(1, _drawn, history_figure, book.metrics, "skill_vs_mean",
+                                       title.format("skill against the mean"))
+    own = book.realised[book.realised["recommended"].astype(bool)]
+    if len(own):
+        pictures["realised"] = jobs.later(1, _drawn, realised_figure, own, book.runs)
+        pictures["band"] = jobs.later(1, plots.track_record_picture, book.scored)
+    if len(book.fan):
+        series = int(book.fan["series"].max())
+        pictures["fan"] = jobs.later(1, _drawn, fan_figure, book.fan, book.runs, series)
+    return jobs.done(pictures)
 
 
 def render_history_page(book: HistoryBook) -> str:

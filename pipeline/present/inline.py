@@ -7,19 +7,14 @@ import base64
 import io
 import re
 import urllib.parse
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 
 from markupsafe import Markup
 
-from pipeline.core.forked import map_shared
 
-
-@dataclass
+@dataclass(frozen=True)
 class Figure:
-    """A picture for the report and its text alternative (its uri is filled in when a block of
-    ``drawn_together`` ends, for a picture made inside one)."""
+    """A picture for the report and its text alternative."""
 
     uri: str
     alt: str
@@ -27,11 +22,15 @@ class Figure:
 
 def picture_bytes(figure, kind: str) -> bytes:
     """Return a drawn figure saved as 'png' or 'svg', without a timestamp or software tag, so
-    the same run draws the same bytes (the SVG's ids come from STYLE's svg.hashsalt); the SVG
-    compacted (``compact_svg``)."""
+    the same run draws the same bytes (the SVG's ids come from svg.hashsalt: the style's, or
+    castline's when the style sets none, as the history page's pictures'); the SVG compacted
+    (``compact_svg``)."""
+    import matplotlib
     buffer = io.BytesIO()
     metadata = {"Software": None} if kind == "png" else {"Date": None, "Creator": None}
-    figure.savefig(buffer, format=kind, metadata=metadata)
+    salt = matplotlib.rcParams["svg.hashsalt"] or "castline"
+    with matplotlib.rc_context({"svg.hashsalt": salt}):
+        figure.savefig(buffer, format=kind, metadata=metadata)
     return buffer.getvalue() if kind == "png" else compact_svg(buffer.getvalue())
 
 
@@ -107,69 +106,18 @@ def picture_data(uri: str) -> tuple[str, bytes]:
     raise ValueError(f"not a picture's data URI: {head}")
 
 
-def _drawn_uri(figure, kind: str | None) -> str:
-    """Return a figure laid out, drawn and encoded as a data URI of the kind (as inline_picture)."""
+def inline_picture(figure, alt: str, kind: str | None = None) -> Figure:
+    """Return a drawn figure as an inline picture (a data URI) with its text alternative: ``kind``
+    'svg' (a line or dot chart: sharp at any size) or 'png' (a scatter of many points is smaller
+    so); without one, whichever of the two makes the shorter data URI."""
     if figure.get_layout_engine() is None:   # a figure drawn with a layout of its own keeps it
         figure.tight_layout()
         # tight_layout leaves a placeholder engine, for which savefig lays out and draws the whole
         # figure once more before drawing it (a third of a picture's time): none is left.
         figure.set_layout_engine(None)
     if kind is not None:
-        return data_uri(kind, picture_bytes(figure, kind))
-    return min((data_uri(kind, picture_bytes(figure, kind)) for kind in ("svg", "png")), key=len)
-
-
-# The pictures made inside a block of drawn_together and not yet drawn: (figure, kind, the
-# style in force when it was made, its Figure); None outside a block. With it, matplotlib's
-# settings when the block began.
-_waiting: list | None = None
-_settings_before: dict | None = None
-
-
-def _style_now() -> dict:
-    """Return matplotlib's settings that differ from those when the block began (the picture's
-    style, set by the code that made it; 'backend' is never among them)."""
-    import matplotlib
-    now = matplotlib.rcParams
-    return {key: now[key] for key in now if key != "backend" and now[key] != _settings_before[key]}
-
-
-def _draw_waiting(entry) -> str:
-    import matplotlib
-    figure, kind, style, _ = entry
-    with matplotlib.rc_context(style):
-        return _drawn_uri(figure, kind)
-
-
-@contextmanager
-def drawn_together() -> Iterator[None]:
-    """Within the block, inline_picture returns each picture at once with its text alternative
-    and draws none; they are drawn when the block ends, each in the matplotlib style in force
-    when it was made, shared with a second process where the machine allows (core.forked:
-    laying out and drawing is most of a report's time). The same bytes either way."""
-    import matplotlib
-    global _waiting, _settings_before
-    outer = _waiting, _settings_before
-    _waiting, _settings_before = [], matplotlib.rcParams.copy()
-    try:
-        yield
-        entries = _waiting
-    finally:
-        _waiting, _settings_before = outer
-    for entry, uri in zip(entries, map_shared(_draw_waiting, entries), strict=True):
-        entry[3].uri = uri
-
-
-def inline_picture(figure, alt: str, kind: str | None = None) -> Figure:
-    """Return a drawn figure as an inline picture (a data URI) with its text alternative: ``kind``
-    'svg' (a line or dot chart: sharp at any size) or 'png' (a scatter of many points is smaller
-    so); without one, whichever of the two makes the shorter data URI. Inside a block of
-    ``drawn_together``, the uri is filled in when the block ends."""
-    if _waiting is None:
-        return Figure(_drawn_uri(figure, kind), alt)
-    picture = Figure("", alt)
-    _waiting.append((figure, kind, _style_now(), picture))
-    return picture
+        return Figure(data_uri(kind, picture_bytes(figure, kind)), alt)
+    return Figure(min((data_uri(kind, picture_bytes(figure, kind)) for kind in ("svg", "png")), key=len), alt)
 
 
 # A drawn point (a marker) costs SVG some 100 bytes, and a PNG of the report's sizes holds 20 to

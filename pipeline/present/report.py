@@ -501,8 +501,8 @@ def _backtest_pictures(jobs: PictureJobs, metrics: dict, history: pd.DataFrame, 
 
 
 def render_report(files: RunFiles | str | Path) -> str:
-    """Return the report's HTML, from the run folder's files alone (the pictures drawn together,
-    inline.drawn_together)."""
+    """Return the report's HTML, from the run folder's files alone (the pictures made and drawn as
+    jobs, picture_jobs)."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
     jobs = PictureJobs()
     view = jobs.done(_report_view(files, jobs))

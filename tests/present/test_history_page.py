@@ -284,3 +284,14 @@ def test_a_folder_castline_may_not_write_in_is_one_line_and_nothing_made(tiny_ru
     error = capsys.readouterr().err.strip().splitlines()
     assert len(error) == 1 and "cannot write the history page: Permission denied" in error[0]
     assert list(tmp_path.iterdir()) == []
+
+
+def test_the_page_is_the_same_drawn_in_one_process_or_two(page, tiny_runs, tmp_path, monkeypatch):
+    # The pictures are jobs shared with a forked copy where the machine allows (picture_jobs).
+    spec, _, _ = tiny_runs
+    path, _ = page
+    monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
+    alone = tmp_path / "alone.html"
+    assert cli.main(["history", str(spec), "--html", str(alone)]) == 0
+    assert alone.read_text(encoding="utf-8") == path.read_text(encoding="utf-8")
+    assert alone.read_text(encoding="utf-8").count('src="data:image/') >= 3

@@ -1,45 +1,15 @@
-"""Pictures drawn together: the history page's made at once and drawn when the block ends
-(inline.drawn_together), the report's made and drawn as jobs (picture_jobs), both shared with
-a forked copy of the process where the machine allows. The bytes must be those of each
-picture drawn on its own, in the style in force when it was made."""
+"""The pages' pictures made and drawn as jobs (picture_jobs), shared with a forked copy of the
+process where the machine allows: the pages must be the same to the byte as drawn in one."""
 
 from __future__ import annotations
 
-import matplotlib
-import matplotlib.figure
 import pytest
 from conftest import DEMO_SPEC
-from matplotlib.backends.backend_agg import FigureCanvasAgg
 
 import pipeline
 from pipeline.core import forked
-from pipeline.present import plots
-from pipeline.present.inline import drawn_together, inline_picture
 from pipeline.present.pages import render_pages
 from pipeline.present.picture_jobs import PictureJobs
-
-
-def _figure(title: str):
-    figure = matplotlib.figure.Figure(figsize=(4, 3))
-    FigureCanvasAgg(figure)
-    axis = figure.subplots()
-    axis.plot([1, 2, 3, 4], [3, 1, 4, 1], marker="o")
-    axis.set_title(title)
-    return figure
-
-
-def test_a_picture_drawn_later_keeps_the_style_it_was_made_in():
-    with matplotlib.rc_context(plots.STYLE):
-        alone = inline_picture(_figure("styled"), "alt", "svg")
-    plain = inline_picture(_figure("styled"), "alt", "png")   # (an SVG's ids are random unstyled)
-    assert inline_picture(_figure("styled"), "alt", "svg").uri != alone.uri   # the style shows
-    with drawn_together():
-        with matplotlib.rc_context(plots.STYLE):
-            later = inline_picture(_figure("styled"), "alt", "svg")
-        unstyled = inline_picture(_figure("styled"), "alt", "png")
-        assert later.uri == "" and later.alt == "alt"   # not drawn yet
-    assert later.uri == alone.uri
-    assert unstyled.uri == plain.uri
 
 
 @pytest.fixture(scope="module")
