@@ -94,6 +94,16 @@ def conformal_bound(scores, level: float) -> float:
     return float(np.partition(scores, rank - 1)[rank - 1])
 
 
+def conformal_bounds(scores: np.ndarray, levels) -> list[float]:
+    """Return ``conformal_bound(scores, level)`` for each level, from one partial sort."""
+    ranks = [_rank(len(scores), level) for level in levels]
+    usable = sorted({rank - 1 for rank in ranks if rank <= len(scores)})
+    if not usable:
+        return [float("nan")] * len(ranks)
+    ordered = np.partition(scores, usable)
+    return [float(ordered[rank - 1]) if rank <= len(scores) else float("nan") for rank in ranks]
+
+
 def usable_scales(scale) -> np.ndarray:
     """Return the series' scales with those unknown or zero (a series constant in its window,
     or no time order) replaced by the median of the usable ones, or by 1 when none is."""
@@ -172,7 +182,7 @@ def _pooled_bounds(horizons: np.ndarray, scores: np.ndarray, levels=LEVELS
                 low -= 1
                 total += counts[low]
         pool = ordered[starts[low]:starts[high] + counts[high]]
-        bounds[index] = [conformal_bound(pool, level) for level in levels]
+        bounds[index] = conformal_bounds(pool, levels)
         used[index], first[index], last[index] = len(pool), keys[low], keys[high]
     return keys, bounds, used, first, last
 
@@ -324,10 +334,14 @@ def _summaries(model: str, method: str, level: float, frame: pd.DataFrame) -> tu
     for by, column in (("months ahead", "horizon"), ("size of series", "size")):
         if column not in frame.columns:
             continue
-        for group, part in frame.groupby(column, sort=True):
+        keyed = frame[frame[column].notna()]   # as a groupby, which leaves missing keys out
+        groups, codes = np.unique(keyed[column].to_numpy(), return_inverse=True)
+        inside = np.bincount(codes.ravel(), weights=keyed["inside"].to_numpy(float), minlength=len(groups))
+        counts = np.bincount(codes.ravel(), minlength=len(groups))
+        for group, held, n in zip(groups, inside, counts):
             detail.append({"model": model, "method": method, "level": level, "by": by,
                            "group": str(int(group)) if column == "horizon" else str(group),
-                           "coverage": float(part["inside"].mean()), "n": len(part)})
+                           "coverage": float(held / n), "n": int(n)})
     return overall, detail
 
 

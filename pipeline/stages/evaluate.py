@@ -245,8 +245,41 @@ def test_refusal(backtest: BacktestResult, origins: int) -> str | None:
 def _differences(predictions: pd.DataFrame, model: str, reference: str,
                  select_by: str) -> pd.DataFrame:
     """Return, per (origin, period, series) both predicted, the reference's loss less the
-    model's (the loss of ``select_by``); rows the loss leaves out are dropped."""
+    model's (the loss of ``select_by``), rows sorted by origin, period and series; rows the
+    loss leaves out are dropped. Where each model predicts a cell once, the cells are matched
+    on one integer per cell; otherwise the pivot table takes each cell's first value."""
+    keys = ["origin", "period", "series"]
     pair = predictions[predictions["model"].isin([reference, model])]
+    codes, sizes = [], []
+    for key in keys:   # sorted codes: their combination sorts as the pivot table's rows do
+        found, levels = pd.factorize(pair[key], sort=True)
+        codes.append(found.astype(np.int64))
+        sizes.append(len(levels))
+    if any((found < 0).any() for found in codes):
+        return _pivoted_differences(pair, model, reference, select_by)
+    cell = (codes[0] * sizes[1] + codes[1]) * sizes[2] + codes[2]
+    name = pair["model"].to_numpy()
+    own, base = np.flatnonzero(name == model), np.flatnonzero(name == reference)
+    own_cells, base_cells = pd.Index(cell[own]), pd.Index(cell[base])
+    if not (own_cells.is_unique and base_cells.is_unique):
+        return _pivoted_differences(pair, model, reference, select_by)
+    base = base[np.argsort(cell[base], kind="stable")]
+    match = own_cells.get_indexer(cell[base])
+    base, own = base[match >= 0], own[match[match >= 0]]
+    actual = pair["actual"].to_numpy(float)[base]
+    scale = pair["mase_scale"].to_numpy(float)[base]
+    difference = (_loss(actual, pair["prediction"].to_numpy(float)[base], scale, select_by)
+                  - _loss(actual, pair["prediction"].to_numpy(float)[own], scale, select_by))
+    kept = np.isfinite(difference)
+    rows = base[kept]
+    frame = pd.DataFrame({key: pair[key].to_numpy()[rows] for key in keys})
+    frame["d"] = difference[kept]
+    return frame
+
+
+def _pivoted_differences(pair: pd.DataFrame, model: str, reference: str, select_by: str) -> pd.DataFrame:
+    """``_differences`` by a pivot table: each cell's first value of each model (a cell predicted
+    twice, or a missing key)."""
     wide = pair.pivot_table(index=["origin", "period", "series"], columns="model",
                             values=["prediction", "actual", "mase_scale"], aggfunc="first",
                             dropna=False)
@@ -488,8 +521,8 @@ def _breakdowns(backtest: BacktestResult, select_by: str, level: float) -> tuple
     """Return the scores by origin, by months ahead (empty without a time order) and by series."""
     predictions = backtest.predictions
     time_ordered = backtest.scheme in ("holdout", "rolling_origin")
-    by_origin = _with_skill(_scores_by(predictions, ["model", "origin"]), ["origin"], select_by)
-    by_horizon = _with_skill(_scores_by(predictions, ["model", "horizon"]), ["horizon"], select_by) \
+    by_origin = _with_skill(grouped_scores(predictions, ["model", "origin"]), ["origin"], select_by)
+    by_horizon = _with_skill(grouped_scores(predictions, ["model", "horizon"]), ["horizon"], select_by) \
         if time_ordered else pd.DataFrame()
     by_series = _with_series_tests(_with_skill(grouped_scores(predictions, ["model", "series"]),
                                                ["series"], select_by),
