@@ -9,12 +9,15 @@ import contextlib
 import io
 import shutil
 import tempfile
+import threading
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import yaml
+
+from pipeline.core import forked
 
 ROOT = Path(__file__).resolve().parents[1]
 TEST_DATA = ROOT / "tests" / "data"
@@ -182,3 +185,22 @@ def invented_shops(history: int, future: int = 3, *, weather_ahead: bool = True,
                 row["remark"] = f"counted by hand, sheet {2 * k + j}"
             rows.append(row)
     return pd.DataFrame(rows)
+
+
+@pytest.fixture(autouse=True)
+def _one_process_unless_marked(request, monkeypatch):
+    """Run a test's own work (in this process) without forked copies (core.forked), unless it is
+    marked ``forks``: whether this process could fork depended on threads an earlier test left (a
+    Dask cluster's, loky's), so a test's outcome depended on the order of the tests. A test
+    marked ``forks`` stops loky's threads and is skipped where the process still cannot fork (not
+    Linux, one core); test_forked_fresh.py runs test_forked.py in a fresh process too. The
+    commands a test runs as subprocesses fork as a user's do."""
+    if request.node.get_closest_marker("forks") is None:
+        monkeypatch.setattr(forked, "can_fork", lambda: False)
+        return
+    if threading.active_count() > 1:
+        from joblib.externals.loky import get_reusable_executor
+        get_reusable_executor().shutdown(wait=True)
+    if not forked.can_fork():
+        pytest.skip("this process cannot fork: not Linux, one core, or threads running "
+                    f"({[thread.name for thread in threading.enumerate()]})")

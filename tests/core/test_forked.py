@@ -11,17 +11,9 @@ import pytest
 
 from pipeline.core import forked
 
-
-@pytest.fixture(autouse=True)
-def no_threads():
-    """Stop the worker processes' pool an earlier test may have left (joblib's loky keeps two
-    threads for it), so this process may fork; skip where it still cannot (not Linux, one core)."""
-    if threading.active_count() > 1:
-        from joblib.externals.loky import get_reusable_executor
-        get_reusable_executor().shutdown(wait=True)
-    if not forked.can_fork():
-        pytest.skip("this process cannot fork: not Linux, one core, or threads running "
-                    f"({[t.name for t in threading.enumerate()]})")
+# Every test here may fork (conftest stops loky's threads first, and skips where the process
+# still cannot fork).
+pytestmark = pytest.mark.forks
 
 
 def _square_with_pid(value):

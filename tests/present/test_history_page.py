@@ -286,6 +286,7 @@ def test_a_folder_castline_may_not_write_in_is_one_line_and_nothing_made(tiny_ru
     assert list(tmp_path.iterdir()) == []
 
 
+@pytest.mark.forks
 def test_the_page_is_the_same_drawn_in_one_process_or_two(page, tiny_runs, tmp_path, monkeypatch):
     # The pictures are jobs shared with a forked copy where the machine allows (picture_jobs).
     spec, _, _ = tiny_runs

@@ -17,6 +17,7 @@ def demo_folder(tmp_path_factory):
     return pipeline.run(DEMO_SPEC, output_folder=tmp_path_factory.mktemp("runs")).folder.path
 
 
+@pytest.mark.forks
 def test_the_pages_are_the_same_drawn_in_one_process_or_two(demo_folder, monkeypatch):
     together = render_pages(demo_folder)
     monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
@@ -26,6 +27,7 @@ def test_the_pages_are_the_same_drawn_in_one_process_or_two(demo_folder, monkeyp
     assert together["report.html"].count('src="data:image/') >= 10
 
 
+@pytest.mark.forks
 def test_every_picture_of_the_report_is_drawn_in_one_batch(demo_folder, monkeypatch):
     calls = []
     original = forked.map_shared

@@ -493,8 +493,6 @@ class PenaltyRecorder:
 
     def __init__(self, monkeypatch):
         self.chosen: dict[tuple[str, int], tuple] = {}
-        # The windows are fitted in this process only: a forked copy's calls are not recorded here.
-        monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
         original = PenalisedModel.choose_penalty
         recorder = self
 
