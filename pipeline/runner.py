@@ -4,11 +4,12 @@ from __future__ import annotations
 
 from contextlib import contextmanager
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 from pipeline.core.errors import DataError, UserError
-from pipeline.core.forked import Helper, settled
+from pipeline.core.forked import Helper, map_shared, settle_again, settled
 from pipeline.core.progress import QUIET, Progress
 from pipeline.spec import CsvOptions, Spec, load_spec
 
@@ -139,14 +140,12 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     The per-series fits run where the spec's ``compute`` section says; the backtest and
     the forecast report how far they have got to ``progress`` (by default, nowhere).
     """
-    (read_input, check_data, settle_validation, run_backtest, evaluate, make_forecast, executor_for,
-     track_record, publish) = _stages(
-        "read_input", "check_data", "settle_validation", "run_backtest", "evaluate", "make_forecast",
-        "executor_for", "track_record", "publish")
     spec = _as_spec(spec_or_path)
     with settled(), _pages_helper() as pages:
+        data, (settle_validation, run_backtest, evaluate, make_forecast, executor_for, track_record,
+               publish) = _checked_while_loading(spec, _RUN_STAGES)
+        settle_again()   # the modules loaded meanwhile are set aside too
         with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
-            data = check_data(spec, read_input(spec))
             spec, notes = settle_validation(spec, data)
             data = data.with_notes(notes)
             backtest = run_backtest(spec, data, executor=executor, progress=progress)
@@ -159,6 +158,32 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
                          realised=track.realised, track=track.facts(), pages=pages)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)
+
+
+# What a run calls after the check, loaded while the data is read and checked.
+_RUN_STAGES = ("settle_validation", "run_backtest", "evaluate", "make_forecast", "executor_for",
+               "track_record", "publish")
+
+
+def _read_and_check(spec: Spec) -> CheckedData:
+    read_input, check_data = _stages("read_input", "check_data")
+    with _data_file_named(spec):
+        return check_data(spec, read_input(spec))
+
+
+def _call(task):
+    return task()
+
+
+def _checked_while_loading(spec: Spec, names: tuple[str, ...]) -> tuple[CheckedData, list]:
+    """Return the spec's data, read and checked, and the named stage functions: the data read and
+    checked in a forked copy of this process (core.forked; which alone imports pandera) while
+    this one loads the modules of the stages (scikit-learn, scipy: some 0.3 s), where the
+    machine allows. Nothing is fitted before the check has passed: a check that fails in the
+    copy is done again here, and its error raised here."""
+    loading, checking = partial(_stages, *names), partial(_read_and_check, spec)
+    data, stages = map_shared(_call, [checking, loading], weights=[1, 2])   # the heavier share is this process's
+    return data, stages
 
 
 def _pages_of(folder: Path) -> dict[str, str]:

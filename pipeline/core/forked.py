@@ -60,6 +60,11 @@ def settled() -> Iterator[None]:
         gc.unfreeze()
 
 
+def settle_again() -> None:
+    """Inside ``settled``: set the objects made since it began (modules loaded late) aside too."""
+    gc.freeze()
+
+
 def _die_with_parent(parent: int) -> None:
     """In a copy: be killed when the parent ends (Linux's PR_SET_PDEATHSIG), so a copy never
     outlives a run that was interrupted or killed."""

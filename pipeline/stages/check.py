@@ -17,6 +17,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass, field, replace
 from datetime import date
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -43,7 +44,9 @@ from pipeline.stages.months_ahead import (
 )
 from pipeline.stages.problems import PROBLEM_COLUMNS, Problem, problems_table  # noqa: F401 (re-exported)
 
-pa = pandera_pandas()
+if TYPE_CHECKING:   # pandera loads when a schema is built: a run's modules import CheckedData from here
+    import pandera.pandas as pa
+
 ALL_SERIES = "all"
 
 
@@ -158,6 +161,7 @@ def effective_rules(spec: Spec) -> dict[str, ColumnRule]:
 
 
 def _column_schema(rule: ColumnRule) -> pa.Column:
+    pa = pandera_pandas()
     checks: list[pa.Check] = []
     if rule.type in ("number", "whole_number"):
         checks.append(pa.Check(_finite, error="is infinite"))
@@ -179,6 +183,7 @@ def _column_schema(rule: ColumnRule) -> pa.Column:
 
 def build_schema(spec: Spec) -> pa.DataFrameSchema:
     """Return the pandera schema the input's columns must meet."""
+    pa = pandera_pandas()
     rules = effective_rules(spec)
     for driver in spec.driver_columns:
         # A missing driver is reported by the calendar pass, which can tell a month
@@ -406,7 +411,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
         with warnings.catch_warnings():   # the check says how dates were read
             warnings.filterwarnings("ignore", "(Parsing dates in|Could not infer format)", UserWarning)
             valid = schema.validate(typed, lazy=True, inplace=True)
-    except pa.errors.SchemaErrors as exc:
+    except pandera_pandas().errors.SchemaErrors as exc:
         problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed)
         problems += _calendar_despite(problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
