@@ -1,0 +1,97 @@
+"""Statistics per group of rows, from integer group codes, equal to pandas' groupby to the bit.
+
+The feature plan and the baselines learn a few numbers per series (or per series and
+calendar month) in every training window of the backtest. Built through a DataFrame and
+``groupby``, each costs far more than the arithmetic on small windows; these functions do
+the same arithmetic on arrays, in the same order, so the outputs do not change by a bit
+(a plain ``np.bincount`` sum can differ from pandas' in the last bit).
+
+pandas sums a group's rows with Kahan's compensation, in the rows' order; pandas 3.1 and
+later instead sum with ``np.add.reduceat`` when the rows come in the order of their
+groups (the codes never decrease). ``group_means`` does whichever the installed pandas
+does (``_sorted_rows_reduced``, found once by asking pandas), the compensated sum one
+position within the groups at a time, vectorised across the groups; with groups longer
+than ``LONGEST_LOOPED`` it hands the work to pandas itself.
+"""
+
+from __future__ import annotations
+
+from functools import cache
+
+import numpy as np
+import pandas as pd
+
+# Beyond this many rows in one group, looping over the positions within the groups costs
+# more than pandas' own groupby.
+LONGEST_LOOPED = 256
+
+
+@cache
+def _sorted_rows_reduced() -> bool:
+    """Return whether the installed pandas sums groups whose rows come in group order with
+    ``np.add.reduceat`` rather than with Kahan's compensation: the two give different sums
+    of 0.5, 0.5 and 2⁵² (2⁵² and 2⁵² + 1)."""
+    values = np.array([0.5, 0.5, 2.0 ** 52])
+    found = pd.Series(values).groupby(np.zeros(3, np.intp)).mean().iloc[0]
+    return bool(found == np.add.reduceat(values, [0])[0] / 3)
+
+
+def _positions_by_rank(codes: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return the rows ordered by their place within their group (the first row of every
+    group, then the second ones, ...), and where each place's rows end in that order."""
+    order = np.argsort(codes, kind="stable")
+    starts = np.cumsum(counts) - counts
+    rank = np.empty(len(codes), np.intp)
+    rank[order] = np.arange(len(codes)) - starts[codes[order]]
+    return np.argsort(rank, kind="stable"), np.cumsum(np.bincount(rank))
+
+
+def _compensated_sums(codes: np.ndarray, values: np.ndarray, groups: int,
+                      counts: np.ndarray) -> np.ndarray:
+    """Return each group's sum in the rows' order with Kahan's compensation, as pandas'
+    ``group_mean`` adds: the rows' first places in all groups at once, then the second..."""
+    total = np.zeros(groups)
+    carry = np.zeros(groups)
+    rows, ends = _positions_by_rank(codes, counts)
+    start = 0
+    for end in ends.tolist():
+        at = rows[start:end]
+        start = end
+        group = codes[at]
+        before = total[group]
+        with np.errstate(invalid="ignore"):   # an infinite value: NaN, as in pandas
+            y = values[at] - carry[group]
+            t = before + y
+            lost = (t - before) - y
+        # As pandas does, a compensation that turned NaN (an infinite value) starts again at 0.
+        carry[group] = np.where(np.isnan(lost), 0.0, lost)
+        total[group] = t
+    return total
+
+
+def group_means(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
+    """Return the mean of ``values`` per group (``codes``: 0 to groups − 1, each at least
+    once) as ``pd.Series(values).groupby(codes).mean()`` gives it, to the bit. ``values``
+    hold no NaN."""
+    codes = np.asarray(codes, np.intp)
+    values = np.asarray(values, float)
+    counts = np.bincount(codes, minlength=groups)
+    if not len(codes):
+        return np.zeros(0)
+    if (np.diff(codes) >= 0).all() and _sorted_rows_reduced():
+        total = np.add.reduceat(values, np.cumsum(counts) - counts)
+    elif counts.max() > LONGEST_LOOPED:
+        return pd.Series(values).groupby(codes, sort=True).mean().to_numpy(float)
+    else:
+        total = _compensated_sums(codes, values, groups, counts)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return total / counts.astype(float)
+
+
+def group_last(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
+    """Return each group's last value in the rows' order (``codes``: 0 to groups − 1, each at
+    least once), as ``groupby(codes).last()`` gives it for values without NaN."""
+    codes = np.asarray(codes, np.intp)
+    order = np.argsort(codes, kind="stable")
+    ends = np.cumsum(np.bincount(codes, minlength=groups)) - 1
+    return np.asarray(values, float)[order[ends]]
