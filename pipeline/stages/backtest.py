@@ -183,23 +183,35 @@ def _split_columns(split: Split, target: str, scales: dict[str, float]) -> dict:
             "actual": test[target].to_numpy(float), "mase_scale": _lookup(scales, series)}
 
 
-def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None,
-                       df_resid=None, centre=None) -> pd.DataFrame:
-    """Return one model's rows of the prediction table; ``centre`` None (with a standard
-    error) means the prediction itself, and is NaN wherever the standard error is."""
+def _model_rows(shared: dict, kind: str, predictions: np.ndarray, se=None,
+                df_resid=None, centre=None) -> dict[str, np.ndarray]:
+    """Return one model's rows of the prediction table, one array per column (``_table``
+    joins them); ``centre`` None (with a standard error) means the prediction itself, and is
+    NaN wherever the standard error is."""
+    rows = len(shared["series"])
+
+    def column(value, dtype=None) -> np.ndarray:
+        value = np.asarray(value, dtype)
+        return value if value.ndim else np.full(rows, value, value.dtype)
+
     if se is None:
         centre = np.nan
     else:
         centre = np.asarray(predictions if centre is None else centre, float)
         centre = np.where(np.isfinite(np.asarray(se, float)), centre, np.nan)
-    return pd.DataFrame({
-        "origin": shared["origin"], "period": shared["period"], "horizon": shared["horizon"],
-        "series": shared["series"], "model": kind, "actual": shared["actual"],
-        "prediction": predictions, "mase_scale": shared["mase_scale"],
-        "prediction_se": np.nan if se is None else se,
-        "df_resid": np.nan if df_resid is None else df_resid,
-        "centre": centre,
-    })
+    return {"origin": column(shared["origin"], object), "period": column(shared["period"], object),
+            "horizon": column(shared["horizon"]), "series": column(shared["series"], object),
+            "model": column(kind, object), "actual": column(shared["actual"]),
+            "prediction": column(predictions), "mase_scale": column(shared["mase_scale"]),
+            "prediction_se": column(np.nan if se is None else se),
+            "df_resid": column(np.nan if df_resid is None else df_resid), "centre": column(centre)}
+
+
+def _table(pieces: list[dict[str, np.ndarray]]) -> pd.DataFrame:
+    """Return the prediction table of the pieces' rows, in order: each column joined as one
+    array, numbers of mixed types widened as ``pd.concat`` of a frame per piece widens them."""
+    return pd.DataFrame({name: np.concatenate([piece[name] for piece in pieces])
+                         for name in PREDICTION_COLUMNS})
 
 
 def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
@@ -348,8 +360,8 @@ class _Backtest:
 
 
 def _window(backtest: _Backtest, window: tuple) -> tuple:
-    """Return one window's prediction frames, hindsight frames, fallbacks, strategy note, other
-    notes, and whether a forked copy (core.forked) made them: a copy reports no progress of its
+    """Return one window's prediction rows and hindsight rows (each model's, see ``_model_rows``),
+    fallbacks, strategy note, other notes, and whether a forked copy (core.forked) made them: a copy reports no progress of its
     own, the process that made it counts its windows when they come back."""
     spec, (split, happened, plan) = backtest.spec, window
     progress = QUIET if in_copy() else backtest.progress
@@ -359,18 +371,18 @@ def _window(backtest: _Backtest, window: tuple) -> tuple:
     scales = mase_scales(split.train, spec.target, series_codes=window_codes) if backtest.time_ordered else {}
     columns = _split_columns(split, spec.target, scales)
     note = _strategy_note(spec, split)
-    frames, known_frames, fallen_back = [], [], []
+    rows, known_rows, fallen_back = [], [], []
     for choice in spec.models:
         predicted, se, df_resid, centre, fell_back, as_known = _predict_window(
             spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=backtest.fast_ols,
             executor=backtest.executor, progress=progress)
         fallen_back += fell_back
-        frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid, centre))
+        rows.append(_model_rows(columns, choice.name, predicted, se, df_resid, centre))
         if as_known is not None:
-            known_frames.append(_frame_predictions(columns, choice.name, as_known))
+            known_rows.append(_model_rows(columns, choice.name, as_known))
     if not in_copy():
         progress.advance("origins")
-    return frames, known_frames, fallen_back, note, designs.left_out_notes() + list(split.notes), in_copy()
+    return rows, known_rows, fallen_back, note, designs.left_out_notes() + list(split.notes), in_copy()
 
 
 def _fallback_frame(found: list[pd.DataFrame | None]) -> pd.DataFrame:
@@ -422,7 +434,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
         as_known = _growing_ols(spec, as_happened, plans[0], history) if estimating else ahead
         if ahead and as_known:
             fast_ols = {label: (ahead[label], as_known[label]) for label in ahead}
-    frames, known_frames = [], []
+    rows, known_rows = [], []
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
 
@@ -433,8 +445,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     done = (map_shared(window, windows, [len(split.train) + len(split.test) for split in splits])
             if isinstance(executor, InProcess) else [window(one) for one in windows])
     for found, known, fell_back, note, more_notes, elsewhere in done:
-        frames += found
-        known_frames += known
+        rows += found
+        known_rows += known
         fallen_back += fell_back
         if note and note not in notes:
             notes.append(note)
@@ -447,7 +459,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
         if spec.estimated_columns:
             notes.append("k-fold folds have no origin, so the drivers castline estimates for the "
                          "forecast are scored here at their actual values")
-    predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
+    predictions = _table(rows)
     fallbacks = _fallback_frame(fallen_back)
     if len(fallbacks):
         notes.insert(0, _fallback_note(fallbacks))
@@ -456,8 +468,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes, ahead=ahead_words(spec),
                           step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,
-                          hindsight=(pd.concat(known_frames, ignore_index=True)[PREDICTION_COLUMNS]
-                                     if known_frames else None),
+                          hindsight=_table(known_rows) if known_rows else None,
                           estimated=dict(spec.estimated_columns) if estimating else {},
                           transform=spec.target_transform,
                           floor=target_floor(data.history[spec.target]))
