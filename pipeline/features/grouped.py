@@ -9,9 +9,9 @@ the same arithmetic on arrays, in the same order, so the outputs do not change b
 pandas sums a group's rows with Kahan's compensation, in the rows' order; pandas 3.1 and
 later instead sum with ``np.add.reduceat`` when the rows come in the order of their
 groups (the codes never decrease). ``group_means`` does whichever the installed pandas
-does (``_sorted_rows_reduced``, found once by asking pandas), the compensated sum one
-position within the groups at a time, vectorised across the groups; with groups longer
-than ``LONGEST_LOOPED`` it hands the work to pandas itself.
+does (``_sorted_rows_reduced``, found once by asking pandas), the compensated sum row by
+row in plain Python floats; with more than ``LONGEST_LOOPED`` rows it hands the work to
+pandas itself.
 """
 
 from __future__ import annotations
@@ -21,9 +21,8 @@ from functools import cache
 import numpy as np
 import pandas as pd
 
-# Beyond this many rows in one group, looping over the positions within the groups costs
-# more than pandas' own groupby.
-LONGEST_LOOPED = 256
+# Beyond this many rows, adding them one by one in Python costs more than pandas' groupby.
+LONGEST_LOOPED = 2000
 
 
 @cache
@@ -36,37 +35,20 @@ def _sorted_rows_reduced() -> bool:
     return bool(found == np.add.reduceat(values, [0])[0] / 3)
 
 
-def _positions_by_rank(codes: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return the rows ordered by their place within their group (the first row of every
-    group, then the second ones, ...), and where each place's rows end in that order."""
-    order = np.argsort(codes, kind="stable")
-    starts = np.cumsum(counts) - counts
-    rank = np.empty(len(codes), np.intp)
-    rank[order] = np.arange(len(codes)) - starts[codes[order]]
-    return np.argsort(rank, kind="stable"), np.cumsum(np.bincount(rank))
-
-
-def _compensated_sums(codes: np.ndarray, values: np.ndarray, groups: int,
-                      counts: np.ndarray) -> np.ndarray:
-    """Return each group's sum in the rows' order with Kahan's compensation, as pandas'
-    ``group_mean`` adds: the rows' first places in all groups at once, then the second..."""
-    total = np.zeros(groups)
-    carry = np.zeros(groups)
-    rows, ends = _positions_by_rank(codes, counts)
-    start = 0
-    for end in ends.tolist():
-        at = rows[start:end]
-        start = end
-        group = codes[at]
+def _compensated_sums(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
+    """Return each group's sum in the rows' order with Kahan's compensation, step for step
+    as pandas' ``group_mean`` adds (a compensation that turns NaN, at an infinite value,
+    starts again at 0). Plain Python floats: on a few thousand rows, faster than any setup."""
+    total = [0.0] * groups
+    carry = [0.0] * groups
+    for group, value in zip(codes.tolist(), values.tolist()):
         before = total[group]
-        with np.errstate(invalid="ignore"):   # an infinite value: NaN, as in pandas
-            y = values[at] - carry[group]
-            t = before + y
-            lost = (t - before) - y
-        # As pandas does, a compensation that turned NaN (an infinite value) starts again at 0.
-        carry[group] = np.where(np.isnan(lost), 0.0, lost)
+        y = value - carry[group]
+        t = before + y
+        lost = (t - before) - y
+        carry[group] = 0.0 if lost != lost else lost
         total[group] = t
-    return total
+    return np.array(total, float)
 
 
 def group_means(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
@@ -80,10 +62,10 @@ def group_means(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarra
         return np.zeros(0)
     if (np.diff(codes) >= 0).all() and _sorted_rows_reduced():
         total = np.add.reduceat(values, np.cumsum(counts) - counts)
-    elif counts.max() > LONGEST_LOOPED:
+    elif len(codes) > LONGEST_LOOPED:
         return pd.Series(values).groupby(codes, sort=True).mean().to_numpy(float)
     else:
-        total = _compensated_sums(codes, values, groups, counts)
+        total = _compensated_sums(codes, values, groups)
     with np.errstate(invalid="ignore", divide="ignore"):
         return total / counts.astype(float)
 

@@ -41,7 +41,7 @@ def test_group_means_equal_pandas_groupby_mean_to_the_bit(order):
 
 def test_group_means_of_long_groups_and_of_infinite_values_equal_pandas():
     rng = np.random.default_rng(12)
-    codes = rng.integers(0, 2, 3 * LONGEST_LOOPED)   # groups longer than the loop takes
+    codes = rng.integers(0, 2, 3 * LONGEST_LOOPED)   # more rows than the loop takes
     values = _values(rng, len(codes), 0)
     assert np.array_equal(group_means(codes, values, 2),
                           pd.Series(values).groupby(codes).mean().to_numpy())
