@@ -214,10 +214,12 @@ def _table(pieces: list[dict[str, np.ndarray]]) -> pd.DataFrame:
                          for name in PREDICTION_COLUMNS})
 
 
-def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
+def _growing_ols(spec: Spec, splits: list[Split], history: pd.DataFrame, matrix: np.ndarray,
+                 tests: list[np.ndarray]) -> dict[str, tuple]:
     """Return the OLS predictions (with their standard errors, residual df and centre: None,
     the predictions themselves, as this path runs only without a target transform) of every
-    split, growing one QR factor across origins. ``history`` is sorted by month."""
+    split, growing one QR factor across origins. ``history`` is sorted by month, ``matrix``
+    its terms, ``tests`` those of each split's predicted rows."""
     def with_intercept(matrix: np.ndarray) -> np.ndarray:
         if not spec.intercept:
             return matrix
@@ -226,14 +228,35 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
         full[:, 1:] = matrix
         return full
 
-    matrix = with_intercept(plan.transform(history).matrix)
-    tests = [with_intercept(plan.transform(split.test).matrix) for split in splits]
-    found = expanding_ols_predictions(matrix, history[spec.target].to_numpy(float),
+    found = expanding_ols_predictions(with_intercept(matrix), history[spec.target].to_numpy(float),
                                       history[PERIOD].array.asi8,
-                                      [split.origin.ordinal for split in splits], tests)
+                                      [split.origin.ordinal for split in splits],
+                                      [with_intercept(test) for test in tests])
     if found is None:  # rank-deficient window: the careful fit drops and names columns
         return {}
     return {split.label: (*result, None) for split, result in zip(splits, found)}
+
+
+def _fast_ols(spec: Spec, splits: list[Split], as_happened: list[Split], plan, data: CheckedData,
+              shared, estimating: bool) -> dict[str, tuple]:
+    """Return, by window, the OLS predictions of the rows as estimated and as they happened
+    (the same without estimated drivers), from one QR factor grown across origins; empty when
+    a window is rank-deficient. The rows as they happened, and the history, are read from the
+    shared design where there is one (a row's terms depend on that row alone)."""
+    history = sorted_by_month(data.history)
+    matrix = shared[1].matrix if shared is not None else plan.transform(history).matrix
+
+    def terms(split: Split, happened: bool) -> np.ndarray:
+        if happened and shared is not None:
+            return _design_rows(shared, split.test)[0].matrix
+        return plan.transform(split.test).matrix
+
+    ahead = _growing_ols(spec, splits, history, matrix, [terms(split, not estimating) for split in splits])
+    as_known = _growing_ols(spec, as_happened, history, matrix, [terms(split, True) for split in as_happened]) \
+        if estimating else ahead
+    if not (ahead and as_known):
+        return {}
+    return {label: (ahead[label], as_known[label]) for label in ahead}
 
 
 def _shared_design(spec: Spec, plan, data: CheckedData):
@@ -284,7 +307,7 @@ class _WindowDesigns:
 
     def test(self, kind: str, *, hindsight: bool = False) -> Design:
         frame = self.hindsight if hindsight else self.split.test
-        if kind in BASELINE_KINDS and self.shared is None:
+        if kind in BASELINE_KINDS:   # only the rows' series and months: never the terms
             return series_design(frame, SERIES)
         name = "hindsight" if hindsight else "test"
         if name not in self.cache:
@@ -429,11 +452,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
                  and not any(split.refilled for split in splits))
     shared = _shared_design(spec, plans[0], data) if same_plan else None
     if "ols" in spec.model_names and expanding and same_plan:
-        history = sorted_by_month(data.history)
-        ahead = _growing_ols(spec, splits, plans[0], history)
-        as_known = _growing_ols(spec, as_happened, plans[0], history) if estimating else ahead
-        if ahead and as_known:
-            fast_ols = {label: (ahead[label], as_known[label]) for label in ahead}
+        fast_ols = _fast_ols(spec, splits, as_happened, plans[0], data, shared, estimating)
     rows, known_rows = [], []
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
