@@ -299,17 +299,22 @@ class _WindowDesigns:
     def train(self, kind: str) -> tuple[Design, np.ndarray]:
         # With lags, every model fits on the rows whose lags are available.
         if kind in BASELINE_KINDS and self.plain and self.shared is None:
-            frame = self.split.train
-            return series_design(frame, SERIES), frame[self.spec.target].to_numpy(float)
+            if "series train" not in self.cache:
+                frame = self.split.train
+                self.cache["series train"] = (series_design(frame, SERIES),
+                                              frame[self.spec.target].to_numpy(float))
+            return self.cache["series train"]
         if "train" not in self.cache:
             self.cache["train"] = self.plan.training_design(self.split.train)
         return self.cache["train"]
 
     def test(self, kind: str, *, hindsight: bool = False) -> Design:
         frame = self.hindsight if hindsight else self.split.test
-        if kind in BASELINE_KINDS:   # only the rows' series and months: never the terms
-            return series_design(frame, SERIES)
         name = "hindsight" if hindsight else "test"
+        if kind in BASELINE_KINDS:   # only the rows' series and months: never the terms
+            if f"series {name}" not in self.cache:
+                self.cache[f"series {name}"] = series_design(frame, SERIES)
+            return self.cache[f"series {name}"]
         if name not in self.cache:
             as_happened = hindsight or self.hindsight is None
             self.cache[name] = (_design_rows(self.shared, frame)[0]
