@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import month_ordinals
+from pipeline.core.design import held_series
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.grouped import group_last, group_means
 from pipeline.spec import Spec
@@ -72,33 +73,36 @@ class _ColumnEstimate:
         month_names, month_grid = None, None
         if by_month is not None:
             codes, names = pd.factorize(by_month.index.get_level_values(0).to_numpy(object))
-            month_names = pd.Index(names)
+            month_names = pd.Index(names, dtype=object)
             month_grid = _grid(len(names), codes, by_month.index.get_level_values(1).to_numpy(),
                                by_month.to_numpy(float))
-        return cls(pd.Index(by_series.index.to_numpy(object)), by_series.to_numpy(float),
+        return cls(pd.Index(by_series.index.to_numpy(object), dtype=object), by_series.to_numpy(float),
                    _calendar_table(pooled_month.index.to_numpy(), pooled_month.to_numpy(float)),
                    overall, month_names, month_grid, (by_month, by_series, pooled_month))
 
     @classmethod
-    def learn(cls, rule: str, series: np.ndarray, months: np.ndarray,
+    def learn(cls, rule: str, window: tuple[np.ndarray, np.ndarray, np.ndarray],
               values: np.ndarray) -> _ColumnEstimate:
+        """Return what the rule learns from a column's values; ``window``: the rows' series
+        codes, the sorted names they point into and the months, and ``values``, all in the
+        window's month order (file order within a month: the order pandas' groupby would
+        add them in, and in which the last of a group is found)."""
+        codes, names, months = window
         present = ~np.isnan(values)
-        # The window's values in month order (file order within a month): the order pandas'
-        # groupby would add them in, and in which the last of a group is found.
-        order = np.argsort(months[present], kind="stable")
-        series, months, values = series[present][order], months[present][order], values[present][order]
-        codes, names = pd.factorize(series, sort=True)
+        if not present.all():
+            codes, names = held_series(codes[present], names)
+            months, values = months[present], values[present]
         moy = calendar_month(months)
         latest = rule in ("last_year", "last_value")
         by_series = (group_last if latest else group_means)(codes, values, len(names))
         cells, inverse = np.unique(moy, return_inverse=True)
         pooled = _calendar_table(cells, group_means(inverse, values, len(cells)))
         overall = float(values.sum() / len(values)) if len(values) else float("nan")
+        names = pd.Index(names, dtype=object)
         if rule not in SEASONAL_RULES:
-            return cls(pd.Index(names), by_series, pooled, overall)
+            return cls(names, by_series, pooled, overall)
         cells, inverse = np.unique(codes.astype(np.int64) * 12 + (moy - 1), return_inverse=True)
         found = (group_last if rule == "last_year" else group_means)(inverse, values, len(cells))
-        names = pd.Index(names)
         return cls(names, by_series, pooled, overall, names, _grid(len(names), cells // 12, cells % 12 + 1, found))
 
     def tables(self) -> tuple[pd.Series | None, pd.Series, pd.Series]:
@@ -178,9 +182,11 @@ class FutureEstimates:
     def fit(self, frame: pd.DataFrame) -> FutureEstimates:
         months = month_ordinals(frame)
         self.window_end_ = int(months.max())
-        series = frame[self.series_column].to_numpy()
-        self.tables_ = {column: _ColumnEstimate.learn(rule, series, months,
-                                                      frame[column].to_numpy(float))
+        # The window's series factorised and its rows put in month order once, for every column.
+        order = np.argsort(months, kind="stable")
+        codes, names = pd.factorize(frame[self.series_column].to_numpy()[order], sort=True)
+        window = (codes, np.asarray(names, object), months[order])
+        self.tables_ = {column: _ColumnEstimate.learn(rule, window, frame[column].to_numpy(float)[order])
                         for column, rule in self.rules.items()}
         return self
 
