@@ -28,7 +28,7 @@ import pandas as pd
 from pipeline.core.columns import month_ordinals
 from pipeline.core.design import held_series
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
-from pipeline.features.grouped import group_last, group_means
+from pipeline.features.grouped import group_last, group_means, positions_of
 from pipeline.spec import Spec
 from pipeline.spec.schema import ESTIMATE_RULES
 
@@ -126,11 +126,11 @@ class _ColumnEstimate:
         """Return the estimates of rows given by series and month, and how many fell back
         from the rule's own table."""
         moy = calendar_month(months)
-        codes = self.names.get_indexer(series)
+        codes = positions_of(self.names, series)
         # The rule's own table first, then the coarser ones in order.
         tables = []
         if self.month_grid is not None:
-            month_codes = codes if self.month_names is self.names else self.month_names.get_indexer(series)
+            month_codes = codes if self.month_names is self.names else positions_of(self.month_names, series)
             tables.append(self.month_grid[month_codes, moy])   # code -1: the last row, all NaN
         tables += [np.append(self.series_values, np.nan)[codes], self.pooled[moy]]
         values = tables[0]

@@ -77,3 +77,18 @@ def group_last(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray
     order = np.argsort(codes, kind="stable")
     ends = np.cumsum(np.bincount(codes, minlength=groups)) - 1
     return np.asarray(values, float)[order[ends]]
+
+
+# Up to this many keys, a dict finds them faster than a pandas index, which hashes its
+# names again on every new index (a few hundred microseconds even for a handful).
+MOST_LOOKED_UP = 10_000
+
+
+def positions_of(names, keys) -> np.ndarray:
+    """Return each key's position among ``names`` (unique), −1 where it is not one of them,
+    as ``pd.Index(names).get_indexer(keys)`` gives it."""
+    keys = np.asarray(keys, dtype=object)
+    if len(keys) > MOST_LOOKED_UP:
+        return pd.Index(np.asarray(names, dtype=object), dtype=object).get_indexer(keys)
+    where = {name: at for at, name in enumerate(np.asarray(names, dtype=object).tolist())}
+    return np.array([where.get(key, -1) for key in keys.tolist()], np.intp)

@@ -24,6 +24,7 @@ from pipeline.core.execution import IN_PROCESS, Executor, InProcess
 from pipeline.core.forked import in_copy, map_shared
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import ahead_words
+from pipeline.features.grouped import positions_of
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
@@ -164,7 +165,7 @@ def _lookup(values: dict, keys: np.ndarray) -> np.ndarray:
     """Return values[key] for each key (NaN for a key not in values), vectorised."""
     if not values:
         return np.full(len(keys), np.nan)
-    found = pd.Index(list(values)).get_indexer(keys)
+    found = positions_of(list(values), keys)
     table = np.append(np.asarray(list(values.values()), float), np.nan)
     return table[found]
 

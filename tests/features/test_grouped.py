@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.features.grouped import LONGEST_LOOPED, group_last, group_means
+from pipeline.features.grouped import LONGEST_LOOPED, MOST_LOOKED_UP, group_last, group_means, positions_of
 
 
 def _values(rng: np.random.Generator, n: int, kind: int) -> np.ndarray:
@@ -60,3 +60,14 @@ def test_group_last_equals_pandas_groupby_last():
         values = rng.normal(size=n)
         assert np.array_equal(group_last(codes, values, int(codes.max()) + 1),
                               pd.Series(values).groupby(codes).last().to_numpy())
+
+
+@pytest.mark.parametrize("many", [False, True])
+def test_positions_of_equal_pandas_get_indexer(many):
+    # Reference: pandas, pd.Index(names).get_indexer(keys), absent keys −1.
+    rng = np.random.default_rng(14)
+    names = np.array([f"s{k}" for k in rng.permutation(50)], object)
+    size = MOST_LOOKED_UP + 5 if many else 40
+    keys = np.array([f"s{k}" for k in rng.integers(0, 60, size)], object)
+    assert np.array_equal(positions_of(names, keys), pd.Index(names).get_indexer(keys))
+    assert len(positions_of(names, np.array([], object))) == 0
