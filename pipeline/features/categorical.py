@@ -7,6 +7,7 @@ import pandas as pd
 
 from pipeline.core.errors import DataError, ModelFileError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
+from pipeline.features.grouped import positions_of
 from pipeline.features.rows import first_row, which_rows
 
 UNSEEN = ("stop", "use_reference")
@@ -30,24 +31,30 @@ class _LevelEncoder:
     def _fit_levels(self, frame: pd.DataFrame) -> pd.Series:
         """Learn the levels, the grouped levels and the reference; return the training labels."""
         values = frame[self.column].astype(str)
-        counts = values.value_counts()
-        rare = sorted(level for level in counts.index
+        # Rows per level (a missing value, code −1, is no level, as value_counts leaves it out).
+        codes, found = pd.factorize(values)
+        counts = dict(zip(np.asarray(found, object).tolist(),
+                          np.bincount(codes[codes >= 0], minlength=len(found)).tolist()))
+        rare = sorted(level for level in counts
                       if self.group_below is not None and counts[level] < self.group_below)
         self.grouped_ = rare
         labels = values.where(~values.isin(rare), self.group_label) if rare else values
-        grouped_counts = labels.value_counts()
-        levels = sorted(grouped_counts.index)
+        grouped_counts = {level: n for level, n in counts.items() if level not in rare}
+        if rare:
+            grouped_counts[self.group_label] = (grouped_counts.get(self.group_label, 0)
+                                                + sum(counts[level] for level in rare))
+        levels = sorted(grouped_counts)
         if self.reference is not None:
             if self.reference in rare:
                 raise DataError(f"the reference level '{self.reference}' has fewer than "
                                 f"{self.group_below} training rows, so it is grouped with the other "
                                 "rare levels; choose another reference", column=self.column)
-            if self.reference not in grouped_counts.index:
+            if self.reference not in grouped_counts:
                 raise DataError(f"the reference level '{self.reference}' does not occur in the "
                                 f"training rows (levels: {', '.join(levels)})", column=self.column)
             self.reference_ = self.reference
         else:
-            top = grouped_counts.max()
+            top = max(grouped_counts.values(), default=np.nan)
             self.reference_ = min(level for level in levels if grouped_counts[level] == top)
         self.known_levels_ = levels
         return labels
@@ -57,14 +64,14 @@ class _LevelEncoder:
         values = frame[self.column].astype(str)
         if self.grouped_:
             values = values.where(~values.isin(self.grouped_), self.group_label)
-        unseen = ~values.isin(self.known_levels_)
+        unseen = positions_of(self.known_levels_, values.to_numpy()) < 0
         if unseen.any():
             if self.unseen == "stop":
                 first = values[unseen].iloc[0]
                 raise DataError(f"level '{first}' was not in the training rows (known: "
                                 f"{', '.join(self.known_levels_)}); set unseen: use_reference to "
                                 "treat such levels as the reference level",
-                                column=self.column, row=first_row(frame, unseen.to_numpy()))
+                                column=self.column, row=first_row(frame, unseen))
             values = values.where(~unseen, self.reference_)
         return values
 
@@ -113,7 +120,7 @@ class OneHotEncoder(_LevelEncoder):
         labels = self._labels(frame)
         # One column per level, filled by each row's position among the levels (the
         # reference row has none): one pass over the rows, however many levels there are.
-        codes = pd.Index(self.levels_).get_indexer(labels.to_numpy())
+        codes = positions_of(self.levels_, labels.to_numpy())
         columns = np.zeros((len(frame), len(self.levels_)))
         rows = np.flatnonzero(codes >= 0)
         columns[rows, codes[rows]] = 1.0

@@ -26,7 +26,9 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.columns import month_ordinals
+from pipeline.core.design import held_series
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
+from pipeline.features.grouped import group_last, group_means, positions_of
 from pipeline.spec import Spec
 from pipeline.spec.schema import ESTIMATE_RULES
 
@@ -46,55 +48,119 @@ def calendar_month(ordinals: np.ndarray) -> np.ndarray:
 
 
 class _ColumnEstimate:
-    """What one column's rule learned from a window, as lookup tables."""
+    """What one column's rule learned from a window, as lookup tables: per series and calendar
+    month (seasonal rules only), per series, per calendar month over all series, and overall.
 
-    def __init__(self, by_month: pd.Series | None, by_series: pd.Series,
-                 pooled_month: pd.Series, overall: float) -> None:
-        self.by_month = by_month          # keyed by (series, calendar month), or None
-        self.by_series = by_series        # keyed by series
-        self.pooled_month = pooled_month  # keyed by calendar month
+    Looked up as arrays (``estimate``); as a model file stores them, the tables are Series
+    (``tables``), built when first asked for. Tables read from a file are kept as read.
+    """
+
+    def __init__(self, names: pd.Index, series_values: np.ndarray, pooled: np.ndarray, overall: float,
+                 month_names: pd.Index | None = None, month_grid: np.ndarray | None = None,
+                 tables: tuple | None = None) -> None:
+        self.names = names                  # the series of the table by series
+        self.series_values = series_values  # their values
+        self.pooled = pooled                # by calendar month (see _calendar_table)
         self.overall = overall
+        self.month_names = month_names      # the series of the table by series and calendar month
+        self.month_grid = month_grid        # (see _grid), or None without a seasonal rule
+        self._tables = tables
 
     @classmethod
-    def learn(cls, rule: str, series: np.ndarray, months: np.ndarray,
+    def from_tables(cls, by_month: pd.Series | None, by_series: pd.Series, pooled_month: pd.Series,
+                    overall: float) -> _ColumnEstimate:
+        """Return the estimate of the tables a model file stores (kept to be stored again)."""
+        month_names, month_grid = None, None
+        if by_month is not None:
+            codes, names = pd.factorize(by_month.index.get_level_values(0).to_numpy(object))
+            month_names = pd.Index(names, dtype=object)
+            month_grid = _grid(len(names), codes, by_month.index.get_level_values(1).to_numpy(),
+                               by_month.to_numpy(float))
+        return cls(pd.Index(by_series.index.to_numpy(object), dtype=object), by_series.to_numpy(float),
+                   _calendar_table(pooled_month.index.to_numpy(), pooled_month.to_numpy(float)),
+                   overall, month_names, month_grid, (by_month, by_series, pooled_month))
+
+    @classmethod
+    def learn(cls, rule: str, window: tuple[np.ndarray, np.ndarray, np.ndarray],
               values: np.ndarray) -> _ColumnEstimate:
+        """Return what the rule learns from a column's values; ``window``: the rows' series
+        codes, the sorted names they point into and the months, and ``values``, all in the
+        window's month order (file order within a month: the order pandas' groupby would
+        add them in, and in which the last of a group is found)."""
+        codes, names, months = window
         present = ~np.isnan(values)
-        table = pd.DataFrame({"series": series[present], "month": months[present],
-                              "moy": calendar_month(months[present]), "value": values[present]})
-        table = table.sort_values("month", kind="stable")
-        by_series_of = table.groupby("series", sort=True)["value"]
+        if not present.all():
+            codes, names = held_series(codes[present], names)
+            months, values = months[present], values[present]
+        moy = calendar_month(months)
         latest = rule in ("last_year", "last_value")
-        by_series = by_series_of.last() if latest else by_series_of.mean()
-        by_month = None
-        if rule in SEASONAL_RULES:
-            grouped = table.groupby(["series", "moy"], sort=True)["value"]
-            by_month = grouped.last() if rule == "last_year" else grouped.mean()
-        pooled_month = table.groupby("moy", sort=True)["value"].mean()
-        overall = float(table["value"].mean()) if len(table) else float("nan")
-        return cls(by_month, by_series.astype(float), pooled_month.astype(float), overall)
+        by_series = (group_last if latest else group_means)(codes, values, len(names))
+        cells, inverse = np.unique(moy, return_inverse=True)
+        pooled = _calendar_table(cells, group_means(inverse, values, len(cells)))
+        overall = float(values.sum() / len(values)) if len(values) else float("nan")
+        names = pd.Index(names, dtype=object)
+        if rule not in SEASONAL_RULES:
+            return cls(names, by_series, pooled, overall)
+        cells, inverse = np.unique(codes.astype(np.int64) * 12 + (moy - 1), return_inverse=True)
+        found = (group_last if rule == "last_year" else group_means)(inverse, values, len(cells))
+        return cls(names, by_series, pooled, overall, names, _grid(len(names), cells // 12, cells % 12 + 1, found))
+
+    def tables(self) -> tuple[pd.Series | None, pd.Series, pd.Series]:
+        """Return the tables as Series: by (series, calendar month) or None, by series, and by
+        calendar month, each keyed in sorted order, as groupby gives them."""
+        if self._tables is None:
+            by_series = pd.Series(self.series_values, index=pd.Index(self.names, name="series"),
+                                  name="value")
+            months = np.flatnonzero(~np.isnan(self.pooled))
+            pooled_month = pd.Series(self.pooled[months], index=pd.Index(months, name="moy"), name="value")
+            by_month = None
+            if self.month_grid is not None:
+                rows, months = np.nonzero(~np.isnan(self.month_grid))   # row by row: sorted keys
+                by_month = pd.Series(self.month_grid[rows, months], name="value",
+                                     index=pd.MultiIndex.from_arrays(
+                                         [self.month_names.to_numpy()[rows], months], names=["series", "moy"]))
+            self._tables = (by_month, by_series, pooled_month)
+        return self._tables
 
     def estimate(self, series: np.ndarray, months: np.ndarray) -> tuple[np.ndarray, int]:
         """Return the estimates of rows given by series and month, and how many fell back
         from the rule's own table."""
         moy = calendar_month(months)
+        codes = positions_of(self.names, series)
         # The rule's own table first, then the coarser ones in order.
-        tables = [(self.by_month, pd.MultiIndex.from_arrays([series, moy]))] \
-            if self.by_month is not None else []
-        tables += [(self.by_series, series), (self.pooled_month, moy)]
-        values = np.full(len(series), np.nan)
-        fell_back = 0
-        for position, (table, keys) in enumerate(tables):
-            missing = np.isnan(values)
-            if not missing.any():
-                break
-            values = np.where(missing, table.reindex(keys).to_numpy(float), values)
-            if position == 0:
-                fell_back = int(np.isnan(values).sum())
+        tables = []
+        if self.month_grid is not None:
+            month_codes = codes if self.month_names is self.names else positions_of(self.month_names, series)
+            tables.append(self.month_grid[month_codes, moy])   # code -1: the last row, all NaN
+        tables += [np.append(self.series_values, np.nan)[codes], self.pooled[moy]]
+        values = tables[0]
+        fell_back = int(np.isnan(values).sum())
+        for table in tables[1:]:
+            values = np.where(np.isnan(values), table, values)
         return np.where(np.isnan(values), self.overall, values), fell_back
 
     def to_dict(self) -> dict:
-        return {"by_month": self.by_month, "by_series": self.by_series,
-                "pooled_month": self.pooled_month, "overall": self.overall}
+        by_month, by_series, pooled_month = self.tables()
+        return {"by_month": by_month, "by_series": by_series,
+                "pooled_month": pooled_month, "overall": self.overall}
+
+
+def _calendar_table(months: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Return values by calendar month as an array indexed 0 to 12 (NaN where none; 0 unused)."""
+    table = np.full(13, np.nan)
+    inside = (months >= 1) & (months <= 12)
+    table[np.asarray(months)[inside].astype(np.intp)] = np.asarray(values, float)[inside]
+    return table
+
+
+def _grid(rows: int, codes: np.ndarray, months: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Return values by (row, calendar month) as a grid of rows + 1 by 13 (NaN where none; the
+    last row, read for a series not in the table, all NaN)."""
+    grid = np.full((rows + 1, 13), np.nan)
+    months = np.asarray(months)
+    inside = (months >= 1) & (months <= 12)
+    grid[np.asarray(codes)[inside], months[inside].astype(np.intp)] = np.asarray(values, float)[inside]
+    return grid
 
 
 class FutureEstimates:
@@ -116,9 +182,11 @@ class FutureEstimates:
     def fit(self, frame: pd.DataFrame) -> FutureEstimates:
         months = month_ordinals(frame)
         self.window_end_ = int(months.max())
-        series = frame[self.series_column].to_numpy()
-        self.tables_ = {column: _ColumnEstimate.learn(rule, series, months,
-                                                      frame[column].to_numpy(float))
+        # The window's series factorised and its rows put in month order once, for every column.
+        order = np.argsort(months, kind="stable")
+        codes, names = pd.factorize(frame[self.series_column].to_numpy()[order], sort=True)
+        window = (codes, np.asarray(names, object), months[order])
+        self.tables_ = {column: _ColumnEstimate.learn(rule, window, frame[column].to_numpy(float)[order])
                         for column, rule in self.rules.items()}
         return self
 
@@ -210,8 +278,8 @@ def _read_table(fields: StoredFields, column: str, entry) -> _ColumnEstimate:
         raise fields.bad("tables_", f"numbers keyed by series and month for '{column}'")
     if not isinstance(entry["overall"], (int, float)):
         raise fields.bad("tables_", f"a number for '{column}' (overall)")
-    return _ColumnEstimate(by_month, entry["by_series"], entry["pooled_month"],
-                           float(entry["overall"]))
+    return _ColumnEstimate.from_tables(by_month, entry["by_series"], entry["pooled_month"],
+                                       float(entry["overall"]))
 
 
 def estimate_keys(spec: Spec) -> dict[str, tuple]:

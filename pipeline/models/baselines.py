@@ -13,6 +13,7 @@ import pandas as pd
 from pipeline.core.design import series_index
 from pipeline.core.errors import ModelFileError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields, is_number
+from pipeline.features.grouped import group_last, group_means
 from pipeline.models.contract import Model
 
 SEASON = 12
@@ -79,9 +80,11 @@ class LastValue(_PerSeriesBaseline):
     word = "last value"
 
     def fit(self, design, y) -> LastValue:
-        frame = _by_series(design, y).sort_values("period", kind="stable")
-        self.values_ = frame.groupby("series")["y"].last().to_dict()
-        self.fallback_ = float(frame["y"].iloc[-1])
+        codes, names = series_index(design)
+        order = np.argsort(np.asarray(design.period), kind="stable")   # months in time order
+        values = np.asarray(y, float)[order]
+        self.values_ = dict(zip(names.tolist(), group_last(codes[order], values, len(names)).tolist()))
+        self.fallback_ = float(values[-1])
         return self
 
 
@@ -178,11 +181,15 @@ class TrailingMean(_PerSeriesBaseline):
     word = "trailing 12-month mean"
 
     def fit(self, design, y) -> TrailingMean:
-        frame = _by_series(design, y)
-        last = frame.groupby("series")["period"].transform("max")
-        recent = frame[frame["period"] > last - SEASON]
-        self.values_ = recent.groupby("series")["y"].mean().to_dict()
-        self.fallback_ = float(recent["y"].mean())
+        codes, names = series_index(design)
+        period = np.asarray(design.period, np.int64)
+        last = np.full(len(names), np.iinfo(np.int64).min)
+        np.maximum.at(last, codes, period)
+        recent = period > last[codes] - SEASON
+        values = np.asarray(y, float)[recent]
+        # Summed as pandas' groupby sums them (group_means), so the means do not change by a bit.
+        self.values_ = dict(zip(names.tolist(), group_means(codes[recent], values, len(names)).tolist()))
+        self.fallback_ = float(values.sum() / len(values))
         return self
 
 

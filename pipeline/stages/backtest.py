@@ -24,6 +24,7 @@ from pipeline.core.execution import IN_PROCESS, Executor, InProcess
 from pipeline.core.forked import in_copy, map_shared
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import ahead_words
+from pipeline.features.grouped import positions_of
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.ols import expanding_ols_predictions
 from pipeline.spec import Spec
@@ -164,7 +165,7 @@ def _lookup(values: dict, keys: np.ndarray) -> np.ndarray:
     """Return values[key] for each key (NaN for a key not in values), vectorised."""
     if not values:
         return np.full(len(keys), np.nan)
-    found = pd.Index(list(values)).get_indexer(keys)
+    found = positions_of(list(values), keys)
     table = np.append(np.asarray(list(values.values()), float), np.nan)
     return table[found]
 
@@ -183,29 +184,43 @@ def _split_columns(split: Split, target: str, scales: dict[str, float]) -> dict:
             "actual": test[target].to_numpy(float), "mase_scale": _lookup(scales, series)}
 
 
-def _frame_predictions(shared: dict, kind: str, predictions: np.ndarray, se=None,
-                       df_resid=None, centre=None) -> pd.DataFrame:
-    """Return one model's rows of the prediction table; ``centre`` None (with a standard
-    error) means the prediction itself, and is NaN wherever the standard error is."""
+def _model_rows(shared: dict, kind: str, predictions: np.ndarray, se=None,
+                df_resid=None, centre=None) -> dict[str, np.ndarray]:
+    """Return one model's rows of the prediction table, one array per column (``_table``
+    joins them); ``centre`` None (with a standard error) means the prediction itself, and is
+    NaN wherever the standard error is."""
+    rows = len(shared["series"])
+
+    def column(value, dtype=None) -> np.ndarray:
+        value = np.asarray(value, dtype)
+        return value if value.ndim else np.full(rows, value, value.dtype)
+
     if se is None:
         centre = np.nan
     else:
         centre = np.asarray(predictions if centre is None else centre, float)
         centre = np.where(np.isfinite(np.asarray(se, float)), centre, np.nan)
-    return pd.DataFrame({
-        "origin": shared["origin"], "period": shared["period"], "horizon": shared["horizon"],
-        "series": shared["series"], "model": kind, "actual": shared["actual"],
-        "prediction": predictions, "mase_scale": shared["mase_scale"],
-        "prediction_se": np.nan if se is None else se,
-        "df_resid": np.nan if df_resid is None else df_resid,
-        "centre": centre,
-    })
+    return {"origin": column(shared["origin"], object), "period": column(shared["period"], object),
+            "horizon": column(shared["horizon"]), "series": column(shared["series"], object),
+            "model": column(kind, object), "actual": column(shared["actual"]),
+            "prediction": column(predictions), "mase_scale": column(shared["mase_scale"]),
+            "prediction_se": column(np.nan if se is None else se),
+            "df_resid": column(np.nan if df_resid is None else df_resid), "centre": column(centre)}
 
 
-def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -> dict[str, tuple]:
+def _table(pieces: list[dict[str, np.ndarray]]) -> pd.DataFrame:
+    """Return the prediction table of the pieces' rows, in order: each column joined as one
+    array, numbers of mixed types widened as ``pd.concat`` of a frame per piece widens them."""
+    return pd.DataFrame({name: np.concatenate([piece[name] for piece in pieces])
+                         for name in PREDICTION_COLUMNS})
+
+
+def _growing_ols(spec: Spec, splits: list[Split], history: pd.DataFrame, matrix: np.ndarray,
+                 tests: list[np.ndarray]) -> dict[str, tuple]:
     """Return the OLS predictions (with their standard errors, residual df and centre: None,
     the predictions themselves, as this path runs only without a target transform) of every
-    split, growing one QR factor across origins. ``history`` is sorted by month."""
+    split, growing one QR factor across origins. ``history`` is sorted by month, ``matrix``
+    its terms, ``tests`` those of each split's predicted rows."""
     def with_intercept(matrix: np.ndarray) -> np.ndarray:
         if not spec.intercept:
             return matrix
@@ -214,14 +229,35 @@ def _growing_ols(spec: Spec, splits: list[Split], plan, history: pd.DataFrame) -
         full[:, 1:] = matrix
         return full
 
-    matrix = with_intercept(plan.transform(history).matrix)
-    tests = [with_intercept(plan.transform(split.test).matrix) for split in splits]
-    found = expanding_ols_predictions(matrix, history[spec.target].to_numpy(float),
+    found = expanding_ols_predictions(with_intercept(matrix), history[spec.target].to_numpy(float),
                                       history[PERIOD].array.asi8,
-                                      [split.origin.ordinal for split in splits], tests)
+                                      [split.origin.ordinal for split in splits],
+                                      [with_intercept(test) for test in tests])
     if found is None:  # rank-deficient window: the careful fit drops and names columns
         return {}
     return {split.label: (*result, None) for split, result in zip(splits, found)}
+
+
+def _fast_ols(spec: Spec, splits: list[Split], as_happened: list[Split], plan, data: CheckedData,
+              shared, estimating: bool) -> dict[str, tuple]:
+    """Return, by window, the OLS predictions of the rows as estimated and as they happened
+    (the same without estimated drivers), from one QR factor grown across origins; empty when
+    a window is rank-deficient. The rows as they happened, and the history, are read from the
+    shared design where there is one (a row's terms depend on that row alone)."""
+    history = sorted_by_month(data.history)
+    matrix = shared[1].matrix if shared is not None else plan.transform(history).matrix
+
+    def terms(split: Split, happened: bool) -> np.ndarray:
+        if happened and shared is not None:
+            return _design_rows(shared, split.test)[0].matrix
+        return plan.transform(split.test).matrix
+
+    ahead = _growing_ols(spec, splits, history, matrix, [terms(split, not estimating) for split in splits])
+    as_known = _growing_ols(spec, as_happened, history, matrix, [terms(split, True) for split in as_happened]) \
+        if estimating else ahead
+    if not (ahead and as_known):
+        return {}
+    return {label: (ahead[label], as_known[label]) for label in ahead}
 
 
 def _shared_design(spec: Spec, plan, data: CheckedData):
@@ -264,17 +300,22 @@ class _WindowDesigns:
     def train(self, kind: str) -> tuple[Design, np.ndarray]:
         # With lags, every model fits on the rows whose lags are available.
         if kind in BASELINE_KINDS and self.plain and self.shared is None:
-            frame = self.split.train
-            return series_design(frame, SERIES), frame[self.spec.target].to_numpy(float)
+            if "series train" not in self.cache:
+                frame = self.split.train
+                self.cache["series train"] = (series_design(frame, SERIES),
+                                              frame[self.spec.target].to_numpy(float))
+            return self.cache["series train"]
         if "train" not in self.cache:
             self.cache["train"] = self.plan.training_design(self.split.train)
         return self.cache["train"]
 
     def test(self, kind: str, *, hindsight: bool = False) -> Design:
         frame = self.hindsight if hindsight else self.split.test
-        if kind in BASELINE_KINDS and self.shared is None:
-            return series_design(frame, SERIES)
         name = "hindsight" if hindsight else "test"
+        if kind in BASELINE_KINDS:   # only the rows' series and months: never the terms
+            if f"series {name}" not in self.cache:
+                self.cache[f"series {name}"] = series_design(frame, SERIES)
+            return self.cache[f"series {name}"]
         if name not in self.cache:
             as_happened = hindsight or self.hindsight is None
             self.cache[name] = (_design_rows(self.shared, frame)[0]
@@ -348,8 +389,8 @@ class _Backtest:
 
 
 def _window(backtest: _Backtest, window: tuple) -> tuple:
-    """Return one window's prediction frames, hindsight frames, fallbacks, strategy note, other
-    notes, and whether a forked copy (core.forked) made them: a copy reports no progress of its
+    """Return one window's prediction rows and hindsight rows (each model's, see ``_model_rows``),
+    fallbacks, strategy note, other notes, and whether a forked copy (core.forked) made them: a copy reports no progress of its
     own, the process that made it counts its windows when they come back."""
     spec, (split, happened, plan) = backtest.spec, window
     progress = QUIET if in_copy() else backtest.progress
@@ -359,18 +400,18 @@ def _window(backtest: _Backtest, window: tuple) -> tuple:
     scales = mase_scales(split.train, spec.target, series_codes=window_codes) if backtest.time_ordered else {}
     columns = _split_columns(split, spec.target, scales)
     note = _strategy_note(spec, split)
-    frames, known_frames, fallen_back = [], [], []
+    rows, known_rows, fallen_back = [], [], []
     for choice in spec.models:
         predicted, se, df_resid, centre, fell_back, as_known = _predict_window(
             spec, split, plan, designs, choice, stepwise=note is not None, fast_ols=backtest.fast_ols,
             executor=backtest.executor, progress=progress)
         fallen_back += fell_back
-        frames.append(_frame_predictions(columns, choice.name, predicted, se, df_resid, centre))
+        rows.append(_model_rows(columns, choice.name, predicted, se, df_resid, centre))
         if as_known is not None:
-            known_frames.append(_frame_predictions(columns, choice.name, as_known))
+            known_rows.append(_model_rows(columns, choice.name, as_known))
     if not in_copy():
         progress.advance("origins")
-    return frames, known_frames, fallen_back, note, designs.left_out_notes() + list(split.notes), in_copy()
+    return rows, known_rows, fallen_back, note, designs.left_out_notes() + list(split.notes), in_copy()
 
 
 def _fallback_frame(found: list[pd.DataFrame | None]) -> pd.DataFrame:
@@ -417,12 +458,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
                  and not any(split.refilled for split in splits))
     shared = _shared_design(spec, plans[0], data) if same_plan else None
     if "ols" in spec.model_names and expanding and same_plan:
-        history = sorted_by_month(data.history)
-        ahead = _growing_ols(spec, splits, plans[0], history)
-        as_known = _growing_ols(spec, as_happened, plans[0], history) if estimating else ahead
-        if ahead and as_known:
-            fast_ols = {label: (ahead[label], as_known[label]) for label in ahead}
-    frames, known_frames = [], []
+        fast_ols = _fast_ols(spec, splits, as_happened, plans[0], data, shared, estimating)
+    rows, known_rows = [], []
     fallen_back: list[pd.DataFrame | None] = []
     progress.start("origins", len(splits))
 
@@ -433,8 +470,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     done = (map_shared(window, windows, [len(split.train) + len(split.test) for split in splits])
             if isinstance(executor, InProcess) else [window(one) for one in windows])
     for found, known, fell_back, note, more_notes, elsewhere in done:
-        frames += found
-        known_frames += known
+        rows += found
+        known_rows += known
         fallen_back += fell_back
         if note and note not in notes:
             notes.append(note)
@@ -447,7 +484,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
         if spec.estimated_columns:
             notes.append("k-fold folds have no origin, so the drivers castline estimates for the "
                          "forecast are scored here at their actual values")
-    predictions = pd.concat(frames, ignore_index=True)[PREDICTION_COLUMNS]
+    predictions = _table(rows)
     fallbacks = _fallback_frame(fallen_back)
     if len(fallbacks):
         notes.insert(0, _fallback_note(fallbacks))
@@ -456,8 +493,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     return BacktestResult(predictions=predictions, splits=splits, scheme=spec.validation.method,
                           horizon=horizon, notes=notes, ahead=ahead_words(spec),
                           step=getattr(spec.validation, "step", 1), fallbacks=fallbacks,
-                          hindsight=(pd.concat(known_frames, ignore_index=True)[PREDICTION_COLUMNS]
-                                     if known_frames else None),
+                          hindsight=_table(known_rows) if known_rows else None,
                           estimated=dict(spec.estimated_columns) if estimating else {},
                           transform=spec.target_transform,
                           floor=target_floor(data.history[spec.target]))

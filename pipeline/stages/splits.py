@@ -101,6 +101,12 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
     history = sorted_by_month(data.history)
     filled = _filled_in_month_order(data)
     ordinals = history[PERIOD].array.asi8
+    # Each window's predicted rows in month order, then series order (a stable sort, as
+    # sort_values([PERIOD, SERIES], kind="stable") would give): the series' codes found once.
+    series_codes = pd.factorize(history[SERIES].to_numpy(), sort=True)[0]
+
+    def in_order(positions: np.ndarray) -> pd.DataFrame:
+        return history.iloc[positions[np.lexsort((series_codes[positions], ordinals[positions]))]]
 
     def rows(first: int, last: int) -> slice:
         return slice(int(np.searchsorted(ordinals, months[first].ordinal, side="left")),
@@ -111,11 +117,11 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
         # input.gaps: fill filled some of them (filled again from the window's own months).
         origin = months[window.origin]
         train_rows, test_rows = rows(window.train_start, window.origin), rows(window.test_start, window.test_end)
-        train, test = history.iloc[train_rows], history.iloc[test_rows]
+        train, tested = history.iloc[train_rows], np.arange(test_rows.start, test_rows.stop)
         refilled, notes = False, ()
         if filled is not None:
-            test = test[~_filled_target(filled, spec.target)[test_rows]]
-            if not len(test):
+            tested = tested[~_filled_target(filled, spec.target)[test_rows]]
+            if not len(tested):
                 continue  # every month it would predict was filled, not observed
             marks = filled.iloc[train_rows]
             if marks.to_numpy().any():
@@ -124,8 +130,7 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
                 notes = (f"window ending {origin}: {left_out} row(s) filled by input.gaps were "
                          "left out of its fit: the window's own months cannot fill them (the gap "
                          "runs past the origin or starts before the window)",) if left_out else ()
-        splits.append(Split(label=str(origin), train=train,
-                            test=test.sort_values([PERIOD, SERIES], kind="stable"),
+        splits.append(Split(label=str(origin), train=train, test=in_order(tested),
                             origin=origin, refilled=refilled, notes=notes))
     if not splits:
         raise spec.error(("input", "gaps"), "every month the validation predicts was filled by "

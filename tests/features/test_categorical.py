@@ -125,3 +125,27 @@ def test_an_unseen_level_can_be_treated_as_the_reference_with_a_warning(encoding
     np.testing.assert_array_equal(design.matrix[0], reference.matrix[0])   # z is read as x
     assert design.notes == ("c: level 'z' was not in the training rows; 1 of the 2 rows were "
                             "treated as the reference level 'x'",)
+
+
+@pytest.mark.parametrize("group_below", [None, 3, 6])
+def test_levels_rare_levels_and_reference_equal_a_value_counts_construction(group_below):
+    # Reference: pandas' value_counts of the levels as text (missing values not counted): rare
+    # levels below group_below, the levels left after grouping them, and the most frequent of
+    # those as reference (ties alphabetically), as castline learned them before.
+    rng = np.random.default_rng(31)
+    values = pd.Series(rng.choice(["b", "a", "c", "d", "e", "Ä"], 60, p=[.3, .3, .2, .1, .05, .05]),
+                       dtype="str")
+    values[rng.random(60) < 0.1] = np.nan
+    frame = pd.DataFrame({"shop": values})
+    encoder = OneHotEncoder("shop", group_below=group_below).fit(frame)
+    counts = frame["shop"].astype(str).value_counts()
+    rare = sorted(level for level in counts.index if group_below is not None and counts[level] < group_below)
+    text = frame["shop"].astype(str)
+    grouped = (text.where(~text.isin(rare), encoder.group_label) if rare else text).value_counts()
+    top = grouped.max()
+    assert encoder.grouped_ == rare
+    assert encoder.known_levels_ == sorted(grouped.index)
+    assert encoder.reference_ == min(level for level in grouped.index if grouped[level] == top)
+    labels = text.where(~text.isin(rare), encoder.group_label) if rare else text
+    expected = pd.get_dummies(labels).reindex(columns=encoder.levels_, fill_value=False).to_numpy(float)
+    assert np.array_equal(encoder.transform(frame.dropna()), expected[frame["shop"].notna().to_numpy()])

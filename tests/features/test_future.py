@@ -150,3 +150,44 @@ def test_a_plan_of_format_version_1_reads_without_estimates():
     stored = plan.to_dict()
     del stored["state"]["future_"]
     assert FeaturePlan.from_dict(stored, version=1).future_ is None
+
+
+def _groupby_tables(rule: str, frame: pd.DataFrame, column: str) -> tuple:
+    """The tables as a DataFrame and pandas' groupby make them (castline's former way)."""
+    present = frame[frame[column].notna()]
+    table = pd.DataFrame({"series": present[SERIES].to_numpy(), "month": present[PERIOD].array.asi8,
+                          "moy": present[PERIOD].array.asi8 % 12 + 1,
+                          "value": present[column].to_numpy(float)}).sort_values("month", kind="stable")
+    latest = rule in ("last_year", "last_value")
+    by_series = table.groupby("series")["value"]
+    by_month = None
+    if rule in ("month_mean", "last_year"):
+        grouped = table.groupby(["series", "moy"])["value"]
+        by_month = grouped.last() if rule == "last_year" else grouped.mean()
+    return (by_month, by_series.last() if latest else by_series.mean(),
+            table.groupby("moy")["value"].mean(), float(table["value"].mean()))
+
+
+@pytest.mark.parametrize("rule", ["month_mean", "last_year", "last_value", "mean"])
+@pytest.mark.parametrize("series", [3, 1])
+def test_learned_tables_equal_pandas_groupby_to_the_bit(rule, series):
+    # Reference: pandas' groupby over a DataFrame of the window (the model file stores these
+    # tables, so they must not change by a bit); rows shuffled, some values missing.
+    frame = _panel(months=30, seed=5)
+    frame = frame[frame[SERIES].isin(["East", "North", "West"][:series])]
+    frame = frame.sample(frac=1.0, random_state=4).reset_index(drop=True)
+    frame.loc[frame.index % 7 == 3, "rain"] = np.nan
+    frame["rain"] = frame["rain"] * 1e6 + 0.1   # large values: summation order shows
+    estimates = FutureEstimates({"rain": rule}, SERIES).fit(frame)
+    learned = estimates.tables_["rain"]
+    expected = _groupby_tables(rule, frame, "rain")
+    for found, wanted in zip(learned.tables(), expected[:3]):
+        if wanted is None:
+            assert found is None
+            continue
+        pd.testing.assert_series_equal(found, wanted.astype(float), check_exact=True,
+                                       check_index_type=False)
+    assert learned.overall == expected[3]
+    stored = FutureEstimates.from_dict(estimates.to_dict())
+    later = _panel(months=40, seed=5).iloc[-20:]
+    assert np.array_equal(stored.apply(later)["rain"].to_numpy(), estimates.apply(later)["rain"].to_numpy())

@@ -176,3 +176,25 @@ def test_a_stored_baseline_predicts_the_same(cls, panel):
     model = cls().fit(design_of(train), train["y"])
     again = cls.from_dict(json.loads(json.dumps(model.to_dict(), allow_nan=False)))
     np.testing.assert_array_equal(again.predict(design_of(test)), model.predict(design_of(test)))
+
+
+@pytest.mark.parametrize("series", [["A", "B", "C"], ["B"]])
+def test_trailing_mean_and_last_value_equal_pandas_groupby_to_the_bit(panel, series):
+    """Reference: pandas' groupby over a DataFrame of the rows (castline's former way), to the
+    bit: the last value per series in month order, and the mean of each series' rows within
+    12 months of its own last one (one series: rows in group order, which pandas may sum
+    another way)."""
+    train = panel[panel["series"].isin(series)].copy()
+    train["y"] = train["y"] * 1e7 + 1 / 3   # large values: the order of summation shows
+    frame = pd.DataFrame({"series": train["series"].to_numpy(object), "y": train["y"].to_numpy(float),
+                          "period": train["period"].to_numpy(np.int64)})
+    last = frame.groupby("series")["period"].transform("max")
+    recent = frame[frame["period"] > last - 12]
+    trailing = TrailingMean().fit(design_of(train), train["y"])
+    assert trailing.values_ == recent.groupby("series")["y"].mean().to_dict()
+    assert list(trailing.values_) == sorted(series)
+    assert trailing.fallback_ == float(recent["y"].mean())
+    ordered = frame.sort_values("period", kind="stable")
+    latest = LastValue().fit(design_of(train), train["y"])
+    assert latest.values_ == ordered.groupby("series")["y"].last().to_dict()
+    assert latest.fallback_ == float(ordered["y"].iloc[-1])

@@ -506,6 +506,8 @@ class PenaltyRecorder:
 
 @pytest.mark.parametrize("kind", ["ridge", "lasso", "elastic_net"])
 def test_penalty_is_chosen_inside_the_training_window_only(kind, tmp_path, monkeypatch):
+    # The recorder sees only the windows fitted in this process: keep them all here.
+    monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
     frame = penalised_frame()
     recorder = PenaltyRecorder(monkeypatch)
     spec, data = load(tmp_path / "before", frame, validation=ROLLING, models=[kind], numeric=DRIVERS6)
@@ -608,3 +610,34 @@ def test_huber_equals_sklearn_huber_regressor_on_standardised_data(tmp_path):
         np.testing.assert_allclose(got, standardised_reference(reference, train, test), rtol=1e-6)
         count += 1
     assert count == ROLLING["origins"]
+
+
+def test_the_prediction_table_equals_a_frame_per_model_concatenated():
+    # Reference: pandas, a DataFrame per model and window joined by pd.concat (castline's
+    # former way): the same values, column types and row order.
+    rng = np.random.default_rng(21)
+    pieces, frames = [], []
+    for window, kind, spread in [("2021-01", "mean_baseline", None), ("2021-01", "ols", "int"),
+                                 ("2021-02", "ols", "array"), ("fold 1", "ridge", "centre")]:
+        n = int(rng.integers(1, 9))
+        shared = {"origin": window, "period": "" if window.startswith("fold") else
+                  np.array([f"2021-{m:02d}" for m in rng.integers(1, 13, n)], object),
+                  "horizon": rng.integers(0, 12, n), "series": np.array(["a", "b"] * n, object)[:n],
+                  "actual": rng.normal(size=n), "mase_scale": rng.normal(size=n)}
+        predicted = rng.normal(size=n)
+        se = None if spread is None else np.where(rng.random(n) < 0.3, np.nan, rng.random(n))
+        df_resid = {None: None, "int": 40, "array": rng.integers(5, 9, n), "centre": 12.0}[spread]
+        centre = rng.normal(size=n) if spread == "centre" else None
+        pieces.append(backtest_stage._model_rows(shared, kind, predicted, se, df_resid, centre))
+        if se is None:
+            centre_column = np.nan
+        else:
+            centre_column = np.where(np.isfinite(se), predicted if centre is None else centre, np.nan)
+        frames.append(pd.DataFrame({
+            "origin": shared["origin"], "period": shared["period"], "horizon": shared["horizon"],
+            "series": shared["series"], "model": kind, "actual": shared["actual"],
+            "prediction": predicted, "mase_scale": shared["mase_scale"],
+            "prediction_se": np.nan if se is None else se,
+            "df_resid": np.nan if df_resid is None else df_resid, "centre": centre_column}))
+    expected = pd.concat(frames, ignore_index=True)[backtest_stage.PREDICTION_COLUMNS]
+    pd.testing.assert_frame_equal(backtest_stage._table(pieces), expected, check_exact=True)

@@ -151,3 +151,19 @@ def test_kfold_equals_sklearn_kfold_with_the_same_seed(tmp_path, panel):
     # every row is predicted exactly once
     predicted = pd.concat([s.test for s in splits])
     assert len(predicted) == len(history) and not predicted.duplicated([PERIOD, SERIES]).any()
+
+
+def test_predicted_rows_are_sorted_by_month_then_series_as_pandas_sorts_them(tmp_path, panel):
+    # Reference: pandas, the window's rows of the month-sorted history sorted by
+    # sort_values([PERIOD, SERIES], kind="stable"): the same rows, labels and order.
+    shuffled = panel.copy()
+    shuffled["region"] = shuffled["region"].map({"North": "Nörth", "South": "South"})   # not ASCII
+    spec, data = checked(tmp_path, shuffled, {"method": "rolling_origin", "horizon": 4,
+                                              "min_train_periods": 12})
+    history = data.history.iloc[np.argsort(data.history[PERIOD].array.asi8, kind="stable")]
+    history = history.reset_index(drop=True)
+    splits, _ = validation_splits(spec, data)
+    for split in splits:
+        months = split.test[PERIOD]
+        rows = history[(history[PERIOD] >= months.min()) & (history[PERIOD] <= months.max())]
+        pd.testing.assert_frame_equal(split.test, rows.sort_values([PERIOD, SERIES], kind="stable"))
