@@ -506,8 +506,6 @@ class PenaltyRecorder:
 
 @pytest.mark.parametrize("kind", ["ridge", "lasso", "elastic_net"])
 def test_penalty_is_chosen_inside_the_training_window_only(kind, tmp_path, monkeypatch):
-    # The recorder sees only the windows fitted in this process: keep them all here.
-    monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
     frame = penalised_frame()
     recorder = PenaltyRecorder(monkeypatch)
     spec, data = load(tmp_path / "before", frame, validation=ROLLING, models=[kind], numeric=DRIVERS6)
