@@ -148,28 +148,33 @@ _MEASURING: dict = {}
 _EXTENTS: dict = {}
 
 
-def _renderer(dpi: float):
-    """Return the figure and the Agg renderer texts are measured with at this dpi."""
+def _measuring(dpi: float):
+    """Return the text (on a figure of this dpi) and the Agg renderer texts are measured with."""
     if dpi not in _MEASURING:
         import matplotlib.figure
         from matplotlib.backends.backend_agg import RendererAgg
-        _MEASURING[dpi] = (matplotlib.figure.Figure(dpi=dpi), RendererAgg(1, 1, dpi))
+        from matplotlib.transforms import IdentityTransform
+        text = matplotlib.figure.Figure(dpi=dpi).text(0, 0, "", transform=IdentityTransform())
+        _MEASURING[dpi] = (text, RendererAgg(1, 1, dpi))
     return _MEASURING[dpi]
 
 
 def _extent(label, string: str, dpi: float) -> tuple[float, float, float, float]:
     """Return the box (x0, y0, x1, y1) ``string`` takes around its anchor when drawn as the text
-    ``label`` draws, in pixels: measured by matplotlib once per process."""
+    ``label`` draws, in pixels: measured by matplotlib once per process (the key holds all that
+    shapes it, the font file the font resolves to and the settings the measure reads among it)."""
+    import matplotlib
+    from matplotlib.font_manager import findfont
     font = label.get_fontproperties()
-    shape = (label.get_rotation(), label.get_ha(), label.get_va(), label.get_rotation_mode(), label.get_linespacing())
-    key = (string, hash(font), font.get_size_in_points(), shape, dpi)
+    shape = {"rotation": label.get_rotation(), "ha": label.get_ha(), "va": label.get_va(),
+             "rotation_mode": label.get_rotation_mode(), "linespacing": label.get_linespacing(),
+             "usetex": label.get_usetex(), "parse_math": label.get_parse_math()}
+    key = (string, dpi, findfont(font), tuple(font.get_family()), font.get_size_in_points(), font.get_style(), font.get_weight(),
+           font.get_stretch(), font.get_variant(), font.get_math_fontfamily(), *shape.values(),
+           *(matplotlib.rcParams[name] for name in ("text.hinting", "text.hinting_factor", "text.kerning_factor")))
     if key not in _EXTENTS:
-        from matplotlib.text import Text
-        from matplotlib.transforms import IdentityTransform
-        figure, renderer = _renderer(dpi)
-        text = Text(0, 0, string, fontproperties=font, rotation=shape[0], ha=shape[1], va=shape[2],
-                    rotation_mode=shape[3], linespacing=shape[4], transform=IdentityTransform())
-        text.set_figure(figure)
+        text, renderer = _measuring(dpi)
+        text.set(text=string, fontproperties=font, **shape)
         _EXTENTS[key] = tuple(text.get_window_extent(renderer).extents)
     return _EXTENTS[key]
 
@@ -191,14 +196,34 @@ def _tick_label_boxes(axis, dpi: float) -> list[tuple]:
     return boxes
 
 
+def _label_edge(axis, boxes: list[tuple], dpi: float) -> float:
+    """Return where an axis' labels begin, away from its axes: past its tick labels' boxes and
+    the ticks themselves (the bottom spine's or left spine's extent, with ticks out)."""
+    tick = axis.majorTicks[0]
+    outside = tick.get_tick_padding() * dpi / 72 if tick.tick1line.get_visible() else 0
+    area = axis.axes.bbox
+    if axis.axis_name == "x":
+        return min([box[1] for box in boxes] + [area.y0 - outside])
+    return min([box[0] for box in boxes] + [area.x0 - outside])
+
+
+def _place_label(axis, edge: float, dpi: float) -> None:
+    """Place an axis' label where matplotlib places it, a label pad past ``edge`` (display pixels)."""
+    if axis._autolabelpos:
+        x, y = axis.label.get_position()
+        away = edge - axis.labelpad * dpi / 72
+        axis.label.set_position((x, away) if axis.axis_name == "x" else (away, y))
+
+
 def _axis_boxes(axis, renderer, dpi: float) -> list[tuple]:
     """Return the boxes of an axis' tick labels, offset text and label (its length collapsed, as
     matplotlib's tight layout does), the last two placed where matplotlib places them."""
     boxes = _tick_label_boxes(axis, dpi)
+    edge = _label_edge(axis, boxes, dpi)
     area = axis.axes.bbox
-    outside = axis.majorTicks[0].get_tick_padding() * dpi / 72 if axis.majorTicks[0].tick1line.get_visible() else 0
-    edge = min([box[1 if axis.axis_name == "x" else 0] for box in boxes]
-               + [(area.y0 if axis.axis_name == "x" else area.x0) - outside])
+    spine = axis.axes.spines.get("bottom" if axis.axis_name == "x" else "left")
+    if spine is not None and spine.get_visible() and len(axis.get_majorticklocs()):   # its ticks, out
+        boxes.append((area.x0, edge, area.x1, area.y0) if axis.axis_name == "x" else (edge, area.y0, area.x0, area.y1))
     more = []
     offset = axis.major.formatter.get_offset()
     if offset and axis.offsetText.get_visible():
@@ -207,9 +232,7 @@ def _axis_boxes(axis, renderer, dpi: float) -> list[tuple]:
         axis.offsetText.set_position((axis.offsetText.get_position()[0], position))
         more.append(axis.offsetText)
     if axis.label.get_visible() and axis.label.get_text():
-        x, y = axis.label.get_position()
-        away = edge - axis.labelpad * dpi / 72
-        axis.label.set_position((x, away) if axis.axis_name == "x" else (away, y))
+        _place_label(axis, edge, dpi)
         more.append(axis.label)
     for text in more:
         x0, y0, x1, y1 = text.get_window_extent(renderer).extents
@@ -218,6 +241,25 @@ def _axis_boxes(axis, renderer, dpi: float) -> list[tuple]:
             y0, y1 = ((y0 + y1) / 2,) * 2 if axis.axis_name == "y" else (y0, y1)
         boxes.append((x0, y0, x1, y1))
     return boxes
+
+
+def _pin_labels(figure) -> None:
+    """Pin each axis label and title where matplotlib would place it in the figure as laid out,
+    so that drawing does not measure every tick label again to place them: the label a pad past
+    its tick labels (in axes coordinates), a title at the top of its axes (where matplotlib puts
+    it unless the y axis' offset text is in its way; such an axes keeps placing its titles)."""
+    dpi = figure.dpi
+    for axes in figure.axes:
+        for axis in axes._axis_map.values() if axes.axison else ():
+            if axis.label.get_visible() and axis.label.get_text() and axis._autolabelpos:
+                _place_label(axis, _label_edge(axis, _tick_label_boxes(axis, dpi), dpi), dpi)
+                x, y = axes.transAxes.inverted().transform(axis.label.get_transform().transform(axis.label.get_position()))
+                axis.set_label_coords(x, y)
+        offset = axes.yaxis.offsetText.get_visible() and axes.yaxis.major.formatter.get_offset()
+        if axes._autotitlepos is None and not offset:
+            axes._autotitlepos = False
+            for title in (axes.title, axes._left_title, axes._right_title):
+                title.set_y(1.0)
 
 
 def _axes_box(axes, renderer, dpi: float) -> tuple[float, float, float, float]:
@@ -236,10 +278,11 @@ def _axes_box(axes, renderer, dpi: float) -> tuple[float, float, float, float]:
 
 def _simple_grid(figure) -> bool:
     """Whether ``lay_out`` can place the figure's axes: one grid of subplots, tick labels and axis
-    labels at the bottom and left, nothing on the figure itself."""
+    labels at the bottom and left, nothing on the figure itself but legends at its lower centre."""
     specs = [axes.get_subplotspec() for axes in figure.axes]
     return (bool(specs) and None not in specs and len({spec.get_gridspec() for spec in specs}) == 1
-            and not (figure.legends or figure.texts or figure._suptitle or figure._supxlabel or figure._supylabel)
+            and all(legend._get_loc() == 8 and legend.get_bbox_to_anchor() is figure.bbox for legend in figure.legends)
+            and not (figure.texts or figure._suptitle or figure._supxlabel or figure._supylabel)
             and all(axes.xaxis.label_position == "bottom" and axes.yaxis.label_position == "left"
                     and not axes.xaxis.majorTicks[0].label2.get_visible()
                     and not axes.yaxis.majorTicks[0].label2.get_visible() for axes in figure.axes))
@@ -247,11 +290,12 @@ def _simple_grid(figure) -> bool:
 
 def _grid_parameters(figure, pad: float = 1.08) -> dict:
     """Return the subplot parameters that leave room around each axes for what it draws outside
-    itself, and ``pad`` font sizes more, as matplotlib's tight_layout computes them."""
+    itself, and ``pad`` font sizes more, as matplotlib's tight_layout computes them; and below
+    them room for the figure's legends at its lower centre."""
     import matplotlib
     import numpy as np
     dpi = figure.dpi
-    renderer = _renderer(dpi)[1]
+    renderer = _measuring(dpi)[1]
     rows, columns = figure.axes[0].get_subplotspec().get_gridspec().get_geometry()
     across, down = np.zeros((rows, columns + 1)), np.zeros((rows + 1, columns))
     width, height = figure.bbox.width, figure.bbox.height
@@ -265,7 +309,8 @@ def _grid_parameters(figure, pad: float = 1.08) -> dict:
         down[spec.rowspan.stop, spec.colspan] += (place.y0 - y0) / height
     room = pad * matplotlib.rcParams["font.size"] / 72 * dpi
     left, right = max(across[:, 0].max(), 0) + room / width, max(across[:, -1].max(), 0) + room / width
-    top, bottom = max(down[0].max(), 0) + room / height, max(down[-1].max(), 0) + room / height
+    under = max((legend.get_window_extent(renderer).y1 for legend in figure.legends), default=0)
+    top, bottom = max(down[0].max(), 0) + room / height, max(down[-1].max(), 0) + (room + under) / height
     parameters = {"left": left, "right": 1 - right, "bottom": bottom, "top": 1 - top}
     if columns > 1:
         space = across[:, 1:-1].max() + room / width
@@ -304,6 +349,7 @@ def lay_out(figure) -> None:
             measured, labels = labels, refix()
             if labels == measured:
                 break
+        _pin_labels(figure)
     figure.set_layout_engine(None)
 
 
