@@ -288,10 +288,10 @@ def _simple_grid(figure) -> bool:
                     and not axes.yaxis.majorTicks[0].label2.get_visible() for axes in figure.axes))
 
 
-def _grid_parameters(figure, pad: float = 1.08) -> dict:
+def _grid_parameters(figure, pad: float = 1.08) -> dict | None:
     """Return the subplot parameters that leave room around each axes for what it draws outside
     itself, and ``pad`` font sizes more, as matplotlib's tight_layout computes them; and below
-    them room for the figure's legends at its lower centre."""
+    them room for the figure's legends at its lower centre. None when that leaves the axes no room."""
     import matplotlib
     import numpy as np
     dpi = figure.dpi
@@ -312,12 +312,15 @@ def _grid_parameters(figure, pad: float = 1.08) -> dict:
     under = max((legend.get_window_extent(renderer).y1 for legend in figure.legends), default=0)
     top, bottom = max(down[0].max(), 0) + room / height, max(down[-1].max(), 0) + (room + under) / height
     parameters = {"left": left, "right": 1 - right, "bottom": bottom, "top": 1 - top}
+    wide = across[:, 1:-1].max(initial=0) + room / width
+    high = down[1:-1].max(initial=0) + room / height
+    each = ((1 - left - right - wide * (columns - 1)) / columns, (1 - top - bottom - high * (rows - 1)) / rows)
+    if min(each) <= 0:   # no room for the axes (as tight_layout, the figure is left as it is)
+        return None
     if columns > 1:
-        space = across[:, 1:-1].max() + room / width
-        parameters["wspace"] = space / ((1 - left - right - space * (columns - 1)) / columns)
+        parameters["wspace"] = wide / each[0]
     if rows > 1:
-        space = down[1:-1].max() + room / height
-        parameters["hspace"] = space / ((1 - top - bottom - space * (rows - 1)) / rows)
+        parameters["hspace"] = high / each[1]
     return parameters
 
 
@@ -345,7 +348,10 @@ def lay_out(figure) -> None:
         refix()   # where the axes' new lengths put them
     else:
         for _ in range(3):
-            figure.subplots_adjust(**_grid_parameters(figure))
+            parameters = _grid_parameters(figure)
+            if parameters is None:
+                break
+            figure.subplots_adjust(**parameters)
             measured, labels = labels, refix()
             if labels == measured:
                 break
