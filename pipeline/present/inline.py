@@ -52,14 +52,26 @@ def _coordinates(match: re.Match) -> bytes:
     return match.group(1) + b'"' + _DECIMALS.sub(_rounded, value) + b'"'
 
 
+_ID = re.compile(rb' id="([^"]*)"')
+_NO_ROTATION = re.compile(rb' transform="rotate\(-?0 [^")]*\)"')
+
+
+def _quoted(match: re.Match) -> bytes:
+    return b"='" + match.group(1).replace(b"'", b"&apos;") + b"'"
+
+
 def _tag(tag: bytes, family: bytes | None, used: set) -> bytes:
-    """Return one SVG tag compacted as compact_svg says."""
-    tag = re.sub(rb' id="([^"]*)"', lambda m: m.group(0) if m.group(1) in used else b"", tag)
+    """Return one SVG tag compacted as compact_svg says (each step only where the tag has what it
+    changes)."""
+    if b' id="' in tag:
+        tag = _ID.sub(lambda m: m.group(0) if m.group(1) in used else b"", tag)
     tag = _COORDINATES.sub(_coordinates, tag)
-    tag = re.sub(rb' transform="rotate\(-?0 [^")]*\)"', b"", tag)
-    if family is not None:
+    if b"rotate(" in tag:
+        tag = _NO_ROTATION.sub(b"", tag)
+    if family is not None and b"font-family" in tag:
         tag = _FONT.sub(b"", tag)
-    return _ATTRIBUTE.sub(lambda m: b"='" + m.group(1).replace(b"'", b"&apos;") + b"'", tag)
+    # A '"' in a tag only quotes an attribute: without a "'" in it, each one simply turns into "'".
+    return tag.replace(b'"', b"'") if b"'" not in tag else _ATTRIBUTE.sub(_quoted, tag)
 
 
 def compact_svg(svg: bytes) -> bytes:
