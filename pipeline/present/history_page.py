@@ -161,7 +161,11 @@ def recorded_warnings(book: HistoryBook) -> tuple[pd.DataFrame, list[str]]:
 
 
 def _drawn(make, *arguments) -> plots.Figure:
-    return plots.inline_picture(*make(*arguments))
+    """Return a line chart of the page made by ``make`` as an inline picture: SVG, or PNG past as
+    many drawn points as the report's line charts (plots.picture_kind), so it is drawn once."""
+    figure, alt = make(*arguments)
+    points = sum(len(line.get_xdata()) for axes in figure.axes for line in axes.get_lines())
+    return plots.inline_picture(figure, alt, plots.picture_kind(points))
 
 
 def _pictures(book: HistoryBook) -> dict:

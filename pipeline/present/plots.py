@@ -170,9 +170,8 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     one-month-ahead errors were smallest."""
     actual = history.groupby("period")["actual"].sum().sort_index()
     parts = _one_step_and_longest(predictions)
-    figure = matplotlib.figure.Figure(figsize=(8, 3.6), layout="constrained")
-    FigureCanvasAgg(figure)
-    axes = figure.subplots(1, len(parts), sharey=True, squeeze=False)[0]
+    figure, axes = _subplots(1, len(parts), figsize=(8, 3.6), sharey=True, squeeze=False)
+    axes = axes[0]
     models = list(dict.fromkeys(predictions["model"]))
     colours = model_colours(models)
     spans = []
@@ -192,7 +191,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
         spans.append(f"{what} ({_months_text(scored)})")
     axes[0].set_ylabel("target, all series")
     handles, labels = axes[0].get_legend_handles_labels()
-    figure.legend(handles, labels, loc="outside lower center", ncol=len(labels), fontsize=7, frameon=False)
+    figure.legend(handles, labels, loc="lower center", ncol=len(labels), fontsize=7, frameon=False)
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
     alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
