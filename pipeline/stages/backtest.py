@@ -21,7 +21,7 @@ import pandas as pd
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.core.execution import IN_PROCESS, Executor, InProcess
-from pipeline.core.forked import in_copy, map_shared
+from pipeline.core.forked import PAYS_FROM, in_copy, map_shared
 from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import ahead_words
 from pipeline.features.grouped import positions_of
@@ -467,7 +467,7 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
     # fits run here (not on worker processes or a cluster of their own); heavier windows weigh more.
     window = partial(_window, _Backtest(spec, shared, plain, estimating, time_ordered, fast_ols, executor, progress))
     windows = list(zip(splits, as_happened, plans))
-    done = (map_shared(window, windows, [len(split.train) + len(split.test) for split in splits])
+    done = (map_shared(window, windows, [len(split.train) + len(split.test) for split in splits], least=PAYS_FROM)
             if isinstance(executor, InProcess) else [window(one) for one in windows])
     for found, known, fell_back, note, more_notes, elsewhere in done:
         rows += found

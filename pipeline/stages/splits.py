@@ -19,7 +19,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
-from pipeline.core.forked import map_shared
+from pipeline.core.forked import PAYS_FROM, map_shared
 from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.spec import Spec
@@ -244,8 +244,9 @@ def plan_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int, list]:
         months, label = min((split.train[PERIOD].nunique(), split.label) for split in splits)
         require_a_year(spec, int(months), f"the training window ending {label}")
     # Each window's plan is learned from that window alone: the windows are shared with a forked
-    # copy of this process where the machine allows (core.forked), the longer ones weighing more.
-    plans = map_shared(partial(_fitted_plan, spec), splits, [len(split.train) for split in splits])
+    # copy of this process where the machine allows and they are work enough (core.forked), the
+    # longer ones weighing more.
+    plans = map_shared(partial(_fitted_plan, spec), splits, [len(split.train) for split in splits], least=PAYS_FROM)
     for split, plan in zip(splits, plans):
         _check_rows(spec, split, len(plan.get_feature_names_out()) + int(spec.intercept))
     return splits, horizon, plans

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import os
 import threading
+import time
 import warnings
 
 import pytest
@@ -82,6 +83,23 @@ def test_no_copy_while_threads_run_or_when_told(monkeypatch):
         thread.join()
     monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
     assert not forked.can_fork()
+
+
+def _slow_square_with_pid(value):
+    time.sleep(0.05)
+    return value * value, os.getpid()
+
+
+def test_small_work_is_done_here_and_work_enough_is_shared():
+    # The first item is timed here; the rest are shared only when they would take at least `least`.
+    found = forked.map_shared(_square_with_pid, range(6), least=5.0)
+    assert [square for square, _ in found] == [i * i for i in range(6)]
+    assert {pid for _, pid in found} == {os.getpid()}
+    found = forked.map_shared(_slow_square_with_pid, range(6), least=0.1)   # some 0.25 s ahead
+    assert [square for square, _ in found] == [i * i for i in range(6)]
+    assert found[0][1] == os.getpid() and len({pid for _, pid in found}) == 2
+    found = forked.map_shared(_slow_square_with_pid, range(6), [1, 0, 0, 0, 0, 1], least=0.1)   # 0.05 s ahead
+    assert {pid for _, pid in found} == {os.getpid()}
 
 
 def test_halves_of_about_equal_weight_heaviest_first():
