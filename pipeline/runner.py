@@ -141,6 +141,7 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     the forecast report how far they have got to ``progress`` (by default, nowhere).
     """
     spec = _as_spec(spec_or_path)
+    import pandas  # noqa: F401 (every process of the run needs it: loaded once, before any fork, and set aside)
     with settled(), _pages_helper() as pages:
         data, (settle_validation, run_backtest, evaluate, make_forecast, executor_for, track_record,
                publish) = _checked_while_loading(spec, _RUN_STAGES)

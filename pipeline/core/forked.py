@@ -237,6 +237,7 @@ class Helper:
                 if prepare:
                     getattr(loaded, prepare)()
             function = self._here()
+            gc.freeze()   # what the preparing made is set aside too, as in settled (for this copy's own copies)
             request = _read_all(requests)
             if request:   # nothing: this process closed the helper unused
                 with warnings.catch_warnings(record=True) as caught:
