@@ -7,7 +7,7 @@ checkout, with the same interpreter). It times, each as its own process:
 
 - a bare ``python -c "import pandas, numpy"``: what any pandas tool pays to start;
 - ``castline check`` and ``castline run`` on the shipped demo (configs/compost_demo.yaml,
-  run into a temporary folder), as ratios to the bare start, and the run once more with
+  each run the spec's first, into an empty temporary folder), as ratios to the bare start, and the run once more with
   ``CASTLINE_ONE_PROCESS=1`` (all of it in one process: what the second core saves);
 - ``castline run`` of a generated panel (46 series x 120 months, three numeric drivers,
   the series as a one-hot categorical driver, rolling origins), once under cProfile:
@@ -131,7 +131,8 @@ def main(argv: list[str] | None = None) -> int:
         spec = demo_copy(folder)
         out = folder / "out"
         # Each repeat times every command once, in turn: a shared machine's speed drifts over
-        # minutes, and interleaving spreads the drift over all of them alike.
+        # minutes, and interleaving spreads the drift over all of them alike. Every run is a spec's
+        # first (an empty output folder and ledger), so each repeat times the same work.
         commands = {
             "bare": (["-c", "import pandas, numpy"], env),
             "check": (["-m", "pipeline", "check", str(spec)], env),
@@ -143,8 +144,8 @@ def main(argv: list[str] | None = None) -> int:
         for _ in range(args.repeats):
             for name, (arguments, environ) in commands.items():
                 times[name].append(timed(arguments, environ, folder))
+                shutil.rmtree(out, ignore_errors=True)
         bare, check, run, alone = (statistics.median(times[name]) for name in commands)
-        shutil.rmtree(out, ignore_errors=True)
         panel = build_panel(folder, args.panel_series, args.panel_months)
         total, diagnose, vif = profiled_share(panel, env, folder)
 
