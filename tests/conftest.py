@@ -204,3 +204,18 @@ def _one_process_unless_marked(request, monkeypatch):
     if not forked.can_fork():
         pytest.skip("this process cannot fork: not Linux, one core, or threads running "
                     f"({[thread.name for thread in threading.enumerate()]})")
+
+
+def kept_figures(patch) -> list:
+    """Keep each figure a picture function hands to plots.inline_picture (drawn, to read back);
+    ``patch``: a monkeypatch, which puts inline_picture back when it is undone."""
+    from pipeline.present import plots
+    figures = []
+    real = plots.inline_picture
+
+    def keep(figure, alt, kind=None):
+        picture = real(figure, alt, kind)
+        figures.append(figure)
+        return picture
+    patch.setattr(plots, "inline_picture", keep)
+    return figures

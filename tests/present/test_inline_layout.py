@@ -13,7 +13,7 @@ import matplotlib.dates as mdates
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import DEMO_SPEC
+from conftest import DEMO_SPEC, kept_figures
 
 import pipeline
 from pipeline.present import inline, plots
@@ -24,16 +24,9 @@ from pipeline.present.report import render_report
 def demo_figures(tmp_path_factory):
     """Every figure the demo's report draws, as it was drawn (laid out, ticks fixed)."""
     folder = pipeline.run(DEMO_SPEC, output_folder=tmp_path_factory.mktemp("layout")).folder.path
-    figures = []
-    real = plots.inline_picture
-
-    def keep(figure, alt, kind=None):
-        picture = real(figure, alt, kind)
-        figures.append(figure)
-        return picture
     with pytest.MonkeyPatch.context() as patch:
         patch.setenv("CASTLINE_ONE_PROCESS", "1")
-        patch.setattr(plots, "inline_picture", keep)
+        figures = kept_figures(patch)
         render_report(folder)
     return figures
 

@@ -23,7 +23,7 @@ import matplotlib
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import ROOT
+from conftest import ROOT, kept_figures
 
 from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number
@@ -131,26 +131,13 @@ def _rolling_backtest(origins: int = 61, horizon: int = 12, seed: int = 3):
     return history, pd.DataFrame(rows)
 
 
-def _drawn(monkeypatch) -> list:
-    """Keep each figure a picture function hands to plots.inline_picture (drawn, to read back)."""
-    figures = []
-    real = plots.inline_picture
-
-    def keep(figure, alt, kind=None):
-        picture = real(figure, alt, kind)
-        figures.append(figure)
-        return picture
-    monkeypatch.setattr(plots, "inline_picture", keep)
-    return figures
-
-
 def _labels(axis) -> list[str]:
     return [t.get_text() for t in axis.get_xticklabels() if t.get_text() and t.get_visible()]
 
 
 def test_the_backtest_picture_draws_one_month_ahead_apart_from_the_furthest_with_few_labels(monkeypatch):
     history, predictions = _rolling_backtest()
-    figures = _drawn(monkeypatch)
+    figures = kept_figures(monkeypatch)
     picture = plots.backtest_picture(history, predictions)
     (figure,) = figures
     axes = figure.get_axes()
@@ -183,7 +170,7 @@ def test_the_error_picture_by_origin_labels_at_most_12_of_61_origins(monkeypatch
     table = (predictions.assign(error=(predictions["prediction"] - predictions["actual"]).abs())
              .groupby(["model", "origin"], sort=False)["error"].mean().rename("mae").reset_index())
     assert table["origin"].nunique() == 61
-    figures = _drawn(monkeypatch)
+    figures = kept_figures(monkeypatch)
     plots.error_picture(table, "origin", "origin")
     (axis,) = figures[0].get_axes()
     labels = _labels(axis)
@@ -203,7 +190,7 @@ def _decoded(uri: str) -> tuple[str, bytes]:
 
 def test_a_line_chart_is_inlined_as_well_formed_svg_of_fewer_bytes_than_its_png(monkeypatch):
     history, predictions = _rolling_backtest(origins=13)
-    figures = _drawn(monkeypatch)
+    figures = kept_figures(monkeypatch)
     picture = plots.backtest_picture(history, predictions)
     kind, data = _decoded(picture.uri)
     assert kind == "svg"
@@ -222,7 +209,7 @@ def test_a_scatter_of_thousands_of_points_stays_png_when_that_is_smaller(monkeyp
     residuals = pd.DataFrame({"period": np.repeat([str(p) for p in pd.period_range("2015-01", periods=60,
                                                                                  freq="M")], 100),
                               "fitted": rng.normal(100, 20, 6000), "residual": rng.normal(0, 5, 6000)})
-    figures = _drawn(monkeypatch)
+    figures = kept_figures(monkeypatch)
     pictures = plots.residual_pictures(residuals)
     for picture, figure in zip(pictures, figures):
         kind, data = _decoded(picture.uri)
