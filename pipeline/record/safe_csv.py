@@ -23,14 +23,33 @@ def neutralise(value: Any) -> Any:
     return value
 
 
+def _neutralised_column(column: pd.Series) -> pd.Series:
+    """Return a column with its text cells neutralised: itself when none starts a formula (a check
+    over the column at once; only the cells that do are rewritten)."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        column = column.astype(object)
+    try:
+        starts = column.str.startswith(FORMULA_STARTS).fillna(False)   # missing where a cell is not text
+    except AttributeError:   # an object column holding no text at all
+        starts = column.map(lambda value: isinstance(value, str) and value.startswith(FORMULA_STARTS))
+    hit = starts.to_numpy(bool)
+    if not hit.any():
+        return column
+    out = column.astype(object)   # a copy: the frame given is never changed
+    out[hit] = [neutralise(value) for value in column[hit]]
+    return out
+
+
 def neutralised(frame: pd.DataFrame) -> pd.DataFrame:
     """Return a copy of the frame whose text cells and column names cannot start a formula."""
-    out = frame.copy()
-    for column in out.columns:
-        if out[column].dtype == object or pd.api.types.is_string_dtype(out[column].dtype):
-            out[column] = out[column].map(neutralise)
-        elif isinstance(out[column].dtype, pd.CategoricalDtype):
-            out[column] = out[column].astype(object).map(neutralise)
+    out = frame.copy(deep=False)
+    for position in range(frame.shape[1]):
+        column = frame.iloc[:, position]
+        if column.dtype == object or pd.api.types.is_string_dtype(column.dtype) \
+                or isinstance(column.dtype, pd.CategoricalDtype):
+            changed = _neutralised_column(column)
+            if changed is not column:
+                out.isetitem(position, changed)
     out.columns = [neutralise(c) for c in out.columns]
     return out
 
