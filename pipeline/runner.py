@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from pipeline.core.errors import DataError, UserError
-from pipeline.core.forked import Helper, map_shared, settle_again, settled
+from pipeline.core.forked import Helper, called, map_shared, settle_again, settled
 from pipeline.core.progress import QUIET, Progress
 from pipeline.spec import CsvOptions, Spec, load_spec
 
@@ -172,10 +172,6 @@ def _read_and_check(spec: Spec) -> CheckedData:
         return check_data(spec, read_input(spec))
 
 
-def _call(task):
-    return task()
-
-
 def _checked_while_loading(spec: Spec, names: tuple[str, ...]) -> tuple[CheckedData, list]:
     """Return the spec's data, read and checked, and the named stage functions: the data read and
     checked in a forked copy of this process (core.forked; which alone imports pandera) while
@@ -183,7 +179,7 @@ def _checked_while_loading(spec: Spec, names: tuple[str, ...]) -> tuple[CheckedD
     machine allows. Nothing is fitted before the check has passed: a check that fails in the
     copy is done again here, and its error raised here."""
     loading, checking = partial(_stages, *names), partial(_read_and_check, spec)
-    data, stages = map_shared(_call, [checking, loading], weights=[1, 2])   # the heavier share is this process's
+    data, stages = map_shared(called, [checking, loading], weights=[1, 2])   # the heavier share is this process's
     return data, stages
 
 

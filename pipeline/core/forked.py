@@ -138,6 +138,11 @@ def _halves(weights: Sequence[float]) -> tuple[list[int], list[int]]:
     return sorted(halves[0]), sorted(halves[1])
 
 
+def called(task: Callable):
+    """Return ``task()``: the function to map over tasks (partials), for work of different kinds."""
+    return task()
+
+
 def map_shared(function: Callable, items: Sequence, weights: Sequence[float] | None = None, *,
                least: float = 0.0) -> list:
     """Return ``[function(item) for item in items]``, about half of them (by ``weights``, a rough

@@ -12,7 +12,7 @@ from __future__ import annotations
 import functools
 from dataclasses import dataclass
 
-from pipeline.core.forked import map_shared
+from pipeline.core.forked import called, map_shared
 
 
 @dataclass(frozen=True)
@@ -20,10 +20,6 @@ class Later:
     """Stands in a view for what a job returns until the jobs are done."""
 
     job: int
-
-
-def _call(job) -> object:
-    return job()
 
 
 class PictureJobs:
@@ -41,7 +37,7 @@ class PictureJobs:
     def done(self, view):
         """Run every job and return the view (dicts, lists and tuples, as deep as they go) with
         each stand-in replaced by its job's result."""
-        results = map_shared(_call, [job for _, job in self.jobs], [weight for weight, _ in self.jobs])
+        results = map_shared(called, [job for _, job in self.jobs], [weight for weight, _ in self.jobs])
         return _replaced(view, dict(enumerate(results)))
 
 

@@ -22,7 +22,7 @@ import pandas as pd
 
 from pipeline.core import metrics
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
-from pipeline.core.forked import map_shared
+from pipeline.core.forked import called, map_shared
 from pipeline.core.formatting import format_number
 from pipeline.core.intervals import (
     backtest_intervals,
@@ -513,10 +513,6 @@ def _against_rules(table: pd.DataFrame, predictions: pd.DataFrame, select_by: st
     return best_rule, table
 
 
-def _call(task):
-    return task()
-
-
 def _breakdowns(backtest: BacktestResult, select_by: str, level: float) -> tuple:
     """Return the scores by origin, by months ahead (empty without a time order) and by series."""
     predictions = backtest.predictions
@@ -572,7 +568,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)
     # The tables by origin, months ahead and series, and the intervals' coverage, are computed
     # side by side with a forked copy of this process where the machine allows (core.forked).
-    (by_origin, by_horizon, by_series), (held, held_by) = map_shared(_call, [
+    (by_origin, by_horizon, by_series), (held, held_by) = map_shared(called, [
         partial(_breakdowns, backtest, select_by, level),
         partial(backtest_intervals, predictions, backtest.transform, backtest.floor)])
     # The interval score (Winkler 1972) of the 95% interval the pages state for each model.
