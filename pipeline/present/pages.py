@@ -4,11 +4,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from pipeline.present.picture_jobs import PictureJobs
 from pipeline.present.report import render_report
 from pipeline.present.run_files import load_run_files
 from pipeline.present.summary import render_summary
 
 PAGES = ("summary.md", "report.html")
+SUMMARY_WEIGHT = 6   # the summary's time for the demo, in the report's jobs' unit (hundredths of a second)
 
 
 def render_pages(folder: str | Path) -> dict[str, str]:
@@ -17,4 +19,7 @@ def render_pages(folder: str | Path) -> dict[str, str]:
     Raises UserError when the folder is not a complete run folder.
     """
     files = load_run_files(folder)
-    return {"summary.md": render_summary(files), "report.html": render_report(files)}
+    jobs = PictureJobs()
+    summary = jobs.later(SUMMARY_WEIGHT, render_summary, files)   # made beside the report's pictures
+    report = render_report(files, jobs)
+    return {"summary.md": jobs.result(summary), "report.html": report}

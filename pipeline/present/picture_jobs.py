@@ -4,7 +4,8 @@ between this process and a forked copy of it where the machine allows (core.fork
 Making and drawing a dozen pictures is most of a report's time. A page asks for each
 picture with ``jobs.later(weight, function, *arguments)`` and gets a stand-in at once;
 ``jobs.done(view)`` runs every job (each process about half the weight) and returns the view with each stand-in
-replaced by what its function returned. The same pages either way.
+replaced by what its function returned. The same pages either way. Another page made from the
+same files can be a job too (the summary beside the report's pictures: ``jobs.result``).
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ class PictureJobs:
 
     def __init__(self) -> None:
         self.jobs: list[tuple[float, functools.partial]] = []
+        self.results: dict[int, object] = {}
 
     def later(self, weight: float, function, *arguments, **options) -> Later:
         """Return a stand-in for ``function(*arguments, **options)``; ``weight`` is the job's
@@ -38,7 +40,13 @@ class PictureJobs:
         """Run every job and return the view (dicts, lists and tuples, as deep as they go) with
         each stand-in replaced by its job's result."""
         results = map_shared(called, [job for _, job in self.jobs], [weight for weight, _ in self.jobs])
-        return _replaced(view, dict(enumerate(results)))
+        self.results = dict(enumerate(results))
+        return _replaced(view, self.results)
+
+    def result(self, later: Later):
+        """Return what a job returned, once the jobs are done (a job whose result no view holds:
+        another page made beside the pictures)."""
+        return self.results[later.job]
 
 
 def _replaced(value, results: dict):

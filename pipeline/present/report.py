@@ -500,11 +500,11 @@ def _backtest_pictures(jobs: PictureJobs, metrics: dict, history: pd.DataFrame, 
     return pictures
 
 
-def render_report(files: RunFiles | str | Path) -> str:
+def render_report(files: RunFiles | str | Path, jobs: PictureJobs | None = None) -> str:
     """Return the report's HTML, from the run folder's files alone (the pictures made and drawn as
-    jobs, picture_jobs)."""
+    jobs, picture_jobs; added to ``jobs`` when given, with what else was asked of them)."""
     files = files if isinstance(files, RunFiles) else load_run_files(files)
-    jobs = PictureJobs()
+    jobs = jobs if jobs is not None else PictureJobs()
     view = jobs.done(_report_view(files, jobs))
     return page_environment().get_template("report.html.j2").render(**view)
 
