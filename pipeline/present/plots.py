@@ -132,7 +132,7 @@ def _one_step_and_longest(predictions: pd.DataFrame) -> list[tuple[str, pd.DataF
     """Return the predictions made one month ahead and those made the furthest ahead, each
     with what they are; from a single origin (a holdout), its predictions as one part."""
     steps = sorted(set(predictions["horizon"].astype(int)))
-    origins = list(dict.fromkeys(predictions["origin"]))
+    origins = list(predictions["origin"].unique())
     if len(origins) == 1 and len(steps) > 1:
         return [(f"from {origins[0]}, {steps[0]} to {_ahead_text(steps[-1])}", predictions)]
     return [(_ahead_text(h), predictions[predictions["horizon"].astype(int) == h])
@@ -172,7 +172,7 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     parts = _one_step_and_longest(predictions)
     figure, axes = _subplots(1, len(parts), figsize=(8, 3.6), sharey=True, squeeze=False)
     axes = axes[0]
-    models = list(dict.fromkeys(predictions["model"]))
+    models = list(predictions["model"].unique())
     colours = model_colours(models)
     spans = []
     for axis, (what, rows) in zip(axes, parts):

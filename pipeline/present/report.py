@@ -405,15 +405,15 @@ def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | No
         part = own[own["by"] == by]
         if not len(part):
             continue
-        order = list(dict.fromkeys(part["group"].astype(str)))
+        part = part.assign(group=part["group"].astype(str))
+        order = list(part["group"].unique())
         order = sorted(order, key=float) if by == "months ahead" else [g for g in SIZE_GROUPS if g in order]
-        wide = part.assign(group=part["group"].astype(str)).pivot_table(
-            index="group", columns="level", values="coverage", aggfunc="first").reindex(order)
-        counts = part.assign(group=part["group"].astype(str)).groupby("group")["n"].max().reindex(order)
         shown = pd.DataFrame({by: order})
-        for level in wide.columns:
-            shown[f"{percent(level)}% held"] = [format_percent(v) if pd.notna(v) else MISSING for v in wide[level]]
-        shown["actuals"] = counts.to_numpy()
+        for level in sorted(part["level"].unique()):   # a level's first share per group, levels as columns
+            held = part[part["level"] == level].dropna(subset="coverage").drop_duplicates("group")
+            shares = held.set_index("group")["coverage"].reindex(order)
+            shown[f"{percent(level)}% held"] = [format_percent(v) if pd.notna(v) else MISSING for v in shares]
+        shown["actuals"] = part.groupby("group")["n"].max().reindex(order).to_numpy()
         tables.append(shown)
     return {"method": method, "tables": tables} if tables else None
 
@@ -530,7 +530,7 @@ def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
     chosen = next((row for row in rows if row["model"] == recommended), {})
     # The pictures draw the mean of the training months, the fitted models and the best simple rule; the
     # other rules are in the tables (six lines or more would hide the ones that matter).
-    every_model = pictured_models(list(dict.fromkeys(predictions["model"])),
+    every_model = pictured_models(list(predictions["model"].unique()),
                                   (metrics.get("best_rule"), recommended))
     all_predictions = predictions
     predictions = predictions[predictions["model"].isin(every_model)]
