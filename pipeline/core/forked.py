@@ -19,6 +19,7 @@ the copy caught are raised again here, for the command to collect as its own.
 from __future__ import annotations
 
 import ctypes
+import functools
 import gc
 import importlib
 import os
@@ -30,6 +31,7 @@ import time
 import warnings
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
+from typing import Any
 
 # True in a copy map_shared made: a copy shares nothing further (two cores, two processes).
 _sharing_copy = False
@@ -254,14 +256,26 @@ class Helper:
             os._exit(0)
 
     def __call__(self, *arguments):
+        return self.ask(*arguments)()
+
+    def ask(self, *arguments) -> Callable[[], Any]:
+        """Ask the copy for ``function(*arguments)`` at once and return what waits for its answer,
+        so this process can go on meanwhile (where there is no copy, what runs it here)."""
         if self.pid is None:
-            return self._here()(*arguments)
+            return functools.partial(self._here(), *arguments)
         try:
             _write_all(self.requests, pickle.dumps(arguments, protocol=pickle.HIGHEST_PROTOCOL))
             os.close(self.requests)
             self.requests = -1
-            data = _read_all(self.answers)
         except OSError:   # the copy is gone (a broken pipe)
+            self._reap()
+            return functools.partial(self._here(), *arguments)
+        return functools.partial(self._answer, arguments)
+
+    def _answer(self, arguments: tuple):
+        try:
+            data = _read_all(self.answers)
+        except OSError:
             data = b""
         self._reap()
         try:

@@ -7,6 +7,7 @@ partial folder and never touches an earlier run.
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 import secrets
@@ -186,6 +187,13 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     write_csv(evaluation.by_series, staging / "series.csv")
 
 
+def _asked(pages: PageRenderer, staging: Path) -> Callable[[], dict[str, str]]:
+    """Return what gives the staged folder's pages: asked at once of a renderer that works beside
+    this process (one with ``ask``, as the runner's forked helper), else rendered when called."""
+    ask = getattr(pages, "ask", None)
+    return ask(staging) if ask is not None else functools.partial(pages, staging)
+
+
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
             realised: pd.DataFrame | None = None, track: dict | None = None,
@@ -221,12 +229,14 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             write_csv(realised, staging / "realised.csv")
         if track is not None:
             (staging / "track_record.json").write_text(json.dumps(track, indent=2), encoding="utf-8")
-        for name, text in pages(staging).items():
-            write_page(staging, name, text)
+        rendered = _asked(pages, staging)
         final = folder / run_id
-        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id,
-                                      created=now, spec=spec, resolved=resolved, data=data,
-                                      evaluation=evaluation, forecast=forecast, realised=realised)
+        recorded = dict(run_id=run_id, created=now, spec=spec, resolved=resolved, data=data,
+                        evaluation=evaluation, forecast=forecast, realised=realised)
+        rows = ledger_write.run_rows(**recorded, staging=staging, final=final)   # while the pages are drawn
+        for name, text in rendered().items():
+            write_page(staging, name, text)
+        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, **recorded, rows=rows)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise

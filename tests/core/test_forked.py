@@ -148,3 +148,20 @@ def test_a_helper_that_fails_runs_the_function_here_and_its_error_is_raised_here
         helper(3)
     with forked.Helper(__name__, "_pid_and", preload=("no_such_module_anywhere",)) as helper:
         assert helper(5) == (os.getpid(), 5)   # the copy could not prepare: done here
+
+
+def test_a_helper_asked_works_while_this_process_goes_on_and_gives_its_answer_when_wanted():
+    with forked.Helper(__name__, "_pid_and") as helper:
+        answer = helper.ask([7])
+        here = sum(range(1000))   # this process's own work meanwhile
+        pid, value = answer()
+    assert (value, here) == ([7], 499500) and pid != os.getpid()
+    with pytest.raises(ChildProcessError):   # reaped
+        os.waitpid(-1, os.WNOHANG)
+
+
+def test_a_helper_asked_but_never_answered_leaves_no_process():
+    with forked.Helper(__name__, "_pid_and") as helper:
+        helper.ask(1)   # the run fails before it wants the answer
+    with pytest.raises(ChildProcessError):
+        os.waitpid(-1, os.WNOHANG)

@@ -37,7 +37,7 @@ def _stated_methods(evaluation, forecast) -> dict[str, str]:
             for model, rows in table.groupby("model", sort=False)} if len(table) else {}
 
 
-def _run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data: CheckedData,
+def run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data: CheckedData,
               evaluation, forecast, realised: pd.DataFrame | None, staging: Path,
               final: Path) -> dict[str, list[dict]]:
     """Return every row the ledger records for a run, table by table."""
@@ -144,16 +144,19 @@ def _withdraw(conn: sqlite3.Connection, run_id: str, staging: Path, final: Path)
 
 def record_and_place(ledger_file: Path, staging: Path, final: Path, *, run_id: str,
                      created: datetime, spec: Spec, resolved: dict, data: CheckedData, evaluation,
-                     forecast, realised: pd.DataFrame | None) -> None:
+                     forecast, realised: pd.DataFrame | None, rows: dict[str, list[dict]] | None = None) -> None:
     """Record the run in the ledger in one transaction, then rename its folder into place.
 
-    ``realised`` holds the earlier forecasts this run scored (the track record's table).
+    ``realised`` holds the earlier forecasts this run scored (the track record's table);
+    ``rows``, when given, are the run's rows as ``run_rows`` returned them for the same run
+    (made while the run's pages were being drawn).
 
     See the module's docstring for why this order leaves no run half-visible.
     """
-    rows = _run_rows(run_id=run_id, created=created, spec=spec, resolved=resolved, data=data,
-                     evaluation=evaluation, forecast=forecast, realised=realised, staging=staging,
-                     final=final)
+    if rows is None:
+        rows = run_rows(run_id=run_id, created=created, spec=spec, resolved=resolved, data=data,
+                        evaluation=evaluation, forecast=forecast, realised=realised, staging=staging,
+                        final=final)
     with ledger_errors(ledger_file):
         conn = open_for_writing(ledger_file)
         try:
