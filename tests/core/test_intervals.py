@@ -161,6 +161,26 @@ def test_a_horizon_with_too_few_errors_borrows_its_neighbours():
     assert "2 (1–3), 3 (3–4)" in note and "more than 4 ahead" in note
 
 
+def test_a_horizon_with_errors_enough_reads_its_bound_from_its_own_errors_in_any_order():
+    # Design: 6 horizons with 39 to 120 errors each (all enough), scores drawn from an exponential
+    # and shuffled across horizons, ties and misses (inf) among them. Each bound must be the
+    # ⌈(n + 1)·level⌉-th smallest of the horizon's own scores (Lei et al. 2018), taken here from
+    # numpy's full sort of that horizon's scores alone.
+    rng = np.random.default_rng(20261203)
+    horizons = np.repeat(np.arange(1, 7), [39, 40, 57, 80, 99, 120]).astype(float)
+    scores = np.round(rng.exponential(size=len(horizons)), 2)
+    scores[rng.choice(len(scores), 5, replace=False)] = np.inf
+    order = rng.permutation(len(horizons))
+    horizons, scores = horizons[order], scores[order]
+    table = intervals.horizon_bounds(horizons, scores)
+    for (horizon, level), bound in table.set_index(["horizon", "level"])["bound"].items():
+        own = np.sort(scores[horizons == horizon])
+        rank = int(np.ceil((len(own) + 1) * level - 1e-9))
+        assert bound == own[rank - 1] if rank <= len(own) else np.isnan(bound)
+    assert (table["errors"] == table["horizon"].map(dict(zip(*np.unique(horizons, return_counts=True))))).all()
+    assert (table["from_horizon"] == table["horizon"]).all() and (table["to_horizon"] == table["horizon"]).all()
+
+
 def test_empirical_bounds_use_the_bound_of_the_horizon_and_the_furthest_beyond():
     horizons = np.repeat([1, 2], [40, 40])
     scores = np.concatenate([np.linspace(0, 1, 40), np.linspace(0, 2, 40)])
