@@ -164,17 +164,12 @@ def _pooled_bounds(horizons: np.ndarray, scores: np.ndarray, levels=LEVELS
     if not len(scores):
         empty = np.zeros(0)
         return empty, np.zeros((0, len(levels))), empty, empty, empty
-    order = np.lexsort((scores, horizons))   # by horizon, each horizon's scores in order
+    order = np.argsort(horizons, kind="stable")
     keys, starts, counts = np.unique(horizons[order], return_index=True, return_counts=True)
     ordered = scores[order]
     bounds = np.full((len(keys), len(levels)), np.nan)
-    used, first, last = counts.copy(), keys.copy(), keys.copy()
-    enough = np.flatnonzero(counts >= FEWEST_ERRORS)   # a bound from its own errors: read off in place
-    for number, level in enumerate(levels):
-        ranks = np.ceil((counts[enough] + 1) * level - 1e-9).astype(int)   # as _rank
-        fits = ranks <= counts[enough]
-        bounds[enough[fits], number] = ordered[starts[enough[fits]] + ranks[fits] - 1]
-    for index in np.flatnonzero(counts < FEWEST_ERRORS):
+    used, first, last = np.zeros(len(keys), int), keys.copy(), keys.copy()
+    for index in range(len(keys)):
         low = high = index
         total = counts[index]
         while total < FEWEST_ERRORS and (low > 0 or high < len(keys) - 1):
