@@ -19,7 +19,7 @@ import pandas as pd
 
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
-from pipeline.record.ledger.store import period_fingerprints
+from pipeline.record.ledger.fingerprints import period_fingerprints
 from pipeline.spec import Spec, load_spec
 from pipeline.stages.check import CheckedData, check_data
 from pipeline.stages.ingest import read_input

@@ -19,7 +19,8 @@ import yaml
 from conftest import tiny_data, write_tiny_spec
 
 from pipeline.core.errors import UserError
-from pipeline.record.ledger.store import json_records, period_fingerprints, plain, reading, spec_hash
+from pipeline.record.ledger.fingerprints import period_fingerprints
+from pipeline.record.ledger.store import json_records, plain, reading, spec_hash
 from pipeline.runner import check
 
 

@@ -8,18 +8,15 @@ import math
 import sqlite3
 from collections.abc import Iterator
 from contextlib import closing, contextmanager
-from datetime import datetime
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from pipeline.core import catalogue
-from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
 from pipeline.record.ledger.migrations import SCHEMA_VERSION, migrate, schema_version
 from pipeline.spec import Spec
-from pipeline.stages.check import CheckedData
 
 LEDGER_FILE = "ledger.sqlite"
 
@@ -228,40 +225,3 @@ def spec_hash(resolved: dict) -> str:
     """Return the sha256 of the resolved spec, written as canonical JSON (keys sorted)."""
     text = json.dumps(resolved, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
-
-def _canonical(value):
-    """Return a cell as text that does not depend on how the column's type was read."""
-    if value is None or value is pd.NA or value is pd.NaT:
-        return None
-    if isinstance(value, float | int | np.number) and not isinstance(value, bool | np.bool_):
-        number = float(value)
-        return None if math.isnan(number) else repr(number)
-    if isinstance(value, pd.Timestamp | datetime):
-        return value.isoformat()
-    return str(value)
-
-
-def period_fingerprints(data: CheckedData) -> pd.DataFrame:
-    """Return, per month of the input, its rows with and without actuals and a sha256 of them.
-
-    The hash covers every column the spec uses (the target included), rows ordered by
-    series; line numbers are left out, so adding rows elsewhere changes no month's hash.
-    """
-    internal = {PERIOD, SERIES, ROW}
-    rows = pd.concat([data.history.assign(_actual=True), data.future.assign(_actual=False)],
-                     ignore_index=True)
-    columns = sorted(c for c in data.history.columns if c not in internal)
-    # One stable sort by month, then series, keeps each month's rows in the order a stable
-    # sort of that month by series gives; the cells are made canonical once, not per month.
-    rows = rows.sort_values([PERIOD, SERIES], kind="stable")
-    cells = [[_canonical(v) for v in row] for row in rows[columns].itertuples(index=False)]
-    periods, actuals = rows[PERIOD].to_numpy(), rows["_actual"].to_numpy(bool)
-    starts = np.flatnonzero(np.r_[True, periods[1:] != periods[:-1]]) if len(rows) else np.zeros(0, int)
-    out = []
-    for start, end in zip(starts, [*starts[1:], len(rows)]):
-        digest = hashlib.sha256(json.dumps([columns, cells[start:end]]).encode("utf-8")).hexdigest()
-        actual = int(actuals[start:end].sum())
-        out.append({"period": str(periods[start]), "actual_rows": actual,
-                    "planned_rows": int(end - start) - actual, "sha256": digest})
-    return pd.DataFrame(out, columns=["period", "actual_rows", "planned_rows", "sha256"])

@@ -12,6 +12,7 @@ from pathlib import Path
 import pandas as pd
 
 from pipeline.core.version import __version__
+from pipeline.record.ledger.fingerprints import period_fingerprints
 from pipeline.record.ledger.store import (
     INTERVAL_COLUMNS,
     REALISED_COLUMNS,
@@ -21,7 +22,6 @@ from pipeline.record.ledger.store import (
     insert,
     ledger_errors,
     open_for_writing,
-    period_fingerprints,
     spec_hash,
     transaction,
 )
