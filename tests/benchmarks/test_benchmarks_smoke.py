@@ -35,6 +35,16 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
     ),
     # 12 origins at horizon 3 need at least 16 months; 30 leaves a year for the seasonal naive.
     # The demo's check and run once each; a panel of 3 series x 40 months under cProfile.
+    # The whole run beside the hand-written loop, 10 series x 30 months (12 origins at horizon 3).
+    "bench_run.py": (
+        ["--series", "10", "--months", "30", "--drivers", "2"],
+        [rf"\(a\) castline run\s+{NUMBER} s\s+peak\s+{NUMBER} MB",
+         rf"\(b\) hand-written statsmodels loop \+ CSV\s+{NUMBER} s",
+         rf"run_backtest\s+{NUMBER} s",
+         rf"ratio \(b\)/\(a\) = {NUMBER}x \(target >= 10x: (met|MISSED)\)",
+         rf"whole run / backtest stage = {NUMBER}x \(target <= 2x: (met|MISSED)\)",
+         rf"peak memory of castline run = [0-9,]+ MB \(target < 2,048 MB: (met|MISSED)\)"],
+    ),
     "bench_small.py": (
         ["--repeats", "1", "--panel-series", "3", "--panel-months", "40"],
         [rf"bare python -c 'import pandas, numpy'\s+{NUMBER} s",
