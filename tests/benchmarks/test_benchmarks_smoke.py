@@ -43,7 +43,7 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"run_backtest\s+{NUMBER} s",
          rf"ratio \(b\)/\(a\) = {NUMBER}x \(target >= 10x: (met|MISSED)\)",
          rf"whole run / backtest stage = {NUMBER}x \(target <= 2x: (met|MISSED)\)",
-         rf"peak memory of castline run = [0-9,]+ MB \(target < 2,048 MB: (met|MISSED)\)"],
+         r"peak memory of castline run = [0-9,]+ MB \(target < 2,048 MB: (met|MISSED)\)"],
     ),
     "bench_small.py": (
         ["--repeats", "1", "--panel-series", "3", "--panel-months", "40"],
