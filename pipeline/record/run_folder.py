@@ -25,6 +25,7 @@ from pipeline.core.errors import UserError
 from pipeline.core.version import __version__
 from pipeline.features.future import drivers_ahead
 from pipeline.record import ledger
+from pipeline.record.json_text import json_text
 from pipeline.record.ledger import write as ledger_write
 from pipeline.record.model_file import StoredIntervals, model_document
 from pipeline.record.safe_csv import write_csv
@@ -178,7 +179,7 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     document = model_document(spec, forecast.plan, forecast.fitted, package_versions(),
                               StoredIntervals.from_forecast(forecast),
                               StoredSteps.from_run(spec.multi_step, forecast.horizon_fits))
-    (staging / "model.json").write_text(json.dumps(document, indent=1), encoding="utf-8")
+    (staging / "model.json").write_text(json_text(document, indent=1), encoding="utf-8")
     write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
         columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
         period=lambda t: t["period"].astype(str)), staging / "history.csv")
