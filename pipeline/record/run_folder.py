@@ -28,7 +28,7 @@ from pipeline.record import ledger
 from pipeline.record.json_text import json_text
 from pipeline.record.ledger import write as ledger_write
 from pipeline.record.model_file import StoredIntervals, model_document
-from pipeline.record.safe_csv import write_csv
+from pipeline.record.safe_csv import write_csv, write_csvs
 from pipeline.record.stored_steps import StoredSteps
 from pipeline.spec import Spec
 from pipeline.spec.wording import describe_validation
@@ -166,26 +166,23 @@ def _metrics_document(spec: Spec, data: CheckedData, evaluation: Evaluation, for
 def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: BacktestResult,
                   evaluation: Evaluation, forecast: ForecastResult) -> None:
     """Write the run's tables (CSV) and its model file into the staging folder."""
-    write_csv(backtest.predictions, staging / "predictions.csv")
-    write_csv(forecast.coefficients, staging / "coefficients.csv")
-    write_csv(forecast.forecast, staging / "forecast.csv")
-    write_csv(forecast.diagnostics, staging / "diagnostics.csv")
-    write_csv(forecast.vif, staging / "vif.csv")
-    write_csv(forecast.influential, staging / "influential_rows.csv")
-    write_csv(evaluation.coverage, staging / "interval_coverage.csv")
-    write_csv(evaluation.coverage_detail, staging / "interval_coverage_by.csv")
+    history = data.history[[PERIOD, SERIES, spec.target]].rename(
+        columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
+        period=lambda t: t["period"].astype(str))
+    tables = [(backtest.predictions, "predictions.csv"), (forecast.coefficients, "coefficients.csv"),
+              (forecast.forecast, "forecast.csv"), (forecast.diagnostics, "diagnostics.csv"),
+              (forecast.vif, "vif.csv"), (forecast.influential, "influential_rows.csv"),
+              (evaluation.coverage, "interval_coverage.csv"),
+              (evaluation.coverage_detail, "interval_coverage_by.csv")]
     if len(forecast.scenarios):
-        write_csv(forecast.scenarios, staging / "scenarios.csv")
+        tables.append((forecast.scenarios, "scenarios.csv"))
+    tables += [(history, "history.csv"), (forecast.residuals, "residuals.csv"),
+               (fallback_table(backtest, forecast), "series_fallbacks.csv"), (evaluation.by_series, "series.csv")]
+    write_csvs([(frame, staging / name) for frame, name in tables])
     document = model_document(spec, forecast.plan, forecast.fitted, package_versions(),
                               StoredIntervals.from_forecast(forecast),
                               StoredSteps.from_run(spec.multi_step, forecast.horizon_fits))
     (staging / "model.json").write_text(json_text(document, indent=1), encoding="utf-8")
-    write_csv(data.history[[PERIOD, SERIES, spec.target]].rename(
-        columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
-        period=lambda t: t["period"].astype(str)), staging / "history.csv")
-    write_csv(forecast.residuals, staging / "residuals.csv")
-    write_csv(fallback_table(backtest, forecast), staging / "series_fallbacks.csv")
-    write_csv(evaluation.by_series, staging / "series.csv")
 
 
 def _asked(pages: PageRenderer, staging: Path) -> Callable[[], dict[str, str]]:

@@ -4,14 +4,23 @@ A spreadsheet reads a cell that begins with ``=``, ``+``, ``-`` or ``@`` as a
 formula, so a series name or a problem value taken from a hostile input file
 could run one when the CSV is opened. Text cells that begin so get a single
 quote in front (the remedy the OWASP "CSV Injection" page recommends); numbers
-are never touched. Every CSV castline writes goes through :func:`write_csv`.
+are never touched. Every CSV castline writes goes through :func:`write_csv`, or
+:func:`write_csvs` for a run's many tables at once.
 """
 
 from __future__ import annotations
 
+import functools
+import shutil
+from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
 
 import pandas as pd
+
+from pipeline.core.forked import PAYS_FROM, called, map_shared
+
+PIECE_CELLS = 250_000   # a large table is written in runs of rows of about this many cells
 
 FORMULA_STARTS = ("=", "+", "-", "@")
 
@@ -58,3 +67,42 @@ def write_csv(frame: pd.DataFrame, target, **options) -> None:
     """Write the frame as CSV (no index unless asked) with its text cells neutralised."""
     options.setdefault("index", False)
     neutralised(frame).to_csv(target, **options)
+
+
+def _cut(frame: pd.DataFrame) -> list[tuple[int, int]]:
+    """Return the runs of rows a table is written in: one unless it is large and every column's
+    text is each cell's own (numbers, text; not dates, whose format pandas picks per column)."""
+    rows = len(frame)
+    if frame.size <= PIECE_CELLS or not all(
+            pd.api.types.is_numeric_dtype(dtype) or pd.api.types.is_string_dtype(dtype) for dtype in frame.dtypes):
+        return [(0, rows)]
+    step = max(1, PIECE_CELLS // max(1, frame.shape[1]))
+    return [(start, min(start + step, rows)) for start in range(0, rows, step)]
+
+
+def write_csvs(tables: Sequence[tuple[pd.DataFrame, Path]]) -> None:
+    """Write each (frame, path) as ``write_csv`` writes it, the same bytes: a large table in runs of
+    rows (``_cut``), each a hidden part file beside its path, joined in order; the runs of every
+    table shared with a forked copy of this process when they are work enough (core.forked)."""
+    jobs, weights, joined = [], [], []
+    for frame, path in tables:
+        path = Path(path)
+        runs = _cut(frame)
+        if len(runs) == 1:
+            jobs.append(functools.partial(write_csv, frame, path))
+            weights.append(frame.size + 1)
+            continue
+        parts = [path.with_name(f".{path.name}.part{number}") for number in range(len(runs))]
+        for number, ((start, end), part) in enumerate(zip(runs, parts, strict=True)):
+            jobs.append(functools.partial(write_csv, frame.iloc[start:end], part, header=number == 0))
+            weights.append((end - start) * frame.shape[1] + 1)
+        joined.append((path, parts))
+    # The heaviest first: map_shared times the first job here to judge whether sharing pays.
+    order = sorted(range(len(jobs)), key=lambda i: -weights[i])
+    map_shared(called, [jobs[i] for i in order], [weights[i] for i in order], least=PAYS_FROM)
+    for path, parts in joined:
+        with open(path, "wb") as whole:
+            for part in parts:
+                with open(part, "rb") as piece:
+                    shutil.copyfileobj(piece, whole, 1 << 20)
+                part.unlink()

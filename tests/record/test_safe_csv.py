@@ -61,3 +61,39 @@ def test_a_column_is_neutralised_as_each_cell_would_be(column):
     expected = frame.assign(c=frame["c"].astype(object).map(neutralise))
     assert neutralised(frame).to_csv(index=False) == expected.to_csv(index=False)
     assert frame["c"].astype(object).tolist() == pd.Series(column, dtype=object).tolist()   # unchanged
+
+
+def _tables(rows: int) -> dict[str, pd.DataFrame]:
+    """Tables of every kind a run writes: floats with NaN, -0.0 and exponents, integers, booleans,
+    text with commas, quotes, line breaks and formula starts, missing text, dates (written whole:
+    pandas picks a date column's format from all of it); seeded numpy, values made up."""
+    import numpy as np
+    rng = np.random.default_rng(20261203)
+    floats = rng.normal(size=rows) * 10.0 ** rng.integers(-8, 8, rows)
+    floats[::7] = np.nan
+    floats[1] = -0.0
+    text = pd.array(rng.choice(["plain", "a, b", 'say "hi"', "two\nlines", "=1+1", "-3", None], rows), dtype="str")
+    numbers = pd.DataFrame({"x": floats, "n": rng.integers(-10 ** 9, 10 ** 9, rows), "flag": rng.random(rows) < 0.5,
+                            "name": text, "other": pd.Series(rng.choice([1.5, "t", None], rows), dtype=object)})
+    dated = numbers.assign(when=pd.Timestamp("2024-01-01") + pd.to_timedelta(rng.integers(0, 3, rows), unit="D"))
+    return {"numbers.csv": numbers, "dated.csv": dated, "small.csv": numbers.head(3), "empty.csv": numbers.head(0)}
+
+
+@pytest.mark.forks
+@pytest.mark.parametrize("one_process", [False, True])
+def test_tables_written_together_in_runs_of_rows_are_the_bytes_write_csv_writes(tmp_path, monkeypatch, one_process):
+    from pipeline.record import safe_csv
+    if one_process:
+        monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
+    monkeypatch.setattr(safe_csv, "PIECE_CELLS", 500)   # some 100 rows a run: many parts
+    monkeypatch.setattr(safe_csv, "PAYS_FROM", 0.0)     # shared however little the work
+    tables = _tables(2_345)
+    (tmp_path / "one").mkdir()
+    (tmp_path / "together").mkdir()
+    for name, frame in tables.items():
+        write_csv(frame, tmp_path / "one" / name)
+    safe_csv.write_csvs([(frame, tmp_path / "together" / name) for name, frame in tables.items()])
+    for name in tables:
+        assert (tmp_path / "together" / name).read_bytes() == (tmp_path / "one" / name).read_bytes(), name
+    assert sorted(p.name for p in (tmp_path / "together").iterdir()) == sorted(tables)   # no part left
+    assert len(safe_csv._cut(tables["numbers.csv"])) > 20 and len(safe_csv._cut(tables["dated.csv"])) == 1
