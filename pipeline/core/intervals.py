@@ -324,25 +324,40 @@ def _size_groups(predictions: pd.DataFrame) -> pd.Series | None:
     return pd.Series(groups, index=means.index)
 
 
-def _summaries(model: str, method: str, level: float, frame: pd.DataFrame) -> tuple[dict, list[dict]]:
-    """Return one model's overall coverage row for a method and level, and its rows by horizon
-    and by size of series (``frame``: inside, score, horizon, size, for the scored rows)."""
+def _summaries(model: str, method: str, level: float, inside: np.ndarray, score: np.ndarray,
+               groups: dict[str, tuple[np.ndarray, list[str]]]) -> tuple[dict, list[dict]]:
+    """Return one model's overall coverage row for a method and level, and its rows by each way of
+    grouping in ``groups`` ({by: (each scored row's group number, -1 for none; the groups' names)},
+    a group listed only when it has scored rows), from the scored rows' ``inside`` and ``score``."""
+    n = len(inside)
     overall = {"model": model, "method": method, "level": level,
-               "coverage": float(frame["inside"].mean()) if len(frame) else float("nan"),
-               "n": len(frame), "interval_score": float(frame["score"].mean()) if len(frame) else float("nan")}
+               "coverage": float(inside.sum(dtype=float) / n) if n else float("nan"),
+               "n": n, "interval_score": float(score.sum() / n) if n else float("nan")}
     detail = []
-    for by, column in (("months ahead", "horizon"), ("size of series", "size")):
-        if column not in frame.columns:
-            continue
-        keyed = frame[frame[column].notna()]   # as a groupby, which leaves missing keys out
-        groups, codes = np.unique(keyed[column].to_numpy(), return_inverse=True)
-        inside = np.bincount(codes.ravel(), weights=keyed["inside"].to_numpy(float), minlength=len(groups))
-        counts = np.bincount(codes.ravel(), minlength=len(groups))
-        for group, held, n in zip(groups, inside, counts):
-            detail.append({"model": model, "method": method, "level": level, "by": by,
-                           "group": str(int(group)) if column == "horizon" else str(group),
-                           "coverage": float(held / n), "n": int(n)})
+    for by, (codes, names) in groups.items():
+        keyed = codes >= 0
+        held = np.bincount(codes[keyed], weights=inside[keyed].astype(float), minlength=len(names))
+        counts = np.bincount(codes[keyed], minlength=len(names))
+        for name, shares, count in zip(names, held, counts, strict=True):
+            if count:
+                detail.append({"model": model, "method": method, "level": level, "by": by, "group": name,
+                               "coverage": float(shares / count), "n": int(count)})
     return overall, detail
+
+
+def _groups(own: pd.DataFrame, sizes: pd.Series | None) -> dict[str, tuple[np.ndarray, list[str]]]:
+    """Return how a model's backtest rows are grouped for coverage: by months ahead (not for
+    k-fold, which has none) and by size of series (with three series or more), each row's
+    group number (-1 for none) and the groups' names in order."""
+    groups = {}
+    horizon = own["horizon"]
+    if not (horizon == 0).all():
+        codes, names = pd.factorize(horizon.to_numpy(float), sort=True)
+        groups["months ahead"] = (codes, [str(int(name)) for name in names])
+    if sizes is not None:
+        codes, names = pd.factorize(own["series"].map(sizes).to_numpy(), sort=True)
+        groups["size of series"] = (codes, [str(name) for name in names])
+    return groups
 
 
 COVERAGE_COLUMNS = ["model", "method", "level", "coverage", "n", "interval_score"]
@@ -364,19 +379,15 @@ def backtest_intervals(predictions: pd.DataFrame, transform: str = "none",
         if np.isfinite(own["prediction_se"].to_numpy(float)).any():
             methods = {"analytic": _analytic_rows(own, transform, floor), **methods}
         actual = own["actual"].to_numpy(float)
-        size = own["series"].map(sizes).to_numpy() if sizes is not None else None
+        groups = _groups(own, sizes)
         for method, found in methods.items():
             for level in LEVELS:
                 low, high = found[level]
                 scored = np.isfinite(low) & np.isfinite(high)
-                frame = pd.DataFrame({"inside": (actual >= low) & (actual <= high),
-                                      "score": interval_score(actual, low, high, level),
-                                      "horizon": own["horizon"].to_numpy(float)})
-                if (own["horizon"] == 0).all():   # k-fold: no months ahead
-                    frame = frame.drop(columns="horizon")
-                if size is not None:
-                    frame["size"] = size
-                row, rows = _summaries(model, method, level, frame[scored])
+                inside = (actual[scored] >= low[scored]) & (actual[scored] <= high[scored])
+                score = interval_score(actual[scored], low[scored], high[scored], level)
+                row, rows = _summaries(model, method, level, inside, score,
+                                       {by: (codes[scored], names) for by, (codes, names) in groups.items()})
                 overall.append(row)
                 detail += rows
     return (pd.DataFrame(overall, columns=COVERAGE_COLUMNS), pd.DataFrame(detail, columns=DETAIL_COLUMNS))
