@@ -68,6 +68,24 @@ def simulate(n_series: int, n_months: int, n_drivers: int, seed: int = 20261202)
     return pd.concat([frame, drivers, pd.DataFrame({"units": y})], axis=1)
 
 
+def describe_panel(args: argparse.Namespace, more: str = "") -> None:
+    """Print the machine's load and what the panel and its backtest are."""
+    try:
+        print("load average {:.1f} {:.1f} {:.1f}; {} CPUs".format(*os.getloadavg(), os.cpu_count()))
+    except OSError:
+        pass
+    print(f"data: {args.series:,} series x {args.months} months = {args.series * args.months:,} rows x "
+          f"{args.drivers} drivers; rolling origin, expanding, {ORIGINS} origins, horizon {HORIZON}; "
+          f"OLS per series + mean + same month last year{more}")
+
+
+def written_panel(folder: Path, args: argparse.Namespace) -> tuple[pd.DataFrame, list[str]]:
+    """Return the simulated panel and its drivers, written as data.parquet in ``folder``."""
+    frame = simulate(args.series, args.months, args.drivers)
+    frame.to_parquet(folder / "data.parquet", index=False)
+    return frame, [c for c in frame.columns if c.startswith("x")]
+
+
 def write_spec(folder: Path, drivers: list[str], min_train: int, workers: int) -> Path:
     spec = {
         "name": "bench-many-series",
@@ -170,20 +188,10 @@ def main() -> int:
                         help="time the statsmodels loop on this many series and scale up")
     parser.add_argument("--profile", action="store_true")
     args = parser.parse_args()
-    try:
-        print("load average {:.1f} {:.1f} {:.1f}; {} CPUs".format(*os.getloadavg(), os.cpu_count()))
-    except OSError:
-        pass
-    rows = args.series * args.months
-    print(f"data: {args.series:,} series x {args.months} months = {rows:,} rows x {args.drivers} "
-          f"drivers; rolling origin, expanding, {ORIGINS} origins, horizon {HORIZON}; "
-          f"OLS per series + mean + same month last year; workers {args.workers}")
-
+    describe_panel(args, f"; workers {args.workers}")
     with tempfile.TemporaryDirectory(prefix="castline-bench-") as tmp:
         folder = Path(tmp)
-        frame = simulate(args.series, args.months, args.drivers)
-        drivers = [c for c in frame.columns if c.startswith("x")]
-        frame.to_parquet(folder / "data.parquet", index=False)
+        frame, drivers = written_panel(folder, args)
         spec = pipeline.load_spec(write_spec(folder, drivers, args.months - ORIGINS - HORIZON + 1,
                                              args.workers))
         data = pipeline.check(spec)

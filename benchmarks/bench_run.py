@@ -40,7 +40,8 @@ import yaml
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
-from bench_many_series import HORIZON, ORIGINS, simulate  # noqa: E402  (the same panel)
+from bench_many_series import HORIZON, ORIGINS, describe_panel, written_panel  # noqa: E402  (the same panel)
+from bench_small import environment  # noqa: E402  (the same environment for a whole process)
 
 TARGET_LOOP, TARGET_STAGE, TARGET_MB = 10.0, 2.0, 2048
 
@@ -90,17 +91,13 @@ sys.exit(code)
 """
 
 
-def environment() -> dict[str, str]:
-    return dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])),
-                OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1", MKL_NUM_THREADS="1")
-
-
 def timed_process(arguments: list[str], cwd: Path) -> tuple[float, float, str]:
     """Return a whole process's wall time, its own peak memory (MB, os.wait4) and its output;
     stop the benchmark if it fails."""
     with tempfile.TemporaryFile("w+") as out, tempfile.TemporaryFile("w+") as err:
         start = time.perf_counter()
-        child = subprocess.Popen([sys.executable, *arguments], cwd=cwd, env=environment(), stdout=out, stderr=err)
+        child = subprocess.Popen([sys.executable, *arguments], cwd=cwd, env=environment(ROOT), stdout=out,
+                                 stderr=err)
         _, status, usage = os.wait4(child.pid, 0)
         elapsed = time.perf_counter() - start
         child.returncode = os.waitstatus_to_exitcode(status)
@@ -136,18 +133,10 @@ def main() -> int:
     parser.add_argument("--loop-series", type=int, default=None,
                         help="time the hand-written loop on this many series and scale it up")
     args = parser.parse_args()
-    try:
-        print("load average {:.1f} {:.1f} {:.1f}; {} CPUs".format(*os.getloadavg(), os.cpu_count()))
-    except OSError:
-        pass
-    print(f"data: {args.series:,} series x {args.months} months = {args.series * args.months:,} rows x "
-          f"{args.drivers} drivers; rolling origin, expanding, {ORIGINS} origins, horizon {HORIZON}; "
-          f"OLS per series + mean + same month last year")
+    describe_panel(args)
     with tempfile.TemporaryDirectory(prefix="castline-bench-run-") as tmp:
         folder = Path(tmp)
-        frame = simulate(args.series, args.months, args.drivers)
-        drivers = [c for c in frame.columns if c.startswith("x")]
-        frame.to_parquet(folder / "data.parquet", index=False)
+        frame, drivers = written_panel(folder, args)
         spec = write_spec(folder, drivers, args.months)
 
         run, run_mb, _ = timed_process(["-m", "pipeline", "run", str(spec), "--output-folder",
