@@ -35,12 +35,11 @@ import time
 from pathlib import Path
 
 import pandas as pd
-import yaml
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
-from bench_many_series import HORIZON, ORIGINS, describe_panel, written_panel  # noqa: E402  (the same panel)
+from bench_many_series import HORIZON, ORIGINS, describe_panel, write_spec, written_panel  # noqa: E402  (the same panel and spec)
 from bench_small import environment  # noqa: E402  (the same environment for a whole process)
 
 TARGET_LOOP, TARGET_STAGE, TARGET_MB = 10.0, 2.0, 2048
@@ -109,22 +108,6 @@ def timed_process(arguments: list[str], cwd: Path) -> tuple[float, float, str]:
     return elapsed, usage.ru_maxrss / 1024, text
 
 
-def write_spec(folder: Path, drivers: list[str], months: int) -> Path:
-    spec = {
-        "name": "bench-run",
-        "input": {"file": "data.parquet", "date_column": "month", "series": ["shop"]},
-        "target": "units",
-        "drivers": {"numeric": drivers},
-        "validation": {"method": "rolling_origin", "window": "expanding", "horizon": HORIZON,
-                       "min_train_periods": months - ORIGINS - HORIZON + 1, "origins": ORIGINS},
-        "models": [{"kind": "ols", "per_series": True}, "seasonal_naive"],
-        "output": {"folder": "reports"},
-    }
-    path = folder / "spec.yaml"
-    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
-    return path
-
-
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--series", type=int, default=2_000)
@@ -137,7 +120,7 @@ def main() -> int:
     with tempfile.TemporaryDirectory(prefix="castline-bench-run-") as tmp:
         folder = Path(tmp)
         frame, drivers = written_panel(folder, args)
-        spec = write_spec(folder, drivers, args.months)
+        spec = write_spec(folder, drivers, args.months - ORIGINS - HORIZON + 1, workers=1)
 
         run, run_mb, _ = timed_process(["-m", "pipeline", "run", str(spec), "--output-folder",
                                         str(folder / "a")], folder)

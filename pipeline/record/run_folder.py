@@ -229,12 +229,12 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             (staging / "track_record.json").write_text(json.dumps(track, indent=2), encoding="utf-8")
         rendered = _asked(pages, staging)
         final = folder / run_id
-        recorded = dict(run_id=run_id, created=now, spec=spec, resolved=resolved, data=data,
-                        evaluation=evaluation, forecast=forecast, realised=realised)
-        rows = ledger_write.run_rows(**recorded, staging=staging, final=final)   # while the pages are drawn
+        rows = ledger_write.run_rows(run_id=run_id, created=now, spec=spec, resolved=resolved, data=data,
+                                     evaluation=evaluation, forecast=forecast, realised=realised,
+                                     staging=staging, final=final)   # while the pages are drawn
         for name, text in rendered().items():
             write_page(staging, name, text)
-        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, **recorded, rows=rows)
+        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id, rows=rows)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise

@@ -43,8 +43,9 @@ def staged(folder, run_id):
 
 
 def record(made, ledger_file, staging, final, run_id):
-    write.record_and_place(ledger_file, staging, final, run_id=run_id, created=datetime.now(UTC),
-                           resolved=made["spec"].model_dump(mode="json"), realised=None, **made)
+    rows = write.run_rows(run_id=run_id, created=datetime.now(UTC), resolved=made["spec"].model_dump(mode="json"),
+                          realised=None, staging=staging, final=final, **made)
+    write.record_and_place(ledger_file, staging, final, run_id=run_id, rows=rows)
 
 
 def counts(ledger_file, run_id) -> dict[str, int]:

@@ -143,20 +143,13 @@ def _withdraw(conn: sqlite3.Connection, run_id: str, staging: Path, final: Path)
 
 
 def record_and_place(ledger_file: Path, staging: Path, final: Path, *, run_id: str,
-                     created: datetime, spec: Spec, resolved: dict, data: CheckedData, evaluation,
-                     forecast, realised: pd.DataFrame | None, rows: dict[str, list[dict]] | None = None) -> None:
+                     rows: dict[str, list[dict]]) -> None:
     """Record the run in the ledger in one transaction, then rename its folder into place.
 
-    ``realised`` holds the earlier forecasts this run scored (the track record's table);
-    ``rows``, when given, are the run's rows as ``run_rows`` returned them for the same run
-    (made while the run's pages were being drawn).
+    ``rows`` are the run's rows as ``run_rows`` made them (while the run's pages were drawn).
 
     See the module's docstring for why this order leaves no run half-visible.
     """
-    if rows is None:
-        rows = run_rows(run_id=run_id, created=created, spec=spec, resolved=resolved, data=data,
-                        evaluation=evaluation, forecast=forecast, realised=realised, staging=staging,
-                        final=final)
     with ledger_errors(ledger_file):
         conn = open_for_writing(ledger_file)
         try:
