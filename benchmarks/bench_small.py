@@ -103,7 +103,10 @@ def build_panel(folder: Path, n_series: int, n_months: int, seed: int = 46) -> P
 def profiled_share(spec: Path, env: dict[str, str], cwd: Path) -> tuple[float, float, float]:
     """Run the panel once under cProfile; return its total, diagnose's and the VIF's seconds."""
     profile = cwd / "panel.prof"
-    timed(["-m", "cProfile", "-o", str(profile), "-m", "pipeline", "run", str(spec)], env, cwd)
+    program = ("import cProfile, sys; from pipeline.cli import main; "
+               "cProfile.run('main([\"run\", sys.argv[2]])', sys.argv[1])")
+    # main(), not the castline program: that ends its process before cProfile could write its file
+    timed(["-c", program, str(profile), str(spec)], env, cwd)
     stats = pstats.Stats(str(profile)).stats
     total = max(entry[3] for entry in stats.values())
 

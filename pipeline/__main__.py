@@ -1,7 +1,5 @@
 """``python -m pipeline`` runs the castline command line."""
 
-import sys
+from pipeline.cli import entry
 
-from pipeline.cli import main
-
-sys.exit(main())
+entry()
