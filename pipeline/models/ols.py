@@ -31,8 +31,11 @@ class Collinearity:
 
     column: str
     combination_of: list[str]
+    reason: str | None = None   # why, when not a combination of named columns
 
     def describe(self) -> str:
+        if self.reason:
+            return f"'{self.column}' is {self.reason}"
         if not self.combination_of:
             return f"'{self.column}' is all zeros after encoding; left out of the fit"
         others = ", ".join(f"'{name}'" for name in self.combination_of)
