@@ -26,6 +26,10 @@ class Design:
     series_names: np.ndarray | None = None
     # Each column's group of terms (a driver's levels or powers, a calendar block), by its label
     term_groups: tuple[str, ...] | None = None
+    # The series column whose levels are not columns here but absorbed by the fit (a model
+    # over very many series: see pipeline/models/absorbed.py); None when they are columns.
+    absorbed_levels: str | None = None
+    absorbed_at: int = 0   # where their columns would be among the names
 
     def rows(self, positions) -> Design:
         """Return the design of some of its rows (positions or a slice), notes kept."""
@@ -33,13 +37,14 @@ class Design:
                       None if self.period is None else self.period[positions], self.notes,
                       self.series_level,
                       None if self.series_codes is None else self.series_codes[positions],
-                      self.series_names, self.term_groups)
+                      self.series_names, self.term_groups, self.absorbed_levels, self.absorbed_at)
 
     def with_series_codes(self) -> Design:
         """Return the design with its series factorised once, for windows to share."""
         codes, names = series_index(self)
         return Design(self.matrix, self.names, self.series, self.period, self.notes,
-                      self.series_level, codes, names, self.term_groups)
+                      self.series_level, codes, names, self.term_groups, self.absorbed_levels,
+                      self.absorbed_at)
 
 
 def series_index(design) -> tuple[np.ndarray, np.ndarray]:

@@ -27,6 +27,7 @@ from contextlib import contextmanager
 import numpy as np
 import pandas as pd
 
+from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, month_ordinals
 from pipeline.core.design import Design
 from pipeline.core.errors import DataError, ModelFileError, SpecError
@@ -76,7 +77,7 @@ class FeaturePlan:
                  calendar: CalendarFeatures | None = None, lags: list[LaggedColumn] = (),
                  target: str | None = None, target_transform: str = "none",
                  error: Callable[[KeyPath, str], SpecError] = unplaced_spec_error,
-                 source: str | None = None, series_effects=None) -> None:
+                 source: str | None = None, series_effects=None, absorbable: bool = False) -> None:
         self.numeric = list(numeric)
         self.categorical = list(categorical)
         self.series_column = series_column
@@ -88,6 +89,9 @@ class FeaturePlan:
         self.error = error
         self.source = source
         self.series_effects = series_effects   # a SeriesEffects spec section, or None for none
+        # Whether every model over all series can absorb the series levels (see
+        # _check_series_terms): OLS with an intercept can, a penalised fit cannot.
+        self.absorbable = absorbable
         drivers = {d.column for d in self.numeric} | {d.column for d in self.categorical}
         # Columns castline estimates after the origin (numeric drivers, and lagged columns
         # that are not drivers), by rule; and lagged columns nobody gives ahead, whose lags
@@ -161,17 +165,29 @@ class FeaturePlan:
         return frame if self.future_ is None else self.future_.apply(frame, every_row=every_row)
 
     # Series columns are dense: beyond this many cells in a window's design, the fit would
-    # need gigabytes, and a model per series (or no series intercepts) is the way.
+    # need gigabytes. OLS then absorbs the series levels (the within transformation, which
+    # gives the same fit without their columns); series slopes stay columns, and a penalised
+    # model cannot absorb its levels: for those a model per series is the way.
     LARGEST_SERIES_DESIGN = 100_000_000
+
+    @property
+    def absorbs_levels(self) -> bool:
+        """Whether the fitted plan's series levels are absorbed by the fit, not columns."""
+        return any(isinstance(part, SeriesTerms) and part.absorbed_ for part in self.parts_)
 
     def _check_series_terms(self, terms: SeriesTerms, frame: pd.DataFrame) -> None:
         columns = len(terms.get_feature_names_out())
+        if terms.intercepts and self.absorbable and columns * len(frame) > self.LARGEST_SERIES_DESIGN:
+            terms.absorbed_ = True
+            columns = len(terms.get_feature_names_out())
         if columns * len(frame) > self.LARGEST_SERIES_DESIGN:
+            way = ("drop the series slopes" if terms.absorbed_ else
+                   "use OLS (which absorbs the series levels)" if terms.intercepts else "drop the slopes")
             raise self.error(("drivers", "series_effects"),
                              f"{len(terms.levels_) + 1} series give the models over all series "
                              f"{columns} series columns on {len(frame)} rows, about "
                              f"{columns * len(frame) * 8 / 1e9:.0f} GB; fit per series instead "
-                             "(models: [{kind: ols, per_series: true}]) or set intercepts: false")
+                             f"(models: [{{kind: ols, per_series: true}}]) or {way}")
 
     def _encoder(self, driver: CategoricalDriver):
         if driver.encoding == "ordinal":
@@ -331,7 +347,20 @@ class FeaturePlan:
         return Design(matrix=matrix, names=self.get_feature_names_out(),
                       series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes),
                       series_level=series_level,
+                      absorbed_levels=next((part.column for part in self.parts_
+                                            if isinstance(part, SeriesTerms) and part.absorbed_), None),
+                      absorbed_at=self._absorbed_at(),
                       term_groups=tuple(label for part in self.parts_ for label in term_group_labels(part)))
+
+    def _absorbed_at(self) -> int:
+        """Return where the series levels' columns would be among the names (the series
+        terms' place), when the fit absorbs them."""
+        at = 0
+        for part in self.parts_:
+            if isinstance(part, SeriesTerms):
+                return at
+            at += len(part.get_feature_names_out())
+        return at
 
     def transform(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> Design:
         """Return the design of rows to predict; stop if one of their lags is unavailable."""
@@ -484,4 +513,7 @@ def plan_features(spec: Spec, series_column: str) -> FeaturePlan:
                        interactions=drivers.interactions, calendar=drivers.calendar,
                        lags=list(drivers.lags), target=spec.target,
                        target_transform=spec.target_transform, error=spec.error,
-                       source=str(spec.input.file), series_effects=series_effects_of(spec))
+                       source=str(spec.input.file), series_effects=series_effects_of(spec),
+                       absorbable=spec.intercept and all(
+                           model.kind == "ols" for model in spec.models
+                           if model.kind in LINEAR_KINDS and not model.per_series))

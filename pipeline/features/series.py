@@ -27,6 +27,14 @@ class SeriesTerms(OneHotEncoder):
         super().__init__(series_column, unseen="use_reference")
         self.intercepts = intercepts
         self.slopes = list(slopes)   # fitted NumericTerms, whose first-degree column is used
+        # True when the levels are not columns but absorbed by the fit (set by the plan, for
+        # more series than dense columns allow): the design then holds the slopes alone.
+        self.absorbed_ = False
+
+    @property
+    def level_columns(self) -> bool:
+        """Whether the design holds a 0/1 column per series (its level)."""
+        return self.intercepts and not self.absorbed_
 
     def fit(self, frame: pd.DataFrame, y=None) -> SeriesTerms:
         self._fit_levels(frame)
@@ -35,14 +43,16 @@ class SeriesTerms(OneHotEncoder):
         return self
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
+        if not (self.level_columns or self.slopes):
+            return np.empty((len(frame), 0))
         dummies = super().transform(frame)
-        blocks = [dummies] if self.intercepts else []
+        blocks = [dummies] if self.level_columns else []
         blocks += [dummies * part.main_effect(frame) for part in self.slopes]
         return np.hstack(blocks) if blocks else np.empty((len(frame), 0))
 
     def get_feature_names_out(self) -> list[str]:
         levels = super().get_feature_names_out()
-        return (levels if self.intercepts else []) + [
+        return (levels if self.level_columns else []) + [
             f"{part.base_name} × {level}" for part in self.slopes for level in levels]
 
     def notes(self, frame: pd.DataFrame) -> list[str]:
@@ -64,7 +74,8 @@ class SeriesTerms(OneHotEncoder):
             "column": self.column, "reference": self.reference, "group_below": self.group_below,
             "unseen": self.unseen, "intercepts": self.intercepts, "slopes": self.slopes,
             "grouped_": self.grouped_, "reference_": self.reference_,
-            "known_levels_": self.known_levels_, "levels_": self.levels_}, parts)
+            "known_levels_": self.known_levels_, "levels_": self.levels_,
+            **({"absorbed_": True} if self.absorbed_ else {})}, parts)
 
     @classmethod
     def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> SeriesTerms:
@@ -80,6 +91,7 @@ class SeriesTerms(OneHotEncoder):
             terms.reference_ = fields.text("reference_", optional=True)
             terms.known_levels_ = fields.texts("known_levels_")
             terms.levels_ = fields.texts("levels_")
+            terms.absorbed_ = fields.flag("absorbed_") if "absorbed_" in data else False
         terms._check_levels()
         return terms
 

@@ -55,7 +55,8 @@ class AbsorbedFit:
     """An OLS fit with a level per series: the slopes' fit on the within-transformed
     columns, each series' level, and what predictions and standard errors need."""
 
-    slopes: LeastSquaresFit        # on the within-transformed columns; df and SEs count the levels
+    # On the within-transformed columns; df, SEs, R² and leverage count the levels.
+    slopes: LeastSquaresFit
     levels: np.ndarray             # αₛ per series, in the order of ``series_names``
     series_names: np.ndarray
     counts: np.ndarray             # rows per series in the fit
@@ -75,34 +76,32 @@ class AbsorbedFit:
     def resid_sd(self) -> float:
         return self.slopes.resid_sd
 
-    def _kept(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        kept = self.slopes.kept
-        return kept, np.nan_to_num(self.slopes.coef[kept]), self.slopes.xtx_inverse[np.ix_(kept, kept)]
-
     def predict(self, matrix: np.ndarray, codes: np.ndarray) -> np.ndarray:
         """Return predictions for rows whose series are ``codes`` into ``series_names``
         (−1: a series the fit did not hold, given the first series' level)."""
-        kept, beta, _ = self._kept()
-        level = self.levels[np.where(codes >= 0, codes, 0)]
-        return level + (np.asarray(matrix, float)[:, kept] * beta).sum(axis=1)
+        # As a model file computes it (pipeline/record/model_file.py), so the two agree exactly:
+        # the first series' level with the slopes, then the series' difference from it.
+        matrix = np.asarray(matrix, float)
+        with_one = np.empty((len(matrix), matrix.shape[1] + 1))
+        with_one[:, 0] = 1.0
+        with_one[:, 1:] = matrix
+        coef = np.concatenate([[self.levels[0]], np.nan_to_num(self.slopes.coef, nan=0.0)])
+        difference = self.levels - self.levels[0]
+        return (with_one * coef).sum(axis=1) + np.where(codes >= 0, difference[np.where(codes >= 0, codes, 0)], 0.0)
 
     def prediction_se(self, matrix: np.ndarray, codes: np.ndarray) -> np.ndarray:
         """Return s·sqrt(1 + 1/nₛ + (x − x̄ₛ)'(X̃'X̃)⁻¹(x − x̄ₛ)) for new rows: the standard
         error of a new observation's prediction, as the fit with series columns gives it."""
-        kept, _, inverse = self._kept()
+        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
         own = np.where(codes >= 0, codes, 0)
         apart = np.asarray(matrix, float)[:, kept] - self.driver_means[own][:, kept]
         spread = 1.0 / self.counts[own] + np.einsum("ij,jk,ik->i", apart, inverse, apart)
         return self.resid_sd * np.sqrt(1.0 + spread)
 
-    def leverage(self, codes: np.ndarray) -> np.ndarray:
-        """Return the fit's leverage per row (the hat matrix's diagonal, levels included)."""
-        return 1.0 / self.counts[codes] + self.slopes.leverage
-
     def level_table(self, level: float = 0.95) -> pd.DataFrame:
         """Return the levels as the fit with columns reports them: the first series' level as
         the intercept, each other series' difference from it, with standard errors."""
-        kept, _, inverse = self._kept()
+        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
         sigma2 = self.resid_sd ** 2
         means = self.driver_means[:, kept]
         apart = means - means[0]
@@ -162,7 +161,7 @@ def absorbed_least_squares(matrix: np.ndarray, y: np.ndarray, series, names: lis
         names=names, coef=fit.coef, stderr=stderr, residuals=residuals,
         resid_sd=float(np.sqrt(sigma2)), r2=r2, adj_r2=adj_r2, df_resid=df_resid, rank=rank,
         condition_number=fit.condition_number, centered_r2=True, dropped=dropped,
-        xtx_inverse=inverse, leverage=fit.leverage)
+        xtx_inverse=inverse, leverage=fit.leverage + 1.0 / counts[codes])   # the levels' part: 1/nₛ
     beta = np.nan_to_num(fit.coef)
     levels = y_means - x_means @ beta if p else y_means
     return AbsorbedFit(slopes=slopes, levels=levels, series_names=np.asarray(series_names, dtype=object),

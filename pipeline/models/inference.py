@@ -123,10 +123,16 @@ def ljung_box(residuals: np.ndarray, lags: int = 12) -> tuple[float, float]:
     return q, float(chi2_upper(q, lags))
 
 
-def breusch_pagan(residuals: np.ndarray, matrix: np.ndarray) -> tuple[float, float]:
-    """Return the Breusch–Pagan LM statistic (n·R² of e² on the design) and its p-value."""
+def breusch_pagan(residuals: np.ndarray, matrix: np.ndarray, absorbed_series=None) -> tuple[float, float]:
+    """Return the Breusch–Pagan LM statistic (n·R² of e² on the design) and its p-value;
+    ``absorbed_series``: the rows' series, whose levels the design absorbed (and so does
+    the auxiliary fit)."""
     squared = residuals ** 2
-    auxiliary = least_squares(matrix, squared, centered_r2=True)
+    if absorbed_series is not None:
+        from pipeline.models.absorbed import absorbed_least_squares
+        auxiliary = absorbed_least_squares(matrix, squared, absorbed_series).slopes
+    else:
+        auxiliary = least_squares(matrix, squared, centered_r2=True)
     lm = len(residuals) * auxiliary.r2
     df = auxiliary.rank - 1
     return float(lm), float(chi2_upper(lm, df)) if df > 0 else float("nan")
@@ -207,9 +213,11 @@ def f_test(fit: LeastSquaresFit) -> tuple[float, float]:
 
 def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=None,
              row_labels=None, influential_count: int = 5,
-             term_groups: dict[str, str] | None = None) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
+             term_groups: dict[str, str] | None = None, absorbed_series=None
+             ) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
     """Return the diagnostics of a fit, the VIF table (per group of terms, ``term_groups``
-    naming each column's group) and the most influential rows."""
+    naming each column's group) and the most influential rows. ``absorbed_series``: the
+    rows' series when the fit absorbed their levels (``matrix`` is then within series)."""
     x = np.asarray(matrix, float)
     names = fit.names
     n = len(fit.residuals)
@@ -242,7 +250,7 @@ def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=Non
     findings.append(Finding("Ljung–Box (12 lags)", q, q_p, f"p ≥ {ALPHA}", bool(q_p < ALPHA),
                             "residuals are autocorrelated within a year: a lag or season term may "
                             "be missing" if q_p < ALPHA else "no autocorrelation found up to 12 months"))
-    bp, bp_p = breusch_pagan(fit.residuals, x[:, fit.kept])
+    bp, bp_p = breusch_pagan(fit.residuals, x[:, fit.kept], absorbed_series)
     findings.append(Finding("Breusch–Pagan", bp, bp_p, f"p ≥ {ALPHA}",
                             bool(np.isfinite(bp_p) and bp_p < ALPHA),
                             "the spread of the residuals changes with the drivers: prefer "

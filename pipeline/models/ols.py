@@ -200,6 +200,7 @@ class OLSModel(Model):
 
     def __init__(self, fit_intercept: bool = True) -> None:
         self.fit_intercept = fit_intercept
+        self.absorbed_ = None   # an AbsorbedFit when the design's series levels are absorbed
 
     @classmethod
     def from_choice(cls, choice, *, fit_intercept: bool = True, executor: Executor = IN_PROCESS,
@@ -212,6 +213,9 @@ class OLSModel(Model):
         return matrix
 
     def fit(self, design, y: np.ndarray) -> OLSModel:
+        self.absorbed_ = None
+        if getattr(design, "absorbed_levels", None) is not None:
+            return self._fit_absorbed(design, y)
         names = ([INTERCEPT] if self.fit_intercept else []) + list(design.names)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -220,12 +224,34 @@ class OLSModel(Model):
         self.coef_ = np.nan_to_num(self.fit_.coef, nan=0.0)
         return self
 
+    def _fit_absorbed(self, design, y: np.ndarray) -> OLSModel:
+        """Fit with the series levels absorbed (pipeline/models/absorbed.py): the same fit as
+        with a column per series, which would not fit in memory."""
+        from pipeline.models.absorbed import absorbed_least_squares
+        if not self.fit_intercept:
+            raise ValueError("series levels are absorbed only beside an intercept")
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            self.absorbed_ = absorbed_least_squares(design.matrix, y, design.series, list(design.names))
+        self.level_column_, self.level_at_ = design.absorbed_levels, design.absorbed_at
+        self.fit_ = self.absorbed_.slopes
+        self.coef_ = np.nan_to_num(self.fit_.coef, nan=0.0)
+        return self
+
+    def _codes(self, design) -> np.ndarray:
+        """Return each row's series as a position among the fitted series (−1: none)."""
+        return pd.Index(self.absorbed_.series_names).get_indexer(np.asarray(design.series, dtype=object))
+
     def predict(self, design) -> np.ndarray:
+        if self.absorbed_ is not None:
+            return self.absorbed_.predict(design.matrix, self._codes(design))
         # Row by row, so a row's prediction does not depend on the rows beside it.
         return (self._with_intercept(design.matrix) * self.coef_).sum(axis=1)
 
     def prediction_se(self, design) -> np.ndarray:
         """Return the standard error of a new observation's prediction, s·sqrt(1 + x'(X'X)⁻¹x)."""
+        if self.absorbed_ is not None:
+            return self.absorbed_.prediction_se(design.matrix, self._codes(design))
         kept = self.fit_.kept
         x = self._with_intercept(design.matrix)[:, kept]
         inverse = self.fit_.xtx_inverse[np.ix_(kept, kept)]
@@ -239,15 +265,52 @@ class OLSModel(Model):
         return self.fit_.df_resid
 
     def coefficient_table(self) -> pd.DataFrame:
-        return self.fit_.coefficient_table()
+        table = self.fit_.coefficient_table()
+        return table if self.absorbed_ is None else self.with_levels(table)
+
+    def with_levels(self, table: pd.DataFrame) -> pd.DataFrame:
+        """Return a table of the slopes with the absorbed levels in it, as the fit with a
+        column per series reports them: the intercept first, each series' difference where
+        the series terms are."""
+        levels = self.absorbed_.level_table()
+        levels["term"] = [INTERCEPT, *[f"{self.level_column_}: {name}"
+                                       for name in self.absorbed_.series_names[1:]]]
+        at = self.level_at_
+        return pd.concat([levels.iloc[:1], table.iloc[:at], levels.iloc[1:], table.iloc[at:]],
+                         ignore_index=True)
+
+    def series_levels(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """Return the absorbed levels: the series and each one's difference from the first
+        series' level (the intercept); None when the levels are columns of the design."""
+        if self.absorbed_ is None:
+            return None
+        levels = self.absorbed_.levels
+        return self.absorbed_.series_names, levels - levels[0]
 
     def linear_coefficients(self) -> tuple[float, np.ndarray]:
         coef = self.coef_
+        if self.absorbed_ is not None:   # the first series' level; the others: series_levels
+            return float(self.absorbed_.levels[0]), coef
         return (float(coef[0]), coef[1:]) if self.fit_intercept else (0.0, coef)
+
+    def design_matrix(self, design) -> np.ndarray:
+        if self.absorbed_ is None:
+            return super().design_matrix(design)
+        # The columns the slopes were fitted on: each less its series' mean in the fit.
+        codes = self._codes(design)
+        return np.asarray(design.matrix, float) - self.absorbed_.driver_means[np.where(codes >= 0, codes, 0)]
 
     @property
     def least_squares_fit(self) -> LeastSquaresFit:
         return self.fit_
+
+    def describe(self) -> str | None:
+        if self.absorbed_ is None:
+            return None
+        return (f"the {len(self.absorbed_.series_names):,} series levels are too many for a "
+                "column each, so the fit absorbs them (it fits each series' deviations from its "
+                "own means), which gives the same estimates; its condition number and VIFs are "
+                "those of the drivers within series")
 
 
 class GrowingLeastSquares:

@@ -84,12 +84,16 @@ class StoredLinear:
     target transform (with its smearing factor) that turns its predictions into means."""
 
     def __init__(self, intercept: float, coef: np.ndarray, names: list[str],
-                 transform: TargetTransform | None = None, smearing: float = 1.0) -> None:
+                 transform: TargetTransform | None = None, smearing: float = 1.0,
+                 levels: tuple[list[str], np.ndarray] | None = None) -> None:
         self.intercept_ = float(intercept)
         self.coef_ = np.asarray(coef, float)
         self.names_ = list(names)
         self.transform = transform
         self.smearing_ = float(smearing)
+        # Series levels the fit absorbed (not columns of the design): each series and its
+        # difference from the intercept; a series not among them gets the intercept alone.
+        self.levels_ = levels
 
     @classmethod
     def from_model(cls, model, names: list[str]) -> StoredLinear:
@@ -97,13 +101,18 @@ class StoredLinear:
         intercept, slopes = model.linear_coefficients()
         transform = model.transform if isinstance(model, TransformedTargetModel) else None
         smearing = model.smearing_ if transform is not None else 1.0
-        return cls(intercept, slopes, names, transform, smearing)
+        absorbed = getattr(model.inner, "series_levels", lambda: None)()
+        levels = None if absorbed is None else ([str(name) for name in absorbed[0]], absorbed[1])
+        return cls(intercept, slopes, names, transform, smearing, levels)
 
     def to_dict(self) -> dict:
         """Return the numbers as a model file stores them (the names are the file's
         feature_names)."""
-        return {"intercept": encode(self.intercept_), "coef": encode(self.coef_),
-                "target_transform": _scale_to_dict(self.transform, self.smearing_)}
+        stored = {"intercept": encode(self.intercept_), "coef": encode(self.coef_),
+                  "target_transform": _scale_to_dict(self.transform, self.smearing_)}
+        if self.levels_ is not None:
+            stored["series_levels"] = {"series": self.levels_[0], "difference": encode(self.levels_[1])}
+        return stored
 
     @classmethod
     def from_dict(cls, data: dict, names: list[str], version: int = FORMAT_VERSION) -> StoredLinear:
@@ -112,9 +121,16 @@ class StoredLinear:
             intercept = fields.number("intercept")
             coef = fields.array("coef", "float64", ndim=1)
             transform, smearing = _scale_from_dict(fields.raw("target_transform"), version)
+            levels = None
+            if "series_levels" in data:
+                with StoredFields(fields.raw("series_levels"), "the series levels", version=version) as own:
+                    levels = (own.texts("series"), own.array("difference", "float64", ndim=1))
+                if len(levels[0]) != len(levels[1]):
+                    raise ModelFileError(f"the model has {len(levels[1])} series levels for "
+                                         f"{len(levels[0])} series")
         if len(coef) != len(names):
             raise ModelFileError(f"the model has {len(coef)} coefficients for {len(names)} features")
-        return cls(intercept, coef, names, transform, smearing)
+        return cls(intercept, coef, names, transform, smearing, levels)
 
     def predict(self, design) -> np.ndarray:
         # The same arithmetic as the run's own OLS prediction, so the numbers agree exactly.
@@ -123,6 +139,9 @@ class StoredLinear:
             raise ModelFileError(f"the model has {len(self.coef_)} coefficients for "
                                  f"{matrix.shape[1] - 1} features")
         predicted = (matrix * np.concatenate([[self.intercept_], self.coef_])).sum(axis=1)
+        if self.levels_ is not None:
+            at = pd.Index(self.levels_[0]).get_indexer(np.asarray(design.series, dtype=object).astype(str))
+            predicted = predicted + np.where(at >= 0, self.levels_[1][at], 0.0)
         return self.transform.to_mean(predicted, self.smearing_) if self.transform else predicted
 
 

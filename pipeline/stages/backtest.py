@@ -270,7 +270,8 @@ def _shared_design(spec: Spec, plan, data: CheckedData):
     if len(y) != len(history):
         return None
     return history, Design(design.matrix, design.names, design.series, design.period, (),
-                           design.series_level).with_series_codes(), y
+                           design.series_level, absorbed_levels=design.absorbed_levels,
+                           absorbed_at=design.absorbed_at).with_series_codes(), y
 
 
 def _design_rows(shared, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
@@ -457,7 +458,8 @@ def run_backtest(spec: Spec, data: CheckedData, *, executor: Executor = IN_PROCE
                  and len({_plan_state(plan) for plan in plans}) == 1
                  and not any(split.refilled for split in splits))
     shared = _shared_design(spec, plans[0], data) if same_plan else None
-    if "ols" in spec.model_names and expanding and same_plan:
+    # (With the series levels absorbed, the design holds no level columns for one QR to grow.)
+    if "ols" in spec.model_names and expanding and same_plan and not plans[0].absorbs_levels:
         fast_ols = _fast_ols(spec, splits, as_happened, plans[0], data, shared, estimating)
     rows, known_rows = [], []
     fallen_back: list[pd.DataFrame | None] = []

@@ -216,17 +216,25 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
                      groups=design.series, order=design.period)
     terms = coefficient_table(fit, cov)
     terms["standard_errors"] = spec.standard_errors
+    absorbed = getattr(model.inner, "absorbed_", None) is not None
+    if absorbed:
+        # The levels the fit absorbed, around the slopes; their errors are the classical ones.
+        terms = model.inner.with_levels(terms)
+        terms["standard_errors"] = terms["standard_errors"].fillna("classical")
     findings, vif, influential = diagnose(
         fit, matrix, groups=design.series, order=design.period,
         row_labels=_row_labels(data.history, design),
-        term_groups=dict(zip(design.names, design.term_groups)) if design.term_groups else None)
+        term_groups=dict(zip(design.names, design.term_groups)) if design.term_groups else None,
+        absorbed_series=design.series if absorbed else None)
     diagnostics = findings_table(findings)
     residuals = pd.DataFrame({
         "period": pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str),
-        "series": design.series, "fitted": matrix[:, fit.kept] @ fit.coef[fit.kept],
+        "series": design.series,
+        "fitted": y - fit.residuals if absorbed else matrix[:, fit.kept] @ fit.coef[fit.kept],
         "residual": fit.residuals})
     diagnostics.insert(0, "model", kind)
-    summary = {"model": kind, "rows": len(y), "terms": len(fit.names),
+    levels = len(model.inner.absorbed_.series_names) if absorbed else 0   # the intercept among them
+    summary = {"model": kind, "rows": len(y), "terms": len(fit.names) + levels,
                "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
                "resid_sd": fit.resid_sd, "condition_number": fit.condition_number,
                "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"}

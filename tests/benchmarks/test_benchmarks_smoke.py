@@ -45,6 +45,15 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"whole run / backtest stage = {NUMBER}x \(target <= 2x: (met|MISSED)\)",
          r"peak memory of castline run = [0-9,]+ MB \(target < 2,048 MB: (met|MISSED)\)"],
     ),
+    # The fits and the whole run on 10 series x 30 months; the column-per-series fit on 5.
+    "bench_pooled.py": (
+        ["--series", "10", "--months", "30", "--drivers", "2", "--dense-series", "5"],
+        [rf"\(a\) castline, levels absorbed\s+{NUMBER} s\s+peak\s+{NUMBER} MB",
+         rf"ratio \(b\)/\(a\) = {NUMBER}x; slopes apart by {NUMBER}e[-+][0-9]+ \(relative\)",
+         rf"ratio \(c\)/\(a\) = {NUMBER}x; slopes apart by {NUMBER}e[-+][0-9]+ \(relative\)",
+         rf"\(d\) castline run, OLS over all series: {NUMBER} s, peak [0-9,]+ MB",
+         r"peak memory of the fit = [0-9,]+ MB \(target < 2,048 MB at 10,000 series x 120 months: (met|MISSED)"],
+    ),
     "bench_small.py": (
         ["--repeats", "1", "--panel-series", "3", "--panel-months", "40"],
         [rf"bare python -c 'import pandas, numpy'\s+{NUMBER} s",
@@ -92,3 +101,13 @@ def test_many_series_benchmark_agrees_with_statsmodels():
     found = re.search(r"max relative difference ([0-9.]+e[-+][0-9]+)", done.stdout)
     assert found, done.stdout[-4000:]
     assert float(found.group(1)) < 1e-8
+
+
+def test_pooled_benchmark_agrees_with_statsmodels_and_the_hand_written_fit():
+    """bench_pooled prints how far castline's slopes (levels absorbed) are from the hand-written
+    within fit (numpy lstsq) and from statsmodels' OLS with a column per series."""
+    done = run("bench_pooled.py")
+    assert done.returncode == 0, (done.stdout + done.stderr)[-4000:]
+    found = re.findall(r"slopes apart by ([0-9.]+e[-+][0-9]+)", done.stdout)
+    assert len(found) == 2, done.stdout[-4000:]
+    assert max(float(value) for value in found) < 1e-8

@@ -84,8 +84,7 @@ def test_grunfeld_predictions_and_their_standard_errors_match():
     expected = dense.get_prediction(new)
     _close(fit.predict(new[["value", "capital"]].to_numpy(), codes), expected.predicted_mean)
     _close(fit.prediction_se(new[["value", "capital"]].to_numpy(), codes), expected.se_obs)
-    _close(fit.leverage(pd.Index(fit.series_names).get_indexer(frame["firm"])),
-           OLSInfluence(dense).hat_matrix_diag)
+    _close(fit.slopes.leverage, OLSInfluence(dense).hat_matrix_diag)
 
 
 def test_series_slopes_as_interaction_columns_on_an_unbalanced_panel():
