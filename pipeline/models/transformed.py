@@ -104,4 +104,5 @@ class TransformedTargetModel(Model):
             note += (f"; its analytic interval is found on the {self.transform.name} scale and "
                      f"turned back with {back}, so it is centred on the median of "
                      f"{self.transform.column}, while the forecast is the (smeared) mean")
-        return note
+        inner = self.model.describe()
+        return f"{inner}; {note}" if inner else note

@@ -131,3 +131,14 @@ def test_a_penalised_model_cannot_absorb_its_levels_and_says_so(tmp_path, monkey
     lines = err.strip().splitlines()
     assert code == 2 and len(lines) == 1, err
     assert "drivers.series_effects" in lines[0] and "use OLS (which absorbs the series levels)" in lines[0]
+
+
+def test_a_log_target_absorbs_its_levels_on_the_log_scale(tmp_path, monkeypatch):
+    # The fit is on log(sales); the levels are absorbed there and the forecasts turned back
+    # as with a column per series (Duan's smearing), and the run's note says both.
+    spec = _spec(False) | {"target_transform": "log"}
+    dense, _ = _run(tmp_path / "dense", spec, monkeypatch, None)
+    absorbed, out = _run(tmp_path / "absorbed", spec, monkeypatch, 1)
+    assert "series levels are too many for a column each" in out and "smearing" in out
+    for name in ("predictions.csv", "forecast.csv", "coefficients.csv"):
+        _same_numbers(pd.read_csv(dense / name), pd.read_csv(absorbed / name))
