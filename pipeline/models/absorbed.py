@@ -63,6 +63,7 @@ class AbsorbedFit:
     driver_means: np.ndarray       # x̄ₛ per series (series × columns)
     residual_ss: float
     total_ss: float
+    codes: np.ndarray              # each fitted row's series, a position in ``series_names``
 
     @property
     def n(self) -> int:
@@ -98,16 +99,41 @@ class AbsorbedFit:
         spread = 1.0 / self.counts[own] + np.einsum("ij,jk,ik->i", apart, inverse, apart)
         return self.resid_sd * np.sqrt(1.0 + spread)
 
-    def level_table(self, level: float = 0.95) -> pd.DataFrame:
+    def _robust_variances(self, within: np.ndarray, weights: np.ndarray) -> tuple[float, np.ndarray]:
+        """Return the sandwich variances of the first level and of each level's difference
+        from it, each a linear function c'y of the target: Σ ωᵢcᵢ², with cᵢ = δₛ/nₛ − δᵣ/nᵣ −
+        x̃ᵢ'bₛ and bₛ = (X̃'X̃)⁻¹(x̄ₛ − x̄ᵣ), expanded into sums by series (``within``: the
+        fitted rows' within-series columns that were kept; ``weights``: ωᵢ)."""
+        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
+        groups, n = len(self.counts), self.counts
+        means = self.driver_means[:, kept]
+        own = np.bincount(self.codes, weights=weights, minlength=groups)                    # Wₛ
+        pulled = group_means(within * weights[:, None], self.codes, self.counts) * n[:, None]   # Gₛ
+        meat = (within * weights[:, None]).T @ within                                      # M
+        first = inverse @ means[0]
+        reference = own[0] / n[0] ** 2 - 2 / n[0] * pulled[0] @ first + first @ meat @ first
+        apart = (means - means[0]) @ inverse
+        difference = (own / n ** 2 + own[0] / n[0] ** 2 - 2 / n * np.einsum("ij,ij->i", pulled, apart)
+                      + 2 / n[0] * apart @ pulled[0] + np.einsum("ij,jk,ik->i", apart, meat, apart))
+        return reference, difference
+
+    def level_table(self, level: float = 0.95, within: np.ndarray | None = None,
+                    weights: np.ndarray | None = None) -> pd.DataFrame:
         """Return the levels as the fit with columns reports them: the first series' level as
-        the intercept, each other series' difference from it, with standard errors."""
+        the intercept, each other series' difference from it, with standard errors: classical,
+        or a sandwich's with ``weights`` ωᵢ on the rows (e²/(1 − h)² for HC3) and ``within``
+        the rows' within-series columns that were kept."""
         kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
         sigma2 = self.resid_sd ** 2
         means = self.driver_means[:, kept]
         apart = means - means[0]
-        reference_variance = sigma2 * (1.0 / self.counts[0] + means[0] @ inverse @ means[0])
-        difference_variance = sigma2 * (1.0 / self.counts + 1.0 / self.counts[0]
-                                        + np.einsum("ij,jk,ik->i", apart, inverse, apart))
+        if weights is not None:
+            reference_variance, difference_variance = self._robust_variances(np.asarray(within, float),
+                                                                             np.asarray(weights, float))
+        else:
+            reference_variance = sigma2 * (1.0 / self.counts[0] + means[0] @ inverse @ means[0])
+            difference_variance = sigma2 * (1.0 / self.counts + 1.0 / self.counts[0]
+                                            + np.einsum("ij,jk,ik->i", apart, inverse, apart))
         stderr = np.sqrt(np.r_[reference_variance, difference_variance[1:]])
         estimate = np.r_[self.levels[0], self.levels[1:] - self.levels[0]]
         table = LeastSquaresFit(
@@ -165,4 +191,4 @@ def absorbed_least_squares(matrix: np.ndarray, y: np.ndarray, series, names: lis
     beta = np.nan_to_num(fit.coef)
     levels = y_means - x_means @ beta if p else y_means
     return AbsorbedFit(slopes=slopes, levels=levels, series_names=np.asarray(series_names, dtype=object),
-                       counts=counts, driver_means=x_means, residual_ss=rss, total_ss=total)
+                       counts=counts, driver_means=x_means, residual_ss=rss, total_ss=total, codes=codes)

@@ -218,9 +218,13 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
     terms["standard_errors"] = spec.standard_errors
     absorbed = getattr(model.inner, "absorbed_", None) is not None
     if absorbed:
-        # The levels the fit absorbed, around the slopes; their errors are the classical ones.
-        terms = model.inner.with_levels(terms)
-        terms["standard_errors"] = terms["standard_errors"].fillna("classical")
+        # The levels the fit absorbed, around the slopes: their standard errors are HC3's when
+        # asked, else the classical ones (a HAC sandwich for them is not offered).
+        hc3 = spec.standard_errors == "hc3"
+        with np.errstate(divide="ignore", invalid="ignore"):
+            weights = (fit.residuals / (1.0 - fit.leverage)) ** 2 if hc3 else None
+        terms = model.inner.with_levels(terms, matrix[:, fit.kept] if hc3 else None, weights)
+        terms["standard_errors"] = terms["standard_errors"].fillna("hc3" if hc3 else "classical")
     findings, vif, influential = diagnose(
         fit, matrix, groups=design.series, order=design.period,
         row_labels=_row_labels(data.history, design),

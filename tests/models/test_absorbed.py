@@ -103,6 +103,28 @@ def test_series_slopes_as_interaction_columns_on_an_unbalanced_panel():
     _close(table["std_error"], dense.bse[["Intercept", *[f"C(series)[T.{v}]" for v in levels[1:]]]])
 
 
+@pytest.mark.parametrize("which", ["grunfeld", "panel"])
+def test_hc3_standard_errors_of_the_levels_match_statsmodels(which):
+    # statsmodels' fit(cov_type="HC3") on the design with a column per series: the levels'
+    # sandwich, computed from sums by series, equals the full HC3 covariance's diagonal.
+    if which == "grunfeld":
+        frame, y, columns, key = _grunfeld(), "invest", ["value", "capital"], "firm"
+    else:
+        frame, y, columns, key = _panel(), "y", ["x", "w"], "series"
+    dense = smf.ols(f"{y} ~ {' + '.join(columns)} + C({key})", data=frame).fit(cov_type="HC3")
+    fit = absorbed_least_squares(frame[columns].to_numpy(), frame[y].to_numpy(), frame[key].to_numpy(),
+                                 columns)
+    within = frame[columns].to_numpy() - fit.driver_means[fit.codes]
+    weights = (fit.slopes.residuals / (1 - fit.slopes.leverage)) ** 2
+    table = fit.level_table(within=within, weights=weights)
+    names = ["Intercept", *[f"C({key})[T.{name}]" for name in fit.series_names[1:]]]
+    _close(table["std_error"], dense.bse[names])
+    # The slopes' own HC3 errors from the within columns alone (Frisch–Waugh–Lovell).
+    bread = np.linalg.inv(within.T @ within)
+    sandwich = bread @ (within * weights[:, None]).T @ within @ bread
+    _close(np.sqrt(np.diag(sandwich)), dense.bse[columns])
+
+
 def test_a_series_the_fit_did_not_hold_gets_the_first_series_level():
     frame = _grunfeld()
     fit = absorbed_least_squares(frame[["value"]].to_numpy(), frame["invest"].to_numpy(),
