@@ -99,17 +99,33 @@ class AbsorbedFit:
         spread = 1.0 / self.counts[own] + np.einsum("ij,jk,ik->i", apart, inverse, apart)
         return self.resid_sd * np.sqrt(1.0 + spread)
 
-    def _robust_variances(self, within: np.ndarray, weights: np.ndarray) -> tuple[float, np.ndarray]:
+    def _sandwich_variances(self, within: np.ndarray, scores: np.ndarray, lags: int,
+                            order: np.ndarray | None) -> tuple[float, np.ndarray]:
         """Return the sandwich variances of the first level and of each level's difference
-        from it, each a linear function c'y of the target: Σ ωᵢcᵢ², with cᵢ = δₛ/nₛ − δᵣ/nᵣ −
-        x̃ᵢ'bₛ and bₛ = (X̃'X̃)⁻¹(x̄ₛ − x̄ᵣ), expanded into sums by series (``within``: the
-        fitted rows' within-series columns that were kept; ``weights``: ωᵢ)."""
+        from it. Each is a linear function c'y of the target, so its variance is
+        Σᵢⱼ wᵢⱼ cᵢcⱼuᵢuⱼ, with cᵢ = δₛ/nₛ − δᵣ/nᵣ − x̃ᵢ'bₛ, bₛ = (X̃'X̃)⁻¹(x̄ₛ − x̄ᵣ), uᵢ the
+        rows' ``scores`` (e/(1 − h) for HC3, e for HAC) and wᵢⱼ Bartlett's weight 1 − ℓ/(L+1)
+        for rows ℓ ≤ L = ``lags`` apart within a series in time order (``order``), as the
+        slopes' sandwich weighs them; expanded into sums by series: V (u·u), H (u·u·x̃) and
+        the slopes' meat M. ``within``: the rows' within-series columns that were kept."""
         kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
         groups, n = len(self.counts), self.counts
+        rows = np.lexsort((np.arange(len(scores)) if order is None else np.asarray(order), self.codes))
+        code, u, x = self.codes[rows], np.asarray(scores, float)[rows], np.asarray(within, float)[rows]
+        ux = x * u[:, None]
+        own = np.bincount(code, weights=u * u, minlength=groups)                           # V
+        pulled = group_means(ux * u[:, None], code, n) * n[:, None]                        # H
+        meat = ux.T @ ux                                                                   # M
+        for lag in range(1, lags + 1):
+            same = np.flatnonzero(code[lag:] == code[:-lag])   # pairs (k, k + lag) in one series
+            weight = 1.0 - lag / (lags + 1)
+            products = u[same] * u[same + lag]
+            own += 2 * weight * np.bincount(code[same], weights=products, minlength=groups)
+            pulled += weight * group_means((x[same] + x[same + lag]) * products[:, None], code[same], n) \
+                * n[:, None]
+            across = ux[same + lag].T @ ux[same]
+            meat += weight * (across + across.T)
         means = self.driver_means[:, kept]
-        own = np.bincount(self.codes, weights=weights, minlength=groups)                    # Wₛ
-        pulled = group_means(within * weights[:, None], self.codes, self.counts) * n[:, None]   # Gₛ
-        meat = (within * weights[:, None]).T @ within                                      # M
         first = inverse @ means[0]
         reference = own[0] / n[0] ** 2 - 2 / n[0] * pulled[0] @ first + first @ meat @ first
         apart = (means - means[0]) @ inverse
@@ -118,18 +134,18 @@ class AbsorbedFit:
         return reference, difference
 
     def level_table(self, level: float = 0.95, within: np.ndarray | None = None,
-                    weights: np.ndarray | None = None) -> pd.DataFrame:
+                    scores: np.ndarray | None = None, lags: int = 0,
+                    order: np.ndarray | None = None) -> pd.DataFrame:
         """Return the levels as the fit with columns reports them: the first series' level as
         the intercept, each other series' difference from it, with standard errors: classical,
-        or a sandwich's with ``weights`` ωᵢ on the rows (e²/(1 − h)² for HC3) and ``within``
-        the rows' within-series columns that were kept."""
+        or with ``scores`` a sandwich's (see ``_sandwich_variances``: HC3 with e/(1 − h) and no
+        lags, HAC with e, its lags and the rows' time order)."""
         kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
         sigma2 = self.resid_sd ** 2
         means = self.driver_means[:, kept]
         apart = means - means[0]
-        if weights is not None:
-            reference_variance, difference_variance = self._robust_variances(np.asarray(within, float),
-                                                                             np.asarray(weights, float))
+        if scores is not None:
+            reference_variance, difference_variance = self._sandwich_variances(within, scores, lags, order)
         else:
             reference_variance = sigma2 * (1.0 / self.counts[0] + means[0] @ inverse @ means[0])
             difference_variance = sigma2 * (1.0 / self.counts + 1.0 / self.counts[0]

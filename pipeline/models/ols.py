@@ -268,13 +268,12 @@ class OLSModel(Model):
         table = self.fit_.coefficient_table()
         return table if self.absorbed_ is None else self.with_levels(table)
 
-    def with_levels(self, table: pd.DataFrame, within: np.ndarray | None = None,
-                    weights: np.ndarray | None = None) -> pd.DataFrame:
+    def with_levels(self, table: pd.DataFrame, **sandwich) -> pd.DataFrame:
         """Return a table of the slopes with the absorbed levels in it, as the fit with a
         column per series reports them: the intercept first, each series' difference where
-        the series terms are (their standard errors a sandwich's with ``weights``: see
-        ``AbsorbedFit.level_table``)."""
-        levels = self.absorbed_.level_table(within=within, weights=weights)
+        the series terms are (their standard errors a sandwich's when ``sandwich`` names its
+        within columns, scores, lags and order: see ``AbsorbedFit.level_table``)."""
+        levels = self.absorbed_.level_table(**sandwich)
         levels["term"] = [INTERCEPT, *[f"{self.level_column_}: {name}"
                                        for name in self.absorbed_.series_names[1:]]]
         at = self.level_at_

@@ -40,7 +40,7 @@ from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
-from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table
+from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table, newey_west_lags
 from pipeline.spec import Scenario, Spec
 from pipeline.stages.backtest import BacktestResult, mase_scales, series_fallbacks, target_floor
 from pipeline.stages.check import CheckedData
@@ -206,6 +206,20 @@ class _FitReport:
     warnings: list[str]
 
 
+def _level_sandwich(spec: Spec, fit, matrix: np.ndarray, design: Design) -> dict:
+    """Return what the absorbed levels' standard errors need for the spec's kind (none for the
+    classical ones): the within columns, the rows' scores, the lags and the time order."""
+    if spec.standard_errors == "classical":
+        return {}
+    within = matrix[:, fit.kept]
+    if spec.standard_errors == "hc3":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return {"within": within, "scores": fit.residuals / (1.0 - fit.leverage)}
+    lags = spec.autocorrelation_lags
+    return {"within": within, "scores": fit.residuals, "order": design.period,
+            "lags": newey_west_lags(len(fit.residuals)) if lags is None else lags}
+
+
 def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, design: Design,
                           y: np.ndarray) -> _FitReport:
     """Return the coefficient table (with the spec's standard errors), the residual checks
@@ -218,13 +232,9 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
     terms["standard_errors"] = spec.standard_errors
     absorbed = getattr(model.inner, "absorbed_", None) is not None
     if absorbed:
-        # The levels the fit absorbed, around the slopes: their standard errors are HC3's when
-        # asked, else the classical ones (a HAC sandwich for them is not offered).
-        hc3 = spec.standard_errors == "hc3"
-        with np.errstate(divide="ignore", invalid="ignore"):
-            weights = (fit.residuals / (1.0 - fit.leverage)) ** 2 if hc3 else None
-        terms = model.inner.with_levels(terms, matrix[:, fit.kept] if hc3 else None, weights)
-        terms["standard_errors"] = terms["standard_errors"].fillna("hc3" if hc3 else "classical")
+        # The levels the fit absorbed, around the slopes, with the same kind of standard errors.
+        terms = model.inner.with_levels(terms, **_level_sandwich(spec, fit, matrix, design))
+        terms["standard_errors"] = spec.standard_errors
     findings, vif, influential = diagnose(
         fit, matrix, groups=design.series, order=design.period,
         row_labels=_row_labels(data.history, design),

@@ -115,14 +115,33 @@ def test_hc3_standard_errors_of_the_levels_match_statsmodels(which):
     fit = absorbed_least_squares(frame[columns].to_numpy(), frame[y].to_numpy(), frame[key].to_numpy(),
                                  columns)
     within = frame[columns].to_numpy() - fit.driver_means[fit.codes]
-    weights = (fit.slopes.residuals / (1 - fit.slopes.leverage)) ** 2
-    table = fit.level_table(within=within, weights=weights)
+    scores = fit.slopes.residuals / (1 - fit.slopes.leverage)
+    table = fit.level_table(within=within, scores=scores)
     names = ["Intercept", *[f"C({key})[T.{name}]" for name in fit.series_names[1:]]]
     _close(table["std_error"], dense.bse[names])
     # The slopes' own HC3 errors from the within columns alone (Frisch–Waugh–Lovell).
     bread = np.linalg.inv(within.T @ within)
-    sandwich = bread @ (within * weights[:, None]).T @ within @ bread
+    sandwich = bread @ (within * scores[:, None] ** 2).T @ within @ bread
     _close(np.sqrt(np.diag(sandwich)), dense.bse[columns])
+
+
+@pytest.mark.parametrize("lags", [1, 3])
+def test_hac_standard_errors_of_the_levels_match_statsmodels_hac_panel(lags):
+    # statsmodels' cov_type="hac-panel" (Bartlett weights within each firm, rows stacked by
+    # firm in year order; use_correction=False, the convention of castline's HAC) on the
+    # design with a column per firm. The rows are shuffled: the time order comes from ``order``.
+    frame = _grunfeld().sample(frac=1.0, random_state=5).reset_index(drop=True)
+    stacked = frame.sort_values(["firm", "year"], kind="stable")
+    dense = smf.ols("invest ~ value + capital + C(firm)", data=stacked).fit(
+        cov_type="hac-panel", cov_kwds={"groups": pd.factorize(stacked["firm"])[0], "maxlags": lags,
+                                        "use_correction": False})
+    fit = absorbed_least_squares(frame[["value", "capital"]].to_numpy(), frame["invest"].to_numpy(),
+                                 frame["firm"].to_numpy(), ["value", "capital"])
+    within = frame[["value", "capital"]].to_numpy() - fit.driver_means[fit.codes]
+    table = fit.level_table(within=within, scores=fit.slopes.residuals, lags=lags,
+                            order=frame["year"].to_numpy())
+    names = ["Intercept", *[f"C(firm)[T.{name}]" for name in fit.series_names[1:]]]
+    _close(table["std_error"], dense.bse[names])
 
 
 def test_a_series_the_fit_did_not_hold_gets_the_first_series_level():
