@@ -45,6 +45,14 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"whole run / backtest stage = {NUMBER}x \(target <= 2x: (met|MISSED)\)",
          r"peak memory of castline run = [0-9,]+ MB \(target < 2,048 MB: (met|MISSED)\)"],
     ),
+    # A local Dask cluster of 2 workers: the run on 40 series through it, 20 on this machine alone.
+    "bench_cluster.py": (
+        ["--series", "40", "--local-series", "20", "--months", "30", "--drivers", "2"],
+        [rf"\(a\) castline run, Dask cluster of 2 workers\s+{NUMBER} s\s+client peak\s+[0-9,]+ MB\s+{NUMBER} ms per series",
+         rf"\(b\) castline run, this machine alone\s+{NUMBER} s\s+peak\s+[0-9,]+ MB\s+{NUMBER} ms per series",
+         r"client peak memory = [0-9,]+ MB \(target < 3,072 MB: (met|MISSED)\)",
+         rf"time per series, cluster / local = {NUMBER}x \(target <= 1\.5x: (met|MISSED)\)"],
+    ),
     # The fits and the whole run on 10 series x 30 months; the column-per-series fit on 5.
     "bench_pooled.py": (
         ["--series", "10", "--months", "30", "--drivers", "2", "--dense-series", "5"],
