@@ -77,6 +77,11 @@ class AbsorbedFit:
     def resid_sd(self) -> float:
         return self.slopes.resid_sd
 
+    def _kept_inverse(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return the kept columns and (X̃'X̃)⁻¹ on them."""
+        kept = self.slopes.kept
+        return kept, self.slopes.xtx_inverse[np.ix_(kept, kept)]
+
     def predict(self, matrix: np.ndarray, codes: np.ndarray) -> np.ndarray:
         """Return predictions for rows whose series are ``codes`` into ``series_names``
         (−1: a series the fit did not hold, given the first series' level)."""
@@ -93,7 +98,7 @@ class AbsorbedFit:
     def prediction_se(self, matrix: np.ndarray, codes: np.ndarray) -> np.ndarray:
         """Return s·sqrt(1 + 1/nₛ + (x − x̄ₛ)'(X̃'X̃)⁻¹(x − x̄ₛ)) for new rows: the standard
         error of a new observation's prediction, as the fit with series columns gives it."""
-        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
+        kept, inverse = self._kept_inverse()
         own = np.where(codes >= 0, codes, 0)
         apart = np.asarray(matrix, float)[:, kept] - self.driver_means[own][:, kept]
         spread = 1.0 / self.counts[own] + np.einsum("ij,jk,ik->i", apart, inverse, apart)
@@ -108,7 +113,7 @@ class AbsorbedFit:
         for rows ℓ ≤ L = ``lags`` apart within a series in time order (``order``), as the
         slopes' sandwich weighs them; expanded into sums by series: V (u·u), H (u·u·x̃) and
         the slopes' meat M. ``within``: the rows' within-series columns that were kept."""
-        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
+        kept, inverse = self._kept_inverse()
         groups, n = len(self.counts), self.counts
         rows = np.lexsort((np.arange(len(scores)) if order is None else np.asarray(order), self.codes))
         code, u, x = self.codes[rows], np.asarray(scores, float)[rows], np.asarray(within, float)[rows]
@@ -140,7 +145,7 @@ class AbsorbedFit:
         the intercept, each other series' difference from it, with standard errors: classical,
         or with ``scores`` a sandwich's (see ``_sandwich_variances``: HC3 with e/(1 − h) and no
         lags, HAC with e, its lags and the rows' time order)."""
-        kept, inverse = self.slopes.kept, self.slopes.xtx_inverse[np.ix_(self.slopes.kept, self.slopes.kept)]
+        kept, inverse = self._kept_inverse()
         sigma2 = self.resid_sd ** 2
         means = self.driver_means[:, kept]
         apart = means - means[0]
