@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -97,3 +98,19 @@ def test_tables_written_together_in_runs_of_rows_are_the_bytes_write_csv_writes(
         assert (tmp_path / "together" / name).read_bytes() == (tmp_path / "one" / name).read_bytes(), name
     assert sorted(p.name for p in (tmp_path / "together").iterdir()) == sorted(tables)   # no part left
     assert len(safe_csv._cut(tables["numbers.csv"])) > 20 and len(safe_csv._cut(tables["dated.csv"])) == 1
+
+
+def test_numbers_are_written_as_pandas_itself_writes_them(tmp_path):
+    # Reference: pandas' own DataFrame.to_csv of the same frame (numpy's text for each float).
+    # write_csv makes that text with Python's repr, faster; the bytes must be the same for
+    # every kind of float: missing, infinite, signed zero, the largest and smallest, integers,
+    # the switch to exponent form at 1e16 and 1e-4, and random numbers of full precision.
+    rng = np.random.default_rng(11)
+    special = [np.nan, np.inf, -np.inf, -0.0, 0.0, 1e16, 9999999999999998.0, 1e-4, 9.9e-5, 5e-324,
+               1.7976931348623157e308, 2.0, -3.0, 0.1, 1 / 3, 123456789012345678.0]
+    values = np.concatenate([special, rng.normal(size=2000) * 10.0 ** rng.integers(-12, 20, 2000)])
+    frame = pd.DataFrame({"name": [f"s{i}" for i in range(len(values))], "x": values,
+                          "whole": np.arange(len(values)), "y": values[::-1].copy()})
+    write_csv(frame, tmp_path / "ours.csv")
+    frame.to_csv(tmp_path / "pandas.csv", index=False)
+    assert (tmp_path / "ours.csv").read_bytes() == (tmp_path / "pandas.csv").read_bytes()
