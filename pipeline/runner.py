@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from pipeline.core.errors import DataError, UserError
-from pipeline.core.forked import Helper, called, map_shared, settle_again, settled
+from pipeline.core.forked import Ahead, Helper, called, map_shared, settle_again, settled
 from pipeline.core.progress import QUIET, Progress
 from pipeline.spec import CsvOptions, Spec, load_spec
 
@@ -34,6 +34,7 @@ _STAGES = {"read_input": "pipeline.stages.ingest", "check_data": "pipeline.stage
            "evaluate": "pipeline.stages.evaluate", "make_forecast": "pipeline.stages.forecast",
            "executor_for": "pipeline.core.execution", "track_record": "pipeline.review.track_record",
            "publish": "pipeline.record.run_folder", "render_pages": "pipeline.present.pages",
+           "period_fingerprints": "pipeline.record.ledger.fingerprints",
            "infer": "pipeline.stages.survey", "render_spec": "pipeline.present.starter_spec",
            "write_new_file": "pipeline.record.new_file"}
 
@@ -146,17 +147,22 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
         data, (settle_validation, run_backtest, evaluate, make_forecast, executor_for, track_record,
                publish) = _checked_while_loading(spec, _RUN_STAGES)
         settle_again()   # the modules loaded meanwhile are set aside too
-        with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
-            spec, notes = settle_validation(spec, data)
-            data = data.with_notes(notes)
-            backtest = run_backtest(spec, data, executor=executor, progress=progress)
-            evaluation = evaluate(spec, backtest)
-            forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,
-                                     coverage=evaluation.coverage)
-        track = track_record(spec, data, evaluation, output_folder=output_folder)
-        folder = publish(spec, data, backtest, evaluation, forecast,
-                         output_folder=Path(output_folder) if output_folder else None,
-                         realised=track.realised, track=track.facts(), pages=pages)
+        # The ledger's month fingerprints (a hash of every input cell's text) are made by a copy
+        # on the checked data while the run fits, on what the second core has spare; before a
+        # Dask client, whose threads would forbid the fork.
+        with Ahead(*_stages("period_fingerprints"), data) as periods:
+            with _data_file_named(spec), executor_for(spec.compute, spec) as executor, _one_blas_thread():
+                spec, notes = settle_validation(spec, data)
+                data = data.with_notes(notes)
+                backtest = run_backtest(spec, data, executor=executor, progress=progress)
+                evaluation = evaluate(spec, backtest)
+                forecast = make_forecast(spec, data, backtest, executor=executor, progress=progress,
+                                         coverage=evaluation.coverage)
+            track = track_record(spec, data, evaluation, output_folder=output_folder)
+            folder = publish(spec, data, backtest, evaluation, forecast,
+                             output_folder=Path(output_folder) if output_folder else None,
+                             realised=track.realised, track=track.facts(), pages=pages,
+                             periods=periods.result)
     return RunResult(spec=spec, data=data, backtest=backtest, evaluation=evaluation,
                      forecast_result=forecast, folder=folder, track=track)
 

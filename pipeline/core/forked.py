@@ -5,7 +5,8 @@ process made by ``os.fork`` (which starts at once: it shares the memory and the 
 already imported) and does the rest itself; only the results cross back, pickled through
 a pipe. A run uses it for its windows' feature plans and fits and its report's pictures.
 ``Helper`` is a copy made at the start of a run that imports what the run's last step
-needs (the pages' libraries) while the run works, then does that step when asked.
+needs (the pages' libraries) while the run works, then does that step when asked; ``Ahead``
+a copy that starts a piece of work at once, its result taken when needed.
 
 It falls back to doing everything here, with the same results in the same order,
 wherever forking is unsafe or pays nothing: off Linux, on one core, when the process
@@ -201,6 +202,61 @@ def _shared(function: Callable, items: list, weights: list) -> list:
     for position, result in zip(here + there, done + shared, strict=True):
         results[position] = result
     return results
+
+
+class Ahead:
+    """Work started at once in a forked copy of this process, at a lower priority than the
+    process's own, whose result is taken later: ``Ahead(function, *arguments).result()`` is
+    ``function(*arguments)``. The copy works on the memory as it was when made, so it suits work
+    on values nobody changes meanwhile. Where ``can_fork()`` is false, or the copy fails, the
+    function runs here when its result is asked for; ``close`` (or leaving a ``with`` block)
+    ends a copy whose result was never taken. The result must pickle."""
+
+    def __init__(self, function: Callable, *arguments) -> None:
+        self.function, self.arguments, self.pid = function, arguments, None
+        if not can_fork():
+            return
+        read, write = os.pipe()
+        parent = os.getpid()
+        pid = os.fork()
+        if pid == 0:
+            global _sharing_copy
+            _sharing_copy = True
+            os.close(read)
+            _die_with_parent(parent)
+            os.nice(10)
+            _serve(lambda _: function(*arguments), [None], write)
+        os.close(write)
+        self.pid, self.answers = pid, read
+
+    def result(self):
+        if self.pid is None:
+            return self.function(*self.arguments)
+        try:
+            data = _read_all(self.answers)
+        except OSError:
+            data = b""
+        self._reap()
+        try:
+            return _unpacked(data)[0]
+        except ValueError:   # the copy failed: done here, so an error is raised here
+            return self.function(*self.arguments)
+
+    def _reap(self) -> None:
+        os.close(self.answers)
+        os.waitpid(self.pid, 0)
+        self.pid = None
+
+    def close(self) -> None:
+        if self.pid is not None:
+            os.kill(self.pid, signal.SIGKILL)
+            self._reap()
+
+    def __enter__(self) -> Ahead:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
 
 
 class Helper:

@@ -195,13 +195,15 @@ def _asked(pages: PageRenderer, staging: Path) -> Callable[[], dict[str, str]]:
 def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation: Evaluation,
             forecast: ForecastResult, *, output_folder: Path | None = None,
             realised: pd.DataFrame | None = None, track: dict | None = None,
-            pages: PageRenderer) -> RunFolder:
+            pages: PageRenderer, periods: Callable[[], pd.DataFrame] | None = None) -> RunFolder:
     """Write the run folder atomically, record it in the run ledger, and return where it landed.
 
     ``realised`` is the track record's table (earlier forecasts scored against this data) and
     ``track`` what else the track record found (track_record.json: ledger, earlier runs,
     warnings); ``pages`` renders the pages read by people (summary.md, report.html) from the
     files already written: castline's presentation layer, handed in by the runner.
+    ``periods`` gives the data's month fingerprints when they were made ahead (the runner's
+    forked copy); without it they are made here.
     """
     folder = _output_folder(spec, output_folder)
     now = datetime.now(UTC)
@@ -231,7 +233,8 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         final = folder / run_id
         rows = ledger_write.run_rows(run_id=run_id, created=now, spec=spec, resolved=resolved, data=data,
                                      evaluation=evaluation, forecast=forecast, realised=realised,
-                                     staging=staging, final=final)   # while the pages are drawn
+                                     staging=staging, final=final,   # while the pages are drawn
+                                     periods=periods() if periods is not None else None)
         for name, text in rendered().items():
             write_page(staging, name, text)
         ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id, rows=rows)

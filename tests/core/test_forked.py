@@ -165,3 +165,29 @@ def test_a_helper_asked_but_never_answered_leaves_no_process():
         helper.ask(1)   # the run fails before it wants the answer
     with pytest.raises(ChildProcessError):
         os.waitpid(-1, os.WNOHANG)
+
+
+def test_work_ahead_runs_in_a_copy_that_sees_the_memory_as_it_was():
+    table = {"rows": [1, 2, 3]}
+    with forked.Ahead(_pid_and, table) as ahead:
+        table["rows"].append(4)   # changed here after the copy was made: the copy does not see it
+        pid, value = ahead.result()
+    assert value == {"rows": [1, 2, 3]} and pid != os.getpid()
+    with pytest.raises(ChildProcessError):   # reaped
+        os.waitpid(-1, os.WNOHANG)
+
+
+def test_work_ahead_that_fails_is_done_here_and_its_error_raised_here():
+    with forked.Ahead(_fails_on_three, 3) as ahead, pytest.raises(ValueError, match="three"):
+        ahead.result()
+    with pytest.raises(ChildProcessError):
+        os.waitpid(-1, os.WNOHANG)
+
+
+def test_work_ahead_never_taken_leaves_no_process_and_without_a_copy_runs_here(monkeypatch):
+    with forked.Ahead(_pid_and, 1):
+        pass   # the run fails before it wants the result
+    with pytest.raises(ChildProcessError):
+        os.waitpid(-1, os.WNOHANG)
+    monkeypatch.setenv("CASTLINE_ONE_PROCESS", "1")
+    assert forked.Ahead(_pid_and, 2).result() == (os.getpid(), 2)

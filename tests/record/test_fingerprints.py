@@ -14,6 +14,7 @@ from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.record.ledger.fingerprints import cell_tokens, period_fingerprints
@@ -81,3 +82,29 @@ def test_cells_made_column_by_column_are_the_definitions_cell_by_cell_for_every_
         column = pd.Series(values)
         expected = [_by_definition(value) for value in column.tolist()]
         assert list(cell_tokens(column)) == expected, name
+
+
+@pytest.mark.forks
+def test_a_run_records_the_fingerprints_its_copy_made_ahead(tmp_path):
+    # A whole run as a user runs it (its own process, which makes the fingerprints in a forked
+    # copy while it fits); the reference: period_fingerprints of the same data, checked here.
+    import os
+    import sqlite3
+    import subprocess
+    import sys
+
+    from conftest import ROOT, SHIPPED_DEMO_SPEC
+
+    from pipeline.runner import _read_and_check
+    from pipeline.spec.loader import load_spec
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])))
+    env.pop("CASTLINE_ONE_PROCESS", None)
+    done = subprocess.run([sys.executable, "-m", "pipeline", "run", str(SHIPPED_DEMO_SPEC),
+                           "--output-folder", str(tmp_path)], env=env, capture_output=True, text=True,
+                          timeout=600)
+    assert done.returncode == 0, done.stderr
+    with sqlite3.connect(tmp_path / "ledger.sqlite") as ledger:
+        recorded = pd.read_sql("SELECT period, actual_rows, planned_rows, sha256 FROM periods", ledger)
+    expected = period_fingerprints(_read_and_check(load_spec(SHIPPED_DEMO_SPEC)))
+    assert len(expected) > 90
+    pd.testing.assert_frame_equal(recorded, expected, check_dtype=False)

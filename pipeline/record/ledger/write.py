@@ -39,8 +39,9 @@ def _stated_methods(evaluation, forecast) -> dict[str, str]:
 
 def run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data: CheckedData,
               evaluation, forecast, realised: pd.DataFrame | None, staging: Path,
-              final: Path) -> dict[str, list[dict]]:
-    """Return every row the ledger records for a run, table by table."""
+              final: Path, periods: pd.DataFrame | None = None) -> dict[str, list[dict]]:
+    """Return every row the ledger records for a run, table by table (``periods``: the data's
+    month fingerprints, ``period_fingerprints(data)``, when made already)."""
     methods = _stated_methods(evaluation, forecast)
     forecasts = frame_rows(forecast.forecast, ["model", "period", "series", "horizon", "forecast",
                                                 *INTERVAL_COLUMNS], run_id=run_id)
@@ -79,8 +80,8 @@ def run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data
         "forecasts": forecasts,
         "coefficients": frame_rows(coefficients, ["model", "term", "estimate", "std_error"],
                                     run_id=run_id),
-        "periods": frame_rows(period_fingerprints(data), ["period", "actual_rows", "planned_rows",
-                                                           "sha256"], run_id=run_id),
+        "periods": frame_rows(period_fingerprints(data) if periods is None else periods,
+                              ["period", "actual_rows", "planned_rows", "sha256"], run_id=run_id),
         "realised": scored,
     }
 
