@@ -204,7 +204,49 @@ def _shared(function: Callable, items: list, weights: list) -> list:
     return results
 
 
-class Ahead:
+class _Copy:
+    """What ``Ahead`` and ``Helper`` share: a forked copy's answer read from its pipe (or the
+    work done here when the copy sent nothing whole), and the copy's end."""
+
+    pid: int | None = None
+    answers: int = -1
+
+    def _descriptors(self) -> tuple[int, ...]:
+        return (self.answers,)
+
+    def _reap(self) -> None:
+        for descriptor in self._descriptors():
+            if descriptor >= 0:
+                os.close(descriptor)
+        os.waitpid(self.pid, 0)
+        self.pid = None
+
+    def _taken(self, here: Callable[[], Any]):
+        """Return what the copy sent, the copy reaped; ``here()`` when it sent nothing whole."""
+        try:
+            data = _read_all(self.answers)
+        except OSError:
+            data = b""
+        self._reap()
+        try:
+            return _unpacked(data)
+        except ValueError:   # the copy failed: done here, so an error is raised here
+            return here()
+
+    def close(self) -> None:
+        """End the copy if its answer was never taken (a run that failed early): at once."""
+        if self.pid is not None:
+            os.kill(self.pid, signal.SIGKILL)
+            self._reap()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+class Ahead(_Copy):
     """Work started at once in a forked copy of this process, at a lower priority than the
     process's own, whose result is taken later: ``Ahead(function, *arguments).result()`` is
     ``function(*arguments)``. The copy works on the memory as it was when made, so it suits work
@@ -230,36 +272,11 @@ class Ahead:
         self.pid, self.answers = pid, read
 
     def result(self):
-        if self.pid is None:
-            return self.function(*self.arguments)
-        try:
-            data = _read_all(self.answers)
-        except OSError:
-            data = b""
-        self._reap()
-        try:
-            return _unpacked(data)[0]
-        except ValueError:   # the copy failed: done here, so an error is raised here
-            return self.function(*self.arguments)
-
-    def _reap(self) -> None:
-        os.close(self.answers)
-        os.waitpid(self.pid, 0)
-        self.pid = None
-
-    def close(self) -> None:
-        if self.pid is not None:
-            os.kill(self.pid, signal.SIGKILL)
-            self._reap()
-
-    def __enter__(self) -> Ahead:
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
+        here = functools.partial(self.function, *self.arguments)
+        return here() if self.pid is None else self._taken(lambda: [here()])[0]
 
 
-class Helper:
+class Helper(_Copy):
     """A forked copy of this process that imports a module at once, while this process goes on
     with other work, and later runs one function of it for this process: ``helper(*arguments)``
     returns ``function(*arguments)``. Used once; ``close`` ends it unused.
@@ -329,32 +346,7 @@ class Helper:
         return functools.partial(self._answer, arguments)
 
     def _answer(self, arguments: tuple):
-        try:
-            data = _read_all(self.answers)
-        except OSError:
-            data = b""
-        self._reap()
-        try:
-            return _unpacked(data)
-        except ValueError:
-            return self._here()(*arguments)
+        return self._taken(lambda: self._here()(*arguments))
 
-    def _reap(self) -> None:
-        for descriptor in (self.requests, self.answers):
-            if descriptor >= 0:
-                os.close(descriptor)
-        os.waitpid(self.pid, 0)
-        self.pid = None
-
-    def close(self) -> None:
-        """End the copy if it was never asked (a run that failed early): at once, without
-        waiting for it to finish preparing."""
-        if self.pid is not None:
-            os.kill(self.pid, signal.SIGKILL)
-            self._reap()
-
-    def __enter__(self) -> Helper:
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
+    def _descriptors(self) -> tuple[int, ...]:
+        return (self.requests, self.answers)
