@@ -170,11 +170,9 @@ def map_shared(function: Callable, items: Sequence, weights: Sequence[float] | N
     return first + _shared(function, items, weights)
 
 
-def _shared(function: Callable, items: list, weights: list) -> list:
-    if len(items) < 2 or not can_fork():
-        return [function(item) for item in items]
-    here, there = _halves(weights)
-    mine, theirs = [items[i] for i in here], [items[i] for i in there]
+def _sharing_copy_of(function: Callable, items: list, *, nice: int = 0) -> tuple[int, int]:
+    """Fork a copy that computes ``function`` over ``items`` (``_serve``), shares nothing further
+    and dies with this process; return its pid and the pipe its answer comes through."""
     read, write = os.pipe()
     parent = os.getpid()
     pid = os.fork()
@@ -183,8 +181,19 @@ def _shared(function: Callable, items: list, weights: list) -> list:
         _sharing_copy = True
         os.close(read)
         _die_with_parent(parent)
-        _serve(function, theirs, write)
+        if nice:
+            os.nice(nice)
+        _serve(function, items, write)
     os.close(write)
+    return pid, read
+
+
+def _shared(function: Callable, items: list, weights: list) -> list:
+    if len(items) < 2 or not can_fork():
+        return [function(item) for item in items]
+    here, there = _halves(weights)
+    mine, theirs = [items[i] for i in here], [items[i] for i in there]
+    pid, read = _sharing_copy_of(function, theirs)
     try:
         done = [function(item) for item in mine]
         data = _read_all(read)
@@ -256,20 +265,8 @@ class Ahead(_Copy):
 
     def __init__(self, function: Callable, *arguments) -> None:
         self.function, self.arguments, self.pid = function, arguments, None
-        if not can_fork():
-            return
-        read, write = os.pipe()
-        parent = os.getpid()
-        pid = os.fork()
-        if pid == 0:
-            global _sharing_copy
-            _sharing_copy = True
-            os.close(read)
-            _die_with_parent(parent)
-            os.nice(10)
-            _serve(lambda _: function(*arguments), [None], write)
-        os.close(write)
-        self.pid, self.answers = pid, read
+        if can_fork():
+            self.pid, self.answers = _sharing_copy_of(lambda _: function(*arguments), [None], nice=10)
 
     def result(self):
         here = functools.partial(self.function, *self.arguments)
