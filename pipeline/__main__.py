@@ -3,9 +3,8 @@
 
 import atexit
 import os
+import signal
 import sys
-
-from pipeline.cli import main
 
 
 def entry() -> None:
@@ -17,7 +16,14 @@ def entry() -> None:
     The exit handlers still run (logging, any finaliser a library registered), the two
     streams are flushed, and the process ends with the command's exit code.
     """
-    code = main()
+    try:
+        from pipeline.cli import main
+        code = main()
+    except KeyboardInterrupt:   # outside the command's own handling (its imports, its warnings' end)
+        from pipeline.core.landing import interrupted_message
+        print(f"castline: {interrupted_message()}", file=sys.stderr)
+        code = 130
+    signal.signal(signal.SIGINT, signal.SIG_IGN)   # the command is over: only flushing is left
     atexit._run_exitfuncs()
     for stream in (sys.stdout, sys.stderr):
         try:

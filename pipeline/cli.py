@@ -12,6 +12,7 @@ import sys
 import traceback
 from pathlib import Path
 
+from pipeline.core import landing
 from pipeline.core.catalogue import METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
@@ -40,6 +41,7 @@ def build_parser() -> argparse.ArgumentParser:
                                                 "but the problems file if asked")
     check.add_argument("spec", help="the YAML spec file")
     check.add_argument("--problems", metavar="FILE", help="also write the problems to this CSV file")
+    check.add_argument("--overwrite", action="store_true", help="replace a file already at --problems")
     report = commands.add_parser("report", help="rebuild a run folder's report.html from its files")
     report.add_argument("run_folder", help="a run folder written by castline run")
     forecast = commands.add_parser("forecast", help="forecast new rows with a run's saved model.json, "
@@ -51,6 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
                                             "do: its history and its months to forecast)")
     forecast.add_argument("--model", help="only this model (default: every model in the file)")
     forecast.add_argument("--output", metavar="FILE", help="write the forecasts to this CSV file")
+    forecast.add_argument("--overwrite", action="store_true", help="replace a file already at --output")
     init = commands.add_parser("init", help="write a starter spec from a data file")
     init.add_argument("data_file", help="a CSV, Parquet or Excel file")
     init.add_argument("--spec-file", help="where to write the spec (default: DATA.spec.yaml here); "
@@ -155,7 +158,7 @@ def _command_run(args) -> int:
         print(f"warning: {result.evaluation.interval_warning}")
     for warning in result.forecast_result.warnings:
         print(f"warning: {warning}")
-    for note in result.forecast_result.notes + result.evaluation.ahead_notes + result.evaluation.notes:
+    for note in result.notes:
         print(f"note: {note}")
     track = result.track
     for warning in track.warnings if track else []:
@@ -471,14 +474,10 @@ def _print_comparison(comparison, top: int) -> None:
     _print_table(metrics.to_dict(orient="records"), list(metrics.columns))
 
 
-def _write_problems(path: str, problems) -> None:
-    from pipeline.record.safe_csv import write_csv
+def _write_problems(target: Path, problems) -> None:
+    from pipeline.runner import write_table_file
     from pipeline.stages.check import problems_table
-    target = Path(path)
-    try:
-        write_csv(problems_table(problems), target)
-    except OSError as exc:
-        raise UserError(f"{target}: cannot write the problems file: {exc.strerror}") from None
+    write_table_file(problems_table(problems), target, option="--problems", what="problems file")
     print(f"problems written to {target}")
 
 
@@ -489,15 +488,17 @@ def _print_problems(problems) -> None:
 
 
 def _command_check(args) -> int:
-    from pipeline.runner import check
+    from pipeline.runner import check, output_target, spec_inputs
     from pipeline.stages.check import CheckFailed
+    spec, inputs = spec_inputs(args.spec)
+    problems = output_target("--problems", args.problems, inputs=inputs, overwrite=args.overwrite)
     try:
-        data = check(args.spec)
+        data = check(spec)
     except CheckFailed as failure:
         print(f"{failure.file}: {len(failure.problems)} problem(s); rows count the header as line 1")
         _print_problems(failure.problems)
-        if args.problems:
-            _write_problems(args.problems, failure.problems)
+        if problems:
+            _write_problems(problems, failure.problems)
         print(f"castline: {len(failure.problems)} problem(s) in {failure.file}; nothing was fitted",
               file=sys.stderr)
         return EXIT_USER
@@ -508,28 +509,27 @@ def _command_check(args) -> int:
     if data.problems_allowed:
         print("allowed by the spec:")
         _print_problems(data.problems_allowed)
-    if args.problems:
-        _write_problems(args.problems, data.problems_allowed)
+    if problems:
+        _write_problems(problems, data.problems_allowed)
     return EXIT_OK
 
 
 def _command_forecast(args) -> int:
     from pipeline.record.model_file import load_model
+    from pipeline.runner import output_target, write_table_file
     from pipeline.stages.ingest import read_table
     from pipeline.stages.survey import guess_format
-    stored = load_model(args.model_file)
     data_path = Path(args.data_file)
+    output = output_target("--output", args.output, overwrite=args.overwrite,
+                           inputs={"model file": Path(args.model_file), "data file": data_path})
+    stored = load_model(args.model_file)
     if not data_path.is_file():
         raise UserError(f"{data_path}: no such data file")
     frame = read_table(data_path, guess_format(data_path))
     table = stored.forecast(frame, args.model, file=str(data_path))
-    if args.output:
-        from pipeline.record.safe_csv import write_csv
-        try:
-            write_csv(table, args.output)
-        except OSError as exc:
-            raise UserError(f"{args.output}: cannot write the forecasts: {exc.strerror}") from None
-        print(f"forecasts written to {args.output}")
+    if output:
+        write_table_file(table, output, option="--output", what="forecasts")
+        print(f"forecasts written to {output}")
     else:
         _print_table(table.to_dict(orient="records"), list(table.columns))
     for note in stored.notes(table):   # the intervals: none in an older file; series or months they lack
@@ -584,7 +584,7 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"castline: {line}", file=sys.stderr)
             return EXIT_USER
         except KeyboardInterrupt:
-            print("castline: interrupted; no run folder was written", file=sys.stderr)
+            print(f"castline: {landing.interrupted_message()}", file=sys.stderr)
             return 130
         except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
             sys.stdout = None

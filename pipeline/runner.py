@@ -8,6 +8,7 @@ from functools import partial
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from pipeline.core import landing
 from pipeline.core.errors import DataError, UserError
 from pipeline.core.forked import Ahead, Helper, called, map_shared, settle_again, settled
 from pipeline.core.progress import QUIET, Progress
@@ -83,8 +84,14 @@ class RunResult:
     @property
     def warnings(self) -> list[str]:
         track = self.track.warnings if self.track else []
-        return (self.forecast_result.warnings + self.forecast_result.notes + self.evaluation.ahead_notes
-                + self.evaluation.notes + track)
+        return self.forecast_result.warnings + self.notes + track
+
+    @property
+    def notes(self) -> list[str]:
+        """Return the run's notes: the forecast's, the validation's, the ledger's (earlier
+        unfinished runs left as they were)."""
+        return [*self.forecast_result.notes, *self.evaluation.ahead_notes, *self.evaluation.notes,
+                *self.folder.notes]
 
     @property
     def realised(self) -> pd.DataFrame:
@@ -110,6 +117,32 @@ def check(spec_or_path: Spec | str | Path) -> CheckedData:
         spec, notes = settle_validation(spec, data)
         plan_splits(spec, data)
     return data.with_notes(notes)
+
+
+def output_target(option: str, path: str | None, *, inputs: dict[str, Path | None],
+                  overwrite: bool) -> Path | None:
+    """Return where an option's output file may go (None when the option was not given), or raise
+    UserError naming it: never onto one of the command's ``inputs`` (by name), a ledger, a model
+    file or a run folder's file, nor onto any other file unless ``overwrite``."""
+    if path is None:
+        return None
+    from pipeline.record.new_file import output_file_target
+    return output_file_target(Path(path), option=option, inputs=inputs, overwrite=overwrite)
+
+
+def spec_inputs(spec_path: str | Path) -> tuple[Spec, dict[str, Path | None]]:
+    """Return the spec and what a command on it reads or records into: the spec file, its data
+    file and its ledger (which no output option may be pointed at)."""
+    from pipeline.record.ledger import ledger_path
+    spec = load_spec(spec_path)
+    return spec, {"spec": Path(spec_path), "data file": Path(spec.input.file), "ledger": ledger_path(spec)}
+
+
+def write_table_file(table, target: Path, *, option: str, what: str) -> Path:
+    """Write a table as castline's CSV to ``target`` (checked by ``output_target``) in one step."""
+    from pipeline.record.new_file import replace_file
+    from pipeline.record.safe_csv import write_csv
+    return replace_file(target, lambda path: write_csv(table, path), option=option, what=what)
 
 
 @contextmanager
@@ -142,6 +175,7 @@ def run(spec_or_path: Spec | str | Path, *, output_folder: str | Path | None = N
     the forecast report how far they have got to ``progress`` (by default, nowhere).
     """
     spec = _as_spec(spec_or_path)
+    landing.forget()   # what this run places; an interruption says whether it landed
     import pandas  # noqa: F401 (every process of the run needs it: loaded once, before any fork, and set aside)
     with settled(), _pages_helper() as pages:
         data, (settle_validation, run_backtest, evaluate, make_forecast, executor_for, track_record,

@@ -46,6 +46,7 @@ class RunFolder:
     path: Path
     summary: Path
     report: Path
+    notes: tuple[str, ...] = ()   # on earlier unfinished runs in the ledger left as they were
 
 
 def package_versions() -> dict[str, str]:
@@ -237,9 +238,10 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
                                      periods=periods() if periods is not None else None)
         for name, text in rendered().items():
             write_page(staging, name, text)
-        ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id, rows=rows)
+        notes = ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final,
+                                              run_id=run_id, rows=rows)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
     return RunFolder(run_id=run_id, path=final, summary=final / "summary.md",
-                     report=final / "report.html")
+                     report=final / "report.html", notes=tuple(notes))

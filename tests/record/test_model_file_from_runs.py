@@ -261,7 +261,7 @@ def _command(result, rows: pd.DataFrame, tmp_path: Path, capsys) -> tuple[int, s
     path = tmp_path / "rows.csv"
     rows.to_csv(path, index=False)
     code = cli.main(["forecast", str(result.folder.path / "model.json"), str(path),
-                     "--output", str(tmp_path / "out.csv")])
+                     "--output", str(tmp_path / "out.csv"), "--overwrite"])
     printed = capsys.readouterr()
     return code, printed.out, printed.err, path
 

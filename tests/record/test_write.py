@@ -8,6 +8,7 @@ describe; the ledger is read back with the sqlite3 module. The run is the tiny i
 
 from __future__ import annotations
 
+import json
 import sqlite3
 from contextlib import closing
 from datetime import UTC, datetime
@@ -38,7 +39,7 @@ def made(tmp_path_factory):
 def staged(folder, run_id):
     staging = folder / f".incomplete-{run_id}"
     staging.mkdir(parents=True)
-    (staging / "metrics.json").write_text("{}", encoding="utf-8")
+    (staging / "metrics.json").write_text(json.dumps({"run_id": run_id}), encoding="utf-8")
     return staging, folder / run_id
 
 

@@ -69,6 +69,11 @@ elif point == "inserting":   # the run's rows inserted, the transaction not comm
     ledger._insert_run = then_pause(ledger._insert_run)
 elif point == "recorded":    # the transaction committed, the folder not yet renamed
     ledger._place = pause_first(ledger._place)
+elif point == "renamed":     # the folder renamed into place, the row not yet marked placed
+    ledger._place = then_pause(ledger._place)
+elif point == "printing":    # the run landed, its results being printed
+    import pipeline.cli as command_line
+    command_line._print_table = pause_first(command_line._print_table)
 else:
     raise SystemExit(f"unknown point {point}")
 sys.exit(main(["run", spec]))
@@ -269,6 +274,57 @@ def test_a_run_killed_after_its_commit_is_finished_by_the_next_run(killed, capsy
     shown = history(capsys, str(spec))["metrics"]
     # one row per model of each run, the runs in order
     assert list(dict.fromkeys(row["run_id"] for row in shown)) == [earlier.name, interrupted, later.name]
+
+
+@pytest.mark.parametrize("point, landed", [("recorded", False), ("renamed", True), ("printing", True)])
+def test_ctrl_c_says_truthfully_whether_the_run_folder_was_written(tmp_path, point, landed):
+    """Ctrl-C (SIGINT) before the rename, just after it, and while the results are printed: one
+    stderr line that says whether the run folder was written, exit code 130, and what it says
+    is what the output folder and the ledger hold."""
+    spec = write_spec(tmp_path)
+    child = start_child(point, spec, tmp_path / "reached", 120)
+    wait_for(tmp_path / "reached", child)
+    child.send_signal(signal.SIGINT)
+    out, err = child.communicate(timeout=CHILD_LIMIT)
+    assert child.returncode == 130, err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("castline: interrupted"), err
+    runs = tmp_path / "runs"
+    folders = visible(runs)
+    recorded = rows_by_table(runs / ledger.LEDGER_FILE)["runs"]
+    if landed:
+        assert len(folders) == 1 and str(runs / folders[0]) in lines[0] and "written" in lines[0]
+        assert recorded == set(folders)
+        assert_recorded_as_written(runs / ledger.LEDGER_FILE, runs / folders[0])
+    else:
+        assert "no run folder was written" in lines[0]
+        assert folders == [] and recorded == set()
+    assert not list(runs.glob(".incomplete-*"))
+
+
+def test_hidden_folders_of_killed_runs_are_removed_after_a_day(tmp_path, capsys):
+    """Runs killed before their commit leave hidden folders; the next run removes those untouched
+    for over a day that no ledger row is placing, says so, and keeps younger ones (a run may be
+    writing them) and the one a row is placing."""
+    spec = write_spec(tmp_path)
+    runs = tmp_path / "runs"
+    day_old = time.time() - 2 * 24 * 3600
+    old = [runs / ".incomplete-run-old1", runs / ".incomplete-run-old2", runs / ".discarded-run-old3"]
+    young = runs / ".incomplete-run-young"
+    for folder in [*old, young]:
+        folder.mkdir(parents=True)
+        (folder / "metrics.json").write_text("{}", encoding="utf-8")
+    for folder in old:
+        os.utime(folder, (day_old, day_old))
+    victim = tmp_path / ".incomplete-run-outside"   # outside the output folder: never touched
+    victim.mkdir()
+    os.utime(victim, (day_old, day_old))
+    assert cli.main(["run", str(spec)]) == 0
+    out = capsys.readouterr().out
+    assert not any(folder.exists() for folder in old)
+    assert young.is_dir() and victim.is_dir()
+    (note,) = [line for line in out.splitlines() if "hidden folder" in line]
+    assert note.startswith("note: removed 3 hidden folder(s)") and "run-old1" in note
 
 
 # ---------------------------------------------------------------- an older schema
