@@ -35,8 +35,9 @@ commit. A ledger row counts (in history, compare and the track record) once it i
 ``placed`` or its run folder exists, so a row is never visible without its folder either.
 A run stopped before step 2 leaves no row (SQLite discards the open transaction) and no
 visible folder. A run stopped between steps 2 and 3 left a complete folder and a committed
-row: the next run that records into the ledger finishes it (renames the folder into place),
-so the run appears whole, later. If the rename itself fails, the row is deleted again.
+row: the next run into the same output folder finishes it (renames the folder into place),
+so the run appears whole, later. The paths in a row are not trusted: only that output
+folder's own hidden folder is ever moved, and only beside itself (``write._refusal``). If the rename itself fails, the row is deleted again.
 
 Modules: ``store`` (opening the file, values in and out), ``migrations`` (the schema),
 ``write`` (recording a run), ``read`` (the runs that count). What is read back for the
