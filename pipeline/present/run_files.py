@@ -16,7 +16,9 @@ from pipeline.core.errors import UserError
 
 REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
             "coefficients.csv", "history.csv"]
-# Columns that hold names (of series, months, origins, models, scenarios), read as text.
+# Columns that hold names (of series, months, origins, models, scenarios), read as text. A name
+# that would start a spreadsheet formula keeps the single quote the run's writer put in front
+# (record.safe_csv): it reads back as the CSV shows it, the same in every table.
 NAME_COLUMNS = ("series", "period", "origin", "model", "scenario")
 NAMED_TABLES = ("predictions.csv", "forecast.csv", "history.csv", "scenarios.csv", "residuals.csv",
                 "series.csv", "realised.csv")

@@ -3,13 +3,15 @@ and input files beyond the size and row limits set in the spec, through the comm
 (the function that neutralises a cell is tested in tests/record/test_safe_csv.py).
 
 Plumbing tests on small invented tables; no figure here is a reference value. The
-characters that start a spreadsheet formula (=, +, -, @) and the remedy (a single quote
-in front of the cell) are those of the OWASP "CSV Injection" page.
+characters that start a spreadsheet formula (=, +, -, @, tab, carriage return) and the remedy
+(a single quote in front of the cell) are those of the OWASP "CSV Injection" page; every CSV a
+command writes is read back with the standard library's csv.reader, the reference reader.
 """
 
 from __future__ import annotations
 
 import csv
+import io
 import math
 from pathlib import Path
 
@@ -174,3 +176,114 @@ def test_the_row_limit_applies_to_parquet_too(tmp_path, capsys):
     assert cli.main(["check", str(spec)]) == 2
     assert "input.max_rows: 3" in capsys.readouterr().err
     assert math.isfinite(float(len(frame)))
+
+
+# ------------------------------------------------------------ hostile text, every CSV read back
+
+# Series names and categorical levels that break a careless CSV writer or start a formula:
+# line breaks of every kind, quotes, the delimiter, formula starts (OWASP "CSV Injection": = + -
+# @ tab, carriage return; also after leading spaces), unicode line separators, NUL and very long text.
+HOSTILE_NAMES = ["North\rEast", "two\nlines", "crlf\r\nname", 'say "hi", twice', "a,b", "  =1+1", "\t=tab",
+                 "\rCR start", "@SUM(A1)", "+plus", "-minus", "u\u2028v\u2029w", "n\x00m", "=" + "A" * 10_000]
+HOSTILE_LEVELS = ["=shop", "web\r\n", "\t@mail"]
+FORMULA_START = r"[\t\r]|\s*[=+\-@]"     # what the cells may not start with, unless a number
+
+
+def _hostile_frame(nul: bool) -> pd.DataFrame:
+    """Eight months of each hostile series, the last to forecast; sales a made-up trend."""
+    names = HOSTILE_NAMES if nul else [n for n in HOSTILE_NAMES if "\x00" not in n]
+    return pd.DataFrame([{"month": f"2020-{m + 1:02d}-01", "region": name,
+                          "sales": float(100 + 10 * s + 3 * m + m % 3) if m < 7 else None,
+                          "price": 4.0 + 0.1 * m + 0.01 * s, "channel": HOSTILE_LEVELS[(m + s) % 3]}
+                         for s, name in enumerate(names) for m in range(8)])
+
+
+def _hostile_spec(tmp_path: Path, file: str) -> Path:
+    spec = {"name": "hostile", "input": {"file": file, "date_column": "month", "series": ["region"]},
+            "target": "sales", "drivers": {"numeric": ["price"], "categorical": ["channel"]},
+            "validation": {"method": "holdout", "last_periods": 2}, "models": ["ols"], "output": {"folder": "out"}}
+    path = tmp_path / f"{Path(file).stem}.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    return path
+
+
+def _read_back(source) -> list[list[str]]:
+    # Reference reader: the standard library's csv.reader, over a file opened with newline="" as
+    # its documentation asks.
+    if isinstance(source, Path):
+        with source.open(encoding="utf-8", newline="") as handle:
+            return list(csv.reader(handle))
+    return list(csv.reader(io.StringIO(source, newline="")))
+
+
+def _assert_reads_back(source, rows: int) -> list[list[str]]:
+    """The CSV reads back as the header and ``rows`` rows of as many cells, none a formula."""
+    import re
+    table = _read_back(source)
+    assert len(table) == rows + 1, source
+    assert {len(row) for row in table} == {len(table[0])}, source
+    for row in table:
+        for cell in row:
+            if re.match(FORMULA_START, cell):
+                float(cell)      # only a number castline wrote may start so
+    return table
+
+
+def test_hostile_text_in_every_csv_castline_writes_reads_back_row_for_row(tmp_path, capsys, monkeypatch):
+    from conftest import run_cli
+
+    from pipeline.record import run_folder, safe_csv
+    written: dict[str, int] = {}
+    real = safe_csv.write_csv
+
+    def counting(frame, target, **options):
+        # A run's tables are written in its staging folder, renamed when complete.
+        key = str(target).replace("/.incomplete-", "/") if isinstance(target, (str, Path)) else "stdout"
+        written[key] = len(frame)
+        real(frame, target, **options)
+    monkeypatch.setattr(safe_csv, "write_csv", counting)
+    monkeypatch.setattr(run_folder, "write_csv", counting)
+
+    _hostile_frame(nul=True).to_parquet(tmp_path / "hostile.parquet")   # NUL: parquet only (a NUL makes CSV binary)
+    spec = _hostile_spec(tmp_path, "hostile.parquet")
+    assert run_cli(["run", str(spec)])[0] == 0
+    assert run_cli(["run", str(spec)])[0] == 0
+    first, second = sorted(p for p in (tmp_path / "out").iterdir() if p.is_dir())
+    for folder in (first, second):
+        tables = sorted(folder.glob("*.csv"))
+        assert {"forecast.csv", "history.csv", "predictions.csv", "coefficients.csv"} <= {p.name for p in tables}
+        for path in tables:
+            assert str(path) in written, f"{path.name} was not written by safe_csv.write_csv"
+            _assert_reads_back(path, written[str(path)])
+        series = {row[2] for row in _read_back(folder / "forecast.csv")[1:]}
+        assert series == {safe_csv.neutralise(name) for name in HOSTILE_NAMES}   # every name whole
+        levels = " ".join(row[1] for row in _read_back(folder / "coefficients.csv")[1:])
+        assert "web\r\n" in levels
+        code, _, err = run_cli(["report", str(folder)])
+        assert code == 0, err
+
+    out = tmp_path / "forecasts.csv"
+    assert run_cli(["forecast", str(second / "model.json"), str(tmp_path / "hostile.parquet"),
+                    "--output", str(out)])[0] == 0
+    assert {row[2] for row in _assert_reads_back(out, written[str(out)])[1:]} \
+        == {safe_csv.neutralise(name) for name in HOSTILE_NAMES}
+
+    revisions = tmp_path / "revisions.csv"
+    assert run_cli(["compare", str(first), str(second), "--revisions", str(revisions)])[0] == 0
+    _assert_reads_back(revisions, written[str(revisions)])
+    for show in ("metrics", "realised"):
+        code, text, err = run_cli(["history", str(spec), "--format", "csv", "--show", show])
+        assert code == 0, err
+        _assert_reads_back(text, written.pop("stdout"))
+
+    # The check's problems file, from a CSV input (written as the standard writer quotes it).
+    frame = _hostile_frame(nul=False)
+    frame["sales"] = frame["sales"].astype(object)
+    frame.loc[0, "sales"], frame.loc[1, "sales"] = "\r=1+2", "-@x"
+    frame.loc[frame["month"] == "2020-08-01", "price"] = None
+    frame.to_csv(tmp_path / "hostile.csv", index=False, lineterminator="\r\n")
+    problems = tmp_path / "problems.csv"
+    code, _, err = run_cli(["check", str(_hostile_spec(tmp_path, "hostile.csv")), "--problems", str(problems)])
+    assert code == 2 and err.startswith("castline: ") and err.count("\n") == 1
+    table = _assert_reads_back(problems, written[str(problems)])
+    assert len(table) > 2 and any("\\r=1+2" in cell for row in table for cell in row)
