@@ -10,16 +10,18 @@ command's own output (after the ``castline:`` line of an error, never before it)
 from __future__ import annotations
 
 import warnings
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import TextIO
 
 
 @contextmanager
-def caught_warnings(*, shown: bool = False, stream: TextIO | None = None) -> Iterator[list]:
-    """Collect the warnings raised inside instead of printing them; when ``shown``, print
-    each distinct one to ``stream`` on leaving (after whatever the block printed).
+def caught_warnings(*, shown: bool | Callable[[], bool] = False,
+                    stream: TextIO | None = None) -> Iterator[list]:
+    """Collect the warnings raised inside instead of printing them; when ``shown`` (or what it
+    returns, asked on leaving), print each distinct one to ``stream`` on leaving (after
+    whatever the block printed).
 
     The filters in force stay in force (a warning turned into an error, by ``-W error`` or
     a test's settings, is still raised); only what would have been printed is collected.
@@ -28,7 +30,7 @@ def caught_warnings(*, shown: bool = False, stream: TextIO | None = None) -> Ite
         try:
             yield caught
         finally:
-            if shown and stream is not None:
+            if (shown() if callable(shown) else shown) and stream is not None:
                 for line in warning_lines(caught):
                     print(line, file=stream)
 
