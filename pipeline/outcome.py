@@ -89,7 +89,7 @@ def check_paths(args) -> None:
     the path for a NUL byte, an unknown ``~user``, a name too long, a loop of symbolic links."""
     for name in PATH_ARGUMENTS:
         value = getattr(args, name, None)
-        if isinstance(value, str):
+        if isinstance(value, str) and value:   # an empty one: the command says what it lacks
             setattr(args, name, str(given_path(value)))
 
 
