@@ -6,6 +6,7 @@ import os
 import sys
 
 from pipeline.cli import main
+from pipeline.core.library_warnings import caught_warnings
 
 
 def entry() -> None:
@@ -19,7 +20,8 @@ def entry() -> None:
     """
     _hold_closed_streams()
     code = main()
-    atexit._run_exitfuncs()
+    with caught_warnings():   # a library's words at exit come after the command's last line: none
+        atexit._run_exitfuncs()
     for stream in (sys.stdout, sys.stderr):
         try:
             if stream is not None:

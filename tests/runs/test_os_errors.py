@@ -256,3 +256,14 @@ def test_a_landed_run_whose_summary_cannot_be_printed_exits_0_in_this_process(ti
     assert code == 0 and len(landed) == 1, err
     assert err.splitlines() == [f"castline: the run folder {tiny / 'runs' / landed.pop()} was written, "
                                 "but its summary could not be printed: standard output: No space left on device"]
+
+
+def test_a_closed_standard_output_is_held_so_no_file_takes_its_number(tmp_path):
+    # With descriptor 1 closed, the next file opened would be given it, and anything written
+    # to "standard output" would land in that file.
+    program = ("import sys; from pipeline.__main__ import _hold_closed_streams; _hold_closed_streams(); "
+               "handle = open('opened.txt', 'w'); sys.stderr.write(str(handle.fileno()))")
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    done = subprocess.run(["sh", "-c", 'exec "$@" >&-', "sh", sys.executable, "-c", program], cwd=tmp_path,
+                          env=env, stderr=subprocess.PIPE, text=True, check=False)
+    assert done.returncode == 0 and int(done.stderr) > 2, done.stderr
