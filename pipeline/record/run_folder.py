@@ -22,7 +22,7 @@ import yaml
 
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.errors import UserError
-from pipeline.core.paths import USER_ERRNOS, os_problem
+from pipeline.core.paths import USER_ERRNOS, PathError, os_problem
 from pipeline.core.version import __version__
 from pipeline.features.future import drivers_ahead
 from pipeline.record import ledger
@@ -241,8 +241,11 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
         ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final, run_id=run_id, rows=rows)
     except BaseException as exc:
         shutil.rmtree(staging, ignore_errors=True)
+        doing = "cannot write the run folder; nothing was recorded"
         if isinstance(exc, OSError) and exc.errno in USER_ERRNOS:   # a full disk, a read-only folder
-            raise os_problem(exc, folder, "cannot write the run folder; nothing was recorded") from None
+            raise os_problem(exc, folder, doing) from None
+        if isinstance(exc, PathError) and exc.path.startswith(str(staging)):   # a page, in the hidden folder
+            raise PathError(folder, exc.why, doing) from None
         raise
     return RunFolder(run_id=run_id, path=final, summary=final / "summary.md",
                      report=final / "report.html")

@@ -174,6 +174,22 @@ def test_a_full_disk_while_the_run_folder_is_written_leaves_no_folder_and_no_led
         assert conn.execute("SELECT count(*) FROM runs").fetchone()[0] == before
 
 
+def test_a_full_disk_while_a_page_is_written_names_the_output_folder(tiny, monkeypatch):
+    monkeypatch.chdir(tiny)
+    before = sorted(p.name for p in (tiny / "runs").iterdir())
+    real = Path.write_text
+
+    def full(self, *args, **kwargs):
+        if self.name == ".report.html.partial":
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(self))
+        return real(self, *args, **kwargs)
+    monkeypatch.setattr(Path, "write_text", full)
+    line = one_line(run_cli(["run", "spec.yaml"]))
+    assert line == f"castline: {tiny / 'runs'}: cannot write the run folder; nothing was recorded: " \
+                   "No space left on device"
+    assert sorted(p.name for p in (tiny / "runs").iterdir()) == before
+
+
 def test_report_on_a_read_only_run_folder(tiny, monkeypatch):
     folder = _only_run(tiny)
     before = (folder / "report.html").read_bytes()
