@@ -9,14 +9,11 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-import traceback
 from pathlib import Path
 
-from pipeline.core import landing
 from pipeline.core.catalogue import METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
-from pipeline.core.library_warnings import caught_warnings
 from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
@@ -135,9 +132,16 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
 
 def _command_run(args) -> int:
     from pipeline.core.progress import showing
+    from pipeline.outcome import landed
     from pipeline.runner import run
     with showing(sys.stderr) as bar:   # a bar only when standard error is a terminal
         result = run(args.spec, output_folder=args.output_folder, progress=bar)
+    with landed(result.folder.path):   # the run is recorded: printing it can no longer fail it
+        _print_run(result)
+    return EXIT_OK
+
+
+def _print_run(result) -> None:
     table = result.metrics
     _print_table(table.to_dict(orient="records"),
                  ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"])
@@ -168,7 +172,6 @@ def _command_run(args) -> int:
     print(f"summary:    {result.folder.summary}")
     if track:
         print(f"ledger:     {track.ledger}")
-    return EXIT_OK
 
 
 def _ledger_to_read(args) -> tuple[Path, str | None]:
@@ -571,29 +574,12 @@ def _command_init(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the castline command line and return its exit code."""
-    args = build_parser().parse_args(argv)
+    """Run the castline command line and return its exit code (how it ends: pipeline.outcome)."""
+    from pipeline.outcome import outcome
     handlers = {"run": _command_run, "check": _command_check, "init": _command_init,
                 "report": _command_report, "forecast": _command_forecast,
                 "history": _command_history, "compare": _command_compare}
-    with caught_warnings(shown=args.verbose, stream=sys.stderr):   # the libraries': after the output
-        try:
-            return handlers[args.command](args)
-        except UserError as mistake:   # one line per problem (a spec may have several)
-            for line in mistake.lines():
-                print(f"castline: {line}", file=sys.stderr)
-            return EXIT_USER
-        except KeyboardInterrupt:
-            print(f"castline: {landing.interrupted_message()}", file=sys.stderr)
-            return 130
-        except BrokenPipeError:   # the output was piped into a reader that stopped (| head)
-            sys.stdout = None
-            return EXIT_OK
-        except Exception:  # an internal error: keep the traceback for the bug report
-            traceback.print_exc()
-            print("castline: internal error (a bug in castline, not in your spec or data)",
-                  file=sys.stderr)
-            return EXIT_INTERNAL
+    return outcome(build_parser().parse_args, handlers, argv)
 
 
 if __name__ == "__main__":

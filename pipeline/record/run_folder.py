@@ -22,6 +22,7 @@ import yaml
 
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.errors import UserError
+from pipeline.core.paths import USER_ERRNOS, PathError, os_problem
 from pipeline.core.version import __version__
 from pipeline.features.future import drivers_ahead
 from pipeline.record import ledger
@@ -115,7 +116,7 @@ def write_page(folder: Path, name: str, text: str) -> Path:
     except BaseException as exc:
         partial.unlink(missing_ok=True)   # the page as it was stays; no stray file beside it
         if isinstance(exc, OSError):      # a folder in the way, no permission, a full disk
-            raise UserError(f"{target}: cannot write the page: {exc.strerror or exc}") from None
+            raise os_problem(exc, target, "cannot write the page") from None
         raise
     return target
 
@@ -128,7 +129,7 @@ def _output_folder(spec: Spec, output_folder: Path | None) -> Path:
     except FileExistsError:
         raise UserError(f"{folder}: the output folder exists and is not a folder") from None
     except OSError as exc:
-        raise UserError(f"{folder}: cannot create the output folder: {exc.strerror}") from None
+        raise os_problem(exc, folder, "cannot create the output folder") from None
     return folder
 
 
@@ -240,8 +241,13 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
             write_page(staging, name, text)
         notes = ledger_write.record_and_place(ledger.ledger_path(spec, folder), staging, final,
                                               run_id=run_id, rows=rows)
-    except BaseException:
+    except BaseException as exc:
         shutil.rmtree(staging, ignore_errors=True)
+        doing = "cannot write the run folder; nothing was recorded"
+        if isinstance(exc, OSError) and exc.errno in USER_ERRNOS:   # a full disk, a read-only folder
+            raise os_problem(exc, folder, doing) from None
+        if isinstance(exc, PathError) and exc.path.startswith(str(staging)):   # a page, in the hidden folder
+            raise PathError(folder, exc.why, doing) from None
         raise
     return RunFolder(run_id=run_id, path=final, summary=final / "summary.md",
                      report=final / "report.html", notes=tuple(notes))

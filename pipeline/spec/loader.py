@@ -18,6 +18,7 @@ import yaml
 from pydantic import BaseModel, ValidationError
 
 from pipeline.core.errors import SpecError
+from pipeline.core.paths import PathError, given_path, resolved_path
 from pipeline.spec.keys import DuplicateKey, KeyPath, SpecOrigin, format_key_path, line_for, line_map
 from pipeline.spec.rules import check_rules
 from pipeline.spec.schema import CategoricalDriver, Spec
@@ -162,8 +163,7 @@ def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
 
 
 def _resolve(raw: Path, base: Path) -> Path:
-    expanded = raw.expanduser()
-    return (expanded if expanded.is_absolute() else base / expanded).resolve()
+    return resolved_path(raw, base)
 
 
 def _schema_problems(exc: ValidationError, lines: dict[KeyPath, int], shown: str) -> list[SpecError]:
@@ -198,6 +198,15 @@ def _schema_problems(exc: ValidationError, lines: dict[KeyPath, int], shown: str
 def _path_problems(spec: Spec, base: Path) -> list[SpecError]:
     """Return the problems of the data file, the output folder and the ledger named in the spec."""
     problems = []
+    for key, raw in ((("input", "file"), spec.input.file), (("output", "folder"), spec.output.folder),
+                     (("output", "ledger"), spec.output.ledger)):
+        try:
+            if raw is not None:
+                _resolve(raw, base)
+        except PathError as refused:   # the system cannot name it (NUL, ~nobody, too long, a loop)
+            problems.append(spec.error(key, f"{refused.why}: {refused.path}"))
+    if problems:
+        return problems
     data_file = _resolve(spec.input.file, base)
     if not data_file.exists():
         problems.append(spec.error(("input", "file"), f"no such data file: {data_file}"))
@@ -219,7 +228,7 @@ def load_spec(path: str | Path) -> Spec:
     has several, a SpecErrors holding each, in the order of their lines (its
     message is the first).
     """
-    spec_path = Path(path)
+    spec_path = given_path(path)
     data, lines = _read_yaml(spec_path)
     try:
         spec = Spec.model_validate(data)
