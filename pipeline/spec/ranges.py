@@ -44,11 +44,11 @@ def check_ranges(spec: Spec, fail: Fail) -> list[SpecError]:
 
 def _text_for_numbers(spec: Spec, fail: Fail) -> list[SpecError]:
     """Refuse a scenario that sets a numeric driver to text ('inf', or 1e5, which YAML reads as
-    text without a dot): the months to forecast hold numbers."""
+    text without a dot and a signed exponent): the months to forecast hold numbers."""
     numeric = {driver.column for driver in spec.drivers.numeric}
     return [fail(("scenarios", index, "changes", number, "set"),
                  f"'{change.column}' is a numeric driver: set it to a number, not the text "
-                 f"{change.set!r} (write 1e5 as 1.0e5)")
+                 f"{change.set!r} (YAML reads 1e5 as text: write 100000 or 1.0e+5)")
             for index, scenario in enumerate(spec.scenarios)
             for number, change in enumerate(scenario.changes)
             if change.column in numeric and isinstance(change.set, str)]
