@@ -12,7 +12,8 @@ twice. Instead the YAML events are walked once, before any node is composed,
 counting the values each anchor stands for, so the walk stops as soon as the
 file is too large, too deep, or stands for too many values, however its
 aliases multiply. The walk keeps only a count per anchor and the open
-collections, never a tree, and it never recurses. It also refuses, at their
+collections, never a tree, and it never recurses; an alias inside its own anchor
+(a list that holds itself) is refused. It also refuses, at their
 line, the plain scalars the YAML reader would turn into a number too long to be
 a spec's value or into a date that is not on the calendar (2025-02-30).
 """
@@ -112,6 +113,10 @@ class _Walk:
                 _check_scalar(event, self.shown, line, path)
             if event.anchor is not None:
                 self.anchors[event.anchor] = (1, 0)
+        elif any(open_.anchor == event.anchor for open_ in self.open):
+            raise SpecError(f"the alias *{event.anchor} is inside its own anchor &{event.anchor}: "
+                            "it stands for a value without end", file=self.shown, line=line,
+                            key=format_key_path(path) or None)
         elif event.anchor in self.anchors:   # an alias
             repeated, levels = self.anchors[event.anchor]
             self.values += repeated

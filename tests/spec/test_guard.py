@@ -69,6 +69,14 @@ def test_merge_keys_count_what_they_merge():
     assert error.line == 5 and error.key.startswith("b4.<<[")
 
 
+@pytest.mark.parametrize("text, key", [("a: &a [1, *a]\n", "a[1]"), ("a: &a {k: {j: *a}}\n", "a.k.j"),
+                                       ("a: &a {<<: *a}\n", "a.<<")])
+def test_an_alias_inside_its_own_anchor_is_refused(text, key):
+    # Composed, such a value holds itself: every walk over it (the line map) would never end.
+    error = refused("x: 1\n" + text)
+    assert error.line == 2 and error.key == key and "inside its own anchor" in error.message
+
+
 @pytest.mark.parametrize("opening, closing", [("[", "]"), ("{a: ", "}")])
 def test_flow_nesting_at_the_limit_passes_and_one_deeper_is_refused(opening, closing):
     def nested(levels: int) -> str:   # the top mapping is the first level
