@@ -13,6 +13,7 @@ with: one printable separator each, and an encoding that reads text.
 from __future__ import annotations
 
 import codecs
+import math
 from collections.abc import Callable
 
 from pipeline.core.errors import SpecError
@@ -62,6 +63,11 @@ def _most(key: KeyPath, value: float | int | None, most: float, fail: Fail) -> S
 
 
 def _shown(number: float | int) -> str:
+    if isinstance(number, int) and abs(number) >= 10**15:   # written as quoted text, of many digits
+        try:
+            return f"a number of {len(str(abs(number))):,} digits"
+        except ValueError:   # past the interpreter's limit on digits turned into text
+            return f"a number of about {round(math.log10(abs(number))):,} digits"
     return f"{number:,}" if isinstance(number, int) else f"{number:g}"
 
 
