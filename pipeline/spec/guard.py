@@ -101,7 +101,7 @@ class _Walk:
         if not isinstance(event, yaml.NodeEvent):
             return
         line = event.start_mark.line + 1
-        path, is_key = self._place(event)
+        path, _ = self._place(event)
         if isinstance(event, yaml.CollectionStartEvent):
             self.open.append(_Open(self.values, path, event.anchor,
                                    isinstance(event, yaml.MappingStartEvent)))
@@ -109,8 +109,7 @@ class _Walk:
             self._levels(len(self.open), line, path)
         elif isinstance(event, yaml.ScalarEvent):
             self.values += 1
-            if not is_key:
-                _check_scalar(event, self.shown, line, path)
+            _check_scalar(event, self.shown, line, path)   # a key is built too: 2025-02-30: x
             if event.anchor is not None:
                 self.anchors[event.anchor] = (1, 0)
         elif any(open_.anchor == event.anchor for open_ in self.open):

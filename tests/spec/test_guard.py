@@ -135,6 +135,12 @@ def test_a_date_off_the_calendar_is_refused_at_its_key(written):
     assert error.line == 3 and error.key == "calendar.closures[1]" and "not a date" in error.message
 
 
+def test_a_key_is_judged_like_a_value():
+    # The YAML reader builds keys as it builds values: a date key off the calendar would crash it.
+    error = refused("x: 1\nclosures:\n  2025-02-30: closed\n")
+    assert error.line == 3 and error.key == "closures" and "not a date" in error.message
+
+
 def test_the_walk_leaves_malformed_yaml_to_the_reader(tmp_path):
     check_shape("a: [1, 2\n", Path("spec.yaml"))   # no error of its own
     with pytest.raises(SpecError, match="a bracket or brace is not closed"):
