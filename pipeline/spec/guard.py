@@ -10,12 +10,17 @@ every key, the typed spec) exhausts memory or the interpreter's stack.
 Aliases are not refused: an anchor is a fair way to write one list of levels
 twice. Instead the YAML events are walked once, before any node is composed,
 counting the values each anchor stands for, so the walk stops as soon as the
-file is too large, too deep, or stands for too many values, however its
-aliases multiply. The walk keeps only a count per anchor and the open
-collections, never a tree, and it never recurses; an alias inside its own anchor
-(a list that holds itself) is refused. It also refuses, at their
-line, the plain scalars the YAML reader would turn into a number too long to be
-a spec's value or into a date that is not on the calendar (2025-02-30).
+text is too deep or stands for too many values, however its aliases multiply.
+The walk keeps only a count per anchor and the open collections, never a tree,
+and it never recurses; an alias inside its own anchor (a list that holds
+itself) is refused. Stopping early matters for depth too: the YAML scanner's
+work grows with the square of the open brackets (a flow list 100,000 levels
+deep takes minutes to scan whole), so the walk ends at the first level past
+the limit. The file is read up to 1 MB and one byte, never more, whatever it
+is. The walk also refuses, at their line, the plain scalars (keys too) the YAML
+reader would turn into a number too long to be a spec's value (Python refuses
+to read an integer of over 4300 digits) or into a date that is not on the
+calendar (2025-02-30), either of which would stop the reader with a crash.
 """
 
 from __future__ import annotations
@@ -31,7 +36,7 @@ from pipeline.spec.keys import KeyPath, format_key_path
 MOST_BYTES = 1_000_000      # a hand-written spec is a few kilobytes
 MOST_DEPTH = 32             # the spec's own keys nest seven levels at most
 MOST_VALUES = 100_000       # values, each alias counted as the values it repeats
-MOST_DIGITS = 40            # digits in a number written in the spec
+MOST_DIGITS = 40            # characters of a number written in the spec
 
 _INT = "tag:yaml.org,2002:int"
 _FLOAT = "tag:yaml.org,2002:float"

@@ -145,3 +145,9 @@ def test_the_walk_leaves_malformed_yaml_to_the_reader(tmp_path):
     check_shape("a: [1, 2\n", Path("spec.yaml"))   # no error of its own
     with pytest.raises(SpecError, match="a bracket or brace is not closed"):
         load_spec(write(tmp_path, spec_text(tmp_path, numeric="[x1, x2")))
+
+
+@pytest.mark.skipif(not Path("/dev/zero").exists(), reason="a device without end is needed")
+def test_a_file_without_end_is_read_only_up_to_the_limit():
+    with pytest.raises(SpecError, match="more than 1,000,000 bytes"):
+        load_spec("/dev/zero")
