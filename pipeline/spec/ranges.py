@@ -30,6 +30,7 @@ MOST_VALUE = 1e150            # the data check refuses values beyond this (stage
 MOST_PENALTY = 1e12           # a penalty past which every coefficient is already zero
 MOST_SCALE_UNITS = 1e6        # huber_threshold: past it every residual counts as squared
 MOST_PERCENT = 1e6            # a scenario's percent change
+MOST_CHANGE = 1e15            # a scenario's set or add: forecasts past 1e28 cannot be shown in full
 MOST_FOLDS = 1000
 MOST_SEED = 2**32 - 1         # the random generator's seed is a 32-bit unsigned number
 MOST_RUNS = 10_000            # output.warn_after_runs_without_skill
@@ -102,7 +103,7 @@ def _bounded(spec: Spec) -> list[tuple[KeyPath, float | int | None, float]]:
     for index, scenario in enumerate(spec.scenarios):
         for number, change in enumerate(scenario.changes):
             key = ("scenarios", index, "changes", number)
-            found += [(key + ("set",), change.set, MOST_VALUE), (key + ("add",), change.add, MOST_VALUE),
+            found += [(key + ("set",), change.set, MOST_CHANGE), (key + ("add",), change.add, MOST_CHANGE),
                       (key + ("percent",), change.percent, MOST_PERCENT)]
     return found + _validation_bounds(spec)
 

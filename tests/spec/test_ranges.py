@@ -16,6 +16,7 @@ from conftest import TEST_DATA, run_cli
 
 from pipeline import SpecError, load_spec
 from pipeline.spec.ranges import (
+    MOST_CHANGE,
     MOST_FOLDS,
     MOST_MEGABYTES,
     MOST_MONTHS,
@@ -54,8 +55,8 @@ BOUNDED = [
     (("drivers", "categorical", 0, "group_below"), "drivers.categorical[0].group_below", MOST_ROWS),
     (("models", 0, "penalties", 0), "models[0].penalties[0]", MOST_PENALTY),
     (("models", 0, "huber_threshold"), "models[0].huber_threshold", MOST_SCALE_UNITS),
-    (("scenarios", 0, "changes", 0, "set"), "scenarios[0].changes[0].set", MOST_VALUE),
-    (("scenarios", 0, "changes", 0, "add"), "scenarios[0].changes[0].add", -MOST_VALUE),
+    (("scenarios", 0, "changes", 0, "set"), "scenarios[0].changes[0].set", MOST_CHANGE),
+    (("scenarios", 0, "changes", 0, "add"), "scenarios[0].changes[0].add", -MOST_CHANGE),
     (("scenarios", 0, "changes", 0, "percent"), "scenarios[0].changes[0].percent", MOST_PERCENT),
     (("validation", "last_periods"), "validation.last_periods", MOST_MONTHS),
     (("validation", "horizon"), "validation.horizon", MOST_MONTHS_AHEAD),
@@ -201,3 +202,16 @@ def test_check_refuses_what_run_would_crash_on(tmp_path):
     path = spec_with(("models", 0, "penalties", 0), float("inf"), tmp_path)
     code, out, err = run_cli(["check", str(path)])
     assert code == 2 and "models[0].penalties[0]: must be a finite number" in err, err
+
+
+def test_run_with_scenarios_at_their_most_does_not_crash(tmp_path):
+    # Past these, a forecast can outgrow what the pages can show (set: -1e150 crashed the report).
+    spec = dict(copy.deepcopy(BASE), output={"folder": str(tmp_path / "reports")})
+    spec["scenarios"] = [{"name": "a", "changes": [{"column": "x1", "set": MOST_CHANGE}]},
+                         {"name": "b", "changes": [{"column": "x2", "percent": MOST_PERCENT}]},
+                         {"name": "c", "changes": [{"column": "x1", "add": -MOST_CHANGE}]}]
+    path = tmp_path / "spec.yaml"
+    path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    code, out, err = run_cli(["run", str(path)])
+    assert code == 0, err
+    assert len(list((tmp_path / "reports").glob("run-*/report.html"))) == 1
