@@ -19,6 +19,7 @@ from pydantic import BaseModel, ValidationError
 
 from pipeline.core.errors import SpecError
 from pipeline.core.paths import PathError, given_path, resolved_path
+from pipeline.spec.guard import MOST_BYTES, check_shape, check_size
 from pipeline.spec.keys import DuplicateKey, KeyPath, SpecOrigin, format_key_path, line_for, line_map
 from pipeline.spec.rules import check_rules
 from pipeline.spec.schema import CategoricalDriver, Spec
@@ -126,7 +127,10 @@ def _describe(error: dict[str, Any]) -> str:
 def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
     """Return the spec file's data and the line of every key, with a safe loader."""
     try:
-        text = path.read_text(encoding="utf-8")
+        with path.open("rb") as file:   # never more than a spec can hold, whatever the file is
+            raw = file.read(MOST_BYTES + 1)
+        check_size(path, len(raw))
+        text = raw.decode("utf-8").replace("\r\n", "\n").replace("\r", "\n")
     except FileNotFoundError:
         raise SpecError("no such spec file", file=str(path)) from None
     except IsADirectoryError:
@@ -135,6 +139,7 @@ def _read_yaml(path: Path) -> tuple[Any, dict[KeyPath, int]]:
         raise SpecError("the spec is not UTF-8 text", file=str(path)) from None
     except OSError as exc:
         raise SpecError(f"cannot read the spec: {exc.strerror}", file=str(path)) from None
+    check_shape(text, path)
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
         data = yaml.load(text, Loader=yaml.SafeLoader)  # noqa: S506 - SafeLoader constructs no objects

@@ -15,6 +15,7 @@ from datetime import UTC, datetime
 from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
 from pipeline.core.errors import SpecError
 from pipeline.spec.keys import KeyPath
+from pipeline.spec.ranges import check_ranges
 from pipeline.spec.schema import TIME_ORDERED, Spec
 
 Fail = Callable[[KeyPath, str], SpecError]
@@ -26,7 +27,7 @@ def check_rules(spec: Spec, fail: Fail) -> list[SpecError]:
     if not problems:   # the column rules are judged against the roles, which must be sound first
         problems += _check_column_rules(spec, fail)
     return (problems + _check_date_format(spec, fail) + _check_models(spec, fail)
-            + _check_scenarios(spec, fail) + _check_features(spec, fail))
+            + _check_scenarios(spec, fail) + _check_features(spec, fail) + check_ranges(spec, fail))
 
 
 def _check_date_format(spec: Spec, fail: Fail) -> list[SpecError]:

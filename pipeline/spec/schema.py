@@ -33,7 +33,7 @@ from pipeline.spec.keys import KeyPath, SpecOrigin, format_key_path
 class StrictModel(BaseModel):
     """A spec section: unknown keys are refused, values are immutable."""
 
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 def _name_as_mapping(value: Any) -> Any:
@@ -326,7 +326,7 @@ class KFoldValidation(StrictModel):
 
     method: Literal["kfold"]
     folds: int = Field(5, strict=True, ge=2)
-    seed: int = 0
+    seed: int = Field(0, ge=0)
 
 
 class GroupedKFoldValidation(StrictModel):

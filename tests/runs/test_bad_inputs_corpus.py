@@ -55,6 +55,9 @@ def prepare(case: dict, tmp: Path) -> tuple[list[str], Path, Path]:
         for old, new in case.get("replace", []):
             assert old in text, f"{case['id']}: {old!r} is not in the base spec"
             text = text.replace(old, new)
+        for marker, piece, times in case.get("repeat", []):
+            assert marker in text, f"{case['id']}: {marker!r} is not in the spec"
+            text = text.replace(marker, piece * times)
         for key, value in fill.items():
             text = text.replace("{" + key + "}", value)
         spec.write_text(text, encoding="utf-8")
