@@ -395,7 +395,7 @@ class DriverChange(StrictModel):
                 return str(item)
             if isinstance(item, float) and item.is_integer():
                 return str(int(item))
-            return str(item) if isinstance(item, (int, float)) else item
+            return str(item) if isinstance(item, (int, float, date)) else item
         if isinstance(value, dict):
             return {k: [text(i) for i in v] if isinstance(v, list) else text(v) for k, v in value.items()}
         return value
