@@ -33,7 +33,7 @@ from pipeline.spec.keys import KeyPath, SpecOrigin, format_key_path
 class StrictModel(BaseModel):
     """A spec section: unknown keys are refused, values are immutable."""
 
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 def _name_as_mapping(value: Any) -> Any:
