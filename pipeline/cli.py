@@ -515,14 +515,9 @@ def _command_check(args) -> int:
 
 def _command_forecast(args) -> int:
     from pipeline.record.model_file import load_model
-    from pipeline.stages.ingest import read_table
-    from pipeline.stages.survey import guess_format
     stored = load_model(args.model_file)
     data_path = Path(args.data_file)
-    if not data_path.is_file():
-        raise UserError(f"{data_path}: no such data file")
-    frame = read_table(data_path, guess_format(data_path))
-    table = stored.forecast(frame, args.model, file=str(data_path))
+    table = stored.forecast(stored.read(data_path), args.model, file=str(data_path))
     if args.output:
         from pipeline.record.safe_csv import write_csv
         try:

@@ -185,9 +185,10 @@ def build_schema(spec: Spec) -> pa.DataFrameSchema:
     """Return the pandera schema the input's columns must meet."""
     pa = pandera_pandas()
     rules = effective_rules(spec)
-    for driver in spec.driver_columns:
+    for driver in set(spec.driver_columns) - set(spec.input.series):
         # A missing driver is reported by the calendar pass, which can tell a month
-        # of history from a month to forecast.
+        # of history from a month to forecast (a series column is never missing: it
+        # names the series the calendar is read in).
         rules[driver] = rules[driver].model_copy(update={"missing_allowed": True})
     columns = {name: _column_schema(rule) for name, rule in rules.items()}
     return pa.DataFrameSchema(columns, strict=False)

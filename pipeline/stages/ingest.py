@@ -88,10 +88,14 @@ def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = (
                         file=str(path))
     encoding = "utf-8-sig" if options.encoding.lower().replace("_", "-") in ("utf-8", "utf8") \
         else options.encoding
+    # input.csv.missing_values, when given, are the only texts besides an empty cell read as
+    # missing (a level 'NA' then stays a level); without it, pandas' own list is.
+    missing = {} if options.missing_values is None else {
+        "keep_default_na": False, "na_values": [*options.missing_values, ""]}
     frame = pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
                         thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
                         skipinitialspace=True, dtype={c: str for c in text_columns} or None,
-                        nrows=nrows)
+                        nrows=nrows, **missing)
     # Blank lines inside the file stay (as empty rows, at their line); those at its end go.
     empty = frame.isna().all(axis=1).to_numpy()
     if empty.any() and empty[-1]:
