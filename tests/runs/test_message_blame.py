@@ -252,3 +252,15 @@ def test_missing_values_lists_the_texts_that_read_as_missing(tmp_path):
     frame.loc[3, "x"] = "-"
     line = _one_problem(*run_cli(["run", str(_spec(tmp_path, frame, csv={"missing_values": ["-", ""]}))])[::2])
     assert "column 'x'" in line and ("missing" in line or "no value" in line), line
+
+
+@pytest.mark.parametrize("name", ["NA", "None"])
+def test_a_series_named_na_keeps_its_name_in_the_pages(tmp_path, name):
+    frame = _data()
+    frame["region"] = frame["region"].replace("East", name)
+    folder = _run_folder(_spec(tmp_path, frame, csv={"missing_values": [""]}))
+    forecast = pd.read_csv(folder / "forecast.csv", keep_default_na=False)
+    assert set(forecast["series"]) == {name, "West"}
+    # The pages are rendered from the run folder's files read back (present/run_files.py).
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    assert f"series {name}:" in page and "series nan" not in page
