@@ -243,7 +243,9 @@ def test_a_level_kept_by_missing_values_runs_as_the_level_renamed(tmp_path, leve
 @pytest.mark.parametrize("level", ["NA", "None", "null"])
 def test_without_missing_values_the_level_reads_as_missing(tmp_path, level):
     line = _one_problem(*run_cli(["run", str(_spec(tmp_path, _data(level)))])[::2])
-    assert "channel" in line and ("missing" in line or "no value" in line), line
+    # The message shows the text read as missing, and the key that keeps it.
+    assert "column 'channel'" in line and f"'{level}', read as missing" in line, line
+    assert "input.csv.missing_values" in line, line
 
 
 def test_missing_values_lists_the_texts_that_read_as_missing(tmp_path):
