@@ -266,3 +266,20 @@ def test_a_series_named_na_keeps_its_name_in_the_pages(tmp_path, name):
     # The pages are rendered from the run folder's files read back (present/run_files.py).
     page = (folder / "report.html").read_text(encoding="utf-8")
     assert f"series {name}:" in page and "series nan" not in page
+
+
+@pytest.mark.parametrize("level", ["NA", "None"])
+def test_init_says_which_column_holds_a_text_read_as_missing(tmp_path, level):
+    data = tmp_path / "data.csv"
+    _data(level).to_csv(data, index=False)
+    code, out, err = run_cli(["init", str(data), "--spec-file", str(tmp_path / "spec.yaml")])
+    assert code == 0, err
+    assert f"note: column 'channel' holds '{level}' in " in out and "missing_values" in out, out
+
+
+def test_init_says_nothing_of_missing_texts_where_there_are_none(tmp_path):
+    data = tmp_path / "data.csv"
+    _data().to_csv(data, index=False)
+    code, out, err = run_cli(["init", str(data), "--spec-file", str(tmp_path / "spec.yaml")])
+    assert code == 0 and "channel" in (tmp_path / "spec.yaml").read_text(encoding="utf-8"), err
+    assert "missing_values" not in out, out
