@@ -283,3 +283,17 @@ def test_init_says_nothing_of_missing_texts_where_there_are_none(tmp_path):
     code, out, err = run_cli(["init", str(data), "--spec-file", str(tmp_path / "spec.yaml")])
     assert code == 0 and "channel" in (tmp_path / "spec.yaml").read_text(encoding="utf-8"), err
     assert "missing_values" not in out, out
+
+
+def test_forecast_reads_the_new_data_with_the_runs_missing_values(tmp_path):
+    spec = _spec(tmp_path, _data("NA"), csv={"missing_values": [""]})
+    folder = _run_folder(spec)
+    written = tmp_path / "again.csv"
+    code, _, err = run_cli(["forecast", str(folder / "model.json"), str(tmp_path / "data.csv"),
+                            "--output", str(written)])
+    assert code == 0, err
+    # The run's own forecasts again: the level NA read as a level, as the run read it.
+    again = pd.read_csv(written).query("model == 'ols'").sort_values(["period", "series"])
+    stored = pd.read_csv(folder / "forecast.csv").query("model == 'ols'").sort_values(["period", "series"])
+    assert len(again) == len(stored) == 6
+    np.testing.assert_allclose(again["forecast"].to_numpy(), stored["forecast"].to_numpy(), rtol=1e-9)
