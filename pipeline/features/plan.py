@@ -404,8 +404,9 @@ class FeaturePlan:
         return self._design(kept, table.to_numpy()[usable], notes), y
 
     def _refuse_empty_terms(self, frame: pd.DataFrame, table: pd.DataFrame) -> None:
-        """Stop at the first training row a term other than a lag has no number for: only the
-        lags may leave rows out, and that term's own driver and its settings are the cause."""
+        """Stop at the first row a term other than a lag has no number for: only the lags may
+        leave a row without a value (a month they read is missing); for any other term its own
+        driver, or that driver's settings, is the cause."""
         at = 0
         for part in self.row_parts_:
             width = len(part.get_feature_names_out())
