@@ -520,16 +520,11 @@ def _command_check(args) -> int:
 def _command_forecast(args) -> int:
     from pipeline.record.model_file import load_model
     from pipeline.runner import output_target, write_table_file
-    from pipeline.stages.ingest import read_table
-    from pipeline.stages.survey import guess_format
     data_path = Path(args.data_file)
     output = output_target("--output", args.output, overwrite=args.overwrite,
                            inputs={"model file": Path(args.model_file), "data file": data_path})
     stored = load_model(args.model_file)
-    if not data_path.is_file():
-        raise UserError(f"{data_path}: no such data file")
-    frame = read_table(data_path, guess_format(data_path))
-    table = stored.forecast(frame, args.model, file=str(data_path))
+    table = stored.forecast(stored.read(data_path), args.model, file=str(data_path))
     if output:
         write_table_file(table, output, option="--output", what="forecasts")
         print(f"forecasts written to {output}")

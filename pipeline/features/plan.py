@@ -368,6 +368,7 @@ class FeaturePlan:
             table = self.feature_table(frame, known)
         unavailable = table.isna().to_numpy()
         if unavailable.any():
+            self._refuse_empty_terms(frame, table)
             row, column = (int(i) for i in np.argwhere(unavailable)[0])
             at = frame.iloc[row]
             raise DataError(f"'{table.columns[column]}' is not available for {at[PERIOD]} (series "
@@ -390,6 +391,7 @@ class FeaturePlan:
         usable = ~table.isna().any(axis=1).to_numpy()
         notes = self._notes(frame)
         if not usable.all():
+            self._refuse_empty_terms(frame, table)
             if not usable.any():
                 raise DataError("no training row has every lag available: the lags reach further "
                                 "back than the training window holds", file=self.source)
@@ -400,6 +402,25 @@ class FeaturePlan:
         kept = frame[usable]
         y = kept[self.target].to_numpy(float) if self.target in kept.columns else np.empty(0)
         return self._design(kept, table.to_numpy()[usable], notes), y
+
+    def _refuse_empty_terms(self, frame: pd.DataFrame, table: pd.DataFrame) -> None:
+        """Stop at the first row a term other than a lag has no number for: only the lags may
+        leave a row without a value (a month they read is missing); for any other term its own
+        driver, or that driver's settings, is the cause."""
+        at = 0
+        for part in self.row_parts_:
+            width = len(part.get_feature_names_out())
+            empty = table.iloc[:, at:at + width].isna().to_numpy()
+            if empty.any():
+                row, column = (int(i) for i in np.argwhere(empty)[0])
+                where, name = frame.iloc[row], table.columns[at + column]
+                source = getattr(part, "column", None)
+                cause = f"the driver '{source}' (its value in this row, or" if source else "(its"
+                raise DataError(f"the term '{name}' is not a number for {where[PERIOD]} (series "
+                                f"'{where[self.series_column]}'): it is not a lag, so {cause} its "
+                                "settings in the spec) gives it none", file=self.source,
+                                row=first_row(frame, np.arange(len(frame)) == row))
+            at += width
 
     def get_feature_names_out(self) -> list[str]:
         return [name for part in self.parts_ for name in part.get_feature_names_out()]

@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
+from pandas._libs.parsers import STR_NA_VALUES  # pandas' missing texts
 
 from pipeline.core.errors import UserError
 
@@ -32,8 +33,13 @@ def _read_csv(folder: Path, name: str, text_columns: tuple[str, ...] = ()) -> pd
         # Whole-column type inference: a column empty for most rows (a per-series model's
         # series column in coefficients.csv) is read the same however long the file is.
         # Names are read as text from the start: series '007' stays '007', not 7.
-        frame = pd.read_csv(path, keep_default_na=True, low_memory=False,
-                            dtype=dict.fromkeys(text_columns, str))
+        # Only an empty cell of a name is missing: a series or level 'NA' (input.csv.missing_values
+        # keeps one) stays its name; the other columns read pandas' usual missing texts.
+        header = pd.read_csv(path, nrows=0).columns if text_columns else ()
+        missing = {"keep_default_na": False, "na_values": {
+            column: [""] if column in text_columns else sorted(STR_NA_VALUES) for column in header}} \
+            if text_columns else {"keep_default_na": True}
+        frame = pd.read_csv(path, low_memory=False, dtype=dict.fromkeys(text_columns, str), **missing)
     except pd.errors.EmptyDataError:
         return None
     return frame if len(frame.columns) else None

@@ -44,8 +44,11 @@ from pipeline.features.rows import first_row
 from pipeline.models.per_series import PerSeriesOLS
 from pipeline.record.stored_fits import StoredLinear, StoredPerSeries
 from pipeline.record.stored_steps import STEPS_FROM, StoredSteps, last_actuals, placed_plan
+from pipeline.spec import CsvOptions
 from pipeline.stages.check import _series_labels
 from pipeline.stages.dates import read_dates
+from pipeline.stages.ingest import read_table
+from pipeline.stages.survey import guess_format
 
 FORMAT = "castline-model"
 
@@ -196,6 +199,7 @@ class _Envelope(BaseModel):
     target: str
     date_column: str
     date_format: str | None = None     # input.date_format, when the run's spec set one
+    missing_values: list[str] | None = None   # input.csv.missing_values, when the run's spec set them
     series_columns: list[str]
     feature_names: list[str]
     plan: dict
@@ -230,6 +234,7 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals
         "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(),
         "multi_step": steps.to_dict(_model_entry), "versions": versions,
         **({"date_format": spec.input.date_format} if spec.input.date_format else {}),
+        **({"missing_values": list(missing)} if (missing := spec.input.csv.missing_values) is not None else {}),
     }
 
 
@@ -273,7 +278,7 @@ def _steps_from(document: _Envelope, version: int) -> StoredSteps:
     return StoredSteps.from_dict(document.multi_step, list(document.models), _model_from_dict, version)
 
 
-def _numbers(values: pd.Series, column: str, file: str) -> pd.Series:
+def _numbers(values: pd.Series, column: str, file: str, start: int = 2) -> pd.Series:
     """Return a column's values as numbers (empty cells NaN); stop at the first cell that
     holds text that is not a number."""
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
@@ -283,7 +288,7 @@ def _numbers(values: pd.Series, column: str, file: str) -> pd.Series:
     wrong = text & numbers.isna().to_numpy()
     if wrong.any():
         at = int(np.flatnonzero(wrong)[0])
-        raise DataError(f"{values.iloc[at]!r} is not a number", file=file, column=column, row=at + 2)
+        raise DataError(f"{values.iloc[at]!r} is not a number", file=file, column=column, row=at + start)
     return numbers.astype(float)
 
 
@@ -301,6 +306,12 @@ class StoredModel:
         self.intervals = intervals
         self.steps = steps or StoredSteps(None, version=document.format_version)
 
+    def read(self, path: Path) -> pd.DataFrame:
+        """Return a file of new data as read: a CSV's missing cells as the run read its own."""
+        if not path.is_file():
+            raise UserError(f"{path}: no such data file")
+        return read_table(path, guess_format(path), CsvOptions(missing_values=self.document.missing_values))
+
     def prepare(self, frame: pd.DataFrame, file: str = "") -> pd.DataFrame:
         """Return the rows with the month, series and row columns the plan expects, and the
         numeric columns it reads (the target's among them) as numbers."""
@@ -310,6 +321,7 @@ class StoredModel:
             raise DataError("the file has no such column, and the model needs it", file=file,
                             column=missing[0])
         prepared = frame.copy()
+        start = 1 if file and guess_format(Path(file)) == "parquet" else 2   # the first row's number
         # Read as the run read its dates: with its input.date_format, offsets in UTC.
         dates = read_dates(prepared[doc.date_column], doc.date_format)
         if dates.isna().any():
@@ -317,15 +329,15 @@ class StoredModel:
             value = prepared[doc.date_column].iloc[at]
             said = (f"{value!r} does not match the date format {doc.date_format!r} the run read its "
                     "dates with" if doc.date_format and pd.notna(value) else "not a date")
-            raise DataError(said, file=file, column=doc.date_column, row=at + 2)
+            raise DataError(said, file=file, column=doc.date_column, row=at + start)
         prepared[PERIOD] = dates.dt.to_period("M")
         prepared[SERIES] = _series_labels(prepared, doc.series_columns)
-        prepared[ROW] = np.arange(len(prepared)) + 2
+        prepared[ROW] = np.arange(len(prepared)) + start
         plan = self.plan
         numeric = [d.column for d in plan.numeric] + [lagged.column for lagged in plan.lags] + [doc.target]
         for column in dict.fromkeys(numeric):
             if column in prepared.columns:
-                prepared[column] = _numbers(prepared[column], column, file)
+                prepared[column] = _numbers(prepared[column], column, file, start)
         return prepared
 
     def forecast(self, frame: pd.DataFrame, model: str | None = None, file: str = "") -> pd.DataFrame:

@@ -38,9 +38,7 @@ class StrictModel(BaseModel):
 
 def _name_as_mapping(value: Any) -> Any:
     """Let a bare column name stand for ``{column: name}``."""
-    if isinstance(value, str):
-        return {"column": value}
-    return value
+    return {"column": value} if isinstance(value, str) else value
 
 
 class CsvOptions(StrictModel):
@@ -50,6 +48,9 @@ class CsvOptions(StrictModel):
     decimal: str = Field(".", min_length=1, max_length=1)
     thousands: str | None = Field(None, min_length=1, max_length=1)
     encoding: str = "utf-8"
+    missing_values: list[Annotated[str, Field(coerce_numbers_to_str=True)]] | None = Field(
+        None, exclude_if=lambda v: v is None, description="the only cell texts read as missing, "
+        "besides an empty cell; default: pandas' own list (NA, N/A, null, None, nan, ...)")
 
     @model_validator(mode="after")
     def _separators_differ(self) -> CsvOptions:
@@ -291,9 +292,7 @@ class DriversSection(StrictModel):
     @field_validator("numeric", "categorical", "lags", mode="before")
     @classmethod
     def _names_as_mappings(cls, value: Any) -> Any:
-        if isinstance(value, list):
-            return [_name_as_mapping(item) for item in value]
-        return value
+        return [_name_as_mapping(item) for item in value] if isinstance(value, list) else value
 
 
 class HoldoutValidation(StrictModel):
@@ -395,7 +394,7 @@ class DriverChange(StrictModel):
                 return str(item)
             if isinstance(item, float) and item.is_integer():
                 return str(int(item))
-            return str(item) if isinstance(item, (int, float)) else item
+            return str(item) if isinstance(item, (int, float, date)) else item
         if isinstance(value, dict):
             return {k: [text(i) for i in v] if isinstance(v, list) else text(v) for k, v in value.items()}
         return value

@@ -25,7 +25,7 @@ import pandas as pd
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.core.schema_library import pandera_pandas
-from pipeline.spec import ColumnRule, Spec, column_roles
+from pipeline.spec import ColumnRule, CsvOptions, Spec, column_roles
 from pipeline.stages.dates import (
     first_unparsed_date,
     has_offsets,
@@ -34,7 +34,7 @@ from pipeline.stages.dates import (
     reading_note,
 )
 from pipeline.stages.gaps import AHEAD_HINT, fill_gaps, filled_cells, gap_problem, missing_months
-from pipeline.stages.ingest import RawInput
+from pipeline.stages.ingest import MISSING_HINT, RawInput, read_as_missing
 from pipeline.stages.months_ahead import (
     add_months_ahead,
     lagging_series,
@@ -185,9 +185,10 @@ def build_schema(spec: Spec) -> pa.DataFrameSchema:
     """Return the pandera schema the input's columns must meet."""
     pa = pandera_pandas()
     rules = effective_rules(spec)
-    for driver in spec.driver_columns:
+    for driver in set(spec.driver_columns) - set(spec.input.series):
         # A missing driver is reported by the calendar pass, which can tell a month
-        # of history from a month to forecast.
+        # of history from a month to forecast (a series column is never missing: it
+        # names the series the calendar is read in).
         rules[driver] = rules[driver].model_copy(update={"missing_allowed": True})
     columns = {name: _column_schema(rule) for name, rule in rules.items()}
     return pa.DataFrameSchema(columns, strict=False)
@@ -201,8 +202,8 @@ def _check_words(check: str) -> str:
     return check
 
 
-def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput,
-                           typed: pd.DataFrame) -> list[Problem]:
+def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput, typed: pd.DataFrame,
+                           csv: CsvOptions) -> list[Problem]:
     """Return one problem per (check, column), located at its first failing row.
 
     ``typed``: the spec's columns as far as the checks could coerce them to their types.
@@ -224,6 +225,9 @@ def _problems_from_pandera(failures: pd.DataFrame, raw: RawInput,
         value, count = _show(first["failure_case"]), len(group)
         if row is None and column in typed.columns and "datetime" in check:
             row, value, count = first_unparsed_date(raw, typed[str(column)])
+        text = read_as_missing(raw, csv, row, str(column)) if check == "not_nullable" else None
+        if text is not None:   # not empty: a text pandas reads as missing
+            value = f"{text!r}, read as missing{MISSING_HINT}"
         problems.append(Problem(_check_words(check), str(column), row, value, count=count))
     return problems
 
@@ -318,7 +322,8 @@ def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[P
     return filled, [], allowed
 
 
-def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> list[Problem]:
+def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period,
+                        raw: RawInput | None = None) -> list[Problem]:
     problems: list[Problem] = []
     target = spec.target
     has_target = frame[target].notna()
@@ -366,9 +371,11 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period) -> li
                 empty &= frame[ROW].notna()
             if empty.any():
                 row = _first(frame, empty)
+                text = read_as_missing(raw, spec.input.csv, _row(row), driver) if raw else None
+                said = f" ({text!r}, read as missing{MISSING_HINT})" if text else ""
                 problems.append(Problem(word, driver, _row(row),
-                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}')"
-                                        + (_ESTIMATE_HINT if word != "driver missing" else ""),
+                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}'){said}"
+                                        + (_ESTIMATE_HINT if word != "driver missing" and not text else ""),
                                         count=int(empty.sum())))
     return problems + missing_given(frame, spec, future.to_numpy())
 
@@ -412,7 +419,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
             warnings.filterwarnings("ignore", "(Parsing dates in|Could not infer format)", UserWarning)
             valid = schema.validate(typed, lazy=True, inplace=True)
     except pandera_pandas().errors.SchemaErrors as exc:
-        problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed)
+        problems = date_problems + _problems_from_pandera(exc.failure_cases, raw, typed, spec.input.csv)
         problems += _calendar_despite(problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     if date_problems:
@@ -445,7 +452,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
     behind, notes = lagging_series(frame, spec)
     problems += behind
     grown, added = add_months_ahead(frame, spec)
-    problems += _history_and_future(grown, spec, _as_of(spec, today))
+    problems += _history_and_future(grown, spec, _as_of(spec, today), raw)
     filled = (filled_cells(as_read, grown, _numeric_columns(spec))
               if spec.input.gaps == "fill" and frame is not as_read else None)
     return grown, filled, sorted(problems, key=lambda p: (p.row or 0, p.column)), allowed, notes + added
@@ -523,7 +530,7 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
         problems.append(gap_problem(gaps, spec, "month missing"))
     if spec.input.gaps == "refuse":
         problems += _target_holes(frame, spec)[1]
-    problems += _history_and_future(frame, spec, _as_of(spec, today))
+    problems += _history_and_future(frame, spec, _as_of(spec, today), raw)
     # A cell that is not a number is already reported; do not report it again as missing.
     seen = {(p.column, p.row) for p in found}
     return [p for p in problems if (p.column, p.row) not in seen]

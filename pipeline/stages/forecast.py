@@ -45,6 +45,7 @@ from pipeline.spec import Scenario, Spec
 from pipeline.stages.backtest import BacktestResult, mase_scales, series_fallbacks, target_floor
 from pipeline.stages.check import CheckedData
 from pipeline.stages.multistep import needs_strategy, predict_ahead
+from pipeline.stages.scenario_where import change_mask
 
 
 @dataclass(frozen=True)
@@ -82,18 +83,16 @@ class ForecastResult:
     horizon_fits: dict = field(default_factory=dict)
 
 
-def apply_scenario(future: pd.DataFrame, scenario: Scenario) -> pd.DataFrame:
-    """Return the future rows with the scenario's changes made."""
+def apply_scenario(future: pd.DataFrame, scenario: Scenario, spec: Spec | None = None,
+                   index: int = 0) -> pd.DataFrame:
+    """Return the future rows with the scenario's changes made; a ``where`` that matches no
+    row is refused at its key of the spec (``index``: the scenario's place in it)."""
     changed = future.copy()
-    for change in scenario.changes:
-        mask = pd.Series(True, index=changed.index)
-        for column, wanted in change.where.items():
-            options = wanted if isinstance(wanted, list) else [wanted]
-            mask &= changed[column].astype(str).isin([str(o) for o in options])
-        if not mask.any():
-            raise DataError(f"scenario '{scenario.name}': no month to forecast has "
-                            + " and ".join(f"{c} = {v}" for c, v in change.where.items())
-                            + f", so the change to {change.column} changes nothing")
+    for number, change in enumerate(scenario.changes):
+        def fail(key, message, number=number):
+            place = ("scenarios", index, "changes", number, *key)
+            return spec.error(place, message) if spec is not None else DataError(message)
+        mask = change_mask(changed, change, scenario.name, spec.input.date_column if spec else None, fail)
         if change.set is not None:
             changed.loc[mask, change.column] = change.set
         elif change.add is not None:
@@ -293,11 +292,11 @@ def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Pre
     interval (of the kind the pages state for the model: the one that held closest in the
     backtest), and their difference."""
     rows = []
-    for scenario in spec.scenarios:
+    for index, scenario in enumerate(spec.scenarios):
         if not len(future):
             raise spec.error(("scenarios",), "scenarios need months to forecast, and the input has none")
         try:
-            changed = apply_scenario(future, scenario)
+            changed = apply_scenario(future, scenario, spec, index)
         except (TypeError, ValueError) as exc:
             raise DataError(f"scenario '{scenario.name}' cannot be applied: {exc}") from None
         for choice in spec.models:

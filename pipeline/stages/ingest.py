@@ -88,10 +88,14 @@ def _read_csv(options: CsvOptions, path: Path, text_columns: tuple[str, ...] = (
                         file=str(path))
     encoding = "utf-8-sig" if options.encoding.lower().replace("_", "-") in ("utf-8", "utf8") \
         else options.encoding
+    # input.csv.missing_values, when given, are the only texts besides an empty cell read as
+    # missing (a level 'NA' then stays a level); without it, pandas' own list is.
+    missing = {} if options.missing_values is None else {
+        "keep_default_na": False, "na_values": [*options.missing_values, ""]}
     frame = pd.read_csv(path, sep=options.delimiter, decimal=options.decimal,
                         thousands=options.thousands, encoding=encoding, skip_blank_lines=False,
                         skipinitialspace=True, dtype={c: str for c in text_columns} or None,
-                        nrows=nrows)
+                        nrows=nrows, **missing)
     # Blank lines inside the file stay (as empty rows, at their line); those at its end go.
     empty = frame.isna().all(axis=1).to_numpy()
     if empty.any() and empty[-1]:
@@ -186,6 +190,32 @@ def read_table(path: Path, file_format: str, csv: CsvOptions | None = None,
                         f"{max_rows}; raise the limit or cut the file", file=str(path))
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame.reset_index(drop=True)
+
+
+def read_as_missing(raw: RawInput, options: CsvOptions, line: int | None, column: str) -> str | None:
+    """Return the text of a CSV cell that was read as missing when it is not empty (``NA``,
+    ``None``: pandas' own list, without input.csv.missing_values); None otherwise."""
+    if raw.file_format != "csv" or options.missing_values is not None or not line or line < 2:
+        return None
+    import csv as csv_module
+    import itertools
+    encoding = "utf-8-sig" if options.encoding.lower().replace("_", "-") in ("utf-8", "utf8") \
+        else options.encoding
+    try:
+        with raw.path.open(encoding=encoding, newline="") as handle:
+            records = csv_module.reader(handle, delimiter=options.delimiter, skipinitialspace=True)
+            header = [name.strip() for name in next(records, [])]
+            record = next(itertools.islice(records, line - 2, None), None)
+    except (OSError, UnicodeDecodeError, csv_module.Error):
+        return None
+    if record is None or column not in header or header.index(column) >= len(record):
+        return None
+    text = record[header.index(column)].strip()
+    return text or None
+
+
+MISSING_HINT = ("; to keep it as a value, list the texts that do mean missing in "
+                "input.csv.missing_values (e.g. [\"\"])")
 
 
 def read_input(spec: Spec) -> RawInput:

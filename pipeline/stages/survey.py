@@ -176,6 +176,8 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     if frequency != "month":
         notes.append(f"the dates in '{date_column}' look {frequency}ly spaced, not monthly; "
                      "castline forecasts monthly data, so aggregate to months first")
+    if file_format == "csv" and csv.missing_values is None:
+        notes += _texts_read_as_missing(path, csv, frame, categories)
     return Inference(
         path=path, file_format=file_format, csv=csv, rows=len(frame), types=types,
         missing={c: int(frame[c].isna().sum()) for c in frame.columns}, levels=levels,
@@ -188,6 +190,21 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
         driver_future={c: rule for c, rule in driver_future.items() if c not in lookalikes},
         future_missing={c: n for c, n in future_missing.items() if c not in lookalikes},
         target_lookalikes=lookalikes, date_format=guess.date_format)
+
+
+def _texts_read_as_missing(path: Path, csv: CsvOptions, frame: pd.DataFrame, columns: list[str]) -> list[str]:
+    """Return a note for each text column holding a text read as missing (NA, None, null)."""
+    if not columns or not frame[columns].isna().any().any():
+        return []
+    kept = read_table(path, "csv", csv.model_copy(update={"missing_values": [""]}))
+    notes = []
+    for column in columns:
+        texts = kept[column].reindex(frame.index)[frame[column].isna()].dropna().astype(str)
+        if len(texts):
+            shown = ", ".join(repr(text) for text in sorted(set(texts))[:3])
+            notes.append(f"column '{column}' holds {shown} in {len(texts)} rows, read as missing; to keep "
+                         "it as a level, add missing_values: [\"\"] under input.csv in the spec")
+    return notes
 
 
 def _numbers_for_dates(frame: pd.DataFrame) -> str:
