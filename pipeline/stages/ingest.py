@@ -149,6 +149,9 @@ def _reading_error(exc: Exception, path: Path, file_format: str, csv: CsvOptions
     if isinstance(exc, UnicodeDecodeError):
         return DataError(f"is not {csv.encoding} text (line {_undecodable_line(path, csv.encoding)} "
                          "holds a byte that cannot be decoded); set input.csv.encoding", file=shown)
+    if isinstance(exc, UnicodeError):   # e.g. UTF-16 without its byte-order mark
+        return DataError(f"is not {csv.encoding} text ({' '.join(str(exc).split())}); set "
+                         "input.csv.encoding", file=shown)
     if isinstance(exc, pd.errors.ParserError):
         return DataError(f"cannot be read as CSV: {' '.join(str(exc).split())}", file=shown)
     if isinstance(exc, PermissionError):
