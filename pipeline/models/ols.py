@@ -11,7 +11,7 @@ nine significant digits on all eight linear datasets.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -61,6 +61,12 @@ class LeastSquaresFit:
     xtx_inverse: np.ndarray | None = None   # (X'X)⁻¹ on the columns' own scale; NaN for dropped
     leverage: np.ndarray | None = None      # diagonal of the hat matrix, per row
 
+    def rescaled(self, factor: float) -> LeastSquaresFit:
+        """Return the fit of the target times ``factor``: the coefficients, their standard
+        errors, the residuals and their SD scale with it; R², the leverage and the rest do not."""
+        return replace(self, coef=self.coef * factor, stderr=self.stderr * factor,
+                       residuals=self.residuals * factor, resid_sd=self.resid_sd * factor)
+
     @property
     def kept(self) -> np.ndarray:
         """Return the positions of the columns in the fit (not dropped)."""
@@ -84,6 +90,18 @@ class LeastSquaresFit:
             "t": t_values, "p_value": p_values,
             f"low_{percent}": low, f"high_{percent}": high,
         })
+
+
+def unit_scale(values) -> float:
+    """Return the power of two nearest above the largest finite size among ``values`` (1 when
+    all are zero): dividing by it is exact, and brings numbers of any size (1e-300 or 1e145)
+    to about 1, where their squares neither underflow nor overflow."""
+    values = np.asarray(values, float)
+    finite = np.abs(values[np.isfinite(values)])
+    largest = float(finite.max()) if finite.size else 0.0
+    if largest == 0.0:
+        return 1.0
+    return float(np.ldexp(1.0, int(np.frexp(largest)[1])))
 
 
 def _rank_tolerance(r: np.ndarray, n: int) -> float:
@@ -132,6 +150,16 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
     names = list(names) if names is not None else [f"x{i}" for i in range(p)]
     if n == 0 or p == 0:
         raise ValueError("least squares needs at least one row and one column")
+    # Fitted at the target's unit scale (an exact power of two), so that sums of squares
+    # neither underflow for a tiny target nor overflow for a huge one.
+    size = unit_scale(y)
+    if size != 1.0:
+        return _least_squares(x, y / size, names, centered_r2).rescaled(size)
+    return _least_squares(x, y, names, centered_r2)
+
+
+def _least_squares(x: np.ndarray, y: np.ndarray, names: list[str], centered_r2: bool) -> LeastSquaresFit:
+    n, p = x.shape
 
     norms = np.sqrt(np.einsum("ij,ij->j", x, x))
     zero = norms == 0
@@ -363,8 +391,10 @@ class GrowingLeastSquares:
         r = self.r_[:p, :p]
         z = scipy.linalg.solve_triangular(r, (np.asarray(matrix, float) / self.scale).T,
                                           trans="T", check_finite=False)
-        residual_ss = float(self.r_[p, p] ** 2) if self.r_.shape[0] > p else 0.0
-        s = np.sqrt(residual_ss / (self.rows_ - p))
+        # |R[p, p]| is the root of the residual sum of squares (never squared: it underflows
+        # for a target of 1e-300).
+        residual_root = float(abs(self.r_[p, p])) if self.r_.shape[0] > p else 0.0
+        s = residual_root / np.sqrt(self.rows_ - p)
         return s * np.sqrt(1.0 + np.einsum("ij,ij->j", z, z))
 
 
