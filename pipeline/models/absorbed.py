@@ -24,7 +24,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from pipeline.models.ols import Collinearity, LeastSquaresFit, least_squares, unit_scale
+from pipeline.core.scale import unit_scale
+from pipeline.models.ols import Collinearity, LeastSquaresFit, least_squares
 
 LEVELS_REASON = "constant within every series, so the series levels already hold it; left out of the fit"
 

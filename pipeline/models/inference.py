@@ -22,7 +22,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.distributions import chi2_upper, f_upper, t_quantile, t_upper
-from pipeline.models.ols import INTERCEPT, LeastSquaresFit, least_squares, unit_scale
+from pipeline.core.scale import unit_scale
+from pipeline.models.ols import INTERCEPT, LeastSquaresFit, least_squares
 
 ALPHA = 0.05
 

@@ -20,6 +20,7 @@ import scipy.linalg
 from pipeline.core.distributions import t_quantile, t_upper
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
+from pipeline.core.scale import unit_scale
 from pipeline.models.contract import Model
 
 INTERCEPT = "intercept"
@@ -90,18 +91,6 @@ class LeastSquaresFit:
             "t": t_values, "p_value": p_values,
             f"low_{percent}": low, f"high_{percent}": high,
         })
-
-
-def unit_scale(values) -> float:
-    """Return the power of two nearest above the largest finite size among ``values`` (1 when
-    all are zero): dividing by it is exact, and brings numbers of any size (1e-300 or 1e145)
-    to about 1, where their squares neither underflow nor overflow."""
-    values = np.asarray(values, float)
-    finite = np.abs(values[np.isfinite(values)])
-    largest = float(finite.max()) if finite.size else 0.0
-    if largest == 0.0:
-        return 1.0
-    return float(np.ldexp(1.0, int(np.frexp(largest)[1])))
 
 
 def _rank_tolerance(r: np.ndarray, n: int) -> float:
