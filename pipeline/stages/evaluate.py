@@ -546,6 +546,9 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
              _tested(predictions, model, BASELINE, select_by, testable) for model in table["model"]]
     same = [model != BASELINE and _same_forecasts(predictions, model, BASELINE)
             for model in table["model"]]
+    # A model whose forecasts are the mean's to rounding has no skill of its own to measure (a
+    # target that varies only in its last digits would give one of rounding noise).
+    table.loc[np.asarray(same, bool), "skill_vs_mean"] = np.nan
     table["test_statistic"] = [statistic for statistic, _ in tests]
     table["p_value"] = [p for _, p in tests]
     # Picking the best of several models is itself a search: the p-values are adjusted for
@@ -567,7 +570,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     baseline_value = float(table.loc[table["model"] == BASELINE, select_by].iloc[0])
     # A model must beat the baseline by more than rounding to be preferred to it.
     contenders = table[(table["model"] == BASELINE)
-                       | (table[select_by] < baseline_value - 1e-9 * abs(baseline_value))]
+                       | ((table[select_by] < baseline_value - 1e-9 * abs(baseline_value)) & ~np.asarray(same))]
     contenders = contenders[contenders[select_by].notna()]
     recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
     answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)
