@@ -43,6 +43,7 @@ from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
 from pipeline.models.inference import (
     EXACT,
     EXACT_NOTE,
+    EXACT_SHARE,
     FLAT_NOTE,
     diagnose,
     findings_table,
@@ -214,7 +215,6 @@ class _FitReport:
     residuals: pd.DataFrame
     summary: dict
     warnings: list[str]
-    notes: list[str]
 
 
 def _level_sandwich(spec: Spec, fit, matrix: np.ndarray, design: Design) -> dict:
@@ -265,16 +265,34 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
                "rank": fit.rank, "r2": r2, "adj_r2": adj_r2,
                "resid_sd": 0.0 if state else fit.resid_sd, "condition_number": fit.condition_number,
                "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"}
-    notes = [f"{kind}: {EXACT_NOTE if state == EXACT else FLAT_NOTE}"] if state else []
+    # An exact fit in real data usually means the target was made from a driver: a warning.
+    exact = [f"{kind}: {EXACT_NOTE if state == EXACT else FLAT_NOTE}"] if state else []
     return _FitReport(terms, diagnostics, vif, influential, residuals, summary,
-                      [f"{kind}: {item.describe()}" for item in fit.dropped], notes)
+                      [f"{kind}: {item.describe()}" for item in fit.dropped] + exact)
 
 
-def _other_terms(spec: Spec, choice, model, kind: str) -> tuple[pd.DataFrame, list[str]]:
+def _exact_series(model, design: Design, y: np.ndarray) -> np.ndarray:
+    """Return the series a model per series fits exactly: its residual SD no more than
+    EXACT_SHARE of the series' largest target (their t-tests would test rounding)."""
+    inner = model.inner
+    largest = pd.Series(np.abs(np.asarray(y, float))).groupby(np.asarray(design.series, object)).max()
+    sizes = largest.reindex(inner.series_).to_numpy(float)
+    return np.asarray(inner.series_)[~inner.fell_back_ & (inner.resid_sd_ <= EXACT_SHARE * sizes)]
+
+
+def _other_terms(spec: Spec, choice, model, kind: str, design: Design,
+                 y: np.ndarray) -> tuple[pd.DataFrame, list[str]]:
     """Return the coefficient table of a model not fitted by plain least squares, and the
     warnings that go with it."""
     terms = model.coefficient_table()
     warnings = []
+    if choice.per_series and hasattr(model.inner, "resid_sd_"):
+        exact = terms["series"].isin(_exact_series(model, design, y)).to_numpy()
+        if exact.any():
+            terms = pd.concat([terms[~exact], without_tests(terms[exact])]).sort_index()
+            warnings.append(f"{kind}: the fit is exact in {len(set(terms['series'][exact]))} series "
+                            "(every residual zero, to rounding): their standard errors are zero and "
+                            "no t-test applies")
     if choice.per_series:
         terms["standard_errors"] = "classical"
         if spec.standard_errors != "classical":
@@ -390,9 +408,9 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
             report = _least_squares_report(spec, data, model, kind, history_design, y)
             terms = report.terms
             summaries.append(report.summary)
-            warnings, fit_notes = warnings + report.warnings, fit_notes + report.notes
+            warnings += report.warnings
         else:
-            terms, notes = _other_terms(spec, choice, model, kind)
+            terms, notes = _other_terms(spec, choice, model, kind, history_design, y)
             warnings += notes
         terms.insert(0, "model", kind)
         coefficients.append(terms)

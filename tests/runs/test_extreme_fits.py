@@ -12,8 +12,8 @@ months of history from 2019-01 and 3 months to forecast, one driver x ~ uniform(
 - ``flat``: one series only, y = 100 + 1e-13·N(0, 1), whose variation is within rounding of 100;
 - ``e300``: y × 1e300, which the check refuses (beyond what castline computes with).
 
-Validation is a rolling origin (horizon 3, from 24 months), 14 origins, so the comparison
-test runs too. The references for the residual checks are statsmodels' own functions
+The models: OLS over both series and OLS per series. Validation is a rolling origin
+(horizon 3, from 24 months), 14 origins, so the comparison test runs too. The references for the residual checks are statsmodels' own functions
 (jarque_bera, durbin_watson, het_breuschpagan, acorr_ljungbox) on the plain run's
 residuals, an implementation independent of castline's.
 """
@@ -67,7 +67,7 @@ def _spec(folder: Path, kind: str) -> Path:
             "input": {"file": "data.csv", "date_column": "month", "period": "month", "series": ["region"]},
             "target": "y", "drivers": {"numeric": ["x"]},
             "validation": {"method": "rolling_origin", "horizon": AHEAD, "min_train_periods": 24},
-            "models": ["ols"], "output": {"folder": "runs"}}
+            "models": ["ols", {"kind": "ols", "per_series": True}], "output": {"folder": "runs"}}
     path = folder / "spec.yaml"
     path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
     return path
@@ -116,7 +116,9 @@ def test_an_exact_fit_leaves_its_residual_checks_undefined_and_says_why(runs, ki
         _diagnostics(runs["plain"][2])["condition number (scaled design)"], rel=1e-12) or kind == "flat"
     for page in ("summary.md", "report.html"):
         assert READING in (folder / page).read_text(encoding="utf-8"), page
+    # No t-test of an exact fit, over all series or per series.
     terms = pd.read_csv(folder / "coefficients.csv")
+    assert set(terms["model"]) >= {"ols", "ols_per_series"}
     assert terms["p_value"].isna().all() and (terms["std_error"].dropna() == 0).all()
 
 
@@ -148,6 +150,10 @@ def test_scale_free_checks_do_not_move_when_the_target_is_scaled(runs, kind):
     for column in ("skill_vs_mean", "p_value"):
         if column in plain_table:
             np.testing.assert_allclose(scaled_table[column], plain_table[column], rtol=1e-9)
+    plain_terms = pd.read_csv(runs["plain"][2] / "coefficients.csv")
+    scaled_terms = pd.read_csv(runs[kind][2] / "coefficients.csv")
+    np.testing.assert_allclose(scaled_terms["t"], plain_terms["t"], rtol=1e-8)
+    np.testing.assert_allclose(scaled_terms["std_error"], plain_terms["std_error"] * factor, rtol=1e-8)
     held = pd.read_csv(runs["plain"][2] / "interval_coverage.csv")["coverage"]
     np.testing.assert_allclose(pd.read_csv(runs[kind][2] / "interval_coverage.csv")["coverage"], held)
 
