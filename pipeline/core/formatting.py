@@ -22,6 +22,10 @@ DASH_NOTE = ("— no value: not defined for this row (the mean of the training m
 TINY = 0.001           # below this a number keeps three significant digits, a p-value reads "< 0.001"
 SIGNIFICANT_DIGITS = 4
 SMALLEST_DECIMAL = Decimal("0.000001")   # below this a number is written as a power of ten
+# From here up a double no longer holds every whole digit (it carries about 16), so a number
+# is written as a power of ten with four significant digits (2.587 × 10¹⁴⁷), not in digits
+# it does not have.
+LARGEST_WHOLE = 1e15
 SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 # Columns holding shares, shown as percents: an interval's level and the share it held.
 SHARE_COLUMNS = ("level", "coverage")
@@ -76,6 +80,8 @@ def format_number(value) -> str:
         return "0"
     if abs(value) < TINY:
         return _small(value)
+    if abs(value) >= LARGEST_WHOLE:
+        return _power_of_ten(value, SIGNIFICANT_DIGITS)
     rounded = _rounded(value, SIGNIFICANT_DIGITS)
     if abs(rounded) >= 1000:
         return _whole(value)
@@ -90,9 +96,17 @@ def _small(value: float) -> str:
     if abs(rounded) >= SMALLEST_DECIMAL:
         text = f"{rounded:f}"
         return text.rstrip("0").rstrip(".")
-    mantissa, exponent = f"{float(rounded):.2e}".split("e")
-    mantissa = mantissa.rstrip("0").rstrip(".")
-    return f"{mantissa} × 10{str(int(exponent)).translate(SUPERSCRIPT)}"
+    return _power_of_ten(value, 3)
+
+
+def _power_of_ten(value: float, digits: int) -> str:
+    """Return a number as a mantissa to ``digits`` significant digits (half away from zero,
+    trailing zeros dropped) times a power of ten with a superscript exponent."""
+    rounded = _rounded(value, digits)
+    mantissa = rounded.scaleb(-rounded.adjusted())
+    text = f"{mantissa:f}"
+    text = text.rstrip("0").rstrip(".") if "." in text else text
+    return f"{text} × 10{str(rounded.adjusted()).translate(SUPERSCRIPT)}"
 
 
 def format_share(value) -> str:

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from pipeline.core.scale import unit_scale
+
 
 def _pair(actual, predicted) -> tuple[np.ndarray, np.ndarray]:
     actual = np.asarray(actual, dtype=float)
@@ -31,7 +33,9 @@ def mae(actual, predicted) -> float:
 def rmse(actual, predicted) -> float:
     """Return the root mean squared error."""
     actual, predicted = _pair(actual, predicted)
-    return float(np.sqrt(np.mean((predicted - actual) ** 2)))
+    error = predicted - actual
+    size = unit_scale(error)   # squared at about 1: errors of 1e-300 do not square to 0
+    return float(size * np.sqrt(np.mean((error / size) ** 2)))
 
 
 def mape(actual, predicted) -> tuple[float, int]:
@@ -103,6 +107,8 @@ def mase(actual, predicted, scale) -> float:
 def r2_out_of_sample(actual, predicted) -> float:
     """Return 1 − Σ(actual − prediction)² / Σ(actual − mean(actual))² over the scored rows."""
     actual, predicted = _pair(actual, predicted)
+    size = unit_scale(actual)   # a ratio: taken at the actuals' unit scale
+    actual, predicted = actual / size, predicted / size
     total = float(np.sum((actual - actual.mean()) ** 2))
     if total == 0:
         return float("nan")

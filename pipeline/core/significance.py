@@ -31,6 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pipeline.core.distributions import t_upper
+from pipeline.core.scale import row_unit_scales
 
 COSINE_TERMS = 2        # B: the variance's degrees of freedom
 PHI_BOUND = 0.9         # the prewhitening coefficient is kept within ±0.9
@@ -63,6 +64,9 @@ def origin_tests(differences: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     the differences do not vary after filtering (all one sign, no noise) the statistic is
     ±inf and p is 0 or 1."""
     d = np.atleast_2d(np.asarray(differences, float))
+    # The test does not depend on the unit of the losses: each row is taken at its unit scale,
+    # so that the squares in its variance neither underflow nor overflow.
+    d = d / row_unit_scales(d)[:, None]
     groups, count = d.shape
     if count < 3:
         return np.full(groups, np.nan), np.full(groups, np.nan)

@@ -19,11 +19,12 @@ covariance, because a series' mean target is uncorrelated with the slopes.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
 
+from pipeline.core.scale import unit_scale
 from pipeline.models.ols import Collinearity, LeastSquaresFit, least_squares
 
 LEVELS_REASON = "constant within every series, so the series levels already hold it; left out of the fit"
@@ -146,16 +147,20 @@ class AbsorbedFit:
         or with ``scores`` a sandwich's (see ``_sandwich_variances``: HC3 with e/(1 − h) and no
         lags, HAC with e, its lags and the rows' time order)."""
         kept, inverse = self._kept_inverse()
-        sigma2 = self.resid_sd ** 2
         means = self.driver_means[:, kept]
         apart = means - means[0]
+        # The variances per unit of the target's scale (squares of a target of 1e-300 or
+        # 1e145 would underflow or overflow), the standard errors then times that scale.
         if scores is not None:
-            reference_variance, difference_variance = self._sandwich_variances(within, scores, lags, order)
+            size = unit_scale(scores)
+            reference_variance, difference_variance = self._sandwich_variances(
+                within, np.asarray(scores, float) / size, lags, order)
         else:
-            reference_variance = sigma2 * (1.0 / self.counts[0] + means[0] @ inverse @ means[0])
-            difference_variance = sigma2 * (1.0 / self.counts + 1.0 / self.counts[0]
-                                            + np.einsum("ij,jk,ik->i", apart, inverse, apart))
-        stderr = np.sqrt(np.r_[reference_variance, difference_variance[1:]])
+            size = self.resid_sd
+            reference_variance = 1.0 / self.counts[0] + means[0] @ inverse @ means[0]
+            difference_variance = (1.0 / self.counts + 1.0 / self.counts[0]
+                                   + np.einsum("ij,jk,ik->i", apart, inverse, apart))
+        stderr = size * np.sqrt(np.r_[reference_variance, difference_variance[1:]])
         estimate = np.r_[self.levels[0], self.levels[1:] - self.levels[0]]
         table = LeastSquaresFit(
             names=["intercept", *[str(name) for name in self.series_names[1:]]], coef=estimate,
@@ -169,8 +174,17 @@ def absorbed_least_squares(matrix: np.ndarray, y: np.ndarray, series, names: lis
                            ) -> AbsorbedFit:
     """Return the OLS fit of y on the columns of ``matrix`` plus a level per series of
     ``series`` (an intercept is implied: do not add one), by the within transformation."""
-    x = np.asarray(matrix, float)
     y = np.asarray(y, float)
+    # Fitted at the target's unit scale (an exact power of two): see least_squares.
+    size = unit_scale(y)
+    fit = _absorbed_least_squares(np.asarray(matrix, float), y / size, series, names)
+    if size == 1.0:
+        return fit
+    return replace(fit, slopes=fit.slopes.rescaled(size), levels=fit.levels * size,
+                   residual_ss=fit.residual_ss * size * size, total_ss=fit.total_ss * size * size)
+
+
+def _absorbed_least_squares(x: np.ndarray, y: np.ndarray, series, names: list[str] | None) -> AbsorbedFit:
     n, p = x.shape
     names = list(names) if names is not None else [f"x{i}" for i in range(p)]
     codes, series_names = pd.factorize(np.asarray(series), sort=True)

@@ -11,7 +11,7 @@ nine significant digits on all eight linear datasets.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -20,6 +20,7 @@ import scipy.linalg
 from pipeline.core.distributions import t_quantile, t_upper
 from pipeline.core.execution import IN_PROCESS, Executor
 from pipeline.core.progress import QUIET, Progress
+from pipeline.core.scale import unit_scale
 from pipeline.models.contract import Model
 
 INTERCEPT = "intercept"
@@ -60,6 +61,12 @@ class LeastSquaresFit:
     dropped: list[Collinearity] = field(default_factory=list)
     xtx_inverse: np.ndarray | None = None   # (X'X)⁻¹ on the columns' own scale; NaN for dropped
     leverage: np.ndarray | None = None      # diagonal of the hat matrix, per row
+
+    def rescaled(self, factor: float) -> LeastSquaresFit:
+        """Return the fit of the target times ``factor``: the coefficients, their standard
+        errors, the residuals and their SD scale with it; R², the leverage and the rest do not."""
+        return replace(self, coef=self.coef * factor, stderr=self.stderr * factor,
+                       residuals=self.residuals * factor, resid_sd=self.resid_sd * factor)
 
     @property
     def kept(self) -> np.ndarray:
@@ -132,6 +139,16 @@ def least_squares(matrix: np.ndarray, y: np.ndarray, names: list[str] | None = N
     names = list(names) if names is not None else [f"x{i}" for i in range(p)]
     if n == 0 or p == 0:
         raise ValueError("least squares needs at least one row and one column")
+    # Fitted at the target's unit scale (an exact power of two), so that sums of squares
+    # neither underflow for a tiny target nor overflow for a huge one.
+    size = unit_scale(y)
+    if size != 1.0:
+        return _least_squares(x, y / size, names, centered_r2).rescaled(size)
+    return _least_squares(x, y, names, centered_r2)
+
+
+def _least_squares(x: np.ndarray, y: np.ndarray, names: list[str], centered_r2: bool) -> LeastSquaresFit:
+    n, p = x.shape
 
     norms = np.sqrt(np.einsum("ij,ij->j", x, x))
     zero = norms == 0
@@ -363,8 +380,10 @@ class GrowingLeastSquares:
         r = self.r_[:p, :p]
         z = scipy.linalg.solve_triangular(r, (np.asarray(matrix, float) / self.scale).T,
                                           trans="T", check_finite=False)
-        residual_ss = float(self.r_[p, p] ** 2) if self.r_.shape[0] > p else 0.0
-        s = np.sqrt(residual_ss / (self.rows_ - p))
+        # |R[p, p]| is the root of the residual sum of squares (never squared: it underflows
+        # for a target of 1e-300).
+        residual_root = float(abs(self.r_[p, p])) if self.r_.shape[0] > p else 0.0
+        s = residual_root / np.sqrt(self.rows_ - p)
         return s * np.sqrt(1.0 + np.einsum("ij,ij->j", z, z))
 
 

@@ -83,7 +83,8 @@ def _rank_ok(r: np.ndarray, n: int) -> np.ndarray:
 
 
 def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
-    """Return coef, (X'X)⁻¹, RSS and a full-rank flag for a stack g×n×p of designs."""
+    """Return coef, (X'X)⁻¹, the root of the RSS and a full-rank flag for a stack g×n×p of
+    designs."""
     norms = np.sqrt(np.einsum("gnp,gnp->gp", x, x))
     scaled = x / norms[:, None, :]
     q, r = np.linalg.qr(scaled)
@@ -101,10 +102,15 @@ def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
     for _ in range(2):
         beta = beta + solve(y - np.einsum("gnp,gp->gn", scaled, beta))
     residual = y - np.einsum("gnp,gp->gn", scaled, beta)
-    rss = np.einsum("gn,gn->g", residual, residual)
+    # The root of the RSS, summed at each series' own scale: the squares of a target of
+    # 1e-300 would underflow, of 1e145 overflow.
+    size = np.abs(residual).max(axis=1, initial=0.0)
+    size = np.where(size > 0, size, 1.0)
+    unit = residual / size[:, None]
+    rss_root = size * np.sqrt(np.einsum("gn,gn->g", unit, unit))
     unscaled = np.einsum("gij,gkj->gik", r_inverse, r_inverse)
     xtx_inverse = unscaled / (norms[:, :, None] * norms[:, None, :])
-    return beta / norms, xtx_inverse, rss, ok
+    return beta / norms, xtx_inverse, rss_root, ok
 
 
 def _series_moments(y: np.ndarray, counts: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -165,13 +171,13 @@ def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.nd
         index = starts[members][:, None] + np.arange(rows)
         stack = task.matrix[index][:, :, columns]
         with np.errstate(all="ignore"):
-            beta, inverse, rss, ok = _fit_stack(stack, y[index])
+            beta, inverse, rss_root, ok = _fit_stack(stack, y[index])
         good = members[ok]
         numbers.coef[np.ix_(good, columns)] = beta[ok]
         numbers.xtx_inverse[np.ix_(good, columns, columns)] = inverse[ok]
         numbers.df_resid[good] = rows - len(columns)
         numbers.rank[good] = len(columns)
-        numbers.resid_sd[good] = np.sqrt(rss[ok] / (rows - len(columns)))
+        numbers.resid_sd[good] = rss_root[ok] / np.sqrt(rows - len(columns))
         careful += members[~ok].tolist()
     return careful
 
@@ -396,8 +402,10 @@ class PerSeriesOLS(Model):
     def coefficient_table(self, level: float = 0.95) -> pd.DataFrame:
         """Return, per series and term, the estimate, standard error, t, p and interval."""
         series_count, terms = self.coef_.shape
-        variance = np.einsum("gii->gi", self.xtx_inverse_) * self.resid_sd_[:, None] ** 2
-        stderr = np.where(np.isfinite(self.coef_), np.sqrt(np.maximum(variance, 0)), np.nan)
+        spread = np.einsum("gii->gi", self.xtx_inverse_)
+        # s·sqrt(diag (X'X)⁻¹), never s² (it underflows for a target of 1e-300)
+        stderr = np.where(np.isfinite(self.coef_), np.sqrt(np.maximum(spread, 0)) * self.resid_sd_[:, None],
+                          np.nan)
         df = np.repeat(self.df_resids_.astype(float), terms)
         df[df <= 0] = np.nan
         with np.errstate(divide="ignore", invalid="ignore"):

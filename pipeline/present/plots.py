@@ -298,7 +298,8 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
 def _clearest(names, middle, low, high, unit: str) -> str:
     """Return the sentence naming the term whose interval lies furthest from zero for its width."""
     width = (np.asarray(high, float) - np.asarray(low, float)) / 2
-    distance = np.where((width > 0) & np.isfinite(width), np.abs(np.asarray(middle, float)) / width, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):   # an exact fit's intervals have no width
+        distance = np.where((width > 0) & np.isfinite(width), np.abs(np.asarray(middle, float)) / width, np.nan)
     if not np.isfinite(distance).any():
         return ""
     at = int(np.nanargmax(distance))

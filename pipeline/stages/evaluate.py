@@ -30,6 +30,7 @@ from pipeline.core.intervals import (
     shortfall_warning,
     stated_interval_score,
 )
+from pipeline.core.scale import unit_scale
 from pipeline.core.significance import METHOD, MIN_ORIGINS, holm, origin_test, origin_tests
 from pipeline.spec import Spec
 from pipeline.stages.answer import answer as compose_answer
@@ -161,14 +162,16 @@ def grouped_scores(predictions: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
         scale_usable = np.isfinite(scale) & (scale > 0)
         mase, _ = masked_mean(absolute / np.where(scale_usable, scale, 1.0), scale_usable)
         absolute_sum = _sums(absolute, starts)
-        squared_sum = _sums(error ** 2, starts)
+        # Squares at the errors' unit scale (errors of 1e-300 would square to 0), in that unit.
+        size = unit_scale(error)
+        squared_sum = _sums((error / size) ** 2, starts)
         actual_total = _sums(np.abs(actual), starts)
         wape = np.where(actual_total != 0, absolute_sum / actual_total, np.nan)
-        spread = _sums((actual - (_sums(actual, starts) / n)[group]) ** 2, starts)
+        spread = _sums(((actual - (_sums(actual, starts) / n)[group]) / size) ** 2, starts)
         r2 = np.where((sizes > 1) & (spread != 0), 1.0 - squared_sum / spread, np.nan)
     first = predictions.iloc[order[starts]]
     table = pd.DataFrame({key: first[key].to_numpy() for key in keys})
-    table = table.assign(n=sizes.astype(np.int64), mae=absolute_sum / n, rmse=np.sqrt(squared_sum / n),
+    table = table.assign(n=sizes.astype(np.int64), mae=absolute_sum / n, rmse=size * np.sqrt(squared_sum / n),
                          mape=mape, smape=smape, wape=wape, mase=mase, r2=r2,
                          bias=_sums(error, starts) / n,
                          mape_rows_left_out=(sizes - mape_count).astype(np.int64))
@@ -213,7 +216,9 @@ def _loss(actual: np.ndarray, predicted: np.ndarray, scale: np.ndarray,
     error = predicted - actual
     with np.errstate(invalid="ignore", divide="ignore"):
         if select_by == "rmse":
-            return error ** 2
+            # At the actuals' unit scale, the same for the two forecasts compared: their
+            # squares neither underflow nor overflow, and the test does not depend on the unit.
+            return (error / unit_scale(actual)) ** 2
         if select_by == "mape":
             return np.where(actual != 0, np.abs(error / actual), np.nan)
         if select_by == "smape":
@@ -541,6 +546,9 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
              _tested(predictions, model, BASELINE, select_by, testable) for model in table["model"]]
     same = [model != BASELINE and _same_forecasts(predictions, model, BASELINE)
             for model in table["model"]]
+    # A model whose forecasts are the mean's to rounding has no skill of its own to measure (a
+    # target that varies only in its last digits would give one of rounding noise).
+    table.loc[np.asarray(same, bool), "skill_vs_mean"] = np.nan
     table["test_statistic"] = [statistic for statistic, _ in tests]
     table["p_value"] = [p for _, p in tests]
     # Picking the best of several models is itself a search: the p-values are adjusted for
@@ -562,7 +570,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     baseline_value = float(table.loc[table["model"] == BASELINE, select_by].iloc[0])
     # A model must beat the baseline by more than rounding to be preferred to it.
     contenders = table[(table["model"] == BASELINE)
-                       | (table[select_by] < baseline_value - 1e-9 * abs(baseline_value))]
+                       | ((table[select_by] < baseline_value - 1e-9 * abs(baseline_value)) & ~np.asarray(same))]
     contenders = contenders[contenders[select_by].notna()]
     recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
     answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)

@@ -40,7 +40,18 @@ from pipeline.core.progress import QUIET, Progress
 from pipeline.features.future import require_a_year
 from pipeline.features.plan import plan_features
 from pipeline.models import BASELINE_KINDS, make_model, prediction_spread
-from pipeline.models.inference import coefficient_table, covariance, diagnose, findings_table, newey_west_lags
+from pipeline.models.inference import (
+    EXACT,
+    EXACT_NOTE,
+    EXACT_SHARE,
+    FLAT_NOTE,
+    diagnose,
+    findings_table,
+    fit_coefficient_table,
+    fit_state,
+    newey_west_lags,
+    without_tests,
+)
 from pipeline.spec import Scenario, Spec
 from pipeline.stages.backtest import BacktestResult, mase_scales, series_fallbacks, target_floor
 from pipeline.stages.check import CheckedData
@@ -225,41 +236,62 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
     and the fit's summary of a model fitted by least squares on all history."""
     fit = model.least_squares_fit
     matrix = model.design_matrix(design)
-    cov = covariance(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
-                     groups=design.series, order=design.period)
-    terms = coefficient_table(fit, cov)
-    terms["standard_errors"] = spec.standard_errors
     absorbed = getattr(model.inner, "absorbed_", None) is not None
+    fitted = y - fit.residuals if absorbed else matrix[:, fit.kept] @ fit.coef[fit.kept]
+    state = fit_state(fit, fitted + fit.residuals)
+    terms = fit_coefficient_table(fit, matrix, spec.standard_errors, lags=spec.autocorrelation_lags,
+                                  groups=design.series, order=design.period, exact=bool(state))
+    terms["standard_errors"] = spec.standard_errors
     if absorbed:
         # The levels the fit absorbed, around the slopes, with the same kind of standard errors.
-        terms = model.inner.with_levels(terms, **_level_sandwich(spec, fit, matrix, design))
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            terms = model.inner.with_levels(terms, **_level_sandwich(spec, fit, matrix, design))
+        terms = without_tests(terms) if state else terms
         terms["standard_errors"] = spec.standard_errors
     findings, vif, influential = diagnose(
         fit, matrix, groups=design.series, order=design.period,
         row_labels=_row_labels(data.history, design),
         term_groups=dict(zip(design.names, design.term_groups)) if design.term_groups else None,
-        absorbed_series=design.series if absorbed else None)
+        absorbed_series=design.series if absorbed else None, target=fitted + fit.residuals)
     diagnostics = findings_table(findings)
     residuals = pd.DataFrame({
         "period": pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str),
-        "series": design.series,
-        "fitted": y - fit.residuals if absorbed else matrix[:, fit.kept] @ fit.coef[fit.kept],
-        "residual": fit.residuals})
+        "series": design.series, "fitted": fitted, "residual": fit.residuals})
     diagnostics.insert(0, "model", kind)
     levels = len(model.inner.absorbed_.series_names) if absorbed else 0   # the intercept among them
+    r2, adj_r2 = diagnostics["value"].iloc[0], diagnostics["value"].iloc[1]   # as the checks read them
     summary = {"model": kind, "rows": len(y), "terms": len(fit.names) + levels,
-               "rank": fit.rank, "r2": fit.r2, "adj_r2": fit.adj_r2,
-               "resid_sd": fit.resid_sd, "condition_number": fit.condition_number,
+               "rank": fit.rank, "r2": r2, "adj_r2": adj_r2,
+               "resid_sd": 0.0 if state else fit.resid_sd, "condition_number": fit.condition_number,
                "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"}
+    # An exact fit in real data usually means the target was made from a driver: a warning.
+    exact = [f"{kind}: {EXACT_NOTE if state == EXACT else FLAT_NOTE}"] if state else []
     return _FitReport(terms, diagnostics, vif, influential, residuals, summary,
-                      [f"{kind}: {item.describe()}" for item in fit.dropped])
+                      [f"{kind}: {item.describe()}" for item in fit.dropped] + exact)
 
 
-def _other_terms(spec: Spec, choice, model, kind: str) -> tuple[pd.DataFrame, list[str]]:
+def _exact_series(model, design: Design, y: np.ndarray) -> np.ndarray:
+    """Return the series a model per series fits exactly: its residual SD no more than
+    EXACT_SHARE of the series' largest target (their t-tests would test rounding)."""
+    inner = model.inner
+    largest = pd.Series(np.abs(np.asarray(y, float))).groupby(np.asarray(design.series, object)).max()
+    sizes = largest.reindex(inner.series_).to_numpy(float)
+    return np.asarray(inner.series_)[~inner.fell_back_ & (inner.resid_sd_ <= EXACT_SHARE * sizes)]
+
+
+def _other_terms(spec: Spec, choice, model, kind: str, design: Design,
+                 y: np.ndarray) -> tuple[pd.DataFrame, list[str]]:
     """Return the coefficient table of a model not fitted by plain least squares, and the
     warnings that go with it."""
     terms = model.coefficient_table()
     warnings = []
+    if choice.per_series and hasattr(model.inner, "resid_sd_"):
+        exact = terms["series"].isin(_exact_series(model, design, y)).to_numpy()
+        if exact.any():
+            terms = pd.concat([terms[~exact], without_tests(terms[exact])]).sort_index()
+            warnings.append(f"{kind}: the fit is exact in {len(set(terms['series'][exact]))} series "
+                            "(every residual zero, to rounding): their standard errors are zero and "
+                            "no t-test applies")
     if choice.per_series:
         terms["standard_errors"] = "classical"
         if spec.standard_errors != "classical":
@@ -377,7 +409,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
             summaries.append(report.summary)
             warnings += report.warnings
         else:
-            terms, notes = _other_terms(spec, choice, model, kind)
+            terms, notes = _other_terms(spec, choice, model, kind, history_design, y)
             warnings += notes
         terms.insert(0, "model", kind)
         coefficients.append(terms)
