@@ -13,6 +13,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from pathlib import Path
 
 import pandas as pd
@@ -239,6 +240,9 @@ def test_hostile_text_in_every_csv_castline_writes_reads_back_row_for_row(tmp_pa
     def counting(frame, target, **options):
         # A run's tables are written in its staging folder, renamed when complete.
         key = str(target).replace("/.incomplete-", "/") if isinstance(target, (str, Path)) else "stdout"
+        # An option's output file is written in one step: a hidden .NAME.*.part renamed over NAME.
+        hidden = re.fullmatch(r"\.(.+)\.[^.]+\.part", Path(key).name)
+        key = str(Path(key).with_name(hidden.group(1))) if hidden else key
         written[key] = len(frame)
         real(frame, target, **options)
     monkeypatch.setattr(safe_csv, "write_csv", counting)
