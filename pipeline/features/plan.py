@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
-from pipeline.core.columns import PERIOD, month_ordinals
+from pipeline.core.columns import PERIOD, loaded_name, month_ordinals, plain_name
 from pipeline.core.design import Design
 from pipeline.core.errors import DataError, ModelFileError, SpecError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode, encode_settings
@@ -415,7 +415,7 @@ class FeaturePlan:
         state = {
             "numeric": [encode_settings(d) for d in self.numeric],
             "categorical": [encode_settings(d) for d in self.categorical],
-            "series_column": self.series_column, "interactions": self.interactions,
+            "series_column": plain_name(self.series_column), "interactions": self.interactions,
             "calendar": encode_settings(self.calendar) if self.calendar is not None else None,
             "lags": [encode_settings(lagged) for lagged in self.lags],
             "target": self.target, "target_transform": self.target_transform, "source": self.source,
@@ -458,7 +458,7 @@ class FeaturePlan:
                 raise fields.bad("interactions", "a list of pairs of columns")
             plan = cls(fields.settings_list("numeric", NumericDriver),
                        fields.settings_list("categorical", CategoricalDriver),
-                       fields.text("series_column"), interactions=interactions,
+                       loaded_name(fields.text("series_column")), interactions=interactions,
                        calendar=fields.settings("calendar", CalendarFeatures, optional=True),
                        lags=fields.settings_list("lags", LaggedColumn),
                        target=fields.text("target", optional=True),

@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
+from pipeline.core.columns import loaded_name, plain_name
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.categorical import OneHotEncoder
 from pipeline.features.numeric import NumericTerms
@@ -71,7 +72,7 @@ class SeriesTerms(OneHotEncoder):
         """Return the settings and what was learned, as stored in a model file; each slope's
         driver as a reference to its place in ``parts``."""
         return encode_fields({
-            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "column": plain_name(self.column), "reference": self.reference, "group_below": self.group_below,
             "unseen": self.unseen, "intercepts": self.intercepts, "slopes": self.slopes,
             "grouped_": self.grouped_, "reference_": self.reference_,
             "known_levels_": self.known_levels_, "levels_": self.levels_,
@@ -82,7 +83,7 @@ class SeriesTerms(OneHotEncoder):
         """Return the fitted terms ``to_dict`` stored (``parts``: the features read before, which
         the slopes refer to)."""
         with StoredFields(data, cls.__name__, parts, version) as fields:
-            column = fields.text("column")
+            column = loaded_name(fields.text("column"))
             for key, fixed in (("reference", None), ("group_below", None), ("unseen", "use_reference")):
                 if fields.raw(key) != fixed:
                     raise fields.bad(key, repr(fixed))
