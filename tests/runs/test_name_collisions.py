@@ -140,3 +140,24 @@ def test_castlines_own_names_cannot_be_a_column_the_reader_gives():
         path = Path(folder) / "data.csv"
         path.write_text(f'"{PERIOD}","{SERIES}","{ROW}"\n1,2,3\n', encoding="utf-8")
         assert list(read_table(path, "csv").columns) == ["period", "series", "source_row"]
+
+
+def test_a_column_named_as_the_fingerprints_mark_is_fingerprinted(tmp_path):
+    # The ledger's month fingerprints mark each row with or without an actual: a driver named
+    # like that mark is the user's column, and a change to it changes its month's hash.
+    from pipeline.record.ledger.fingerprints import period_fingerprints
+    from pipeline.spec import load_spec
+    from pipeline.stages.check import check_data
+    from pipeline.stages.ingest import read_input
+    names = {**NEUTRAL, "numeric": "_actual"}
+    spec_path = _write(tmp_path / "data", names)
+
+    def hashes():
+        spec = load_spec(spec_path)
+        return period_fingerprints(check_data(spec, read_input(spec))).set_index("period")["sha256"]
+    before = hashes()
+    data = pd.read_csv(tmp_path / "data" / "data.csv")
+    data.loc[data["month"] == "2023-03-01", "_actual"] += 1.0
+    data.to_csv(tmp_path / "data" / "data.csv", index=False)
+    after = hashes()
+    assert list(before.index[before != after]) == ["2023-03"]
