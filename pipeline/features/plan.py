@@ -143,6 +143,8 @@ class FeaturePlan:
             if effects is not None and (effects.intercepts or effects.slopes):
                 terms = SeriesTerms(self.series_column, effects.intercepts,
                                     [numeric[column] for column in effects.slopes]).fit(frame)
+                if plain_name(self.series_column) in categorical:   # the user's driver keeps its name
+                    terms.word = f"the {plain_name(self.series_column)}"
                 self._check_series_terms(terms, frame)
                 parts.append(terms)
             self.row_parts_ = parts
@@ -493,8 +495,9 @@ def term_group_labels(part) -> list[str]:
     names = part.get_feature_names_out()
     if isinstance(part, SeriesTerms):
         levels = len(part.levels_)
-        return ["series"] * (levels if part.intercepts else 0) + [
-            f"{slope.column} × series" for slope in part.slopes for _ in range(levels)]
+        word = part.word or "series"
+        return [word] * (levels if part.intercepts else 0) + [
+            f"{slope.column} × {word}" for slope in part.slopes for _ in range(levels)]
     if isinstance(part, LagFeatures | TrendTerm | WorkingDays) or len(names) == 1:
         return names
     if isinstance(part, FourierTerms):

@@ -31,6 +31,13 @@ class SeriesTerms(OneHotEncoder):
         # True when the levels are not columns but absorbed by the fit (set by the plan, for
         # more series than dense columns allow): the design then holds the slopes alone.
         self.absorbed_ = False
+        # The word the terms are named by, when not the column's (set by the plan when a user's
+        # categorical driver bears the series column's plain word, so no two terms share a name).
+        self.word: str | None = None
+
+    @property
+    def name(self) -> str:
+        return self.word or super().name
 
     @property
     def level_columns(self) -> bool:
@@ -76,7 +83,8 @@ class SeriesTerms(OneHotEncoder):
             "unseen": self.unseen, "intercepts": self.intercepts, "slopes": self.slopes,
             "grouped_": self.grouped_, "reference_": self.reference_,
             "known_levels_": self.known_levels_, "levels_": self.levels_,
-            **({"absorbed_": True} if self.absorbed_ else {})}, parts)
+            **({"absorbed_": True} if self.absorbed_ else {}),
+            **({"word": self.word} if self.word else {})}, parts)
 
     @classmethod
     def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> SeriesTerms:
@@ -93,6 +101,7 @@ class SeriesTerms(OneHotEncoder):
             terms.known_levels_ = fields.texts("known_levels_")
             terms.levels_ = fields.texts("levels_")
             terms.absorbed_ = fields.flag("absorbed_") if "absorbed_" in data else False
+            terms.word = fields.text("word") if "word" in data else None
         terms._check_levels()
         return terms
 

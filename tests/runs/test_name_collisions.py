@@ -161,3 +161,47 @@ def test_a_column_named_as_the_fingerprints_mark_is_fingerprinted(tmp_path):
     data.to_csv(tmp_path / "data" / "data.csv", index=False)
     after = hashes()
     assert list(before.index[before != after]) == ["2023-03"]
+
+
+def test_a_categorical_driver_named_series_keeps_its_terms_apart_from_the_series(tmp_path):
+    # The series' own levels are terms "series: <label>"; a user's categorical driver named
+    # "series", with the levels A and B as the series have, keeps that name, and the series'
+    # terms take another word. The model file forecasts as the run did.
+    names = {**NEUTRAL, "categorical": "series"}
+    spec_path = _write(tmp_path / "data", names)
+    data = pd.read_csv(tmp_path / "data" / "data.csv")
+    data["series"] = data["series"].map({"low": "A", "high": "B"})
+    data.to_csv(tmp_path / "data" / "data.csv", index=False)
+    spec = yaml.safe_load(spec_path.read_text(encoding="utf-8"))
+    spec["drivers"]["categorical"][0]["reference"] = "A"
+    spec["drivers"]["series_effects"] = {"intercepts": True}
+    spec_path.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    code, _, err = run_cli(["run", str(spec_path)])
+    assert code == 0, err
+    run = next((tmp_path / "data" / "out").glob("run-*"))
+    terms = pd.read_csv(run / "coefficients.csv").query("model == 'ols'")["term"].tolist()
+    assert terms == ["intercept", "x_neutral", "series: B", "the series: B"]
+    code, _, err = run_cli(["forecast", str(run / "model.json"), str(tmp_path / "data" / "data.csv"),
+                            "--output", str(tmp_path / "again.csv")])
+    assert code == 0, err
+    keys = ["model", "period", "series"]
+    again = pd.read_csv(tmp_path / "again.csv").sort_values(keys, ignore_index=True)
+    ran = pd.read_csv(run / "forecast.csv").sort_values(keys, ignore_index=True)
+    np.testing.assert_allclose(again["forecast"], ran["forecast"], rtol=1e-12)
+
+
+def test_a_series_key_named_series_forecasts_from_the_model_file(tmp_path):
+    # The model file names castline's series column by its plain word "series"; a data file
+    # whose series key is itself named "series" is read by its own column.
+    spec_path = _write(tmp_path / "data", {**NEUTRAL, "series": "series"})
+    code, _, err = run_cli(["run", str(spec_path)])
+    assert code == 0, err
+    run = next((tmp_path / "data" / "out").glob("run-*"))
+    code, _, err = run_cli(["forecast", str(run / "model.json"), str(tmp_path / "data" / "data.csv"),
+                            "--output", str(tmp_path / "again.csv")])
+    assert code == 0, err
+    keys = ["model", "period", "series"]
+    again = pd.read_csv(tmp_path / "again.csv").sort_values(keys, ignore_index=True)
+    ran = pd.read_csv(run / "forecast.csv").sort_values(keys, ignore_index=True)
+    assert again["series"].tolist() == ran["series"].tolist()
+    np.testing.assert_allclose(again["forecast"], ran["forecast"], rtol=1e-12)
