@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.columns import plain_name
 from pipeline.core.errors import DataError, ModelFileError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.grouped import positions_of
@@ -23,6 +24,11 @@ class _LevelEncoder:
         self.reference = reference
         self.group_below = group_below
         self.unseen = unseen
+
+    @property
+    def name(self) -> str:
+        """Return the column's name as terms and messages show it."""
+        return plain_name(self.column)
 
     @property
     def group_label(self) -> str:
@@ -48,10 +54,10 @@ class _LevelEncoder:
             if self.reference in rare:
                 raise DataError(f"the reference level '{self.reference}' has fewer than "
                                 f"{self.group_below} training rows, so it is grouped with the other "
-                                "rare levels; choose another reference", column=self.column)
+                                "rare levels; choose another reference", column=self.name)
             if self.reference not in grouped_counts:
                 raise DataError(f"the reference level '{self.reference}' does not occur in the "
-                                f"training rows (levels: {', '.join(levels)})", column=self.column)
+                                f"training rows (levels: {', '.join(levels)})", column=self.name)
             self.reference_ = self.reference
         else:
             top = max(grouped_counts.values(), default=np.nan)
@@ -71,7 +77,7 @@ class _LevelEncoder:
                 raise DataError(f"level '{first}' was not in the training rows (known: "
                                 f"{', '.join(self.known_levels_)}); set unseen: use_reference to "
                                 "treat such levels as the reference level",
-                                column=self.column, row=first_row(frame, unseen))
+                                column=self.name, row=first_row(frame, unseen))
             values = values.where(~unseen, self.reference_)
         return values
 
@@ -84,7 +90,7 @@ class _LevelEncoder:
         if not unseen.any():
             return []
         levels = ", ".join(f"'{level}'" for level in sorted(values[unseen].unique()))
-        return [f"{self.column}: level {levels} was not in the training rows; "
+        return [f"{self.name}: level {levels} was not in the training rows; "
                 f"{which_rows(frame, unseen.to_numpy())} were treated as the reference level "
                 f"'{self.reference_}'"]
 
@@ -94,7 +100,7 @@ class _LevelEncoder:
         reference_ok = self.reference_ in known if known else self.reference_ is None
         if not reference_ok or not set(self.grouped_).isdisjoint(known) or \
                 not set(getattr(self, "levels_", ())) <= known:
-            raise ModelFileError(f"{type(self).__name__} of '{self.column}': its learned levels do "
+            raise ModelFileError(f"{type(self).__name__} of '{self.name}': its learned levels do "
                                  "not agree with one another")
 
     def main_effect(self, frame: pd.DataFrame) -> np.ndarray:
@@ -127,7 +133,7 @@ class OneHotEncoder(_LevelEncoder):
         return columns
 
     def get_feature_names_out(self) -> list[str]:
-        return [f"{self.column}: {level}" for level in self.levels_]
+        return [f"{self.name}: {level}" for level in self.levels_]
 
     def to_dict(self, parts=()) -> dict:
         """Return the settings and what was learned, as stored in a model file."""
@@ -168,7 +174,7 @@ class OrdinalEncoder(_LevelEncoder):
         outside = ~values.isin(self.order)
         if outside.any():
             raise DataError(f"level '{values[outside].iloc[0]}' is not in the order given in the "
-                            f"spec ({', '.join(self.order)})", column=self.column,
+                            f"spec ({', '.join(self.order)})", column=self.name,
                             row=first_row(frame, outside.to_numpy()))
         self.grouped_ = []
         self.known_levels_ = list(self.order)
@@ -188,7 +194,7 @@ class OrdinalEncoder(_LevelEncoder):
         shown = [f"{level} = {place}" for place, level in enumerate(self.order)]
         if len(shown) > 4:
             shown = shown[:2] + ["…"] + shown[-1:]
-        return [f"{self.column}: rank ({', '.join(shown)})"]
+        return [f"{self.name}: rank ({', '.join(shown)})"]
 
     def to_dict(self, parts=()) -> dict:
         """Return the settings and what was learned, as stored in a model file."""
@@ -248,7 +254,7 @@ class TargetMeanEncoder(_LevelEncoder):
         return self._labels(frame).map(self.means_).to_numpy(float)[:, None]
 
     def get_feature_names_out(self) -> list[str]:
-        return [f"{self.column}: smoothed mean of {self.target_name}"]
+        return [f"{self.name}: smoothed mean of {self.target_name}"]
 
     def to_dict(self, parts=()) -> dict:
         """Return the settings and what was learned, as stored in a model file."""

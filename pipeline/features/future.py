@@ -25,7 +25,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import month_ordinals
+from pipeline.core.columns import loaded_name, month_ordinals, plain_name
 from pipeline.core.design import held_series
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.grouped import group_last, group_means, positions_of
@@ -244,7 +244,7 @@ class FutureEstimates:
 
     def to_dict(self) -> dict:
         """Return the rules and the learned tables, as stored in a model file."""
-        return encode_fields({"rules": self.rules, "series_column": self.series_column,
+        return encode_fields({"rules": self.rules, "series_column": plain_name(self.series_column),
                               "window_end_": self.window_end_,
                               "tables_": {c: t.to_dict() for c, t in self.tables_.items()}})
 
@@ -256,7 +256,7 @@ class FutureEstimates:
             if not isinstance(rules, dict) or not all(
                     isinstance(c, str) and r in ESTIMATE_RULES for c, r in rules.items()):
                 raise fields.bad("rules", "estimate rules by column")
-            estimates = cls(rules, fields.text("series_column"))
+            estimates = cls(rules, loaded_name(fields.text("series_column")))
             estimates.window_end_ = fields.whole("window_end_")
             tables = fields.value("tables_")
             if not isinstance(tables, dict) or sorted(tables) != sorted(rules):

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
-from pipeline.core.columns import PERIOD, month_ordinals
+from pipeline.core.columns import PERIOD, loaded_name, month_ordinals, plain_name
 from pipeline.core.design import Design
 from pipeline.core.errors import DataError, ModelFileError, SpecError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode, encode_settings
@@ -143,6 +143,8 @@ class FeaturePlan:
             if effects is not None and (effects.intercepts or effects.slopes):
                 terms = SeriesTerms(self.series_column, effects.intercepts,
                                     [numeric[column] for column in effects.slopes]).fit(frame)
+                if plain_name(self.series_column) in categorical:   # the user's driver keeps its name
+                    terms.word = f"the {plain_name(self.series_column)}"
                 self._check_series_terms(terms, frame)
                 parts.append(terms)
             self.row_parts_ = parts
@@ -436,7 +438,7 @@ class FeaturePlan:
         state = {
             "numeric": [encode_settings(d) for d in self.numeric],
             "categorical": [encode_settings(d) for d in self.categorical],
-            "series_column": self.series_column, "interactions": self.interactions,
+            "series_column": plain_name(self.series_column), "interactions": self.interactions,
             "calendar": encode_settings(self.calendar) if self.calendar is not None else None,
             "lags": [encode_settings(lagged) for lagged in self.lags],
             "target": self.target, "target_transform": self.target_transform, "source": self.source,
@@ -479,7 +481,7 @@ class FeaturePlan:
                 raise fields.bad("interactions", "a list of pairs of columns")
             plan = cls(fields.settings_list("numeric", NumericDriver),
                        fields.settings_list("categorical", CategoricalDriver),
-                       fields.text("series_column"), interactions=interactions,
+                       loaded_name(fields.text("series_column")), interactions=interactions,
                        calendar=fields.settings("calendar", CalendarFeatures, optional=True),
                        lags=fields.settings_list("lags", LaggedColumn),
                        target=fields.text("target", optional=True),
@@ -514,8 +516,9 @@ def term_group_labels(part) -> list[str]:
     names = part.get_feature_names_out()
     if isinstance(part, SeriesTerms):
         levels = len(part.levels_)
-        return ["series"] * (levels if part.intercepts else 0) + [
-            f"{slope.column} × series" for slope in part.slopes for _ in range(levels)]
+        word = part.word or "series"
+        return [word] * (levels if part.intercepts else 0) + [
+            f"{slope.column} × {word}" for slope in part.slopes for _ in range(levels)]
     if isinstance(part, LagFeatures | TrendTerm | WorkingDays) or len(names) == 1:
         return names
     if isinstance(part, FourierTerms):

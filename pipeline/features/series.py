@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core.catalogue import LINEAR_KINDS
+from pipeline.core.columns import loaded_name, plain_name
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.categorical import OneHotEncoder
 from pipeline.features.numeric import NumericTerms
@@ -30,6 +31,13 @@ class SeriesTerms(OneHotEncoder):
         # True when the levels are not columns but absorbed by the fit (set by the plan, for
         # more series than dense columns allow): the design then holds the slopes alone.
         self.absorbed_ = False
+        # The word the terms are named by, when not the column's (set by the plan when a user's
+        # categorical driver bears the series column's plain word, so no two terms share a name).
+        self.word: str | None = None
+
+    @property
+    def name(self) -> str:
+        return self.word or super().name
 
     @property
     def level_columns(self) -> bool:
@@ -71,18 +79,19 @@ class SeriesTerms(OneHotEncoder):
         """Return the settings and what was learned, as stored in a model file; each slope's
         driver as a reference to its place in ``parts``."""
         return encode_fields({
-            "column": self.column, "reference": self.reference, "group_below": self.group_below,
+            "column": plain_name(self.column), "reference": self.reference, "group_below": self.group_below,
             "unseen": self.unseen, "intercepts": self.intercepts, "slopes": self.slopes,
             "grouped_": self.grouped_, "reference_": self.reference_,
             "known_levels_": self.known_levels_, "levels_": self.levels_,
-            **({"absorbed_": True} if self.absorbed_ else {})}, parts)
+            **({"absorbed_": True} if self.absorbed_ else {}),
+            **({"word": self.word} if self.word else {})}, parts)
 
     @classmethod
     def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> SeriesTerms:
         """Return the fitted terms ``to_dict`` stored (``parts``: the features read before, which
         the slopes refer to)."""
         with StoredFields(data, cls.__name__, parts, version) as fields:
-            column = fields.text("column")
+            column = loaded_name(fields.text("column"))
             for key, fixed in (("reference", None), ("group_below", None), ("unseen", "use_reference")):
                 if fields.raw(key) != fixed:
                     raise fields.bad(key, repr(fixed))
@@ -92,6 +101,7 @@ class SeriesTerms(OneHotEncoder):
             terms.known_levels_ = fields.texts("known_levels_")
             terms.levels_ = fields.texts("levels_")
             terms.absorbed_ = fields.flag("absorbed_") if "absorbed_" in data else False
+            terms.word = fields.text("word") if "word" in data else None
         terms._check_levels()
         return terms
 

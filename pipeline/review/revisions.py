@@ -151,10 +151,16 @@ def _input_as_recorded(run: dict, recorded: pd.DataFrame, months: list[str]
     return spec, data, None
 
 
-def _planned_rows(data: CheckedData, months: list[str], columns: list[str]) -> pd.DataFrame:
+def _planned_rows(data: CheckedData, months: list[str], columns: list[str], side: str) -> pd.DataFrame:
+    """Return the planned values of the columns in the months, one row per period, series and
+    driver; the user's columns are values here, never names, whatever they are called."""
     rows = data.future[data.future[PERIOD].astype(str).isin(months)]
-    return rows.assign(period=rows[PERIOD].astype(str), series=rows[SERIES].astype(str)) \
-        .set_index(["period", "series"]).reindex(columns=columns)
+    values = rows.reindex(columns=columns).astype(object)
+    count = len(columns)
+    return pd.DataFrame({"period": np.repeat(rows[PERIOD].astype(str).to_numpy(), count),
+                         "series": np.repeat(rows[SERIES].astype(str).to_numpy(), count),
+                         "driver": np.tile(np.asarray(columns, dtype=object), len(rows)),
+                         side: values.to_numpy().reshape(-1)})
 
 
 def planned_differences(earlier: CheckedData, later: CheckedData, months: list[str],
@@ -163,8 +169,7 @@ def planned_differences(earlier: CheckedData, later: CheckedData, months: list[s
     the two runs' months to forecast (a series planned in one run only differs in every column
     it has a value in), by period, driver and series."""
     keys = ["period", "series"]
-    long = [_planned_rows(data, months, columns).astype(object).reset_index()
-            .melt(id_vars=keys, var_name="driver", value_name=side)
+    long = [_planned_rows(data, months, columns, side)
             for data, side in ((earlier, "earlier"), (later, "later"))]
     both = long[0].merge(long[1], on=[*keys, "driver"], how="outer")
     old, new = both["earlier"], both["later"]

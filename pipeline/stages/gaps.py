@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.columns import PERIOD, ROW, SERIES, internal
 from pipeline.spec import Spec
 from pipeline.stages.problems import Problem
 
@@ -20,9 +20,10 @@ def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
     if len(gapped) == 0:
         return pd.DataFrame(columns=columns)
     # Only the series with a gap are sorted and walked.
-    subset = frame[frame[SERIES].isin(gapped)].assign(_ordinal=ordinal)
-    ordered = subset.sort_values([SERIES, "_ordinal"], kind="stable").drop_duplicates([SERIES, "_ordinal"])
-    ordinals = ordered["_ordinal"].to_numpy()
+    month = internal("ordinal")
+    subset = frame.loc[frame[SERIES].isin(gapped), [SERIES, ROW]].assign(**{month: ordinal})
+    ordered = subset.sort_values([SERIES, month], kind="stable").drop_duplicates([SERIES, month])
+    ordinals = ordered[month].to_numpy()
     names = ordered[SERIES].to_numpy()
     gaps = np.flatnonzero((names[1:] == names[:-1]) & (np.diff(ordinals) > 1))
     rows = []

@@ -22,6 +22,7 @@ from conftest import tiny_data, write_tiny_spec
 import pipeline
 from pipeline import cli
 from pipeline.core.catalogue import model_label
+from pipeline.core.columns import PERIOD, SERIES
 from pipeline.record.ledger import reading
 from pipeline.review.compare import compare_runs
 from pipeline.review.revisions import forecast_revisions, largest_revisions, planned_differences
@@ -199,8 +200,8 @@ def test_revisions_by_hand_with_no_width_and_no_stated_interval():
 
 
 def planned(rows):
-    frame = pd.DataFrame(rows, columns=["period", "series", "rain", "promo"])
-    return SimpleNamespace(future=frame.assign(period=pd.PeriodIndex(frame["period"], freq="M")))
+    frame = pd.DataFrame(rows, columns=["month", SERIES, "rain", "promo"])
+    return SimpleNamespace(future=frame.assign(**{PERIOD: pd.PeriodIndex(frame.pop("month"), freq="M")}))
 
 
 def test_planned_differences_by_hand():
@@ -213,3 +214,16 @@ def test_planned_differences_by_hand():
     assert found.to_dict(orient="records") == [
         {"period": "2024-05", "driver": "promo", "series": "a", "earlier": "no", "later": "yes"},
         {"period": "2024-05", "driver": "rain", "series": "c", "earlier": None, "later": 3.0}]
+
+
+def test_planned_drivers_named_period_and_series_are_the_users_own():
+    # Drivers called as the table's own columns: each is compared as a driver, by its values.
+    def rows(values):
+        frame = pd.DataFrame(values, columns=["month", SERIES, "period", "series"])
+        return SimpleNamespace(future=frame.assign(**{PERIOD: pd.PeriodIndex(frame.pop("month"), freq="M")}))
+    earlier = rows([("2024-05", "a", 1.0, "x"), ("2024-05", "b", 2.0, "y")])
+    later = rows([("2024-05", "a", 1.5, "x"), ("2024-05", "b", 2.0, "z")])
+    found = planned_differences(earlier, later, ["2024-05"], ["period", "series"])
+    assert found.to_dict(orient="records") == [
+        {"period": "2024-05", "driver": "period", "series": "a", "earlier": 1.0, "later": 1.5},
+        {"period": "2024-05", "driver": "series", "series": "b", "earlier": "y", "later": "z"}]

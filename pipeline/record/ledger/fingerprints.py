@@ -24,7 +24,7 @@ from datetime import datetime
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import PERIOD, ROW, SERIES
+from pipeline.core.columns import PERIOD, ROW, SERIES, internal
 from pipeline.stages.check import CheckedData
 
 
@@ -69,14 +69,14 @@ def period_fingerprints(data: CheckedData) -> pd.DataFrame:
     The hash covers every column the spec uses (the target included), rows ordered by
     series; line numbers are left out, so adding rows elsewhere changes no month's hash.
     """
-    internal = {PERIOD, SERIES, ROW}
-    rows = pd.concat([data.history.assign(_actual=True), data.future.assign(_actual=False)],
+    actual = internal("actual")   # a name no user's column has: a column "_actual" is hashed too
+    rows = pd.concat([data.history.assign(**{actual: True}), data.future.assign(**{actual: False})],
                      ignore_index=True)
-    columns = sorted(c for c in data.history.columns if c not in internal)
+    columns = sorted(c for c in data.history.columns if c not in {PERIOD, SERIES, ROW})
     # One stable sort by month, then series, keeps each month's rows in the order a stable
     # sort of that month by series gives.
     rows = rows.sort_values([PERIOD, SERIES], kind="stable")
-    periods, actuals = rows[PERIOD], rows["_actual"].to_numpy(bool)
+    periods, actuals = rows[PERIOD], rows[actual].to_numpy(bool)
     codes = pd.factorize(periods)[0]   # the months as integers: compared at once, not as objects
     starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(rows) else np.zeros(0, int)
     tokens = [cell_tokens(rows[name]) for name in columns]
