@@ -54,7 +54,9 @@ TABLES: dict[str, tuple[tuple[str, ...], dict[str, str]]] = {
     "diagnostics.csv": (("model", "check", "value", "flagged", "reading"), {"p_value": NUMBER, "flagged": FLAG}),
     "influential_rows.csv": (("row", "cooks_distance"), {"cooks_distance": NUMBER, "above_4_over_n": FLAG}),
     "series_fallbacks.csv": (("stage", "model", "series"), {}),
-    "scenarios.csv": (("model", "period", "series", "scenario", "forecast"), {"forecast": NUMBER}),
+    "scenarios.csv": (("scenario", "period", "series", "model", "scenario_forecast"),
+                      dict.fromkeys(("base_forecast", "scenario_forecast", "difference", "low_80", "high_80",
+                                     "low_95", "high_95"), NUMBER)),
 }
 # The tables every run folder holds: one of them empty is damaged, not merely absent.
 NEEDED = ("predictions.csv", "forecast.csv", "coefficients.csv", "history.csv")

@@ -178,7 +178,7 @@ CASES = [
     ("track_record.json", without("warnings"), "key 'warnings': is missing"),
     ("track_record.json", set_to("recommended", []), "key 'recommended'"),
     ("spec.yaml", removed, "missing spec.yaml"),
-    ("scenarios.csv", lambda p: p.write_text("a,b\n1,2\n", encoding="utf-8"), "column 'model': is missing"),
+    ("scenarios.csv", lambda p: p.write_text("a,b\n1,2\n", encoding="utf-8"), "column 'scenario': is missing"),
 ]
 
 
