@@ -14,6 +14,7 @@ import pandas as pd
 from pandas._libs.parsers import STR_NA_VALUES  # pandas' missing texts
 
 from pipeline.core.errors import UserError
+from pipeline.present.run_checks import TABLES, check_document, check_table, check_text
 
 REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
             "coefficients.csv", "history.csv"]
@@ -30,6 +31,10 @@ def _read_csv(folder: Path, name: str, text_columns: tuple[str, ...] = ()) -> pd
     if not path.exists() or path.stat().st_size == 0:
         return None
     try:
+        with path.open("rb") as handle:
+            header = handle.readline().decode("utf-8")
+            handle.seek(max(path.stat().st_size - 1, 0))
+            check_text(path, handle.read(1), header.rstrip("\r\n"))
         # Whole-column type inference: a column empty for most rows (a per-series model's
         # series column in coefficients.csv) is read the same however long the file is.
         # Names are read as text from the start: series '007' stays '007', not 7.
@@ -42,6 +47,11 @@ def _read_csv(folder: Path, name: str, text_columns: tuple[str, ...] = ()) -> pd
         frame = pd.read_csv(path, low_memory=False, dtype=dict.fromkeys(text_columns, str), **missing)
     except pd.errors.EmptyDataError:
         return None
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
+        raise UserError(f"{path}: cannot be read as a table castline wrote ({' '.join(str(exc).split())}); "
+                        "it was left as it is") from None
+    except OSError as exc:
+        raise UserError(f"{path}: cannot be read: {exc.strerror or exc}") from None
     return frame if len(frame.columns) else None
 
 
@@ -61,6 +71,7 @@ class RunFiles:
         if name not in self._tables:
             named = name in NAMED_TABLES
             frame = _read_csv(self.folder, name, NAME_COLUMNS if named else ())
+            check_table(self.folder / name, frame)
             if frame is not None and named:
                 for column in NAME_COLUMNS:
                     if column in frame.columns:
@@ -70,13 +81,10 @@ class RunFiles:
 
 
     def _model_document(self) -> dict:
-        """Return model.json as read ({} when absent or unreadable)."""
+        """Return model.json as read ({} when absent: a run folder of an older castline)."""
         if "model.json" not in self._tables:
-            try:
-                document = json.loads((self.folder / "model.json").read_text(encoding="utf-8"))
-            except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-                document = {}
-            self._tables["model.json"] = document if isinstance(document, dict) else {}
+            path = self.folder / "model.json"
+            self._tables["model.json"] = _document(path) if path.exists() else {}
         return self._tables["model.json"]
 
     def target_transforms(self) -> tuple[str, dict[str, str]]:
@@ -108,12 +116,28 @@ def load_run_files(folder: str | Path) -> RunFiles:
     missing = [name for name in REQUIRED if not (folder / name).exists()]
     if missing:
         raise UserError(f"{folder}: not a complete castline run folder (missing {', '.join(missing)})")
+    metrics = _document(folder / "metrics.json")
+    fingerprint = _document(folder / "fingerprint.json")
     try:
-        metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
-        fingerprint = json.loads((folder / "fingerprint.json").read_text(encoding="utf-8"))
         spec_text = (folder / "spec.yaml").read_text(encoding="utf-8")
-        track_file = folder / "track_record.json"
-        track = json.loads(track_file.read_text(encoding="utf-8")) if track_file.exists() else None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(f"{folder / 'spec.yaml'}: cannot be read ({exc})") from None
+    track_file = folder / "track_record.json"
+    track = _document(track_file) if track_file.exists() else None
+    files = RunFiles(folder, metrics, fingerprint, spec_text, track)
+    # Every table and model.json read (and checked) now, before any page is drawn.
+    for name in TABLES:
+        files.table(name)
+    files.target_transforms()
+    return files
+
+
+def _document(path: Path) -> dict:
+    """Return a run folder's JSON document, read and checked (run_checks)."""
+    try:
+        document = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise UserError(f"{folder}: a run file cannot be read ({exc})") from None
-    return RunFiles(folder, metrics, fingerprint, spec_text, track)
+        raise UserError(f"{path}: cannot be read as JSON ({' '.join(str(exc).split())}); the run file "
+                        "was changed by hand or damaged, and was left as it is") from None
+    check_document(path, document)
+    return document

@@ -64,9 +64,9 @@ def test_no_folder_or_an_unreadable_file_is_one_line(folder_copy, tmp_path):
     with pytest.raises(UserError, match="no such run folder"):
         load_run_files(tmp_path / "run-missing")
     (folder_copy / "metrics.json").write_text("{ not json", encoding="utf-8")
-    with pytest.raises(UserError, match="a run file cannot be read") as error:
+    with pytest.raises(UserError, match="cannot be read as JSON") as error:
         load_run_files(folder_copy)
-    assert str(error.value).startswith(f"{folder_copy}: ") and "\n" not in str(error.value)
+    assert str(error.value).startswith(f"{folder_copy / 'metrics.json'}: ") and "\n" not in str(error.value)
 
 
 @pytest.fixture(scope="module")

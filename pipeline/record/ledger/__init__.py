@@ -21,7 +21,9 @@ One file, by default ``ledger.sqlite`` in the folder the run folders are written
 Safety. Every run is recorded in one transaction; the file is in WAL mode with a busy
 timeout, so runs started together queue for the write lock and each lands whole. A file
 that is not a ledger, is damaged, or was written by a newer castline stops the run with
-one line (exit 2) and is never written to.
+one line (exit 2) and is never written to; so does a ledger changed by hand (``checks``: its
+version table, tables and columns, and the kind of value in each column, as it is opened and
+as its rows are read).
 
 The run folder and the ledger row. The ledger commit is the moment a run is made:
 
@@ -40,6 +42,7 @@ so the run appears whole, later. The paths in a row are not trusted: only that o
 folder's own hidden folder is ever moved, and only beside itself (``write._refusal``). If the rename itself fails, the row is deleted again.
 
 Modules: ``store`` (opening the file, values in and out), ``migrations`` (the schema),
+``checks`` (what a file changed by hand holds),
 ``write`` (recording a run), ``read`` (the runs that count). What is read back for the
 user (track record, history, compare) is in ``pipeline.review``.
 """

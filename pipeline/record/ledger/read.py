@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.record.ledger.checks import check_rows
 from pipeline.record.ledger.store import query
 
 
@@ -22,8 +23,8 @@ def visible_runs(conn: sqlite3.Connection, name: str | None = None) -> pd.DataFr
     sql = ("SELECT run_id, created, spec_name, spec_hash, input_sha256, castline_version, "
            "first_period, last_period, history_rows, future_rows, recommended, select_by, "
            "beats_baseline, folder, state FROM runs")
-    runs = query(conn, sql + (" WHERE spec_name = ?" if name else "") + " ORDER BY created, run_id",
-                  (name,) if name else ())
+    runs = check_rows(query(conn, sql + (" WHERE spec_name = ?" if name else "") + " ORDER BY created, run_id",
+                            (name,) if name else ()), "runs")
     counts = [state == "placed" or Path(folder).is_dir()
               for state, folder in zip(runs["state"], runs["folder"])]
     return runs[np.asarray(counts, bool)].drop(columns=["state"]).reset_index(drop=True)
@@ -34,14 +35,14 @@ def rows_of(conn: sqlite3.Connection, table: str, run_ids, extra: str = "",
     """Return a table's rows for the given runs."""
     run_ids = list(run_ids)
     if not run_ids:
-        return query(conn, f"SELECT * FROM {table} WHERE 0")
+        return check_rows(query(conn, f"SELECT * FROM {table} WHERE 0"), table)
     frames = []
     for start in range(0, len(run_ids), 500):   # SQLite caps the parameters of one statement
         chunk = run_ids[start:start + 500]
         marks = ", ".join("?" for _ in chunk)
         frames.append(query(conn, f"SELECT * FROM {table} WHERE run_id IN ({marks}){extra}",
                              (*chunk, *parameters)))
-    return pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0]
+    return check_rows(pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0], table)
 
 
 def latest_realised(conn: sqlite3.Connection, runs: pd.DataFrame) -> pd.DataFrame:

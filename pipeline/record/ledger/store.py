@@ -15,6 +15,7 @@ import pandas as pd
 
 from pipeline.core import catalogue
 from pipeline.core.errors import UserError
+from pipeline.record.ledger.checks import LedgerDamage, check_tables, version_of
 from pipeline.record.ledger.migrations import SCHEMA_VERSION, migrate, schema_version
 from pipeline.spec import Spec
 
@@ -60,6 +61,10 @@ def _ledger_error(path: Path, exc: sqlite3.Error) -> UserError | None:
             or "not a database" in text:
         return UserError(f"{path}: the run ledger is damaged ({text}); it was left as it is: move "
                          "it aside (the next run starts a new ledger) or restore a copy")
+    if "no such table" in text or "no such column" in text:
+        return UserError(f"{path}: the run ledger's tables are not those castline writes ({text}); it "
+                         "was left as it is: restore a copy, or move it aside (the next run starts a "
+                         "new ledger)")
     if name.startswith(("SQLITE_BUSY", "SQLITE_LOCKED")) or "locked" in text:
         return UserError(f"{path}: the run ledger stayed busy for {BUSY_SECONDS:g} s (another "
                          "castline run is writing to it); try again")
@@ -75,6 +80,8 @@ def ledger_errors(path: Path) -> Iterator[None]:
     """Turn SQLite failures the user can act on into a one-line UserError naming the file."""
     try:
         yield
+    except LedgerDamage as damage:
+        raise UserError(f"{path}: {damage}") from None
     except sqlite3.Error as exc:
         mistake = _ledger_error(path, exc)
         if mistake is None:
@@ -108,6 +115,18 @@ def transaction(conn: sqlite3.Connection) -> Iterator[None]:
     conn.execute("COMMIT")
 
 
+def checked_version(conn: sqlite3.Connection, path: Path) -> int:
+    """Return the file's schema version (0 for an empty file) once its tables are checked
+    (``checks``): a ledger changed by hand or damaged raises LedgerDamage."""
+    tables = {row[0] for row in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    if "schema_version" in tables:
+        version_of(conn)
+    version = schema_version(conn, path)   # refuses a file of another program, or of a newer castline
+    if version:
+        check_tables(conn, version)
+    return version
+
+
 def _connect(path: Path, *, create: bool) -> sqlite3.Connection:
     mode = "rwc" if create else "rw"
     conn = sqlite3.connect(f"{path.resolve().as_uri()}?mode={mode}", uri=True,
@@ -132,6 +151,7 @@ def open_for_writing(path: Path) -> sqlite3.Connection:
                 raise UserError(f"{path}: the run ledger is damaged ({found}); it was left as it "
                                 "is: move it aside (the next run starts a new ledger) or restore "
                                 "a copy")
+            checked_version(conn, path)   # before anything is written, the journal mode included
         conn.execute("PRAGMA journal_mode = WAL")   # waits on busy_timeout like any write
         conn.execute("PRAGMA synchronous = FULL")   # the commit is the run's commit point
         with transaction(conn):
@@ -152,7 +172,7 @@ def _open_for_reading(path: Path) -> sqlite3.Connection:
     conn = _connect(path, create=False)
     try:
         conn.execute("PRAGMA query_only = ON")
-        version = schema_version(conn, path)
+        version = checked_version(conn, path)
         if version == SCHEMA_VERSION:
             return conn
         memory = sqlite3.connect(":memory:", isolation_level=None)
