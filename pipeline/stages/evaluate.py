@@ -546,9 +546,9 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
              _tested(predictions, model, BASELINE, select_by, testable) for model in table["model"]]
     same = [model != BASELINE and _same_forecasts(predictions, model, BASELINE)
             for model in table["model"]]
-    # A model whose forecasts are the mean's to rounding has no skill of its own to measure (a
-    # target that varies only in its last digits would give one of rounding noise).
-    table.loc[np.asarray(same, bool), "skill_vs_mean"] = np.nan
+    # A model whose forecasts are the mean's to rounding has a skill of nothing against it (a
+    # target that varies only in its last digits would otherwise give one of rounding noise).
+    table.loc[np.asarray(same, bool), "skill_vs_mean"] = 0.0
     table["test_statistic"] = [statistic for statistic, _ in tests]
     table["p_value"] = [p for _, p in tests]
     # Picking the best of several models is itself a search: the p-values are adjusted for

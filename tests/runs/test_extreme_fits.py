@@ -133,6 +133,8 @@ def test_a_model_with_the_means_forecasts_to_rounding_is_not_recommended_over_it
     # The flat target varies in its last digits only: OLS's lower MAE there is rounding noise.
     metrics = yaml.safe_load((runs["flat"][2] / "metrics.json").read_text(encoding="utf-8"))
     assert metrics["recommended"] == "mean_baseline"
+    same = [row for row in metrics["models"] if row["against_mean"] == "the same forecasts as the mean"]
+    assert same and all(row["skill_vs_mean"] == 0.0 for row in same)
 
 
 @pytest.mark.parametrize("kind", ["e145", "em300"])
