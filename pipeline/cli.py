@@ -104,6 +104,7 @@ def build_parser() -> argparse.ArgumentParser:
                                          "(default: the later run's recommended model)")
     compare.add_argument("--revisions", metavar="FILE", help="also write every forecast revision "
                                                              "to this CSV file")
+    compare.add_argument("--overwrite", action="store_true", help="replace a file already at --revisions")
     for command in commands.choices.values():
         command.add_argument("--verbose", action="store_true", help="also print the warnings of "
                              "the libraries castline uses (pandas, matplotlib, ...), after the output")
@@ -371,6 +372,8 @@ def _command_compare(args) -> int:
         raise UserError("give --ledger PATH to find runs by id, or give the run folders")
     if args.top < 1:
         raise UserError("--top: give 1 or more")
+    from pipeline.runner import output_target, write_table_file
+    revisions = output_target("--revisions", args.revisions, inputs={"ledger": path}, overwrite=args.overwrite)
     with ledger.reading(path) as conn:
         comparison = compare_runs(conn, references[0], references[1], path, top=args.top,
                                   model=args.model)
@@ -378,16 +381,11 @@ def _command_compare(args) -> int:
         print(json.dumps(comparison.as_dict(), indent=2, ensure_ascii=False))
     else:
         _print_comparison(comparison, args.top)
-    if args.revisions:
-        from pipeline.record.safe_csv import write_csv
-        try:
-            write_csv(comparison.revisions.table.assign(model=comparison.revisions.model),
-                      args.revisions)
-        except OSError as exc:
-            raise UserError(f"{args.revisions}: cannot write the forecast revisions: "
-                            f"{exc.strerror}") from None
+    if revisions:
+        write_table_file(comparison.revisions.table.assign(model=comparison.revisions.model), revisions,
+                         option="--revisions", what="forecast revisions")
         if args.format == "table":
-            print(f"forecast revisions written to {args.revisions}")
+            print(f"forecast revisions written to {revisions}")
     return EXIT_OK
 
 

@@ -111,3 +111,21 @@ def test_a_new_file_is_written_and_a_missing_folder_refused(project, tmp_path):
     code, out, err = run_cli(["check", str(spec), "--problems", str(missing)])
     one_line_refusal(code, out, err, "--problems", missing)
     assert not missing.parent.exists()
+
+
+@pytest.mark.parametrize("name", ["the ledger", "a run folder's file", "the model file", "the spec", "a folder"])
+@pytest.mark.parametrize("overwrite", [False, True])
+def test_compare_revisions_never_goes_onto_the_ledger_or_a_run(project, name, overwrite):
+    """``castline compare A B --revisions FILE``: the ledger it reads and the run folders' files
+    are refused with or without --overwrite; the spec, being a file already there, without it."""
+    root, spec, folder = project
+    target = check_targets(root, spec, folder)[name]
+    before = snapshot(root)
+    code, out, err = run_cli(["compare", str(folder), str(folder), "--revisions", str(target),
+                              *(["--overwrite"] * overwrite)])
+    if name == "the spec" and overwrite:   # not an input of compare: replaced, as asked
+        assert code == 0, err
+        spec.write_bytes(before["spec.yaml"])
+        return
+    one_line_refusal(code, out, err, "--revisions", target)
+    assert snapshot(root) == before
