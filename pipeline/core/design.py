@@ -26,8 +26,8 @@ class Design:
     series_names: np.ndarray | None = None
     # Each column's group of terms (a driver's levels or powers, a calendar block), by its label
     term_groups: tuple[str, ...] | None = None
-    # The series column whose levels are not columns here but absorbed by the fit (a model
-    # over very many series: see pipeline/models/absorbed.py); None when they are columns.
+    # The word naming the series levels that are not columns here but absorbed by the fit (a
+    # model over very many series: see pipeline/models/absorbed.py); None when they are columns.
     absorbed_levels: str | None = None
     absorbed_at: int = 0   # where their columns would be among the names
 

@@ -349,7 +349,7 @@ class FeaturePlan:
         return Design(matrix=matrix, names=self.get_feature_names_out(),
                       series=frame[self.series_column].to_numpy(), period=period, notes=tuple(notes),
                       series_level=series_level,
-                      absorbed_levels=next((part.column for part in self.parts_
+                      absorbed_levels=next((part.name for part in self.parts_
                                             if isinstance(part, SeriesTerms) and part.absorbed_), None),
                       absorbed_at=self._absorbed_at(),
                       term_groups=tuple(label for part in self.parts_ for label in term_group_labels(part)))
