@@ -57,6 +57,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import pipeline  # noqa: E402
+from pipeline.core.columns import PERIOD  # noqa: E402
 from pipeline.models.ols import expanding_ols_predictions  # noqa: E402
 from pipeline.stages.backtest import run_backtest  # noqa: E402
 
@@ -179,7 +180,7 @@ def time_castline(spec, data, design: np.ndarray, y: np.ndarray) -> tuple[float,
     stage, after checking the stage's OLS predictions are the engine's."""
     # (a) the OLS backtest itself, on the same design lstsq and sklearn are given: castline's
     # growing QR across the 12 expanding origins (what run_backtest calls for OLS).
-    months = data.history["period"].array.asi8
+    months = data.history[PERIOD].array.asi8
     order = np.argsort(months, kind="stable")
     sorted_design, sorted_y, sorted_months = design[order], y[order], months[order]
     origin_months = sorted(np.unique(sorted_months))[-ORIGINS - HORIZON:-HORIZON]
