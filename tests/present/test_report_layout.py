@@ -112,3 +112,21 @@ def test_the_next_months_are_the_stated_forecast_of_the_largest_series(demo_repo
     total = forecast[forecast["model"] == recommended].groupby("period")["forecast"].sum().head(3)
     for period, value in total.items():
         assert f'{period} <strong data-value="{value}">' in text
+
+
+def test_on_a_phone_a_long_data_path_breaks_rather_than_widen_the_page(tmp_path):
+    """The run's data file is named by its whole path in the report: a path longer than a phone's
+    line (here the demo data in folders of 150 characters) wraps, and the page stays 390 wide."""
+    from conftest import DEMO_DATA
+    folder = tmp_path / ("a_folder_with_a_long_name_" * 3) / ("and_another_inside_it_" * 3)
+    folder.mkdir(parents=True)
+    data = folder / "compost_sales_as_delivered_by_the_regional_office.csv"
+    data.write_bytes(DEMO_DATA.read_bytes())
+    spec = yaml.safe_load(DEMO_SPEC.read_text(encoding="utf-8"))
+    spec["input"]["file"] = str(data)
+    spec_file = tmp_path / "spec.yaml"
+    spec_file.write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    report = pipeline.run(spec_file, output_folder=tmp_path / "runs").folder.path / "report.html"
+    assert str(data) in report.read_text(encoding="utf-8")
+    layout = measure_layout(report, tmp_path / "profile", 390, 844)
+    assert layout.scroll_width == 390 and layout.outside == [], layout.outside
