@@ -133,12 +133,10 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
 
 def _command_run(args) -> int:
     from pipeline.core.progress import showing
-    from pipeline.outcome import landed
     from pipeline.runner import run
     with showing(sys.stderr) as bar:   # a bar only when standard error is a terminal
         result = run(args.spec, output_folder=args.output_folder, progress=bar)
-    with landed(result.folder.path):   # the run is recorded: printing it can no longer fail it
-        _print_run(result)
+    _print_run(result)   # once the run has landed, a failure to print cannot fail it (outcome)
     return EXIT_OK
 
 

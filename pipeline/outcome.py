@@ -14,12 +14,10 @@ import errno
 import os
 import sys
 import traceback
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
-from pathlib import Path
+from collections.abc import Callable
 
+from pipeline.core import landing
 from pipeline.core.errors import UserError
-from pipeline.core.landing import interrupted_message
 from pipeline.core.library_warnings import caught_warnings
 from pipeline.core.paths import USER_ERRNOS, PathError, given_path, reason, shown
 
@@ -37,14 +35,6 @@ class OutputLost(Exception):
     def __init__(self, cause: BaseException) -> None:
         self.cause = cause
         super().__init__(reason(cause))
-
-
-class Landed(Exception):
-    """The run folder landed, but its summary could not be printed to standard output."""
-
-    def __init__(self, folder: Path, lost: OutputLost) -> None:
-        self.folder, self.lost = folder, lost
-        super().__init__(str(lost))
 
 
 class _Guarded:
@@ -73,16 +63,6 @@ class _Guarded:
 def _flush_output() -> None:
     if sys.stdout is not None:
         sys.stdout.flush()
-
-
-@contextmanager
-def landed(folder: Path) -> Iterator[None]:
-    """Print a landed run's summary inside: a failure of standard output becomes Landed (exit 0)."""
-    try:
-        yield
-        _flush_output()
-    except OutputLost as lost:
-        raise Landed(folder, lost) from None
 
 
 def check_paths(args) -> None:
@@ -123,18 +103,18 @@ def _ended(exc: BaseException) -> int:
         for line in exc.lines():
             _say(f"castline: {line}")
         return EXIT_USER
-    if isinstance(exc, Landed):
-        if exc.lost.cause.__class__ is not BrokenPipeError:
-            _say(f"castline: the run folder {exc.folder} was written, but its summary could not be "
-                 f"printed: standard output: {exc.lost}")
-        return EXIT_OK
     if isinstance(exc, OutputLost):
         if isinstance(exc.cause, BrokenPipeError):   # piped into a reader that stopped (| head)
+            return EXIT_OK
+        folder = landing.landed()
+        if folder is not None:   # the run is recorded: printing it can no longer fail it
+            _say(f"castline: the run folder {folder} was written, but its summary could not be "
+                 f"printed: standard output: {exc}")
             return EXIT_OK
         _say(f"castline: standard output: cannot print the output: {exc}")
         return EXIT_USER
     if isinstance(exc, KeyboardInterrupt):
-        _say(f"castline: {interrupted_message()}")
+        _say(f"castline: {landing.interrupted_message()}")
         return 130
     mistake = _os_mistake(exc)
     if mistake is not None:
@@ -160,6 +140,7 @@ def outcome(parse: Callable[[list[str] | None], object], handlers: dict[str, Cal
             args = parse(argv)
             verbose[0] = bool(getattr(args, "verbose", False))
             check_paths(args)
+            landing.forget()   # what this command places (core.landing): none yet
             guarded = sys.stdout = _Guarded(given) if given is not None else None
             code = handlers[args.command](args)
             _flush_output()
@@ -168,7 +149,7 @@ def outcome(parse: Callable[[list[str] | None], object], handlers: dict[str, Cal
             if isinstance(exc, SystemExit):
                 raise
             code = _ended(exc)
-            if isinstance(exc, OutputLost | Landed):
+            if isinstance(exc, OutputLost):
                 given = None   # the output is gone: nothing more is written to it
             return code
         finally:

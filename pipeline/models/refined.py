@@ -28,6 +28,7 @@ import numpy as np
 import scipy.linalg
 
 from pipeline.core.double_double import dot2
+from pipeline.core.scale import row_unit_scales
 
 MOST_STEPS = 10
 
@@ -56,8 +57,7 @@ def refined_least_squares(matrix, target) -> RefinedFit:
     # Each column scaled to about unit length by a power of two, so the scaled design is the
     # design exactly (a scale of any other number would round every element, and change the
     # problem by more than the refinement recovers).
-    norms = np.sqrt(np.einsum("ij,ij->j", a, a))
-    norms = np.where(norms > 0, np.ldexp(1.0, np.frexp(norms)[1]), 1.0)
+    norms = row_unit_scales(np.sqrt(np.einsum("ij,ij->j", a, a))[:, None])   # one per column
     scaled = a / norms
     q, r = np.linalg.qr(scaled)
     x = scipy.linalg.solve_triangular(r, q.T @ b, check_finite=False)

@@ -184,13 +184,19 @@ def test_a_categorical_driver_named_series_keeps_its_terms_apart_from_the_series
     run = next((tmp_path / "data" / "out").glob("run-*"))
     terms = pd.read_csv(run / "coefficients.csv").query("model == 'ols'")["term"].tolist()
     assert terms == ["intercept", "x_neutral", "series: B", "the series: B"]
+    again, ran = _forecast_again(run, tmp_path)
+    np.testing.assert_allclose(again["forecast"], ran["forecast"], rtol=1e-12)
+
+
+def _forecast_again(run, tmp_path) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Return `castline forecast` of the run's model.json on its own data, and the run's
+    forecast.csv, both in the same order."""
     code, _, err = run_cli(["forecast", str(run / "model.json"), str(tmp_path / "data" / "data.csv"),
                             "--output", str(tmp_path / "again.csv")])
     assert code == 0, err
     keys = ["model", "period", "series"]
-    again = pd.read_csv(tmp_path / "again.csv").sort_values(keys, ignore_index=True)
-    ran = pd.read_csv(run / "forecast.csv").sort_values(keys, ignore_index=True)
-    np.testing.assert_allclose(again["forecast"], ran["forecast"], rtol=1e-12)
+    return (pd.read_csv(tmp_path / "again.csv").sort_values(keys, ignore_index=True),
+            pd.read_csv(run / "forecast.csv").sort_values(keys, ignore_index=True))
 
 
 def test_a_series_key_named_series_forecasts_from_the_model_file(tmp_path):
@@ -200,11 +206,6 @@ def test_a_series_key_named_series_forecasts_from_the_model_file(tmp_path):
     code, _, err = run_cli(["run", str(spec_path)])
     assert code == 0, err
     run = next((tmp_path / "data" / "out").glob("run-*"))
-    code, _, err = run_cli(["forecast", str(run / "model.json"), str(tmp_path / "data" / "data.csv"),
-                            "--output", str(tmp_path / "again.csv")])
-    assert code == 0, err
-    keys = ["model", "period", "series"]
-    again = pd.read_csv(tmp_path / "again.csv").sort_values(keys, ignore_index=True)
-    ran = pd.read_csv(run / "forecast.csv").sort_values(keys, ignore_index=True)
+    again, ran = _forecast_again(run, tmp_path)
     assert again["series"].tolist() == ran["series"].tolist()
     np.testing.assert_allclose(again["forecast"], ran["forecast"], rtol=1e-12)
