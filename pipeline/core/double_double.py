@@ -12,6 +12,12 @@ plain double on some platforms):
 - ``dot2`` (Ogita, Rump & Oishi 2005, "Accurate sum and dot product", Algorithm 5.3): a dot
   product as accurate as if computed in twice the precision and then rounded once:
   ``|dot2 − x·y| ≤ u·|x·y| + γ²·|x|·|y|`` with ``u = 2⁻⁵³`` and ``γ = n·u / (1 − n·u)``;
+- ``sum2``: a sum along an axis as accurate as in twice the precision, by a pairwise tree
+  of TwoSums whose errors are added at the end (the same bound as Dot2's, with n terms);
+- ``transposed_residual2``: ``C − Aᵀ·B`` for a long ``A`` (many rows), each entry a sum over
+  the rows by ``sum2``, so the loop is over the few columns, never the rows;
+- ``residual_block2``: ``T − A·X`` for a long ``A`` and a few right-hand sides, the sum over
+  A's columns carried as a pair (sum, error);
 - ``residual2``: ``b − A·x`` row by row, each row by ``dot2``.
 
 Every function works on numpy arrays element-wise (``dot2`` along the last axis), so a
@@ -43,11 +49,31 @@ def split(a) -> tuple[np.ndarray, np.ndarray]:
 
 def two_product(a, b) -> tuple[np.ndarray, np.ndarray]:
     """Return ``(p, e)`` with ``p = fl(a · b)`` and ``a · b = p + e`` exactly."""
-    a, b = np.asarray(a, float), np.asarray(b, float)
-    p = a * b
-    a_high, a_low = split(a)
+    return split_product(Halves.of(a), np.asarray(b, float))
+
+
+class Halves:
+    """An array with its two halves (``split``), made once for a matrix multiplied many times."""
+
+    def __init__(self, values) -> None:
+        self.values = np.asarray(values, float)
+        self.high, self.low = split(self.values)
+
+    @classmethod
+    def of(cls, values) -> Halves:
+        return values if isinstance(values, Halves) else cls(values)
+
+    def column(self, j: int) -> Halves:
+        part = Halves.__new__(Halves)
+        part.values, part.high, part.low = (v[:, j:j + 1] for v in (self.values, self.high, self.low))
+        return part
+
+
+def split_product(a: Halves, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``two_product`` with ``a`` split already."""
+    p = a.values * b
     b_high, b_low = split(b)
-    return p, a_low * b_low - (((p - a_high * b_high) - a_low * b_high) - a_high * b_low)
+    return p, a.low * b_low - (((p - a.high * b_high) - a.low * b_high) - a.high * b_low)
 
 
 def dot2(x, y) -> np.ndarray:
@@ -62,6 +88,70 @@ def dot2(x, y) -> np.ndarray:
         total, carried = two_sum(total, product)
         error = error + (carried + low)
     return total + error
+
+
+def sum2(values, axis: int = -1) -> np.ndarray:
+    """Return the sums of ``values`` along ``axis``, as accurate as if added in twice the working
+    precision and rounded once: pairs are added by TwoSum level by level (log₂ n levels, each
+    one vectorised), and every level's rounding errors are added to the result at the end."""
+    total, errors = sum2_pair(values, axis)
+    return total + errors
+
+
+def sum2_pair(values, axis: int = -1) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``sum2``'s sums before their rounding errors are added: (sums, errors)."""
+    x = np.moveaxis(np.asarray(values, float), axis, -1)
+    if x.shape[-1] == 0:
+        return np.zeros(x.shape[:-1]), np.zeros(x.shape[:-1])
+    errors = np.zeros(x.shape[:-1])
+    while x.shape[-1] > 1:
+        if x.shape[-1] % 2:
+            x = np.concatenate([x, np.zeros((*x.shape[:-1], 1))], axis=-1)
+        x, error = two_sum(x[..., 0::2], x[..., 1::2])
+        errors = errors + error.sum(axis=-1)
+    return x[..., 0], errors
+
+
+def transposed_residual2(start, a, b) -> np.ndarray:
+    """Return ``start − aᵀ·b`` (a: rows × p, b: rows × k, or rows; start: p × k, or p, or None
+    for zero) with each entry as accurate as in twice the working precision: the products split
+    exactly, then summed with ``start`` over the rows by ``sum2``, one column of ``b`` at a time."""
+    a = Halves.of(a)
+    b = np.asarray(b, float)
+    vector = b.ndim == 1
+    b = b[:, None] if vector else b
+    columns = a.values.shape[1]
+    start = np.zeros((columns, b.shape[1])) if start is None else np.asarray(start, float).reshape(
+        columns, b.shape[1])
+    out = np.empty((columns, b.shape[1]))
+    for k in range(b.shape[1]):
+        product, low = split_product(a, -b[:, k:k + 1])
+        total, errors = sum2_pair(product, axis=0)
+        total, carried = two_sum(start[:, k], total)
+        out[:, k] = total + (carried + errors + low.sum(axis=0))
+    return out[:, 0] if vector else out
+
+
+def residual_block2(a, x, terms=()) -> np.ndarray:
+    """Return ``t₁ + t₂ + … − a·x`` for the arrays ``terms`` = (t₁, t₂, …) (each rows × k, or
+    rows), ``a`` rows × p and ``x`` p × k (or p), each entry as accurate as in twice the working
+    precision (the sum over a's columns carried as a TwoSum pair, a column at a time)."""
+    a = Halves.of(a)
+    x = np.asarray(x, float)
+    vector = x.ndim == 1
+    x = x[:, None] if vector else x
+    total = np.zeros((a.values.shape[0], x.shape[1]))
+    error = np.zeros_like(total)
+    for term in terms:
+        term = np.asarray(term, float)
+        total, carried = two_sum(total, term[:, None] if term.ndim == 1 else term)
+        error = error + carried
+    for j in range(a.values.shape[1]):
+        product, low = split_product(a.column(j), -x[j:j + 1, :])
+        total, carried = two_sum(total, product)
+        error = error + (carried + low)
+    out = total + error
+    return out[:, 0] if vector else out
 
 
 def residual2(matrix, coef, target) -> np.ndarray:

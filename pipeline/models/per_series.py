@@ -9,7 +9,10 @@ and factorised together by numpy's batched Householder QR: the columns of each
 series scaled to unit length, the solution refined twice against its own
 residuals, never the normal equations. A series whose design is short of full
 rank is handed to the careful single fit (``least_squares``), which leaves out
-and names the dependent columns.
+and names the dependent columns; so is a series whose condition number says the
+double-precision solve may leave fewer than ``REFINE_BELOW`` correct digits in a
+coefficient (the same rule as the single fit's), and the single fit refines it in
+twice the working precision (``models.refined``).
 
 Within one series, a column that does not vary is the intercept again: it is
 left out of that series' fit (its intercept carries it). Columns that only
@@ -33,7 +36,7 @@ from pipeline.core.execution import IN_PROCESS, Executor, InProcess
 from pipeline.core.progress import QUIET, Progress
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode
 from pipeline.models.contract import Model
-from pipeline.models.ols import INTERCEPT, least_squares
+from pipeline.models.ols import INTERCEPT, REFINE_BELOW, least_squares, ordinary_digits
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
 
@@ -63,6 +66,8 @@ class ChunkFit:
     fell_back: np.ndarray   # True: too few rows, the series' mean is used
     dropped: list[tuple[int, str]]   # (series position in chunk, why a column was left out)
     constant: np.ndarray | None = None   # series × terms: left out as not varying in the series
+    refined: np.ndarray | None = None    # per series: refined in twice the working precision
+    digits: np.ndarray | None = None     # per series: estimated correct digits of its coefficients
 
 
 def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -83,8 +88,8 @@ def _rank_ok(r: np.ndarray, n: int) -> np.ndarray:
 
 
 def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
-    """Return coef, (X'X)⁻¹, the root of the RSS and a full-rank flag for a stack g×n×p of
-    designs."""
+    """Return coef, (X'X)⁻¹, the root of the RSS, a full-rank flag and the estimated digits of
+    the coefficients (``ordinary_digits``) for a stack g×n×p of designs."""
     norms = np.sqrt(np.einsum("gnp,gnp->gp", x, x))
     scaled = x / norms[:, None, :]
     q, r = np.linalg.qr(scaled)
@@ -110,7 +115,16 @@ def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
     rss_root = size * np.sqrt(np.einsum("gn,gn->g", unit, unit))
     unscaled = np.einsum("gij,gkj->gik", r_inverse, r_inverse)
     xtx_inverse = unscaled / (norms[:, :, None] * norms[:, None, :])
-    return beta / norms, xtx_inverse, rss_root, ok
+    # Each condition number bounded above by ‖R‖_F·‖R⁻¹‖_F, from what is at hand; only where
+    # that bound calls for refining is the condition number itself computed (its SVD).
+    condition = np.sqrt(np.einsum("gij,gij->g", safe_r, safe_r) * np.einsum("gij,gij->g", r_inverse, r_inverse))
+    digits = ordinary_digits(condition, beta)
+    doubtful = np.flatnonzero(digits < REFINE_BELOW)
+    if doubtful.size:
+        singular = np.linalg.svd(safe_r[doubtful], compute_uv=False)
+        with np.errstate(divide="ignore"):
+            digits[doubtful] = ordinary_digits(singular[:, 0] / singular[:, -1], beta[doubtful])
+    return beta / norms, xtx_inverse, rss_root, ok, digits
 
 
 def _series_moments(y: np.ndarray, counts: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -155,12 +169,15 @@ class _ChunkNumbers:
         self.resid_sd = np.full(series, np.nan)
         self.df_resid = np.zeros(series, int)
         self.rank = np.zeros(series, int)
+        self.refined = np.zeros(series, bool)
+        self.digits = np.full(series, np.nan)
 
 
 def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.ndarray,
                  starts: np.ndarray, fell_back: np.ndarray, numbers: _ChunkNumbers) -> list[int]:
     """Fit, stacked, the series with the same rows and kept columns; return the positions of
-    those a stacked fit could not take (short of full rank), for the careful single fit."""
+    those a stacked fit could not take (short of full rank, or too ill-conditioned for the
+    digits asked: ``REFINE_BELOW``), for the careful single fit."""
     groups: dict[tuple, list[int]] = {}
     for position in np.flatnonzero(~fell_back):
         groups.setdefault((int(counts[position]), keep[position].tobytes()), []).append(position)
@@ -171,8 +188,10 @@ def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.nd
         index = starts[members][:, None] + np.arange(rows)
         stack = task.matrix[index][:, :, columns]
         with np.errstate(all="ignore"):
-            beta, inverse, rss_root, ok = _fit_stack(stack, y[index])
+            beta, inverse, rss_root, ok, digits = _fit_stack(stack, y[index])
+        ok &= digits >= REFINE_BELOW
         good = members[ok]
+        numbers.digits[good] = digits[ok]
         numbers.coef[np.ix_(good, columns)] = beta[ok]
         numbers.xtx_inverse[np.ix_(good, columns, columns)] = inverse[ok]
         numbers.df_resid[good] = rows - len(columns)
@@ -204,6 +223,7 @@ def _fit_carefully(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.
             fit.xtx_inverse[np.ix_(fit.kept, fit.kept)]
         numbers.df_resid[position], numbers.rank[position], numbers.resid_sd[position] = \
             fit.df_resid, fit.rank, fit.resid_sd
+        numbers.refined[position], numbers.digits[position] = fit.precision.refined, fit.precision.digits
         dropped += [(position, item.describe()) for item in fit.dropped]
     return dropped
 
@@ -223,8 +243,10 @@ def fit_series_chunk(task: ChunkTask) -> ChunkFit:
     numbers.coef[fell_back] = np.nan
     numbers.xtx_inverse[fell_back] = 0.0
     constant = ~keep & ~fell_back[:, None]
+    numbers.refined[fell_back], numbers.digits[fell_back] = False, np.nan
     return ChunkFit(numbers.coef, numbers.xtx_inverse, numbers.resid_sd, numbers.df_resid,
-                    numbers.rank, mean, sd, fell_back, dropped, constant)
+                    numbers.rank, mean, sd, fell_back, dropped, constant, numbers.refined,
+                    numbers.digits)
 
 
 class PerSeriesOLS(Model):
@@ -290,6 +312,8 @@ class PerSeriesOLS(Model):
         self.means_ = np.concatenate([f.mean for f in fits])
         self.sds_ = np.concatenate([f.sd for f in fits])
         self.fell_back_ = np.concatenate([f.fell_back for f in fits])
+        self.refined_ = np.concatenate([f.refined for f in fits])
+        self.digits_ = np.concatenate([f.digits for f in fits])
         self.rows_ = counts
         self.overall_mean_ = float(y.mean()) if len(y) else np.nan
         offsets = np.cumsum([0] + [len(t.counts) for t in tasks])
@@ -393,6 +417,13 @@ class PerSeriesOLS(Model):
                          "them out (the series' own intercept carries them)" if self.fit_intercept
                          else f"{shown} are all zeros within some series, so those series' fits "
                               "leave them out")
+        refined = getattr(self, "refined_", None)
+        if refined is not None and refined.any():
+            count = int(refined.sum())
+            found.append(f"{count} series' fit{'s were' if count > 1 else ' was'} refined in twice the "
+                         "working precision, the condition number calling for it; about "
+                         f"{np.nanmin(self.digits_[refined]):.0f} correct digits estimated in every "
+                         "coefficient at the least")
         if self.dropped_:
             series, why = self.dropped_[0]
             found.append(f"in {len({s for s, _ in self.dropped_})} series a term is a combination of "
