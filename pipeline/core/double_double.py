@@ -18,7 +18,9 @@ plain double on some platforms):
   the rows by ``sum2``, so the loop is over the few columns, never the rows;
 - ``residual_block2``: ``T − A·X`` for a long ``A`` and a few right-hand sides, the sum over
   A's columns carried as a pair (sum, error);
-- ``residual2``: ``b − A·x`` row by row, each row by ``dot2``.
+- ``residual2``: ``b − A·x`` row by row, each row by ``dot2``;
+- ``power2``: a number's powers 1..k, each carried as an unevaluated sum of two doubles and
+  rounded once, so the power is the correctly rounded one in all but the rarest cases.
 
 Every function works on numpy arrays element-wise (``dot2`` along the last axis), so a
 residual over a million rows is a loop over the columns, not the rows.
@@ -29,6 +31,10 @@ from __future__ import annotations
 import numpy as np
 
 SPLITTER = 134217729.0   # 2**27 + 1: splits a double into two halves of 26 significant bits
+# Below this size ``SPLITTER · a`` (about 2**27 · a) and the product's partial products stay
+# finite, so the split, and with it ``two_product``, is exact; above it they may overflow to
+# inf, and inf − inf would make a NaN.
+SAFE_SPLIT = 2.0 ** 995
 
 
 def two_sum(a, b) -> tuple[np.ndarray, np.ndarray]:
@@ -45,6 +51,13 @@ def split(a) -> tuple[np.ndarray, np.ndarray]:
     c = SPLITTER * a
     high = c - (c - a)
     return high, a - high
+
+
+def fast_two_sum(a, b) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``(s, e)`` with ``s = fl(a + b)`` and ``a + b = s + e`` exactly, for ``|a| ≥ |b|``
+    (or ``a`` zero): Dekker's FastTwoSum, which renormalises a pair of doubles."""
+    s = a + b
+    return s, b - (s - a)
 
 
 def two_product(a, b) -> tuple[np.ndarray, np.ndarray]:
@@ -161,3 +174,35 @@ def residual2(matrix, coef, target) -> np.ndarray:
     coef, target = np.asarray(coef, float), np.asarray(target, float)
     rows = np.column_stack([target, matrix])
     return dot2(rows, np.concatenate([[1.0], -coef]))
+
+
+def power2(values, degree: int) -> list[np.ndarray]:
+    """Return ``[x, x², …, x^degree]`` of the doubles ``values``, each power formed in twice the
+    working precision and rounded once.
+
+    The running power is a pair ``(high, low)`` of doubles; the next is ``(high + low) · x``,
+    taken as ``two_product(high, x)`` plus ``low · x`` and renormalised by ``fast_two_sum``. The
+    pair's relative error after k steps is a few times k · 2⁻¹⁰⁶, so its rounding to one double
+    (``high`` itself, once renormalised) is the correctly rounded power unless the exact power
+    lies that close to a midpoint between two doubles: it is then at most one unit in the last
+    place off, as it is in the subnormal range, where the low parts lose bits. The first power
+    is ``values`` itself, unchanged.
+
+    Where the split is not safe (the number or a power beyond ``SAFE_SPLIT``, about 7e299),
+    the power is plain ``x ** k``, as large or inf as that makes it, never NaN; the caller
+    decides whether it wants a term that large.
+    """
+    x = np.asarray(values, float)
+    powers = [x]
+    high, low = x, np.zeros_like(x)
+    with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+        safe = np.abs(x) < SAFE_SPLIT
+        for k in range(2, degree + 1):
+            product, error = two_product(high, x)
+            total, low = fast_two_sum(product, error + low * x)
+            # a zero power keeps the sign the product of doubles gives it (−0 for an odd
+            # power of −0 or of a negative number too small to show)
+            high = np.where(total == 0, product, total)
+            safe &= np.abs(product) < SAFE_SPLIT
+            powers.append(high if safe.all() else np.where(safe, high, x ** k))
+    return powers

@@ -25,6 +25,8 @@ class InteractionTerms:
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
         left, right = self.first.main_effect(frame), self.second.main_effect(frame)
+        # One product of two doubles, which IEEE arithmetic already rounds correctly: unlike a
+        # driver's powers (core.double_double.power2), nothing here needs twice the precision.
         columns = [left[:, i] * right[:, j] for i in range(left.shape[1]) for j in range(right.shape[1])]
         return np.column_stack(columns) if columns else np.empty((len(frame), 0))
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.double_double import power2
 from pipeline.core.errors import DataError, ModelFileError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.rows import first_row, which_rows
@@ -91,9 +92,12 @@ class NumericTerms:
         return (self._transformed(frame) - self.centre_) / self.scale_
 
     def transform(self, frame: pd.DataFrame) -> np.ndarray:
-        values = self.prepared(frame)
-        with np.errstate(over="ignore"):   # a term too large is refused when the design is built
-            columns = [values ** power for power in range(1, self.degree + 1)]
+        # Each power is formed in twice the working precision and rounded once (the correctly
+        # rounded power, not pow's nearly so), the one routine every design of this driver uses:
+        # a run's fits and a model file's forecasts alike. A term too large (even inf) is
+        # refused when the design is built.
+        with np.errstate(over="ignore"):
+            columns = power2(self.prepared(frame), self.degree)
         if self.marks_missing_:
             columns.append(frame[self.column].isna().to_numpy(float))
         return np.column_stack(columns)

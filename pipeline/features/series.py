@@ -55,6 +55,7 @@ class SeriesTerms(OneHotEncoder):
             return np.empty((len(frame), 0))
         dummies = super().transform(frame)
         blocks = [dummies] if self.level_columns else []
+        # a 0/1 column times the driver's first-degree column: exact, no rounding at all
         blocks += [dummies * part.main_effect(frame) for part in self.slopes]
         return np.hstack(blocks) if blocks else np.empty((len(frame), 0))
 

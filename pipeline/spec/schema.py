@@ -159,7 +159,7 @@ class NumericDriver(StrictModel):
     """
 
     column: str
-    degree: int = Field(1, strict=True, ge=1, le=6, description="1 = straight line; 2 adds the square")
+    degree: int = Field(1, strict=True, ge=1, le=10, description="1 = straight line; 2 adds the square")
     transform: Literal["none", "log", "log1p"] = Field(
         "none", description="log, or log1p = log(1 + value) for drivers that can be 0")
     clip_quantiles: list[float] | None = Field(

@@ -8,6 +8,8 @@ reference values themselves.
 
 from __future__ import annotations
 
+from fractions import Fraction
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -46,3 +48,19 @@ def test_a_non_positive_driver_under_log_names_its_row():
     assert stopped.value.file == "data.csv"
     log1p = fitted_plan({"numeric": [{"column": "price", "transform": "log1p"}]}, frame)
     assert log1p.get_feature_names_out() == ["log(1 + price)"]
+
+
+def test_a_drivers_powers_are_its_prepared_values_powers_rounded_once():
+    # The reference is the exact power of each prepared double (fractions.Fraction) rounded
+    # once to the nearest double (CPython's correctly rounded int division); the first column
+    # is the prepared values themselves, bit for bit.
+    rng = np.random.default_rng(11)
+    train = pd.DataFrame({"x": rng.normal(50.0, 7.0, 400)})
+    terms = NumericTerms("x", degree=10, standardise=True).fit(train)
+    prepared = terms.prepared(train)
+    matrix = terms.transform(train)
+    assert matrix.shape == (400, 10)
+    assert np.array_equal(matrix[:, 0], prepared)
+    truth = np.array([[float(Fraction(float(v)) ** k) for k in range(1, 11)] for v in prepared])
+    assert np.array_equal(matrix, truth)
+    assert not np.array_equal(prepared[:, None] ** np.arange(1, 11), truth)   # pow is not always

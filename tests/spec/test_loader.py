@@ -188,7 +188,7 @@ def test_unknown_key_without_a_near_match_lists_the_valid_keys(write):
 @pytest.mark.parametrize(("old", "new", "key", "shown"), [
     ("      degree: 2", "      degree: two", "drivers.numeric[1].degree", "'two'"),
     ("models: [ols]", "intercept: maybe\nmodels: [ols]", "intercept", "'maybe'"),
-    ("      degree: 2", "      degree: 9", "drivers.numeric[1].degree", "6"),
+    ("      degree: 2", "      degree: 11", "drivers.numeric[1].degree", "10"),
 ])
 def test_wrong_type_or_range_names_line_key_and_value(write, old, new, key, shown):
     text = edit(old, new)
@@ -491,7 +491,7 @@ def every_problem(path: Path) -> list[str]:
 def test_independent_problems_are_all_reported_in_file_order(write):
     text = edit("name: demo\n", "name: de/mo\n")
     text = edit("  date_column: month\n", "  date_column: month\n  gaps: sometimes\n", text)
-    text = edit("      degree: 2\n", "      degree: 9\n", text)
+    text = edit("      degree: 2\n", "      degree: 11\n", text)
     text = edit("  last_periods: 12\n", "  last_periods: 0\n", text)
     path = write(text)
     lines = every_problem(path)
