@@ -19,8 +19,9 @@ Three paths:
 2. a whole run of several series fitted one by one (``{kind: ols, per_series: true}``);
 3. ``PerSeriesOLS`` called directly on a stack of series of one shape.
 
-Some cases miss the bars with today's solver; they carry a strict xfail marker, a temporary
-one, to be removed when the refined solver is wired into the runs.
+Before the refined solver was wired in, wampler3 missed the coefficient bar on the single
+fit (10.75) and on the batched path (9.55), and longley passed it by 0.03 (11.03); now the
+precision rule (pipeline/models/ols.py) sends both to the refined solve, on every path.
 """
 
 from __future__ import annotations
@@ -47,11 +48,6 @@ FIRST_MONTH = "2001-01"
 CONDITION_CHECK = "condition number (scaled design)"
 PER_SERIES_MODEL = "ols_per_series"
 
-# TEMPORARY: the cases so marked miss the bars with today's solver (their measured LREs are
-# beside them); the marker goes when the refined solver is wired into least_squares and the
-# fit per series. Only a failed check of the certified values counts as the expected failure.
-UNTIL_REFINED = pytest.mark.xfail(strict=True, raises=AssertionError,
-                                  reason="until the refined solver is wired in")
 
 
 # ---------------------------------------------------------------- data and specs
@@ -154,11 +150,10 @@ def assert_full_digits(text: pd.DataFrame, columns=("estimate", "std_error")) ->
 
 # ---------------------------------------------------------------- 1. a whole run, one series
 
-# Measured with today's solver, the lowest coefficient LRE of a whole run: norris 14.1,
+# Measured before the refined solver was wired in, the lowest coefficient LRE of a whole run: norris 14.1,
 # pontius 14.0, noint1 14.7, noint2 15, longley 11.03 (just over the bar), wampler1 11.3,
 # wampler2 12.6, wampler3 10.75 (x's coefficient; x²'s 10.95).
-WHOLE_RUN_CASES = [*[name for name in NIST_DATASETS if name != "wampler3"],
-                   pytest.param("wampler3", marks=UNTIL_REFINED)]
+WHOLE_RUN_CASES = NIST_DATASETS
 
 
 @pytest.mark.parametrize("name", WHOLE_RUN_CASES)
@@ -211,14 +206,16 @@ def stacked_frame(names: list[str]) -> pd.DataFrame:
 
 
 def spy_on_the_fit_paths(monkeypatch) -> tuple[list, list]:
-    """Record each stacked fit (its stack's shape and which series it took) and each series
-    handed to the careful single fit (its rows)."""
+    """Record each stacked fit (its stack's shape, which series were of full rank, and which
+    the precision rule hands on to be refined) and each series handed to the careful single
+    fit (its rows)."""
     stacks, careful = [], []
     stacked_fit, single_fit = per_series._fit_stack, per_series.least_squares
 
     def stack_spy(x, y):
         result = stacked_fit(x, y)
-        stacks.append((x.shape, np.asarray(result[-1]).tolist()))
+        ok, digits = np.asarray(result[3]), np.asarray(result[4])
+        stacks.append((x.shape, ok.tolist(), (digits < per_series.REFINE_BELOW).tolist()))
         return result
 
     def careful_spy(matrix, y, names, **kwargs):
@@ -230,10 +227,9 @@ def spy_on_the_fit_paths(monkeypatch) -> tuple[list, list]:
     return stacks, careful
 
 
-# Measured with today's solver, the lowest coefficient LRE per series: longley 11.35, noint1
+# Measured before the refined solver was wired in, the lowest coefficient LRE per series: longley 11.35, noint1
 # 14.7, wampler1 11.3, wampler2 13.7, wampler3 9.55 (below the single fit's 10.75).
-@pytest.mark.parametrize("case", ["longley-x3", "noint1-x3",
-                                  pytest.param("wampler1-3", marks=UNTIL_REFINED)])
+@pytest.mark.parametrize("case", ["longley-x3", "noint1-x3", "wampler1-3"])
 def test_a_whole_run_per_series_meets_the_nist_strd_certified_values(case, tmp_path, monkeypatch):
     """NIST StRD (certified values: tests/data/nist_strd/certified.json): series of one file,
     each a NIST dataset, fitted one by one (`kind: ols, per_series: true`); each series' rows
@@ -241,9 +237,10 @@ def test_a_whole_run_per_series_meets_the_nist_strd_certified_values(case, tmp_p
     errors to LRE ≥ 9 (the run folder reports no residual SD per series: metrics.json's
     "fit" and diagnostics.csv hold the models over all series only).
 
-    Today these series take the stacked path (per_series._fit_stack: the batched Householder
-    QR refined twice), never the careful single fit (least_squares): they are all of full
-    rank and share a shape, and the spies below check it."""
+    These series share a shape and are of full rank, so they go through the stacked path
+    (per_series._fit_stack: the batched Householder QR); those the precision rule finds too
+    ill-conditioned for eleven digits (longley, wampler) are handed on to the single fit,
+    which refines them (least_squares), and only those: the spies below check it."""
     names = PER_SERIES_CASES[case]
     stacks, careful = spy_on_the_fit_paths(monkeypatch)
     frame = stacked_frame(names)
@@ -253,8 +250,10 @@ def test_a_whole_run_per_series_meets_the_nist_strd_certified_values(case, tmp_p
 
     rows, terms = len(nist_frame(names[0])), len(expected_terms(names[0]))
     # The final fit on all history: one stack of every series, each taken by the batched QR.
-    assert ((len(names), rows, terms), [True] * len(names)) in stacks
-    assert careful == []
+    final = [refine for shape, ok, refine in stacks if shape == (len(names), rows, terms) and all(ok)]
+    assert final, stacks
+    assert len(careful) == sum(sum(refine) for _, _, refine in stacks)
+    assert any(final[-1]) == (names[0] != "noint1")
     numbers, text = read_ols_rows(run, PER_SERIES_MODEL)
     assert_full_digits(text)
     failures = []
@@ -282,22 +281,23 @@ DIRECT_CASES = {**{f"{name}-x3": [name] * 3 for name in NIST_DATASETS},
                 "wampler1-3": PER_SERIES_CASES["wampler1-3"]}
 
 
-# Measured with today's solver, the lowest coefficient LRE per series: norris 14.0, pontius
+# Measured before the refined solver was wired in, the lowest coefficient LRE per series: norris 14.0, pontius
 # 13.2, noint1 14.7, noint2 15, longley 11.35, wampler1 11.3, wampler2 13.7, wampler3 9.55.
-@pytest.mark.parametrize("case", [pytest.param(case, marks=UNTIL_REFINED) if "wampler3" in names
-                                  else case for case, names in DIRECT_CASES.items()])
+@pytest.mark.parametrize("case", list(DIRECT_CASES))
 def test_the_batched_fit_per_series_meets_the_nist_strd_certified_values(case, monkeypatch):
     """NIST StRD (certified values: tests/data/nist_strd/certified.json): PerSeriesOLS fitted on
     a stack of series of one shape (three copies of a dataset, or wampler1-3); its
     coefficient_table() and residual SDs meet each series' certified coefficients to LRE ≥ 11,
-    standard errors and residual SD to LRE ≥ 9, all through the stacked QR (_fit_stack)."""
+    standard errors and residual SD to LRE ≥ 9: through the stacked QR (_fit_stack), and those
+    series the precision rule finds too ill-conditioned through the refined single fit."""
     names = DIRECT_CASES[case]
     stacks, careful = spy_on_the_fit_paths(monkeypatch)
     design, y, intercept = stacked_design(names)
     model = PerSeriesOLS(fit_intercept=intercept).fit(design, y)
     shape = (len(names), len(y) // len(names), len(expected_terms(names[0])))
-    assert stacks == [(shape, [True] * len(names))]
-    assert careful == []
+    assert len(stacks) == 1 and stacks[0][:2] == (shape, [True] * len(names))
+    assert careful == [shape[1]] * sum(stacks[0][2])
+    assert model.refined_.tolist() == stacks[0][2]
     table = model.coefficient_table()
     failures = []
     for position, (label, name) in enumerate(zip(model.series_, names)):
