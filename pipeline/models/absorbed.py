@@ -222,7 +222,8 @@ def _absorbed_least_squares(x: np.ndarray, y: np.ndarray, series, names: list[st
         names=names, coef=fit.coef, stderr=stderr, residuals=residuals,
         resid_sd=float(np.sqrt(sigma2)), r2=r2, adj_r2=adj_r2, df_resid=df_resid, rank=rank,
         condition_number=fit.condition_number, centered_r2=True, dropped=dropped,
-        xtx_inverse=inverse, leverage=fit.leverage + 1.0 / counts[codes])   # the levels' part: 1/nₛ
+        xtx_inverse=inverse, leverage=fit.leverage + 1.0 / counts[codes],   # the levels' part: 1/nₛ
+        precision=fit.precision)
     beta = np.nan_to_num(fit.coef)
     levels = y_means - x_means @ beta if p else y_means
     return AbsorbedFit(slopes=slopes, levels=levels, series_names=np.asarray(series_names, dtype=object),

@@ -23,7 +23,7 @@ import pandas as pd
 
 from pipeline.core.distributions import chi2_upper, f_upper, t_quantile, t_upper
 from pipeline.core.scale import unit_scale
-from pipeline.models.ols import INTERCEPT, LeastSquaresFit, least_squares
+from pipeline.models.ols import INTERCEPT, REFINE_BELOW, LeastSquaresFit, least_squares
 
 ALPHA = 0.05
 
@@ -404,7 +404,24 @@ def _design_findings(fit: LeastSquaresFit, x: np.ndarray, term_groups) -> tuple[
                             "the other drivers" if len(high)
                             else "no driver is largely explained by the others" if len(vif)
                             else "not defined: no driver besides the intercept"))
+    if fit.precision is not None:
+        findings.append(_digits_finding(fit.precision))
     return findings, vif
+
+
+DIGITS_CHECK = "correct digits (estimated)"
+FEWEST_DIGITS = 6   # below this, the coefficients as printed may be wrong
+
+
+def _digits_finding(precision) -> Finding:
+    """Return how the coefficients were solved and how many of their digits are estimated right."""
+    few = precision.digits < FEWEST_DIGITS
+    reading = precision.describe() + (
+        f"; fewer than {FEWEST_DIGITS}: the drivers are too close to collinear for the printed "
+        "coefficients to be trusted; centre or rescale them, or lower a degree" if few else "")
+    return Finding(DIGITS_CHECK, float(precision.digits), np.nan,
+                   f"≥ 11 sought; refined in twice the working precision below {REFINE_BELOW:g}",
+                   bool(few), reading)
 
 
 def _influence(fit: LeastSquaresFit, row_labels, influential_count: int,

@@ -40,6 +40,12 @@ INTERCEPT = "intercept"
 # 12 digits or more, it had at least 11; below it, the refined solve had 15.
 REFINE_BELOW = 12.0
 REFINE_COVARIANCE_BELOW = 11.0
+# A backtest scores predictions, whose relative error the condition number bounds (ε·κ) however
+# small a coefficient is: the growing factor of the backtest's windows hands a window to the
+# careful fit, which refines, when that bound leaves fewer digits than this (κ above 4.5e7).
+# Eight is far more than the four digits an MAE is shown to, and keeps the growing factor for
+# the nearly collinear designs it does well (a quadratic in a driver far from zero: κ ≈ 3e6).
+PREDICTION_DIGITS = 8.0
 MACHINE_EPSILON = float(np.finfo(float).eps)
 
 
@@ -437,7 +443,10 @@ class GrowingLeastSquares:
         return self
 
     def solve(self) -> np.ndarray | None:
-        """Return the coefficients for the rows taken in so far, or None when rank-deficient."""
+        """Return the coefficients for the rows taken in so far, or None when rank-deficient or
+        when the window's condition number leaves its predictions fewer than
+        ``PREDICTION_DIGITS`` correct digits (−log₁₀ ε·κ): the careful fit, which refines, then
+        takes over."""
         p = len(self.scale)
         if self.rows_ <= p:
             return None
@@ -446,6 +455,11 @@ class GrowingLeastSquares:
         if diagonal.min() <= _rank_tolerance(r, self.rows_) * 1e3:
             return None
         beta = scipy.linalg.solve_triangular(r, self.r_[:p, p], check_finite=False)
+        # R with each column divided by its length is the R factor of this window's design
+        # with unit-length columns, the one the single fit's condition number is of.
+        singular = scipy.linalg.svdvals(r / np.sqrt(np.einsum("ij,ij->j", r, r)), check_finite=False)
+        if -np.log10(MACHINE_EPSILON * singular[0] / singular[-1]) < PREDICTION_DIGITS:
+            return None
         return beta / self.scale
 
     def prediction_se(self, matrix: np.ndarray) -> np.ndarray:
@@ -469,7 +483,8 @@ def expanding_ols_predictions(matrix: np.ndarray, y: np.ndarray, months: np.ndar
 
     ``matrix`` (intercept column included), ``y`` and ``months`` are sorted by month;
     ``origins`` are month ordinals in increasing order; ``tests`` the test rows' designs.
-    Returns None when a window is rank-deficient (the careful fit must take over).
+    Returns None when a window is rank-deficient or needs a refined solve (the careful fit
+    must take over).
     """
     norms = np.sqrt(np.einsum("ij,ij->j", matrix, matrix))
     solver = GrowingLeastSquares(np.where(norms > 0, norms, 1.0))

@@ -407,6 +407,17 @@ class PerSeriesOLS(Model):
         out[rows] = df[code[rows]]
         return out
 
+    def precision_note(self) -> str | None:
+        """Return how many series' fits were refined in twice the working precision, and the
+        fewest digits estimated among them (None when none was)."""
+        refined = getattr(self, "refined_", None)
+        if refined is None or not refined.any():
+            return None
+        count = int(refined.sum())
+        return (f"{count} of {len(refined)} series' fits {'were' if count > 1 else 'was'} refined in "
+                "twice the working precision, their condition numbers calling for it; at least "
+                f"{np.nanmin(self.digits_[refined]):.0f} correct digits estimated in every coefficient")
+
     def notes(self) -> list[str]:
         """Return what a reader should know about the fits: terms left out, fallbacks."""
         found = []
@@ -417,13 +428,6 @@ class PerSeriesOLS(Model):
                          "them out (the series' own intercept carries them)" if self.fit_intercept
                          else f"{shown} are all zeros within some series, so those series' fits "
                               "leave them out")
-        refined = getattr(self, "refined_", None)
-        if refined is not None and refined.any():
-            count = int(refined.sum())
-            found.append(f"{count} series' fit{'s were' if count > 1 else ' was'} refined in twice the "
-                         "working precision, the condition number calling for it; about "
-                         f"{np.nanmin(self.digits_[refined]):.0f} correct digits estimated in every "
-                         "coefficient at the least")
         if self.dropped_:
             series, why = self.dropped_[0]
             found.append(f"in {len({s for s, _ in self.dropped_})} series a term is a combination of "

@@ -233,7 +233,9 @@ def _growing_ols(spec: Spec, splits: list[Split], history: pd.DataFrame, matrix:
                                       history[PERIOD].array.asi8,
                                       [split.origin.ordinal for split in splits],
                                       [with_intercept(test) for test in tests])
-    if found is None:  # rank-deficient window: the careful fit drops and names columns
+    # A rank-deficient window (the careful fit drops and names columns), or one the precision
+    # rule would refine (the careful fit refines it).
+    if found is None:
         return {}
     return {split.label: (*result, None) for split, result in zip(splits, found)}
 

@@ -264,6 +264,9 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
                "rank": fit.rank, "r2": r2, "adj_r2": adj_r2,
                "resid_sd": 0.0 if state else fit.resid_sd, "condition_number": fit.condition_number,
                "r2_kind": "centred" if fit.centered_r2 else "uncentred (no intercept)"}
+    if fit.precision is not None:
+        summary.update(refined=fit.precision.refined, refinement_steps=fit.precision.steps,
+                       estimated_digits=fit.precision.digits)
     # An exact fit in real data usually means the target was made from a driver: a warning.
     exact = [f"{kind}: {EXACT_NOTE if state == EXACT else FLAT_NOTE}"] if state else []
     return _FitReport(terms, diagnostics, vif, influential, residuals, summary,
@@ -301,6 +304,13 @@ def _other_terms(spec: Spec, choice, model, kind: str, design: Design,
     if MODELS[choice.kind].can("penalised"):
         terms["note"] = ("penalised fit: classical standard errors and p-values do not apply")
     return terms, warnings
+
+
+def _descriptions(choice, model, kind: str) -> list[str]:
+    """Return the notes that describe a model's final fit: what it is, and, for a model per
+    series, how many series' fits were refined in twice the working precision."""
+    found = [model.describe(), model.inner.precision_note() if choice.per_series else None]
+    return [f"{kind}: {text}" for text in found if text]
 
 
 def _fit_notes(choice, model, kind: str) -> tuple[list[str], pd.DataFrame | None]:
@@ -395,7 +405,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         fitted[kind] = model
         notes, fell_back = _fit_notes(choice, model, kind)
         warnings += notes
-        fit_notes += [f"{kind}: {described}" for described in [model.describe()] if described]
+        fit_notes += _descriptions(choice, model, kind)
         if fell_back is not None:
             fallbacks.append(fell_back)
         errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)

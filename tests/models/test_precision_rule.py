@@ -136,3 +136,30 @@ def test_forcing_the_refined_path_on_a_well_conditioned_design_changes_only_roun
     np.testing.assert_allclose(forced.coef, reference.params, rtol=1e-12, atol=1e-12 * np.abs(reference.params).max())
     np.testing.assert_allclose(forced.stderr, reference.bse, rtol=1e-12)
     np.testing.assert_allclose(forced.residuals, reference.resid, atol=1e-9)
+
+
+def test_the_backtests_growing_factor_hands_an_ill_conditioned_window_to_the_careful_fit():
+    """The backtest's factor grown across origins keeps a window whose condition number
+    (numpy's, of the window's unit-scaled design) leaves its predictions at least
+    PREDICTION_DIGITS digits (−log₁₀ ε·κ), and hands the others to the careful fit (None)."""
+    from pipeline.models.ols import PREDICTION_DIGITS, expanding_ols_predictions
+
+    def run(design, target):
+        months = np.arange(len(target))
+        origins = [len(target) - 12, len(target) - 6]
+        return expanding_ols_predictions(design, target, months, origins, [design[-2:], design[-1:]])
+
+    def digits(design, rows):
+        window = design[:rows] / np.linalg.norm(design[:rows], axis=0)
+        return -math.log10(np.finfo(float).eps * np.linalg.cond(window))
+
+    rng = np.random.default_rng(11)
+    x = np.sort(rng.uniform(-8.8, -3.1, 82))   # as in the degree-ten design above
+    hard = np.column_stack([np.ones(len(x)), *power2(x, 10)])
+    easy = np.column_stack([np.ones(len(x)), rng.normal(size=(len(x), 3))])
+    target = rng.normal(size=len(x))
+    assert digits(hard, 70) < PREDICTION_DIGITS and run(hard, target) is None
+    assert digits(easy, 70) > PREDICTION_DIGITS
+    found = run(easy, target)
+    reference = sm.OLS(target[:71], easy[:71]).fit()   # the first origin's window: months 0..70
+    np.testing.assert_allclose(found[0][0], reference.predict(easy[-2:]), rtol=1e-10)
