@@ -54,6 +54,7 @@ for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import argparse  # noqa: E402
 import math  # noqa: E402
+import re  # noqa: E402
 import shutil  # noqa: E402
 import statistics  # noqa: E402
 import subprocess  # noqa: E402
@@ -101,8 +102,9 @@ class Hook(importlib.abc.MetaPathFinder):
                 return solve(x, y, names, centered_r2, False)
             def counted(x, y, names, centered_r2, refine):
                 fit, plain = solve(x, y, names, centered_r2, refine), solve(x, y, names, centered_r2, False)
-                print(f"fit: refined {{fit.precision.refined}} digits {{plain.precision.digits}} "
-                      f"condition {{plain.condition_number}}", file=sys.stderr)
+                sys.stderr.write(f"fit: refined {{fit.precision.refined}} digits {{plain.precision.digits}} "
+                                 f"condition {{plain.condition_number}}\n")
+                sys.stderr.flush()
                 return fit
             module._least_squares = ordinary if HOLD else counted
             print("hook in place", file=sys.stderr)
@@ -127,12 +129,14 @@ def process(arguments: list[str], env: dict[str, str], cwd: Path, hooked: bool) 
 
 
 def rule_in_a_run(spec: Path, env: dict[str, str], folder: Path) -> str:
-    """Run the spec once with COUNT's hook (untimed); describe the fits the rule refined."""
+    """Run the spec once with COUNT's hook (untimed, in one process: CASTLINE_ONE_PROCESS, so
+    that no forked copy's lines mingle with its own); describe the fits the rule refined."""
     out = folder / "counted"
-    _, stderr = process(["-c", COUNT, "run", str(spec), "--output-folder", str(out)], env, folder, hooked=True)
+    _, stderr = process(["-c", COUNT, "run", str(spec), "--output-folder", str(out)],
+                        dict(env, CASTLINE_ONE_PROCESS="1"), folder, hooked=True)
     shutil.rmtree(out, ignore_errors=True)
-    fits = [line.split() for line in stderr.splitlines() if line.startswith("fit: refined")]
-    refined = [(float(words[4]), float(words[6])) for words in fits if words[2] == "True"]
+    fits = re.findall(r"^fit: refined (True|False) digits (\S+) condition (\S+)$", stderr, re.MULTILINE)
+    refined = [(float(digits), float(condition)) for done, digits, condition in fits if done == "True"]
     text = f"{len(fits)} fits through least_squares, {len(refined)} refined by the rule"
     if refined:
         digits, condition = zip(*refined)
