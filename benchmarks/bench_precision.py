@@ -33,7 +33,10 @@ machine's speed drifts over minutes; interleaving spreads the drift over all of 
     the timed process itself, ``HOOK``: nothing in pipeline/ is changed or asked); and,
     with ``--baseline-source DIR``, the same command from an older tree (a checkout from
     before the refinement, e.g. ``git worktree add /tmp/bench-base a95194a``). Once more,
-    untimed, with the hook counting how many fits the rule refined in the run, and why.
+    untimed, with the hook counting how many fits the rule refined in the run, and why. Each
+    process's wall time is printed beside its CPU time (user + system, its forked copies'
+    included, from os.wait4), which other work on a shared machine sways less; the targets
+    are on the wall time.
 
 Targets: castline / ordinary <= 1.05 in (a), and this tree / baseline and this tree / ordinary
 <= 1.05 in (c): the rule must not slow the ordinary path measurably; castline / hand-written
@@ -117,22 +120,28 @@ entry()
 ORDINARY, COUNT = HOOK.format(hold=True), HOOK.format(hold=False)
 
 
-def process(arguments: list[str], env: dict[str, str], cwd: Path, hooked: bool) -> tuple[float, str]:
-    """Return the wall time of one process and its stderr; stop the benchmark if it fails, or
-    if ``hooked`` and the hook was not put in place in it."""
-    start = time.perf_counter()
-    done = subprocess.run([sys.executable, *arguments], env=env, cwd=cwd, capture_output=True, text=True)
-    elapsed = time.perf_counter() - start
-    if done.returncode != 0 or (hooked and "hook in place" not in done.stderr):
-        raise SystemExit(f"failed: {' '.join(arguments[-4:])}\n{done.stdout[-2000:]}{done.stderr[-2000:]}")
-    return elapsed, done.stderr
+def process(arguments: list[str], env: dict[str, str], cwd: Path, hooked: bool) -> tuple[float, float, str]:
+    """Return one process's wall time, its CPU time (user + system, its forked copies' too, from
+    os.wait4) and its stderr; stop the benchmark if it fails, or if ``hooked`` and the hook was
+    not put in place in it."""
+    with tempfile.TemporaryFile("w+") as out, tempfile.TemporaryFile("w+") as err:
+        start = time.perf_counter()
+        child = subprocess.Popen([sys.executable, *arguments], env=env, cwd=cwd, stdout=out, stderr=err)
+        _, status, usage = os.wait4(child.pid, 0)
+        elapsed = time.perf_counter() - start
+        out.seek(0)
+        err.seek(0)
+        stderr = err.read()
+        if os.waitstatus_to_exitcode(status) != 0 or (hooked and "hook in place" not in stderr):
+            raise SystemExit(f"failed: {' '.join(arguments[-4:])}\n{out.read()[-2000:]}{stderr[-2000:]}")
+    return elapsed, usage.ru_utime + usage.ru_stime, stderr
 
 
 def rule_in_a_run(spec: Path, env: dict[str, str], folder: Path) -> str:
     """Run the spec once with COUNT's hook (untimed, in one process: CASTLINE_ONE_PROCESS, so
     that no forked copy's lines mingle with its own); describe the fits the rule refined."""
     out = folder / "counted"
-    _, stderr = process(["-c", COUNT, "run", str(spec), "--output-folder", str(out)],
+    _, _, stderr = process(["-c", COUNT, "run", str(spec), "--output-folder", str(out)],
                         dict(env, CASTLINE_ONE_PROCESS="1"), folder, hooked=True)
     shutil.rmtree(out, ignore_errors=True)
     fits = re.findall(r"^fit: refined (True|False) digits (\S+) condition (\S+)$", stderr, re.MULTILINE)
@@ -301,30 +310,37 @@ def whole_runs(args) -> None:
         if "panel" in args.runs:
             specs[f"panel ({args.panel_series} series x {args.panel_months} months)"] = panel_spec(
                 folder, args.panel_series, args.panel_months)
-        out = folder / "out"
         for label, spec in specs.items():
-            times: dict[str, list[float]] = {name: [] for name in trees}
-            names = list(trees)
-            for k in range(args.repeats):
-                for name in names[k % len(names):] + names[:k % len(names)]:
-                    program, env = trees[name]
-                    command = ["-c", program] if program else ["-m", "pipeline"]
-                    seconds, _ = process([*command, "run", str(spec), "--output-folder", str(out)], env,
-                                         folder, hooked=program is not None)
-                    times[name].append(seconds)
-                    shutil.rmtree(out, ignore_errors=True)
-            found = {name: statistics.median(values) for name, values in times.items()}
+            found = time_trees(spec, trees, args.repeats, folder)
             print(f"  {label}: {rule_in_a_run(spec, here, folder)}")
-            print(f"  {label}: " + "   ".join(f"{name} {seconds:6.2f} s" for name, seconds in found.items()))
-            ratio = found["this tree"] / found["ordinary path"]
-            print(f"    {label}: this tree / ordinary path = {ratio:.3f} (target <= {TARGET_RUN}: "
-                  f"{verdict(ratio <= TARGET_RUN)})")
-            if "baseline" in found:
-                ratio = found["this tree"] / found["baseline"]
-                print(f"    {label}: this tree / baseline = {ratio:.3f} (target <= {TARGET_RUN}: "
-                      f"{verdict(ratio <= TARGET_RUN)})")
-            else:
-                print(f"    {label}: this tree / baseline skipped (no --baseline-source)")
+            print(f"  {label}: " + "   ".join(f"{name} {wall:6.2f} s (CPU {cpu:6.2f} s)"
+                                             for name, (wall, cpu) in found.items()))
+            for other in ("ordinary path", "baseline"):
+                if other not in found:
+                    print(f"    {label}: this tree / baseline skipped (no --baseline-source)")
+                    continue
+                ratio, cpu = (found["this tree"][k] / found[other][k] for k in (0, 1))
+                print(f"    {label}: this tree / {other} = {ratio:.3f} (target <= {TARGET_RUN}: "
+                      f"{verdict(ratio <= TARGET_RUN)}); in CPU time {cpu:.3f}")
+
+
+def time_trees(spec: Path, trees: dict, repeats: int, folder: Path) -> dict[str, tuple[float, float]]:
+    """Return each tree's median wall and CPU seconds for ``castline run`` of the spec, the trees
+    interleaved (the order rotated each repeat), each run the spec's first (an empty output
+    folder and ledger)."""
+    out = folder / "out"
+    times: dict[str, list[tuple[float, float]]] = {name: [] for name in trees}
+    names = list(trees)
+    for k in range(repeats):
+        for name in names[k % len(names):] + names[:k % len(names)]:
+            program, env = trees[name]
+            command = ["-c", program] if program else ["-m", "pipeline"]
+            wall, cpu, _ = process([*command, "run", str(spec), "--output-folder", str(out)], env, folder,
+                                   hooked=program is not None)
+            times[name].append((wall, cpu))
+            shutil.rmtree(out, ignore_errors=True)
+    return {name: (statistics.median(w for w, _ in found), statistics.median(c for _, c in found))
+            for name, found in times.items()}
 
 
 def sizes(text: str) -> list[tuple[int, int]]:
