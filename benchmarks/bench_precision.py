@@ -28,24 +28,26 @@ machine's speed drifts over minutes; interleaving spreads the drift over all of 
 (c) the whole ``castline run`` as a user runs it, each a process of its own (PYTHONPATH set to
     the tree, as bench_small does), on the shipped demo (configs/compost_demo.yaml) and on a
     generated panel (bench_small's data: stores x months, three numeric drivers; OLS pooled
-    and ``{kind: ols, per_series: true}``, rolling origin): this tree; this tree with
-    ``least_squares`` held to the ordinary path (``refine=False``, set by an import hook in
-    the timed process itself, ``HOOK``: nothing in pipeline/ is changed or asked); and,
-    with ``--baseline-source DIR``, the same command from an older tree (a checkout from
-    before the refinement, e.g. ``git worktree add /tmp/bench-base a95194a``). Once more,
-    untimed, with the hook counting how many fits the rule refined in the run, and why. Each
-    process's wall time is printed beside its CPU time (user + system, its forked copies'
-    included, from os.wait4), which other work on a shared machine sways less; the targets
-    are on the wall time.
+    and ``{kind: ols, per_series: true}``, rolling origin): this tree; this tree with its
+    ``least_squares`` held to the ordinary path ("ordinary path": refine=False, so what is
+    left of the rule is the batched per-series fit handing the series it names to
+    least_squares); this tree without the rule ("rule off": that, and the batched fit keeping
+    every series) — both set by an import hook in the timed process itself (``HOOK``: nothing
+    in pipeline/ is changed or asked); and, with ``--baseline-source DIR``, the same command
+    from an older tree (a checkout from before the refinement, e.g. ``git worktree add
+    /tmp/bench-base a95194a``). Once more, untimed, with the hook counting how many fits the
+    rule refined in the run, and why. Each process's wall time is printed beside its CPU time
+    (user + system, its forked copies' included, from os.wait4), which other work on a shared
+    machine sways less; the targets are on the wall time.
 
-Targets: castline / ordinary <= 1.05 in (a), and this tree / baseline and this tree / ordinary
-<= 1.05 in (c): the rule must not slow the ordinary path measurably; castline / hand-written
-<= 2 in (a) (castline's fit does more: a pivoted QR, two refinement steps against its own
-residuals, the condition number by singular values, the leverage and R²). In (b) no target:
-the refinement costs what it costs where the digits call for it. Printed beside the figures,
-never asserted: a shared or slow machine misses them without anything being wrong. The data
-are random (numpy, seeded); no value in them is a reference value; the exact rational
-solutions in (b) are.
+Targets: castline / ordinary <= 1.05 in (a): the rule must not slow the ordinary path
+measurably; this tree / ordinary path, / rule off and / baseline <= 1.05 in (c): a whole run
+no slower for the rule, wherever it fires; castline / hand-written <= 2 in (a) (castline's fit
+does more: a pivoted QR, two refinement steps against its own residuals, the condition number
+by singular values, the leverage and R²). In (b) no target: the refinement costs what it costs
+where the digits call for it. Printed beside the figures, never asserted: a shared or slow
+machine misses them without anything being wrong. The data are random (numpy, seeded); no
+value in them is a reference value; the exact rational solutions in (b) are.
 """
 
 from __future__ import annotations
@@ -84,22 +86,31 @@ from pipeline.models.ols import REFINE_BELOW, REFINE_COVARIANCE_BELOW, least_squ
 TARGET_RULE, TARGET_HAND, TARGET_RUN = 1.05, 2.0, 1.05
 BATCH_SECONDS = 0.2   # each timed batch repeats a fit until it takes about this long
 
-# castline's run with an import hook on models.ols: it wraps _least_squares (which every
-# least_squares call goes through) as the module loads, in whichever process loads it (a forked
-# copy inherits the hook), so the run imports and forks as it always does. HOLD: every fit on
-# the ordinary path (refine=False). COUNT: every fit as castline makes it, each reported on
-# stderr with the ordinary solve's estimated digits (an untimed run: it solves twice).
+# castline's run with an import hook on models.ols and models.per_series: it changes them as
+# they load, in whichever process loads them (a forked copy inherits the hook), so the run
+# imports and forks as it always does; it says so on stderr, for the benchmark to check.
+# "hold": every least_squares fit on the ordinary path (its _least_squares, which every call
+# goes through, given refine=False); the batched per-series fit still hands the series the rule
+# names to least_squares. "off": that, and the batched fit keeps every series (its
+# REFINE_BELOW, read at each call, set to −inf): castline without the rule. "count": every fit
+# as castline makes it, each reported on stderr with the ordinary solve's estimated digits and
+# condition number (an untimed run: it solves twice).
 HOOK = r"""
 import importlib.abc, importlib.machinery, sys
-HOLD = {hold}
+MODE = {mode!r}
 class Hook(importlib.abc.MetaPathFinder):
     def find_spec(self, name, path, target=None):
-        if name != "pipeline.models.ols":
+        if name not in ("pipeline.models.ols", "pipeline.models.per_series"):
             return None
         spec = importlib.machinery.PathFinder.find_spec(name, path)
         load = spec.loader.exec_module
         def exec_module(module):
             load(module)
+            if name.endswith("per_series"):
+                if MODE == "off":
+                    module.REFINE_BELOW = float("-inf")
+                    print("per-series hook in place", file=sys.stderr)
+                return
             solve = module._least_squares
             def ordinary(x, y, names, centered_r2, refine):
                 return solve(x, y, names, centered_r2, False)
@@ -109,7 +120,7 @@ class Hook(importlib.abc.MetaPathFinder):
                                  f"condition {{plain.condition_number}}\n")
                 sys.stderr.flush()
                 return fit
-            module._least_squares = ordinary if HOLD else counted
+            module._least_squares = counted if MODE == "count" else ordinary
             print("hook in place", file=sys.stderr)
         spec.loader.exec_module = exec_module
         return spec
@@ -117,13 +128,15 @@ sys.meta_path.insert(0, Hook())
 from pipeline.__main__ import entry
 entry()
 """
-ORDINARY, COUNT = HOOK.format(hold=True), HOOK.format(hold=False)
+ORDINARY, RULE_OFF, COUNT = (HOOK.format(mode=mode) for mode in ("hold", "off", "count"))
+MARKERS = {ORDINARY: ("hook in place",), RULE_OFF: ("hook in place", "per-series hook in place"),
+           COUNT: ("hook in place",)}
 
 
-def process(arguments: list[str], env: dict[str, str], cwd: Path, hooked: bool) -> tuple[float, float, str]:
+def process(arguments: list[str], env: dict[str, str], cwd: Path, markers=()) -> tuple[float, float, str]:
     """Return one process's wall time, its CPU time (user + system, its forked copies' too, from
-    os.wait4) and its stderr; stop the benchmark if it fails, or if ``hooked`` and the hook was
-    not put in place in it."""
+    os.wait4) and its stderr; stop the benchmark if it fails, or if a hook's marker is missing
+    from its stderr."""
     with tempfile.TemporaryFile("w+") as out, tempfile.TemporaryFile("w+") as err:
         start = time.perf_counter()
         child = subprocess.Popen([sys.executable, *arguments], env=env, cwd=cwd, stdout=out, stderr=err)
@@ -132,7 +145,7 @@ def process(arguments: list[str], env: dict[str, str], cwd: Path, hooked: bool) 
         out.seek(0)
         err.seek(0)
         stderr = err.read()
-        if os.waitstatus_to_exitcode(status) != 0 or (hooked and "hook in place" not in stderr):
+        if os.waitstatus_to_exitcode(status) != 0 or not all(marker in stderr for marker in markers):
             raise SystemExit(f"failed: {' '.join(arguments[-4:])}\n{out.read()[-2000:]}{stderr[-2000:]}")
     return elapsed, usage.ru_utime + usage.ru_stime, stderr
 
@@ -142,7 +155,7 @@ def rule_in_a_run(spec: Path, env: dict[str, str], folder: Path) -> str:
     that no forked copy's lines mingle with its own); describe the fits the rule refined."""
     out = folder / "counted"
     _, _, stderr = process(["-c", COUNT, "run", str(spec), "--output-folder", str(out)],
-                        dict(env, CASTLINE_ONE_PROCESS="1"), folder, hooked=True)
+                           dict(env, CASTLINE_ONE_PROCESS="1"), folder, MARKERS[COUNT])
     shutil.rmtree(out, ignore_errors=True)
     fits = re.findall(r"^fit: refined (True|False) digits (\S+) condition (\S+)$", stderr, re.MULTILINE)
     refined = [(float(digits), float(condition)) for done, digits, condition in fits if done == "True"]
@@ -296,7 +309,7 @@ def panel_spec(folder: Path, series: int, months: int) -> Path:
 
 def whole_runs(args) -> None:
     here = environment(ROOT)
-    trees = {"this tree": (None, here), "ordinary path": (ORDINARY, here)}
+    trees = {"this tree": (None, here), "ordinary path": (ORDINARY, here), "rule off": (RULE_OFF, here)}
     if args.baseline_source is not None:
         trees["baseline"] = (None, environment(args.baseline_source.resolve()))
     print(f"\n(c) castline run, whole processes (median of {args.repeats}); baseline: "
@@ -315,7 +328,7 @@ def whole_runs(args) -> None:
             print(f"  {label}: {rule_in_a_run(spec, here, folder)}")
             print(f"  {label}: " + "   ".join(f"{name} {wall:6.2f} s (CPU {cpu:6.2f} s)"
                                              for name, (wall, cpu) in found.items()))
-            for other in ("ordinary path", "baseline"):
+            for other in ("ordinary path", "rule off", "baseline"):
                 if other not in found:
                     print(f"    {label}: this tree / baseline skipped (no --baseline-source)")
                     continue
@@ -336,7 +349,7 @@ def time_trees(spec: Path, trees: dict, repeats: int, folder: Path) -> dict[str,
             program, env = trees[name]
             command = ["-c", program] if program else ["-m", "pipeline"]
             wall, cpu, _ = process([*command, "run", str(spec), "--output-folder", str(out)], env, folder,
-                                   hooked=program is not None)
+                                   MARKERS.get(program, ()))
             times[name].append((wall, cpu))
             shutil.rmtree(out, ignore_errors=True)
     return {name: (statistics.median(w for w, _ in found), statistics.median(c for _, c in found))

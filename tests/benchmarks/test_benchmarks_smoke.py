@@ -83,6 +83,7 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"against the exact solution: castline {NUMBER}, ordinary {NUMBER} digits",
          r"panel \(3 series x 40 months\): [0-9]+ fits through least_squares, [0-9]+ refined by the rule",
          rf"panel \(3 series x 40 months\): this tree / ordinary path = {NUMBER} \(target <= 1\.05: (met|MISSED)\)",
+         rf"panel \(3 series x 40 months\): this tree / rule off = {NUMBER} \(target <= 1\.05: (met|MISSED)\)",
          r"panel \(3 series x 40 months\): this tree / baseline skipped"],
     ),
     "bench_many_series.py": (
