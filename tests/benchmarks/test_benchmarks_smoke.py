@@ -70,6 +70,22 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
          rf"castline run \(demo\), one process\s+{NUMBER} s\s+=\s+{NUMBER} x bare\s+\(CASTLINE_ONE_PROCESS=1",
          rf"diagnostics {NUMBER} s = {NUMBER}% of it, of which VIF {NUMBER} s \(target <= 10%: (met|MISSED)\)"],
     ),
+    # The rule's cost on a 300 x 4 design, the refined fits at 21 rows (beside their exact
+    # rational solutions), the whole run of a panel of 3 series x 40 months; no baseline tree.
+    "bench_precision.py": (
+        ["--repeats", "1", "--sizes", "300x4", "--poly-rows", "21", "--runs", "panel",
+         "--panel-series", "3", "--panel-months", "40"],
+        [r"300 x 4\s+condition\s+[0-9.]+, estimated digits\s+[0-9.]+, refined False",
+         rf"300 x 4: castline / ordinary = {NUMBER} \(target <= 1\.05: (met|MISSED)\); "
+         rf"castline / hand-written = {NUMBER} \(target <= 2: (met|MISSED)\)",
+         rf"degree 10, x on \[-8\.8, -3\.1\], 21 rows: condition {NUMBER}e\+[0-9]+; refined True",
+         rf"castline / ordinary = {NUMBER}x \(no target\)",
+         rf"against the exact solution: castline {NUMBER}, ordinary {NUMBER} digits",
+         r"panel \(3 series x 40 months\): [0-9]+ fits through least_squares, [0-9]+ refined by the rule",
+         rf"panel \(3 series x 40 months\): this tree / ordinary path = {NUMBER} \(target <= 1\.05: (met|MISSED)\)",
+         rf"panel \(3 series x 40 months\): this tree / rule off = {NUMBER} \(target <= 1\.05: (met|MISSED)\)",
+         r"panel \(3 series x 40 months\): this tree / baseline skipped"],
+    ),
     "bench_many_series.py": (
         ["--series", "10", "--months", "30", "--drivers", "2"],
         [rf"ratio \(b\)/\(a\) = {NUMBER}x faster than the statsmodels loop with baselines "
