@@ -5,8 +5,9 @@
         [--baseline-source DIR]
 
 Not a test. ``least_squares`` refines a fit in twice the working precision (models/refined)
-when its rule says the double-precision solve may leave fewer than REFINE_BELOW correct
-digits, and refines (X'X)⁻¹ too below REFINE_COVARIANCE_BELOW (models/ols). Timed here, each
+when its rule says so (a condition number above REFINE_ABOVE_CONDITION, or fewer than
+REFINE_BELOW correct digits estimated in a coefficient), and refines (X'X)⁻¹ too below
+REFINE_COVARIANCE_BELOW (models/ols). Timed here, each
 the median of ``--repeats``, the variants of one case interleaved in every repeat (a shared
 machine's speed drifts over minutes; interleaving spreads the drift over all of them alike):
 
@@ -81,7 +82,7 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 from bench_small import build_panel, demo_copy, environment  # noqa: E402  (the same panel and environment)
 
 from pipeline.core.double_double import power2  # noqa: E402
-from pipeline.models.ols import REFINE_BELOW, REFINE_COVARIANCE_BELOW, least_squares  # noqa: E402
+from pipeline.models.ols import REFINE_ABOVE_CONDITION, REFINE_BELOW, REFINE_COVARIANCE_BELOW, least_squares  # noqa: E402
 
 TARGET_RULE, TARGET_HAND, TARGET_RUN = 1.05, 2.0, 1.05
 BATCH_SECONDS = 0.2   # each timed batch repeats a fit until it takes about this long
@@ -92,7 +93,8 @@ BATCH_SECONDS = 0.2   # each timed batch repeats a fit until it takes about this
 # "hold": every least_squares fit on the ordinary path (its _least_squares, which every call
 # goes through, given refine=False); the batched per-series fit still hands the series the rule
 # names to least_squares. "off": that, and the batched fit keeps every series (its
-# REFINE_BELOW, read at each call, set to −inf): castline without the rule. "count": every fit
+# models.ols' REFINE_BELOW and REFINE_ABOVE_CONDITION, read by needs_refining at each call, set
+# to −inf and inf): castline without the rule. "count": every fit
 # as castline makes it, each reported on stderr with the ordinary solve's estimated digits and
 # condition number (an untimed run: it solves twice).
 HOOK = r"""
@@ -107,10 +109,10 @@ class Hook(importlib.abc.MetaPathFinder):
         def exec_module(module):
             load(module)
             if name.endswith("per_series"):
-                if MODE == "off":
-                    module.REFINE_BELOW = float("-inf")
-                    print("per-series hook in place", file=sys.stderr)
                 return
+            if MODE == "off":
+                module.REFINE_BELOW, module.REFINE_ABOVE_CONDITION = float("-inf"), float("inf")
+                print("rule hook in place", file=sys.stderr)
             solve = module._least_squares
             def ordinary(x, y, names, centered_r2, refine):
                 return solve(x, y, names, centered_r2, False)
@@ -129,7 +131,7 @@ from pipeline.__main__ import entry
 entry()
 """
 ORDINARY, RULE_OFF, COUNT = (HOOK.format(mode=mode) for mode in ("hold", "off", "count"))
-MARKERS = {ORDINARY: ("hook in place",), RULE_OFF: ("hook in place", "per-series hook in place"),
+MARKERS = {ORDINARY: ("hook in place",), RULE_OFF: ("hook in place", "rule hook in place"),
            COUNT: ("hook in place",)}
 
 
@@ -207,7 +209,8 @@ def random_design(rows: int, columns: int, seed: int = 23) -> tuple[np.ndarray, 
 
 def ordinary_cost(sizes: list[tuple[int, int]], repeats: int) -> None:
     print("\n(a) the ordinary path: intercept + standard normal drivers, seeded "
-          f"(the rule refines below {REFINE_BELOW:g} estimated digits; (X'X)^-1 below "
+          f"(the rule refines above a condition number of {REFINE_ABOVE_CONDITION:g} or below "
+          f"{REFINE_BELOW:g} estimated digits; (X'X)^-1 below "
           f"{REFINE_COVARIANCE_BELOW:g})")
     for rows, columns in sizes:
         x, y = random_design(rows, columns)

@@ -23,7 +23,13 @@ import pandas as pd
 
 from pipeline.core.distributions import chi2_upper, f_upper, t_quantile, t_upper
 from pipeline.core.scale import unit_scale
-from pipeline.models.ols import INTERCEPT, REFINE_BELOW, LeastSquaresFit, least_squares
+from pipeline.models.ols import (
+    INTERCEPT,
+    REFINE_ABOVE_CONDITION,
+    REFINE_BELOW,
+    LeastSquaresFit,
+    least_squares,
+)
 
 ALPHA = 0.05
 
@@ -420,7 +426,8 @@ def _digits_finding(precision) -> Finding:
         f"; fewer than {FEWEST_DIGITS}: the drivers are too close to collinear for the printed "
         "coefficients to be trusted; centre or rescale them, or lower a degree" if few else "")
     return Finding(DIGITS_CHECK, float(precision.digits), np.nan,
-                   f"≥ 11 sought; refined in twice the working precision below {REFINE_BELOW:g}",
+                   f"≥ 11 sought: refined in twice the working precision when the condition number "
+                   f"exceeds {REFINE_ABOVE_CONDITION:,.0f} or the estimate falls below {REFINE_BELOW:g}",
                    bool(few), reading)
 
 

@@ -9,10 +9,10 @@ and factorised together by numpy's batched Householder QR: the columns of each
 series scaled to unit length, the solution refined twice against its own
 residuals, never the normal equations. A series whose design is short of full
 rank is handed to the careful single fit (``least_squares``), which leaves out
-and names the dependent columns; so is a series whose condition number says the
-double-precision solve may leave fewer than ``REFINE_BELOW`` correct digits in a
-coefficient (the same rule as the single fit's), and the single fit refines it in
-twice the working precision (``models.refined``).
+and names the dependent columns; so is a series the single fit's precision rule
+would refine (``needs_refining``: its condition number above 1,000, or too few
+digits estimated in a coefficient), and the single fit refines it in twice the
+working precision (``models.refined``).
 
 Within one series, a column that does not vary is the intercept again: it is
 left out of that series' fit (its intercept carries it). Columns that only
@@ -36,7 +36,7 @@ from pipeline.core.execution import IN_PROCESS, Executor, InProcess
 from pipeline.core.progress import QUIET, Progress
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode
 from pipeline.models.contract import Model
-from pipeline.models.ols import INTERCEPT, REFINE_BELOW, least_squares, ordinary_digits
+from pipeline.models.ols import INTERCEPT, least_squares, needs_refining, ordinary_digits
 
 CHUNK_SERIES = 250   # series per task; fixed, so every way of running does the same sums
 
@@ -88,8 +88,9 @@ def _rank_ok(r: np.ndarray, n: int) -> np.ndarray:
 
 
 def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
-    """Return coef, (X'X)⁻¹, the root of the RSS, a full-rank flag and the estimated digits of
-    the coefficients (``ordinary_digits``) for a stack g×n×p of designs."""
+    """Return coef, (X'X)⁻¹, the root of the RSS, a full-rank flag, the estimated digits of the
+    coefficients (``ordinary_digits``) and whether the precision rule refines the fit
+    (``needs_refining``), for a stack g×n×p of designs."""
     norms = np.sqrt(np.einsum("gnp,gnp->gp", x, x))
     scaled = x / norms[:, None, :]
     q, r = np.linalg.qr(scaled)
@@ -119,12 +120,13 @@ def _fit_stack(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...] | None:
     # that bound calls for refining is the condition number itself computed (its SVD).
     condition = np.sqrt(np.einsum("gij,gij->g", safe_r, safe_r) * np.einsum("gij,gij->g", r_inverse, r_inverse))
     digits = ordinary_digits(condition, beta)
-    doubtful = np.flatnonzero(digits < REFINE_BELOW)
+    doubtful = np.flatnonzero(needs_refining(condition, digits))
     if doubtful.size:
         singular = np.linalg.svd(safe_r[doubtful], compute_uv=False)
         with np.errstate(divide="ignore"):
-            digits[doubtful] = ordinary_digits(singular[:, 0] / singular[:, -1], beta[doubtful])
-    return beta / norms, xtx_inverse, rss_root, ok, digits
+            condition[doubtful] = singular[:, 0] / singular[:, -1]
+        digits[doubtful] = ordinary_digits(condition[doubtful], beta[doubtful])
+    return beta / norms, xtx_inverse, rss_root, ok, digits, needs_refining(condition, digits)
 
 
 def _series_moments(y: np.ndarray, counts: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -176,8 +178,8 @@ class _ChunkNumbers:
 def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.ndarray,
                  starts: np.ndarray, fell_back: np.ndarray, numbers: _ChunkNumbers) -> list[int]:
     """Fit, stacked, the series with the same rows and kept columns; return the positions of
-    those a stacked fit could not take (short of full rank, or too ill-conditioned for the
-    digits asked: ``REFINE_BELOW``), for the careful single fit."""
+    those a stacked fit could not take (short of full rank, or to be refined by the precision
+    rule: ``needs_refining``), for the careful single fit."""
     groups: dict[tuple, list[int]] = {}
     for position in np.flatnonzero(~fell_back):
         groups.setdefault((int(counts[position]), keep[position].tobytes()), []).append(position)
@@ -188,8 +190,8 @@ def _fit_stacked(task: ChunkTask, y: np.ndarray, keep: np.ndarray, counts: np.nd
         index = starts[members][:, None] + np.arange(rows)
         stack = task.matrix[index][:, :, columns]
         with np.errstate(all="ignore"):
-            beta, inverse, rss_root, ok, digits = _fit_stack(stack, y[index])
-        ok &= digits >= REFINE_BELOW
+            beta, inverse, rss_root, ok, digits, refine = _fit_stack(stack, y[index])
+        ok &= ~refine
         good = members[ok]
         numbers.digits[good] = digits[ok]
         numbers.coef[np.ix_(good, columns)] = beta[ok]

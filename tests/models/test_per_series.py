@@ -129,9 +129,9 @@ def test_each_series_equals_statsmodels_ols_on_that_series_alone(generated, name
 def test_only_the_rank_deficient_and_the_ill_conditioned_series_go_through_the_careful_fit(monkeypatch):
     """Design of the batched path (module docstring): series of full rank are solved by the
     stacked QR; the series with two identical drivers reaches least_squares, and so does any
-    series whose condition number calls for refining (``ordinary_digits`` below REFINE_BELOW),
-    which least_squares then refines. Checked against a rule computed here from numpy's SVD
-    of each series' unit-scaled design and statsmodels' coefficients."""
+    series the precision rule would refine (``needs_refining``), which least_squares then
+    refines. Checked against the rule computed here from numpy's SVD and lstsq of each
+    series' unit-scaled design."""
     seen = []
     careful = per_series.least_squares
 
@@ -148,11 +148,7 @@ def test_only_the_rank_deficient_and_the_ill_conditioned_series_go_through_the_c
         if name in ("dup", "short") or len(part) <= len(columns) + 1:
             continue
         x = sm.add_constant(part[columns].to_numpy(float), has_constant="add")
-        norms = np.linalg.norm(x, axis=0)
-        scaled_coef = sm.OLS(part["y"].to_numpy(float), x).fit().params * norms
-        singular = np.linalg.svd(x / norms, compute_uv=False)
-        worst = np.finfo(float).eps * singular[0] / singular[-1] * np.abs(scaled_coef).max() / np.abs(scaled_coef)
-        if -np.log10(worst.max()) < per_series.REFINE_BELOW:
+        if _refined_expected(x, part["y"].to_numpy(float)):
             expected.append(len(part))
     assert sorted(seen) == sorted(expected)
     assert int(model.refined_.sum()) == len(expected) - 1
@@ -306,14 +302,16 @@ def _nist_failures(name: str, fit, position: int = 0) -> tuple[list[str], float]
     return failures, lowest
 
 
-def _ordinary_digits_expected(task: ChunkTask) -> float:
+def _refined_expected(matrix: np.ndarray, y: np.ndarray) -> bool:
     """The precision rule (pipeline/models/ols.py), computed here from numpy's SVD and lstsq of
-    the unit-scaled design: −log₁₀(ε·κ·max|z|/min|z|)."""
-    norms = np.linalg.norm(task.matrix, axis=0)
-    z = np.abs(np.linalg.lstsq(task.matrix / norms, task.y, rcond=None)[0])
-    singular = np.linalg.svd(task.matrix / norms, compute_uv=False)
+    the unit-scaled design: refine when the condition number exceeds 1,000 or
+    −log₁₀(ε·κ·max|z|/min|z|) falls below 8."""
+    norms = np.linalg.norm(matrix, axis=0)
+    z = np.abs(np.linalg.lstsq(matrix / norms, y, rcond=None)[0])
+    singular = np.linalg.svd(matrix / norms, compute_uv=False)
+    condition = singular[0] / singular[-1]
     z = z[z > 0]
-    return min(15.0, -math.log10(np.finfo(float).eps * singular[0] / singular[-1] * z.max() / z.min()))
+    return condition > 1e3 or -math.log10(np.finfo(float).eps * condition * z.max() / z.min()) < 8
 
 
 @pytest.mark.parametrize("name", NIST_DATASETS)
@@ -326,7 +324,7 @@ def test_nist_strd_certified_values_through_the_batched_path(name):
     fit = fit_series_chunk(task)
     assert not fit.fell_back[0] and fit.dropped == []
     assert fit.df_resid[0] == len(pd.read_csv(NIST_DIR / f"{name}.csv")) - len(NIST_CERTIFIED[name]["coef"])
-    assert bool(fit.refined[0]) == (_ordinary_digits_expected(task) < per_series.REFINE_BELOW)
+    assert bool(fit.refined[0]) == _refined_expected(task.matrix, task.y)
     failures, _ = _nist_failures(name, fit)
     assert not failures, f"{name}: " + "; ".join(failures)
 

