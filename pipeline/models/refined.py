@@ -81,6 +81,8 @@ def _refine(a, q, r, b, c, x, residual) -> tuple[np.ndarray, np.ndarray, int, fl
         size = _relative(dx, x)
         if steps > 0 and size >= previous / 2:   # no longer shrinking: the digits are in
             break
+        if size >= 1.0:   # as large as the solution: the factor cannot resolve it; keep QR's
+            break
         x, residual = x + dx, residual + dr
         previous, change, steps = size, size, steps + 1
         if size == 0.0:

@@ -168,3 +168,27 @@ def test_the_backtests_growing_factor_hands_an_ill_conditioned_window_to_the_car
     found = run(easy, target)
     reference = sm.OLS(target[:71], easy[:71]).fit()   # the first origin's window: months 0..70
     np.testing.assert_allclose(found[0][0], reference.predict(easy[-2:]), rtol=1e-10)
+
+
+@pytest.mark.parametrize("degree, low, high", [(10, -8.8, -3.1), (12, 10.0, 12.0), (14, 20.0, 22.0)])
+def test_the_estimated_digits_track_the_true_ones_and_too_few_are_flagged(degree, low, high):
+    """Polynomials of degree 10, 12 and 14 in x drawn uniformly on [low, high] (90 rows, numpy,
+    seeded; a standard normal target): condition numbers from 6e9 to 4e15, so that the last
+    ones lose columns to the rank check and leave the refinement short of full digits. The
+    estimated digits of the refined fit are within one of the true digits against the exact
+    rational solution on the kept columns, and the diagnostics flag a fit with fewer than 6."""
+    from pipeline.models.inference import DIGITS_CHECK, FEWEST_DIGITS, diagnose
+
+    rng = np.random.default_rng(3 + degree)
+    x = np.sort(rng.uniform(low, high, 90))
+    design = np.column_stack([np.ones(len(x)), *power2(x, degree)])
+    target = rng.normal(size=len(x))
+    fit = least_squares(design, target)
+    kept = fit.kept
+    reference, _ = exact_least_squares(design[:, kept], target)
+    true_digits = min(lre(c, r) for c, r in zip(fit.coef[kept], reference))
+    assert fit.precision.refined
+    assert abs(fit.precision.digits - true_digits) <= 1.0
+    finding = next(f for f in diagnose(fit, design)[0] if f.check == DIGITS_CHECK)
+    assert finding.flagged == (fit.precision.digits < FEWEST_DIGITS)
+    assert ("fewer than 6" in finding.reading) == finding.flagged
