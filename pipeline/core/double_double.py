@@ -18,7 +18,6 @@ plain double on some platforms):
   the rows by ``sum2``, so the loop is over the few columns, never the rows;
 - ``residual_block2``: ``T − A·X`` for a long ``A`` and a few right-hand sides, the sum over
   A's columns carried as a pair (sum, error);
-- ``residual2``: ``b − A·x`` row by row, each row by ``dot2``;
 - ``power2``: a number's powers 1..k, each carried as an unevaluated sum of two doubles and
   rounded once, so the power is the correctly rounded one in all but the rarest cases.
 
@@ -165,15 +164,6 @@ def residual_block2(a, x, terms=()) -> np.ndarray:
         error = error + (carried + low)
     out = total + error
     return out[:, 0] if vector else out
-
-
-def residual2(matrix, coef, target) -> np.ndarray:
-    """Return ``target − matrix · coef`` with each row's sum as accurate as in twice the working
-    precision (``dot2`` of the row [target, matrix] with [1, −coef]), rounded once."""
-    matrix = np.atleast_2d(np.asarray(matrix, float))
-    coef, target = np.asarray(coef, float), np.asarray(target, float)
-    rows = np.column_stack([target, matrix])
-    return dot2(rows, np.concatenate([[1.0], -coef]))
 
 
 def power2(values, degree: int) -> list[np.ndarray]:

@@ -28,7 +28,6 @@ from pipeline.core.double_double import (
     Halves,
     dot2,
     power2,
-    residual2,
     residual_block2,
     split,
     split_product,
@@ -160,15 +159,15 @@ def test_dot2_along_the_last_axis_is_each_rows_dot2():
 # ---------------------------------------------------------------- residuals
 
 
-def test_residual2_is_the_exact_residual_rounded_once_on_a_nearly_exact_fit():
+def test_the_refinements_residual_is_the_exact_one_rounded_once_on_a_nearly_exact_fit():
     # A design whose fit leaves residuals some 1e-12 of the target: the plain b − A·x loses
-    # most of their digits to cancellation; residual2 keeps them.
+    # most of their digits to cancellation; residual_block2 (as the refinement calls it) keeps them.
     rng = np.random.default_rng(6)
     n, p = 200, 6
     matrix = np.column_stack([np.ones(n), *(rng.uniform(0, 1e4, n) ** k for k in range(1, p))])
     coef = rng.normal(size=p)
     target = matrix @ coef + rng.normal(0, 1e-3, n)
-    ours = residual2(matrix, coef, target)
+    ours = residual_block2(matrix, coef, (target,))
     plain = target - matrix @ coef
     truth = [exact(b) - exact_dot(row, coef) for row, b in zip(matrix, target)]
     sizes = [exact_dot(np.abs(row), np.abs(coef)) + abs(exact(b)) for row, b in zip(matrix, target)]
