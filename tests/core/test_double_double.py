@@ -410,6 +410,18 @@ def test_split_product_is_exact_on_pairs_of_every_size_and_broadcasts_a_column_b
                for i in range(1000) for k in range(4))
 
 
+def assert_within_where_plain_is_not(found, plain, truth, bound) -> None:
+    """Every entry of ``found`` is within ``bound(i, m)`` of the exact ``truth``, and at least
+    one entry of the plain numpy computation is not."""
+    plain_missed = False
+    for i in range(found.shape[0]):
+        for m in range(found.shape[1]):
+            limit = bound(i, m)
+            assert abs(exact(found[i, m]) - truth[i][m]) <= limit, (i, m)
+            plain_missed |= abs(exact(plain[i, m]) - truth[i][m]) > limit
+    assert plain_missed
+
+
 # ---------------------------------------------------------------- transposed_residual2
 
 
@@ -448,13 +460,8 @@ def test_transposed_residual2_of_a_long_design_meets_the_exact_residual(right):
     b2, start2, found2 = as_matrix(b), as_matrix(start), as_matrix(found)
     truth = exact_transposed_residual(start2, a, b2)
     plain = as_matrix(start - a.T @ b)
-    plain_missed = False
-    for j in range(4):
-        for m in range(b2.shape[1]):
-            bound = transposed_bound(start2, a, b2, truth[j][m], j, m)
-            assert abs(exact(found2[j, m]) - truth[j][m]) <= bound, (j, m)
-            plain_missed |= abs(exact(plain[j, m]) - truth[j][m]) > bound
-    assert plain_missed
+    assert_within_where_plain_is_not(found2, plain, truth,
+                                     lambda j, m: transposed_bound(start2, a, b2, truth[j][m], j, m))
 
 
 def test_transposed_residual2_without_a_start_is_minus_the_exact_product():
@@ -510,13 +517,8 @@ def test_residual_block2_meets_the_exact_residual_of_a_residual(right):
     x2, terms, found2 = as_matrix(x), (as_matrix(b), as_matrix(-r)), as_matrix(found)
     truth = exact_block_residual(a, x2, terms)
     plain = as_matrix(b - r - a @ x)
-    plain_missed = False
-    for i in range(len(a)):
-        for m in range(x2.shape[1]):
-            bound = block_bound(a, x2, terms, truth[i][m], i, m)
-            assert abs(exact(found2[i, m]) - truth[i][m]) <= bound, (i, m)
-            plain_missed |= abs(exact(plain[i, m]) - truth[i][m]) > bound
-    assert plain_missed
+    assert_within_where_plain_is_not(found2, plain, truth,
+                                     lambda i, m: block_bound(a, x2, terms, truth[i][m], i, m))
 
 
 def test_residual_block2_takes_a_vector_term_beside_a_matrix_and_no_terms_at_all():
