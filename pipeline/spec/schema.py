@@ -10,8 +10,6 @@ from pathlib import Path
 from typing import Annotated, Any, Literal
 
 from pydantic import (
-    BaseModel,
-    ConfigDict,
     Field,
     field_validator,
     model_validator,
@@ -27,13 +25,9 @@ from pipeline.core.catalogue import (
     SIMPLE_REFERENCES,
 )
 from pipeline.core.errors import SpecError
+from pipeline.spec.calendar_keys import CalendarFeatures
 from pipeline.spec.keys import KeyPath, SpecOrigin, format_key_path
-
-
-class StrictModel(BaseModel):
-    """A spec section: unknown keys are refused, values are immutable."""
-
-    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+from pipeline.spec.strict import StrictModel
 
 
 def _name_as_mapping(value: Any) -> Any:
@@ -217,26 +211,6 @@ class CategoricalDriver(StrictModel):
     def effective_smoothing(self) -> float:
         """Return the smoothing weight, 10 rows unless the spec gives one."""
         return 10.0 if self.smoothing is None else self.smoothing
-
-
-class CalendarFeatures(StrictModel):
-    """Features of the month itself, for periodic data."""
-
-    trend: bool = Field(False, description="months since the first month of the training window")
-    month_of_year: Literal["none", "dummies", "fourier"] = Field(
-        "none", description="dummies: a 0/1 column per month but January; fourier: sine and "
-                            "cosine pairs")
-    harmonics: int | None = Field(None, ge=1, le=6,
-                                  description="fourier: how many sine/cosine pairs (default 2)")
-    quarter: bool = Field(False, description="a 0/1 column per quarter but the first")
-    working_days: bool = Field(False, description="weekdays in the month, less the closures")
-    closures: list[date] = Field(default_factory=list,
-                                 description="working_days: dates on which no one works")
-
-    @property
-    def effective_harmonics(self) -> int:
-        """Return the number of Fourier pairs, 2 unless the spec gives one."""
-        return 2 if self.harmonics is None else self.harmonics
 
 
 class LaggedColumn(StrictModel):
