@@ -316,9 +316,7 @@ def drivers_ahead(spec: Spec) -> dict:
     given += [d.column for d in spec.drivers.categorical]
     calendar = spec.drivers.calendar
     return {"given": given, "estimated": dict(estimated),
-            "calendar": bool(calendar is not None and (
-                calendar.trend or calendar.month_of_year != "none" or calendar.quarter
-                or calendar.working_days))}
+            "calendar": bool(calendar is not None and calendar.any_terms)}
 
 
 def ahead_words(spec: Spec) -> str | None:

@@ -18,6 +18,9 @@ from pipeline.spec.keys import KeyPath
 from pipeline.spec.ranges import check_ranges
 from pipeline.spec.schema import TIME_ORDERED, Spec
 
+# Fourier pairs a season holds: beyond half its length the sines and cosines repeat.
+MOST_HARMONICS = {"month": 6, "quarter": 2, "week": 26}
+
 Fail = Callable[[KeyPath, str], SpecError]
 
 
@@ -28,6 +31,32 @@ def check_rules(spec: Spec, fail: Fail) -> list[SpecError]:
         problems += _check_column_rules(spec, fail)
     return (problems + _check_date_format(spec, fail) + _check_models(spec, fail)
             + _check_scenarios(spec, fail) + _check_features(spec, fail) + check_ranges(spec, fail))
+
+
+def _check_calendar(spec: Spec, calendar, key: KeyPath, fail: Fail) -> list[SpecError]:
+    """Refuse calendar keys that do not fit together or do not fit the data's period."""
+    period = spec.input.period
+    problems = []
+    if calendar.season is not None and calendar.month_of_year is not None:
+        problems.append(fail(key + ("month_of_year",), "`month_of_year` is another name for `season`; "
+                                                       "give one of them"))
+    elif calendar.month_of_year is not None and period != "month":
+        problems.append(fail(key + ("month_of_year",), f"`month_of_year` is for monthly data and "
+                                                       f"input.period is {period}; use `season`"))
+    if calendar.harmonics is not None and calendar.seasonal != "fourier":
+        problems.append(fail(key + ("harmonics",), "`harmonics` applies to season: fourier"))
+    elif calendar.harmonics is not None and calendar.harmonics > MOST_HARMONICS[period]:
+        problems.append(fail(key + ("harmonics",), f"at most {MOST_HARMONICS[period]} sine/cosine "
+                                                   f"pairs for a {period}ly season"))
+    if calendar.closures and not calendar.working_days:
+        problems.append(fail(key + ("closures",), "`closures` applies to working_days: true"))
+    if calendar.quarter and period == "quarter":
+        problems.append(fail(key + ("quarter",), "quarterly data: use season: dummies for the "
+                                                 "quarter of the year"))
+    elif calendar.quarter and period == "month" and calendar.seasonal == "dummies":
+        problems.append(fail(key + ("quarter",), "quarter dummies are sums of month dummies; use "
+                                                 "one or the other"))
+    return problems
 
 
 def _check_date_format(spec: Spec, fail: Fail) -> list[SpecError]:
@@ -201,13 +230,7 @@ def _check_features(spec: Spec, fail: Fail) -> list[SpecError]:
     calendar = spec.drivers.calendar
     if calendar is not None:
         key = ("drivers", "calendar")
-        if calendar.harmonics is not None and calendar.month_of_year != "fourier":
-            problems.append(fail(key + ("harmonics",), "`harmonics` applies to month_of_year: fourier"))
-        if calendar.closures and not calendar.working_days:
-            problems.append(fail(key + ("closures",), "`closures` applies to working_days: true"))
-        if calendar.quarter and calendar.month_of_year == "dummies":
-            problems.append(fail(key + ("quarter",), "quarter dummies are sums of month dummies; use "
-                                                     "one or the other"))
+        problems += _check_calendar(spec, calendar, key, fail)
     slopes = spec.drivers.series_effects.slopes
     for index, column in enumerate(slopes):
         key = ("drivers", "series_effects", "slopes", index)

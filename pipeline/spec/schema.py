@@ -75,7 +75,9 @@ class InputSection(StrictModel):
     date_format: str | None = Field(
         None, description="how the dates are written, in strftime form (\"%d/%m/%Y\"); "
                           "without it each date is read on its own, month first where ambiguous")
-    period: Literal["month"] = "month"
+    period: Literal["month", "quarter", "week"] = Field(
+        "month", description="the spacing of the rows: month, quarter or ISO week (Monday to "
+                             "Sunday); each given by any date within it")
     series: list[str] = Field(default_factory=list,
                               description="columns that, with the month, identify a row")
     as_of: date | None = Field(None, description="no actual may be dated after this day")
@@ -568,6 +570,4 @@ class Spec(StrictModel):
     def has_features(self) -> bool:
         """Return whether the spec asks for any term besides the intercept."""
         calendar = self.drivers.calendar
-        return bool(self.driver_columns or self.drivers.lags or (calendar and (
-            calendar.trend or calendar.month_of_year != "none" or calendar.quarter
-            or calendar.working_days)))
+        return bool(self.driver_columns or self.drivers.lags or (calendar and calendar.any_terms))

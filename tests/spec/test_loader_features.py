@@ -134,7 +134,7 @@ def test_every_feature_key_is_accepted(tmp_path):
      calendar:
        harmonics: 9
        month_of_year: fourier
-     """, "", "harmonics: 9", "drivers.calendar.harmonics", "less than or equal to 6"),
+     """, "", "harmonics: 9", "drivers.calendar.harmonics", "at most 6 sine/cosine pairs"),
 ])
 def test_a_bad_value_or_unknown_key_is_placed_at_its_line(tmp_path, drivers, top, where, key, words):
     path = write_spec(tmp_path, drivers, top)
@@ -182,7 +182,7 @@ def test_a_bad_value_or_unknown_key_is_placed_at_its_line(tmp_path, drivers, top
      calendar:
        month_of_year: dummies
        harmonics: 2
-     """, "harmonics", "drivers.calendar.harmonics", "applies to month_of_year: fourier"),
+     """, "harmonics", "drivers.calendar.harmonics", "applies to season: fourier"),
     ("""
      calendar:
        closures: [2024-12-25]
