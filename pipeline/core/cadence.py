@@ -147,3 +147,12 @@ def cadence_of(frame: pd.DataFrame) -> Cadence:
     if PERIOD not in frame.columns or not isinstance(frame[PERIOD].dtype, pd.PeriodDtype):
         return MONTH
     return cadence_of_freq(frame[PERIOD].dtype)
+
+
+def period_labels(periods) -> list[str]:
+    """Return how castline writes each of a Series or index of Periods (any castline spacing)."""
+    index = pd.PeriodIndex(periods)
+    cadence = cadence_of_freq(index.dtype)
+    if cadence is not WEEK:
+        return [str(p) for p in index.astype(str)]
+    return cadence.labels(index.asi8)

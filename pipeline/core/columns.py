@@ -1,7 +1,7 @@
 """The names castline gives its own columns, and reading them.
 
-The checked frame holds the user's columns and these: each row's month, its
-series and its line in the input file.
+The checked frame holds the user's columns and these: each row's period (month,
+quarter or week), its series and its line in the input file.
 
 Every name here begins with a space. The reader strips the spaces around every column
 name it reads (``stages/ingest.read_table``), so no user's column can ever be named so:
@@ -44,6 +44,7 @@ def loaded_name(column: str) -> str:
     return _LOADED.get(column, column)
 
 
-def month_ordinals(frame: pd.DataFrame) -> np.ndarray:
-    """Return each row's month as an ordinal (months since 1970-01)."""
+def period_ordinals(frame: pd.DataFrame) -> np.ndarray:
+    """Return each row's period as an ordinal: periods since the one holding 1970-01-01
+    (months, quarters or ISO weeks; see core/cadence.py)."""
     return np.asarray(frame[PERIOD].array.asi8, dtype=np.int64)

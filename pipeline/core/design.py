@@ -7,7 +7,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import PERIOD, month_ordinals
+from pipeline.core.cadence import MONTH, Cadence, cadence_of
+from pipeline.core.columns import PERIOD, period_ordinals
 
 
 @dataclass(frozen=True)
@@ -17,7 +18,7 @@ class Design:
     matrix: np.ndarray
     names: list[str]
     series: np.ndarray
-    period: np.ndarray | None = None   # month ordinals (months since 1970-01), when time-ordered
+    period: np.ndarray | None = None   # period ordinals (see core/cadence.py), when time-ordered
     notes: tuple[str, ...] = ()        # what the features did that a reader should know
     series_level: np.ndarray | None = None   # columns that only tell series apart (SeriesTerms)
     # The rows' series as codes into sorted names, when known already (a window of a larger
@@ -30,6 +31,7 @@ class Design:
     # model over very many series: see pipeline/models/absorbed.py); None when they are columns.
     absorbed_levels: str | None = None
     absorbed_at: int = 0   # where their columns would be among the names
+    cadence: Cadence = MONTH   # the spacing of the periods
 
     def rows(self, positions) -> Design:
         """Return the design of some of its rows (positions or a slice), notes kept."""
@@ -37,14 +39,15 @@ class Design:
                       None if self.period is None else self.period[positions], self.notes,
                       self.series_level,
                       None if self.series_codes is None else self.series_codes[positions],
-                      self.series_names, self.term_groups, self.absorbed_levels, self.absorbed_at)
+                      self.series_names, self.term_groups, self.absorbed_levels, self.absorbed_at,
+                      self.cadence)
 
     def with_series_codes(self) -> Design:
         """Return the design with its series factorised once, for windows to share."""
         codes, names = series_index(self)
         return Design(self.matrix, self.names, self.series, self.period, self.notes,
                       self.series_level, codes, names, self.term_groups, self.absorbed_levels,
-                      self.absorbed_at)
+                      self.absorbed_at, self.cadence)
 
 
 def series_index(design) -> tuple[np.ndarray, np.ndarray]:
@@ -67,5 +70,6 @@ def held_series(codes: np.ndarray, names: np.ndarray) -> tuple[np.ndarray, np.nd
 
 def series_design(frame: pd.DataFrame, series_column: str) -> Design:
     """Return a design with no terms: the rows' series and months, all a baseline reads."""
-    period = month_ordinals(frame) if PERIOD in frame.columns else None
-    return Design(np.empty((len(frame), 0)), [], frame[series_column].to_numpy(), period)
+    period = period_ordinals(frame) if PERIOD in frame.columns else None
+    return Design(np.empty((len(frame), 0)), [], frame[series_column].to_numpy(), period,
+                  cadence=cadence_of(frame))

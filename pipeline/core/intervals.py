@@ -216,7 +216,7 @@ def empirical_bounds(point, horizons, scale, table: pd.DataFrame, level: float, 
     return scaled_bounds(point, own["bound"].to_numpy(float)[use], scale, transform, floor)
 
 
-def borrowing_note(table: pd.DataFrame, furthest: int | None = None) -> str | None:
+def borrowing_note(table: pd.DataFrame, furthest: int | None = None, plural: str = "months") -> str | None:
     """Return what the run says about horizons whose empirical bound borrowed its neighbours'
     errors, and months beyond the backtest's furthest horizon (None when nothing to say)."""
     if not len(table):
@@ -234,11 +234,11 @@ def borrowing_note(table: pd.DataFrame, furthest: int | None = None) -> str | No
                 runs.append([h, h, a, b])
         listed = ", ".join(f"{first}{'' if first == last else f'–{last}'} ({a}–{b})"
                            for first, last, a, b in runs)
-        parts.append(f"the empirical intervals at months ahead {listed} had fewer than {FEWEST_ERRORS} "
-                     "backtest errors of their own and borrowed those of the months ahead in brackets")
+        parts.append(f"the empirical intervals at {plural} ahead {listed} had fewer than {FEWEST_ERRORS} "
+                     f"backtest errors of their own and borrowed those of the {plural} ahead in brackets")
     last = int(one["horizon"].max())
     if furthest is not None and furthest > last > 0:
-        parts.append(f"months more than {last} ahead use the errors of {last} months ahead, the "
+        parts.append(f"{plural} more than {last} ahead use the errors of {last} {plural} ahead, the "
                      "furthest the backtest measured")
     return "; ".join(parts) if parts else None
 

@@ -25,6 +25,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_of_freq
 from pipeline.core.errors import ModelFileError
 
 FORMAT_VERSION = 4                # the version of the fields every to_dict writes
@@ -89,7 +90,8 @@ def _encode_typed(value: Any) -> Any:
     if isinstance(value, np.generic):
         return encode(value.item())
     if isinstance(value, pd.Period):
-        return {"__period__": str(value), "freq": "M"}
+        cadence = cadence_of_freq(value)
+        return {"__period__": cadence.label(value), "freq": cadence.freq}
     return {"__date__": value.isoformat()}
 
 
@@ -99,8 +101,15 @@ def encode_fields(fields: dict[str, Any], parts: Sequence | None = None) -> dict
 
 
 def encode_settings(settings) -> dict[str, Any]:
-    """Return a spec section (a pydantic model) as stored: its values and its class's name."""
-    return {"__settings__": settings.model_dump(mode="json"), "class": type(settings).__name__}
+    """Return a spec section (a pydantic model) as stored: its values and its class's name.
+
+    Keys a section lists in ``STORED_ONLY_WHEN_GIVEN`` are left out at their defaults, so a
+    file written without them reads and writes as before they were added."""
+    values = settings.model_dump(mode="json")
+    for key in getattr(type(settings), "STORED_ONLY_WHEN_GIVEN", ()):
+        if values.get(key) in (None, [], {}):
+            values.pop(key, None)
+    return {"__settings__": values, "class": type(settings).__name__}
 
 
 def decode(value: Any, parts: Sequence | None = None) -> Any:
@@ -132,7 +141,7 @@ def decode(value: Any, parts: Sequence | None = None) -> Any:
     if "__tuple__" in value:
         return tuple(decode(v) for v in value["__tuple__"])
     if "__period__" in value:
-        return pd.Period(value["__period__"], freq="M")
+        return cadence_of_freq(value.get("freq", "M")).parse(value["__period__"])
     if "__date__" in value:
         return pd.Timestamp(value["__date__"])
     if "__dict__" in value:
@@ -286,7 +295,7 @@ class StoredFields:
         if value is None and optional:
             return None
         if not isinstance(value, pd.Period):
-            raise self.bad(key, "a month")
+            raise self.bad(key, "a period")
         return value
 
     def array(self, key: str, dtype: str, ndim: int) -> np.ndarray:

@@ -25,7 +25,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import loaded_name, month_ordinals, plain_name
+from pipeline.core.cadence import cadence_named, cadence_of
+from pipeline.core.columns import loaded_name, period_ordinals, plain_name
 from pipeline.core.design import held_series
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
 from pipeline.features.grouped import group_last, group_means, positions_of
@@ -33,18 +34,26 @@ from pipeline.spec import Spec
 from pipeline.spec.schema import ESTIMATE_RULES
 
 # Rules that read a calendar month of the window, and so need a year of it.
-SEASONAL_RULES = ("month_mean", "last_year")
+SEASONAL_RULES = ("month_mean", "period_mean", "last_year")
 RULE_WORDS = {
     "month_mean": "each series' average for that calendar month over the training months",
+    "period_mean": "each series' average for that period of the year over the training window",
     "last_year": "the same month a year earlier",
     "last_value": "each series' last value",
     "mean": "each series' average",
 }
 
 
-def calendar_month(ordinals: np.ndarray) -> np.ndarray:
-    """Return the calendar month (1 to 12) of month ordinals (0 = January 1970)."""
-    return np.asarray(ordinals, dtype=np.int64) % 12 + 1
+# The widest season a table holds: 52 places a year for weeks (a week's place is its ordinal
+# modulo 52, so the same place a year earlier is 52 weeks back), 12 for months, 4 for quarters.
+SLOTS = 52
+
+
+def calendar_month(ordinals: np.ndarray, season: int = 12) -> np.ndarray:
+    """Return each period's place in its year, from 1: the calendar month (1 to 12) of month
+    ordinals (0 = January 1970), the quarter of quarter ordinals (season 4), or the place in
+    a 52-week cycle of week ordinals (season 52)."""
+    return np.asarray(ordinals, dtype=np.int64) % season + 1
 
 
 class _ColumnEstimate:
@@ -82,7 +91,7 @@ class _ColumnEstimate:
 
     @classmethod
     def learn(cls, rule: str, window: tuple[np.ndarray, np.ndarray, np.ndarray],
-              values: np.ndarray) -> _ColumnEstimate:
+              values: np.ndarray, season: int = 12) -> _ColumnEstimate:
         """Return what the rule learns from a column's values; ``window``: the rows' series
         codes, the sorted names they point into and the months, and ``values``, all in the
         window's month order (file order within a month: the order pandas' groupby would
@@ -92,7 +101,7 @@ class _ColumnEstimate:
         if not present.all():
             codes, names = held_series(codes[present], names)
             months, values = months[present], values[present]
-        moy = calendar_month(months)
+        moy = calendar_month(months, season)
         latest = rule in ("last_year", "last_value")
         by_series = (group_last if latest else group_means)(codes, values, len(names))
         cells, inverse = np.unique(moy, return_inverse=True)
@@ -101,9 +110,10 @@ class _ColumnEstimate:
         names = pd.Index(names, dtype=object)
         if rule not in SEASONAL_RULES:
             return cls(names, by_series, pooled, overall)
-        cells, inverse = np.unique(codes.astype(np.int64) * 12 + (moy - 1), return_inverse=True)
+        cells, inverse = np.unique(codes.astype(np.int64) * season + (moy - 1), return_inverse=True)
         found = (group_last if rule == "last_year" else group_means)(inverse, values, len(cells))
-        return cls(names, by_series, pooled, overall, names, _grid(len(names), cells // 12, cells % 12 + 1, found))
+        return cls(names, by_series, pooled, overall, names,
+                   _grid(len(names), cells // season, cells % season + 1, found))
 
     def tables(self) -> tuple[pd.Series | None, pd.Series, pd.Series]:
         """Return the tables as Series: by (series, calendar month) or None, by series, and by
@@ -122,10 +132,10 @@ class _ColumnEstimate:
             self._tables = (by_month, by_series, pooled_month)
         return self._tables
 
-    def estimate(self, series: np.ndarray, months: np.ndarray) -> tuple[np.ndarray, int]:
-        """Return the estimates of rows given by series and month, and how many fell back
+    def estimate(self, series: np.ndarray, months: np.ndarray, season: int = 12) -> tuple[np.ndarray, int]:
+        """Return the estimates of rows given by series and period, and how many fell back
         from the rule's own table."""
-        moy = calendar_month(months)
+        moy = calendar_month(months, season)
         codes = positions_of(self.names, series)
         # The rule's own table first, then the coarser ones in order.
         tables = []
@@ -146,9 +156,10 @@ class _ColumnEstimate:
 
 
 def _calendar_table(months: np.ndarray, values: np.ndarray) -> np.ndarray:
-    """Return values by calendar month as an array indexed 0 to 12 (NaN where none; 0 unused)."""
-    table = np.full(13, np.nan)
-    inside = (months >= 1) & (months <= 12)
+    """Return values by place in the year as an array indexed 0 to SLOTS (NaN where none; 0
+    unused)."""
+    table = np.full(SLOTS + 1, np.nan)
+    inside = (months >= 1) & (months <= SLOTS)
     table[np.asarray(months)[inside].astype(np.intp)] = np.asarray(values, float)[inside]
     return table
 
@@ -156,9 +167,9 @@ def _calendar_table(months: np.ndarray, values: np.ndarray) -> np.ndarray:
 def _grid(rows: int, codes: np.ndarray, months: np.ndarray, values: np.ndarray) -> np.ndarray:
     """Return values by (row, calendar month) as a grid of rows + 1 by 13 (NaN where none; the
     last row, read for a series not in the table, all NaN)."""
-    grid = np.full((rows + 1, 13), np.nan)
+    grid = np.full((rows + 1, SLOTS + 1), np.nan)
     months = np.asarray(months)
-    inside = (months >= 1) & (months <= 12)
+    inside = (months >= 1) & (months <= SLOTS)
     grid[np.asarray(codes)[inside], months[inside].astype(np.intp)] = np.asarray(values, float)[inside]
     return grid
 
@@ -180,13 +191,15 @@ class FutureEstimates:
         self.series_column = series_column
 
     def fit(self, frame: pd.DataFrame) -> FutureEstimates:
-        months = month_ordinals(frame)
+        months = period_ordinals(frame)
+        self.season_ = cadence_of(frame).season_lag
         self.window_end_ = int(months.max())
         # The window's series factorised and its rows put in month order once, for every column.
         order = np.argsort(months, kind="stable")
         codes, names = pd.factorize(frame[self.series_column].to_numpy()[order], sort=True)
         window = (codes, np.asarray(names, object), months[order])
-        self.tables_ = {column: _ColumnEstimate.learn(rule, window, frame[column].to_numpy(float)[order])
+        self.tables_ = {column: _ColumnEstimate.learn(rule, window, frame[column].to_numpy(float)[order],
+                                                      self.season_)
                         for column, rule in self.rules.items()}
         return self
 
@@ -195,7 +208,7 @@ class FutureEstimates:
         (True: all rows; an array: those it marks), each after its own series' last actual."""
         if every_row is True:
             return np.ones(len(frame), bool)
-        later = month_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
+        later = period_ordinals(frame) > self.window_end_ if len(frame) else np.zeros(0, bool)
         return later | every_row if isinstance(every_row, np.ndarray) else later
 
     def apply(self, frame: pd.DataFrame, *, every_row: bool | np.ndarray = False) -> pd.DataFrame:
@@ -206,12 +219,12 @@ class FutureEstimates:
             return frame
         changed = frame.copy()
         series = frame[self.series_column].to_numpy()[later]
-        months = month_ordinals(frame)[later]
+        months = period_ordinals(frame)[later]
         for column, table in self.tables_.items():
             # A file of months to forecast may leave an estimated driver out altogether.
             values = (changed[column].to_numpy(float, copy=True) if column in changed.columns
                       else np.full(len(changed), np.nan))
-            values[later] = table.estimate(series, months)[0]
+            values[later] = table.estimate(series, months, self.season_)[0]
             changed[column] = values
         return changed
 
@@ -225,9 +238,9 @@ class FutureEstimates:
             return []
         found = []
         series = frame[self.series_column].to_numpy()[later]
-        months = month_ordinals(frame)[later]
+        months = period_ordinals(frame)[later]
         for column, table in self.tables_.items():
-            fell_back = table.estimate(series, months)[1]
+            fell_back = table.estimate(series, months, self.season_)[1]
             rule = self.rules[column]
             if fell_back:
                 found.append(f"{column}: {fell_back} of {int(later.sum())} estimated values "
@@ -244,9 +257,12 @@ class FutureEstimates:
 
     def to_dict(self) -> dict:
         """Return the rules and the learned tables, as stored in a model file."""
-        return encode_fields({"rules": self.rules, "series_column": plain_name(self.series_column),
-                              "window_end_": self.window_end_,
-                              "tables_": {c: t.to_dict() for c, t in self.tables_.items()}})
+        fields = {"rules": self.rules, "series_column": plain_name(self.series_column),
+                  "window_end_": self.window_end_,
+                  "tables_": {c: t.to_dict() for c, t in self.tables_.items()}}
+        if self.season_ != 12:   # a monthly file is written as before periods were added
+            fields["season_"] = self.season_
+        return encode_fields(fields)
 
     @classmethod
     def from_dict(cls, data: dict, version: int = FORMAT_VERSION) -> FutureEstimates:
@@ -258,6 +274,9 @@ class FutureEstimates:
                 raise fields.bad("rules", "estimate rules by column")
             estimates = cls(rules, loaded_name(fields.text("series_column")))
             estimates.window_end_ = fields.whole("window_end_")
+            estimates.season_ = fields.whole("season_") if "season_" in data else 12
+            if estimates.season_ not in (4, 12, 52):
+                raise fields.bad("season_", "4, 12 or 52")
             tables = fields.value("tables_")
             if not isinstance(tables, dict) or sorted(tables) != sorted(rules):
                 raise fields.bad("tables_", "one table per estimated column")
@@ -295,15 +314,17 @@ def estimate_keys(spec: Spec) -> dict[str, tuple]:
 
 
 def require_a_year(spec: Spec, window_months: int, window: str) -> None:
-    """Stop with a SpecError when a calendar-month rule has less than a year to read."""
-    if window_months >= 12:
+    """Stop with a SpecError when a seasonal rule has less than a year to read."""
+    cadence = cadence_named(spec.input.period)
+    if window_months >= cadence.season_lag:
         return
     keys = estimate_keys(spec)
     for column, rule in spec.estimated_columns.items():
         if rule in SEASONAL_RULES:
-            raise spec.error(keys[column], f"{rule} estimates '{column}' from each calendar month "
-                                           f"of the training window, but {window} has only "
-                                           f"{window_months} months; it needs at least 12 "
+            raise spec.error(keys[column], f"{rule} estimates '{column}' from each "
+                                           f"{cadence.season_word} of the training window, but "
+                                           f"{window} has only {cadence.count(window_months)}; "
+                                           f"it needs at least {cadence.season_lag} "
                                            "(or use future: last_value or mean)")
 
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_named
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields
-from pipeline.features.rows import months_phrase
 from pipeline.spec import (
     KeyPath,
 )
@@ -27,7 +27,9 @@ class LagFeatures:
     """
 
     def __init__(self, column: str, lags=(), rolling_means=(), differences=(), start_lag: int = 1,
-                 label: str | None = None, of_target: bool = False, key: KeyPath = ()) -> None:
+                 label: str | None = None, of_target: bool = False, key: KeyPath = (),
+                 period: str = "month") -> None:
+        self.period = period   # the spacing counted back: month, quarter or week
         self.column = column
         self.lags = list(lags)
         self.rolling_means = list(rolling_means)
@@ -75,20 +77,25 @@ class LagFeatures:
 
     def get_feature_names_out(self) -> list[str]:
         label, start = self.label, self.start_lag
-        names = [f"{label}, {months_phrase(k)} earlier" for k in self.lags]
+        cadence = cadence_named(self.period)
+        phrase = cadence.count
+        names = [f"{label}, {phrase(k)} earlier" for k in self.lags]
         for width in self.rolling_means:
-            names.append(f"{label}, mean of the {width} months before" if start == 1 else
-                         f"{label}, mean of months {start} to {start + width - 1} earlier")
-        names += [f"{label}, {months_phrase(start)} earlier minus {months_phrase(start + span)} "
+            names.append(f"{label}, mean of the {phrase(width)} before" if start == 1 else
+                         f"{label}, mean of {cadence.plural} {start} to {start + width - 1} earlier")
+        names += [f"{label}, {phrase(start)} earlier minus {phrase(start + span)} "
                   "earlier" for span in self.differences]
         return names
 
     def to_dict(self, parts=()) -> dict:
         """Return the settings and the window's values, as stored in a model file."""
-        return encode_fields({
+        fields = {
             "column": self.column, "lags": self.lags, "rolling_means": self.rolling_means,
             "differences": self.differences, "start_lag": self.start_lag, "label": self.label,
-            "of_target": self.of_target, "key": self.key, "values_": self.values_})
+            "of_target": self.of_target, "key": self.key, "values_": self.values_}
+        if self.period != "month":   # a monthly file is written as before periods were added
+            fields["period"] = self.period
+        return encode_fields(fields)
 
     @classmethod
     def from_dict(cls, data: dict, parts=(), version: int = FORMAT_VERSION) -> LagFeatures:
@@ -101,8 +108,11 @@ class LagFeatures:
             key = fields.value("key")
             if not isinstance(key, tuple) or not all(isinstance(k, (str, int)) for k in key):
                 raise fields.bad("key", "a spec key path")
+            period = fields.raw("period") if "period" in data else "month"
+            if period not in ("month", "quarter", "week"):
+                raise fields.bad("period", "month, quarter or week")
             features = cls(column, lags, rolling, differences, start, label=label,
-                           of_target=of_target, key=key)
+                           of_target=of_target, key=key, period=period)
             features.values_ = _window_values(fields)
         return features
 

@@ -27,12 +27,20 @@ from contextlib import contextmanager
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_of
 from pipeline.core.catalogue import LINEAR_KINDS
-from pipeline.core.columns import PERIOD, loaded_name, month_ordinals, plain_name
+from pipeline.core.columns import PERIOD, loaded_name, period_ordinals, plain_name
 from pipeline.core.design import Design
 from pipeline.core.errors import DataError, ModelFileError, SpecError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode, encode_settings
-from pipeline.features.calendar import FourierTerms, MonthDummies, QuarterDummies, TrendTerm, WorkingDays
+from pipeline.features.calendar import (
+    FourierTerms,
+    MonthDummies,
+    QuarterDummies,
+    TrendTerm,
+    WeekDummies,
+    WorkingDays,
+)
 from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
 from pipeline.features.future import FutureEstimates
 from pipeline.features.interactions import InteractionTerms
@@ -56,7 +64,7 @@ from pipeline.spec import (
 # classes a model file's plan is rebuilt from (each with to_dict and from_dict).
 PART_CLASSES: dict[str, type] = {cls.__name__: cls for cls in (
     NumericTerms, OneHotEncoder, OrdinalEncoder, TargetMeanEncoder, InteractionTerms, TrendTerm,
-    MonthDummies, FourierTerms, QuarterDummies, WorkingDays, SeriesTerms, LagFeatures)}
+    MonthDummies, FourierTerms, QuarterDummies, WeekDummies, WorkingDays, SeriesTerms, LagFeatures)}
 
 
 def unplaced_spec_error(key: KeyPath, message: str) -> SpecError:
@@ -77,7 +85,9 @@ class FeaturePlan:
                  calendar: CalendarFeatures | None = None, lags: list[LaggedColumn] = (),
                  target: str | None = None, target_transform: str = "none",
                  error: Callable[[KeyPath, str], SpecError] = unplaced_spec_error,
-                 source: str | None = None, series_effects=None, absorbable: bool = False) -> None:
+                 source: str | None = None, series_effects=None, absorbable: bool = False,
+                 period: str = "month") -> None:
+        self.period = period   # the spacing of the rows: month, quarter or week
         self.numeric = list(numeric)
         self.categorical = list(categorical)
         self.series_column = series_column
@@ -153,7 +163,7 @@ class FeaturePlan:
                 for index, lagged in enumerate(self.lags)]
             self.parts_ = [*self.row_parts_, *self.lag_parts_]
             self.numeric_parts_ = numeric
-            self.window_end_ = (pd.Period(ordinal=int(month_ordinals(frame).max()), freq="M")
+            self.window_end_ = (cadence_of(frame).period(period_ordinals(frame).max())
                                 if PERIOD in frame.columns and len(frame) else None)
             self.future_ = (FutureEstimates(self.estimated, self.series_column).fit(frame)
                             if self.estimated and self.window_end_ is not None else None)
@@ -206,10 +216,10 @@ class FeaturePlan:
         if calendar is None:
             return []
         parts: list = [TrendTerm()] if calendar.trend else []
-        if calendar.month_of_year == "dummies":
-            parts.append(MonthDummies())
-        elif calendar.month_of_year == "fourier":
-            parts.append(FourierTerms(calendar.effective_harmonics))
+        if calendar.seasonal == "dummies":
+            parts.append({"month": MonthDummies, "quarter": QuarterDummies, "week": WeekDummies}[self.period]())
+        elif calendar.seasonal == "fourier":
+            parts.append(FourierTerms(calendar.effective_harmonics, self.period))
         if calendar.quarter:
             parts.append(QuarterDummies())
         if calendar.working_days:
@@ -221,7 +231,7 @@ class FeaturePlan:
         label = self.target_scale.name if of_target else lagged.column
         return LagFeatures(lagged.column, lagged.lags, lagged.rolling_means, lagged.differences,
                            lagged.start_lag, label=label, of_target=of_target,
-                           key=("drivers", "lags", index))
+                           key=("drivers", "lags", index), period=self.period)
 
     def _lag_values(self, column: str, frame: pd.DataFrame, numeric: dict | None = None) -> pd.Series:
         """Return a lagged column's values keyed by (series, month): the target on the models'
@@ -236,7 +246,7 @@ class FeaturePlan:
             fill = numeric[column].fill_value_ if column in numeric else None
             if fill is not None:
                 values = np.where(np.isnan(values), fill, values)
-        index = pd.MultiIndex.from_arrays([rows[self.series_column].to_numpy(), month_ordinals(rows)])
+        index = pd.MultiIndex.from_arrays([rows[self.series_column].to_numpy(), period_ordinals(rows)])
         return pd.Series(values, index=index, dtype=float)
 
     # -- transforming
@@ -247,7 +257,7 @@ class FeaturePlan:
         if known is not None and self.target in known.columns:
             has_target = known[self.target].notna().to_numpy()
             if has_target.any():
-                months.append(int(month_ordinals(known)[has_target].max()))
+                months.append(int(period_ordinals(known)[has_target].max()))
         return max(months) if months else None
 
     def _check_reach(self, frame: pd.DataFrame, known: pd.DataFrame | None) -> None:
@@ -269,12 +279,14 @@ class FeaturePlan:
                 continue
             if origin is None:
                 continue
-            ahead = int((month_ordinals(frame) - origin).max())
+            ahead = int((period_ordinals(frame) - origin).max())
             for back, key, name in part.reaches():
                 if back < ahead:
-                    at = pd.Period(ordinal=origin, freq="M")
+                    cadence = cadence_of(frame)
+                    at = cadence.label(origin)
                     raise self.error(key, f"'{name}' reaches past the forecast origin ({at}): the "
-                                          f"months predicted run up to {ahead} months after it, so "
+                                          f"{cadence.plural} predicted run up to "
+                                          f"{cadence.count(ahead)} after it, so "
                                           f"each lag of {remedy.format(ahead=ahead)}")
 
     def feature_table(self, frame: pd.DataFrame, known: pd.DataFrame | None = None) -> pd.DataFrame:
@@ -290,7 +302,7 @@ class FeaturePlan:
             blocks = [part.transform(frame) for part in self.row_parts_]
             if self.lag_parts_:
                 series = frame[self.series_column].to_numpy()
-                months = month_ordinals(frame)
+                months = period_ordinals(frame)
                 for part in self.lag_parts_:
                     blocks.append(part.transform(series, months, self._extra_values(part, frame, known)))
         matrix = np.hstack(blocks) if blocks else np.empty((len(frame), 0))
@@ -342,7 +354,7 @@ class FeaturePlan:
                                 f"'{at[self.series_column]}'), too large to fit; rescale the driver "
                                 "or lower its degree", file=self.source,
                                 row=first_row(frame, np.arange(len(frame)) == row))
-        period = month_ordinals(frame) if PERIOD in frame.columns else None
+        period = period_ordinals(frame) if PERIOD in frame.columns else None
         series_level = np.concatenate([
             np.full(len(part.get_feature_names_out()), isinstance(part, SeriesTerms), bool)
             for part in self.parts_]) if self.parts_ else np.zeros(0, bool)
@@ -351,7 +363,7 @@ class FeaturePlan:
                       series_level=series_level,
                       absorbed_levels=next((part.name for part in self.parts_
                                             if isinstance(part, SeriesTerms) and part.absorbed_), None),
-                      absorbed_at=self._absorbed_at(),
+                      absorbed_at=self._absorbed_at(), cadence=cadence_of(frame),
                       term_groups=tuple(label for part in self.parts_ for label in term_group_labels(part)))
 
     def _absorbed_at(self) -> int:
@@ -522,8 +534,8 @@ def term_group_labels(part) -> list[str]:
     if isinstance(part, LagFeatures | TrendTerm | WorkingDays) or len(names) == 1:
         return names
     if isinstance(part, FourierTerms):
-        return ["month of year (sine and cosine)"] * len(names)
-    if isinstance(part, MonthDummies | QuarterDummies):
+        return [f"{part.period} of year (sine and cosine)"] * len(names)
+    if isinstance(part, MonthDummies | QuarterDummies | WeekDummies):
         return [f"{part.word} of year"] * len(names)
     if isinstance(part, InteractionTerms):
         return [f"{part.first.column} × {part.second.column}"] * len(names)
@@ -538,6 +550,7 @@ def plan_features(spec: Spec, series_column: str) -> FeaturePlan:
                        lags=list(drivers.lags), target=spec.target,
                        target_transform=spec.target_transform, error=spec.error,
                        source=str(spec.input.file), series_effects=series_effects_of(spec),
+                       period=spec.input.period,
                        absorbable=spec.intercept and all(
                            model.kind == "ols" for model in spec.models
                            if model.kind in LINEAR_KINDS and not model.per_series))

@@ -16,7 +16,8 @@ from pipeline.core.stored import FORMAT_VERSION, StoredFields, encode_fields, is
 from pipeline.features.grouped import group_last, group_means
 from pipeline.models.contract import Model
 
-SEASON = 12
+SEASON = 12       # months in a year; a design's own season is design.cadence.season_lag
+MOST_SEASON = 52  # the longest season (weeks), the bound a model file's table is read against
 
 
 def _by_series(design, y) -> pd.DataFrame:
@@ -95,7 +96,7 @@ class _ByMonthBaseline(Model):
     term = "month {month} of {series}"
 
     def predict(self, design) -> np.ndarray:
-        months = (np.asarray(design.period) % SEASON).tolist()
+        months = (np.asarray(design.period) % design.cadence.season_lag).tolist()
         return np.array([self.values_.get((s, m), self.means_.get(s, self.fallback_))
                          for s, m in zip(np.asarray(design.series).tolist(), months)], float)
 
@@ -118,7 +119,7 @@ class _ByMonthBaseline(Model):
             if not isinstance(values, dict) or not all(
                     isinstance(key, tuple) and len(key) == 2 and isinstance(key[0], str)
                     and isinstance(key[1], int) and not isinstance(key[1], bool)
-                    and 0 <= key[1] < SEASON and is_number(value) for key, value in values.items()):
+                    and 0 <= key[1] < MOST_SEASON and is_number(value) for key, value in values.items()):
                 raise fields.bad("values_", "a table of numbers by series and month of the year")
             model.values_ = {key: float(value) for key, value in values.items()}
             model.means_ = fields.number_map("means_")
@@ -136,11 +137,12 @@ class SeasonalNaive(_ByMonthBaseline):
         names, codes, means = _series_means(design, y)
         values = np.asarray(y, float)
         period = np.asarray(design.period)
+        season = design.cadence.season_lag
         # The last value of each (series, month of the year), months in time order.
         order = np.argsort(period, kind="stable")[::-1]
-        keys = codes[order].astype(np.int64) * SEASON + period[order] % SEASON
+        keys = codes[order].astype(np.int64) * season + period[order] % season
         unique, first = np.unique(keys, return_index=True)
-        self.values_ = dict(zip(zip(names[unique // SEASON].tolist(), (unique % SEASON).tolist()),
+        self.values_ = dict(zip(zip(names[unique // season].tolist(), (unique % season).tolist()),
                                 values[order][first].tolist()))
         self.means_ = dict(zip(names.tolist(), means.tolist()))
         self.fallback_ = float(values.mean())
@@ -150,7 +152,8 @@ class SeasonalNaive(_ByMonthBaseline):
 class CalendarMonthMean(_ByMonthBaseline):
     """Predicts, for each series, the mean of its training values in the same month of the year.
 
-    The month of the year is ``design.period % 12``. A (series, month) the training window
+    The month of the year is ``design.period % 12`` (the quarter ``% 4``; for weeks the place
+    in a 52-week cycle, ``% 52``, so a year back is 52 weeks back). A (series, month) the training window
     lacks falls back to the series' mean; a series it lacks, to the overall mean.
     """
 
@@ -159,11 +162,12 @@ class CalendarMonthMean(_ByMonthBaseline):
     def fit(self, design, y) -> CalendarMonthMean:
         names, codes, means = _series_means(design, y)
         values = np.asarray(y, float)
-        keys = codes.astype(np.int64) * SEASON + np.asarray(design.period) % SEASON
+        season = design.cadence.season_lag
+        keys = codes.astype(np.int64) * season + np.asarray(design.period) % season
         unique, inverse = np.unique(keys, return_inverse=True)
         month_means = (np.bincount(inverse, weights=values, minlength=len(unique))
                        / np.bincount(inverse, minlength=len(unique)))
-        self.values_ = dict(zip(zip(names[unique // SEASON].tolist(), (unique % SEASON).tolist()),
+        self.values_ = dict(zip(zip(names[unique // season].tolist(), (unique % season).tolist()),
                                 month_means.tolist()))
         self.means_ = dict(zip(names.tolist(), means.tolist()))
         self.fallback_ = float(values.mean())
@@ -185,7 +189,7 @@ class TrailingMean(_PerSeriesBaseline):
         period = np.asarray(design.period, np.int64)
         last = np.full(len(names), np.iinfo(np.int64).min)
         np.maximum.at(last, codes, period)
-        recent = period > last[codes] - SEASON
+        recent = period > last[codes] - design.cadence.season_lag
         values = np.asarray(y, float)[recent]
         # Summed as pandas' groupby sums them (group_means), so the means do not change by a bit.
         self.values_ = dict(zip(names.tolist(), group_means(codes[recent], values, len(names)).tolist()))

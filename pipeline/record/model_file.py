@@ -27,11 +27,13 @@ import re
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import Literal
 
 import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from pipeline.core.cadence import cadence_named, cadence_of_freq, label_of, parse_label, period_labels
 from pipeline.core.catalogue import BASELINE_KINDS, MODELS, model_kind
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import series_design
@@ -84,8 +86,10 @@ class StoredIntervals:
         self.series_scales = {str(series): float(scale) for series, scale in series_scales.items()}
         self.transform = transform
         self.floor = None if floor is None else float(floor)
-        self.last_period = pd.Period(last_period, freq="M")
-        self.lagging = {str(series): pd.Period(month, freq="M") for series, month in (lagging or {}).items()}
+        self.last_period = last_period if isinstance(last_period, pd.Period) else parse_label(last_period)
+        cadence = cadence_of_freq(self.last_period)
+        self.lagging = {str(series): month if isinstance(month, pd.Period) else cadence.parse(month)
+                        for series, month in (lagging or {}).items()}
 
     @classmethod
     def from_forecast(cls, forecast) -> StoredIntervals:
@@ -96,7 +100,7 @@ class StoredIntervals:
     def to_dict(self) -> dict:
         """Return the fields as a model file stores them; the bounds as one object per model;
         the series that lagged by their last month, only when some did."""
-        lagging = {"lagging_series": {s: str(m) for s, m in self.lagging.items()}} if self.lagging else {}
+        lagging = {"lagging_series": {s: label_of(m) for s, m in self.lagging.items()}} if self.lagging else {}
         return {**encode_fields({"transform": self.transform, "floor": self.floor,
                                  "last_period": self.last_period, "series_scales": self.series_scales}),
                 **lagging,
@@ -118,8 +122,8 @@ class StoredIntervals:
             bounds = fields.raw("bounds")
             lagging = fields.raw("lagging_series") if "lagging_series" in data else {}
         if not isinstance(lagging, dict) or not all(
-                isinstance(m, str) and re.fullmatch(r"\d{4}-\d{2}", m) and pd.Period(m, "M") < last_period
-                for m in lagging.values()):
+                isinstance(m, str) and re.fullmatch(cadence_of_freq(last_period).pattern, m)
+                and cadence_of_freq(last_period).parse(m) < last_period for m in lagging.values()):
             raise ModelFileError("the intervals: the field 'lagging_series' is not a table of months "
                                  "before the last month by series")
         odd = [series for series, scale in scales.items() if not (math.isnan(scale) or 0 <= scale < math.inf)]
@@ -199,6 +203,7 @@ class _Envelope(BaseModel):
     target: str
     date_column: str
     date_format: str | None = None     # input.date_format, when the run's spec set one
+    period: Literal["month", "quarter", "week"] = "month"   # input.period; written when not month
     missing_values: list[str] | None = None   # input.csv.missing_values, when the run's spec set them
     series_columns: list[str]
     feature_names: list[str]
@@ -234,6 +239,7 @@ def model_document(spec, plan, fitted: dict, versions: dict[str, str], intervals
         "plan": plan.to_dict(), "models": models, "intervals": intervals.to_dict(),
         "multi_step": steps.to_dict(_model_entry), "versions": versions,
         **({"date_format": spec.input.date_format} if spec.input.date_format else {}),
+        **({"period": spec.input.period} if spec.input.period != "month" else {}),
         **({"missing_values": list(missing)} if (missing := spec.input.csv.missing_values) is not None else {}),
     }
 
@@ -330,7 +336,7 @@ class StoredModel:
             said = (f"{value!r} does not match the date format {doc.date_format!r} the run read its "
                     "dates with" if doc.date_format and pd.notna(value) else "not a date")
             raise DataError(said, file=file, column=doc.date_column, row=at + start)
-        prepared[PERIOD] = dates.dt.to_period("M")
+        prepared[PERIOD] = cadence_named(doc.period).of_dates(dates)
         prepared[SERIES] = _series_labels(prepared, doc.series_columns)
         prepared[ROW] = np.arange(len(prepared)) + start
         plan = self.plan
@@ -384,7 +390,7 @@ class StoredModel:
                     values = stored.predict(series_design(rows, SERIES))
                 else:
                     values = self.steps.predict(kind, plan, stored, rows, actuals, origins, file)
-            table = {"period": rows[PERIOD].astype(str).to_numpy(), "series": rows[SERIES].to_numpy(),
+            table = {"period": np.asarray(period_labels(rows[PERIOD]), dtype=object), "series": rows[SERIES].to_numpy(),
                      "model": kind, "forecast": values}
             if intervals is not None:
                 table = {"period": table.pop("period"), "horizon": horizons, **table,

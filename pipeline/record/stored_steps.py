@@ -28,7 +28,8 @@ from collections.abc import Callable
 import numpy as np
 import pandas as pd
 
-from pipeline.core.columns import PERIOD, SERIES, month_ordinals
+from pipeline.core.cadence import cadence_of
+from pipeline.core.columns import PERIOD, SERIES, period_ordinals
 from pipeline.core.errors import DataError, ModelFileError, UserError
 from pipeline.core.stored import FORMAT_VERSION, StoredFields
 from pipeline.features.plan import FeaturePlan
@@ -56,7 +57,7 @@ def last_actuals(plan: FeaturePlan, rows: pd.DataFrame, actuals: pd.DataFrame | 
     own = {series: period.ordinal for series, period in (lagging or {}).items()}
     origins = rows[SERIES].astype(str).map(own).fillna(end).to_numpy(float)
     if actuals is not None and len(actuals):
-        newest = pd.Series(month_ordinals(actuals)).groupby(actuals[SERIES].astype(str).to_numpy()).max()
+        newest = pd.Series(period_ordinals(actuals)).groupby(actuals[SERIES].astype(str).to_numpy()).max()
         origins = np.fmax(origins, rows[SERIES].astype(str).map(newest).to_numpy(float))
     return origins.astype(np.int64)
 
@@ -176,11 +177,12 @@ class StoredSteps:
             return placed_plan(own_plan, file), models[kind]
         row, origin = rows[at].iloc[0], int(origins[at][0])
         furthest = max([reach, *fitted])
-        raise DataError(f"{row[PERIOD]} (series '{row[SERIES]}') is {months_phrase(horizon)} after the last "
-                        f"actual of the target ({pd.Period(ordinal=origin, freq='M')}), and model '{kind}' "
-                        f"was fitted for at most {months_phrase(furthest)} ahead (the direct strategy "
-                        "fits each months ahead the run forecast): rerun castline run with these months "
-                        "in its input", file=file, row=first_row(rows, at))
+        cadence = cadence_of(rows)
+        raise DataError(f"{cadence.label(row[PERIOD])} (series '{row[SERIES]}') is {cadence.count(horizon)} "
+                        f"after the last actual of the target ({cadence.label(origin)}), and model "
+                        f"'{kind}' was fitted for at most {cadence.count(furthest)} ahead (the direct "
+                        f"strategy fits each {cadence.plural} ahead the run forecast): rerun castline run "
+                        f"with these {cadence.plural} in its input", file=file, row=first_row(rows, at))
 
 
 def placed_plan(plan: FeaturePlan, file: str) -> FeaturePlan:

@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import period_labels
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
 from pipeline.record.ledger.fingerprints import period_fingerprints
@@ -154,10 +155,10 @@ def _input_as_recorded(run: dict, recorded: pd.DataFrame, months: list[str]
 def _planned_rows(data: CheckedData, months: list[str], columns: list[str], side: str) -> pd.DataFrame:
     """Return the planned values of the columns in the months, one row per period, series and
     driver; the user's columns are values here, never names, whatever they are called."""
-    rows = data.future[data.future[PERIOD].astype(str).isin(months)]
+    rows = data.future[pd.Series(period_labels(data.future[PERIOD]), index=data.future.index).isin(months)]
     values = rows.reindex(columns=columns).astype(object)
     count = len(columns)
-    return pd.DataFrame({"period": np.repeat(rows[PERIOD].astype(str).to_numpy(), count),
+    return pd.DataFrame({"period": np.repeat(np.asarray(period_labels(rows[PERIOD]), dtype=object), count),
                          "series": np.repeat(rows[SERIES].astype(str).to_numpy(), count),
                          "driver": np.tile(np.asarray(columns, dtype=object), len(rows)),
                          side: values.to_numpy().reshape(-1)})

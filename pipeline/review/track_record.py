@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import period_labels
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.formatting import format_percent, format_signed
@@ -212,7 +213,7 @@ def _actuals(spec: Spec, data: CheckedData) -> pd.DataFrame:
     history = data.history
     if data.filled is not None and spec.target in data.filled.columns:
         history = history[~data.filled[spec.target].to_numpy(bool)]
-    return pd.DataFrame({"period": history[PERIOD].astype(str).to_numpy(),
+    return pd.DataFrame({"period": np.asarray(period_labels(history[PERIOD]), dtype=object),
                          "series": history[SERIES].astype(str).to_numpy(),
                          "actual": history[spec.target].to_numpy(float)})
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from datetime import date
-from typing import Literal
+from typing import ClassVar, Literal
 
 from pydantic import Field
 
@@ -34,6 +34,9 @@ class CalendarFeatures(StrictModel):
     events: dict[str, list[date]] = Field(
         default_factory=dict, description="dated events of your own by name: each adds how many "
                                           "of its dates fall in the period")
+
+    # Keys added with quarters and weeks, which a model file stores only when given.
+    STORED_ONLY_WHEN_GIVEN: ClassVar[tuple[str, ...]] = ("season", "holidays", "events")
 
     @property
     def effective_harmonics(self) -> int:

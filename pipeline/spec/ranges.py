@@ -18,7 +18,7 @@ from collections.abc import Callable
 
 from pipeline.core.errors import SpecError
 from pipeline.spec.keys import KeyPath
-from pipeline.spec.schema import MOST_MONTHS_AHEAD, Spec
+from pipeline.spec.schema import MOST_AHEAD, Spec
 
 Fail = Callable[[KeyPath, str], SpecError]
 
@@ -119,7 +119,7 @@ def _validation_bounds(spec: Spec) -> list[tuple[KeyPath, float | int | None, fl
     if validation.method == "holdout":
         return [(key + ("last_periods",), validation.last_periods, MOST_MONTHS)]
     if validation.method == "rolling_origin":
-        return [(key + ("horizon",), validation.horizon, MOST_MONTHS_AHEAD),
+        return [(key + ("horizon",), validation.horizon, MOST_AHEAD[spec.input.period]),
                 (key + ("gap",), validation.gap, MOST_MONTHS),
                 (key + ("min_train_periods",), validation.min_train_periods, MOST_MONTHS),
                 (key + ("step",), validation.step, MOST_MONTHS),

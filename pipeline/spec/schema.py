@@ -135,16 +135,20 @@ def _as_text(value: Any) -> Any:
 
 # How the values of a driver in the months after an origin are found: given in the data
 # (a plan, a price list), or estimated by castline from the training window alone.
-FUTURE_RULES = ("given", "month_mean", "last_year", "last_value", "mean")
+FUTURE_RULES = ("given", "month_mean", "last_year", "last_value", "mean", "period_mean")
 ESTIMATE_RULES = FUTURE_RULES[1:]
-MOST_MONTHS_AHEAD = 120   # forecast.months is at most ten years of months
-DEFAULT_HORIZON = 12      # each origin's months ahead without validation.horizon or forecast.months
+MOST_MONTHS_AHEAD = 120   # forecast.periods is at most ten years of periods: 120 months,
+MOST_AHEAD = {"month": MOST_MONTHS_AHEAD, "quarter": 40, "week": 522}   # 40 quarters, 522 weeks
+MOST_PERIODS_AHEAD = max(MOST_AHEAD.values())
+DEFAULT_HORIZON = 12      # each origin's months ahead without validation.horizon or forecast.periods
+DEFAULT_AHEAD = {"month": DEFAULT_HORIZON, "quarter": 4, "week": 52}   # a year ahead
 FutureRule = Literal[FUTURE_RULES]
 FUTURE_DESCRIPTION = (
     "given: the months to forecast carry the values (a plan, a price list); or estimated "
     "from the training window, in every backtest window and for the forecast alike: "
-    "month_mean (the series' average for that calendar month), last_year (the same month "
-    "a year earlier), last_value (the series' last value), mean (the series' average)")
+    "period_mean (the series' average for that month, quarter or week of the year; month_mean "
+    "is its monthly name), last_year (the same period a year earlier), last_value (the "
+    "series' last value), mean (the series' average)")
 
 
 class NumericDriver(StrictModel):
@@ -391,11 +395,26 @@ class Scenario(StrictModel):
 
 
 class ForecastSection(StrictModel):
-    """The months to forecast, added by castline after each series' last actual."""
+    """The periods to forecast, added by castline after each series' last actual."""
 
-    months: int = Field(strict=True, ge=1, le=MOST_MONTHS_AHEAD, description=(
-        "forecast this many months after each series' last actual; castline adds the rows the "
-        "file lacks (drivers given ahead must still have their values in the data)"))
+    periods: int | None = Field(None, strict=True, ge=1, le=MOST_PERIODS_AHEAD, description=(
+        "forecast this many periods (months, quarters or weeks) after each series' last actual; "
+        "castline adds the rows the file lacks (drivers given ahead must still have their values "
+        "in the data)"))
+    months: int | None = Field(None, strict=True, ge=1, le=MOST_PERIODS_AHEAD,
+                               description="monthly data: another name for periods")
+
+    @model_validator(mode="after")
+    def _one_name(self) -> ForecastSection:
+        if (self.periods is None) == (self.months is None):
+            raise PydanticCustomError("forecast_periods", "give `periods` (or, for monthly data, "
+                                                          "`months`), not both and not neither")
+        return self
+
+    @property
+    def ahead(self) -> int:
+        """Return how many periods are forecast after each series' last actual."""
+        return self.periods if self.periods is not None else self.months
 
 
 class OutputSection(StrictModel):
@@ -481,7 +500,7 @@ class Spec(StrictModel):
         # A rolling origin without a horizon predicts as far as the forecast does.
         validation = self.validation
         if validation.method == "rolling_origin" and validation.horizon is None:
-            horizon = self.forecast.months if self.forecast else DEFAULT_HORIZON
+            horizon = self.forecast.ahead if self.forecast else DEFAULT_AHEAD[self.input.period]
             object.__setattr__(self, "validation", validation.model_copy(update={"horizon": horizon}))
         return self
 

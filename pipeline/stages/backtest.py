@@ -18,6 +18,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_named, period_labels
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.design import Design, held_series, series_design, series_index
 from pipeline.core.execution import IN_PROCESS, Executor, InProcess
@@ -175,10 +176,10 @@ def _split_columns(split: Split, target: str, scales: dict[str, float]) -> dict:
     test = split.test
     if split.origin is not None:
         horizon = (test[PERIOD].array.asi8 - split.origin.ordinal).astype(int)
-        period = test[PERIOD].astype(str).to_numpy()
+        period = np.asarray(period_labels(test[PERIOD]), dtype=object)
     else:
         horizon = np.zeros(len(test), int)
-        period = test[PERIOD].astype(str).to_numpy() if PERIOD in test.columns else ""
+        period = np.asarray(period_labels(test[PERIOD]), dtype=object) if PERIOD in test.columns else ""
     series = test[SERIES].to_numpy()
     return {"origin": split.label, "period": period, "horizon": horizon, "series": series,
             "actual": test[target].to_numpy(float), "mase_scale": _lookup(scales, series)}
@@ -273,7 +274,7 @@ def _shared_design(spec: Spec, plan, data: CheckedData):
         return None
     return history, Design(design.matrix, design.names, design.series, design.period, (),
                            design.series_level, absorbed_levels=design.absorbed_levels,
-                           absorbed_at=design.absorbed_at).with_series_codes(), y
+                           absorbed_at=design.absorbed_at, cadence=design.cadence).with_series_codes(), y
 
 
 def _design_rows(shared, frame: pd.DataFrame) -> tuple[Design, np.ndarray]:
@@ -341,7 +342,8 @@ def _strategy_note(spec: Spec, split: Split) -> str | None:
         if split.origin is not None and len(split.test) else 0
     if not needs_strategy(spec, furthest):
         return None
-    return (f"the backtest predicts up to {furthest} months ahead but a lag of the "
+    return (f"the backtest predicts up to {cadence_named(spec.input.period).count(furthest)} ahead but a "
+            "lag of the "
             f"target is shorter: the linear models use the {spec.multi_step} strategy "
             "(multi_step)")
 
@@ -400,7 +402,8 @@ def _window(backtest: _Backtest, window: tuple) -> tuple:
     designs = _WindowDesigns(spec, split, plan, backtest.shared, backtest.plain,
                              hindsight=happened.test if backtest.estimating else None)
     window_codes = series_index(designs.cache["train"][0]) if backtest.shared is not None else None
-    scales = mase_scales(split.train, spec.target, series_codes=window_codes) if backtest.time_ordered else {}
+    scales = mase_scales(split.train, spec.target, cadence_named(spec.input.period).season_lag,
+                         series_codes=window_codes) if backtest.time_ordered else {}
     columns = _split_columns(split, spec.target, scales)
     note = _strategy_note(spec, split)
     rows, known_rows, fallen_back = [], [], []

@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import Cadence, cadence_named, cadence_of
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.core.schema_library import pandera_pandas
@@ -101,8 +102,13 @@ class CheckedData:
     def lagging_series(self) -> dict[str, str]:
         """Return the series whose last actual is before the newest month, with that month."""
         newest = self.last_period.ordinal
-        return {str(series): str(pd.Period(ordinal=int(last), freq="M"))
+        return {str(series): self.cadence.label(int(last))
                 for series, last in self.series_last().items() if last < newest}
+
+    @property
+    def cadence(self) -> Cadence:
+        """Return the spacing of the periods (month, quarter or week)."""
+        return cadence_of(self.history)
 
     @property
     def first_period(self) -> pd.Period:
@@ -273,8 +279,9 @@ def _duplicates(frame: pd.DataFrame, spec: Spec, raw: RawInput) -> list[Problem]
     row = _first(frame, duplicated)
     earlier = frame[(frame[SERIES] == row[SERIES]) & (frame[PERIOD] == row[PERIOD])][ROW].min()
     written = raw.frame.at[row.name, spec.input.date_column] if row.name in raw.frame.index else None
-    return [Problem("month given twice", spec.input.date_column, int(row[ROW]),
-                    f"{row[PERIOD]} for series '{row[SERIES]}' (first on row {earlier})"
+    cadence = cadence_named(spec.input.period)
+    return [Problem(f"{cadence.name} given twice", spec.input.date_column, int(row[ROW]),
+                    f"{cadence.label(row[PERIOD])} for series '{row[SERIES]}' (first on row {earlier})"
                     + reading_note(written, row[PERIOD], spec.input.date_format),
                     count=int(duplicated.sum()))]
 
@@ -296,8 +303,9 @@ def _target_holes(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, list[P
     if not hole.any():
         return frame, [], []
     row = _first(frame, hole)
-    value = (f"no value for {row[PERIOD]} (series '{row[SERIES]}'), before the series' last "
-             f"actual month {pd.Period(ordinal=int(own_last[hole.to_numpy()][0]), freq='M')}")
+    cadence = cadence_named(spec.input.period)
+    value = (f"no value for {cadence.label(row[PERIOD])} (series '{row[SERIES]}'), before the "
+             f"series' last actual {cadence.name} {cadence.label(int(own_last[hole.to_numpy()][0]))}")
     policy = spec.input.gaps
     if policy == "refuse":
         return frame, [Problem("target missing in history", target, _row(row), value,
@@ -332,9 +340,11 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period,
     late = has_target & (frame[PERIOD] > as_of)
     if late.any():
         row = _first(frame, late)
-        said = "the as-of date" if spec.input.as_of else "the current month"
+        cadence = cadence_named(spec.input.period)
+        said = "the as-of date" if spec.input.as_of else f"the current {cadence.name}"
         problems.append(Problem("actual after the as-of date", target, _row(row),
-                                f"{row[PERIOD]} is after {said} {as_of}", count=int(late.sum())))
+                                f"{cadence.label(row[PERIOD])} is after {said} {cadence.label(as_of)}",
+                                count=int(late.sum())))
     future = ~has_target & (frame[PERIOD].array.asi8 > own_last_actual(frame, target))
     for driver in spec.drivers.categorical:
         if getattr(driver, "unseen", "stop") != "stop":
@@ -391,7 +401,7 @@ def _row(row: pd.Series) -> int | None:
 
 def _as_of(spec: Spec, today: date | None) -> pd.Period:
     chosen = spec.input.as_of or today or date.today()
-    return pd.Period(chosen, freq="M")
+    return pd.Period(chosen, freq=cadence_named(spec.input.period).freq)
 
 
 def find_problems(spec: Spec, raw: RawInput, *, today: date | None = None
@@ -426,7 +436,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
         problems = date_problems + _calendar_despite(date_problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     frame = valid[list(effective_rules(spec))]
-    frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
+    frame[PERIOD] = cadence_named(spec.input.period).of_dates(frame[spec.input.date_column])
     # Plain Python strings: the series labels are read as arrays many times downstream.
     frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
     frame[ROW] = np.arange(len(frame)) + raw.first_row_number
@@ -436,15 +446,15 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
     gaps = missing_months(frame)
     gaps, ahead = split_gaps(frame, gaps, spec.target)
     if spec.forecast is None and len(ahead) and spec.input.gaps == "refuse":
-        problems.append(gap_problem(ahead, spec, "month to forecast missing", AHEAD_HINT))
+        problems.append(gap_problem(ahead, spec, f"{cadence_named(spec.input.period).name} to forecast missing", AHEAD_HINT))
     elif spec.forecast is None:   # allowed, or filled by interpolation, as any missing month
         gaps = pd.concat([gaps, ahead]) if len(ahead) else gaps
     if len(gaps) and spec.input.gaps == "refuse":
-        problems.append(gap_problem(gaps, spec, "month missing"))
+        problems.append(gap_problem(gaps, spec, f"{cadence_named(spec.input.period).name} missing"))
     elif len(gaps) and spec.input.gaps == "allow":
-        allowed.append(gap_problem(gaps, spec, "month missing (allowed by input.gaps)"))
+        allowed.append(gap_problem(gaps, spec, f"{cadence_named(spec.input.period).name} missing (allowed by input.gaps)"))
     elif len(gaps) and not problems:
-        allowed.append(gap_problem(gaps, spec, "month missing, filled by interpolation"))
+        allowed.append(gap_problem(gaps, spec, f"{cadence_named(spec.input.period).name} missing, filled by interpolation"))
         frame = fill_gaps(frame, gaps, spec, _numeric_columns(spec))
     frame, refused, accepted = _target_holes(frame, spec)
     problems += refused
@@ -519,7 +529,7 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
     frame = frame[readable].copy()
     if frame.empty:
         return []
-    frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
+    frame[PERIOD] = cadence_named(spec.input.period).of_dates(frame[spec.input.date_column])
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = frame.index.to_numpy() + raw.first_row_number
     problems = _duplicates(frame, spec, raw)
@@ -527,7 +537,7 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
     dates_readable = not any(p.column == spec.input.date_column for p in found)
     gaps = missing_months(frame) if dates_readable else pd.DataFrame()
     if len(gaps) and spec.input.gaps == "refuse":
-        problems.append(gap_problem(gaps, spec, "month missing"))
+        problems.append(gap_problem(gaps, spec, f"{cadence_named(spec.input.period).name} missing"))
     if spec.input.gaps == "refuse":
         problems += _target_holes(frame, spec)[1]
     problems += _history_and_future(frame, spec, _as_of(spec, today), raw)

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import period_labels
 from pipeline.core.catalogue import MODELS
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.design import Design, series_design
@@ -115,11 +116,11 @@ def apply_scenario(future: pd.DataFrame, scenario: Scenario, spec: Spec | None =
 
 def _row_labels(history: pd.DataFrame, design) -> list[str]:
     if len(design.series) != len(history):  # rows left out for their lags: no line numbers
-        months = pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str)
+        months = design.cadence.labels(design.period)
         return [f"{p} {s}" for p, s in zip(months, design.series)]
     rows = history[ROW].to_numpy()
     return [f"{p} {s} (row {int(r)})" if np.isfinite(r) else f"{p} {s} (filled)"
-            for p, s, r in zip(history[PERIOD].astype(str), history[SERIES], rows.astype(float))]
+            for p, s, r in zip(period_labels(history[PERIOD]), history[SERIES], rows.astype(float))]
 
 
 class _Predictor:
@@ -185,7 +186,7 @@ def _forecast_table(kind: str, future: pd.DataFrame, bounds: _Bounds, point, se,
     the point forecast), turned back by the inverse of the target's transform; the empirical
     ones are the point ± the conformal bound of its months ahead × its series' scale.
     """
-    table = {"period": future[PERIOD].astype(str).to_numpy(), "horizon": bounds.horizons,
+    table = {"period": np.asarray(period_labels(future[PERIOD]), dtype=object), "horizon": bounds.horizons,
              "series": future[SERIES].to_numpy(), "model": kind, "forecast": point}
     for level in LEVELS:
         if se is not None:
@@ -255,7 +256,7 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
         absorbed_series=design.series if absorbed else None, target=fitted + fit.residuals)
     diagnostics = findings_table(findings)
     residuals = pd.DataFrame({
-        "period": pd.PeriodIndex.from_ordinals(design.period, freq="M").astype(str),
+        "period": design.cadence.labels(design.period),
         "series": design.series, "fitted": fitted, "residual": fit.residuals})
     diagnostics.insert(0, "model", kind)
     levels = len(model.inner.absorbed_.series_names) if absorbed else 0   # the intercept among them
@@ -348,7 +349,7 @@ def _scenario_rows(spec: Spec, future: pd.DataFrame, fitted: dict, predict: _Pre
                                       error_tables[kind])
             method = trusted_method(coverage, kind, what_if)
             rows.append(pd.DataFrame({
-                "scenario": scenario.name, "period": future[PERIOD].astype(str).to_numpy(),
+                "scenario": scenario.name, "period": np.asarray(period_labels(future[PERIOD]), dtype=object),
                 "series": future[SERIES].to_numpy(), "model": kind, "base_forecast": base,
                 "scenario_forecast": what_if["forecast"].to_numpy(),
                 "difference": what_if["forecast"].to_numpy() - base, "interval": method,
@@ -386,7 +387,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         warnings += plan.future_.notes(given, given_ignored=True, every_row=True)
         warnings += plan.estimated_lag_notes(int(horizons.max()))
     if stepwise:
-        warnings.append(f"the target's own lags are shorter than the months ahead: forecasts use "
+        warnings.append(f"the target's own lags are shorter than the {data.cadence.plural} ahead: forecasts use "
                         f"the {spec.multi_step} strategy (multi_step)")
         if spec.multi_step == "recursive" and spec.target_transform != "none":
             warnings.append(f"with target_transform: {spec.target_transform}, predictions fed back "
@@ -394,7 +395,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
                             "empirical one")
     report = None
     fitted, fallbacks, error_tables = {}, [], {}
-    scales = mase_scales(data.history, spec.target)
+    scales = mase_scales(data.history, spec.target, data.cadence.season_lag)
     bounds = _Bounds(spec.target_transform, target_floor(data.history[spec.target]),
                      usable_scales(future[SERIES].map(scales).to_numpy(float)), horizons)
     for choice in spec.models:
@@ -411,7 +412,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         errors = error_tables[kind] = error_table(backtest.predictions, kind, spec.target_transform)
         if len(future):
             forecasts.append(_forecast_table(kind, future, bounds, *predict(choice, model, future), errors))
-            warnings += [note for note in [borrowing_note(errors, int(horizons.max()))]
+            warnings += [note for note in [borrowing_note(errors, int(horizons.max()), data.cadence.plural)]
                          if note and note not in warnings]
         if model.least_squares_fit is not None:
             report = _least_squares_report(spec, data, model, kind, history_design, y)
@@ -440,7 +441,7 @@ def make_forecast(spec: Spec, data: CheckedData, backtest: BacktestResult, *,
         fallbacks=pd.concat(fallbacks, ignore_index=True) if fallbacks else pd.DataFrame(
             columns=["model", "series", "rows", "terms"]),
         interval_bounds=error_tables, series_scales=scales, transform=spec.target_transform,
-        floor=bounds.floor, last_period=str(data.last_period), horizon_fits=predict.horizon_fits,
+        floor=bounds.floor, last_period=data.cadence.label(data.last_period), horizon_fits=predict.horizon_fits,
         lagging_series=data.lagging_series())
 
 

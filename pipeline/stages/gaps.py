@@ -1,10 +1,11 @@
-"""Months missing inside a series: found, reported, or filled by interpolation (``input.gaps``)."""
+"""Periods (months, quarters, weeks) missing inside a series: found, reported, or filled by interpolation (``input.gaps``)."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_named, cadence_of
 from pipeline.core.columns import PERIOD, ROW, SERIES, internal
 from pipeline.spec import Spec
 from pipeline.stages.problems import Problem
@@ -27,10 +28,11 @@ def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
     names = ordered[SERIES].to_numpy()
     gaps = np.flatnonzero((names[1:] == names[:-1]) & (np.diff(ordinals) > 1))
     rows = []
+    cadence = cadence_of(frame)
     for position in gaps:
         after = ordered.iloc[position + 1]
         for missing in range(int(ordinals[position]) + 1, int(ordinals[position + 1])):
-            rows.append({SERIES: after[SERIES], PERIOD: pd.Period(ordinal=missing, freq="M"),
+            rows.append({SERIES: after[SERIES], PERIOD: cadence.period(missing),
                          "next_row": int(after[ROW])})
     return pd.DataFrame(rows, columns=columns)
 
@@ -38,7 +40,7 @@ def missing_months(frame: pd.DataFrame) -> pd.DataFrame:
 def gap_problem(gaps: pd.DataFrame, spec: Spec, word: str, hint: str = "") -> Problem:
     first = gaps.iloc[0]
     return Problem(word, spec.input.date_column, int(first["next_row"]),
-                   f"{first[PERIOD]} for series '{first[SERIES]}' (missing before this row){hint}",
+                   f"{cadence_named(spec.input.period).label(first[PERIOD])} for series '{first[SERIES]}' (missing before this row){hint}",
                    count=len(gaps))
 
 
@@ -50,9 +52,10 @@ AHEAD_HINT = ("; it comes after the series' last actual: add the row with its dr
 def fill_gaps(frame: pd.DataFrame, gaps: pd.DataFrame, spec: Spec, numeric: list[str]) -> pd.DataFrame:
     """Return the frame with each missing month inserted, numbers interpolated in time."""
     filled = []
+    cadence = cadence_of(frame)
     for series, rows in frame.groupby(SERIES, sort=False):
         rows = rows.set_index(PERIOD).sort_index()
-        full = pd.period_range(rows.index.min(), rows.index.max(), freq="M")
+        full = pd.period_range(rows.index.min(), rows.index.max(), freq=cadence.freq)
         if len(full) == len(rows):
             filled.append(rows.reset_index())
             continue

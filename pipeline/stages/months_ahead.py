@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import Cadence, cadence_named
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.spec import Spec
 from pipeline.stages.problems import Problem
@@ -42,9 +43,10 @@ def months_limit(spec: Spec) -> int:
     """Return how many months ahead a series may be forecast: forecast.months, else the
     validation's horizon (or held-out months), else 12."""
     if spec.forecast is not None:
-        return spec.forecast.months
+        return spec.forecast.ahead
     validation = spec.validation
-    return int(getattr(validation, "horizon", None) or getattr(validation, "last_periods", None) or 12)
+    return int(getattr(validation, "horizon", None) or getattr(validation, "last_periods", None)
+               or cadence_named(spec.input.period).season_lag)
 
 
 def _named(labels) -> str:
@@ -53,21 +55,22 @@ def _named(labels) -> str:
     return ", ".join(labels[:NAMED]) + more
 
 
-def _month(ordinal: float) -> pd.Period:
-    return pd.Period(ordinal=int(ordinal), freq="M")
-
-
-def _span(ordinals) -> str:
-    """Return the months as a range when they run on without a gap, else listed (up to six)."""
+def _span(ordinals, cadence: Cadence) -> str:
+    """Return the periods as a range when they run on without a gap, else listed (up to six)."""
     months = sorted(set(int(o) for o in ordinals))
-    first, last = _month(months[0]), _month(months[-1])
+    first, last = cadence.label(months[0]), cadence.label(months[-1])
     if first == last:
-        return str(first)
+        return first
     if months[-1] - months[0] + 1 == len(months):
         return f"{first} to {last}"
     if len(months) <= 6:
-        return ", ".join(str(_month(o)) for o in months)
-    return f"{len(months)} months from {first} to {last}"
+        return ", ".join(cadence.labels(months))
+    return f"{len(months)} {cadence.plural} from {first} to {last}"
+
+
+def _ahead_key(spec: Spec) -> str:
+    """Return the key the spec gives the periods ahead by, as written."""
+    return "forecast.periods" if spec.forecast.periods is not None else "forecast.months"
 
 
 def lagging_series(frame: pd.DataFrame, spec: Spec) -> tuple[list[Problem], list[str]]:
@@ -78,6 +81,8 @@ def lagging_series(frame: pd.DataFrame, spec: Spec) -> tuple[list[Problem], list
     history only and not named. A series with no actual at all is refused.
     """
     target = spec.target
+    cadence = cadence_named(spec.input.period)
+    word, _month = cadence.name, cadence.label
     last = last_actuals(frame, target)
     problems: list[Problem] = []
     column = spec.input.series[0] if spec.input.series else spec.input.date_column
@@ -88,7 +93,7 @@ def lagging_series(frame: pd.DataFrame, spec: Spec) -> tuple[list[Problem], list
         first = frame[frame[SERIES] == never.index[0]].iloc[0]
         problems.append(Problem("series without an actual", column, _row(first),
                                 f"series {_named(never.index)} {'has' if len(never) == 1 else 'have'} no value of {target} in any "
-                                "month, so there is nothing to learn it from",
+                                f"{word}, so there is nothing to learn it from",
                                 count=len(never)))
     known = last.dropna()
     newest = known.max()
@@ -109,13 +114,13 @@ def lagging_series(frame: pd.DataFrame, spec: Spec) -> tuple[list[Problem], list
         problems.append(Problem(
             "series too far behind", target, _row(row),
             f"series {_named(too_far.index)} last has an actual in {_month(too_far.iloc[0])}, "
-            f"{int(newest - too_far.iloc[0])} months before the newest ({_month(newest)}): more "
-            f"than the {limit} months forecast ahead; bring its actuals up to date or leave it out",
+            f"{cadence.count(int(newest - too_far.iloc[0]))} before the newest ({_month(newest)}): more "
+            f"than the {cadence.count(limit)} forecast ahead; bring its actuals up to date or leave it out",
             count=len(too_far)))
     shown = ", ".join(f"'{s}' ({_month(v)})" for s, v in list(behind.items())[:NAMED])
     more = f" and {len(behind) - NAMED} more" if len(behind) > NAMED else ""
     lag = "1 series lags" if len(behind) == 1 else f"{len(behind)} series lag"
-    note = (f"{lag} behind the newest actual month {_month(newest)}, with its last actual in: "
+    note = (f"{lag} behind the newest actual {word} {_month(newest)}, with its last actual in: "
             f"{shown}{more}; each series is forecast from its own last actual")
     return problems, [note]
 
@@ -134,7 +139,8 @@ def add_months_ahead(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, lis
     """
     if spec.forecast is None or frame.empty:
         return frame, []
-    months = spec.forecast.months
+    months = spec.forecast.ahead
+    cadence = cadence_named(spec.input.period)
     target = spec.target
     last = last_actuals(frame, target).dropna()
     if last.empty:
@@ -144,8 +150,8 @@ def add_months_ahead(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, lis
     notes = []
     beyond = frame[target].isna().to_numpy() & (ordinals > own + months)
     if beyond.any():
-        notes.append(f"{int(beyond.sum())} row(s) after the {months} months to forecast "
-                     f"(forecast.months) are left out: {_span(ordinals[beyond])}")
+        notes.append(f"{int(beyond.sum())} row(s) after the {cadence.count(months)} to forecast "
+                     f"({_ahead_key(spec)}) are left out: {_span(ordinals[beyond], cadence)}")
         frame = frame[~beyond]
         ordinals = ordinals[~beyond]
     present = set(zip(frame[SERIES].to_numpy(), ordinals.tolist()))
@@ -156,7 +162,7 @@ def add_months_ahead(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, lis
     for series, end in last.items():
         wanted = [o for o in range(int(end) + 1, int(end) + months + 1) if (series, o) not in present]
         if wanted:
-            added.append(pd.DataFrame({SERIES: series, PERIOD: pd.PeriodIndex.from_ordinals(wanted, freq="M"),
+            added.append(pd.DataFrame({SERIES: series, PERIOD: cadence.periods(wanted),
                                        **{key: newest.at[series, key] for key in keys}}))
     if not added:
         return frame, notes
@@ -167,8 +173,8 @@ def add_months_ahead(frame: pd.DataFrame, spec: Spec) -> tuple[pd.DataFrame, lis
     for column in frame.columns:   # keep the file's types where the added rows allow
         if column in keys or column in (SERIES, PERIOD, spec.input.date_column):
             grown[column] = grown[column].astype(frame[column].dtype)
-    span = _span(rows[PERIOD].array.asi8)
-    notes.append(f"castline added {len(rows)} row(s) to forecast ({span}) for forecast.months: "
+    span = _span(rows[PERIOD].array.asi8, cadence)
+    notes.append(f"castline added {len(rows)} row(s) to forecast ({span}) for {_ahead_key(spec)}: "
                  f"{months}; their calendar terms, lags and estimated drivers are worked out")
     return grown, notes
 
@@ -180,6 +186,7 @@ def missing_given(frame: pd.DataFrame, spec: Spec, future: np.ndarray) -> list[P
     if not inserted.any():
         return []
     problems = []
+    cadence = cadence_named(spec.input.period)
     keys = set(spec.input.series)
     estimated = spec.estimated_columns
     filled = spec.filled_driver_columns
@@ -191,9 +198,9 @@ def missing_given(frame: pd.DataFrame, spec: Spec, future: np.ndarray) -> list[P
             where = frame.loc[empty, SERIES]
             problems.append(Problem(
                 "driver missing in a month to forecast", driver, None,
-                f"no value for {_span(frame.loc[empty, PERIOD].array.asi8)} (series "
-                f"{_named(pd.unique(where))}), months castline adds to forecast "
-                f"({'forecast.months' if spec.forecast else 'input.gaps: fill'}); add rows with its "
+                f"no value for {_span(frame.loc[empty, PERIOD].array.asi8, cadence)} (series "
+                f"{_named(pd.unique(where))}), {cadence.plural} castline adds to forecast "
+                f"({_ahead_key(spec) if spec.forecast else 'input.gaps: fill'}); add rows with its "
                 "planned values, or set future: month_mean on the driver to have castline estimate "
                 "it (in the backtest too)", count=int(empty.sum())))
     return problems

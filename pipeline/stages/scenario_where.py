@@ -8,6 +8,7 @@ from collections.abc import Callable
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import parse_label
 from pipeline.core.columns import PERIOD
 from pipeline.core.errors import UserError
 
@@ -22,11 +23,15 @@ def _as_number(value) -> float | None:
     return number if np.isfinite(number) else None
 
 
-def _as_month(value) -> pd.Period | None:
+def _as_month(value, freq: str = "M") -> pd.Period | None:
+    """Return the period (of the column's spacing) a wanted date or period label names."""
     try:
-        return pd.Timestamp(str(value)).to_period("M")
+        return pd.Timestamp(str(value)).to_period(freq)
     except (TypeError, ValueError):
-        return None
+        try:
+            return parse_label(str(value)).asfreq(freq) if freq != "W-SUN" else parse_label(str(value))
+        except ValueError:
+            return None
 
 
 def _kind(values: pd.Series, is_date: bool) -> str:
@@ -55,7 +60,9 @@ def where_mask(frame: pd.DataFrame, column: str, wanted, date_column: str | None
         numbers = [n for n in map(_as_number, options) if n is not None]
         return values.astype(float).isin(numbers).to_numpy()
     if kind == "date":
-        months = [m for m in map(_as_month, options) if m is not None]
+        freq = (pd.Period(ordinal=0, freq=values.dtype.freq).freqstr
+                if isinstance(values.dtype, pd.PeriodDtype) else "M")
+        months = [m for m in (_as_month(option, freq) for option in options) if m is not None]
         return _months(values).isin(months).to_numpy()
     texts = [str(option).strip() for option in options]
     return (values.notna() & values.astype(str).str.strip().isin(texts)).to_numpy()

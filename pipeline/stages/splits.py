@@ -17,6 +17,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import label_of
 from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.forked import PAYS_FROM, map_shared
@@ -75,12 +76,13 @@ def rolling_origin_windows(n_periods: int, *, horizon: int, min_train: int, gap:
 def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
     validation = spec.validation
     months = np.sort(data.history[PERIOD].unique())
+    count = data.cadence.count
     if validation.method == "holdout":
         held_out = validation.last_periods
         if held_out >= len(months):
             raise spec.error(("validation", "last_periods"),
-                             f"holding out {held_out} months leaves nothing to fit on: the history "
-                             f"has {len(months)} months, so at most {len(months) - 1} can be held out")
+                             f"holding out {count(held_out)} leaves nothing to fit on: the history "
+                             f"has {count(len(months))}, so at most {len(months) - 1} can be held out")
         windows = [OriginWindow(len(months) - held_out - 1, 0, len(months) - held_out, len(months) - 1)]
         horizon = held_out
     else:
@@ -91,10 +93,10 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
                 gap=validation.gap, step=validation.step, window=validation.window,
                 origins=validation.origins)
         except ValueError as exc:
-            raise spec.error(("validation", "origins"), f"{exc} (history: {len(months)} months)") from None
+            raise spec.error(("validation", "origins"), f"{exc} (history: {count(len(months))})") from None
         if not windows:
             raise spec.error(("validation", "min_train_periods"),
-                             f"the history has {len(months)} months; one origin needs "
+                             f"the history has {count(len(months))}; one origin needs "
                              f"min_train_periods + gap + horizon = {needed}")
         horizon = validation.gap + validation.horizon
     splits = []
@@ -130,7 +132,7 @@ def time_splits(spec: Spec, data: CheckedData) -> tuple[list[Split], int]:
                 notes = (f"window ending {origin}: {left_out} row(s) filled by input.gaps were "
                          "left out of its fit: the window's own months cannot fill them (the gap "
                          "runs past the origin or starts before the window)",) if left_out else ()
-        splits.append(Split(label=str(origin), train=train, test=in_order(tested),
+        splits.append(Split(label=label_of(origin), train=train, test=in_order(tested),
                             origin=origin, refilled=refilled, notes=notes))
     if not splits:
         raise spec.error(("input", "gaps"), "every month the validation predicts was filled by "
@@ -261,9 +263,9 @@ def _check_rows(spec: Spec, split: Split, terms: int) -> None:
                               f"too few for the {terms} terms of the linear models")
 
 
-# Without validation.min_train_periods the first training window has this many months,
-# or half the history when that is shorter (common practice: two years of months, enough
-# to see each calendar month twice).
+# Without validation.min_train_periods the first training window has this many months
+# (two years of quarters or weeks for those), or half the history when that is shorter
+# (common practice: two years, enough to see each month, quarter or week of the year twice).
 DEFAULT_MIN_TRAIN = 24
 
 
@@ -276,11 +278,13 @@ def settle_validation(spec: Spec, data: CheckedData) -> tuple[Spec, list[str]]:
     validation = spec.validation
     if validation.method != "rolling_origin" or validation.min_train_periods is not None:
         return spec, []
+    cadence = data.cadence
+    default = DEFAULT_MIN_TRAIN // 12 * cadence.season_lag   # two years of periods
     months = int(data.history[PERIOD].nunique())
-    chosen = max(2, min(DEFAULT_MIN_TRAIN, months // 2))
-    reason = (f"the default, {DEFAULT_MIN_TRAIN} months" if chosen == DEFAULT_MIN_TRAIN
-              else f"half the history's {months} months, fewer than the default {DEFAULT_MIN_TRAIN}")
+    chosen = max(2, min(default, months // 2))
+    reason = (f"the default, {cadence.count(default)}" if chosen == default
+              else f"half the history's {cadence.count(months)}, fewer than the default {default}")
     settled = spec.model_copy(update={
         "validation": validation.model_copy(update={"min_train_periods": chosen})})
     return settled, [f"validation.min_train_periods is not set, so the first training window has "
-                     f"{chosen} months ({reason}); set the key to choose"]
+                     f"{cadence.count(chosen)} ({reason}); set the key to choose"]

@@ -154,7 +154,7 @@ def test_a_missing_field_is_named():
     ("name", 3, "text"),
     ("value", "2.5", "a number"),
     ("value", True, "a number"),
-    ("month", "2022-03", "a month"),
+    ("month", "2022-03", "a period"),
 ])
 def test_a_field_of_the_wrong_type_is_refused_in_one_line(field, value, wanted):
     with pytest.raises(ModelFileError) as info:
