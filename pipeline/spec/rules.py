@@ -75,6 +75,9 @@ def _check_dated_terms(calendar, key: KeyPath, fail: Fail) -> list[SpecError]:
         at = key + ("events", name)
         if not name.strip():
             problems.append(fail(at, "an event needs a name"))
+        elif not name.isprintable():
+            problems.append(fail(at, "an event's name is one line of text, without tabs or other "
+                                     "control characters"))
         elif name.strip().lower() in holiday_words:
             problems.append(fail(at, f"'{name}' is the name of a holiday castline knows: list it under "
                                      "holidays, or give the event a name of its own"))
