@@ -43,6 +43,7 @@ from pipeline.features.calendar import (
 )
 from pipeline.features.categorical import OneHotEncoder, OrdinalEncoder, TargetMeanEncoder
 from pipeline.features.future import FutureEstimates
+from pipeline.features.holidays import EventCounts, HolidayShares
 from pipeline.features.interactions import InteractionTerms
 from pipeline.features.lags import LagFeatures
 from pipeline.features.numeric import NumericTerms
@@ -64,7 +65,8 @@ from pipeline.spec import (
 # classes a model file's plan is rebuilt from (each with to_dict and from_dict).
 PART_CLASSES: dict[str, type] = {cls.__name__: cls for cls in (
     NumericTerms, OneHotEncoder, OrdinalEncoder, TargetMeanEncoder, InteractionTerms, TrendTerm,
-    MonthDummies, FourierTerms, QuarterDummies, WeekDummies, WorkingDays, SeriesTerms, LagFeatures)}
+    MonthDummies, FourierTerms, QuarterDummies, WeekDummies, WorkingDays, HolidayShares, EventCounts,
+    SeriesTerms, LagFeatures)}
 
 
 def unplaced_spec_error(key: KeyPath, message: str) -> SpecError:
@@ -224,6 +226,10 @@ class FeaturePlan:
             parts.append(QuarterDummies())
         if calendar.working_days:
             parts.append(WorkingDays(calendar.closures))
+        if calendar.holidays:
+            parts.append(HolidayShares(calendar.holidays))
+        if calendar.events:
+            parts.append(EventCounts(calendar.events))
         return parts
 
     def _lag_part(self, index: int, lagged: LaggedColumn) -> LagFeatures:
@@ -531,7 +537,7 @@ def term_group_labels(part) -> list[str]:
         word = part.word or "series"
         return [word] * (levels if part.intercepts else 0) + [
             f"{slope.column} × {word}" for slope in part.slopes for _ in range(levels)]
-    if isinstance(part, LagFeatures | TrendTerm | WorkingDays) or len(names) == 1:
+    if isinstance(part, LagFeatures | TrendTerm | WorkingDays | HolidayShares | EventCounts) or len(names) == 1:
         return names
     if isinstance(part, FourierTerms):
         return [f"{part.period} of year (sine and cosine)"] * len(names)

@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 
 from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
 from pipeline.core.errors import SpecError
+from pipeline.core.holidays import HOLIDAYS
 from pipeline.spec.keys import KeyPath
 from pipeline.spec.ranges import check_ranges
 from pipeline.spec.schema import TIME_ORDERED, Spec
@@ -56,6 +57,32 @@ def _check_calendar(spec: Spec, calendar, key: KeyPath, fail: Fail) -> list[Spec
     elif calendar.quarter and period == "month" and calendar.seasonal == "dummies":
         problems.append(fail(key + ("quarter",), "quarter dummies are sums of month dummies; use "
                                                  "one or the other"))
+    return problems + _check_dated_terms(calendar, key, fail)
+
+
+def _check_dated_terms(calendar, key: KeyPath, fail: Fail) -> list[SpecError]:
+    """Refuse a holiday castline does not know or listed twice, and an event without dates,
+    without a name or named as a holiday."""
+    problems = []
+    for index, name in enumerate(calendar.holidays):
+        if name not in HOLIDAYS:
+            problems.append(fail(key + ("holidays", index), f"'{name}' is not a holiday castline "
+                                 f"knows (holidays: {', '.join(HOLIDAYS)})"))
+        elif calendar.holidays.index(name) != index:
+            problems.append(fail(key + ("holidays", index), f"'{name}' is listed twice"))
+    holiday_words = {word.lower() for holiday in HOLIDAYS.values() for word in (holiday.name, holiday.words)}
+    for name, dates in calendar.events.items():
+        at = key + ("events", name)
+        if not name.strip():
+            problems.append(fail(at, "an event needs a name"))
+        elif not name.isprintable():
+            problems.append(fail(at, "an event's name is one line of text, without tabs or other "
+                                     "control characters"))
+        elif name.strip().lower() in holiday_words:
+            problems.append(fail(at, f"'{name}' is the name of a holiday castline knows: list it under "
+                                     "holidays, or give the event a name of its own"))
+        elif not dates:
+            problems.append(fail(at, f"the event '{name}' has no dates: give at least one"))
     return problems
 
 
