@@ -68,8 +68,14 @@ class Cadence:
         return str(period)
 
     def labels(self, ordinals) -> list[str]:
-        """Return the labels of many ordinals."""
-        return [self.label(ordinal) for ordinal in np.asarray(ordinals, dtype=np.int64)]
+        """Return the labels of many ordinals (each distinct period written once)."""
+        unique, inverse = np.unique(np.asarray(ordinals, dtype=np.int64), return_inverse=True)
+        if self.name == "week":
+            iso = pd.DatetimeIndex(self.first_days(unique)).isocalendar()
+            written = [f"{year}-W{week:02d}" for year, week in zip(iso["year"], iso["week"])]
+        else:
+            written = list(self.periods(unique).astype(str))
+        return np.asarray(written, dtype=object)[inverse.reshape(-1)].tolist()
 
     def parse(self, text: str) -> pd.Period:
         """Return the period a label written by ``label`` names; ValueError if it is none."""
@@ -152,7 +158,4 @@ def cadence_of(frame: pd.DataFrame) -> Cadence:
 def period_labels(periods) -> list[str]:
     """Return how castline writes each of a Series or index of Periods (any castline spacing)."""
     index = pd.PeriodIndex(periods)
-    cadence = cadence_of_freq(index.dtype)
-    if cadence is not WEEK:
-        return [str(p) for p in index.astype(str)]
-    return cadence.labels(index.asi8)
+    return cadence_of_freq(index.dtype).labels(index.asi8)
