@@ -43,6 +43,7 @@ from pipeline.stages.months_ahead import (
     split_gaps,
 )
 from pipeline.stages.problems import PROBLEM_COLUMNS, Problem, problems_table  # noqa: F401 (re-exported)
+from pipeline.stages.spacing import check_spacing
 
 if TYPE_CHECKING:   # pandera loads when a schema is built: a run's modules import CheckedData from here
     import pandera.pandas as pa
@@ -426,6 +427,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
         problems = date_problems + _calendar_despite(date_problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     frame = valid[list(effective_rules(spec))]
+    check_spacing(frame, spec, raw.path)   # rows spaced otherwise than input.period: one line
     frame[PERIOD] = frame[spec.input.date_column].dt.to_period("M")
     # Plain Python strings: the series labels are read as arrays many times downstream.
     frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
