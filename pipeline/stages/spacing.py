@@ -77,6 +77,23 @@ def spacing_of(dates: pd.Series, keys: list[pd.Series] | None = None) -> Spacing
     return Spacing(float(days.median())) if len(days) else Spacing(None)
 
 
+def one_a_period(dates: pd.Series, keys: list[pd.Series], period: str) -> bool:
+    """Return whether the dates fit a period though their gaps vary (monthly dates written on
+    varying days): no series has two dates in one period, and from one date of a series to
+    its next is one period, typically (the median over every series pooled)."""
+    frame = pd.DataFrame({"date": pd.to_datetime(dates, errors="coerce")}, index=dates.index).dropna()
+    if frame.empty or _several_in_one_period(frame["date"], keys, period):
+        return False
+    frame["ordinal"] = cadence_named(period).of_dates(frame["date"]).array.asi8
+    names = []
+    for number, key in enumerate(keys):
+        frame[f"key{number}"] = key.reindex(frame.index).astype(str)
+        names.append(f"key{number}")
+    frame = frame.drop(columns="date").drop_duplicates().sort_values([*names, "ordinal"])
+    steps = (frame.groupby(names, sort=False)["ordinal"].diff() if names else frame["ordinal"].diff()).dropna()
+    return bool(len(steps)) and float(steps.median()) == 1.0
+
+
 def _several_in_one_period(dates: pd.Series, keys: list[pd.Series], period: str) -> bool:
     """Return whether some series has two distinct dates in one period of the spacing."""
     frame = pd.DataFrame({"date": dates}, index=dates.index).dropna()
