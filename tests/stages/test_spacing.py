@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 
 from pipeline.core.errors import DataError
-from pipeline.stages.spacing import check_spacing, spacing_of
+from pipeline.stages.spacing import check_spacing, one_a_period, spacing_of
 
 
 def spec(period: str, series: list[str] | None = None):
@@ -107,3 +107,14 @@ def test_quarterly_rows_with_a_quarter_missing_pass_as_quarters():
     check_spacing(frame(quarters), spec("quarter"), "data.csv")
     with pytest.raises(DataError, match="look quarterly, but input.period is month"):
         check_spacing(frame(quarters), spec("month"), "data.csv")
+
+
+def test_one_date_a_period_is_told_where_the_gaps_vary():
+    # The n-th month's date on day 1 + n: 32 days apart mostly, one date in each month.
+    drifting = pd.Series([d + pd.Timedelta(days=k % 28) for k, d in enumerate(MONTHS)])
+    assert spacing_of(drifting).name is None
+    assert one_a_period(drifting, [], "month")
+    assert not one_a_period(drifting, [], "quarter")      # three dates in each quarter
+    assert not one_a_period(drifting, [], "week")         # four or five weeks between dates
+    days = pd.Series(pd.date_range("2020-01-01", periods=40, freq="D"))
+    assert not any(one_a_period(days, [], period) for period in ("week", "month", "quarter"))
