@@ -556,8 +556,9 @@ def _command_init(args) -> int:
     sheet = int(args.sheet) if str(args.sheet).isdigit() else args.sheet
     path, found = init(args.data_file, args.spec_file, csv=csv, sheet=sheet)
     print(f"wrote {path}: date column '{found.date_column}' ({found.frequency}ly, "
-          f"{found.periods} months), target '{found.target}', "
+          f"{found.cadence.count(found.periods)}), target '{found.target}', "
           f"series key {found.series or 'none'}")
+    print(f"period: {found.spacing}")
     for note in found.notes:
         print(f"note: {note}")
     print(f"next: edit {path}, then 'castline check {path}'")

@@ -44,6 +44,7 @@ from pipeline.stages.months_ahead import (
     split_gaps,
 )
 from pipeline.stages.problems import PROBLEM_COLUMNS, Problem, problems_table  # noqa: F401 (re-exported)
+from pipeline.stages.spacing import check_spacing
 
 if TYPE_CHECKING:   # pandera loads when a schema is built: a run's modules import CheckedData from here
     import pandera.pandas as pa
@@ -436,6 +437,7 @@ def _checked(spec: Spec, raw: RawInput, today: date | None) -> tuple[
         problems = date_problems + _calendar_despite(date_problems, spec, raw, typed, today)
         return None, None, sorted(problems, key=lambda p: (p.row or 0, p.column)), [], []
     frame = valid[list(effective_rules(spec))]
+    check_spacing(frame, spec, raw.path)   # rows spaced otherwise than input.period: one line
     frame[PERIOD] = cadence_named(spec.input.period).of_dates(frame[spec.input.date_column])
     # Plain Python strings: the series labels are read as arrays many times downstream.
     frame[SERIES] = _series_labels(frame, spec.input.series).astype(object)
@@ -529,6 +531,7 @@ def _calendar_despite(found: list[Problem], spec: Spec, raw: RawInput, typed: pd
     frame = frame[readable].copy()
     if frame.empty:
         return []
+    check_spacing(frame, spec, raw.path)
     frame[PERIOD] = cadence_named(spec.input.period).of_dates(frame[spec.input.date_column])
     frame[SERIES] = _series_labels(frame, spec.input.series)
     frame[ROW] = frame.index.to_numpy() + raw.first_row_number

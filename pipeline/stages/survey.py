@@ -1,6 +1,7 @@
-"""Survey a data file for a starter spec: column types, the date column and its
-frequency, the likely series key and target candidates, which numeric drivers the months
-to forecast carry, and which columns track the target too closely to be drivers.
+"""Survey a data file for a starter spec: column types, the date column and the spacing
+of its dates (week, month or quarter: the period), the likely series key and target
+candidates, which numeric drivers the periods to forecast carry, and which columns track
+the target too closely to be drivers.
 
 Used by ``castline init DATA_FILE``. The survey is a first draft for a person to
 edit, not a checked spec."""
@@ -15,10 +16,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import Cadence, cadence_named
 from pipeline.core.errors import DataError
 from pipeline.spec import CsvOptions
-from pipeline.stages.dates import guess_date_format, numbers_look_like, read_dates
+from pipeline.stages.dates import DateGuess, guess_date_format, numbers_look_like, read_dates
 from pipeline.stages.ingest import read_table
+from pipeline.stages.spacing import NOT_FORECAST, PERIODS, Spacing, one_a_period, spacing_of
 
 _DATE_NAMES = ("month", "date", "period", "time", "day", "week")
 
@@ -31,8 +34,9 @@ MAX_LEVELS = 30
 LOOKALIKE_R = 0.9
 
 # From two full years on, each calendar month is seen twice and a trend can be told
-# from the season: the starter then offers both.
-CALENDAR_MONTHS = 24
+# from the season: the starter then offers both (two years of any period: CALENDAR_YEARS).
+CALENDAR_YEARS = 2
+CALENDAR_MONTHS = CALENDAR_YEARS * 12
 
 
 @dataclass
@@ -47,6 +51,8 @@ class Inference:
     missing: dict[str, int]
     levels: dict[str, list[str]]
     date_column: str
+    # The period the dates are spaced by: week, month or quarter (month when no series has
+    # two dates to tell it by, or their reading is in doubt: day or month first).
     frequency: str
     series: list[str]
     target: str
@@ -66,6 +72,15 @@ class Inference:
     target_lookalikes: dict[str, float] = field(default_factory=dict)
     # How the dates are written (strftime), when the automatic reading would misread them.
     date_format: str | None = None
+    # The typical days between a series' consecutive dates (None: no series has two).
+    spacing_days: float | None = None
+    # What the spacing of the dates told: "dates about 7 days apart: weekly data".
+    spacing: str = ""
+
+    @property
+    def cadence(self) -> Cadence:
+        """Return the period of the rows (month when the spacing is none castline knows)."""
+        return cadence_named(self.frequency)
 
 
 def guess_format(path: Path) -> str:
@@ -111,22 +126,34 @@ def _column_type(values: pd.Series) -> str:
     return "category" if distinct <= max(MAX_LEVELS, 0.05 * len(present)) else "text"
 
 
-def _frequency(dates: pd.Series) -> str:
-    unique = pd.Series(sorted(dates.dropna().unique()))
-    if len(unique) < 3:
-        return "unknown"
-    days = unique.diff().dropna().dt.days.median()
-    if 28 <= days <= 31:
-        return "month"
-    if 6 <= days <= 8:
-        return "week"
-    if days <= 1:
-        return "day"
-    if 89 <= days <= 92:
-        return "quarter"
-    if 365 <= days <= 366:
-        return "year"
-    return f"every {days:g} days"
+def _spacing(parsed: pd.Series, keys: list[pd.Series], guess: DateGuess, path: Path,
+             column: str) -> tuple[Spacing, str, str]:
+    """Return the spacing of the dates, the period it makes and what it told, in words.
+
+    The typical gap within each series names the period; failing that, the gap across the
+    file (a panel whose series are sparse may fill each other's gaps), then the one period
+    that holds one date of a series each, one after the other (monthly dates written on
+    varying days). Dates spaced by no period castline forecasts are refused, unless their
+    reading is in doubt (day or month first), which the note on the dates then tells: the
+    spec is written for months, and the check says how the dates were read."""
+    found = spacing_of(parsed, keys)
+    if found.period is None and keys:
+        overall = spacing_of(parsed)
+        found = overall if overall.period is not None or found.days is None else found
+    if found.days is None:
+        return found, "month", "no series has two dates to tell the spacing by: monthly data assumed"
+    if found.period is not None:
+        return found, found.period, f"dates {found.apart}: {found.adjective} data"
+    fitting = next((period for period in PERIODS if one_a_period(parsed, keys, period)), None)
+    if fitting:
+        return found, fitting, f"dates {found.apart}, one in each {fitting}: {fitting}ly data"
+    if guess.note is not None and guess.date_format is None:   # day or month first: in doubt
+        return found, "month", (f"dates {found.apart} as read: no period castline forecasts; "
+                                "monthly assumed")
+    advice = ("yearly data are too coarse for it" if found.name == "year"
+              else "add the rows up to weeks, months or quarters first")
+    raise DataError(f"the dates are {found.apart} ({found.adjective} data); {NOT_FORECAST}: "
+                    f"{advice}", file=str(path), column=column)
 
 
 def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) -> Inference:
@@ -140,18 +167,20 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     types = {column: _column_type(frame[column]) for column in frame.columns}
     dates = [c for c in frame.columns if types[c] == "date"]
     if not dates:
-        raise DataError("no column holds dates; castline needs a date column for monthly data"
+        raise DataError("no column holds dates; castline needs a date column for weekly, monthly "
+                        "or quarterly data"
                         + _numbers_for_dates(frame), file=str(path))
     dates.sort(key=lambda c: (not any(word in c.lower() for word in _DATE_NAMES), list(frame.columns).index(c)))
     date_column = dates[0]
     guess = guess_date_format(frame[date_column])
     parsed = read_dates(frame[date_column], guess.date_format)
-    months = parsed.dt.to_period("M")
     categories = [c for c in frame.columns if types[c] == "category" and c != date_column]
+    # The series are told first to read the spacing within each, then by the periods of
+    # that spacing.
+    keys = [frame[c] for c in _key_for_spacing(frame, parsed, categories)]
+    spacing, frequency, spacing_words = _spacing(parsed, keys, guess, path, date_column)
+    months = cadence_named(frequency).of_dates(parsed)
     series = _series_key(frame, months, categories)
-    per_series_dates = parsed.groupby([frame[c].astype(str) for c in series]).apply(_frequency) \
-        if series else pd.Series([_frequency(parsed)])
-    frequency = per_series_dates.mode().iloc[0]
     numeric = [c for c in frame.columns if types[c] in ("number", "whole_number")]
     if not numeric:
         raise DataError("no numeric column to forecast", file=str(path))
@@ -173,9 +202,6 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     lookalikes = {c: r for c, r in correlations.items() if r is not None and abs(r) > LOOKALIKE_R}
     levels = {c: sorted(frame[c].dropna().astype(str).unique().tolist()) for c in categories}
     notes = [guess.note] if guess.note else []
-    if frequency != "month":
-        notes.append(f"the dates in '{date_column}' look {frequency}ly spaced, not monthly; "
-                     "castline forecasts monthly data, so aggregate to months first")
     if file_format == "csv" and csv.missing_values is None:
         notes += _texts_read_as_missing(path, csv, frame, categories)
     return Inference(
@@ -189,7 +215,8 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
         history_periods=int(months[history].nunique()), future_rows=int(future.sum()),
         driver_future={c: rule for c, rule in driver_future.items() if c not in lookalikes},
         future_missing={c: n for c, n in future_missing.items() if c not in lookalikes},
-        target_lookalikes=lookalikes, date_format=guess.date_format)
+        target_lookalikes=lookalikes, date_format=guess.date_format, spacing_days=spacing.days,
+        spacing=spacing_words)
 
 
 def _texts_read_as_missing(path: Path, csv: CsvOptions, frame: pd.DataFrame, columns: list[str]) -> list[str]:
@@ -244,13 +271,26 @@ def _count_history_gaps(frame: pd.DataFrame, months: pd.Series, series: list[str
     for _, rows in months.groupby(keys):
         present = set(rows[(rows <= last_actual) & frame.loc[rows.index, target].notna()])
         if present:
-            span = pd.period_range(min(present), max(present), freq="M")
+            span = pd.period_range(min(present), max(present))
             total += len(span) - len(present)
     return total
 
 
+def _key_for_spacing(frame: pd.DataFrame, parsed: pd.Series, categories: list[str]) -> list[str]:
+    """Return the series key that, with the month (monthly or quarterly rows), else the ISO
+    week (weekly rows), else the date itself, identifies every row: the coarsest that does,
+    so that series dated at other times of one period (other days, other offsets from UTC)
+    are still told apart."""
+    for stamps in (parsed.dt.to_period("M"), parsed.dt.to_period("W-SUN"), parsed):
+        key = _series_key(frame, stamps, categories)
+        if not pd.concat([stamps, *(frame[c] for c in key)], axis=1).duplicated().any():
+            return key
+    return []
+
+
 def _series_key(frame: pd.DataFrame, months: pd.Series, categories: list[str]) -> list[str]:
-    """Return the fewest category columns that, with the month, identify every row."""
+    """Return the fewest category columns that, with the month (or the date, or another
+    period), identify every row."""
     if not months.duplicated().any():
         return []
     for size in (1, 2):

@@ -133,3 +133,38 @@ def test_the_final_fit_is_statsmodels_on_the_hand_made_design(weekly_run):
     # The generating amplitudes come back within a few standard errors (40 and 15).
     assert abs(reference.params[2] - 40) < 4 * reference.bse[2]
     assert abs(reference.params[5] - 15) < 4 * reference.bse[5]
+
+
+# ------------------------------------------------------------------ real data: statsmodels co2
+
+def test_weekly_co2_with_its_gaps_filled_equals_statsmodels_on_pandas_interpolation(tmp_path):
+    # statsmodels.datasets.co2 (Scripps/NOAA): weekly CO2 at Mauna Loa, 1958-03-29 to
+    # 2001-12-29, each week given by its Saturday, with 59 weeks missing; 1959, 1964, 1970,
+    # 1976, 1981, 1987, 1992 and 1998 have 53 ISO weeks. The reference fills the missing
+    # weeks with pandas' linear interpolation and fits statsmodels OLS on a design built here.
+    weekly = sm.datasets.co2.load_pandas().data
+    frame = pd.DataFrame({"saturday": weekly.index.strftime("%Y-%m-%d"), "co2": weekly["co2"].to_numpy()})
+    frame.to_csv(tmp_path / "co2.csv", index=False)
+    spec = {"name": "co2-by-week",
+            "input": {"file": "co2.csv", "date_column": "saturday", "period": "week", "gaps": "fill"},
+            "target": "co2",
+            "drivers": {"calendar": {"trend": True, "season": "fourier", "harmonics": 3}},
+            "models": ["ols"],
+            "validation": {"method": "rolling_origin", "horizon": 13, "origins": 12, "step": 4},
+            "output": {"folder": "out"}}
+    (tmp_path / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False))
+    code, out, err = run_cli(["run", str(tmp_path / "spec.yaml")])
+    assert code == 0, err
+    (run,) = [path for path in (tmp_path / "out").iterdir() if path.is_dir()]
+
+    filled = weekly["co2"].interpolate(method="linear", limit_area="inside").to_numpy(float)
+    thursday = (weekly.index - pd.Timedelta(days=2) - pd.Timestamp("1970-01-01")).days.to_numpy(float)
+    angle = 2 * np.pi * thursday / 365.25
+    design = np.column_stack([np.ones(len(filled)), np.arange(len(filled), dtype=float),
+                              *[f(k * angle) for k in (1, 2, 3) for f in (np.sin, np.cos)]])
+    reference = sm.OLS(filled, design).fit()
+    terms = pd.read_csv(run / "coefficients.csv")
+    ols = terms[terms["model"] == "ols"]
+    assert ols["term"].iloc[1] == "weeks since 1958-W13"
+    np.testing.assert_allclose(ols["estimate"].to_numpy(float), reference.params, rtol=1e-9)
+    np.testing.assert_allclose(ols["std_error"].to_numpy(float), reference.bse, rtol=1e-8)

@@ -73,12 +73,14 @@ def test_a_semicolon_file_is_sniffed(tmp_path):
     assert found.date_column == "sold_on"
 
 
-def test_weekly_dates_are_noticed_and_noted(tmp_path):
+def test_weekly_dates_are_read_as_weeks_and_said_so(tmp_path):
     frame = pd.DataFrame({"week": pd.date_range("2023-01-02", periods=10, freq="7D").strftime("%Y-%m-%d"),
                           "units": range(10)})
     found = infer(write(tmp_path / "data.csv", frame))
     assert found.frequency == "week"
-    assert any("weekly" in note for note in found.notes)
+    assert found.periods == 10          # ten Mondays: ten ISO weeks, not three months
+    assert found.spacing == "dates about 7 days apart: weekly data"
+    assert found.notes == []            # weekly data are forecast as weeks: nothing to warn of
 
 
 def test_a_file_without_dates_is_refused(tmp_path):

@@ -2,11 +2,12 @@
 
 base.csv: 24 months of actuals (2020-01 to 2021-12) and 2 months to forecast of an
 invented target y = 10 + 2·x1 − x2 + a small wobble; each other file is base.csv with
-one fault put in. Run from this folder: ../../../.venv/bin/python make_data.py
+one fault put in, or its rows dated a week or a quarter apart. Run from this folder: ../../../.venv/bin/python make_data.py
 """
 
 from __future__ import annotations
 
+from datetime import date, timedelta
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -22,6 +23,19 @@ def rows() -> list[list[str]]:
         y = 10 + 2 * x1 - x2 + (i % 3) - 1
         out.append([f"{year}-{month:02d}-01", str(y) if i < 24 else "", str(x1), str(x2)])
     return out
+
+
+def spaced(first: date, step, header: str) -> tuple[list[list[str]], str]:
+    """Return the rows of base.csv dated from ``first`` on, one ``step`` apart, and the header
+    with the date column renamed (``step``: a timedelta, or a number of months)."""
+    table = rows()
+    for i, row in enumerate(table):
+        if isinstance(step, int):
+            months = first.month - 1 + i * step
+            row[0] = date(first.year + months // 12, months % 12 + 1, first.day).isoformat()
+        else:
+            row[0] = (first + i * step).isoformat()
+    return table, header
 
 
 def write(name: str, table: list[list[str]], header: str = HEADER, sep: str = ",") -> None:
@@ -52,6 +66,10 @@ def main() -> None:
     write("near_float_limit_driver.csv", changed(2, lambda i, r: f"{1.5 + (i % 5) / 10}e308"))
     write("one_row.csv", rows()[:1])
     write("text_in_driver.csv", changed(2, "about 7", at=[4]))
+    # The same rows spaced otherwise: weekly (Mondays, 7 days apart) and quarterly (the first
+    # day of each quarter), for data whose spacing is not the spec's input.period.
+    write("weekly.csv", *spaced(date(2020, 1, 6), timedelta(days=7), "week_start,y,x1,x2"))
+    write("quarterly.csv", *spaced(date(2015, 1, 1), 3, "quarter,y,x1,x2"))
 
 
 if __name__ == "__main__":
