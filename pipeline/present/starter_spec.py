@@ -74,8 +74,8 @@ def _numeric_lines(found: Inference) -> list[str]:
     place = "calendar month" if period.name == "month" else f"{period.name} of the year"
     lines = [f"  # future: how a driver's values in the {period.plural} to forecast are found. given: the "
              "file carries them",
-             "  # (a plan, a price list); month_mean: castline estimates them (the series' "
-             "average for that",
+             f"  # (a plan, a price list); {'month_mean' if period.name == 'month' else 'period_mean'}: "
+             "castline estimates them (the series' average for that",
              f"  # {place}, learned in each training window)."]
     if not found.future_rows:
         lines += [f"  # The file has no {period.plural} to forecast (rows after the last actual, target "
@@ -89,7 +89,7 @@ def _numeric_lines(found: Inference) -> list[str]:
     for column in found.numeric_drivers:
         rule = found.driver_future[column]
         lines += [f"    - column: {_yaml_value(column)}",
-                  f"      future: {rule:<11}# {_future_comment(found, column)}"]
+                  f"      future: {rule:<10} # {_future_comment(found, column)}"]
     return lines
 
 
@@ -143,7 +143,7 @@ def _forecast_lines(found: Inference, months: int) -> list[str]:
     return [f"# The file has no {found.cadence.plural} to forecast: castline adds this many after "
             "each series' last",
             "# actual (a driver you mark 'future: given' then needs its values in the file).",
-            "forecast:", f"  months: {months}", ""]
+            "forecast:", f"  {'months' if found.cadence.name == 'month' else 'periods'}: {months}", ""]
 
 
 def _validation_lines(history: int, horizon: int, period: Cadence) -> list[str]:

@@ -85,6 +85,9 @@ def _bounded(spec: Spec) -> list[tuple[KeyPath, float | int | None, float]]:
     for column, rule in spec.columns.items():
         found += [(("columns", column, "min"), rule.min, MOST_VALUE),
                   (("columns", column, "max"), rule.max, MOST_VALUE)]
+    if spec.forecast is not None:   # ten years of periods: 120 months, 40 quarters, 522 weeks
+        written = "periods" if spec.forecast.periods is not None else "months"
+        found.append((("forecast", written), spec.forecast.ahead, MOST_AHEAD[spec.input.period]))
     for index, driver in enumerate(spec.drivers.categorical):
         key = ("drivers", "categorical", index)
         found += [(key + ("smoothing",), driver.smoothing, MOST_ROWS),

@@ -194,7 +194,8 @@ def infer(path: Path, *, csv: CsvOptions | None = None, sheet: str | int = 0) ->
     history, future = _history_and_future_rows(frame, months, target)
     others = [c for c in numeric if c != target]
     future_missing = {c: int(frame.loc[future, c].isna().sum()) for c in others}
-    driver_future = {c: "given" if future.any() and not future_missing[c] else "month_mean"
+    estimated = "month_mean" if frequency == "month" else "period_mean"   # the monthly name kept
+    driver_future = {c: "given" if future.any() and not future_missing[c] else estimated
                      for c in others}
     # Only a column the file cannot supply ahead is suspect: a planned one is known in time.
     correlations = {c: _same_month_r(frame, history, target, c) for c in others

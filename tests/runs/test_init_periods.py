@@ -80,7 +80,7 @@ def test_quarterly_data_get_a_quarterly_spec_with_season_dummies(tmp_path):
     assert spec["drivers"]["calendar"] == {"trend": True, "season": "dummies"}
     # A year of quarters ahead; the first window max(8, 40 - 4 - 23) = 13 quarters.
     assert spec["validation"] == {"method": "rolling_origin", "horizon": 4, "min_train_periods": 13}
-    assert spec["forecast"] == {"months": 4}     # no quarters to forecast in the file: four added
+    assert spec["forecast"] == {"periods": 4}     # no quarters to forecast in the file: four added
     assert "The file has no quarters to forecast" in path.read_text(encoding="utf-8")
     assert load_spec(path).input.period == "quarter"
 
