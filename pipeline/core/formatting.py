@@ -189,14 +189,15 @@ def format_percent(share: float) -> str:
     return "0%"
 
 
-def markdown_table(frame) -> str:
+def markdown_table(frame, cadence=None) -> str:
     """Return a table in Markdown, numbers as the report shows them, pipes escaped, and when a
-    cell has no value, the line that says what its dash means under the table."""
+    cell has no value, the line that says what its dash means under the table. Model and column
+    labels name periods in the words of ``cadence`` (a Cadence; months when None)."""
     def cell(value, column=None) -> str:
         if column in ("model", "recommended") and isinstance(value, str):
-            value = model_label(value)
+            value = model_label(value, cadence)
         return format_cell(value, column).replace("|", "\\|").replace("\n", " ")
-    header = "| " + " | ".join(cell(column_label(c)) for c in frame.columns) + " |"
+    header = "| " + " | ".join(cell(column_label(c, cadence)) for c in frame.columns) + " |"
     rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
     rows = list(frame.itertuples(index=False))
     body = ["| " + " | ".join(cell(v, c) for v, c in zip(row, frame.columns)) + " |" for row in rows]
