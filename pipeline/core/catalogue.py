@@ -186,4 +186,6 @@ def column_label(name: str, cadence=None) -> str:
         return METRIC_BY_NAME[name].label
     if name == "last_period" and cadence is not None:
         return f"last actual {cadence.name}"
+    if name == "months_ahead" and cadence is not None:   # the ledger's column, whatever the spacing
+        return f"{cadence.plural}_ahead"
     return COLUMN_LABELS.get(name) or (model_label(name, cadence) if isinstance(name, str) else name)
