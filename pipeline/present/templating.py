@@ -13,7 +13,7 @@ import jinja2
 from pipeline.core.cadence import MONTH
 from pipeline.core.catalogue import column_label, model_label
 from pipeline.core.formatting import (
-    DASH_NOTE,
+    dash_note,
     format_cell,
     format_number,
     format_text,
@@ -39,7 +39,7 @@ def page_environment() -> jinja2.Environment:
     environment.filters["p_phrase"] = p_phrase
     environment.filters["has_missing"] = has_missing
     environment.filters["missing_in"] = missing_in
-    environment.globals["dash_meaning"] = DASH_NOTE
+    environment.globals["dash_meaning"] = dash_note   # called with the page's period
     environment.globals["zip"] = zip
     environment.filters["column_label"] = _column_label
     environment.filters["model_label"] = _model_label
