@@ -309,3 +309,13 @@ def test_the_pages_of_a_quarterly_run_folder_speak_of_quarters(tiny_runs, tmp_pa
     assert "the next quarters can be further off" in report
     assert "mean of the training months" not in report
     assert "<h3>By quarters ahead</h3>" in report and "same quarter last year" in report
+
+
+def test_a_week_written_as_pandas_writes_it_reads_as_that_week():
+    # pandas writes the W-SUN period holding 2024-01-29 as its first and last day.
+    written = str(pd.Period("2024-01-29", freq="W-SUN"))
+    assert written == "2024-01-29/2024-02-04"
+    assert cadence_of_labels([written]) is WEEK
+    assert year_before(written) == "2023-01-30/2023-02-05"     # 364 days back, written alike
+    assert list(first_days([written])) == [pd.Timestamp("2024-01-29")]
+    assert ordinal_of(written) == ordinal_of("2024-W05")
