@@ -11,7 +11,7 @@ import json
 import sys
 from pathlib import Path
 
-from pipeline.core.catalogue import METRIC_NAMES, SKILL, column_label, model_label
+from pipeline.core.catalogue import BASELINE, METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
 from pipeline.core.version import __version__
@@ -115,12 +115,13 @@ def build_parser() -> argparse.ArgumentParser:
 PLOT_METRICS = [*METRIC_NAMES, SKILL]
 
 
-def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None) -> None:
+def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, ...] | None = None,
+                 cadence=None) -> None:
     """Print a table headed in words (the catalogue's labels), models named as the answer names
-    them, numbers as the report shows them."""
-    cells = [[model_label(row[c]) if c in ("model", "recommended") and isinstance(row[c], str) else format_cell(row[c], c)
-              for c in columns] for row in rows]
-    heads = [column_label(c) for c in columns]
+    them, numbers as the report shows them; periods named by ``cadence`` (months when None)."""
+    cells = [[model_label(row[c], cadence) if c in ("model", "recommended") and isinstance(row[c], str)
+              else format_cell(row[c], c) for c in columns] for row in rows]
+    heads = [column_label(c, cadence) for c in columns]
     widths = [max(len(h), *(len(r[i]) for r in cells)) for i, h in enumerate(heads)]
     right = set(align_right) if align_right is not None else set(columns[1:])
     print("  ".join(h.ljust(w) for h, w in zip(heads, widths)).rstrip())
@@ -140,10 +141,17 @@ def _command_run(args) -> int:
     return EXIT_OK
 
 
+def _cadence(labels):
+    """Return the spacing of periods their labels are written in (months when none reads as one)."""
+    from pipeline.core.period_labels import cadence_of_labels
+    return cadence_of_labels(labels)
+
+
 def _print_run(result) -> None:
-    table = result.metrics
+    from pipeline.core.cadence import cadence_named
+    table, cadence = result.metrics, cadence_named(result.spec.input.period)
     _print_table(table.to_dict(orient="records"),
-                 ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"])
+                 ["model", "n", "mae", "rmse", "mape", "mase", "bias", "skill_vs_mean", "against_mean"], cadence=cadence)
     print()
     print(result.evaluation.verdict)
     summary = result.evaluation.series_summary
@@ -155,7 +163,7 @@ def _print_run(result) -> None:
                 continue   # the simple rules' per-series lines are in series.csv
             significant = (f"significantly in {row.beats_significantly} ({row.significant_share:.0%}, "
                            "Holm-adjusted across series)" if tested else "not tested")
-            print(f"per series: {model_label(row.model)} beats the mean of the training months in "
+            print(f"per series: {model_label(row.model, cadence)} beats the {model_label(BASELINE, cadence)} in "
                   f"{row.beats} of {row.series} series ({row.beats_share:.0%}), {significant}; see series.csv")
     if result.evaluation.interval_warning:
         print(f"warning: {result.evaluation.interval_warning}")
@@ -240,7 +248,7 @@ def _command_history(args) -> int:
         title = f"{name or 'every spec'}: {metric.replace('_', ' ')} per run"
         plot_history(metrics, metric, Path(args.plot), title)
         if args.format == "table":
-            print(f"plot written to {args.plot} (x: the last month of actuals each run used)")
+            print(f"plot written to {args.plot} (x: the last {_cadence(metrics['last_period']).name} of actuals each run used)")
     if page is not None:
         replace_page(Path(args.html), page, MARKER, what="history page", option="--html")
         if args.format == "table":
@@ -294,15 +302,17 @@ def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, mod
     from pipeline.review.history import RECENT_RUNS, recent_runs
     lead = ["spec_name"] if _print_heading(path, name, metrics) else []
     recent = recent_runs(metrics, RECENT_RUNS, model)
-    whose = f"{model_label(model)}'s" if model else "its recommended model's"
+    cadence = _cadence(metrics["last_period"])
+    mean, plural = model_label(BASELINE, cadence), cadence.plural
+    whose = f"{model_label(model, cadence)}'s" if model else "its recommended model's"
     if show in ("metrics", "all"):
         print()
         print(f"The last {RECENT_RUNS} runs" + (" of each spec" if lead else "") + f", each with "
               f"{whose} backtest metrics (change: from that "
-              "model's run before; skill = 1 − the select_by metric / that of the mean of the training months):")
+              f"model's run before; skill = 1 − the select_by metric / that of the {mean}):")
         columns = [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
                    "skill_vs_mean", "skill_vs_mean_change"]
-        _print_table(_shown(recent, columns), columns, align_right=tuple(columns[len(lead) + 4:]))
+        _print_table(_shown(recent, columns), columns, align_right=tuple(columns[len(lead) + 4:]), cadence=cadence)
     if show in ("realised", "all"):
         print()
         shown = per_run[per_run["forecast_run_id"].isin(set(recent["run_id"]))]
@@ -311,32 +321,34 @@ def _print_recent(path: Path, name: str | None, metrics, per_run, show: str, mod
             print("How these runs' forecasts turned out: none has an actual in a later run's data yet.")
         else:
             print(f"How these runs' forecasts turned out ({model or 'the recommended model'}, over "
-                  "the months ahead with an actual so far; error = forecast − actual; expected = "
-                  "the backtest MAE at the same months ahead):")
+                  f"the {plural} ahead with an actual so far; error = forecast − actual; expected = "
+                  f"the backtest MAE at the same {plural} ahead):")
             columns = [*lead, "forecast_run_id", "last_period", "model", "months_ahead", "n",
                        "realised_mae", "expected_mae", "realised_bias", "inside_80", "inside_95",
                        "scored_through"]
-            _print_table(_shown(shown, columns), columns, align_right=tuple(columns[len(lead) + 3:-1]))
+            _print_table(_shown(shown, columns), columns, align_right=tuple(columns[len(lead) + 3:-1]),
+                         cadence=cadence)
     runs = metrics["run_id"].nunique()
     print()
-    print(f"Shown: {recent['run_id'].nunique()} of {runs} run(s), " + (f"{model_label(model)} only" if model else
-          "each run's recommended model") + "; add --all for every run and model, and the "
-          "forecasts per months ahead.")
+    print(f"Shown: {recent['run_id'].nunique()} of {runs} run(s), " + (f"{model_label(model, cadence)} only"
+          if model else "each run's recommended model") + "; add --all for every run and model, and the "
+          f"forecasts per {plural} ahead.")
 
 
 def _print_history(path: Path, name: str | None, metrics, realised, show: str) -> None:
     lead = ["spec_name"] if _print_heading(path, name, metrics) else []
+    cadence = _cadence(metrics["last_period"])
     if show in ("metrics", "all"):
         print()
         print("Backtest metrics per run (change: from the run before; skill = 1 − the run's "
-              "select_by metric / that of the mean of the training months):")
+              f"select_by metric / that of the {model_label(BASELINE, cadence)}):")
         _print_table(_shown(metrics, [*lead, "created", "run_id", "last_period", "model", "mae",
                                       "mae_change", "rmse", "rmse_change", "skill_vs_mean",
                                       "skill_vs_mean_change", "recommended"]),
                      [*lead, "created", "run_id", "last_period", "model", "mae", "mae_change", "rmse",
                       "rmse_change", "skill_vs_mean", "skill_vs_mean_change", "recommended"],
                      align_right=("mae", "mae_change", "rmse", "rmse_change", "skill_vs_mean",
-                                  "skill_vs_mean_change"))
+                                  "skill_vs_mean_change"), cadence=cadence)
     if show in ("realised", "all"):
         print()
         if not len(realised):
@@ -344,14 +356,14 @@ def _print_history(path: Path, name: str | None, metrics, realised, show: str) -
                   "run's data yet.")
             return
         print("How the forecasts turned out (error = forecast − actual; expected = the run's "
-              "backtest MAE at the same months ahead; inside = share of actuals within the "
+              f"backtest MAE at the same {cadence.plural} ahead; inside = share of actuals within the "
               "stated interval):")
         columns = [*lead, "forecast_created", "forecast_run_id", "model", "horizon", "n",
                    "realised_mae", "expected_mae", "realised_bias", "inside_80", "inside_95",
                    "scored_through"]
         _print_table(_shown(realised, columns), columns,
                      align_right=("horizon", "n", "realised_mae", "expected_mae", "realised_bias",
-                                  "inside_80", "inside_95"))
+                                  "inside_80", "inside_95"), cadence=cadence)
 
 
 def _command_compare(args) -> int:
@@ -387,8 +399,9 @@ def _command_compare(args) -> int:
     return EXIT_OK
 
 
-def _print_planned(planned, top: int) -> None:
-    """Print which planned drivers changed in which months, or why they cannot be named."""
+def _print_planned(planned, top: int, name: str = "month") -> None:
+    """Print which planned drivers changed in which periods (``name``: month, quarter, week), or why
+    they cannot be named."""
     if not planned.months:
         return
     if not planned.named:
@@ -396,16 +409,16 @@ def _print_planned(planned, top: int) -> None:
         return
     shown = planned.by_month()
     if not len(shown):
-        print("  planned drivers: no driver's planned value differs (the months' other columns changed)")
+        print(f"  planned drivers: no driver's planned value differs (the {name}s' other columns changed)")
         return
     print("  planned drivers whose values changed (series_changed: how many series' plans changed):")
     _print_table(shown.head(top).to_dict(orient="records"), list(shown.columns),
                  align_right=("series_changed",))
     if len(shown) > top:
-        print(f"  … and {len(shown) - top} more driver-months (all of them with --format json)")
+        print(f"  … and {len(shown) - top} more driver-{name}s (all of them with --format json)")
 
 
-def _print_revisions(revisions, top: int) -> None:
+def _print_revisions(revisions, top: int, cadence=None) -> None:
     """Print the forecasts that moved most between the runs, capped at `top`."""
     from pipeline.review.revisions import largest_revisions
     if revisions.model is None or not len(revisions.table):
@@ -414,7 +427,8 @@ def _print_revisions(revisions, top: int) -> None:
     table = revisions.table
     stated = (f"the change in widths of the earlier run's stated 80% interval ({revisions.interval_method})"
               if revisions.interval_method else "no width: the earlier run stated no interval")
-    print(f"Forecast revisions of {model_label(revisions.model)}: {len(table)} month-series in both runs "
+    print(f"Forecast revisions of {model_label(revisions.model, cadence)}: {len(table)} "
+          f"{cadence.name if cadence else 'month'}-series in both runs "
           f"(change = later − earlier; change_in_widths: {stated})")
     shown = largest_revisions(table, top)
     _print_table(shown.to_dict(orient="records"), list(shown.columns), align_right=tuple(shown.columns[2:]))
@@ -426,10 +440,12 @@ def _print_revisions(revisions, top: int) -> None:
 
 
 def _print_comparison(comparison, top: int) -> None:
+    cadence = _cadence([comparison.later["last_period"], comparison.earlier["last_period"]])
+    name = cadence.name
     for word, run in (("earlier", comparison.earlier), ("later", comparison.later)):
         print(f"{word + ':':8} {run['run_id']} ({run['created'][:19].replace('T', ' ')}; "
               f"actuals {run['first_period']} to {run['last_period']}, {run['history_rows']} rows; "
-              f"recommended {model_label(run['recommended'])}; castline {run['castline_version']})")
+              f"recommended {model_label(run['recommended'], cadence)}; castline {run['castline_version']})")
     if comparison.swapped:
         print("(the runs were given newest first; changes are read from the earlier to the later)")
     print()
@@ -447,17 +463,17 @@ def _print_comparison(comparison, top: int) -> None:
     print(f"Data: {same}; rows with actuals {data['rows_with_actuals_earlier']} → "
           f"{data['rows_with_actuals_later']} ({data['rows_with_actuals_added']:+d})")
     if not comparison.months_recorded:
-        print("  months: not compared (a run was recorded before the ledger kept a fingerprint "
-              "of each month)")
+        print(f"  {name}s: not compared (a run was recorded before the ledger kept a fingerprint "
+              f"of each {name})")
     elif len(comparison.months):
         _print_table(comparison.months.to_dict(orient="records"),
                      ["period", "change", "earlier_actual_rows", "later_actual_rows"],
                      align_right=("earlier_actual_rows", "later_actual_rows"))
     else:
-        print("  no month's rows changed")
-    _print_planned(comparison.planned, top)
+        print(f"  no {name}'s rows changed")
+    _print_planned(comparison.planned, top, name)
     print()
-    _print_revisions(comparison.revisions, top)
+    _print_revisions(comparison.revisions, top, cadence)
     print()
     moves = comparison.coefficients
     if len(moves):

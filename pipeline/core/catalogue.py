@@ -30,7 +30,7 @@ class ModelKind:
     """One kind of model a spec may ask for under ``models``."""
 
     name: str                 # the spec's kind, and the model column of every table
-    label: str                # the name the answer's sentences use
+    label: str                # the name the answer's sentences use ({name}, {plural}, {season_lag}: the period's)
     family: str               # "reference" (a simple rule) or "linear" (fitted by least squares or a penalty)
     make: str                 # "module:Class" of the model; the class follows models.contract.Model
     capabilities: frozenset[str] = field(default_factory=frozenset)
@@ -63,14 +63,14 @@ CAPABILITIES = {
 }
 
 MODEL_KINDS: tuple[ModelKind, ...] = (
-    ModelKind("mean_baseline", "mean of the training months", "reference", "pipeline.models.baselines:MeanBaseline"),
-    ModelKind("calendar_month_mean", "calendar-month average", "reference",
+    ModelKind("mean_baseline", "mean of the training {plural}", "reference", "pipeline.models.baselines:MeanBaseline"),
+    ModelKind("calendar_month_mean", "calendar-{name} average", "reference",
               "pipeline.models.baselines:CalendarMonthMean", frozenset({"needs_time_order"}), always=True),
-    ModelKind("trailing_mean", "trailing 12-month mean", "reference",
+    ModelKind("trailing_mean", "trailing {season_lag}-{name} mean", "reference",
               "pipeline.models.baselines:TrailingMean", frozenset({"needs_time_order"}), always=True),
     ModelKind("last_value", "last value", "reference", "pipeline.models.baselines:LastValue",
               frozenset({"needs_time_order"}), always=True),
-    ModelKind("seasonal_naive", "same month last year", "reference",
+    ModelKind("seasonal_naive", "same {name} last year", "reference",
               "pipeline.models.baselines:SeasonalNaive", frozenset({"needs_time_order"}), always=True),
     ModelKind("drift", "drift", "reference", "pipeline.models.baselines:Drift",
               frozenset({"needs_time_order"})),
@@ -100,13 +100,27 @@ def model_kind(name: str) -> ModelKind:
     return MODELS[name]
 
 
-def model_label(name: str) -> str:
-    """Return the name the answer uses for a model (``OLS per series``); unknown names as given."""
+# The words of a monthly run, for a label asked without a period (a cadence.Cadence has the same
+# fields; this module imports none, so that the command line loads no numpy to build its choices).
+MONTH_WORDS = {"name": "month", "plural": "months", "season_lag": 12}
+
+
+def period_words(cadence=None) -> dict:
+    """Return the words a label template takes from a period's spacing (a Cadence, or None for months)."""
+    if cadence is None:
+        return MONTH_WORDS
+    return {"name": cadence.name, "plural": cadence.plural, "season_lag": cadence.season_lag}
+
+
+def model_label(name: str, cadence=None) -> str:
+    """Return the name the answer uses for a model (``OLS per series``), in the words of the
+    period's spacing (``same quarter last year``; months when none is given); unknown names as given."""
     try:
         kind = model_kind(name)
     except KeyError:
         return name
-    return f"{kind.label} per series" if name.endswith(PER_SERIES) else kind.label
+    label = kind.label.format(**period_words(cadence))
+    return f"{label} per series" if name.endswith(PER_SERIES) else label
 
 
 @dataclass(frozen=True)
@@ -163,11 +177,15 @@ COLUMN_LABELS = {
 }
 
 
-def column_label(name: str) -> str:
+def column_label(name: str, cadence=None) -> str:
     """Return the words a table heads a column with: a metric's label (MAE, R²), else the
     column's words (``skill_vs_mean`` → "skill against the mean"), else a model's label for a
     table with a column per model (``seasonal_naive`` → "same month last year"), else the name
-    as given."""
+    as given. The words that name a period follow ``cadence`` (months when none is given)."""
     if name in METRIC_BY_NAME:
         return METRIC_BY_NAME[name].label
-    return COLUMN_LABELS.get(name) or (model_label(name) if isinstance(name, str) else name)
+    if name == "last_period" and cadence is not None:
+        return f"last actual {cadence.name}"
+    if name == "months_ahead" and cadence is not None:   # the ledger's column, whatever the spacing
+        return f"{cadence.plural}_ahead"
+    return COLUMN_LABELS.get(name) or (model_label(name, cadence) if isinstance(name, str) else name)

@@ -19,6 +19,12 @@ from pipeline.core.catalogue import column_label, model_label
 MISSING = "—"
 DASH_NOTE = ("— no value: not defined for this row (the mean of the training months is not tested against "
              "itself, a check has no p-value or no usual threshold), or too few data to compute it.")
+
+
+def dash_note(cadence=None) -> str:
+    """Return what a dash means in a table, the mean baseline named in the words of ``cadence``
+    (a Cadence; DASH_NOTE, of months, when None)."""
+    return DASH_NOTE if cadence is None else DASH_NOTE.replace("training months", f"training {cadence.plural}")
 TINY = 0.001           # below this a number keeps three significant digits, a p-value reads "< 0.001"
 SIGNIFICANT_DIGITS = 4
 SMALLEST_DECIMAL = Decimal("0.000001")   # below this a number is written as a power of ten
@@ -189,16 +195,17 @@ def format_percent(share: float) -> str:
     return "0%"
 
 
-def markdown_table(frame) -> str:
+def markdown_table(frame, cadence=None) -> str:
     """Return a table in Markdown, numbers as the report shows them, pipes escaped, and when a
-    cell has no value, the line that says what its dash means under the table."""
+    cell has no value, the line that says what its dash means under the table. Model and column
+    labels name periods in the words of ``cadence`` (a Cadence; months when None)."""
     def cell(value, column=None) -> str:
         if column in ("model", "recommended") and isinstance(value, str):
-            value = model_label(value)
+            value = model_label(value, cadence)
         return format_cell(value, column).replace("|", "\\|").replace("\n", " ")
-    header = "| " + " | ".join(cell(column_label(c)) for c in frame.columns) + " |"
+    header = "| " + " | ".join(cell(column_label(c, cadence)) for c in frame.columns) + " |"
     rule = "|" + "|".join(" --- " for _ in frame.columns) + "|"
     rows = list(frame.itertuples(index=False))
     body = ["| " + " | ".join(cell(v, c) for v, c in zip(row, frame.columns)) + " |" for row in rows]
-    note = ["", DASH_NOTE] if has_missing(rows) else []
+    note = ["", dash_note(cadence)] if has_missing(rows) else []
     return "\n".join([header, rule, *body, *note])

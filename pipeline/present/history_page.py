@@ -16,8 +16,10 @@ from pathlib import Path
 
 import pandas as pd
 
+from pipeline.core.cadence import MONTH, Cadence
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.intervals import closest_method, shortfall_warning
+from pipeline.core.period_labels import cadence_of_labels
 from pipeline.present import plots
 from pipeline.present.history_plot import FAN_MONTHS, fan_figure, history_figure, realised_figure
 from pipeline.present.picture_jobs import PictureJobs
@@ -29,10 +31,10 @@ from pipeline.review.history_book import HistoryBook, run_labels
 # page it may replace (and refuses to write over anything else).
 MARKER = '<meta name="generator" content="castline history page">'
 REVISION_MONTHS = 12      # target months in the revisions table (the latest)
-CAUTIONS = [
-    "Realised accuracy over a few months says little: one unusual month moves it a lot, and "
-    "a month forecast by several runs is counted once per run.",
-    "The expected MAE is what each run's backtest found at as many months ahead; the months "
+CAUTIONS = [   # {name}, {plural}: the runs' period (month, quarter, week)
+    "Realised accuracy over a few {plural} says little: one unusual {name} moves it a lot, and "
+    "a {name} forecast by several runs is counted once per run.",
+    "The expected MAE is what each run's backtest found at as many {plural} ahead; the {plural} "
     "that came can be harder or easier than the backtest's.",
     "A revision is not an error: a rerun with more actuals should move the forecast. Large, "
     "repeated revisions in one direction are worth a person's look.",
@@ -74,28 +76,34 @@ def runs_table(book: HistoryBook) -> pd.DataFrame:
         "beat the mean": [beat(v) for v in runs["beats_baseline"]]})
 
 
+def book_cadence(book: HistoryBook) -> Cadence:
+    """Return the spacing of the runs' periods, as the ledger's labels of them say (months if none does)."""
+    return cadence_of_labels(book.runs["last_period"]) if len(book.runs) else MONTH
+
+
 def realised_table(book: HistoryBook) -> pd.DataFrame:
-    """Return each run's recommended forecasts as they turned out, over the months scored so far."""
+    """Return each run's recommended forecasts as they turned out, over the periods scored so far."""
     labels = run_labels(book.runs)
     own = book.realised[book.realised["recommended"].astype(bool)]
     return pd.DataFrame({
         "run": own["forecast_run_id"].map(labels), "model": own["model"].astype(str),
-        "months ahead": own["months_ahead"].astype(str), "forecasts": own["n"].astype(int),
+        f"{book_cadence(book).plural} ahead": own["months_ahead"].astype(str), "forecasts": own["n"].astype(int),
         "realised MAE": own["realised_mae"].astype(float), "expected MAE": own["expected_mae"].astype(float),
         "realised bias": own["realised_bias"].astype(float), "inside 80%": own["inside_80"].astype(float),
         "inside 95%": own["inside_95"].astype(float), "scored through": own["scored_through"].astype(str)})
 
 
 def revisions_table(book: HistoryBook, months: int = REVISION_MONTHS) -> pd.DataFrame:
-    """Return each run's forecast of each of the latest target months, with the change from the
-    run before's forecast of it, and the month's actual and error where it has arrived."""
+    """Return each run's forecast of each of the latest target periods, with the change from the
+    run before's forecast of it, and the period's actual and error where it has arrived."""
     fan = book.fan
     kept = sorted(fan["period"].astype(str).unique())[-months:]
     rows = fan[fan["period"].astype(str).isin(kept)]
     labels = run_labels(book.runs)
+    cadence = book_cadence(book)
     return pd.DataFrame({
-        "target month": rows["period"].astype(str), "run": rows["forecast_run_id"].map(labels),
-        "months ahead": rows["horizon"].astype(int), "forecast": rows["forecast"].astype(float),
+        f"target {cadence.name}": rows["period"].astype(str), "run": rows["forecast_run_id"].map(labels),
+        f"{cadence.plural} ahead": rows["horizon"].astype(int), "forecast": rows["forecast"].astype(float),
         "change": rows.groupby("period", sort=False)["forecast"].diff().astype(float),
         "actual": rows["actual"].astype(float),
         "error": (rows["forecast"] - rows["actual"]).astype(float)}).reset_index(drop=True)
@@ -116,13 +124,13 @@ def changes_table(book: HistoryBook) -> pd.DataFrame:
 
 
 UNCHANGED = {"spec keys": "no spec key changed", "planned drivers": "no planned driver changed "
-             "in a month two runs both forecast", "recommended model": "the recommended model stayed "
+             "in a {name} two runs both forecast", "recommended model": "the recommended model stayed "
              "the same"}
 
 
-def unchanged_words(table: pd.DataFrame) -> str:
+def unchanged_words(table: pd.DataFrame, cadence: Cadence = MONTH) -> str:
     """Return, in words, the kinds of change no pair of consecutive runs had."""
-    missing = [words for column, words in UNCHANGED.items() if column not in table.columns]
+    missing = [words.format(name=cadence.name) for column, words in UNCHANGED.items() if column not in table.columns]
     return ("From run to run, " + "; ".join(missing) + ".") if missing else ""
 
 
@@ -180,7 +188,7 @@ def _pictures(book: HistoryBook) -> dict:
     own = book.realised[book.realised["recommended"].astype(bool)]
     if len(own):
         pictures["realised"] = jobs.later(1, _drawn, realised_figure, own, book.runs)
-        pictures["band"] = jobs.later(1, plots.track_record_picture, book.scored)
+        pictures["band"] = jobs.later(1, plots.track_record_picture, book.scored, book_cadence(book))
     if len(book.fan):
         series = int(book.fan["series"].max())
         pictures["fan"] = jobs.later(1, _drawn, fan_figure, book.fan, book.runs, series)
@@ -193,6 +201,7 @@ def render_history_page(book: HistoryBook) -> str:
     warnings_given, unread = recorded_warnings(book)
     fan = book.fan
     changes = changes_table(book)
+    cadence = book_cadence(book)
     return page_environment().get_template("history.html.j2").render(
         marker=MARKER, spec_name=book.spec_name, ledger=str(book.ledger), run_count=len(runs),
         first_period=str(runs["last_period"].iloc[0]), last_period=str(runs["last_period"].iloc[-1]),
@@ -200,8 +209,9 @@ def render_history_page(book: HistoryBook) -> str:
         warnings=book.warnings, warnings_given=warnings_given, unread=unread,
         runs=runs_table(book), pictures=_pictures(book),
         mae=metric_table(book.metrics, runs, "mae"), skill=metric_table(book.metrics, runs, "skill_vs_mean"),
-        realised=realised_table(book), realised_skill=skill_words(book.skill) if book.skill else None,
+        realised=realised_table(book), realised_skill=skill_words(book.skill, cadence) if book.skill else None,
         revisions=revisions_table(book), fan_months=FAN_MONTHS, revision_months=REVISION_MONTHS,
         target_months=fan["period"].nunique() if len(fan) else 0,
         series_count=int(fan["series"].max()) if len(fan) else 0,
-        changes=changes, unchanged=unchanged_words(changes), cautions=CAUTIONS)
+        changes=changes, unchanged=unchanged_words(changes, cadence), period=cadence,
+        cautions=[line.format(name=cadence.name, plural=cadence.plural) for line in CAUTIONS])

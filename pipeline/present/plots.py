@@ -20,9 +20,11 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.cadence import MONTH, Cadence
 from pipeline.core.catalogue import model_label
 from pipeline.core.distributions import normal_order_medians
 from pipeline.core.formatting import format_number, format_signed
+from pipeline.core.period_labels import cadence_of_labels, first_days, year_before
 from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
     SVG_DOTS,
     SVG_MARKERS,
@@ -34,6 +36,7 @@ from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, na
     picture_data,
     picture_kind,
 )
+from pipeline.present.period_axis import period_ticks
 
 # Okabe & Ito (2008) colour-blind-safe palette; the mean baseline always in grey.
 PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
@@ -78,16 +81,16 @@ def _straight_line(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     return slope, float(np.mean(y) - slope * np.mean(x))
 
 
-def the_model(name: str) -> str:
+def the_model(name: str, cadence: Cadence | None = None) -> str:
     """Return a model's name as a sentence writes it after a verb: its catalogue label, with
     'the' before a label that is a description (the mean baseline's) rather than a name."""
-    label = model_label(name)
+    label = model_label(name, cadence)
     return label if label.startswith("the ") or name != "mean_baseline" else "the " + label
 
 
-def model_names(models) -> str:
+def model_names(models, cadence: Cadence | None = None) -> str:
     """Return models' catalogue labels, joined by commas."""
-    return ", ".join(model_label(m) for m in models)
+    return ", ".join(model_label(m, cadence) for m in models)
 
 
 def model_colours(models: list[str]) -> dict[str, str]:
@@ -98,12 +101,16 @@ def model_colours(models: list[str]) -> dict[str, str]:
     return colours
 
 
-def date_axis(axis, most: int = 7, least: int = 3) -> None:
+def date_axis(axis, most: int = 7, least: int = 3, cadence: Cadence = MONTH) -> None:
     """Label a date axis with ``least`` to ``most`` ticks (about), concisely. matplotlib's
     AutoDateLocator ticks by years only from ``least`` years up, and by months only every 1 to 6
     of them: a span too short for years and too long for ``most`` ticks every 6 months (30 to 33
     months with at most 6 ticks, 41 to 55 with 5 to 8) found no interval, warned and fell back
-    to 6. Ticks every 12 months (each January) close that gap."""
+    to 6. Ticks every 12 months (each January) close that gap. Quarters and weeks are ticked at
+    their own starts and labelled as castline writes them (period_ticks)."""
+    if cadence.name != "month":
+        period_ticks(axis, cadence, most)
+        return
     locator = mdates.AutoDateLocator(minticks=least, maxticks=most)
     locator.intervald[mdates.MONTHLY] = [1, 2, 3, 4, 6, 12]
     axis.xaxis.set_major_locator(locator)
@@ -111,7 +118,7 @@ def date_axis(axis, most: int = 7, least: int = 3) -> None:
 
 
 def _months(values) -> pd.DatetimeIndex:
-    return pd.PeriodIndex(values, freq="M").to_timestamp()
+    return first_days(values)
 
 
 def largest_series(history: pd.DataFrame, among=None, count: int = MAX_PANELS) -> list:
@@ -128,38 +135,40 @@ def _nearest(predictions: pd.DataFrame) -> pd.DataFrame:
     return predictions.sort_values("horizon", kind="stable").drop_duplicates(["period", "series"])
 
 
-def _one_step_and_longest(predictions: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
-    """Return the predictions made one month ahead and those made the furthest ahead, each
+def _one_step_and_longest(predictions: pd.DataFrame, cadence: Cadence = MONTH
+                           ) -> list[tuple[str, pd.DataFrame]]:
+    """Return the predictions made one period ahead and those made the furthest ahead, each
     with what they are; from a single origin (a holdout), its predictions as one part."""
     steps = sorted(set(predictions["horizon"].astype(int)))
     origins = list(predictions["origin"].unique())
     if len(origins) == 1 and len(steps) > 1:
-        return [(f"from {origins[0]}, {steps[0]} to {_ahead_text(steps[-1])}", predictions)]
-    return [(_ahead_text(h), predictions[predictions["horizon"].astype(int) == h])
+        return [(f"from {origins[0]}, {steps[0]} to {_ahead_text(steps[-1], cadence)}", predictions)]
+    return [(_ahead_text(h, cadence), predictions[predictions["horizon"].astype(int) == h])
             for h in dict.fromkeys(steps[:1] + steps[-1:])]
 
 
-def _ahead_text(months: int) -> str:
-    return f"{months} month{'s' if months != 1 else ''} ahead"
+def _ahead_text(months: int, cadence: Cadence = MONTH) -> str:
+    return f"{months} {cadence.name if months == 1 else cadence.plural} ahead"
 
 
-def _months_text(scored: list) -> str:
-    count = f"{len(scored):,} month{'s' if len(scored) != 1 else ''}"
+def _months_text(scored: list, cadence: Cadence = MONTH) -> str:
+    count = f"{len(scored):,} {cadence.name if len(scored) == 1 else cadence.plural}"
     return count + (f", {scored[0]} to {scored[-1]}" if len(scored) > 1 else f", {scored[0]}" if scored else "")
 
 
-def _least_error(rows: pd.DataFrame, what: str) -> str:
+def _least_error(rows: pd.DataFrame, what: str, cadence: Cadence = MONTH) -> str:
     """Return the sentence naming the model whose predictions in ``rows`` erred least (MAE per
-    series and month), and the others' MAE."""
+    series and period), and the others' MAE."""
     if not len(rows) or "actual" not in rows:
         return ""
     errors = (rows["prediction"] - rows["actual"]).abs().groupby(rows["model"], sort=False).mean().dropna()
     if not len(errors):
         return ""
     ranked = errors.sort_values(kind="stable")
-    others = ", ".join(f"{model_label(m)} {format_number(v)}" for m, v in ranked.iloc[1:].items())
-    return (f" {what[:1].upper() + what[1:]}, {model_label(ranked.index[0])} erred least of the models drawn: MAE "
-            f"{format_number(ranked.iloc[0])} per series and month" + (f", against {others}." if others else "."))
+    others = ", ".join(f"{model_label(m, cadence)} {format_number(v)}" for m, v in ranked.iloc[1:].items())
+    return (f" {what[:1].upper() + what[1:]}, {model_label(ranked.index[0], cadence)} erred least of the models "
+            f"drawn: MAE {format_number(ranked.iloc[0])} per series and {cadence.name}"
+            + (f", against {others}." if others else "."))
 
 
 @_styled
@@ -169,7 +178,8 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     from a single origin one panel; the legend below them; the text names the model whose
     one-month-ahead errors were smallest."""
     actual = history.groupby("period")["actual"].sum().sort_index()
-    parts = _one_step_and_longest(predictions)
+    cadence = cadence_of_labels(actual.index)
+    parts = _one_step_and_longest(predictions, cadence)
     figure, axes = _subplots(1, len(parts), figsize=(8, 3.6), sharey=True, squeeze=False)
     axes = axes[0]
     models = list(predictions["model"].unique())
@@ -177,33 +187,33 @@ def backtest_picture(history: pd.DataFrame, predictions: pd.DataFrame) -> Figure
     spans = []
     for axis, (what, rows) in zip(axes, parts):
         scored = sorted(set(rows["period"]))
-        # Actuals from a year before the first month scored, so the level before it shows.
-        start = str(pd.Period(scored[0], freq="M") - 12) if scored else actual.index.min()
+        # Actuals from a year before the first period scored, so the level before it shows.
+        start = year_before(scored[0]) if scored else actual.index.min()
         shown = actual[(actual.index >= start) & (actual.index <= (scored[-1] if scored else actual.index.max()))]
         axis.plot(_months(shown.index), shown.to_numpy(), color="#000000", linewidth=1.2, label="actual")
         for model in models:
             total = rows[rows["model"] == model].groupby("period")["prediction"].sum().sort_index()
             axis.plot(_months(total.index), total.to_numpy(), linestyle="--" if model == "mean_baseline" else "-",
                       marker=".", markersize=3 if len(total) > 24 else 5, linewidth=1, color=colours[model],
-                      label=as_text(model_label(model)))
+                      label=as_text(model_label(model, cadence)))
         axis.set_title(f"predicted {what}", fontsize=8)
-        date_axis(axis, most=MAX_LABELS // len(parts))
-        spans.append(f"{what} ({_months_text(scored)})")
+        date_axis(axis, most=MAX_LABELS // len(parts), cadence=cadence)
+        spans.append(f"{what} ({_months_text(scored, cadence)})")
     axes[0].set_ylabel("target, all series")
     handles, labels = axes[0].get_legend_handles_labels()
     figure.legend(handles, labels, loc="lower center", ncol=len(labels), fontsize=7, frameon=False)
     count = history["series"].nunique()
     summed = "summed over all series" if count < 2 else f"summed over all {count:,} series"
     alt = (f"{'Two line charts sharing the y axis' if len(parts) > 1 else 'Line chart'}: the actual "
-           f"target {summed} (black) and the out-of-sample predictions of {model_names(models)} summed "
+           f"target {summed} (black) and the out-of-sample predictions of {model_names(models, cadence)} summed "
            f"alike, made {' and '.join(spans)}.")
     points = sum(rows.groupby("model")["period"].nunique().sum() for _, rows in parts)
-    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0]), picture_kind(points))
+    return inline_picture(figure, alt + _least_error(parts[0][1], parts[0][0], cadence), picture_kind(points))
 
 
 @_styled
-def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
-    """MAE per model at each origin or horizon."""
+def error_picture(table: pd.DataFrame, key: str, label: str, cadence: Cadence = MONTH) -> Figure:
+    """MAE per model at each origin or horizon (the simple rules named in the words of ``cadence``)."""
     figure, axis = _subplots(figsize=(8, 2.8))
     models = list(dict.fromkeys(table["model"]))
     colours = model_colours(models)
@@ -211,7 +221,7 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
         own = table[table["model"] == model]
         positions = np.arange(len(own))
         axis.plot(positions, own["mae"].to_numpy(), marker="o", markersize=3, linewidth=1,
-                  color=colours[model], label=as_text(model_label(model)))
+                  color=colours[model], label=as_text(model_label(model, cadence)))
         # At most MAX_LABELS labels: every k-th origin or horizon, the first one labelled.
         every = -(-len(own) // MAX_LABELS)
         axis.set_xticks(positions[::every])
@@ -221,26 +231,28 @@ def error_picture(table: pd.DataFrame, key: str, label: str) -> Figure:
     axis.set_ylabel("MAE")
     axis.legend(fontsize=7, frameon=False, ncol=len(models), loc="lower left", bbox_to_anchor=(0, 1.0))
     worst = table.loc[table["mae"].idxmax()] if len(table) else None
-    alt = (f"Line chart of the mean absolute error of {model_names(models)} by {label}. "
-           + (f"The largest error is {format_number(worst['mae'])} ({model_label(worst['model'])}, {label} {worst[key]})."
+    alt = (f"Line chart of the mean absolute error of {model_names(models, cadence)} by {label}. "
+           + (f"The largest error is {format_number(worst['mae'])} ({model_label(worst['model'], cadence)}, "
+              f"{label} {worst[key]})."
               if worst is not None else ""))
     return inline_picture(figure, alt, picture_kind(len(table)))
 
 
-def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list) -> str:
-    """Return the sentence comparing each pictured series' forecast, summed over the months
-    ahead, with its actuals in the same months a year earlier (where every one is known)."""
+def _against_last_year(history: pd.DataFrame, forecast: pd.DataFrame, series: list,
+                       cadence: Cadence = MONTH) -> str:
+    """Return the sentence comparing each pictured series' forecast, summed over the periods
+    ahead, with its actuals in the same periods a year earlier (where every one is known)."""
     parts = []
     actual = history.set_index(["series", "period"])["actual"]
     for name in series:
         ahead = forecast[forecast["series"] == name]
-        earlier = [(name, str(pd.Period(p, freq="M") - 12)) for p in ahead["period"]]
+        earlier = [(name, year_before(p)) for p in ahead["period"]]
         if not len(ahead) or not all(key in actual.index for key in earlier):
             continue
         before = float(actual.loc[earlier].sum())
         if before != 0 and np.isfinite(before):
             parts.append(f"{name} {float(ahead['forecast'].sum()) / before - 1:+.1%}")
-    return (" Against the same months a year earlier, the forecast is: " + ", ".join(parts) + "."
+    return (f" Against the same {cadence.plural} a year earlier, the forecast is: " + ", ".join(parts) + "."
             if parts else "")
 
 
@@ -250,6 +262,8 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     """History and the forecast with 80% and 95% intervals, one panel per series: with more
     series than panels, the series with the largest total actuals."""
     own = forecast[forecast["model"] == model]
+    cadence = cadence_of_labels(history["period"])
+    shown_years = 3   # the years of actuals drawn: 36 months, 12 quarters, 156 weeks
     series = list(dict.fromkeys(own["series"])) or list(dict.fromkeys(history["series"]))
     total = len(series)
     if total > MAX_PANELS:
@@ -259,7 +273,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
     figure, axes = _subplots(rows, columns, figsize=(8, 2.4 * rows), squeeze=False)
     for index, name in enumerate(series):
         axis = axes[index // columns][index % columns]
-        past = history[history["series"] == name].sort_values("period").tail(36)
+        past = history[history["series"] == name].sort_values("period").tail(shown_years * cadence.season_lag)
         axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1, label="actual")
         ahead = own[own["series"] == name].sort_values("period")
         if len(ahead):
@@ -279,7 +293,7 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
                     axis.plot(_months(rows_["period"]), rows_["scenario_forecast"], linestyle="--",
                               linewidth=1, color=PALETTE[(number + 1) % len(PALETTE)], label=scenario)
         axis.set_title(as_text(name), fontsize=8)
-        date_axis(axis)
+        date_axis(axis, cadence=cadence)
         if index == 0:
             axis.legend(fontsize=6, frameon=False, loc="upper left")
     for index in range(len(series), rows * columns):
@@ -288,10 +302,11 @@ def forecast_picture(history: pd.DataFrame, forecast: pd.DataFrame, model: str, 
              f"for the {len(series)} of {total:,} series with the largest total actuals "
              f"({', '.join(map(str, series))}; forecast.csv holds every series)")
     alt = (f"{len(series)} small line charts, {which}: the last "
-           f"36 months of actuals and the {model_label(model)} forecast for {len(set(own['period']))} months "
+           f"{shown_years * cadence.season_lag} {cadence.plural} of actuals and the {model_label(model, cadence)} "
+           f"forecast for {len(set(own['period']))} {cadence.plural} "
            f"ahead with shaded 80% and 95% {method} intervals"
            + ("; dashed lines show the scenarios." if scenarios is not None and len(scenarios) else ".")
-           + _against_last_year(history, own, series))
+           + _against_last_year(history, own, series, cadence))
     return inline_picture(figure, alt, "svg")
 
 
@@ -394,7 +409,8 @@ def levels_picture(levels: dict, model: str) -> Figure:
 
 
 @_styled
-def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str]) -> Figure:
+def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: list[str],
+                    cadence: Cadence = MONTH) -> Figure:
     """Per-series skill against the mean baseline, one outline per model, skill below −1 in
     the leftmost bar (skill is at most 1, so the other end needs no clipping)."""
     colours = model_colours(all_models)
@@ -411,10 +427,10 @@ def skill_histogram(series_table: pd.DataFrame, models: list[str], all_models: l
         if not len(own):
             continue
         axis.hist(np.clip(own, low, high), bins=edges, histtype="step", linewidth=1.4,
-                  color=colours[model], label=as_text(model_label(model)))
-        parts.append(f"{model_label(model)}: {len(own):,} series, median {np.median(own):.3g}, "
+                  color=colours[model], label=as_text(model_label(model, cadence)))
+        parts.append(f"{model_label(model, cadence)}: {len(own):,} series, median {np.median(own):.3g}, "
                      f"{(own > 0).mean():.0%} above 0")
-    baseline = the_model("mean_baseline")
+    baseline = the_model("mean_baseline", cadence)
     axis.axvline(0, color=BASELINE_COLOUR, linewidth=1, linestyle="--", label=as_text(f"as good as {baseline}"))
     axis.set_xlabel(as_text(f"skill against the mean (1 − loss / the loss of {baseline}, in select_by), per series"))
     axis.set_ylabel("series")
@@ -437,24 +453,25 @@ def series_picture(history: pd.DataFrame, predictions: pd.DataFrame, name, model
     past = history[history["series"] == name].sort_values("period")
     own = predictions[predictions["series"] == name]
     scored = sorted(set(own["period"]))
-    # Actuals from a year before the first scored month, so the level before it shows.
-    start = str(pd.Period(scored[0], freq="M") - 12) if scored else None
-    past = past[past["period"] >= start] if start else past.tail(36)
+    cadence = cadence_of_labels(past["period"])
+    # Actuals from a year before the first scored period, so the level before it shows.
+    start = year_before(scored[0]) if scored else None
+    past = past[past["period"] >= start] if start else past.tail(3 * cadence.season_lag)
     figure, axis = _subplots(figsize=(4, 2.3))
     axis.plot(_months(past["period"]), past["actual"], color="#000000", linewidth=1.1, label="actual")
     colours = model_colours(all_models)
     for kind, style in ((model, "-"), ("mean_baseline", "--")):
         rows = _nearest(own[own["model"] == kind]).sort_values("period")
         axis.plot(_months(rows["period"]), rows["prediction"], color=colours[kind], linestyle=style,
-                  marker=".", markersize=3, linewidth=1, label=as_text(model_label(kind)))
+                  marker=".", markersize=3, linewidth=1, label=as_text(model_label(kind, cadence)))
     # A "$" in a series name would start matplotlib's maths notation.
     axis.set_title(as_text(f"{name} (skill {skill:.3g})"), fontsize=8)
-    date_axis(axis)
+    date_axis(axis, cadence=cadence)
     axis.legend(fontsize=6, frameon=False, loc="upper left")
     alt = (f"Line chart of series {name}: actuals from {past['period'].min()} to "
-           f"{past['period'].max()} and the out-of-sample predictions of {model_label(model)} and of "
-           f"{the_model('mean_baseline')} for the {len(scored)} months scored (nearest origin first); the "
-           f"skill of {model_label(model)} on this series is {skill:.3g}.")
+           f"{past['period'].max()} and the out-of-sample predictions of {model_label(model, cadence)} and of "
+           f"{the_model('mean_baseline', cadence)} for the {len(scored)} {cadence.plural} scored (nearest origin "
+           f"first); the skill of {model_label(model, cadence)} on this series is {skill:.3g}.")
     return inline_picture(figure, alt, "svg")
 
 
@@ -476,15 +493,16 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
     """Residuals over time, against fitted values, and against the normal quantiles."""
     pictures = []
     by_month = residuals.groupby("period")["residual"].mean().sort_index()
+    cadence = cadence_of_labels(by_month.index)
     figure, axis = _subplots(figsize=(8, 2.6))
     axis.plot(_months(by_month.index), by_month.to_numpy(), color=PALETTE[0], linewidth=1)
     axis.axhline(0, color="#000000", linewidth=0.8)
     axis.set_ylabel("residual (mean over series)")
-    date_axis(axis)
+    date_axis(axis, cadence=cadence)
     worst = by_month.abs().idxmax() if len(by_month) else None
     pictures.append(inline_picture(figure, "Line chart of the final fit's residuals over time, averaged "
                             "over series; a pattern or drift means the model misses something."
-                            + (f" The month furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
+                            + (f" The {cadence.name} furthest from zero is {worst} ({format_number(float(by_month[worst]))})."
                                if worst is not None else ""), "svg"))
     figure, axis = _subplots(figsize=(4, 3))
     axis.scatter(residuals["fitted"], residuals["residual"], s=6, color=PALETTE[0], alpha=0.6)
@@ -514,8 +532,8 @@ def residual_pictures(residuals: pd.DataFrame) -> list[Figure]:
 
 
 @_styled
-def track_record_picture(scored: pd.DataFrame) -> Figure:
-    """The realised errors of earlier runs' forecasts by months ahead, each against the backtest's
+def track_record_picture(scored: pd.DataFrame, cadence: Cadence = MONTH) -> Figure:
+    """The realised errors of earlier runs' forecasts by periods ahead, each against the backtest's
     95% range of errors its run expected there (realised.csv's backtest_low_95 and
     backtest_high_95); a miss outside it is drawn as a cross in the warning colour."""
     rows = scored.sort_values(["horizon", "forecast_created", "forecast_run_id", "period", "series"],
@@ -546,7 +564,7 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
     horizons = sorted(set(horizon.tolist()))
     axis.set_xticks(horizons)
     axis.set_xlim(min(horizons) - 0.6, max(horizons) + 0.6)
-    axis.set_xlabel("months ahead (each earlier run's forecasts, older runs to the left)")
+    axis.set_xlabel(f"{cadence.plural} ahead (each earlier run's forecasts, older runs to the left)")
     axis.set_ylabel("error (forecast − actual)")
     # Room above the highest bar or point for the legend, on one line.
     top = float(np.nanmax(np.concatenate([high[banded], error, [0.0]])))
@@ -555,18 +573,18 @@ def track_record_picture(scored: pd.DataFrame) -> Figure:
     axis.legend(fontsize=7, frameon=False, loc="upper left", ncol=4)
     runs = rows["forecast_run_id"].nunique()
     alt = (f"Dot chart of the realised errors (forecast − actual) of {len(rows):,} forecast(s) from "
-           f"{runs:,} earlier run(s) by months ahead, each against the backtest's 95% range of "
+           f"{runs:,} earlier run(s) by {cadence.plural} ahead, each against the backtest's 95% range of "
            "errors its run expected there (grey bars): ")
     if banded.any():
         alt += f"{int(outside.sum()):,} of {int(banded.sum()):,} fell outside it"
         if outside.any():
             by_horizon = pd.Series(horizon[outside]).value_counts().sort_index()
-            alt += " (" + ", ".join(f"{n} at {h} month(s) ahead" for h, n in by_horizon.items()) + ")"
+            alt += " (" + ", ".join(f"{n} at {h} {cadence.name}(s) ahead" for h, n in by_horizon.items()) + ")"
         alt += ", where about 1 in 20 would by chance"
     else:
         alt += "none of them has a range recorded"
     worst = int(np.nanargmax(np.abs(error))) if np.isfinite(error).any() else None
     if worst is not None:
         alt += (f". The largest error was {format_signed(error[worst])} ({rows['period'].iloc[worst]}, "
-                f"{rows['series'].iloc[worst]}, {horizon[worst]} month(s) ahead).")
+                f"{rows['series'].iloc[worst]}, {horizon[worst]} {cadence.name}(s) ahead).")
     return inline_picture(figure, alt, picture_kind(len(rows), SVG_DOTS))

@@ -12,47 +12,39 @@ every value from the data is escaped by the template engine.
 
 from __future__ import annotations
 
-import functools
 import math
 from pathlib import Path
 
-import jinja2
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import MONTH, Cadence
 from pipeline.core.catalogue import (
     BASELINE_KINDS,
     HIGHER_IS_BETTER,
     LOWER_IS_BETTER,
     SCORES,
     SKILL,
-    column_label,
     model_kind,
     model_label,
 )
-from pipeline.core.formatting import (
-    DASH_NOTE,
-    MISSING,
-    format_cell,
-    format_number,
-    format_percent,
-    format_text,
-    has_missing,
-    markdown_table,
-    missing_in,
-    p_phrase,
-)
+from pipeline.core.formatting import MISSING, format_number, format_percent
 from pipeline.core.intervals import SIZE_GROUPS, percent, shortfall_warning, trusted_method
 from pipeline.present import plots
 from pipeline.present.ahead import ahead_view
 from pipeline.present.first_screen import first_screen_view
 from pipeline.present.picture_jobs import PictureJobs
 from pipeline.present.run_files import RunFiles, load_run_files
+from pipeline.present.templating import (  # noqa: F401  (compile_templates: the runner's helper names it here)
+    compile_templates,
+    page_environment,
+    render_markdown,
+)
 from pipeline.present.track_record import track_record_view
 
 CAUTIONS = [
     "A forecast is an estimate, not a promise: the backtest shows how far off such estimates "
-    "have been, and the next months can be further off.",
+    "have been, and the next {plural} can be further off.",
     "The analytic intervals assume errors that are independent, normal and of constant spread; "
     "the empirical intervals assume the future errs as the backtest did. Neither covers a change "
     "the history does not hold.",
@@ -82,51 +74,6 @@ TABLE_ROWS = 50        # rows of a long table shown before pointing to its CSV f
 NAMES_SHOWN = 20       # series named in a list before "and N more"
 WORST_SHOWN = 5        # worst series pictured in the Per series section
 SIGNIFICANT = 0.05     # a coefficient's p-value counted as small in the summary across series
-
-
-@functools.cache
-def page_environment() -> jinja2.Environment:
-    """Return the template engine of the HTML pages (the report, the history page): every value
-    escaped, an undefined name an error, numbers formatted as the report shows them. One per
-    process, so each template is compiled once (jinja2 keeps them)."""
-    environment = jinja2.Environment(
-        loader=jinja2.PackageLoader("pipeline.present", "templates"),
-        autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
-        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
-    environment.filters["num"] = format_number
-    environment.filters["cell"] = format_cell
-    environment.filters["text"] = format_text
-    environment.filters["p_phrase"] = p_phrase
-    environment.filters["has_missing"] = has_missing
-    environment.filters["missing_in"] = missing_in
-    environment.globals["dash_meaning"] = DASH_NOTE
-    environment.globals["zip"] = zip
-    environment.filters["column_label"] = column_label
-    environment.filters["model_label"] = model_label
-    return environment
-
-
-def render_markdown(template: str, **context) -> str:
-    """Return a Markdown template rendered (Markdown is not HTML: tables escape their pipes)."""
-    return _markdown_environment().get_template(template).render(**context)
-
-
-def compile_templates() -> None:
-    """Compile the run's page templates now (a helper preparing to render them does this while
-    the run fits: some 0.1 s)."""
-    page_environment().get_template("report.html.j2")
-    _markdown_environment().get_template("summary.md.j2")
-
-
-@functools.cache
-def _markdown_environment() -> jinja2.Environment:
-    environment = jinja2.Environment(loader=jinja2.PackageLoader("pipeline.present", "templates"),
-                                     autoescape=False, undefined=jinja2.StrictUndefined,
-                                     trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
-    environment.filters["table"] = markdown_table
-    environment.filters["num"] = format_number
-    environment.filters["model_label"] = model_label
-    return environment
 
 
 def named(names, shown: int = NAMES_SHOWN) -> str:
@@ -393,7 +340,13 @@ def stated_forecast(forecast: pd.DataFrame | None, coverage: pd.DataFrame | None
     return shown, method
 
 
-def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | None) -> dict | None:
+def cautions(cadence: Cadence = MONTH) -> list[str]:
+    """Return the Cautions section's lines, in the words of the run's spacing of periods."""
+    return [line.format(plural=cadence.plural) for line in CAUTIONS]
+
+
+def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | None,
+                 cadence: Cadence = MONTH) -> dict | None:
     """Return the stated interval's backtest coverage for the recommended model by months ahead
     and by size of series, one small table each (levels as columns, shares as percents), or
     None when the run folder has no such breakdown."""
@@ -408,7 +361,8 @@ def held_by_view(detail: pd.DataFrame | None, recommended: str, method: str | No
         part = part.assign(group=part["group"].astype(str))
         order = list(part["group"].unique())
         order = sorted(order, key=float) if by == "months ahead" else [g for g in SIZE_GROUPS if g in order]
-        shown = pd.DataFrame({by: order})
+        # The file names the groups of horizons "months ahead" whatever the spacing; the page, in its words.
+        shown = pd.DataFrame({f"{cadence.plural} ahead" if by == "months ahead" else by: order})
         for level in sorted(part["level"].unique()):   # a level's first share per group, levels as columns
             held = part[part["level"] == level].dropna(subset="coverage").drop_duplicates("group")
             shares = held.set_index("group")["coverage"].reindex(order)
@@ -456,9 +410,10 @@ def _only(table: pd.DataFrame, models: list[str]) -> pd.DataFrame:
 
 def _track_record(files: RunFiles) -> dict | None:
     """Return the Track record section's view (track_record.json and realised.csv) with its picture."""
-    track = track_record_view(files.track, files.table("realised.csv"), rows_shown=TABLE_ROWS)
+    track = track_record_view(files.track, files.table("realised.csv"), rows_shown=TABLE_ROWS,
+                              cadence=files.cadence())
     if track is not None and track["pictured"] is not None:
-        track["picture"] = plots.track_record_picture(track["pictured"])
+        track["picture"] = plots.track_record_picture(track["pictured"], files.cadence())
     return track
 
 
@@ -485,7 +440,7 @@ def _drivers_picture(drivers: dict) -> plots.Figure | None:
 
 
 def _backtest_pictures(jobs: PictureJobs, metrics: dict, history: pd.DataFrame, predictions: pd.DataFrame,
-                       every_model: list[str]) -> list:
+                       every_model: list[str], cadence: Cadence = MONTH) -> list:
     """Return the Backtest section's pictures (stand-ins, ``jobs``): the predictions of the recommended
     model and its two references, then the errors of every pictured model by origin and by months ahead."""
     drawn = backtest_models(every_model, metrics["models"], metrics["recommended"], metrics.get("best_rule"),
@@ -494,9 +449,10 @@ def _backtest_pictures(jobs: PictureJobs, metrics: dict, history: pd.DataFrame, 
     by_origin = _only(pd.DataFrame(metrics.get("by_origin", [])), every_model)
     by_horizon = _only(pd.DataFrame(metrics.get("by_horizon", [])), every_model)
     if len(by_origin) and by_origin["origin"].nunique() > 1:
-        pictures.append(jobs.later(10, plots.error_picture, by_origin, "origin", "origin"))
+        pictures.append(jobs.later(10, plots.error_picture, by_origin, "origin", "origin", cadence))
     if len(by_horizon) and by_horizon["horizon"].nunique() > 1:
-        pictures.append(jobs.later(10, plots.error_picture, by_horizon, "horizon", "months ahead"))
+        pictures.append(jobs.later(10, plots.error_picture, by_horizon, "horizon", f"{cadence.plural} ahead",
+                                   cadence))
     return pictures
 
 
@@ -534,7 +490,8 @@ def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
                                   (metrics.get("best_rule"), recommended))
     all_predictions = predictions
     predictions = predictions[predictions["model"].isin(every_model)]
-    backtest_pictures = _backtest_pictures(jobs, metrics, history, predictions, every_model)
+    cadence = files.cadence()
+    backtest_pictures = _backtest_pictures(jobs, metrics, history, predictions, every_model, cadence)
 
     series_count = len(data.get("series", [])) or metrics.get("series_count", 0)
     per_series = per_series_view(
@@ -543,7 +500,8 @@ def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
         level=metrics.get("significance_level", 0.05), series_count=series_count)
     if per_series is not None:
         drawn = list(dict.fromkeys([*every_model, *per_series["models"], per_series["featured"]]))
-        per_series["histogram"] = jobs.later(8, plots.skill_histogram, series_table, per_series["models"], drawn)
+        per_series["histogram"] = jobs.later(8, plots.skill_histogram, series_table, per_series["models"], drawn,
+                                             cadence)
         worst = all_predictions[all_predictions["series"].isin(set(per_series["worst"]["series"]))
                                 & all_predictions["model"].isin(drawn)]
         per_series["pictures"] = [
@@ -555,7 +513,7 @@ def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
     forecast_table, method = stated_forecast(forecast, coverage, recommended)
     first_screen = jobs.later(13, first_screen_view, history, forecast_table, method, recommended)
     forecast_rows = len(forecast_table) if forecast_table is not None else 0
-    held_by = held_by_view(files.table("interval_coverage_by.csv"), recommended, method)
+    held_by = held_by_view(files.table("interval_coverage_by.csv"), recommended, method, cadence)
     if forecast_table is not None:
         forecast_picture = jobs.later(44, plots.forecast_picture, history, forecast, recommended, method, scenarios)
         forecast_table = forecast_table.head(TABLE_ROWS)
@@ -591,4 +549,4 @@ def _report_view(files: RunFiles, jobs: PictureJobs) -> dict:
         select_by=metrics.get("select_by", "mae"),
         castline_version=metrics.get("castline_version", ""),
         versions=metrics.get("package_versions", {}),
-        spec_text=files.spec_text, cautions=CAUTIONS)
+        spec_text=files.spec_text, cautions=cautions(cadence), period=cadence)

@@ -13,7 +13,9 @@ from pathlib import Path
 import pandas as pd
 from pandas._libs.parsers import STR_NA_VALUES  # pandas' missing texts
 
+from pipeline.core.cadence import Cadence
 from pipeline.core.errors import UserError
+from pipeline.core.period_labels import cadence_of_labels
 from pipeline.present.run_checks import TABLES, check_document, check_table, check_text
 
 REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",
@@ -79,6 +81,19 @@ class RunFiles:
             self._tables[name] = frame
         return self._tables[name]
 
+
+    def cadence(self) -> Cadence:
+        """Return the spacing of the run's periods, read from how its labels are written
+        (``2024-03``, ``2024Q1``, ``2024-W05``): months for a run folder that holds none."""
+        if "cadence" not in self._tables:
+            labels = [str(self.fingerprint.get(key)) for key in ("first_period", "last_period")
+                      if self.fingerprint.get(key) is not None]
+            for name in ("history.csv", "forecast.csv"):
+                frame = self.table(name)
+                if frame is not None and "period" in frame.columns:
+                    labels += list(frame["period"].head(5))
+            self._tables["cadence"] = cadence_of_labels(labels)
+        return self._tables["cadence"]
 
     def _model_document(self) -> dict:
         """Return model.json as read ({} when absent: a run folder of an older castline)."""

@@ -18,9 +18,9 @@ from pipeline.present.first_screen import (
     pictured_series,
 )
 from pipeline.present.report import (
-    CAUTIONS,
     NAMES_SHOWN,
     TABLE_ROWS,
+    cautions,
     comparison_parts,
     drivers_view,
     named,
@@ -92,6 +92,7 @@ def render_summary(files: RunFiles) -> str:
         rows=rows, recommended=recommended, select_by=metrics["select_by"],
         level=metrics["significance_level"], series_count=series_count)
     ahead = ahead_view(metrics)
+    cadence = files.cadence()
     summary = render_markdown(
         "summary.md.j2", spec_name=metrics["spec_name"], run_id=metrics["run_id"],
         created=metrics["created"], verdict=metrics["verdict"], recommended=recommended,
@@ -111,6 +112,6 @@ def render_summary(files: RunFiles) -> str:
         per_series=per_series, series_names=named(data_print.get("series", [])),
         names_shown=NAMES_SHOWN, fit=_some(pd.DataFrame(metrics.get("fit", []))),
         diagnostics=_diagnostics(files), influential=_some(files.table("influential_rows.csv")),
-        notes=metrics.get("notes", []), data=data_print, cautions=CAUTIONS,
-        castline_version=metrics.get("castline_version", ""))
-    return with_track_record(summary, files.track, files.table("realised.csv"))
+        notes=metrics.get("notes", []), data=data_print, cautions=cautions(cadence),
+        castline_version=metrics.get("castline_version", ""), period=cadence)
+    return with_track_record(summary, files.track, files.table("realised.csv"), cadence)

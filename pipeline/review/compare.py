@@ -13,6 +13,7 @@ import pandas as pd
 
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.errors import UserError
+from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.read import rows_of, visible_runs
 from pipeline.record.ledger.store import json_records, plain
 from pipeline.review.history import CHANGED
@@ -75,9 +76,10 @@ PLANNED = "planned drivers changed"   # a month both runs forecast, its rows cha
 def month_changes(earlier: pd.DataFrame, later: pd.DataFrame) -> pd.DataFrame:
     """Return the months whose rows differ between two runs' inputs, each with what changed:
     actuals added, actuals revised, actuals removed, a new month to forecast, or the planned
-    drivers of a month to forecast changed."""
+    drivers of a month to forecast changed (a quarter or a week, as the periods' labels say)."""
     columns = ["period", "change", "earlier_actual_rows", "later_actual_rows"]
     both = earlier.merge(later, on="period", how="outer", suffixes=("_earlier", "_later"))
+    name = cadence_of_labels(both["period"]).name
     rows = []
     for row in both.sort_values("period").itertuples(index=False):
         old_actual = 0 if pd.isna(row.actual_rows_earlier) else int(row.actual_rows_earlier)
@@ -91,9 +93,9 @@ def month_changes(earlier: pd.DataFrame, later: pd.DataFrame) -> pd.DataFrame:
         elif old_actual > 0:
             change = "actuals revised" if new_actual == old_actual else "actuals added and revised"
         elif pd.isna(row.sha256_earlier):
-            change = "new month to forecast"
+            change = f"new {name} to forecast"
         elif pd.isna(row.sha256_later):
-            change = "month to forecast dropped"
+            change = f"{name} to forecast dropped"
         else:
             change = PLANNED
         rows.append({"period": row.period, "change": change, "earlier_actual_rows": old_actual,

@@ -9,6 +9,7 @@ consecutive runs. Nothing is written.
 from __future__ import annotations
 
 import json
+import re
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,8 +17,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import MONTH, Cadence
+from pipeline.core.catalogue import BASELINE, model_label
 from pipeline.core.formatting import format_percent
 from pipeline.core.intervals import SHORTFALL
+from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.read import latest_realised, rows_of, visible_runs
 from pipeline.review.compare import PLANNED, compare_runs
 from pipeline.review.history import metrics_history, realised_per_run
@@ -29,7 +33,8 @@ FAN_COLUMNS = ["period", "forecast_run_id", "run_period", "rerun", "horizon", "s
                "actual", "actual_series"]
 CHANGE_COLUMNS = ["earlier_run", "later_run", "earlier_period", "later_period", "spec", "data",
                   "planned", "recommended"]
-# The order the kinds of change in the input are told in: what came, then what was corrected.
+# The order the kinds of change in the input are told in: what came, then what was corrected
+# (compare names the period by its spacing: a new quarter or week to forecast ranks as a month).
 CHANGE_ORDER = {"actuals added": 0, "actuals revised": 1, "actuals added and revised": 2,
                 "actuals removed": 3, "new month to forecast": 4, "month to forecast dropped": 5}
 KEYS_SHOWN = 4            # spec keys named per pair of runs before "and N more"
@@ -72,16 +77,19 @@ def _span(periods: list[str]) -> str:
     return periods[0] if len(periods) == 1 else f"{periods[0]} to {periods[-1]}"
 
 
-def _data_words(comparison) -> str:
+def _change_rank(change: str) -> int:
+    return CHANGE_ORDER.get(re.sub(r"\b(quarter|week)\b", "month", change), len(CHANGE_ORDER))
+
+
+def _data_words(comparison, cadence: Cadence = MONTH) -> str:
     """Return the change in the input between two runs in words, from compare's months."""
     if comparison.earlier["input_sha256"] == comparison.later["input_sha256"]:
         return "the same input file"
     if not comparison.months_recorded:
         added = comparison.data_summary()["rows_with_actuals_added"]
-        return f"the input changed ({added:+,} rows with actuals); months not recorded"
+        return f"the input changed ({added:+,} rows with actuals); {cadence.plural} not recorded"
     parts = []
-    for change, group in sorted(comparison.months.groupby("change", sort=False),
-                                key=lambda item: CHANGE_ORDER.get(item[0], len(CHANGE_ORDER))):
+    for change, group in sorted(comparison.months.groupby("change", sort=False), key=lambda item: _change_rank(item[0])):
         periods = sorted(group["period"].astype(str))
         if change == "actuals added":
             parts.append(f"actuals added for {_span(periods)}")
@@ -111,12 +119,13 @@ def run_changes(conn: sqlite3.Connection, runs: pd.DataFrame, ledger_file: Path)
     ``castline compare`` finds it: spec keys, the input's months, planned drivers, and the
     recommended model."""
     rows = []
+    cadence = cadence_of_labels(runs["last_period"])
     for earlier, later in zip(runs.itertuples(), runs.iloc[1:].itertuples()):
         comparison = compare_runs(conn, earlier.run_id, later.run_id, ledger_file)
         models = (earlier.recommended, later.recommended)
         rows.append({"earlier_run": earlier.run_id, "later_run": later.run_id,
                      "earlier_period": earlier.last_period, "later_period": later.last_period,
-                     "spec": _spec_words(comparison.spec), "data": _data_words(comparison),
+                     "spec": _spec_words(comparison.spec), "data": _data_words(comparison, cadence),
                      "planned": _planned_words(comparison),
                      "recommended": "" if models[0] == models[1] else f"{models[0]} → {models[1]}"})
     return pd.DataFrame(rows, columns=CHANGE_COLUMNS)
@@ -198,7 +207,8 @@ def _streak_warning(conn: sqlite3.Connection, runs: pd.DataFrame) -> list[str]:
         streak += 1
     if streak < wanted:
         return []
-    return [f"the recommended model has not beaten the mean of the training months in the last {streak} tested "
+    mean = model_label(BASELINE, cadence_of_labels(runs["last_period"]))
+    return [f"the recommended model has not beaten the {mean} in the last {streak} tested "
             f"run(s) (output.warn_after_runs_without_skill: {wanted})"]
 
 
@@ -220,7 +230,7 @@ def history_book(conn: sqlite3.Connection, name: str, ledger_file: Path) -> Hist
     by_run, overall = realised_skill(latest, recommended) if len(latest) else (pd.DataFrame(), {})
     scored = scored.reset_index(drop=True)
     warnings = _outside_warnings(scored, runs) + _coverage_warnings(scored) + _streak_warning(conn, runs)
-    skill_warning = realised_skill_warning(overall) if overall else None
+    skill_warning = realised_skill_warning(overall, cadence_of_labels(runs["last_period"])) if overall else None
     warnings += [skill_warning] if skill_warning else []
     forecasts = rows_of(conn, "forecasts", runs["run_id"])
     return HistoryBook(

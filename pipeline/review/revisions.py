@@ -17,9 +17,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import period_labels
+from pipeline.core.cadence import cadence_named, period_labels
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
+from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.fingerprints import period_fingerprints
 from pipeline.spec import Spec, load_spec
 from pipeline.stages.check import CheckedData, check_data
@@ -117,7 +118,8 @@ def forecast_revisions(earlier: pd.DataFrame, later: pd.DataFrame, model: str | 
     both["change_in_widths"] = both["change"] / both["earlier_width_80"]
     table = both[REVISION_COLUMNS].sort_values(["period", "series"], kind="stable").reset_index(drop=True)
     if not len(table) and note is None:
-        note = f"the two runs forecast no month and series in common with {model}"
+        name = cadence_of_labels(pd.concat([old["period"], new["period"]])).name
+        note = f"the two runs forecast no {name} and series in common with {model}"
     elif note is None and table["earlier_width_80"].isna().all():
         note = (f"the earlier run's stated interval ({method}) has no 80% bounds of some width for "
                 f"these forecasts of {model}: the changes are not measured in widths")
@@ -148,7 +150,7 @@ def _input_as_recorded(run: dict, recorded: pd.DataFrame, months: list[str]
     then = recorded.set_index("period")["sha256"]
     if any(now.get(month) != then.get(month) for month in months):
         return None, None, (f"{spec.input.file} no longer holds what {run['run_id']} read in those "
-                      "months (the file has been replaced since)")
+                            f"{cadence_named(spec.input.period).plural} (the file has been replaced since)")
     return spec, data, None
 
 

@@ -12,8 +12,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import period_labels
-from pipeline.core.catalogue import BASELINE
+from pipeline.core.cadence import MONTH, Cadence, cadence_named, period_labels
+from pipeline.core.catalogue import BASELINE, model_label
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.formatting import format_percent, format_signed
 from pipeline.core.metrics import skill
@@ -222,7 +222,7 @@ def _signed(value: float) -> str:
     return format_signed(value)
 
 
-def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
+def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame, cadence: Cadence = MONTH) -> str | None:
     """Return a warning when forecasts of the latest run that has actuals now, from the model it
     recommended, missed by more than the backtest's 95% range of errors."""
     if not len(realised):
@@ -234,14 +234,14 @@ def _realised_warning(realised: pd.DataFrame, runs: pd.DataFrame) -> str | None:
     outside = judged[~judged["within_backtest_95"].astype(bool)]
     if not len(outside):
         return None
-    shown = "; ".join(f"{r.period} {r.series} ({r.horizon} month(s) ahead): error {_signed(r.error)} "
+    shown = "; ".join(f"{r.period} {r.series} ({r.horizon} {cadence.name}(s) ahead): error {_signed(r.error)} "
                       f"outside {_signed(r.backtest_low_95)} to {_signed(r.backtest_high_95)}"
                       for r in outside.head(3).itertuples())
     more = f"; and {len(outside) - 3} more" if len(outside) > 3 else ""
     return (f"realised accuracy: {len(outside)} of {len(judged)} forecasts from {latest} "
             f"({recommended}, the model it recommended) missed by more than the backtest's 95% "
             f"range of errors (about 1 in 20 would by chance; error = forecast − actual): "
-            f"{shown}{more}. The model may be getting worse, or the months just past were unusual.")
+            f"{shown}{more}. The model may be getting worse, or the {cadence.plural} just past were unusual.")
 
 
 def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool | None) -> tuple[str | None, int]:
@@ -262,27 +262,32 @@ def _skill_warning(spec: Spec, runs: pd.DataFrame, beats_now: bool | None) -> tu
     if streak < wanted:
         return None, streak
     since = record[len(record) - wanted][0][:10]
-    return (f"the recommended model has not beaten the mean of the training months in the last {wanted} tested "
+    mean = model_label(BASELINE, cadence_named(spec.input.period))
+    return (f"the recommended model has not beaten the {mean} in the last {wanted} tested "
             f"run(s) (since {since}; {streak} in a row): the plain average forecasts as well; "
             f"review the drivers (output.warn_after_runs_without_skill: {wanted})"), streak
 
 
 # Realised months (distinct months with an actual, paired across earlier runs) before realised
 # skill may raise a warning: a year, so every calendar month is in it once (common practice:
-# judge monthly forecasts over at least a full seasonal cycle; fewer months say little).
+# judge monthly forecasts over at least a full seasonal cycle; fewer months say little). Quarters
+# and weeks need a year of them alike: the cadence's season_lag (4 quarters, 52 weeks).
 REALISED_SKILL_MONTHS = 12
 
 
-def realised_skill_warning(overall: dict) -> str | None:
-    """Return a warning when, over at least REALISED_SKILL_MONTHS realised months, the
-    recommended forecasts were no more accurate than the forecasts of the mean of the training months."""
+def realised_skill_warning(overall: dict, cadence: Cadence = MONTH) -> str | None:
+    """Return a warning when, over at least a year of realised periods (REALISED_SKILL_MONTHS months,
+    4 quarters, 52 weeks), the recommended forecasts were no more accurate than the forecasts of
+    the mean of the training periods. ``overall["months"]`` counts the distinct periods paired."""
     value = overall.get("skill", float("nan"))
-    if overall.get("months", 0) < REALISED_SKILL_MONTHS or not np.isfinite(value) or value > 0:
+    needed = REALISED_SKILL_MONTHS if cadence.name == "month" else cadence.season_lag
+    if overall.get("months", 0) < needed or not np.isfinite(value) or value > 0:
         return None
-    return (f"Over the last {overall['months']} realised months, the recommended forecasts were no "
-            f"more accurate than the forecasts of the mean of the training months (realised skill {format_percent(value)}; "
+    mean = model_label(BASELINE, cadence)
+    return (f"Over the last {overall['months']} realised {cadence.plural}, the recommended forecasts were no "
+            f"more accurate than the forecasts of the {mean} (realised skill {format_percent(value)}; "
             f"{overall['forecasts']} forecasts from {overall['runs']} earlier run(s), "
-            "1 − MAE of the recommended model / MAE of the mean of the training months)")
+            f"1 − MAE of the recommended model / MAE of the {mean})")
 
 
 # Beyond this many different specs tried on one input, a win may be the luck of the search.
@@ -312,11 +317,11 @@ def specs_tried(conn: sqlite3.Connection | None, spec: Spec, data: CheckedData) 
     return len(hashes)
 
 
-def _search_warning(tried: int) -> str | None:
+def _search_warning(tried: int, cadence: Cadence = MONTH) -> str | None:
     if tried <= SPECS_TRIED_WARNING:
         return None
     return (f"{tried} different specs have been run on this same input: the more specs you try, "
-            "the likelier one beats the average by luck; judge the one you keep on months none "
+            f"the likelier one beats the average by luck; judge the one you keep on {cadence.plural} none "
             "of them has seen")
 
 
@@ -352,11 +357,12 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
         realised = _empty_realised()
     recommended = dict(zip(runs["run_id"], runs["recommended"]))
     by_run, overall = realised_skill(realised, recommended)
-    warnings = [w for w in [_realised_warning(realised, runs)] if w]
+    cadence = cadence_named(spec.input.period)
+    warnings = [w for w in [_realised_warning(realised, runs, cadence)] if w]
     backtest_skill, streak = _skill_warning(
         spec, runs, evaluation.beats_baseline if evaluation.tested else None)
-    warnings += [w for w in [backtest_skill, realised_skill_warning(overall)] if w]
-    search = _search_warning(tried)
+    warnings += [w for w in [backtest_skill, realised_skill_warning(overall, cadence)] if w]
+    search = _search_warning(tried, cadence)
     if search:
         warnings.append(search)
     return TrackRecord(ledger=path, realised=realised, by_horizon=summarise_realised(realised),

@@ -41,18 +41,20 @@ class Answer:
 
 
 def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str, level: float,
-            refusal: str | None) -> Answer:
+            refusal: str | None, cadence=None) -> Answer:
     """Return the answer in words: against the mean of the training months (the user's question) and the
-    best simple rule, with the Holm-adjusted p-values, or why there are none."""
+    best simple rule, with the Holm-adjusted p-values, or why there are none. The models' labels name
+    the periods by ``cadence`` (a Cadence: "the mean of the training quarters"; months when None)."""
     metric = select_by.upper()
     value = table.set_index("model")[select_by].astype(float)
     base, own = value[BASELINE], value[recommended]
-    name = model_label(recommended)
-    rule_name = model_label(best_rule)
+    name = model_label(recommended, cadence)
+    rule_name = model_label(best_rule, cadence)
+    mean = "the " + model_label(BASELINE, cadence)
     lower = metrics.skill(own, base)
     said = f"({format_number(own)} against {format_number(base)})"
     if recommended == BASELINE:
-        return Answer(f"No model or simple rule beats the mean of the training months out of sample on {metric}: "
+        return Answer(f"No model or simple rule beats {mean} out of sample on {metric}: "
                        "the plain average of each series' history is as good a forecast here.",
                        False, False)
     row = table.set_index("model").loc[recommended]
@@ -62,11 +64,11 @@ def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str
     untested = f" {refusal[0].upper()}{refusal[1:]}." if refusal else ""
     if is_simple_rule(recommended):
         if refusal:
-            lead = f"its {metric} is {lower:.0%} lower than that of the mean of the training months {said}"
+            lead = f"its {metric} is {lower:.0%} lower than that of {mean} {said}"
         elif beats:
-            lead = f"its {metric} is {lower:.0%} lower than that of the mean of the training months {said}; {against}"
+            lead = f"its {metric} is {lower:.0%} lower than that of {mean} {said}; {against}"
         else:
-            lead = (f"its {metric} is {lower:.0%} lower than that of the mean of the training months {said}, though by "
+            lead = (f"its {metric} is {lower:.0%} lower than that of {mean} {said}, though by "
                     f"the significance test that may be luck ({against})")
         return Answer(f"The best forecast here is a simple rule, the {name}: {lead}. No linear "
                        f"model does better.{untested}", beats, False)
@@ -75,28 +77,28 @@ def answer(table: pd.DataFrame, recommended: str, best_rule: str, select_by: str
     p_rule = float(row["p_best_rule_holm"])
     beats_rule = beats and (best_rule == BASELINE or (np.isfinite(p_rule) and p_rule < level))
     rule_said = f"{p_text(p_rule)}{adjusted_for(table, 'p_best_rule_holm', 'linear models')}"
-    no_rule = "; no simple rule beats the mean of the training months" if best_rule == BASELINE else ""
+    no_rule = f"; no simple rule beats {mean}" if best_rule == BASELINE else ""
     if refusal:
         versus = (f" and {over_rule:.0%} lower than the best simple rule's (the {rule_name}, "
                   f"{format_number(rule)})" if best_rule != BASELINE else "")
-        return Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than that of the mean of the training months "
+        return Answer(f"{name} has the lowest {metric}: {lower:.0%} lower than that of {mean} "
                        f"{said}{versus}{no_rule}.{untested}", False, False)
     if not beats:
         versus = (f", nor than the best simple rule, the {rule_name} ({format_number(rule)})"
                   if best_rule != BASELINE else no_rule)
         return Answer(f"{name} has the lowest {metric} ({format_number(own)} against "
-                       f"{format_number(base)} for the mean of the training months), but it is no better than the mean of the training months by the significance "
+                       f"{format_number(base)} for {mean}), but it is no better than {mean} by the significance "
                        f"test ({against}): the difference may be luck{versus}.", False, False)
     if best_rule == BASELINE:
-        return Answer(f"{name} beats the mean of the training months out of sample ({against}): its {metric} is "
+        return Answer(f"{name} beats {mean} out of sample ({against}): its {metric} is "
                        f"{lower:.1%} lower {said}{no_rule}.", True, True)
     if beats_rule:
-        return Answer(f"{name} beats the mean of the training months by {lower:.0%} and the best simple rule, the "
+        return Answer(f"{name} beats {mean} by {lower:.0%} and the best simple rule, the "
                        f"{rule_name}, by {over_rule:.0%} on {metric} out of sample ({format_number(own)} "
                        f"against {format_number(base)} and {format_number(rule)}; {against}; against the "
                        f"rule {rule_said}).",
                        True, True)
-    return Answer(f"{name} beats the mean of the training months by {lower:.0%} on {metric} out of sample "
+    return Answer(f"{name} beats {mean} by {lower:.0%} on {metric} out of sample "
                    f"({against}), but not clearly the best simple rule, the {rule_name}: its "
                    f"{metric} is {over_rule:.0%} lower than that rule's ({format_number(own)} "
                    f"against {format_number(rule)}), which may be luck ({rule_said}). The simple rule "

@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.core import metrics
+from pipeline.core.cadence import cadence_named
 from pipeline.core.catalogue import BASELINE, LOWER_IS_BETTER, METRIC_NAMES, METRICS, model_label
 from pipeline.core.forked import called, map_shared
 from pipeline.core.formatting import format_number
@@ -573,7 +574,7 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
                        | ((table[select_by] < baseline_value - 1e-9 * abs(baseline_value)) & ~np.asarray(same))]
     contenders = contenders[contenders[select_by].notna()]
     recommended = str(contenders.sort_values(select_by, kind="stable")["model"].iloc[0])
-    answer = compose_answer(table, recommended, best_rule, select_by, level, refusal)
+    answer = compose_answer(table, recommended, best_rule, select_by, level, refusal, cadence_named(spec.input.period))
     # The tables by origin, months ahead and series, and the intervals' coverage, are computed
     # side by side with a forked copy of this process where the machine allows (core.forked).
     (by_origin, by_horizon, by_series), (held, held_by) = map_shared(called, [
