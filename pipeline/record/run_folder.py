@@ -20,6 +20,7 @@ from pathlib import Path
 import pandas as pd
 import yaml
 
+from pipeline.core.cadence import period_labels
 from pipeline.core.columns import PERIOD, SERIES
 from pipeline.core.errors import UserError
 from pipeline.core.paths import USER_ERRNOS, PathError, os_problem
@@ -93,8 +94,8 @@ def fingerprint(data: CheckedData) -> dict:
         "rows": len(data.raw.frame),
         "history_rows": len(data.history),
         "future_rows": len(data.future),
-        "first_period": str(data.first_period),
-        "last_period": str(data.last_period),
+        "first_period": data.cadence.label(data.first_period),
+        "last_period": data.cadence.label(data.last_period),
         "series": data.series_names,
         "problems_allowed": [
             {"check": p.check, "column": p.column, "row": p.row, "value": p.value, "count": p.count}
@@ -170,7 +171,7 @@ def _write_tables(staging: Path, spec: Spec, data: CheckedData, backtest: Backte
     """Write the run's tables (CSV) and its model file into the staging folder."""
     history = data.history[[PERIOD, SERIES, spec.target]].rename(
         columns={PERIOD: "period", SERIES: "series", spec.target: "actual"}).assign(
-        period=lambda t: t["period"].astype(str))
+        period=lambda t: period_labels(t["period"]))
     tables = [(backtest.predictions, "predictions.csv"), (forecast.coefficients, "coefficients.csv"),
               (forecast.forecast, "forecast.csv"), (forecast.diagnostics, "diagnostics.csv"),
               (forecast.vif, "vif.csv"), (forecast.influential, "influential_rows.csv"),

@@ -340,7 +340,7 @@ def track_record(spec: Spec, data: CheckedData, evaluation, *,
     else:
         with reading(path) as conn:
             runs = visible_runs(conn, spec.name)
-            forecasts = _earlier_forecasts(conn, runs, str(data.last_period))
+            forecasts = _earlier_forecasts(conn, runs, data.cadence.label(data.last_period))
             expected = _expected_errors(conn, runs["run_id"])
             latest = latest_realised(conn, runs)
             tried = specs_tried(conn, spec, data)

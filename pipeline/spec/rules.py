@@ -165,10 +165,10 @@ def _check_models(spec: Spec, fail: Fail) -> list[SpecError]:
     for choice in spec.models[1:]:
         if MODELS[choice.kind].can("needs_time_order"):
             index = written.index(choice.kind) if choice.kind in written else 0
-            problems.append(fail(("models", index), f"'{choice.kind}' needs months in time order; "
+            problems.append(fail(("models", index), f"'{choice.kind}' needs periods in time order; "
                                  f"validation method '{spec.validation.method}' has none"))
     if METRIC_BY_NAME[spec.select_by].needs_time_order:
-        problems.append(fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs months in "
+        problems.append(fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs periods in "
                              "time order; choose another metric "
                              f"for validation method '{spec.validation.method}'"))
     return problems

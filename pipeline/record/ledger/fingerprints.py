@@ -24,6 +24,7 @@ from datetime import datetime
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import label_of
 from pipeline.core.columns import PERIOD, ROW, SERIES, internal
 from pipeline.stages.check import CheckedData
 
@@ -87,6 +88,6 @@ def period_fingerprints(data: CheckedData) -> pd.DataFrame:
     for start, end in zip(starts, [*starts[1:], len(rows)], strict=True):
         digest = hashlib.sha256((head + ", ".join(lines[start:end]) + "]]").encode("utf-8")).hexdigest()
         actual = int(actuals[start:end].sum())
-        out.append({"period": str(periods.iloc[start]), "actual_rows": actual,
+        out.append({"period": label_of(periods.iloc[start]), "actual_rows": actual,
                     "planned_rows": int(end - start) - actual, "sha256": digest})
     return pd.DataFrame(out, columns=["period", "actual_rows", "planned_rows", "sha256"])

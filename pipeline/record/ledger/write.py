@@ -68,7 +68,8 @@ def run_rows(*, run_id: str, created: datetime, spec: Spec, resolved: dict, data
             "spec_name": spec.name, "spec_hash": spec_hash(resolved),
             "spec_json": json.dumps(resolved, sort_keys=True, ensure_ascii=False),
             "input_sha256": data.raw.sha256, "castline_version": __version__,
-            "first_period": str(data.first_period), "last_period": str(data.last_period),
+            "first_period": data.cadence.label(data.first_period),
+            "last_period": data.cadence.label(data.last_period),
             "history_rows": len(data.history), "future_rows": len(data.future),
             "recommended": evaluation.recommended, "select_by": evaluation.select_by,
             # Empty when the validation gave no test: the run says nothing either way.
