@@ -72,6 +72,16 @@ TINY: dict[str, tuple[list[str], list[str]]] = {
     ),
     # The rule's cost on a 300 x 4 design, the refined fits at 21 rows (beside their exact
     # rational solutions), the whole run of a panel of 3 series x 40 months; no baseline tree.
+    # Weekly, monthly and quarterly runs of 3 series x 120 periods beside the weekly loop.
+    "bench_periods.py": (
+        ["--series", "3", "--periods", "120"],
+        [r"panel: 3 series x 120 periods = 360 rows, 12 origins at horizon 4",
+         rf"\(a\) castline run, weekly\s+{NUMBER} s\s+peak\s+{NUMBER} MB",
+         rf"\(a\) castline run, quarterly\s+{NUMBER} s\s+peak\s+{NUMBER} MB",
+         rf"\(b\) hand-written statsmodels loop, weekly\s+{NUMBER} s",
+         rf"ratio \(b\)/\(a\) on weeks = {NUMBER}x \(target >= 1x: (met|MISSED)\)",
+         rf"weekly run / monthly run = {NUMBER}x \(target <= 1\.25x: (met|MISSED)\)"],
+    ),
     "bench_precision.py": (
         ["--repeats", "1", "--sizes", "300x4", "--poly-rows", "21", "--runs", "panel",
          "--panel-series", "3", "--panel-months", "40"],
