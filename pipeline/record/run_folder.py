@@ -33,7 +33,7 @@ from pipeline.record.model_file import StoredIntervals, model_document
 from pipeline.record.safe_csv import write_csv, write_csvs
 from pipeline.record.stored_steps import StoredSteps
 from pipeline.spec import Spec
-from pipeline.spec.wording import describe_validation
+from pipeline.spec.wording import describe_validation, resolved_form
 from pipeline.stages.backtest import BacktestResult
 from pipeline.stages.check import CheckedData
 from pipeline.stages.evaluate import Evaluation
@@ -218,7 +218,7 @@ def publish(spec: Spec, data: CheckedData, backtest: BacktestResult, evaluation:
                         "output folder")
     staging.mkdir()
     try:
-        resolved = spec.model_dump(mode="json")
+        resolved = resolved_form(spec)
         resolved["output"]["folder"] = str(folder.resolve())
         resolved["output"]["ledger"] = str(ledger.ledger_path(spec, folder))
         (staging / "spec.yaml").write_text(

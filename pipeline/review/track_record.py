@@ -20,6 +20,7 @@ from pipeline.core.metrics import skill
 from pipeline.record.ledger.read import latest_realised, rows_of, specs_on_input, visible_runs
 from pipeline.record.ledger.store import REALISED_COLUMNS, ledger_path, reading, spec_hash
 from pipeline.spec import Spec
+from pipeline.spec.wording import resolved_form
 from pipeline.stages.check import CheckedData
 
 
@@ -307,7 +308,7 @@ def modelling_hash(resolved: dict) -> str:
 def specs_tried(conn: sqlite3.Connection | None, spec: Spec, data: CheckedData) -> int:
     """Return how many different specs (by ``modelling_hash``) the ledger's runs on this very
     input tried, this run's included."""
-    hashes = {modelling_hash(spec.model_dump(mode="json"))}
+    hashes = {modelling_hash(resolved_form(spec))}
     if conn is not None:
         for text in specs_on_input(conn, data.raw.sha256):
             try:

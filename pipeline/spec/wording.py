@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pipeline.core.cadence import cadence_named
+from pipeline.spec.calendar_keys import CalendarFeatures
 from pipeline.spec.schema import Spec
 
 
@@ -20,3 +21,19 @@ def describe_validation(spec: Spec) -> str:
     if v.method == "kfold":
         return f"{v.folds}-fold cross-validation, shuffled with seed {v.seed}"
     return f"{v.folds}-fold cross-validation grouped by {', '.join(v.group_by)}"
+
+
+def resolved_form(spec: Spec) -> dict:
+    """Return the spec with every default filled in, as the run folder's spec.yaml and the
+    ledger hold it. Keys added with quarters and weeks are left out at their defaults (the
+    calendar's season, holidays and events; the name of forecast's count not given), so a
+    spec that does not use them resolves, and hashes, as it did before they were added."""
+    resolved = spec.model_dump(mode="json")
+    calendar = resolved["drivers"].get("calendar")
+    if calendar is not None:
+        for key in CalendarFeatures.STORED_ONLY_WHEN_GIVEN:
+            if calendar.get(key) in (None, [], {}):
+                calendar.pop(key, None)
+    if resolved.get("forecast") is not None:
+        resolved["forecast"] = {key: value for key, value in resolved["forecast"].items() if value is not None}
+    return resolved
