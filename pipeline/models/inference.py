@@ -21,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import MONTH, Cadence
 from pipeline.core.distributions import chi2_upper, f_upper, t_quantile, t_upper
 from pipeline.core.scale import unit_scale
 from pipeline.models.ols import (
@@ -358,7 +359,7 @@ def _fit_findings(fit: LeastSquaresFit, state: str) -> list[Finding]:
 
 
 def _residual_findings(fit: LeastSquaresFit, x: np.ndarray, runs: list[np.ndarray],
-                       absorbed_series, reading: str | None) -> list[Finding]:
+                       absorbed_series, reading: str | None, cadence: Cadence = MONTH) -> list[Finding]:
     """Return the residual tests: Durbin–Watson, Ljung–Box, Breusch–Pagan, Jarque–Bera; each NaN
     with ``reading`` when the residuals give none (an exact fit)."""
     dw_limits, p_limit = "between 1.5 and 2.5 (common practice)", f"p ≥ {ALPHA}"
@@ -369,13 +370,13 @@ def _residual_findings(fit: LeastSquaresFit, x: np.ndarray, runs: list[np.ndarra
     dw = durbin_watson(runs)
     dw_flag = bool(dw < 1.5 or dw > 2.5)
     findings = [Finding(names[0], dw, np.nan, dw_limits, dw_flag,
-                        "residuals look autocorrelated: one month's error carries into the next, so "
+                        f"residuals look autocorrelated: one {cadence.name}'s error carries into the next, so "
                         "classical standard errors are too small" if dw_flag
                         else "no sign of first-order autocorrelation" if np.isfinite(dw) else few)]
     q, q_p = ljung_box(np.concatenate(runs), 12)
     findings.append(Finding(names[1], q, q_p, p_limit, bool(q_p < ALPHA),
                             "residuals are autocorrelated within a year: a lag or season term may "
-                            "be missing" if q_p < ALPHA else "no autocorrelation found up to 12 months"
+                            "be missing" if q_p < ALPHA else f"no autocorrelation found up to 12 {cadence.plural}"
                             if np.isfinite(q_p) else few))
     bp, bp_p = breusch_pagan(fit.residuals, x[:, fit.kept], absorbed_series)
     findings.append(Finding(names[2], bp, bp_p, p_limit, bool(bp_p < ALPHA),
@@ -452,8 +453,8 @@ def _influence(fit: LeastSquaresFit, row_labels, influential_count: int,
 
 def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=None,
              row_labels=None, influential_count: int = 5,
-             term_groups: dict[str, str] | None = None, absorbed_series=None, target=None
-             ) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
+             term_groups: dict[str, str] | None = None, absorbed_series=None, target=None,
+             cadence: Cadence = MONTH) -> tuple[list[Finding], pd.DataFrame, pd.DataFrame]:
     """Return the diagnostics of a fit, the VIF table (per group of terms, ``term_groups``
     naming each column's group) and the most influential rows. ``absorbed_series``: the
     rows' series when the fit absorbed their levels (``matrix`` is then within series).
@@ -466,7 +467,7 @@ def diagnose(fit: LeastSquaresFit, matrix: np.ndarray, *, groups=None, order=Non
     reading = {FLAT: f"{FLAT_READING}; {EXACT_READING}", EXACT: EXACT_READING}.get(state)
     findings = _fit_findings(fit, state)
     findings += _residual_findings(fit, x, _ordered_residuals(fit.residuals, groups, order),
-                                   absorbed_series, reading)
+                                   absorbed_series, reading, cadence)
     design, vif = _design_findings(fit, x, term_groups)
     findings += design
     cooks, influential = _influence(fit, row_labels, influential_count, reading)

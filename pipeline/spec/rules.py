@@ -12,6 +12,7 @@ import re
 from collections.abc import Callable
 from datetime import UTC, datetime
 
+from pipeline.core.cadence import cadence_named
 from pipeline.core.catalogue import METRIC_BY_NAME, MODELS
 from pipeline.core.errors import SpecError
 from pipeline.core.holidays import HOLIDAYS
@@ -161,14 +162,15 @@ def _check_models(spec: Spec, fail: Fail) -> list[SpecError]:
     if spec.validation.method in TIME_ORDERED:
         return []
     problems = []
+    plural = cadence_named(spec.input.period).plural
     written = list(spec.origin.written_models) if spec.origin else [m.kind for m in spec.models[1:]]
     for choice in spec.models[1:]:
         if MODELS[choice.kind].can("needs_time_order"):
             index = written.index(choice.kind) if choice.kind in written else 0
-            problems.append(fail(("models", index), f"'{choice.kind}' needs periods in time order; "
+            problems.append(fail(("models", index), f"'{choice.kind}' needs {plural} in time order; "
                                  f"validation method '{spec.validation.method}' has none"))
     if METRIC_BY_NAME[spec.select_by].needs_time_order:
-        problems.append(fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs periods in "
+        problems.append(fail(("select_by",), f"{METRIC_BY_NAME[spec.select_by].label} needs {plural} in "
                              "time order; choose another metric "
                              f"for validation method '{spec.validation.method}'"))
     return problems

@@ -230,7 +230,7 @@ def _loss(actual: np.ndarray, predicted: np.ndarray, scale: np.ndarray,
     return np.abs(error)
 
 
-def test_refusal(backtest: BacktestResult, origins: int) -> str | None:
+def test_refusal(backtest: BacktestResult, origins: int, plural: str = "months") -> str | None:
     """Return why no p-value can be given for this validation, or None when the test runs.
 
     The test needs many forecast origins in time order: one holdout is one origin, whose
@@ -244,7 +244,7 @@ def test_refusal(backtest: BacktestResult, origins: int) -> str | None:
                 "rolling_origin tests the difference over many forecast origins")
     if origins < MIN_ORIGINS:
         return (f"{origins} forecast origins are too few for a test that holds its size (at least "
-                f"{MIN_ORIGINS}): no p-value is given; lower min_train_periods or step, or add months")
+                f"{MIN_ORIGINS}): no p-value is given; lower min_train_periods or step, or add {plural}")
     return None
 
 
@@ -541,7 +541,8 @@ def evaluate(spec: Spec, backtest: BacktestResult) -> Evaluation:
     table = _with_skill(_scores_by(predictions, ["model"]), [], select_by)
     notes = list(backtest.notes)
     ahead_notes, hindsight = _ahead_notes(spec, backtest, table)
-    refusal = test_refusal(backtest, int(predictions["origin"].nunique()))
+    refusal = test_refusal(backtest, int(predictions["origin"].nunique()),
+                           cadence_named(spec.input.period).plural)
     testable = refusal is None
     tests = [(np.nan, np.nan) if model == BASELINE else
              _tested(predictions, model, BASELINE, select_by, testable) for model in table["model"]]

@@ -253,7 +253,8 @@ def _least_squares_report(spec: Spec, data: CheckedData, model, kind: str, desig
         fit, matrix, groups=design.series, order=design.period,
         row_labels=_row_labels(data.history, design),
         term_groups=dict(zip(design.names, design.term_groups)) if design.term_groups else None,
-        absorbed_series=design.series if absorbed else None, target=fitted + fit.residuals)
+        absorbed_series=design.series if absorbed else None, target=fitted + fit.residuals,
+        cadence=design.cadence)
     diagnostics = findings_table(findings)
     residuals = pd.DataFrame({
         "period": design.cadence.labels(design.period),
