@@ -27,7 +27,7 @@ from contextlib import contextmanager
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import cadence_of
+from pipeline.core.cadence import cadence_of, label_of
 from pipeline.core.catalogue import LINEAR_KINDS
 from pipeline.core.columns import PERIOD, loaded_name, period_ordinals, plain_name
 from pipeline.core.design import Design
@@ -356,7 +356,7 @@ class FeaturePlan:
                 row, column = (int(i) for i in np.argwhere(too_large)[0])
                 at = frame.iloc[row]
                 raise DataError(f"the term '{self.get_feature_names_out()[column]}' is "
-                                f"{matrix[row, column]:g} for {at[PERIOD]} (series "
+                                f"{matrix[row, column]:g} for {label_of(at[PERIOD])} (series "
                                 f"'{at[self.series_column]}'), too large to fit; rescale the driver "
                                 "or lower its degree", file=self.source,
                                 row=first_row(frame, np.arange(len(frame)) == row))
@@ -391,7 +391,7 @@ class FeaturePlan:
             self._refuse_empty_terms(frame, table)
             row, column = (int(i) for i in np.argwhere(unavailable)[0])
             at = frame.iloc[row]
-            raise DataError(f"'{table.columns[column]}' is not available for {at[PERIOD]} (series "
+            raise DataError(f"'{table.columns[column]}' is not available for {label_of(at[PERIOD])} (series "
                             f"'{at[self.series_column]}'): the month it reads is before the "
                             "series starts or missing", file=self.source,
                             row=first_row(frame, np.arange(len(frame)) == row))
@@ -415,10 +415,11 @@ class FeaturePlan:
             if not usable.any():
                 raise DataError("no training row has every lag available: the lags reach further "
                                 "back than the training window holds", file=self.source)
-            left_out = frame[~usable]
+            left_out, word = frame[~usable], cadence_of(frame).name
             notes.append(f"{which_rows(frame, ~usable)} were left out of every model's fit: their "
-                         f"lags reach before the first month of their series or into a missing "
-                         f"month (left out: {left_out[PERIOD].min()} to {left_out[PERIOD].max()})")
+                         f"lags reach before the first {word} of their series or into a missing "
+                         f"{word} (left out: {label_of(left_out[PERIOD].min())} to "
+                         f"{label_of(left_out[PERIOD].max())})")
         kept = frame[usable]
         y = kept[self.target].to_numpy(float) if self.target in kept.columns else np.empty(0)
         return self._design(kept, table.to_numpy()[usable], notes), y

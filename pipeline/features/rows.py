@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import label_of
 from pipeline.core.columns import PERIOD, ROW
 
 
@@ -20,7 +21,7 @@ def which_rows(frame: pd.DataFrame, mask: np.ndarray) -> str:
     """Return 'N of the M rows from 2019-01 to 2026-10' for the rows where mask holds."""
     text = f"{int(mask.sum())} of the {len(frame)} rows"
     if PERIOD in frame.columns and len(frame):
-        text += f" from {frame[PERIOD].min()} to {frame[PERIOD].max()}"
+        text += f" from {label_of(frame[PERIOD].min())} to {label_of(frame[PERIOD].max())}"
     return text
 
 

@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import Cadence, cadence_named, cadence_of
+from pipeline.core.cadence import Cadence, cadence_named, cadence_of, label_of
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import DataError
 from pipeline.core.schema_library import pandera_pandas
@@ -357,7 +357,7 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period,
         if new_level.any():
             row = _first(frame, new_level)
             problems.append(Problem("level not seen in history", driver.column, _row(row),
-                                    f"{row[driver.column]!r} in {row[PERIOD]} has no history to "
+                                    f"{row[driver.column]!r} in {label_of(row[PERIOD])} has no history to "
                                     "learn from", count=int(new_level.sum())))
     if spec.target_transform != "none":
         floor = 0.0 if spec.target_transform == "log" else -1.0
@@ -366,7 +366,7 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period,
             row = _first(frame, low)
             problems.append(Problem(f"not above {floor:g}, as target_transform: "
                                     f"{spec.target_transform} needs", target, _row(row),
-                                    f"{row[target]:g} in {row[PERIOD]} (series '{row[SERIES]}')",
+                                    f"{row[target]:g} in {label_of(row[PERIOD])} (series '{row[SERIES]}')",
                                     count=int(low.sum())))
     filled = spec.filled_driver_columns
     estimated = spec.estimated_columns
@@ -385,7 +385,7 @@ def _history_and_future(frame: pd.DataFrame, spec: Spec, as_of: pd.Period,
                 text = read_as_missing(raw, spec.input.csv, _row(row), driver) if raw else None
                 said = f" ({text!r}, read as missing{MISSING_HINT})" if text else ""
                 problems.append(Problem(word, driver, _row(row),
-                                        f"no value for {row[PERIOD]} (series '{row[SERIES]}'){said}"
+                                        f"no value for {label_of(row[PERIOD])} (series '{row[SERIES]}'){said}"
                                         + (_ESTIMATE_HINT if word != "driver missing" and not text else ""),
                                         count=int(empty.sum())))
     return problems + missing_given(frame, spec, future.to_numpy())

@@ -14,6 +14,8 @@ Lewis, Stock & Watson 2018) and Student's t with 2 degrees of freedom (Coroneo &
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -79,11 +81,12 @@ def backtest_of(predictions: pd.DataFrame, horizon: int = 3, scheme: str = "roll
 
 
 class Spec:
-    """The two settings evaluate reads."""
+    """The settings evaluate reads."""
 
     def __init__(self, select_by: str = "mae", significance_level: float = 0.05) -> None:
         self.select_by = select_by
         self.significance_level = significance_level
+        self.input = SimpleNamespace(period="month")
 
 
 def reference_test(d: np.ndarray) -> tuple[float, float]:

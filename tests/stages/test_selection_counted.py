@@ -8,6 +8,8 @@ size of the answer when several candidates are no better than the mean of the tr
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -23,6 +25,7 @@ class Spec:
 
     select_by = "mae"
     significance_level = 0.05
+    input = SimpleNamespace(period="month")
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -41,7 +41,8 @@ def test_monthly_dates_with_a_month_missing_pass_as_months():
 def test_monthly_dates_written_on_varying_days_pass_as_months():
     # day 1, 8, 15, 22, 1, ...: gaps of 10 to 52 days, no month holding two dates
     dates = [d + pd.Timedelta(days=(7 * k) % 28) for k, d in enumerate(MONTHS)]
-    check_spacing(frame(dates), spec("month"), "data.csv")
+    assert check_spacing(frame(dates), spec("month"), "data.csv") is None   # no refusal raised
+    assert one_a_period(pd.Series(dates), [], "month")    # one date a month, a month apart
 
 
 @pytest.mark.parametrize("period", ["month", "quarter", "week"])
