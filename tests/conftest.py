@@ -80,6 +80,17 @@ def run_cli(args: list[str]) -> tuple[int, str, str]:
     return code, out.getvalue(), err.getvalue()
 
 
+def run_spec(folder: Path, spec: dict) -> Path:
+    """Write a spec (a dict) as spec.yaml in the folder, run it as a user would and return the
+    run folder it wrote (the run must succeed)."""
+    import yaml
+    (folder / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False), encoding="utf-8")
+    code, _, err = run_cli(["run", str(folder / "spec.yaml")])
+    assert code == 0, err
+    (run,) = [path for path in (folder / spec["output"]["folder"]).iterdir() if path.is_dir()]
+    return run
+
+
 @pytest.fixture
 def demo_spec_path() -> Path:
     """The demo spec as shipped (rolling origins)."""

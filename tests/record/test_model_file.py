@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import TEST_DATA
+from conftest import TEST_DATA, run_cli
 
 from pipeline import cli
 from pipeline.core.errors import ModelFileError, UserError
@@ -250,8 +250,16 @@ def test_any_field_damaged_missing_or_added_stops_with_a_model_file_error_or_sti
     document = _document(name)
     rows = pd.read_csv(V1 / name / "rows.csv")
     path = tmp_path / "model.json"
+    outcomes = damaged_outcomes(document, _each_field(document, skip), rows, path)
+    assert "refused" in outcomes.values()
+
+
+def damaged_outcomes(document: dict, fields, rows: pd.DataFrame, path) -> dict:
+    """Return what loading and forecasting gives with each field (where, holder, key) set to a
+    value of each kind and removed, by (where, the value written); a removed field, or one
+    added beside it, must be refused."""
     outcomes = {}
-    for where, holder, key in _each_field(document, skip):
+    for where, holder, key in fields:
         for value in [*HOSTILE, "REMOVE"]:
             changed = copy.deepcopy(document)
             if value == "REMOVE":
@@ -259,12 +267,27 @@ def test_any_field_damaged_missing_or_added_stops_with_a_model_file_error_or_sti
             else:
                 holder(changed)[key] = value
             outcomes[(where, repr(value))] = _load_and_forecast(changed, rows, path)
-            if value == "REMOVE":
-                assert outcomes[(where, repr(value))] == "refused", where
+        assert outcomes[(where, "'REMOVE'")] == "refused", where
         added = copy.deepcopy(document)
         holder(added)[key + "_extra"] = holder(added)[key]
         assert _load_and_forecast(added, rows, path) == "refused", where
-    assert "refused" in outcomes.values()
+    return outcomes
+
+
+def forecast_as_its_run(folder, rows: str, tmp_path) -> pd.DataFrame:
+    """Forecast a fixture folder's rows from its model file; check the forecasts equal what its
+    run wrote (forecast.csv, to 1e-9, empirical bounds too) and return them beside the run's."""
+    output = tmp_path / "forecast.csv"
+    code, _, err = run_cli(["forecast", str(folder / "model.json"), str(folder / rows), "--output", str(output)])
+    assert code == 0, err
+    _assert_same_forecasts(output, folder)
+    theirs = pd.read_csv(folder / "forecast.csv")      # what the run wrote at the time
+    merged = pd.read_csv(output).merge(theirs, on=["period", "series", "model"], validate="one_to_one",
+                                       suffixes=("", "_run"))
+    assert len(merged) == len(theirs)
+    for column in EMPIRICAL:
+        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
+    return merged
 
 
 def _step_fields(document: dict):

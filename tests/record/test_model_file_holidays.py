@@ -9,12 +9,10 @@ from __future__ import annotations
 import copy
 import json
 
-import numpy as np
 import pandas as pd
 import pytest
-from test_model_file import EMPIRICAL, HOSTILE, V4, _assert_same_forecasts, _each_field, _load_and_forecast
+from test_model_file import V4, _each_field, _load_and_forecast, damaged_outcomes, forecast_as_its_run
 
-from pipeline import cli
 from pipeline.features.holidays import EventCounts, HolidayShares
 from pipeline.features.plan import PART_CLASSES
 
@@ -27,18 +25,9 @@ def _document() -> dict:
 
 
 @pytest.mark.parametrize("rows", ["rows.csv", "data.csv"])
-def test_the_holidays_model_file_forecasts_what_its_run_wrote(rows, tmp_path, capsys):
-    output = tmp_path / "forecast.csv"
-    code = cli.main(["forecast", str(FOLDER / "model.json"), str(FOLDER / rows), "--output", str(output)])
-    printed = capsys.readouterr()
-    assert code == 0, printed.err
-    _assert_same_forecasts(output, FOLDER)
-    mine = pd.read_csv(output)
-    theirs = pd.read_csv(FOLDER / "forecast.csv")      # what the run wrote at the time
-    merged = mine.merge(theirs, on=["period", "series", "model"], validate="one_to_one", suffixes=("", "_run"))
-    assert len(merged) == len(theirs) == 2 * 4 * 7     # two regions, four months, seven models
-    for column in EMPIRICAL:
-        np.testing.assert_allclose(merged[column], merged[f"{column}_run"], rtol=1e-9, atol=0, err_msg=column)
+def test_the_holidays_model_file_forecasts_what_its_run_wrote(rows, tmp_path):
+    merged = forecast_as_its_run(FOLDER, rows, tmp_path)
+    assert len(merged) == 2 * 4 * 7     # two regions, four months, seven models
 
 
 def test_the_holiday_parts_read_and_written_again_are_the_same_json():
@@ -65,19 +54,7 @@ def test_any_field_of_the_holiday_parts_damaged_missing_or_added_stops_with_a_mo
     path = tmp_path / "model.json"
     fields = list(_each_field(document, skip))
     assert len(fields) == 8                                # four fields in each of the two parts
-    outcomes = {}
-    for where, holder, key in fields:
-        for value in [*HOSTILE, "REMOVE"]:
-            changed = copy.deepcopy(document)
-            if value == "REMOVE":
-                del holder(changed)[key]
-            else:
-                holder(changed)[key] = value
-            outcomes[(where, repr(value))] = _load_and_forecast(changed, rows, path)
-        assert outcomes[(where, "'REMOVE'")] == "refused", where
-        added = copy.deepcopy(document)
-        holder(added)[key + "_extra"] = holder(added)[key]
-        assert _load_and_forecast(added, rows, path) == "refused", where
+    outcomes = damaged_outcomes(document, fields, rows, path)
     assert outcomes[("part 3 (HolidayShares) names", "'text'")] == "refused"
     # A holiday castline does not know, and a period that is none, are refused on loading.
     for key, value in [("names", ["midsummer"]), ("period_", "fortnight"), ("absent_", ["easter2"])]:

@@ -16,9 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
-import yaml
-
-from tests.conftest import run_cli
+from conftest import run_spec
 
 ORIGINS, HORIZON = 20, 4
 
@@ -44,11 +42,7 @@ def quarterly_run(tmp_path_factory) -> Path:
             "validation": {"method": "rolling_origin", "horizon": HORIZON, "origins": ORIGINS},
             "forecast": {"periods": HORIZON},
             "output": {"folder": "out"}}
-    (folder / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False))
-    code, out, err = run_cli(["run", str(folder / "spec.yaml")])
-    assert code == 0, err
-    (run,) = [path for path in (folder / "out").iterdir() if path.is_dir()]
-    return run
+    return run_spec(folder, spec)
 
 
 def independent_predictions() -> pd.DataFrame:

@@ -18,12 +18,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
-import yaml
+from conftest import run_spec
 
 from pipeline.core.cadence import WEEK
 from pipeline.core.columns import PERIOD
 from pipeline.features.calendar import FourierTerms, QuarterDummies, WeekDummies
-from tests.conftest import run_cli
 
 HORIZON, ORIGINS = 13, 10
 
@@ -51,11 +50,7 @@ def weekly_run(tmp_path_factory) -> Path:
             "validation": {"method": "rolling_origin", "horizon": HORIZON, "origins": ORIGINS},
             "forecast": {"periods": HORIZON},
             "output": {"folder": "out"}}
-    (folder / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False))
-    code, out, err = run_cli(["run", str(folder / "spec.yaml")])
-    assert code == 0, err
-    (run,) = [path for path in (folder / "out").iterdir() if path.is_dir()]
-    return run
+    return run_spec(folder, spec)
 
 
 def iso_label(day: pd.Timestamp) -> str:
@@ -157,10 +152,7 @@ def test_weekly_co2_with_its_gaps_filled_equals_statsmodels_on_pandas_interpolat
             "models": ["ols"],
             "validation": {"method": "rolling_origin", "horizon": 13, "origins": 12, "step": 4},
             "output": {"folder": "out"}}
-    (tmp_path / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False))
-    code, out, err = run_cli(["run", str(tmp_path / "spec.yaml")])
-    assert code == 0, err
-    (run,) = [path for path in (tmp_path / "out").iterdir() if path.is_dir()]
+    run = run_spec(tmp_path, spec)
 
     filled = weekly["co2"].interpolate(method="linear", limit_area="inside").to_numpy(float)
     thursday = (weekly.index - pd.Timedelta(days=2) - pd.Timestamp("1970-01-01")).days.to_numpy(float)
