@@ -423,13 +423,12 @@ FEWEST_DIGITS = 6   # below this, the coefficients as printed may be wrong
 def _digits_finding(precision) -> Finding:
     """Return how the coefficients were solved and how many of their digits are estimated right."""
     few = precision.digits < FEWEST_DIGITS
-    reading = precision.describe() + (
+    rule = (f" (a fit is refined when the condition number exceeds {REFINE_ABOVE_CONDITION:,.0f} "
+            f"or the estimate falls below {REFINE_BELOW:g})")
+    reading = precision.describe() + rule + (
         f"; fewer than {FEWEST_DIGITS}: the drivers are too close to collinear for the printed "
         "coefficients to be trusted; centre or rescale them, or lower a degree" if few else "")
-    return Finding(DIGITS_CHECK, float(precision.digits), np.nan,
-                   f"≥ 11 sought: refined in twice the working precision when the condition number "
-                   f"exceeds {REFINE_ABOVE_CONDITION:,.0f} or the estimate falls below {REFINE_BELOW:g}",
-                   bool(few), reading)
+    return Finding(DIGITS_CHECK, float(precision.digits), np.nan, "≥ 11 sought", bool(few), reading)
 
 
 def _influence(fit: LeastSquaresFit, row_labels, influential_count: int,
