@@ -13,7 +13,7 @@ from pathlib import Path
 
 from pipeline.core.catalogue import BASELINE, METRIC_NAMES, SKILL, column_label, model_label
 from pipeline.core.errors import UserError
-from pipeline.core.formatting import DASH_NOTE, format_cell, has_missing
+from pipeline.core.formatting import dash_note, format_cell, has_missing
 from pipeline.core.version import __version__
 
 EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
@@ -129,7 +129,7 @@ def _print_table(rows: list[dict], columns: list[str], align_right: tuple[str, .
         print("  ".join(v.rjust(w) if c in right else v.ljust(w)
                         for c, v, w in zip(columns, row, widths)).rstrip())
     if has_missing([[row[c] for c in columns] for row in rows]):
-        print(DASH_NOTE)
+        print(dash_note(cadence))
 
 
 def _command_run(args) -> int:
