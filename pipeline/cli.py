@@ -480,13 +480,13 @@ def _print_comparison(comparison, top: int) -> None:
         print(f"Coefficients: the {len(moves)} largest moves (change_in_se: the change in the "
               "earlier run's standard errors)")
         _print_table(moves.to_dict(orient="records"), list(moves.columns),
-                     align_right=("earlier", "later", "change", "change_in_se"))
+                     align_right=("earlier", "later", "change", "change_in_se"), cadence=cadence)
     else:
         print("Coefficients: no coefficient moved")
     print()
-    print("Metrics (backtest; skill = 1 − the select_by metric / that of the mean of the training months):")
+    print(f"Metrics (backtest; skill = 1 − the select_by metric / that of the {model_label(BASELINE, cadence)}):")
     metrics = comparison.metrics
-    _print_table(metrics.to_dict(orient="records"), list(metrics.columns))
+    _print_table(metrics.to_dict(orient="records"), list(metrics.columns), cadence=cadence)
 
 
 def _write_problems(target: Path, problems) -> None:

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
-from conftest import run_spec
+from conftest import run_cli, run_spec
 
 ORIGINS, HORIZON = 20, 4
 
@@ -119,3 +119,21 @@ def test_the_forecast_and_the_terms_count_quarters(quarterly_run):
     future = np.column_stack([np.ones(4), np.arange(len(data), len(data) + 4, dtype=float),
                               *[(np.array([4, 1, 2, 3]) == k).astype(float) for k in (2, 3, 4)]])
     np.testing.assert_allclose(ols["forecast"].to_numpy(float), reference.predict(future), rtol=1e-9)
+
+
+def test_history_and_compare_speak_of_quarters(quarterly_run):
+    # A second run of the same spec and data: the console's review tables name quarters.
+    folder = quarterly_run.parent.parent
+    code, _, err = run_cli(["run", str(folder / "spec.yaml")])
+    assert code == 0, err
+    (second,) = [path for path in quarterly_run.parent.iterdir() if path.is_dir() and path != quarterly_run]
+    code, out, err = run_cli(["compare", str(quarterly_run), str(second)])
+    assert code == 0, err
+    assert "no quarter's rows changed" in out
+    assert "that of the mean of the training quarters):" in out
+    assert "same quarter last year" in out and "trailing 4-quarter mean" in out
+    assert "month" not in out
+    code, out, err = run_cli(["history", str(folder / "spec.yaml")])
+    assert code == 0, err
+    assert "last actual quarter" in out and "2009Q3" in out
+    assert "month" not in out
