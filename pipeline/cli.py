@@ -143,7 +143,7 @@ def _command_run(args) -> int:
 
 def _cadence(labels):
     """Return the spacing of periods their labels are written in (months when none reads as one)."""
-    from pipeline.core.period_labels import cadence_of_labels
+    from pipeline.core.cadence import cadence_of_labels
     return cadence_of_labels(labels)
 
 

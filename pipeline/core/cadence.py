@@ -159,3 +159,34 @@ def period_labels(periods) -> list[str]:
     """Return how castline writes each of a Series or index of Periods (any castline spacing)."""
     index = pd.PeriodIndex(periods)
     return cadence_of_freq(index.dtype).labels(index.asi8)
+
+
+# Readers of labels alone, for code that holds only what castline wrote (CSVs, JSON, the ledger).
+
+def cadence_of_labels(labels, default: Cadence = MONTH) -> Cadence:
+    """Return the spacing of a column of period labels (its first that reads as one), else ``default``."""
+    for text in pd.Series(labels, dtype=object).dropna().astype(str).head(20):
+        try:
+            return cadence_of_label(text)
+        except ValueError:
+            continue
+    return default
+
+
+def year_before(label) -> str:
+    """Return the label of the same period a year earlier: 12 months, 4 quarters or 52 weeks back."""
+    cadence = cadence_of_label(label)
+    return cadence.label(cadence.parse(label) - cadence.season_lag)
+
+
+def first_days(labels) -> pd.DatetimeIndex:
+    """Return the first day of each labelled period (as a date axis places it)."""
+    texts = pd.Series(labels, dtype=object).astype(str)
+    cadence = cadence_of_labels(texts)
+    starts = {text: cadence.parse(text).start_time for text in texts.unique()}
+    return pd.DatetimeIndex([starts[text] for text in texts])
+
+
+def ordinal_of(label) -> int:
+    """Return a labelled period's ordinal (steps of its spacing since the period of 1970-01-01)."""
+    return int(parse_label(label).ordinal)

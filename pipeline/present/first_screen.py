@@ -15,9 +15,9 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+from pipeline.core.cadence import cadence_of_labels, first_days, year_before
 from pipeline.core.catalogue import model_label
 from pipeline.core.formatting import format_number, format_percent
-from pipeline.core.period_labels import cadence_of_labels, first_days, year_before
 from pipeline.present import plots
 
 NEXT_MONTHS = 3          # the periods whose numbers the first screen gives

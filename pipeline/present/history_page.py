@@ -16,10 +16,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from pipeline.core.cadence import MONTH, Cadence
+from pipeline.core.cadence import MONTH, Cadence, cadence_of_labels
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.intervals import closest_method, shortfall_warning
-from pipeline.core.period_labels import cadence_of_labels
 from pipeline.present import plots
 from pipeline.present.history_plot import FAN_MONTHS, fan_figure, history_figure, realised_figure
 from pipeline.present.picture_jobs import PictureJobs

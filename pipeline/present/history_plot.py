@@ -9,11 +9,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import Cadence
+from pipeline.core.cadence import Cadence, cadence_of_labels, ordinal_of
 from pipeline.core.catalogue import BASELINE, model_label
 from pipeline.core.errors import UserError
 from pipeline.core.formatting import format_signed
-from pipeline.core.period_labels import cadence_of_labels, ordinal_of
 
 # Reruns on the same last month are drawn to the right of the first run on it, spread over at
 # most this share of a month, so none reaches the next month's position.

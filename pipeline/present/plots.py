@@ -20,11 +20,10 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 
-from pipeline.core.cadence import MONTH, Cadence
+from pipeline.core.cadence import MONTH, Cadence, cadence_of_labels, first_days, year_before
 from pipeline.core.catalogue import model_label
 from pipeline.core.distributions import normal_order_medians
 from pipeline.core.formatting import format_number, format_signed
-from pipeline.core.period_labels import cadence_of_labels, first_days, year_before
 from pipeline.present.inline import (  # noqa: F401  (the pictures' encoding, named here as well)
     SVG_DOTS,
     SVG_MARKERS,

@@ -13,9 +13,8 @@ from pathlib import Path
 import pandas as pd
 from pandas._libs.parsers import STR_NA_VALUES  # pandas' missing texts
 
-from pipeline.core.cadence import Cadence
+from pipeline.core.cadence import Cadence, cadence_of_labels
 from pipeline.core.errors import UserError
-from pipeline.core.period_labels import cadence_of_labels
 from pipeline.present.run_checks import TABLES, check_document, check_table, check_text
 
 REQUIRED = ["metrics.json", "fingerprint.json", "spec.yaml", "predictions.csv", "forecast.csv",

@@ -11,9 +11,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pipeline.core.cadence import cadence_of_labels
 from pipeline.core.catalogue import BASELINE
 from pipeline.core.errors import UserError
-from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.read import rows_of, visible_runs
 from pipeline.record.ledger.store import json_records, plain
 from pipeline.review.history import CHANGED

@@ -17,11 +17,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import MONTH, Cadence
+from pipeline.core.cadence import MONTH, Cadence, cadence_of_labels
 from pipeline.core.catalogue import BASELINE, model_label
 from pipeline.core.formatting import format_percent
 from pipeline.core.intervals import SHORTFALL
-from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.read import latest_realised, rows_of, visible_runs
 from pipeline.review.compare import PLANNED, compare_runs
 from pipeline.review.history import metrics_history, realised_per_run

@@ -17,10 +17,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pipeline.core.cadence import cadence_named, period_labels
+from pipeline.core.cadence import cadence_named, cadence_of_labels, period_labels
 from pipeline.core.columns import PERIOD, ROW, SERIES
 from pipeline.core.errors import UserError
-from pipeline.core.period_labels import cadence_of_labels
 from pipeline.record.ledger.fingerprints import period_fingerprints
 from pipeline.spec import Spec, load_spec
 from pipeline.stages.check import CheckedData, check_data

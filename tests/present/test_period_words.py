@@ -14,10 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pipeline.core.cadence import MONTH, QUARTER, WEEK
+from pipeline.core.cadence import MONTH, QUARTER, WEEK, cadence_of_labels, first_days, ordinal_of, year_before
 from pipeline.core.catalogue import column_label, model_label
 from pipeline.core.formatting import markdown_table
-from pipeline.core.period_labels import cadence_of_labels, first_days, ordinal_of, year_before
 from pipeline.present import plots
 from pipeline.present.first_screen import _a_year_earlier, forecast_glance, next_months
 from pipeline.present.history_page import unchanged_words
@@ -311,11 +310,9 @@ def test_the_pages_of_a_quarterly_run_folder_speak_of_quarters(tiny_runs, tmp_pa
     assert "<h3>By quarters ahead</h3>" in report and "same quarter last year" in report
 
 
-def test_a_week_written_as_pandas_writes_it_reads_as_that_week():
-    # pandas writes the W-SUN period holding 2024-01-29 as its first and last day.
-    written = str(pd.Period("2024-01-29", freq="W-SUN"))
-    assert written == "2024-01-29/2024-02-04"
-    assert cadence_of_labels([written]) is WEEK
-    assert year_before(written) == "2023-01-30/2023-02-05"     # 364 days back, written alike
-    assert list(first_days([written])) == [pd.Timestamp("2024-01-29")]
-    assert ordinal_of(written) == ordinal_of("2024-W05")
+def test_a_week_label_reads_back_as_that_week():
+    # ISO 8601: week 5 of 2024 runs from Monday 29 January to Sunday 4 February.
+    assert cadence_of_labels(["2024-W05"]) is WEEK
+    assert year_before("2024-W05") == "2023-W05"     # 364 days back: Monday 30 January 2023
+    assert list(first_days(["2024-W05"])) == [pd.Timestamp("2024-01-29")]
+    assert ordinal_of("2024-W05") == pd.Period("2024-01-29", freq="W-SUN").ordinal
